@@ -1,0 +1,63 @@
+"""Command line: one thin subcommand per stage over the library.
+
+Each module in this package that defines ``add_parser(subparsers)`` and
+``run(args) -> int`` is a subcommand. Bad input (:class:`TemInputError`)
+prints one line and exits with status 2.
+"""
+from __future__ import annotations
+
+import argparse
+import importlib
+import pkgutil
+import sys
+
+from .. import SAFETY_NOTE, __version__
+from ..errors import TemInputError
+
+__all__ = ["main", "build_parser"]
+
+_ORDER = ["forward", "synth", "stack", "gate", "rhoa", "invert", "section", "export", "run", "demo"]
+
+
+def _command_modules():
+    names = [m.name for m in pkgutil.iter_modules(__path__) if not m.name.startswith("_")]
+    names.sort(key=lambda n: (_ORDER.index(n) if n in _ORDER else len(_ORDER), n))
+    for name in names:
+        mod = importlib.import_module(f"{__name__}.{name}")
+        if hasattr(mod, "add_parser") and hasattr(mod, "run"):
+            yield name, mod
+
+
+def build_parser() -> argparse.ArgumentParser:
+    parser = argparse.ArgumentParser(
+        prog="tem",
+        description="Land time-domain EM: raw recordings to stacked decays, apparent "
+        "resistivity, 1D models, sections and seismic-ready exports.",
+        epilog="CAUTION: " + SAFETY_NOTE,
+    )
+    parser.add_argument("--version", action="version", version=f"tem {__version__}")
+    sub = parser.add_subparsers(dest="command", metavar="COMMAND")
+    for name, mod in _command_modules():
+        p = mod.add_parser(sub)
+        p.set_defaults(_run=mod.run)
+    return parser
+
+
+def main(argv=None) -> int:
+    parser = build_parser()
+    args = parser.parse_args(argv)
+    if not getattr(args, "_run", None):
+        parser.print_help()
+        return 2
+    try:
+        return int(args._run(args) or 0)
+    except TemInputError as exc:
+        print(f"tem {args.command}: error: {exc}", file=sys.stderr)
+        return 2
+    except KeyboardInterrupt:  # pragma: no cover
+        print("tem: interrupted", file=sys.stderr)
+        return 130
+
+
+if __name__ == "__main__":  # pragma: no cover
+    sys.exit(main())

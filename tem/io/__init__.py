@@ -1,0 +1,1 @@
+"""Readers and writers: raw recordings (by format), products, exports."""
