@@ -1,0 +1,113 @@
+"""Depth of investigation (DOI) of a 1D model.
+
+Two measures:
+
+* ``cumulative_sensitivity_doi``: after Christiansen & Auken (2012), "A global
+  measure for depth of investigation", Geophysics 77(4), WB171-WB177. The
+  error-normalised Jacobian with respect to ln(rho) is summed over the data,
+  ``S_j = sum_i |J_ij| / s_i``, and accumulated from the bottom of the model
+  upwards, ``C(z) = sum of S_j over the part of the column below z`` (each
+  layer's sensitivity spread uniformly over its thickness; the half-space's at
+  its top). The DOI is the depth where ``C`` falls to a threshold. With this
+  normalisation ``C(z)`` bounds the summed absolute data change, in standard
+  errors, caused by changing every layer below ``z`` by up to one unit of
+  ln(rho) (a factor e). The published thresholds (about 0.6 standard and 0.8
+  conservative) are quoted from memory and UNVERIFIED; their paper's
+  normalisation may differ from ours. Default here: 0.8. Valid only in the
+  linearisation about the final model.
+* ``two_reference_doi``: Oldenburg & Li (1999), "Estimating depth of
+  investigation in DC resistivity and IP surveys", Geophysics 64(2),
+  403-416. ``R(z) = (m_A(z) - m_B(z)) / (m_A^ref - m_B^ref)`` from two
+  inversions with different reference models; the DOI is the shallowest depth
+  where ``R`` exceeds a cut-off (about 0.1-0.2, from memory, UNVERIFIED;
+  default 0.2).
+"""
+from __future__ import annotations
+
+import numpy as np
+
+__all__ = ["cumulative_sensitivity", "cumulative_sensitivity_doi", "two_reference_doi"]
+
+
+def cumulative_sensitivity(J, std, thickness):
+    """Summed error-normalised sensitivity per layer and its bottom-up cumulation.
+
+    Parameters
+    ----------
+    J : ndarray (N_data, M)
+        Jacobian with respect to ln(rho) of the M layers (last = half-space).
+    std : ndarray (N_data,)
+        Data standard errors.
+    thickness : ndarray (M-1,)
+        Layer thicknesses, m.
+
+    Returns
+    -------
+    S : ndarray (M,)
+        ``sum_i |J_ij| / s_i`` per layer.
+    C_top : ndarray (M,)
+        Cumulative sensitivity of the column from each layer top downwards.
+    """
+    J = np.asarray(J, float)
+    S = np.sum(np.abs(J) / np.asarray(std, float)[:, None], axis=0)
+    C_top = np.cumsum(S[::-1])[::-1]
+    return S, C_top
+
+
+def cumulative_sensitivity_doi(J, std, thickness, threshold=0.8):
+    """DOI (m) where the bottom-up cumulative sensitivity falls to ``threshold``.
+
+    Within a layer, ``C`` varies linearly with depth (uniform spreading). If
+    even the whole column below the first layer top exceeds ``threshold`` at
+    the top of the half-space, the DOI is the top of the half-space (the mesh
+    is too shallow to show where sensitivity ends; the caller should deepen it).
+    """
+    h = np.asarray(thickness, float)
+    S, C_top = cumulative_sensitivity(J, std, h)
+    ztop = np.concatenate([[0.0], np.cumsum(h)])
+    M = S.size
+    # C at the top of the half-space is S[-1]; walk upwards
+    if C_top[-1] >= threshold:
+        return float(ztop[-1])
+    for j in range(M - 2, -1, -1):
+        if C_top[j] >= threshold:
+            # inside layer j: C(z) = C_top[j+1] + S[j] * (ztop[j+1] - z) / h[j]
+            frac = (threshold - C_top[j + 1]) / S[j] if S[j] > 0 else 0.0
+            return float(ztop[j + 1] - frac * h[j])
+    return 0.0
+
+
+def two_reference_doi(m_a, m_b, mref_a, mref_b, thickness, cutoff=0.2):
+    """Oldenburg & Li (1999) DOI index and the depth where it exceeds ``cutoff``.
+
+    Parameters
+    ----------
+    m_a, m_b : ndarray (M,)
+        ln(rho) of two inversions that differ only in their reference models.
+    mref_a, mref_b : float or ndarray (M,)
+        The two reference models, ln(rho).
+    thickness : ndarray (M-1,), m
+
+    Returns
+    -------
+    doi : float, m
+        Depth to the top of the shallowest layer whose index exceeds ``cutoff``
+        (the top of the half-space if none does).
+    R : ndarray (M,)
+        The index per layer.
+    """
+    ma, mb = np.asarray(m_a, float), np.asarray(m_b, float)
+    den = np.broadcast_to(np.asarray(mref_a, float) - np.asarray(mref_b, float), ma.shape)
+    R = np.abs(ma - mb) / np.abs(den)
+    ztop = np.concatenate([[0.0], np.cumsum(np.asarray(thickness, float))])
+    over = np.flatnonzero(R > cutoff)
+    if over.size == 0:
+        return float(ztop[-1]), R
+    j = int(over[0])
+    if j == 0:
+        return 0.0, R
+    # interpolate between layer centres j-1 and j
+    zc = np.concatenate([ztop[:-1] + 0.5 * np.diff(ztop), [ztop[-1]]])
+    r0, r1 = R[j - 1], R[j]
+    f = (cutoff - r0) / (r1 - r0) if r1 != r0 else 0.0
+    return float(zc[j - 1] + f * (zc[j] - zc[j - 1])), R

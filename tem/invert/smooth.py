@@ -1,0 +1,328 @@
+"""Smooth (Occam) inversion on a fixed many-layer mesh.
+
+The model vector is the natural logarithm of layer resistivity, ``m = ln rho``
+(layers then the half-space). The misfit is chi-square per datum,
+``chi2 = (1/N) sum ((d_i - F_i(m)) / s_i)^2`` with per-datum standard errors
+``s_i``; the target is 1.
+
+Method: Occam inversion (Constable, Parker & Constable 1987, "Occam's
+inversion: a practical algorithm for generating smooth models from
+electromagnetic sounding data", Geophysics 52(3), 289-300). At every
+linearised step the Lagrange multiplier ``mu`` of the roughness term is
+searched with the true (nonlinear) misfit: the largest ``mu`` (smoothest
+model) whose misfit reaches the target is taken; while the target is out of
+reach, the ``mu`` of least misfit is taken.
+
+Everything here works on a generic forward callable ``fwd(m) -> (d, J)``
+(``J = dd/dm``, shape ``(N, M)``) and an optional cheaper ``predict(m) -> d``,
+so the algorithm is tested on toy problems independently of the EM kernel.
+"""
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+import numpy as np
+
+__all__ = [
+    "OccamResult",
+    "chi2_per_datum",
+    "roughness_matrix",
+    "log_mesh",
+    "diffusion_depth",
+    "best_halfspace",
+    "occam",
+    "solve_regularised",
+]
+
+#: Bounds on ln(resistivity) during the search: 1e-3 .. 1e6 ohm-m (numerical guard only).
+LN_RHO_MIN = np.log(1e-3)
+LN_RHO_MAX = np.log(1e6)
+
+
+def chi2_per_datum(d_obs, d_pred, std) -> float:
+    """Chi-square divided by the number of data (target 1 for Gaussian errors).
+
+    Parameters
+    ----------
+    d_obs, d_pred, std : array_like, shape (N,)
+        Observed and predicted data and one standard error, in the data's unit.
+    """
+    r = (np.asarray(d_obs) - np.asarray(d_pred)) / np.asarray(std)
+    return float(np.dot(r, r) / r.size)
+
+
+def roughness_matrix(n: int, weights=None) -> np.ndarray:
+    """First-difference operator ``R`` (shape ``(n-1, n)``), ``(R m)_k = m_{k+1} - m_k``.
+
+    ``weights`` (length n-1) scales each row; default 1.
+    """
+    if n < 2:
+        return np.zeros((0, max(n, 0)))
+    R = np.zeros((n - 1, n))
+    idx = np.arange(n - 1)
+    R[idx, idx] = -1.0
+    R[idx, idx + 1] = 1.0
+    if weights is not None:
+        R *= np.asarray(weights, float)[:, None]
+    return R
+
+
+def diffusion_depth(rho, t):
+    """Diffusion depth ``sqrt(2 t rho / mu0)`` in m (REFERENCE.md section 3).
+
+    Parameters
+    ----------
+    rho : float or array, ohm-m
+    t : float or array, s
+    """
+    mu0 = 4e-7 * np.pi
+    return np.sqrt(2.0 * np.asarray(t, float) * np.asarray(rho, float) / mu0)
+
+
+def log_mesh(n_layers: int, depth_min: float, depth_max: float) -> np.ndarray:
+    """Thicknesses (m) of ``n_layers - 1`` layers above a half-space.
+
+    The first layer is ``depth_min`` thick and thicknesses grow by a constant
+    factor so that the half-space starts at ``depth_max``.
+    """
+    from scipy.optimize import brentq
+
+    if n_layers < 2:
+        raise ValueError("n_layers: need at least 2 (one layer over a half-space)")
+    if not (0 < depth_min < depth_max) or not np.isfinite(depth_max):
+        raise ValueError("mesh depth: need 0 < depth_min < depth_max")
+    n = n_layers - 1
+    if n == 1:
+        return np.array([float(depth_max)])
+    if depth_min * n >= depth_max:     # cannot grow: uniform layers
+        return np.full(n, depth_max / n)
+
+    def total(q):
+        return depth_min * (q ** n - 1.0) / (q - 1.0) - depth_max
+
+    q = brentq(total, 1.0 + 1e-9, 10.0)
+    h = depth_min * q ** np.arange(n)
+    return h * (depth_max / h.sum())
+
+
+def best_halfspace(predict_uniform, d_obs, std, rho_range=(0.1, 1e5)):
+    """Half-space resistivity (ohm-m) of least chi-square, by grid then bounded search.
+
+    ``predict_uniform(ln_rho) -> d`` predicts the data of a uniform earth.
+    The grid (4 points a decade) guards against the two-branch ambiguity of
+    early-time E-field data (REFERENCE.md 2.3); the best grid point is then
+    refined with a bounded scalar search.
+    """
+    from scipy.optimize import minimize_scalar
+
+    lo, hi = np.log(rho_range[0]), np.log(rho_range[1])
+    grid = np.linspace(lo, hi, int(round((hi - lo) / np.log(10) * 4)) + 1)
+
+    def f(x):
+        return chi2_per_datum(d_obs, predict_uniform(x), std)
+
+    vals = np.array([f(x) for x in grid])
+    k = int(np.argmin(vals))
+    a, b = grid[max(k - 1, 0)], grid[min(k + 1, grid.size - 1)]
+    res = minimize_scalar(f, bounds=(a, b), method="bounded", options={"xatol": 0.005})
+    x = res.x if res.fun <= vals[k] else grid[k]
+    return float(np.exp(x)), float(min(res.fun, vals[k]))
+
+
+def solve_regularised(Jw, rhat, R, mu, m_ref=None, ref_weight=0.0):
+    """Minimiser of ``||Jw m - rhat||^2 + mu ||R m||^2 + mu a ||m - m_ref||^2``.
+
+    Solved as a stacked least-squares problem (better conditioned than the
+    normal equations).
+    """
+    n = Jw.shape[1]
+    rows = [Jw, np.sqrt(mu) * R]
+    rhs = [rhat, np.zeros(R.shape[0])]
+    if ref_weight > 0 and m_ref is not None:
+        rows.append(np.sqrt(mu * ref_weight) * np.eye(n))
+        rhs.append(np.sqrt(mu * ref_weight) * np.asarray(m_ref, float))
+    A = np.vstack(rows)
+    b = np.concatenate(rhs)
+    m, *_ = np.linalg.lstsq(A, b, rcond=None)
+    return m
+
+
+@dataclass
+class OccamResult:
+    """Outcome of :func:`occam`.
+
+    Attributes
+    ----------
+    m : ndarray
+        Final model, ln(ohm-m).
+    d_pred : ndarray
+        Predicted data of ``m``.
+    J : ndarray
+        Jacobian ``dd/dm`` at ``m`` (for DOI and uncertainty).
+    chi2 : float
+        Chi-square per datum of ``m``.
+    mu : float
+        Final Lagrange multiplier of the roughness term.
+    roughness : float
+        ``||R m||^2``.
+    converged : bool
+        Target reached and the model stopped changing.
+    history : list of dict
+        Per iteration: chi2, mu, roughness.
+    """
+
+    m: np.ndarray
+    d_pred: np.ndarray
+    J: np.ndarray
+    chi2: float
+    mu: float
+    roughness: float
+    converged: bool
+    n_iter: int
+    history: list = field(default_factory=list)
+    message: str = ""
+
+
+def _mu_search(chi2_of_mu, mu_grid, target):
+    """Pick ``mu`` on a grid (true misfit), refining by bisection in log mu.
+
+    Returns (mu, chi2, model) of the largest mu with chi2 <= target, or of the
+    least misfit when no grid point reaches the target.
+    """
+    evals = [chi2_of_mu(mu) for mu in mu_grid]
+    chis = np.array([e[0] for e in evals])
+    ok = np.flatnonzero(chis <= target)
+    if ok.size:
+        k = int(ok.max())
+        best = (mu_grid[k], chis[k], evals[k][1])
+        if k + 1 < len(mu_grid):  # bisect between a passing and a failing mu
+            lo, hi = np.log(mu_grid[k]), np.log(mu_grid[k + 1])
+            for _ in range(3):
+                mid = 0.5 * (lo + hi)
+                c, m = chi2_of_mu(np.exp(mid))
+                if c <= target:
+                    lo, best = mid, (np.exp(mid), c, m)
+                else:
+                    hi = mid
+        return best
+    k = int(np.argmin(chis))
+    best = (mu_grid[k], chis[k], evals[k][1])
+    # one golden-type refinement on each side of the minimum
+    for j in (k - 1, k + 1):
+        if 0 <= j < len(mu_grid):
+            mu = np.sqrt(mu_grid[k] * mu_grid[j])
+            c, m = chi2_of_mu(mu)
+            if c < best[1]:
+                best = (mu, c, m)
+    return best
+
+
+def occam(fwd, d_obs, std, m0, R=None, *, predict=None, m_ref=None, ref_weight=0.0,
+          target=1.0, max_iter=20, mu0=None, decades=3.0, per_decade=1.0,
+          bounds=(LN_RHO_MIN, LN_RHO_MAX), tol=0.01, callback=None) -> OccamResult:
+    """Occam inversion (Constable, Parker & Constable 1987).
+
+    Parameters
+    ----------
+    fwd : callable
+        ``fwd(m) -> (d, J)``, prediction and Jacobian ``dd/dm`` of shape (N, M).
+    d_obs, std : ndarray, shape (N,)
+        Observed data and their standard errors (same unit, std > 0).
+    m0 : ndarray, shape (M,)
+        Starting model (ln ohm-m).
+    R : ndarray, shape (K, M), optional
+        Roughness operator; default first differences.
+    predict : callable, optional
+        ``predict(m) -> d`` without the Jacobian (used in the mu search).
+    m_ref, ref_weight : optional
+        Reference model and its weight relative to the roughness term
+        (``mu (||R m||^2 + ref_weight ||m - m_ref||^2)``); 0 disables it.
+    target : float
+        Target chi-square per datum (1 for correctly scaled errors).
+    max_iter : int
+        Maximum number of linearised steps.
+    mu0 : float, optional
+        Centre of the first mu search; default ``trace(Jw^T Jw) / trace(R^T R)``.
+    decades, per_decade : float
+        The mu grid at each step spans ``mu_prev * 10**(+-decades)``.
+    bounds : (float, float)
+        Numerical guard on ln(rho); models are clipped into it.
+    tol : float
+        Relative tolerance on misfit and roughness changes for convergence.
+    callback : callable, optional
+        Called with the history dict after each iteration.
+    """
+    d_obs = np.asarray(d_obs, float)
+    std = np.asarray(std, float)
+    if d_obs.shape != std.shape or d_obs.ndim != 1:
+        raise ValueError("data: d_obs and std must be 1-D arrays of the same length")
+    if not np.all(np.isfinite(std)) or np.any(std <= 0):
+        raise ValueError("error: standard errors must be positive and finite")
+    m = np.clip(np.asarray(m0, float).copy(), *bounds)
+    M = m.size
+    R = roughness_matrix(M) if R is None else np.asarray(R, float)
+    if predict is None:
+        def predict(mm):
+            return fwd(mm)[0]
+    w = 1.0 / std
+
+    d, J = fwd(m)
+    chi2 = chi2_per_datum(d_obs, d, std)
+    Jw = J * w[:, None]
+    if mu0 is None:
+        rtr = float(np.sum(R * R)) or 1.0
+        mu0 = float(np.sum(Jw * Jw)) / rtr or 1.0
+    mu = float(mu0)
+    history = []
+    converged = False
+    message = "maximum number of iterations reached"
+    it = 0
+    for it in range(1, max_iter + 1):
+        rhat = (d_obs - d) * w + Jw @ m
+        cache = {}
+
+        def chi2_of_mu(mu_try, _rhat=rhat, _Jw=Jw):
+            key = float(mu_try)
+            if key not in cache:
+                mt = np.clip(solve_regularised(_Jw, _rhat, R, mu_try, m_ref, ref_weight), *bounds)
+                cache[key] = (chi2_per_datum(d_obs, predict(mt), std), mt)
+            return cache[key]
+
+        n = int(round(2 * decades * per_decade)) + 1
+        grid = mu * np.logspace(-decades, decades, n)
+        mu_new, chi2_new, m_new = _mu_search(chi2_of_mu, grid, target)
+
+        if chi2_new > chi2 * (1 - 1e-6) and chi2 > target:
+            # No grid mu improves the misfit: try shorter steps towards the best model.
+            for frac in (0.5, 0.25, 0.1):
+                mt = m + frac * (m_new - m)
+                c = chi2_per_datum(d_obs, predict(mt), std)
+                if c < chi2:
+                    m_new, chi2_new = mt, c
+                    break
+            else:
+                message = "misfit cannot be reduced further; target not reached"
+                history.append(dict(iteration=it, chi2=chi2, mu=mu, roughness=float(np.sum((R @ m) ** 2))))
+                break
+
+        rough_old = float(np.sum((R @ m) ** 2))
+        rough_new = float(np.sum((R @ m_new) ** 2))
+        dm = float(np.max(np.abs(m_new - m)))
+        m, mu = m_new, float(mu_new)
+        chi2_old, chi2 = chi2, float(chi2_new)
+        d, J = fwd(m)
+        chi2 = chi2_per_datum(d_obs, d, std)
+        Jw = J * w[:, None]
+        rec = dict(iteration=it, chi2=chi2, mu=mu, roughness=rough_new)
+        history.append(rec)
+        if callback is not None:
+            callback(rec)
+        at_target = chi2 <= target * (1 + tol)
+        if at_target and (abs(rough_new - rough_old) <= tol * max(rough_old, 1e-12) or dm < 1e-3):
+            converged, message = True, "target misfit reached; model smoothest at target"
+            break
+        if not at_target and chi2 > chi2_old * (1 - tol) and it > 1:
+            message = "misfit stalled above target"
+            break
+    return OccamResult(m=m, d_pred=d, J=J, chi2=chi2, mu=mu, roughness=float(np.sum((R @ m) ** 2)),
+                       converged=converged, n_iter=it, history=history, message=message)
