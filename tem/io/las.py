@@ -1,0 +1,164 @@
+"""LAS 2.0 pseudo-wells: one file per station from a models Dataset (lasio).
+
+Each station's layered model becomes a log sampled on a regular depth axis
+(depth below the ground surface, m). Curves:
+
+* ``DEPT`` (m): depth below ground, from 0 to the bottom in steps of ``step``.
+* ``RES`` (ohm.m): resistivity of the layer holding the depth.
+* ``RSTD`` (log10(ohm.m)): posterior standard deviation of log10 resistivity.
+* ``BDOI`` (flag): 1 where the depth is below the depth of investigation, else 0.
+
+Missing values are written as the null value -999.25. ~Well uses the LAS 2.0
+mnemonics STRT STOP STEP NULL COMP WELL FLD LOC SRVC DATE UWI; ~Parameter
+holds the rest (coordinates, ground elevation, CRS, DOI, misfit, model kind).
+"""
+from __future__ import annotations
+
+import datetime as _dt
+import re
+from pathlib import Path
+
+import numpy as np
+
+from .. import __version__
+from ..errors import input_error
+from ..section import layer_values
+from .atomic import atomic_path
+
+__all__ = ["NULL", "station_log", "las_for_station", "write_las", "write_las_all", "safe_name"]
+
+NULL = -999.25
+
+
+def station_log(depth_top, resistivity, log10_std, doi, step, bottom):
+    """Sample one station's layered model on a regular depth axis.
+
+    Parameters
+    ----------
+    depth_top, resistivity, log10_std : array_like, shape (L,)
+        Layer tops (m), resistivities (ohm-m) and log10 standard deviations.
+    doi : float
+        Depth of investigation, m (NaN: unknown, no sample flagged).
+    step : float
+        Depth sample interval, m.
+    bottom : float
+        Last depth, m (rounded down to a multiple of ``step``).
+
+    Returns
+    -------
+    depth, res, std, flag : ndarray
+        Depth (m), resistivity (ohm-m), log10 std, below-DOI flag (0/1).
+    """
+    if not step > 0:
+        raise input_error("step", f"depth step must be positive, got {step}")
+    n = int(np.floor(bottom / step + 1e-9)) + 1
+    depth = np.arange(n) * step
+    top = np.asarray(depth_top, float)[None, :]
+    res = layer_values(top, np.asarray(resistivity, float)[None, :], depth)[0]
+    std = layer_values(top, np.asarray(log10_std, float)[None, :], depth)[0]
+    flag = (depth > doi).astype(float) if np.isfinite(doi) else np.zeros(n)
+    return depth, res, std, flag
+
+
+def safe_name(station):
+    """File-name-safe version of a station identifier."""
+    return re.sub(r"[^A-Za-z0-9._-]+", "_", str(station)) or "station"
+
+
+def las_for_station(models, i, step, bottom=None, mask_below_doi=False, source=""):
+    """A :class:`lasio.LASFile` for station ``i`` of a models Dataset.
+
+    Parameters
+    ----------
+    models : xarray.Dataset
+        Models file contents.
+    i : int
+        Station index.
+    step : float
+        Depth step, m.
+    bottom : float or None
+        Bottom of the log, m; default 1.25 times the station's DOI, or the
+        deepest layer top plus one layer when the DOI is unknown.
+    mask_below_doi : bool
+        Write the null value instead of resistivity below the DOI.
+    source : str
+        Name of the models file, recorded in the ~Parameter section.
+    """
+    import lasio
+
+    sid = str(models["station"].values[i])
+    top = models["depth_top"].values[i].astype(float)
+    res = models["resistivity"].values[i].astype(float)
+    std = models["log10_res_std"].values[i].astype(float)
+    doi = float(models["doi"].values[i])
+    if bottom is None:
+        finite_top = top[np.isfinite(top)]
+        deepest = float(finite_top.max()) if finite_top.size else 0.0
+        bottom = 1.25 * doi if np.isfinite(doi) else deepest + max(step, deepest * 0.1)
+    depth, r, s, flag = station_log(top, res, std, doi, step, bottom)
+    if mask_below_doi:
+        r = np.where(flag > 0, np.nan, r)
+    x, y, z = (float(models[c].values[i]) for c in ("x", "y", "z"))
+    epsg = int(models.attrs.get("epsg", 0) or 0)
+    crs = f"EPSG:{epsg}" if epsg else "unknown"
+
+    las = lasio.LASFile()
+    if "DLM" in las.version.keys():  # not a LAS 2.0 item
+        del las.version["DLM"]
+    las.well["NULL"].value = NULL
+    las.well["COMP"].value = ""
+    las.well["WELL"].value = sid
+    las.well["WELL"].descr = "WELL NAME (TEM station id)"
+    las.well["FLD"].value = ""
+    las.well["LOC"].value = f"X={x:.2f} Y={y:.2f} {crs}"
+    las.well["SRVC"].value = f"tem {__version__}"
+    las.well["DATE"].value = _dt.date.today().isoformat()
+    las.well["UWI"].value = sid
+    for key in ("PROV", "CNTY", "STAT", "CTRY", "API"):
+        if key in las.well.keys():
+            del las.well[key]
+    params = [
+        ("XCOORD", "m", x, "Station easting (projected X)"),
+        ("YCOORD", "m", y, "Station northing (projected Y)"),
+        ("EGL", "m", z, "Ground level elevation"),
+        ("PDAT", "", "GL", "Depth reference: ground level"),
+        ("CRS", "", crs, "Coordinate reference system of XCOORD YCOORD"),
+        ("EPSG", "", epsg, "EPSG code (0 = none)"),
+        ("DOI", "m", doi if np.isfinite(doi) else NULL, "Depth of investigation below ground"),
+        ("CHI2", "", float(models["chi2"].values[i]), "Chi-square per datum of the model"),
+        ("MKIND", "", str(models.attrs.get("model_kind", "")), "Model kind (smooth, few-layer, lci)"),
+        ("MASK", "", "YES" if mask_below_doi else "NO", "RES set to NULL below the DOI"),
+        ("SRC", "", Path(source).name if source else "", "Models file"),
+    ]
+    for mnem, unit, value, descr in params:
+        las.params.append(lasio.HeaderItem(mnem, unit=unit, value=value, descr=descr))
+    las.other = ("Pseudo-well from a 1D TEM resistivity model; an interpretation, not a "
+                 "measured log. Depths are below ground level.")
+    las.append_curve("DEPT", depth, unit="m", descr="Depth below ground level")
+    las.append_curve("RES", r, unit="ohm.m", descr="Model resistivity")
+    las.append_curve("RSTD", s, unit="log10(ohm.m)", descr="Std of log10 resistivity")
+    las.append_curve("BDOI", flag, unit="", descr="1 below depth of investigation")
+    return las
+
+
+def write_las(las, path):
+    """Write a LAS file as LAS 2.0, unwrapped, atomically."""
+    with atomic_path(path, suffix=".las") as tmp:
+        with open(tmp, "w", encoding="ascii", errors="replace", newline="\n") as fh:
+            las.write(fh, version=2.0, wrap=False, fmt="%.6g", STRT=None, STOP=None, STEP=None)
+    return Path(path)
+
+
+def write_las_all(models, out_dir, step, bottom=None, mask_below_doi=False, source=""):
+    """Write one ``<station>.las`` per station into ``out_dir``; returns the paths."""
+    out_dir = Path(out_dir)
+    paths = []
+    seen = set()
+    for i in range(models.sizes["station"]):
+        name = safe_name(models["station"].values[i])
+        if name in seen:
+            raise input_error("station", f"two stations map to the file name {name}.las", source or None)
+        seen.add(name)
+        las = las_for_station(models, i, step, bottom, mask_below_doi, source)
+        paths.append(write_las(las, out_dir / f"{name}.las"))
+    return paths

@@ -1,0 +1,272 @@
+"""The models file (``models.nc``): build, check, read, write, and CSV export.
+
+Contract: docs/data-model.md, "Models file". netCDF through xarray with the
+h5netcdf engine. ``tem_format = "models"``, ``format_version = "1.0"``;
+readers accept any 1.x and refuse other major versions.
+
+Station identifiers are the ``station`` coordinate (strings). A station
+with fewer layers than the ``layer`` dimension is padded with NaN
+resistivity; its last finite layer is the half-space.
+"""
+from __future__ import annotations
+
+import csv
+from pathlib import Path
+
+import numpy as np
+
+from .. import __version__
+from ..errors import input_error
+from ..provenance import records_from_json, records_to_json, stage_record
+from .atomic import atomic_path
+
+__all__ = [
+    "FORMAT",
+    "FORMAT_VERSION",
+    "CSV_COLUMNS",
+    "models_dataset",
+    "check_models",
+    "read_models",
+    "write_models",
+    "layer_rows",
+    "write_models_csv",
+    "layer_bottoms",
+    "export_record",
+]
+
+FORMAT = "models"
+FORMAT_VERSION = "1.0"
+MODEL_KINDS = ("smooth", "few-layer", "lci")
+
+_VARIABLES = {
+    "resistivity": ("station", "layer"),
+    "thickness": ("station", "layer"),
+    "depth_top": ("station", "layer"),
+    "log10_res_std": ("station", "layer"),
+    "doi": ("station",),
+    "chi2": ("station",),
+    "x": ("station",),
+    "y": ("station",),
+    "z": ("station",),
+}
+
+CSV_COLUMNS = (
+    "station", "x", "y", "z", "layer", "depth_top_m", "depth_bottom_m", "thickness_m",
+    "resistivity_ohmm", "log10_res_std", "below_doi", "doi_m", "chi2", "epsg",
+)
+
+
+def models_dataset(station, resistivity, thickness, x, y, z, doi, chi2,
+                   log10_res_std=None, model_kind="smooth", epsg=0, provenance=()):
+    """Build a models Dataset that satisfies the contract.
+
+    Parameters
+    ----------
+    station : sequence of str, length n
+        Station identifiers.
+    resistivity : array_like, shape (n, L)
+        Layer resistivity, ohm-m; the last finite value of a row is the
+        half-space; NaN pads shorter models.
+    thickness : array_like, shape (n, L)
+        Layer thickness, m; NaN for the half-space and padding.
+    x, y, z : array_like, shape (n,)
+        Station coordinates, m (projected; z up).
+    doi : array_like, shape (n,)
+        Depth of investigation, m.
+    chi2 : array_like, shape (n,)
+        Chi-square per datum.
+    log10_res_std : array_like, shape (n, L) or None
+        Posterior standard deviation of log10 resistivity; NaN if None.
+    model_kind : {"smooth", "few-layer", "lci"}
+    epsg : int
+        EPSG code of the coordinates, 0 if none.
+    provenance : sequence of dict
+        Stage records so far (:func:`tem.provenance.stage_record`).
+
+    Returns
+    -------
+    xarray.Dataset
+    """
+    import xarray as xr
+
+    res = np.atleast_2d(np.asarray(resistivity, float))
+    thk = np.atleast_2d(np.asarray(thickness, float))
+    if thk.shape != res.shape:
+        raise input_error("thickness", f"shape {thk.shape} differs from resistivity {res.shape}")
+    std = np.full(res.shape, np.nan) if log10_res_std is None else np.asarray(log10_res_std, float)
+    top = np.zeros(res.shape)
+    top[:, 1:] = np.cumsum(np.nan_to_num(thk[:, :-1], nan=0.0), axis=1)
+    top[~np.isfinite(res)] = np.nan
+    if model_kind not in MODEL_KINDS:
+        raise input_error("model_kind", f"unknown kind {model_kind!r}; valid: {', '.join(MODEL_KINDS)}")
+    sl = ("station", "layer")
+    ds = xr.Dataset(
+        {
+            "resistivity": (sl, res, {"units": "ohm-m"}),
+            "thickness": (sl, thk, {"units": "m"}),
+            "depth_top": (sl, top, {"units": "m"}),
+            "log10_res_std": (sl, std, {"units": "log10(ohm-m)"}),
+            "doi": ("station", np.asarray(doi, float), {"units": "m"}),
+            "chi2": ("station", np.asarray(chi2, float), {"units": "1"}),
+            "x": ("station", np.asarray(x, float), {"units": "m"}),
+            "y": ("station", np.asarray(y, float), {"units": "m"}),
+            "z": ("station", np.asarray(z, float), {"units": "m"}),
+        },
+        coords={"station": ("station", np.asarray(station).astype(str)),
+                "layer": ("layer", np.arange(res.shape[1]))},
+        attrs={
+            "tem_format": FORMAT,
+            "format_version": FORMAT_VERSION,
+            "tem_version": __version__,
+            "model_kind": model_kind,
+            "epsg": int(epsg),
+            "provenance": records_to_json(provenance),
+        },
+    )
+    return check_models(ds)
+
+
+def check_models(ds, file=None):
+    """Check a models Dataset against the contract; return it unchanged.
+
+    Raises :class:`tem.errors.TemInputError` naming ``file`` and the field:
+    wrong ``tem_format``, a major ``format_version`` other than 1, a missing
+    variable or one with the wrong dimensions.
+    """
+    fmt = ds.attrs.get("tem_format")
+    if fmt != FORMAT:
+        raise input_error("tem_format", f"expected {FORMAT!r}, found {fmt!r} (not a models file?)", file)
+    version = str(ds.attrs.get("format_version", ""))
+    major = version.split(".")[0]
+    if major != FORMAT_VERSION.split(".")[0]:
+        raise input_error("format_version", f"version {version!r} not supported; this tem "
+                          f"{__version__} reads {FORMAT_VERSION.split('.')[0]}.x", file)
+    for name, dims in _VARIABLES.items():
+        if name not in ds.variables:
+            raise input_error(name, "required variable missing", file)
+        if tuple(ds[name].dims) != dims:
+            raise input_error(name, f"dimensions {tuple(ds[name].dims)}, expected {dims}", file)
+    if "station" not in ds.coords:
+        raise input_error("station", "coordinate of station identifiers missing", file)
+    res = ds["resistivity"].values
+    if np.any(res[np.isfinite(res)] <= 0):
+        raise input_error("resistivity", "non-positive resistivity", file)
+    return ds
+
+
+def read_models(path):
+    """Read and check a models file; returns an in-memory Dataset.
+
+    Parameters
+    ----------
+    path : str or Path
+        netCDF file written by :func:`write_models`.
+    """
+    import xarray as xr
+
+    path = Path(path)
+    if not path.is_file():
+        raise input_error("models", "file not found", path)
+    try:
+        with xr.open_dataset(path, engine="h5netcdf") as ds:
+            ds = ds.load()
+    except (OSError, ValueError) as exc:
+        raise input_error("models", f"cannot be read as netCDF ({exc.__class__.__name__})", path) from None
+    return check_models(ds, path)
+
+
+def write_models(ds, path, record=None):
+    """Check and write a models Dataset atomically, appending a provenance record.
+
+    Parameters
+    ----------
+    ds : xarray.Dataset
+        Models Dataset (see :func:`models_dataset`).
+    path : str or Path
+        Output file (netCDF, h5netcdf engine).
+    record : dict or None
+        Stage record to append to ``provenance``.
+    """
+    check_models(ds)
+    out = ds.copy()
+    records = records_from_json(out.attrs.get("provenance"))
+    if record is not None:
+        records.append(record)
+    out.attrs["provenance"] = records_to_json(records)
+    out.attrs["tem_version"] = __version__
+    with atomic_path(path, suffix=".nc") as tmp:
+        out.to_netcdf(tmp, engine="h5netcdf")
+    return Path(path)
+
+
+def layer_bottoms(ds):
+    """Bottom depth of each layer, m: top + thickness; +inf for the half-space.
+
+    NaN for padding layers (NaN resistivity).
+    """
+    top = ds["depth_top"].values.astype(float)
+    thk = ds["thickness"].values.astype(float)
+    res = ds["resistivity"].values.astype(float)
+    bottom = np.where(np.isfinite(thk), top + thk, np.inf)
+    return np.where(np.isfinite(res), bottom, np.nan)
+
+
+def layer_rows(ds):
+    """One dict per present layer per station, in :data:`CSV_COLUMNS` order.
+
+    ``below_doi`` is 1 when the layer top is at or below the DOI (the whole
+    layer is not resolved), else 0. Missing numbers are empty strings; the
+    half-space has an empty ``depth_bottom_m`` and ``thickness_m``.
+    """
+    bottom = layer_bottoms(ds)
+    epsg = int(ds.attrs.get("epsg", 0) or 0)
+    rows = []
+    for i, sid in enumerate(ds["station"].values.astype(str)):
+        doi = float(ds["doi"].values[i])
+        for k in range(ds.sizes["layer"]):
+            rho = float(ds["resistivity"].values[i, k])
+            if not np.isfinite(rho):
+                continue
+            top = float(ds["depth_top"].values[i, k])
+            rows.append({
+                "station": sid,
+                "x": _num(ds["x"].values[i]),
+                "y": _num(ds["y"].values[i]),
+                "z": _num(ds["z"].values[i]),
+                "layer": k + 1,
+                "depth_top_m": _num(top),
+                "depth_bottom_m": _num(bottom[i, k]),
+                "thickness_m": _num(ds["thickness"].values[i, k]),
+                "resistivity_ohmm": _num(rho),
+                "log10_res_std": _num(ds["log10_res_std"].values[i, k]),
+                "below_doi": int(np.isfinite(doi) and top >= doi),
+                "doi_m": _num(doi),
+                "chi2": _num(ds["chi2"].values[i]),
+                "epsg": epsg,
+            })
+    return rows
+
+
+def _num(v):
+    v = float(v)
+    return repr(v) if np.isfinite(v) else ""
+
+
+def write_models_csv(ds, path):
+    """Write the layer table (:func:`layer_rows`) as CSV, atomically.
+
+    Columns: :data:`CSV_COLUMNS`; a header row, comma separated, UTF-8,
+    numbers with full float precision.
+    """
+    rows = layer_rows(ds)
+    with atomic_path(path, suffix=".csv") as tmp:
+        with open(tmp, "w", newline="", encoding="utf-8") as fh:
+            w = csv.DictWriter(fh, fieldnames=CSV_COLUMNS)
+            w.writeheader()
+            w.writerows(rows)
+    return Path(path)
+
+
+def export_record(stage, parameters, models_path=None):
+    """Stage record for an export made from a models file."""
+    return stage_record(stage, parameters, inputs=[models_path] if models_path else ())

@@ -1,0 +1,343 @@
+"""SEG-Y rev 1 sections of resistivity (segyio): depth or two-way time.
+
+Samples are 4-byte IEEE floats (data sample format code 5, allowed by SEG-Y
+rev 1), big-endian. One trace per grid column of a section Dataset from
+:func:`tem.section.stitch_models` (one per station, or resampled along the
+profile). The sample value is resistivity in ohm-m (or log10 resistivity with
+``value="log10"``); below the depth of investigation the sample is 0.0 unless
+``below_doi="keep"``.
+
+Depth files: the sample axis is depth in metres. The binary header (bytes
+3217-3218) and every trace header (bytes 117-118) hold the depth interval in
+millimetres in the field that a time section uses for microseconds, so that a
+program reading the file as time shows 1 ms per metre. The textual header
+states the depth step in plain words.
+
+Trace header bytes used (1-based, as in the standard): 1-4 trace sequence in
+line, 5-8 trace sequence in file, 9-12 field record (= CDP), 13-16 trace in
+record (1), 21-24 CDP, 25-28 trace in CDP (1), 29-30 trace identification
+(1), 41-44 receiver group elevation and 45-48 surface elevation at source
+(surface at the trace, scaled by 69-70), 53-56 and 57-60 datum elevation at
+group and source (top sample of elevation sections), 69-70 elevation scalar, 71-72 coordinate
+scalar, 73-76/77-80 source X/Y, 81-84/85-88 group X/Y, 89-90 coordinate
+units (1 = length), 109-110 delay (first sample, ms or m), 115-116 sample
+count, 117-118 sample interval, 181-184/185-188 CDP X/Y, 189-192 inline
+(line number), 193-196 crossline (= CDP), 233-236 DOI depth in cm (unassigned
+bytes, tem use), 237-240 DOI two-way time in microseconds (TWT files only).
+"""
+from __future__ import annotations
+
+from pathlib import Path
+
+import numpy as np
+
+from .. import __version__
+from ..errors import input_error
+from ..section import check_velocity_table, depth_to_twt, twt_to_depth
+from .atomic import atomic_path
+
+__all__ = [
+    "coordinate_scalar",
+    "apply_scalar",
+    "read_velocity_table",
+    "depth_section_traces",
+    "twt_section_traces",
+    "write_segy",
+    "BELOW_DOI",
+    "VALUES",
+]
+
+BELOW_DOI = ("zero", "keep")
+VALUES = ("resistivity", "log10")
+_INT32 = 2**31 - 1
+
+
+def coordinate_scalar(*values):
+    """SEG-Y coordinate scalar for bytes 71-72 (or elevation scalar 69-70).
+
+    Per the SEG-Y standard a negative scalar divides the stored integer and a
+    positive one multiplies it. The finest of -100 (cm), -10 (dm) and 1 (m)
+    at which every value fits a signed 32-bit integer is chosen.
+    """
+    vmax = max((float(np.nanmax(np.abs(v))) if np.size(v) and np.isfinite(v).any() else 0.0)
+               for v in values) if values else 0.0
+    for scalar, factor in ((-100, 100.0), (-10, 10.0), (1, 1.0)):
+        if vmax * factor < _INT32:
+            return scalar
+    raise input_error("x", f"coordinate {vmax:g} m too large for SEG-Y 32-bit headers")
+
+
+def _scaled(v, scalar):
+    """Integer to store for value ``v`` (m) under ``scalar``."""
+    factor = -scalar if scalar < 0 else 1.0 / scalar
+    return int(np.rint(v * factor)) if np.isfinite(v) else 0
+
+
+def apply_scalar(stored, scalar):
+    """Value in metres from a stored header integer and its SEG-Y scalar."""
+    stored = np.asarray(stored, float)
+    if scalar == 0:
+        return stored
+    return stored / -scalar if scalar < 0 else stored * scalar
+
+
+def read_velocity_table(path):
+    """Read a velocity-depth CSV: header ``depth_m,vp_m_per_s``, one row per interval.
+
+    ``depth_m`` is the top of the interval below the surface (m, first row 0,
+    strictly increasing) and ``vp_m_per_s`` its interval P velocity (m/s,
+    positive); the last velocity holds below the last depth. Lines starting
+    with ``#`` are comments.
+
+    Returns
+    -------
+    depth, velocity : ndarray
+    """
+    import csv
+
+    path = Path(path)
+    if not path.is_file():
+        raise input_error("velocity table", "file not found", path)
+    with open(path, newline="", encoding="utf-8") as fh:
+        lines = [ln for ln in fh if ln.strip() and not ln.lstrip().startswith("#")]
+    reader = csv.DictReader(lines)
+    fields = [f.strip() for f in (reader.fieldnames or [])]
+    for need in ("depth_m", "vp_m_per_s"):
+        if need not in fields:
+            raise input_error(need, f"column missing (header has: {', '.join(fields) or 'nothing'})", path)
+    z, v = [], []
+    for k, row in enumerate(reader, start=2):
+        row = {(key or "").strip(): val for key, val in row.items()}
+        for name, dest in (("depth_m", z), ("vp_m_per_s", v)):
+            try:
+                dest.append(float(row[name]))
+            except (TypeError, ValueError):
+                raise input_error(name, f"line {k}: not a number: {row[name]!r}", path) from None
+    return check_velocity_table(np.array(z), np.array(v), path)
+
+
+def _trace_values(grid, value, below_doi):
+    if value not in VALUES:
+        raise input_error("value", f"unknown sample value {value!r}; valid: {', '.join(VALUES)}")
+    if below_doi not in BELOW_DOI:
+        raise input_error("below_doi", f"unknown choice {below_doi!r}; valid: {', '.join(BELOW_DOI)}")
+    full = grid["log10_resistivity_full"].values
+    data = full if value == "log10" else 10.0**full
+    if below_doi == "zero":
+        data = np.where(grid["below_doi"].values, 0.0, data)
+    return np.nan_to_num(data, nan=0.0).astype(np.float32)
+
+
+def depth_section_traces(grid, value="resistivity", below_doi="zero"):
+    """Trace samples of a depth (or elevation) section grid.
+
+    Parameters
+    ----------
+    grid : xarray.Dataset
+        From :func:`tem.section.stitch_models`.
+    value : {"resistivity", "log10"}
+    below_doi : {"zero", "keep"}
+
+    Returns
+    -------
+    data : ndarray float32, shape (traces, samples)
+        Sample values; 0.0 where no model reaches or below the DOI.
+    first, step : float
+        First sample and sample interval, m (depth below surface, or depth
+        below the datum for elevation sections).
+    """
+    data = _trace_values(grid, value, below_doi)
+    vname = "depth" if "depth" in grid.dims else "elevation"
+    axis = grid[vname].values.astype(float)
+    step = float(grid.attrs["depth_step"])
+    first = float(axis[0]) if vname == "depth" else 0.0
+    return data, first, step
+
+
+def twt_section_traces(models_grid_fn, table_depth, table_velocity, dt, max_twt,
+                       value="resistivity", below_doi="zero"):
+    """Resample a section onto a regular two-way-time axis.
+
+    Parameters
+    ----------
+    models_grid_fn : callable
+        ``f(depth) -> grid Dataset`` evaluating the section at the given depth
+        samples below surface (m), e.g. a closure over
+        :func:`tem.section.stitch_models`. The model is sampled exactly at the
+        depth of every time sample (no double interpolation).
+    table_depth, table_velocity : array_like
+        Interval velocity table, m and m/s.
+    dt : float
+        Time sample interval, s.
+    max_twt : float
+        Last time, s.
+
+    Returns
+    -------
+    data : ndarray float32, shape (traces, samples)
+    twt : ndarray
+        Sample times, s.
+    grid : xarray.Dataset
+        The section evaluated at the sample depths.
+    doi_twt : ndarray
+        DOI of each trace as two-way time, s.
+    """
+    if not dt > 0 or not max_twt > 0:
+        raise input_error("dt", "time step and section length must be positive")
+    n = int(np.floor(max_twt / dt + 1e-9)) + 1
+    twt = np.arange(n) * dt
+    depth = twt_to_depth(twt, table_depth, table_velocity)
+    grid = models_grid_fn(depth)
+    data = _trace_values(grid, value, below_doi)
+    doi = grid["doi"].values
+    doi_twt = np.where(np.isfinite(doi), depth_to_twt(np.nan_to_num(doi), table_depth, table_velocity), np.nan)
+    return data, twt, grid, doi_twt
+
+
+def _text_header(lines):
+    cards = {}
+    for k, text in enumerate(lines[:39], start=1):
+        cards[k] = text[:76]
+    cards[40] = "END TEXTUAL HEADER"
+    import segyio
+
+    return segyio.tools.create_text_header(cards)
+
+
+def write_segy(path, data, grid, interval_field, first, domain, description=(),
+               line_number=1, doi_twt=None):
+    """Write traces and headers as SEG-Y rev 1 (IEEE float), atomically.
+
+    Parameters
+    ----------
+    path : str or Path
+        Output file.
+    data : ndarray float32, shape (traces, samples)
+    grid : xarray.Dataset
+        Section grid giving per-trace ``x``, ``y``, ``surface``, ``doi`` and
+        ``distance``.
+    interval_field : int
+        Value for the sample-interval fields (binary 3217-3218, trace
+        117-118): microseconds (time) or millimetres (depth).
+    first : float
+        First sample: ms (time) or m (depth); stored in bytes 109-110.
+    domain : {"depth", "elevation", "twt"}
+    description : sequence of str
+        Lines for the textual header (after the fixed lines).
+    line_number : int
+        Inline number (bytes 189-192).
+    doi_twt : ndarray or None
+        DOI as two-way time per trace, s (TWT files).
+    """
+    import segyio
+
+    if not 0 < interval_field <= 65535:
+        raise input_error("sample interval", f"{interval_field} does not fit SEG-Y bytes 3217-3218 "
+                          "(1..65535 us or mm)")
+    ntr, ns = data.shape
+    if ns > 65535:
+        raise input_error("samples", f"{ns} samples exceed the SEG-Y rev 1 limit 65535")
+    x = grid["x"].values.astype(float)
+    y = grid["y"].values.astype(float)
+    surf = grid["surface"].values.astype(float)
+    doi = grid["doi"].values.astype(float)
+    cs = coordinate_scalar(x, y)
+    datum = float(np.nanmax(grid["elevation"].values)) if domain == "elevation" else np.nan
+    es = coordinate_scalar(surf, np.array([0.0 if np.isnan(datum) else datum]))
+    spec = segyio.spec()
+    spec.samples = np.arange(ns, dtype=float)
+    spec.tracecount = ntr
+    spec.format = 5
+    spec.sorting = None
+    text = _text_header(list(description))
+    with atomic_path(path, suffix=".sgy") as tmp:
+        with segyio.create(str(tmp), spec) as f:
+            f.text[0] = text
+            f.bin.update({
+                segyio.BinField.JobID: 1,
+                segyio.BinField.LineNumber: line_number,
+                segyio.BinField.Traces: 1,
+                segyio.BinField.Interval: int(interval_field),
+                segyio.BinField.IntervalOriginal: int(interval_field),
+                segyio.BinField.Samples: ns,
+                segyio.BinField.SamplesOriginal: ns,
+                segyio.BinField.Format: 5,
+                segyio.BinField.EnsembleFold: 1,
+                segyio.BinField.SortingCode: 1,
+                segyio.BinField.MeasurementSystem: 1,
+                segyio.BinField.SEGYRevision: 1,
+                segyio.BinField.SEGYRevisionMinor: 0,
+                segyio.BinField.TraceFlag: 1,
+                segyio.BinField.ExtendedHeaders: 0,
+            })
+            T = segyio.TraceField
+            for k in range(ntr):
+                cdp = k + 1
+                h = {
+                    T.TRACE_SEQUENCE_LINE: cdp,
+                    T.TRACE_SEQUENCE_FILE: cdp,
+                    T.FieldRecord: cdp,
+                    T.TraceNumber: 1,
+                    T.CDP: cdp,
+                    T.CDP_TRACE: 1,
+                    T.TraceIdentificationCode: 1,
+                    T.ElevationScalar: es,
+                    T.ReceiverGroupElevation: _scaled(surf[k], es),
+                    T.SourceSurfaceElevation: _scaled(surf[k], es),
+                    T.SourceGroupScalar: cs,
+                    T.SourceX: _scaled(x[k], cs),
+                    T.SourceY: _scaled(y[k], cs),
+                    T.GroupX: _scaled(x[k], cs),
+                    T.GroupY: _scaled(y[k], cs),
+                    T.CoordinateUnits: 1,
+                    T.DelayRecordingTime: int(round(first)),
+                    T.TRACE_SAMPLE_COUNT: ns,
+                    T.TRACE_SAMPLE_INTERVAL: int(interval_field),
+                    T.CDP_X: _scaled(x[k], cs),
+                    T.CDP_Y: _scaled(y[k], cs),
+                    T.INLINE_3D: line_number,
+                    T.CROSSLINE_3D: cdp,
+                    T.UnassignedInt1: int(round(doi[k] * 100)) if np.isfinite(doi[k]) else -1,
+                }
+                if domain == "elevation":
+                    h[T.ReceiverDatumElevation] = _scaled(datum, es)
+                    h[T.SourceDatumElevation] = _scaled(datum, es)
+                if doi_twt is not None:
+                    h[T.UnassignedInt2] = int(round(doi_twt[k] * 1e6)) if np.isfinite(doi_twt[k]) else -1
+                f.header[k] = h
+                f.trace[k] = np.ascontiguousarray(data[k], dtype=np.float32)
+    return Path(path)
+
+
+def describe(grid, domain, step, value, below_doi, epsg, source="", velocity_file=""):
+    """Textual header lines (without the fixed END line) for a section file."""
+    vname = {"depth": "DEPTH BELOW GROUND", "elevation": "DEPTH BELOW DATUM", "twt": "TWO-WAY TIME"}[domain]
+    unit = "MS" if domain == "twt" else "M"
+    interval = {"twt": f"{step * 1e3:g} MS; BINARY 3217-3218 IN MICROSECONDS",
+                "depth": f"{step:g} M; BINARY 3217-3218 IN MILLIMETRES (1 MS = 1 M)",
+                "elevation": f"{step:g} M; BINARY 3217-3218 IN MILLIMETRES (1 MS = 1 M)"}[domain]
+    lines = [
+        f"TEM {__version__} RESISTIVITY SECTION FROM 1D TEM MODELS (AN INTERPRETATION)",
+        "SEG-Y REV 1, DATA FORMAT CODE 5: 4-BYTE IEEE FLOAT, BIG-ENDIAN",
+        f"SAMPLES: {vname} IN {unit}, FIRST SAMPLE 0 {unit}, INTERVAL {interval}",
+        f"SAMPLE VALUE: {'RESISTIVITY OHM-M' if value == 'resistivity' else 'LOG10 RESISTIVITY OHM-M'}",
+        ("BELOW DOI: 0.0 (NOT RESOLVED)" if below_doi == "zero" else "BELOW DOI: MODEL VALUES KEPT")
+        + "; NO MODEL: 0.0",
+        f"TRACES: {grid.sizes['distance']}, ONE PER COLUMN; CDP = TRACE NUMBER",
+        f"CRS: {'EPSG:' + str(epsg) if epsg else 'UNKNOWN'}; COORDINATES IN M",
+        "CDP X/Y 181-188, SOURCE X/Y 73-80, GROUP X/Y 81-88; SCALAR 71-72",
+        "SURFACE ELEVATION 41-44 AND 45-48, SCALAR 69-70",
+        "INLINE 189-192 = LINE NUMBER, CROSSLINE 193-196 = CDP",
+        "DOI DEPTH IN CM IN BYTES 233-236 (-1 UNKNOWN)",
+    ]
+    if domain == "elevation":
+        lines.append("DATUM ELEVATION (TOP SAMPLE) IN 53-56 AND 57-60, SCALAR 69-70")
+    if domain == "twt":
+        lines.append("DOI TWO-WAY TIME IN MICROSECONDS IN BYTES 237-240")
+        lines.append(f"TIME FROM INTERVAL VELOCITIES: {Path(velocity_file).name}"[:76])
+    d = grid["distance"].values
+    if d.size:
+        lines.append(f"PROFILE DISTANCE {d[0]:.1f} TO {d[-1]:.1f} M")
+    if source:
+        lines.append(f"MODELS FILE: {Path(source).name}"[:76])
+    return lines

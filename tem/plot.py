@@ -1,0 +1,280 @@
+"""Section and model figures (matplotlib object API, no pyplot state).
+
+Resistivity is drawn on a logarithmic colour scale with conductive (low
+resistivity) in warm colours: the ``Spectral`` map runs from red (low) to
+blue (high). Below the depth of investigation (DOI) the section is either
+veiled and hatched with the DOI drawn as a dashed line (``below_doi="shade"``)
+or left blank and hatched (``"hide"``). Every figure is returned as a
+:class:`matplotlib.figure.Figure`; :func:`save_figure` writes PNG and PDF.
+"""
+from __future__ import annotations
+
+from pathlib import Path
+
+import numpy as np
+from matplotlib.backends.backend_agg import FigureCanvasAgg
+from matplotlib.colors import LogNorm
+from matplotlib.figure import Figure
+
+from .errors import input_error
+from .io.atomic import atomic_path
+
+__all__ = ["section_figure", "pseudo_section_figure", "model_figure", "save_figure",
+           "CMAP", "BELOW_DOI_STYLES"]
+
+CMAP = "Spectral"
+BELOW_DOI_STYLES = ("shade", "hide")
+
+
+def _new_figure(width, height):
+    fig = Figure(figsize=(width, height), layout="constrained")
+    FigureCanvasAgg(fig)
+    return fig
+
+
+def _edges(centres):
+    """Cell edges around (possibly irregular) centres."""
+    c = np.asarray(centres, float)
+    if c.size == 1:
+        return np.array([c[0] - 0.5, c[0] + 0.5])
+    mid = 0.5 * (c[1:] + c[:-1])
+    return np.concatenate([[c[0] - (mid[0] - c[0])], mid, [c[-1] + (c[-1] - mid[-1])]])
+
+
+def _distance_scale(distance, unit):
+    span = float(np.ptp(distance)) if np.size(distance) else 0.0
+    if unit == "auto":
+        unit = "km" if span >= 5000.0 else "m"
+    if unit not in ("m", "km"):
+        raise input_error("distance_unit", f"unknown unit {unit!r}; valid: auto, m, km")
+    return (1e-3 if unit == "km" else 1.0), unit
+
+
+def _norm(values, vmin, vmax):
+    v = np.asarray(values, float)
+    finite = v[np.isfinite(v)]
+    lo = 10.0 ** (np.floor(np.percentile(finite, 1) * 4) / 4) if vmin is None and finite.size else vmin
+    hi = 10.0 ** (np.ceil(np.percentile(finite, 99) * 4) / 4) if vmax is None and finite.size else vmax
+    lo = 1.0 if lo is None else lo
+    hi = 10.0 * lo if hi is None or hi <= lo else hi
+    return LogNorm(vmin=lo, vmax=hi)
+
+
+def _station_labels(ax, station_d, labels, scale):
+    top = ax.secondary_xaxis("top")
+    top.set_xticks(np.asarray(station_d) * scale, labels=[str(s) for s in labels])
+    top.tick_params(axis="x", labelsize=7, rotation=90 if len(labels) > 12 else 0, direction="in")
+    top.set_xlabel("station")
+    return top
+
+
+def section_figure(grid, title=None, vmin=None, vmax=None, below_doi="shade",
+                   distance_unit="auto", cmap=CMAP, width=10.0, height=4.5):
+    """Figure of a stitched resistivity section.
+
+    Parameters
+    ----------
+    grid : xarray.Dataset
+        From :func:`tem.section.stitch_models` (dims ``distance`` and
+        ``depth`` or ``elevation``).
+    title : str or None
+    vmin, vmax : float or None
+        Colour range, ohm-m; default from the 1st and 99th percentiles.
+    below_doi : {"shade", "hide"}
+        Veil and hatch the model below the DOI, or leave it blank and hatched.
+    distance_unit : {"auto", "m", "km"}
+    cmap : str
+        Colour map name; low values are drawn with its first colour.
+
+    Returns
+    -------
+    matplotlib.figure.Figure
+        The image has gid ``"resistivity"``; the DOI veil ``"doi-veil"`` and
+        the DOI line ``"doi-line"``.
+    """
+    if below_doi not in BELOW_DOI_STYLES:
+        raise input_error("below_doi", f"unknown style {below_doi!r}; valid: {', '.join(BELOW_DOI_STYLES)}")
+    vname = "depth" if "depth" in grid.dims else "elevation"
+    d = grid["distance"].values.astype(float)
+    v = grid[vname].values.astype(float)
+    scale, unit = _distance_scale(d, distance_unit)
+    full = 10.0 ** grid["log10_resistivity_full"].values
+    below = grid["below_doi"].values.astype(bool)
+    shown = np.ma.masked_invalid(np.where(below, np.nan, full) if below_doi == "hide" else full)
+    norm = _norm(np.log10(shown.compressed()) if shown.count() else [0.0], vmin, vmax)
+
+    fig = _new_figure(width, height)
+    ax = fig.add_subplot()
+    xe = _edges(d) * scale
+    ye = _edges(v)
+    mesh = ax.pcolormesh(xe, ye, shown.T, cmap=cmap, norm=norm, shading="flat")
+    mesh.set_gid("resistivity")
+    doi = grid["doi"].values.astype(float)
+    doi_y = doi if vname == "depth" else grid["surface"].values.astype(float) - doi
+    # The region below the DOI, column by column (steps at the cell edges).
+    xs = np.repeat(xe, 2)[1:-1]
+    ys = np.repeat(doi_y, 2)
+    bottom = ye[-1]
+    if np.isfinite(ys).any():
+        face = (1.0, 1.0, 1.0, 0.6) if below_doi == "shade" else (0.85, 0.85, 0.85, 1.0)
+        veil = ax.fill_between(xs, np.where(np.isfinite(ys), ys, bottom), bottom,
+                               where=np.isfinite(ys), facecolor=face, edgecolor="0.35",
+                               hatch="//", lw=0.0, label="below DOI")
+        veil.set_gid("doi-veil")
+    (line,) = ax.plot(xs, ys, color="k", ls="--", lw=1.2, label="depth of investigation")
+    line.set_gid("doi-line")
+    if vname == "elevation":
+        ax.plot(d * scale, grid["surface"].values, color="0.2", lw=1.0, label="surface")
+    if vname == "depth":
+        ax.set_ylim(ye[-1], ye[0])
+        ax.set_ylabel("depth below surface (m)")
+    else:
+        ax.set_ylim(ye[-1], ye[0])
+        ax.set_ylabel("elevation (m)")
+    ax.set_xlim(xe[0], xe[-1])
+    ax.set_xlabel(f"distance along profile ({unit})")
+    if "station_distance" in grid:
+        _station_labels(ax, grid["station_distance"].values, grid["station"].values, scale)
+    cb = fig.colorbar(mesh, ax=ax, pad=0.01)
+    cb.set_label("resistivity (ohm-m)")
+    ax.legend(loc="lower right", fontsize=8, framealpha=0.8)
+    if title:
+        fig.suptitle(title)
+    return fig
+
+
+def pseudo_section_figure(positions, axis, log10_rhoa, station_distance, station_labels,
+                          axis_kind="time", title=None, vmin=None, vmax=None,
+                          distance_unit="auto", cmap=CMAP, width=10.0, height=4.5):
+    """Apparent-resistivity pseudo-section.
+
+    Parameters
+    ----------
+    positions : array_like, shape (P,)
+        Column chainages, m.
+    axis : array_like, shape (S,)
+        Gate times, s (``axis_kind="time"``, log axis) or pseudo-depths, m
+        (``"depth"``).
+    log10_rhoa : array_like, shape (P, S)
+        From :func:`tem.section.pseudo_section_grid`.
+    station_distance, station_labels : sequences
+        Station chainages (m) and identifiers for the top axis.
+    """
+    if axis_kind not in ("time", "depth"):
+        raise input_error("axis_kind", f"unknown axis {axis_kind!r}; valid: time, depth")
+    p = np.asarray(positions, float)
+    a = np.asarray(axis, float)
+    scale, unit = _distance_scale(p, distance_unit)
+    val = np.ma.masked_invalid(10.0 ** np.asarray(log10_rhoa, float))
+    norm = _norm(np.log10(val.compressed()) if val.count() else [0.0], vmin, vmax)
+    fig = _new_figure(width, height)
+    ax = fig.add_subplot()
+    if axis_kind == "time":
+        la = np.log10(a)
+        ye = 10.0 ** _edges(la)
+    else:
+        ye = _edges(a)
+    mesh = ax.pcolormesh(_edges(p) * scale, ye, val.T, cmap=cmap, norm=norm, shading="flat")
+    mesh.set_gid("rhoa")
+    if axis_kind == "time":
+        ax.set_yscale("log")
+        ax.set_ylabel("time after switch-off (s)")
+    else:
+        ax.set_ylabel("pseudo-depth (m)")
+    ax.set_ylim(ye[-1], ye[0])
+    ax.set_xlabel(f"distance along profile ({unit})")
+    _station_labels(ax, station_distance, station_labels, scale)
+    cb = fig.colorbar(mesh, ax=ax, pad=0.01)
+    cb.set_label("apparent resistivity (ohm-m)")
+    if title:
+        fig.suptitle(title)
+    return fig
+
+
+def model_figure(models, indices=None, max_depth=None, ncols=6, panel_width=1.8, height=4.5):
+    """1D models of some stations side by side: resistivity against depth.
+
+    Each panel shows the layered model as steps, the band
+    10**(log10 rho +- log10_res_std) when known, and the DOI as a dashed
+    line with the part below it greyed.
+
+    Parameters
+    ----------
+    models : xarray.Dataset
+        Models file contents.
+    indices : sequence of int or None
+        Stations to draw; default all.
+    max_depth : float or None
+        Depth axis bottom, m; default 1.25 times the deepest DOI.
+    """
+    from .section import default_max_depth
+
+    idx = list(range(models.sizes["station"])) if indices is None else list(indices)
+    if not idx:
+        raise input_error("station", "no station to draw")
+    top = models["depth_top"].values.astype(float)
+    res = models["resistivity"].values.astype(float)
+    std = models["log10_res_std"].values.astype(float)
+    doi = models["doi"].values.astype(float)
+    zmax = max_depth or default_max_depth(doi[idx], top[idx])
+    ncols = min(ncols, len(idx))
+    nrows = int(np.ceil(len(idx) / ncols))
+    fig = _new_figure(panel_width * ncols + 0.8, height * nrows)
+    axes = fig.subplots(nrows, ncols, sharey=True, sharex=True, squeeze=False)
+    finite = res[idx][np.isfinite(res[idx])]
+    lo = 10 ** np.floor(np.log10(finite.min() / 1.5))
+    hi = 10 ** np.ceil(np.log10(finite.max() * 1.5))
+    for n, i in enumerate(idx):
+        ax = axes[n // ncols][n % ncols]
+        ok = np.isfinite(res[i]) & np.isfinite(top[i])
+        t, r, sd = top[i, ok], res[i, ok], std[i, ok]
+        bounds = np.append(t, max(zmax, t[-1]))
+        zz = np.repeat(bounds, 2)[1:-1]
+        rr = np.repeat(r, 2)
+        ax.plot(rr, zz, color="k", lw=1.3)
+        if np.isfinite(sd).any():
+            s2 = np.repeat(sd, 2)
+            ax.fill_betweenx(zz, rr / 10 ** s2, rr * 10 ** s2, color="tab:orange",
+                             alpha=0.35, lw=0)
+        if np.isfinite(doi[i]):
+            ax.axhline(doi[i], color="k", ls="--", lw=1.0)
+            ax.axhspan(doi[i], zmax, color="0.6", alpha=0.35, lw=0)
+        ax.set_xscale("log")
+        ax.set_xlim(lo, hi)
+        ax.set_ylim(zmax, 0)
+        ax.set_title(str(models["station"].values[i]), fontsize=9)
+        if n % ncols == 0:
+            ax.set_ylabel("depth (m)")
+        if n // ncols == nrows - 1:
+            ax.set_xlabel("resistivity (ohm-m)")
+    for n in range(len(idx), nrows * ncols):
+        axes[n // ncols][n % ncols].set_visible(False)
+    return fig
+
+
+def save_figure(fig, stem, formats=("png", "pdf"), dpi=150):
+    """Write a figure as ``<stem>.<format>`` for each format, atomically.
+
+    Parameters
+    ----------
+    fig : matplotlib.figure.Figure
+    stem : str or Path
+        Output path without suffix.
+    formats : sequence of {"png", "pdf", "svg"}
+    dpi : int
+        Resolution of raster formats.
+
+    Returns
+    -------
+    list of Path
+    """
+    stem = Path(stem)
+    out = []
+    for fmt in formats:
+        if fmt not in ("png", "pdf", "svg"):
+            raise input_error("format", f"unknown figure format {fmt!r}; valid: png, pdf, svg")
+        target = stem.with_name(f"{stem.name}.{fmt}")
+        with atomic_path(target, suffix=f".{fmt}") as tmp:
+            fig.savefig(tmp, format=fmt, dpi=dpi)
+        out.append(target)
+    return out
