@@ -99,3 +99,15 @@ def test_best_halfspace_recovers_uniform_value():
     rho, c = best_halfspace(lambda x: toy_fwd(np.full(M, x))[0], d, 0.01 * d)
     assert rho == pytest.approx(123.0, rel=1e-3)
     assert c < 1e-4
+
+
+def test_sparse_and_dense_regularised_solves_agree():
+    from scipy import sparse
+    rng = np.random.default_rng(2)
+    Jw = rng.normal(size=(25, M))
+    rhat = rng.normal(size=25)
+    R = roughness_matrix(M)
+    a = solve_regularised(Jw, rhat, R, 0.3, m_ref=np.ones(M), ref_weight=0.1)
+    b = solve_regularised(sparse.csr_matrix(Jw), rhat, sparse.csr_matrix(R), 0.3,
+                          m_ref=np.ones(M), ref_weight=0.1)
+    assert np.allclose(a, b, rtol=1e-8, atol=1e-10)

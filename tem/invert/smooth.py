@@ -22,6 +22,8 @@ from __future__ import annotations
 from dataclasses import dataclass, field
 
 import numpy as np
+from scipy import sparse
+from scipy.sparse.linalg import spsolve
 
 __all__ = [
     "OccamResult",
@@ -135,6 +137,17 @@ def solve_regularised(Jw, rhat, R, mu, m_ref=None, ref_weight=0.0):
     Solved as a stacked least-squares problem (better conditioned than the
     normal equations).
     """
+    if sparse.issparse(Jw) or sparse.issparse(R):
+        # normal equations, sparse (laterally constrained problems)
+        Jw = sparse.csr_matrix(Jw)
+        R = sparse.csr_matrix(R)
+        n = Jw.shape[1]
+        N = (Jw.T @ Jw + mu * (R.T @ R)).tocsc()
+        rhs = Jw.T @ rhat
+        if ref_weight > 0 and m_ref is not None:
+            N = N + mu * ref_weight * sparse.identity(n, format="csc")
+            rhs = rhs + mu * ref_weight * np.asarray(m_ref, float)
+        return spsolve(N, rhs)
     n = Jw.shape[1]
     rows = [Jw, np.sqrt(mu) * R]
     rhs = [rhat, np.zeros(R.shape[0])]
@@ -181,6 +194,18 @@ class OccamResult:
     n_iter: int
     history: list = field(default_factory=list)
     message: str = ""
+
+
+def _weight_rows(J, w):
+    if sparse.issparse(J):
+        return sparse.diags(w) @ J
+    return J * w[:, None]
+
+
+def _sumsq(A):
+    if sparse.issparse(A):
+        return float(A.multiply(A).sum())
+    return float(np.sum(A * A))
 
 
 def _mu_search(chi2_of_mu, mu_grid, target):
@@ -260,7 +285,10 @@ def occam(fwd, d_obs, std, m0, R=None, *, predict=None, m_ref=None, ref_weight=0
         raise ValueError("error: standard errors must be positive and finite")
     m = np.clip(np.asarray(m0, float).copy(), *bounds)
     M = m.size
-    R = roughness_matrix(M) if R is None else np.asarray(R, float)
+    if R is None:
+        R = roughness_matrix(M)
+    elif not sparse.issparse(R):
+        R = np.asarray(R, float)
     if predict is None:
         def predict(mm):
             return fwd(mm)[0]
@@ -268,10 +296,10 @@ def occam(fwd, d_obs, std, m0, R=None, *, predict=None, m_ref=None, ref_weight=0
 
     d, J = fwd(m)
     chi2 = chi2_per_datum(d_obs, d, std)
-    Jw = J * w[:, None]
+    Jw = _weight_rows(J, w)
     if mu0 is None:
-        rtr = float(np.sum(R * R)) or 1.0
-        mu0 = float(np.sum(Jw * Jw)) / rtr or 1.0
+        rtr = _sumsq(R) or 1.0
+        mu0 = _sumsq(Jw) / rtr or 1.0
     mu = float(mu0)
     history = []
     converged = False
@@ -312,7 +340,7 @@ def occam(fwd, d_obs, std, m0, R=None, *, predict=None, m_ref=None, ref_weight=0
         chi2_old, chi2 = chi2, float(chi2_new)
         d, J = fwd(m)
         chi2 = chi2_per_datum(d_obs, d, std)
-        Jw = J * w[:, None]
+        Jw = _weight_rows(J, w)
         rec = dict(iteration=it, chi2=chi2, mu=mu, roughness=rough_new)
         history.append(rec)
         if callback is not None:
