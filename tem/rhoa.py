@@ -43,6 +43,9 @@ from .errors import input_error
 __all__ = [
     "MU0",
     "U_LIMIT",
+    "U_LIMIT_REF",
+    "SLOPE_LIMIT",
+    "decay_slope",
     "FLAGS",
     "flag_text",
     "diffusion_depth",
@@ -74,6 +77,16 @@ MU0 = 4e-7 * np.pi  # H/m, the value empymod uses (REFERENCE 0)
 #: REFERENCE 2.2 table gives 0.293/0.268/0.347 for the *response* within 5 %,
 #: which for E means rho_a within 11 %.)
 U_LIMIT = {"e": 0.19, "dbdt": 0.31, "b": 0.40}
+
+#: The same limits on u = theta(rho) * r_max for a reference resistivity
+#: rho (the all-time rho_a, or the truth): exact roots 0.2019 (E), 0.3206
+#: (dB/dt), 0.4155 (B), rounded down.
+U_LIMIT_REF = {"e": 0.20, "dbdt": 0.32, "b": 0.41}
+
+#: Decay-slope limits (d ln|value|/d ln t) for late-time validity without a
+#: reference resistivity: halfway between early time (0) and the late-time
+#: half-space slopes -1.5 (E, B) and -2.5 (dB/dt). Common practice, no source.
+SLOPE_LIMIT = {"e": -0.75, "dbdt": -1.25, "b": -0.75}
 
 #: Gate flags (bit values) and their one-word names used in tables.
 FLAGS = {
@@ -401,8 +414,23 @@ class LateTimeResult:
 _E_COMPONENTS = {"ex": (1.0, 0.0), "ey": (0.0, 1.0)}
 
 
-def late_time_rhoa(component, value, t, tx_kind, tx_points, rx, error=None, current=1.0):
+def late_time_rhoa(component, value, t, tx_kind, tx_points, rx, error=None, current=1.0,
+                   rho_ref=None):
     """Late-time apparent resistivity of one channel; bad gates are flagged.
+
+    Validity (flag ``late-invalid`` where it fails; ``valid`` below):
+
+    * with ``rho_ref`` (e.g. the all-time apparent resistivity): u =
+      theta(rho_ref) r_max below :data:`U_LIMIT_REF`; for a half-space this is
+      exactly "late-time rho_a within 5 %";
+    * without it: u = theta(rho_a) r_max below :data:`U_LIMIT` *and* the decay
+      steeper than :data:`SLOPE_LIMIT` (d ln|value|/d ln t across the gates).
+      The slope test is needed because at early times the late-time rho_a is
+      so large that its own u is small again (the same non-uniqueness as
+      REFERENCE 2.3); early-time step-off E and dB/dt are nearly constant in
+      time (Ward & Hohmann 1988 t -> 0+ limits), late-time ones fall as
+      t^-1.5 and t^-2.5. The thresholds halfway between are common practice,
+      no source. A single gate has no slope and is judged on u alone.
 
     Parameters
     ----------
@@ -412,7 +440,7 @@ def late_time_rhoa(component, value, t, tx_kind, tx_points, rx, error=None, curr
     value : array_like, shape (n_gates,)
         Step-off data, V/m, T/s or T (per ampere if ``current`` is 1).
     t : array_like, shape (n_gates,)
-        Gate times after switch-off, s.
+        Gate times after switch-off, s, increasing.
     tx_kind, tx_points
         Transmitter (see :func:`tx_segments`).
     rx : array_like
@@ -422,6 +450,8 @@ def late_time_rhoa(component, value, t, tx_kind, tx_points, rx, error=None, curr
         One standard error of ``value``, same unit.
     current : float
         Transmitter current, A.
+    rho_ref : array_like, optional
+        Reference resistivity per gate for the validity test, ohm-m.
 
     Returns
     -------
@@ -438,6 +468,7 @@ def late_time_rhoa(component, value, t, tx_kind, tx_points, rx, error=None, curr
     r_max = max_distance(tx_kind, tx_points, np.vstack([p0, p1]))
     nan = np.full(value.shape, np.nan)
     flags = np.zeros(value.shape, dtype=np.int64)
+    kind = None
     if component in _E_COMPONENTS:
         d = p1 - p0
         direction = d if np.hypot(*d) > 0 else np.array(_E_COMPONENTS[component])
@@ -448,7 +479,7 @@ def late_time_rhoa(component, value, t, tx_kind, tx_points, rx, error=None, curr
         kind, power = ("dbdt", 2.0 / 3.0) if component == "dbzdt" else ("b", 2.0 / 3.0)
         sign = -np.sign(strength) if component == "dbzdt" else np.sign(strength)
     else:
-        strength, kind = 0.0, None
+        strength = 0.0
     a, b = tx_segments(tx_kind, tx_points)
     scale = float(np.sum(np.hypot(*(b - a).T))) * abs(current) * (r_max if kind != "e" else 1.0)
     if kind is None or abs(strength) <= 1e-9 * scale:
@@ -464,11 +495,44 @@ def late_time_rhoa(component, value, t, tx_kind, tx_points, rx, error=None, curr
         fn = {"e": late_time_e, "dbdt": late_time_dbzdt, "b": late_time_bz}[kind]
         rho[ok] = fn(value[ok], t[ok], strength)
     with np.errstate(invalid="ignore", divide="ignore"):
-        u = np.sqrt(MU0 / (4 * rho * t)) * r_max
         rel = power * np.abs(err) / np.abs(value)
-    valid = ok & (u < U_LIMIT[kind])
+        if rho_ref is not None:
+            ref = np.broadcast_to(np.asarray(rho_ref, float), value.shape)
+            u = np.sqrt(MU0 / (4 * ref * t)) * r_max
+            valid = ok & (u < U_LIMIT_REF[kind])
+        else:
+            u = np.sqrt(MU0 / (4 * rho * t)) * r_max
+            valid = ok & (u < U_LIMIT[kind]) & (decay_slope(value, t, ok) < SLOPE_LIMIT[kind])
     flags[ok & ~valid] |= FLAGS["late-invalid"]
     return LateTimeResult(rho, np.where(ok, rel, np.nan), u, valid, flags)
+
+
+def decay_slope(value, t, ok=None):
+    """Local log-log slope d ln|value| / d ln t over the usable gates.
+
+    Parameters
+    ----------
+    value : array_like, shape (n_gates,)
+        Data of one sign (any unit).
+    t : array_like, shape (n_gates,)
+        Increasing times, s.
+    ok : array_like of bool, optional
+        Gates to use; the others get NaN.
+
+    Returns
+    -------
+    ndarray
+        Slope per gate (-inf where fewer than two usable gates: no test).
+    """
+    value = np.asarray(value, float)
+    t = np.asarray(t, float)
+    ok = np.isfinite(value) & (value != 0) if ok is None else np.asarray(ok, bool)
+    out = np.full(value.shape, np.nan)
+    if ok.sum() < 2:
+        out[ok] = -np.inf
+        return out
+    out[ok] = np.gradient(np.log(np.abs(value[ok])), np.log(t[ok]))
+    return out
 
 
 # --------------------------------------------------------------- all-time
