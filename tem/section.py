@@ -285,7 +285,7 @@ def default_max_depth(doi, depth_top, factor=1.25):
 
 
 def stitch_models(models, depth_step, max_depth=None, positions=None, line=None,
-                  order="given", lateral="linear", max_gap=None, vertical="depth"):
+                  order="given", lateral="linear", max_gap=None, vertical="depth", depth=None):
     """Section grid (chainage x depth) of log10 resistivity from a models Dataset.
 
     Parameters
@@ -311,6 +311,10 @@ def stitch_models(models, depth_step, max_depth=None, positions=None, line=None,
         ``"depth"``: samples at depths below each station's surface.
         ``"elevation"``: samples at elevations from the highest station down
         (the models draped below the interpolated surface).
+    depth : array_like or None
+        Explicit sample depths below surface, m (increasing, e.g. the depths
+        of regular two-way times); overrides ``depth_step`` and ``max_depth``
+        and needs ``vertical="depth"``.
 
     Returns
     -------
@@ -322,8 +326,10 @@ def stitch_models(models, depth_step, max_depth=None, positions=None, line=None,
     """
     import xarray as xr
 
-    if not depth_step > 0:
+    if depth is None and not depth_step > 0:
         raise input_error("depth_step", f"must be positive, got {depth_step}")
+    if depth is not None and vertical != "depth":
+        raise input_error("vertical", "explicit sample depths need vertical='depth'")
     if vertical not in ("depth", "elevation"):
         raise input_error("vertical", f"unknown reference {vertical!r}; valid: depth, elevation")
     sx = models["x"].values.astype(float)
@@ -344,12 +350,15 @@ def stitch_models(models, depth_step, max_depth=None, positions=None, line=None,
     doi = models["doi"].values.astype(float)[idx]
     s_sorted = chain[idx]
     pos = s_sorted if positions is None else np.asarray(positions, float)
-    if max_depth is None:
-        max_depth = default_max_depth(doi, top)
-    if not max_depth > 0:
-        raise input_error("max_depth", f"must be positive, got {max_depth}")
-    nz = int(np.floor(max_depth / depth_step + 1e-9)) + 1
-    axis = np.arange(nz) * depth_step
+    if depth is not None:
+        axis = np.asarray(depth, float)
+    else:
+        if max_depth is None:
+            max_depth = default_max_depth(doi, top)
+        if not max_depth > 0:
+            raise input_error("max_depth", f"must be positive, got {max_depth}")
+        nz = int(np.floor(max_depth / depth_step + 1e-9)) + 1
+        axis = np.arange(nz) * depth_step
     surface = np.interp(pos, s_sorted, sz[idx])
     if vertical == "depth":
         depth = axis
@@ -384,7 +393,7 @@ def stitch_models(models, depth_step, max_depth=None, positions=None, line=None,
             "station": ("station", np.asarray(station_ids).astype(str)),
         },
         attrs={
-            "depth_step": float(depth_step),
+            "depth_step": float(depth_step) if depth_step else float("nan"),
             "lateral": lateral,
             "vertical": vertical,
             "epsg": int(models.attrs.get("epsg", 0) or 0),

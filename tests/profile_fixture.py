@@ -18,8 +18,9 @@ N_LAYERS = 30
 CONDUCTOR_TOPS = np.array([60.0, 90.0, 120.0, 150.0, 180.0])  # m
 HOST, CONDUCTOR = 100.0, 5.0  # ohm-m
 # Stations: three on an east-going leg, two on a north-east leg (m, UTM-like).
-X = np.array([512000.0, 512250.0, 512500.0, 512676.78, 512853.55])
-Y = np.array([7421000.0, 7421000.0, 7421000.0, 7421176.78, 7421353.55])
+_D = 250.0 / np.sqrt(2.0)  # 250 m steps at 45 degrees on the second leg
+X = np.array([512000.0, 512250.0, 512500.0, 512500.0 + _D, 512500.0 + 2 * _D])
+Y = np.array([7421000.0, 7421000.0, 7421000.0, 7421000.0 + _D, 7421000.0 + 2 * _D])
 Z = np.array([1210.0, 1215.5, 1222.0, 1218.0, 1209.25])
 DOI = np.array([400.0, 380.0, 350.0, 330.0, 300.0])
 

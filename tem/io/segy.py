@@ -313,13 +313,14 @@ def describe(grid, domain, step, value, below_doi, epsg, source="", velocity_fil
     """Textual header lines (without the fixed END line) for a section file."""
     vname = {"depth": "DEPTH BELOW GROUND", "elevation": "DEPTH BELOW DATUM", "twt": "TWO-WAY TIME"}[domain]
     unit = "MS" if domain == "twt" else "M"
-    interval = {"twt": f"{step * 1e3:g} MS; BINARY 3217-3218 IN MICROSECONDS",
-                "depth": f"{step:g} M; BINARY 3217-3218 IN MILLIMETRES (1 MS = 1 M)",
-                "elevation": f"{step:g} M; BINARY 3217-3218 IN MILLIMETRES (1 MS = 1 M)"}[domain]
+    interval = {"twt": f"{step * 1e3:g} MS", "depth": f"{step:g} M", "elevation": f"{step:g} M"}[domain]
+    stored = ("BINARY 3217-3218 AND TRACE 117-118 IN MICROSECONDS" if domain == "twt" else
+              "BINARY 3217-3218 AND TRACE 117-118 IN MM (READ AS TIME: 1 MS = 1 M)")
     lines = [
         f"TEM {__version__} RESISTIVITY SECTION FROM 1D TEM MODELS (AN INTERPRETATION)",
         "SEG-Y REV 1, DATA FORMAT CODE 5: 4-BYTE IEEE FLOAT, BIG-ENDIAN",
-        f"SAMPLES: {vname} IN {unit}, FIRST SAMPLE 0 {unit}, INTERVAL {interval}",
+        f"SAMPLES: {vname} IN {unit}, FIRST 0 {unit}, INTERVAL {interval}",
+        f"SAMPLE INTERVAL IN {stored}",
         f"SAMPLE VALUE: {'RESISTIVITY OHM-M' if value == 'resistivity' else 'LOG10 RESISTIVITY OHM-M'}",
         ("BELOW DOI: 0.0 (NOT RESOLVED)" if below_doi == "zero" else "BELOW DOI: MODEL VALUES KEPT")
         + "; NO MODEL: 0.0",

@@ -1,0 +1,64 @@
+"""The section grid file (``section.nc``): write and read.
+
+A section grid is the Dataset from :func:`tem.section.stitch_models`
+(dims ``distance`` and ``depth`` or ``elevation``), written with
+``tem_format = "section"``, ``format_version = "1.0"`` and provenance.
+Boolean variables are stored as int8 (netCDF has no boolean type) and
+restored on reading.
+"""
+from __future__ import annotations
+
+from pathlib import Path
+
+from .. import __version__
+from ..errors import input_error
+from ..provenance import records_to_json
+from .atomic import atomic_path
+
+__all__ = ["FORMAT", "FORMAT_VERSION", "write_section_grid", "read_section_grid"]
+
+FORMAT = "section"
+FORMAT_VERSION = "1.0"
+
+
+def write_section_grid(grid, path, records=()):
+    """Write a section grid atomically with format attributes and provenance.
+
+    Parameters
+    ----------
+    grid : xarray.Dataset
+        From :func:`tem.section.stitch_models`.
+    path : str or Path
+        Output netCDF file (h5netcdf engine).
+    records : sequence of dict
+        Provenance records (earlier ones first).
+    """
+    out = grid.copy()
+    out["below_doi"] = out["below_doi"].astype("int8")
+    out.attrs.update({
+        "tem_format": FORMAT,
+        "format_version": FORMAT_VERSION,
+        "tem_version": __version__,
+        "provenance": records_to_json(list(records)),
+    })
+    with atomic_path(path, suffix=".nc") as tmp:
+        out.to_netcdf(tmp, engine="h5netcdf")
+    return Path(path)
+
+
+def read_section_grid(path):
+    """Read a section grid, checking format and major version."""
+    import xarray as xr
+
+    path = Path(path)
+    if not path.is_file():
+        raise input_error("section", "file not found", path)
+    with xr.open_dataset(path, engine="h5netcdf") as ds:
+        ds = ds.load()
+    if ds.attrs.get("tem_format") != FORMAT:
+        raise input_error("tem_format", f"expected {FORMAT!r}, found {ds.attrs.get('tem_format')!r}", path)
+    if str(ds.attrs.get("format_version", "")).split(".")[0] != FORMAT_VERSION.split(".")[0]:
+        raise input_error("format_version", f"version {ds.attrs.get('format_version')!r} not supported; "
+                          f"this tem reads {FORMAT_VERSION.split('.')[0]}.x", path)
+    ds["below_doi"] = ds["below_doi"].astype(bool)
+    return ds

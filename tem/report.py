@@ -1,0 +1,194 @@
+"""Quality-control report: one HTML file linking figures beside it.
+
+The report is a single HTML file with inline CSS and no scripts. Figures are
+linked as relative paths (``<img src="figures/section.png">``), so the report
+and its figure folder can be moved together; with ``embed=True`` the PNGs are
+written into the page as base64 data instead. Every linked file must exist
+when the report is written.
+
+Contents: the safety caution, a station table (identifier, coordinates,
+chi-square, DOI, usable gates, status), section figures, model figures, and
+per-station figures supplied by earlier stages (decays and fits).
+"""
+from __future__ import annotations
+
+import base64
+import datetime as _dt
+import html
+import os
+from pathlib import Path
+
+import numpy as np
+
+from . import SAFETY_NOTE, __version__
+from .errors import input_error
+from .io.atomic import write_text_atomic
+
+__all__ = ["station_table", "render_report", "write_report", "STATUS_OK", "STATUS_MISFIT",
+           "STATUS_NONE"]
+
+STATUS_OK = "ok"
+STATUS_MISFIT = "check fit"
+STATUS_NONE = "no model"
+
+_CSS = """
+body{font-family:system-ui,sans-serif;margin:1.5em auto;max-width:1200px;color:#1d2327;padding:0 1em}
+h1{font-size:1.5em;border-bottom:3px solid #b5452b;padding-bottom:.2em}
+h2{font-size:1.15em;margin-top:1.8em;color:#7a2e1c}
+.caution{background:#fff4e0;border-left:6px solid #d9822b;padding:.6em 1em;margin:1em 0}
+table{border-collapse:collapse;font-size:.9em}
+th,td{border:1px solid #c8ccd0;padding:.25em .6em;text-align:right}
+th{background:#eef0f2}td.id,td.status{text-align:left}
+tr.check td.status{color:#a4281b;font-weight:600}
+figure{margin:1em 0}figure img{max-width:100%;border:1px solid #dde}
+figcaption{font-size:.85em;color:#555}
+.meta{font-size:.8em;color:#666}
+"""
+
+
+def station_table(models, station_info=None, chi2_limit=2.0):
+    """Rows of the station table.
+
+    Parameters
+    ----------
+    models : xarray.Dataset
+        Models file contents.
+    station_info : dict or None
+        Per station id, optional ``usable_gates`` (int) and ``status`` (str)
+        from earlier stages; a given status replaces the derived one.
+    chi2_limit : float
+        Chi-square per datum above which the status is "check fit"
+        (common practice, no source; a fit at the target has chi2 near 1).
+
+    Returns
+    -------
+    list of dict
+        Keys: station, x, y, z, chi2, doi, usable_gates, status.
+    """
+    info = station_info or {}
+    rows = []
+    for i, sid in enumerate(models["station"].values.astype(str)):
+        chi2 = float(models["chi2"].values[i])
+        extra = info.get(sid, {})
+        if "status" in extra:
+            status = str(extra["status"])
+        elif not np.isfinite(chi2) or not np.isfinite(models["resistivity"].values[i]).any():
+            status = STATUS_NONE
+        else:
+            status = STATUS_OK if chi2 <= chi2_limit else STATUS_MISFIT
+        rows.append({
+            "station": sid,
+            "x": float(models["x"].values[i]),
+            "y": float(models["y"].values[i]),
+            "z": float(models["z"].values[i]),
+            "chi2": chi2,
+            "doi": float(models["doi"].values[i]),
+            "usable_gates": extra.get("usable_gates", ""),
+            "status": status,
+        })
+    return rows
+
+
+def _fmt(v, digits):
+    if isinstance(v, str):
+        return html.escape(v)
+    return "" if v is None or not np.isfinite(v) else f"{v:.{digits}f}"
+
+
+def _figure_html(path, base, caption, embed):
+    path = Path(path)
+    if not path.is_file():
+        raise input_error("figure", "linked figure file does not exist", path)
+    if embed and path.suffix.lower() == ".png":
+        data = base64.b64encode(path.read_bytes()).decode("ascii")
+        src = f"data:image/png;base64,{data}"
+    else:
+        src = Path(os.path.relpath(path.resolve(), base.resolve())).as_posix()
+    links = ""
+    pdf = path.with_suffix(".pdf")
+    if pdf.is_file():
+        rel = Path(os.path.relpath(pdf.resolve(), base.resolve())).as_posix()
+        links = f' <a href="{html.escape(rel)}">PDF</a>'
+    cap = html.escape(caption or path.stem)
+    return (f'<figure><img src="{html.escape(src)}" alt="{cap}">'
+            f"<figcaption>{cap}{links}</figcaption></figure>")
+
+
+def render_report(base, models, section_figures=(), model_figures=(), station_figures=None,
+                  station_info=None, title="TEM quality-control report", chi2_limit=2.0,
+                  embed=False, notes=()):
+    """HTML text of the report, with figure links relative to folder ``base``.
+
+    Parameters
+    ----------
+    base : Path
+        Folder the HTML file will live in.
+    models : xarray.Dataset
+        Models file contents.
+    section_figures, model_figures : sequence of path or (path, caption)
+        PNG figures (a PDF with the same stem is linked when present).
+    station_figures : dict or None
+        Station id -> sequence of path or (path, caption), e.g. decays and
+        fits from the gating and inversion stages.
+    station_info, chi2_limit
+        See :func:`station_table`.
+    embed : bool
+        Embed PNGs as base64 instead of linking them.
+    notes : sequence of str
+        Extra paragraphs under the title (e.g. processing parameters).
+    """
+    base = Path(base)
+    rows = station_table(models, station_info, chi2_limit)
+    epsg = int(models.attrs.get("epsg", 0) or 0)
+    out = [
+        "<!DOCTYPE html>",
+        '<html lang="en"><head><meta charset="utf-8">',
+        f"<title>{html.escape(title)}</title><style>{_CSS}</style></head><body>",
+        f"<h1>{html.escape(title)}</h1>",
+        f'<p class="caution"><strong>Caution.</strong> {html.escape(SAFETY_NOTE)}</p>',
+    ]
+    for note in notes:
+        out.append(f"<p>{html.escape(str(note))}</p>")
+    n_check = sum(r["status"] != STATUS_OK for r in rows)
+    out.append(f'<h2 id="stations">Stations ({len(rows)}; {n_check} to check)</h2>')
+    crs = f"EPSG:{epsg}" if epsg else "CRS not given"
+    out.append(f"<p class=\"meta\">Coordinates in m ({html.escape(crs)}); chi2 is chi-square "
+               f"per datum (target 1; status 'check fit' above {chi2_limit:g}).</p>")
+    out.append("<table><thead><tr><th>station</th><th>x (m)</th><th>y (m)</th><th>z (m)</th>"
+               "<th>chi2</th><th>DOI (m)</th><th>usable gates</th><th>status</th></tr></thead><tbody>")
+    for r in rows:
+        cls = "" if r["status"] == STATUS_OK else ' class="check"'
+        sid = html.escape(r["station"])
+        link = f'<a href="#st-{sid}">{sid}</a>' if station_figures and r["station"] in station_figures else sid
+        gates = html.escape(str(r["usable_gates"]))
+        out.append(f"<tr{cls}><td class=\"id\">{link}</td><td>{_fmt(r['x'], 1)}</td>"
+                   f"<td>{_fmt(r['y'], 1)}</td><td>{_fmt(r['z'], 1)}</td>"
+                   f"<td>{_fmt(r['chi2'], 2)}</td><td>{_fmt(r['doi'], 0)}</td>"
+                   f"<td>{gates}</td><td class=\"status\">{html.escape(r['status'])}</td></tr>")
+    out.append("</tbody></table>")
+    for heading, anchor, figs in (("Sections", "sections", section_figures),
+                                  ("Models", "models", model_figures)):
+        if figs:
+            out.append(f'<h2 id="{anchor}">{heading}</h2>')
+            for item in figs:
+                path, caption = item if isinstance(item, (tuple, list)) else (item, None)
+                out.append(_figure_html(path, base, caption, embed))
+    if station_figures:
+        out.append('<h2 id="decays">Decays and fits by station</h2>')
+        for sid, figs in station_figures.items():
+            out.append(f'<h3 id="st-{html.escape(str(sid))}">{html.escape(str(sid))}</h3>')
+            for item in figs:
+                path, caption = item if isinstance(item, (tuple, list)) else (item, None)
+                out.append(_figure_html(path, base, caption, embed))
+    stamp = _dt.datetime.now(_dt.timezone.utc).isoformat(timespec="seconds")
+    kind = html.escape(str(models.attrs.get("model_kind", "")))
+    out.append(f'<p class="meta">tem {__version__}; model kind {kind}; written {stamp}.</p>')
+    out.append("</body></html>")
+    return "\n".join(out) + "\n"
+
+
+def write_report(path, models, **kwargs):
+    """Write the report (see :func:`render_report`) to ``path`` atomically."""
+    path = Path(path)
+    text = render_report(path.parent, models, **kwargs)
+    return write_text_atomic(path, text)

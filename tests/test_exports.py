@@ -1,0 +1,254 @@
+"""End-to-end tests of `tem section` and `tem export` on a synthetic profile, and of
+the models file, CSV, LAS and SEG-Y writers.
+
+Sources of the checks:
+* LAS 2.0: Canadian Well Logging Society, "LAS Version 2.0: a digital standard for
+  logging data" (1992, from memory): ~Well mnemonics STRT STOP STEP NULL WELL;
+  the file is reread with lasio, an independent reader.
+* SEG-Y rev 1: SEG Technical Standards Committee, "SEG Y rev 1 Data Exchange
+  format" (2002, from memory): format code 5 = IEEE float (bytes 3225-3226),
+  revision 0x0100 (3501-3502), coordinate scalar at trace bytes 71-72 (negative
+  divides, positive multiplies), CDP X/Y at 181-188. Reread with segyio.
+* Two-way time: t(z) = 2 sum h_i / v_i for vertical rays through interval
+  velocities (closed form, hand computation).
+* The expected models are the fixture's layers, looked up by an independent loop.
+"""
+from __future__ import annotations
+
+import csv
+from html.parser import HTMLParser
+from pathlib import Path
+
+import numpy as np
+import pytest
+
+from profile_fixture import DOI, N_LAYERS, X, Y, Z, synthetic_models
+from tem.cli import main
+from tem.errors import TemInputError
+from tem.io.models import CSV_COLUMNS, read_models, write_models
+from tem.io.segy import apply_scalar, coordinate_scalar, read_velocity_table
+
+H1, V1, V2 = 150.0, 2000.0, 3000.0  # two-layer velocity model of the TWT test
+
+
+def _lookup(top, values, z):
+    out = np.nan
+    for t, v in zip(top, values):
+        if np.isfinite(t) and np.isfinite(v) and t <= z:
+            out = v
+    return out
+
+
+class _Links(HTMLParser):
+    def __init__(self):
+        super().__init__()
+        self.links = []
+
+    def handle_starttag(self, tag, attrs):
+        a = dict(attrs)
+        if tag == "img":
+            self.links.append(a["src"])
+        if tag == "a" and not a.get("href", "#").startswith("#"):
+            self.links.append(a["href"])
+
+
+@pytest.fixture(scope="module")
+def profile(tmp_path_factory):
+    """Run section and export once on the synthetic profile."""
+    root = tmp_path_factory.mktemp("profile")
+    models_path = write_models(synthetic_models(), root / "in" / "models.nc")
+    vel = root / "vel.csv"
+    vel.write_text(f"# two-layer test model\ndepth_m,vp_m_per_s\n0,{V1}\n{H1},{V2}\n")
+    assert main(["section", str(models_path), "--out", str(root / "sec"), "--depth-step", "5",
+                 "--trace-spacing", "25", "--report", "--below-doi", "hide"]) == 0
+    assert main(["export", str(models_path), "--out", str(root / "exp"), "--velocity", str(vel),
+                 "--depth-step", "2.5", "--max-depth", "450", "--las-step", "2", "--dt-ms", "4"]) == 0
+    assert main(["export", str(models_path), "--out", str(root / "exp2"), "--what", "segy-depth",
+                 "--trace-spacing", "100", "--depth-step", "10", "--segy-below-doi", "keep",
+                 "--segy-value", "log10"]) == 0
+    return root, read_models(models_path)
+
+
+def test_las_reread_equals_models(profile):
+    import lasio
+
+    root, m = profile
+    files = sorted((root / "exp" / "las").glob("*.las"))
+    assert [f.stem for f in files] == list(m.station.values)
+    for i, f in enumerate(files):
+        las = lasio.read(f)
+        assert las.version["VERS"].value == 2.0 and las.version["WRAP"].value == "NO"
+        assert las.well["WELL"].value == m.station.values[i]
+        assert las.well["NULL"].value == -999.25
+        assert las.params["XCOORD"].value == pytest.approx(X[i])
+        assert las.params["YCOORD"].value == pytest.approx(Y[i])
+        assert las.params["EGL"].value == pytest.approx(Z[i])
+        assert las.params["CRS"].value == "EPSG:32735"
+        depth = las["DEPT"]
+        np.testing.assert_allclose(np.diff(depth), 2.0)
+        assert las.well["STEP"].value == 2.0 and depth[0] == 0.0
+        assert depth[-1] == pytest.approx(np.floor(1.25 * DOI[i] / 2) * 2)
+        top, res, std = m.depth_top.values[i], m.resistivity.values[i], m.log10_res_std.values[i]
+        want_r = [_lookup(top, res, z) for z in depth]
+        want_s = [_lookup(top, std, z) for z in depth]
+        # %.6g text: 6 significant digits.
+        np.testing.assert_allclose(las["RES"], want_r, rtol=5e-6)
+        np.testing.assert_allclose(las["RSTD"], want_s, rtol=5e-6)
+        np.testing.assert_array_equal(las["BDOI"], (depth > DOI[i]).astype(float))
+
+
+def test_segy_depth_traces_coordinates_samples(profile):
+    import segyio
+
+    root, m = profile
+    with segyio.open(root / "exp" / "section_depth.sgy", ignore_geometry=True) as f:
+        assert f.tracecount == 5  # one trace per station by default
+        assert f.format == 5 or str(f.format).startswith("4-byte IEEE")
+        raw = f.bin
+        assert raw[segyio.BinField.Format] == 5
+        assert raw[segyio.BinField.SEGYRevision] == 1 and raw[segyio.BinField.SEGYRevisionMinor] == 0
+        assert raw[segyio.BinField.Interval] == 2500  # 2.5 m stored in mm
+        np.testing.assert_allclose(f.samples, np.arange(181) * 2.5)  # read as ms: 1 ms = 1 m
+        text = f.text[0].decode("ascii", "replace")
+        assert "DEPTH BELOW GROUND IN M" in text and "INTERVAL 2.5 M" in text
+        T = segyio.TraceField
+        for i in range(5):
+            h = f.header[i]
+            sc = h[T.SourceGroupScalar]
+            assert sc == -100
+            assert apply_scalar(h[T.CDP_X], sc) == pytest.approx(X[i], abs=0.005)
+            assert apply_scalar(h[T.CDP_Y], sc) == pytest.approx(Y[i], abs=0.005)
+            assert apply_scalar(h[T.SourceX], sc) == pytest.approx(X[i], abs=0.005)
+            assert apply_scalar(h[T.ReceiverGroupElevation], h[T.ElevationScalar]) == pytest.approx(Z[i])
+            assert h[T.CDP] == i + 1 and h[T.CROSSLINE_3D] == i + 1 and h[T.INLINE_3D] == 1
+            assert h[T.UnassignedInt1] == round(DOI[i] * 100)
+            depth = f.samples  # m
+            want = np.array([_lookup(m.depth_top.values[i], m.resistivity.values[i], z) for z in depth])
+            want[depth > DOI[i]] = 0.0
+            np.testing.assert_allclose(f.trace[i], want, rtol=1e-6)
+
+
+def test_segy_twt_against_two_layer_closed_form(profile):
+    import segyio
+
+    root, m = profile
+    with segyio.open(root / "exp" / "section_twt.sgy", ignore_geometry=True) as f:
+        dt = 4e-3
+        assert f.bin[segyio.BinField.Interval] == 4000
+        t = np.arange(len(f.samples)) * dt
+        # Last time: TWT of the 450 m section bottom, 2 (150/2000 + 300/3000) = 0.35 s.
+        assert t[-1] == pytest.approx(np.floor(0.35 / dt + 1e-9) * dt)
+        # Depth of each time by hand inversion of the closed form.
+        t1 = 2 * H1 / V1
+        z = np.where(t <= t1, V1 * t / 2, H1 + V2 * (t - t1) / 2)
+        for i in range(5):
+            want = np.array([_lookup(m.depth_top.values[i], m.resistivity.values[i], zz) for zz in z])
+            want[z > DOI[i]] = 0.0
+            np.testing.assert_allclose(f.trace[i], want, rtol=1e-6)
+            doi_twt = 2 * (H1 / V1 + (DOI[i] - H1) / V2)
+            assert f.header[i][segyio.TraceField.UnassignedInt2] == round(doi_twt * 1e6)
+
+
+def test_segy_resampled_along_profile(profile):
+    import segyio
+
+    root, m = profile
+    with segyio.open(root / "exp2" / "section_depth.sgy", ignore_geometry=True) as f:
+        assert f.tracecount == 11  # 0..1000 m every 100 m
+        h = f.header[6]  # 600 m: on the second leg, 100 m past the bend at (512500, 7421000)
+        sc = h[segyio.TraceField.SourceGroupScalar]
+        assert apply_scalar(h[segyio.TraceField.CDP_X], sc) == pytest.approx(512500 + 100 / np.sqrt(2), abs=0.01)
+        assert apply_scalar(h[segyio.TraceField.CDP_Y], sc) == pytest.approx(7421000 + 100 / np.sqrt(2), abs=0.01)
+        tr = f.trace[0]  # station EP-01, log10 values kept below the DOI
+        depth = f.samples
+        want = [np.log10(_lookup(m.depth_top.values[0], m.resistivity.values[0], z)) for z in depth]
+        np.testing.assert_allclose(tr, want, rtol=1e-6)
+
+
+def test_csv_layer_table(profile):
+    root, m = profile
+    with open(root / "exp" / "models.csv", newline="") as fh:
+        rows = list(csv.DictReader(fh))
+    assert tuple(rows[0].keys()) == CSV_COLUMNS
+    assert len(rows) == 5 * N_LAYERS
+    for r in rows:
+        i = list(m.station.values).index(r["station"])
+        k = int(r["layer"]) - 1
+        assert float(r["resistivity_ohmm"]) == m.resistivity.values[i, k]
+        assert float(r["depth_top_m"]) == m.depth_top.values[i, k]
+        assert int(r["below_doi"]) == int(m.depth_top.values[i, k] >= DOI[i])
+        if k == N_LAYERS - 1:
+            assert r["thickness_m"] == "" and r["depth_bottom_m"] == ""
+        else:
+            assert float(r["depth_bottom_m"]) == pytest.approx(m.depth_top.values[i, k + 1])
+
+
+def test_section_outputs_figures_and_report(profile):
+    import xarray as xr
+
+    root, m = profile
+    sec = root / "sec"
+    for name in ("section.png", "section.pdf", "models.png", "models.pdf"):
+        assert (sec / "figures" / name).stat().st_size > 1000
+    with xr.open_dataset(sec / "section.nc", engine="h5netcdf") as g:
+        assert g.attrs["tem_format"] == "section"
+        below = g["below_doi"].values.astype(bool)
+        assert below.any() and np.isnan(g["log10_resistivity"].values[below]).all()
+        assert np.isfinite(g["log10_resistivity"].values[~below & np.isfinite(g["log10_resistivity_full"].values)]).all()
+        assert g.sizes["distance"] == 41  # 0..1000 m every 25 m
+    parser = _Links()
+    parser.feed((sec / "report.html").read_text(encoding="utf-8"))
+    assert "figures/section.png" in parser.links and "figures/models.png" in parser.links
+    for link in parser.links:
+        assert (sec / link).is_file(), link
+
+
+def test_coordinate_scalar_choice():
+    # UTM-size coordinates fit centimetres in int32; 3e7 m does not (2^31 - 1 = 2147483647).
+    assert coordinate_scalar(np.array([7.4e6])) == -100
+    assert coordinate_scalar(np.array([3.0e7])) == -10
+    assert coordinate_scalar(np.array([3.0e8])) == 1
+    assert apply_scalar(123456, -100) == 1234.56 and apply_scalar(12, 10) == 120
+
+
+# ------------------------------------------------------------------ bad input
+def test_models_file_errors_name_file_and_field(tmp_path):
+    m = synthetic_models()
+    path = write_models(m, tmp_path / "ok.nc")
+    assert read_models(path).sizes["station"] == 5
+    bad = m.drop_vars("doi")
+    bad.to_netcdf(tmp_path / "nodoi.nc", engine="h5netcdf")
+    with pytest.raises(TemInputError, match=r"nodoi\.nc: doi: required variable missing"):
+        read_models(tmp_path / "nodoi.nc")
+    v2 = m.copy()
+    v2.attrs["format_version"] = "2.0"
+    v2.to_netcdf(tmp_path / "v2.nc", engine="h5netcdf")
+    with pytest.raises(TemInputError, match=r"v2\.nc: format_version: version '2\.0' not supported"):
+        read_models(tmp_path / "v2.nc")
+    other = m.copy()
+    other.attrs["tem_format"] = "gated"
+    other.to_netcdf(tmp_path / "gated.nc", engine="h5netcdf")
+    with pytest.raises(TemInputError, match=r"gated\.nc: tem_format"):
+        read_models(tmp_path / "gated.nc")
+
+
+def test_cli_bad_input_exits_2(tmp_path, capsys):
+    path = write_models(synthetic_models(), tmp_path / "in" / "models.nc")
+    vel = tmp_path / "vel.csv"
+    vel.write_text("depth_m,vp_m_per_s\n0,2000\n300,2500\n200,3000\n")
+    assert main(["export", str(path), "--out", str(tmp_path / "o"), "--velocity", str(vel)]) == 2
+    err = capsys.readouterr().err
+    assert "vel.csv: depth_m" in err and err.count("\n") == 1
+    vel.write_text("depth_m,vp_m_per_s\n0,2000\n300,-5\n")
+    with pytest.raises(TemInputError, match=r"vel\.csv: vp_m_per_s"):
+        read_velocity_table(vel)
+    vel.write_text("depth,vp\n0,2000\n")
+    with pytest.raises(TemInputError, match=r"vel\.csv: depth_m: column missing"):
+        read_velocity_table(vel)
+    bad = synthetic_models().drop_vars("chi2")
+    bad.to_netcdf(tmp_path / "bad.nc", engine="h5netcdf")
+    assert main(["section", str(tmp_path / "bad.nc"), "--out", str(tmp_path / "s")]) == 2
+    assert "bad.nc: chi2" in capsys.readouterr().err
+    assert main(["export", str(path), "--out", str(tmp_path / "o"), "--what", "segy-twt"]) == 2
+    assert "--velocity" in capsys.readouterr().err
+    assert not (tmp_path / "o" / "section_twt.sgy").exists()
