@@ -14,8 +14,8 @@ from tem.invert.doi import cumulative_sensitivity, cumulative_sensitivity_doi, t
 def test_cumulative_sensitivity_sums_from_bottom():
     J = np.array([[1.0, -2.0, 0.5], [0.0, 1.0, 0.5]])
     S, C = cumulative_sensitivity(J, np.array([1.0, 0.5]), [10.0, 10.0])
-    assert S == pytest.approx([1.0, 4.0, 1.5])
-    assert C == pytest.approx([6.5, 5.5, 1.5])
+    assert S == pytest.approx([0.5, 2.0, 0.75])        # mean over the 2 data
+    assert C == pytest.approx([3.25, 2.75, 0.75])
 
 
 def test_doi_interpolates_linearly_inside_a_layer():

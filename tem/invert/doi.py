@@ -4,17 +4,19 @@ Two measures:
 
 * ``cumulative_sensitivity_doi``: after Christiansen & Auken (2012), "A global
   measure for depth of investigation", Geophysics 77(4), WB171-WB177. The
-  error-normalised Jacobian with respect to ln(rho) is summed over the data,
-  ``S_j = sum_i |J_ij| / s_i``, and accumulated from the bottom of the model
-  upwards, ``C(z) = sum of S_j over the part of the column below z`` (each
-  layer's sensitivity spread uniformly over its thickness; the half-space's at
-  its top). The DOI is the depth where ``C`` falls to a threshold. With this
-  normalisation ``C(z)`` bounds the summed absolute data change, in standard
-  errors, caused by changing every layer below ``z`` by up to one unit of
-  ln(rho) (a factor e). The published thresholds (about 0.6 standard and 0.8
-  conservative) are quoted from memory and UNVERIFIED; their paper's
-  normalisation may differ from ours. Default here: 0.8. Valid only in the
-  linearisation about the final model.
+  error-normalised Jacobian with respect to ln(rho) is averaged over the N
+  data, ``S_j = (1/N) sum_i |J_ij| / s_i``, and accumulated from the bottom of
+  the model upwards, ``C(z) = sum of S_j over the part of the column below z``
+  (each layer's sensitivity spread uniformly over its thickness; the
+  half-space's at its top). The DOI is the depth where ``C`` falls to a
+  threshold. With this normalisation ``C(z)`` bounds the mean absolute data
+  change, in standard errors per datum, caused by changing every layer below
+  ``z`` by up to one unit of ln(rho) (a factor e); dividing by N keeps the
+  DOI from deepening merely because more gates were recorded. The published
+  thresholds (about 0.6 standard and 0.8 conservative) are quoted from memory
+  and UNVERIFIED, and their paper's normalisation may differ from ours (ours is
+  our own choice). Default here: 0.8. Valid only in the linearisation about
+  the final model.
 * ``two_reference_doi``: Oldenburg & Li (1999), "Estimating depth of
   investigation in DC resistivity and IP surveys", Geophysics 64(2),
   403-416. ``R(z) = (m_A(z) - m_B(z)) / (m_A^ref - m_B^ref)`` from two
@@ -44,12 +46,12 @@ def cumulative_sensitivity(J, std, thickness):
     Returns
     -------
     S : ndarray (M,)
-        ``sum_i |J_ij| / s_i`` per layer.
+        ``(1/N) sum_i |J_ij| / s_i`` per layer.
     C_top : ndarray (M,)
         Cumulative sensitivity of the column from each layer top downwards.
     """
     J = np.asarray(J, float)
-    S = np.sum(np.abs(J) / np.asarray(std, float)[:, None], axis=0)
+    S = np.mean(np.abs(J) / np.asarray(std, float)[:, None], axis=0)
     C_top = np.cumsum(S[::-1])[::-1]
     return S, C_top
 

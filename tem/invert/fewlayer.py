@@ -36,6 +36,7 @@ __all__ = [
     "levenberg_marquardt",
     "fewlayer_inversion",
     "block_smooth_model",
+    "starting_models",
 ]
 
 KINDS = ("resistivity", "thickness", "depth")
@@ -335,10 +336,11 @@ def fewlayer_inversion(layer_fwd, d_obs, std, resistivity0, thickness0, *, prior
 def block_smooth_model(m_smooth, thickness, n_layers, max_depth=None):
     """Few-layer starting model from a smooth model.
 
-    Interfaces go to the ``n_layers - 1`` largest jumps of ln(rho) between
-    neighbouring mesh layers (above ``max_depth`` if given, e.g. the DOI);
-    each block's resistivity is the thickness-weighted geometric mean of its
-    mesh layers (the half-space block takes the mean of its upper part).
+    The mesh layers above ``max_depth`` (e.g. the DOI) are split into
+    ``n_layers`` contiguous blocks that minimise the summed squared deviation
+    of ln(rho) from each block mean (optimal segmentation by dynamic
+    programming; mesh layers below ``max_depth`` join the last block). Each
+    block's resistivity is the geometric mean of its mesh layers.
 
     Returns (resistivity (n_layers,), thickness (n_layers-1,)).
     """
@@ -347,29 +349,56 @@ def block_smooth_model(m_smooth, thickness, n_layers, max_depth=None):
     if n_layers < 2:
         raise ValueError("n_layers: need at least 2")
     ztop = np.concatenate([[0.0], np.cumsum(h)])     # top of each mesh layer (M entries)
-    jumps = np.abs(np.diff(m))                        # jump at top of mesh layer k+1
-    cand = np.arange(1, m.size)
-    if max_depth is not None:
-        keep = ztop[cand] <= max_depth
-        cand, jumps = cand[keep], jumps[keep]
-    chosen = []
-    order = np.argsort(-jumps)
-    for idx in order:   # no two interfaces on adjacent mesh tops
-        k = cand[idx]
-        if all(abs(k - c) > 1 for c in chosen):
-            chosen.append(k)
-        if len(chosen) == n_layers - 1:
-            break
-    if len(chosen) < n_layers - 1:  # featureless model: spread interfaces in depth
-        chosen = list(np.unique(np.linspace(1, m.size - 1, n_layers + 1).astype(int)[1:-1]))
-        while len(chosen) < n_layers - 1:
-            chosen.append(max(chosen) + 1)
-    chosen = sorted(chosen)
-    edges = [0] + chosen + [m.size]
-    hw = np.concatenate([h, [h[-1] if h.size else 1.0]])
-    rho = []
-    for a, b in zip(edges[:-1], edges[1:]):
-        seg = slice(a, b)
-        rho.append(np.exp(np.average(m[seg], weights=hw[seg])))
-    thick = np.diff(ztop[chosen], prepend=0.0)
-    return np.array(rho), thick
+    M = m.size
+    n_use = M if max_depth is None else int(np.clip(np.searchsorted(ztop, max_depth, "right"), n_layers, M))
+    x = m[:n_use]
+    cs = np.concatenate([[0.0], np.cumsum(x)])
+    cs2 = np.concatenate([[0.0], np.cumsum(x * x)])
+
+    def cost(a, b):       # squared deviation of x[a:b] from its mean
+        n = b - a
+        s = cs[b] - cs[a]
+        return cs2[b] - cs2[a] - s * s / n
+
+    K = n_layers
+    best = np.full((K + 1, n_use + 1), np.inf)
+    arg = np.zeros((K + 1, n_use + 1), int)
+    best[0, 0] = 0.0
+    for k in range(1, K + 1):
+        for b in range(k, n_use + 1):
+            for a in range(k - 1, b):
+                c = best[k - 1, a] + cost(a, b)
+                if c < best[k, b] - 1e-12:
+                    best[k, b], arg[k, b] = c, a
+    edges = [n_use]
+    for k in range(K, 0, -1):
+        edges.append(arg[k, edges[-1]])
+    edges = edges[::-1]          # 0 = e0 < e1 < ... < eK = n_use
+    edges[-1] = M
+    rho = np.array([np.exp(np.mean(m[a:b])) for a, b in zip(edges[:-1], edges[1:])])
+    thick = np.diff(ztop[edges[:-1]])[:] if K > 1 else np.array([])
+    thick = np.diff(np.concatenate([ztop[edges[1:-1]]]), prepend=0.0)
+    return rho, thick
+
+
+def starting_models(m_smooth, thickness, n_layers, max_depth=None):
+    """Candidate few-layer starts from a smooth model (the caller keeps the best fit).
+
+    1. optimal segmentation of the smooth model into ``n_layers`` blocks
+       (:func:`block_smooth_model`);
+    2. the first mesh layer kept as a thin top layer over an optimal
+       segmentation of the rest into ``n_layers - 1`` blocks (smooth models
+       blur a thin near-surface layer into the one below, so the
+       segmentation alone rarely isolates it).
+    Duplicates are dropped.
+    """
+    m = np.asarray(m_smooth, float)
+    h = np.asarray(thickness, float)
+    out = [block_smooth_model(m, h, n_layers, max_depth)]
+    if n_layers >= 3 and m.size > n_layers:
+        rho_r, h_r = block_smooth_model(m[1:], h[1:], n_layers - 1,
+                                        None if max_depth is None else max_depth - h[0])
+        cand = (np.concatenate([[np.exp(m[0])], rho_r]), np.concatenate([[h[0]], h_r]))
+        if not any(c[1].shape == cand[1].shape and np.allclose(c[1], cand[1]) for c in out):
+            out.append(cand)
+    return out

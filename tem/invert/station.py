@@ -1,0 +1,227 @@
+"""One station, end to end: best half-space, mesh, Occam smooth model, DOI, and
+optionally a few-layer model with linearised uncertainty.
+
+Pure computation on a :class:`tem.invert.data.StationData`; files and progress
+live in :mod:`tem.cli.invert` and :mod:`tem.invert.batch`.
+"""
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from .doi import cumulative_sensitivity_doi, two_reference_doi
+from .fewlayer import FewLayerResult, Prior, fewlayer_inversion, starting_models
+from .smooth import best_halfspace, diffusion_depth, log_mesh, occam, roughness_matrix
+
+__all__ = ["InversionSettings", "StationResult", "mesh_for", "smooth_station", "invert_station",
+           "smooth_posterior_std"]
+
+
+@dataclass(frozen=True)
+class InversionSettings:
+    """Settings of a station inversion (all explicit; no module globals).
+
+    Parameters
+    ----------
+    n_layers : int
+        Layers of the smooth mesh including the half-space (>= 30 recommended).
+    depth_min_factor, depth_max_factor : float
+        First-layer thickness and top of the mesh half-space as fractions of
+        the diffusion depth (REFERENCE.md 3) of the best half-space at the
+        earliest and latest usable gate (0.02 and 0.3; chosen here so that
+        a 20 m top layer and a 5-10 km deep target fit one 30-layer mesh;
+        no source).
+    depth_min, depth_max : float or None, m
+        Explicit mesh limits (override the factors).
+    target : float
+        Target chi-square per datum.
+    max_iter : int
+        Occam iterations.
+    ref_resistivity : float or None, ohm-m
+        Reference model (uniform); None = the best half-space.
+    ref_weight : float
+        Weight of ``||m - m_ref||^2`` relative to the roughness (0 = off).
+    doi_method : {"sensitivity", "two-reference"}
+    doi_threshold : float
+        Cumulative-sensitivity threshold (0.8, from memory) or the
+        two-reference cut-off (0.2, from memory).
+    few_layers : int or None
+        Number of layers (2-7, half-space included) of the few-layer model; None = none.
+    start_resistivity, start_thickness : sequences or None
+        User's few-layer starting model (else blocks of the smooth model).
+    priors : tuple of Prior
+        Priors / fixed values of the few-layer model.
+    """
+
+    n_layers: int = 30
+    depth_min_factor: float = 0.02
+    depth_max_factor: float = 0.3
+    depth_min: float | None = None
+    depth_max: float | None = None
+    target: float = 1.0
+    max_iter: int = 20
+    ref_resistivity: float | None = None
+    ref_weight: float = 0.0
+    doi_method: str = "sensitivity"
+    doi_threshold: float | None = None
+    few_layers: int | None = None
+    start_resistivity: tuple | None = None
+    start_thickness: tuple | None = None
+    priors: tuple = ()
+    lm_max_iter: int = 50
+
+    def __post_init__(self):
+        if self.n_layers < 2:
+            raise ValueError("n_layers: need at least 2")
+        if self.doi_method not in ("sensitivity", "two-reference"):
+            raise ValueError("doi_method: valid: sensitivity, two-reference")
+        if self.few_layers is not None and not 2 <= self.few_layers <= 7:
+            raise ValueError("few_layers: must be 2..7 (half-space included)")
+        if self.target <= 0:
+            raise ValueError("target: chi-square target must be positive")
+
+
+@dataclass
+class StationResult:
+    """Outcome of one station (all arrays SI)."""
+
+    station: str
+    x: float
+    y: float
+    z: float
+    thickness: np.ndarray            # smooth mesh, m
+    resistivity: np.ndarray          # smooth model, ohm-m
+    log10_res_std: np.ndarray        # smooth posterior std (under the roughness prior)
+    chi2: float
+    doi: float
+    halfspace: float
+    d_obs: np.ndarray
+    std: np.ndarray
+    d_pred: np.ndarray
+    component: np.ndarray
+    channel: np.ndarray
+    times: np.ndarray                # gate centre of each datum, s
+    mu: float
+    converged: bool
+    message: str
+    few: dict | None = None          # few-layer model (see _few_dict)
+    history: list = field(default_factory=list)
+
+
+def mesh_for(sd, rho_hs, settings: InversionSettings):
+    """Layer thicknesses (m) of the smooth mesh for this station's data."""
+    t = sd.gate_centre[np.unique(np.nonzero(sd.mask)[1])]
+    zmin = settings.depth_min or settings.depth_min_factor * diffusion_depth(rho_hs, t.min())
+    zmax = settings.depth_max or settings.depth_max_factor * diffusion_depth(rho_hs, t.max())
+    zmax = max(zmax, 3 * zmin * settings.n_layers)
+    return log_mesh(settings.n_layers, zmin, zmax)
+
+
+def _problem(sd, h):
+    def fwd(m):
+        return sd.jacobian(np.exp(m), h)
+
+    def predict(m):
+        return sd.predict(np.exp(m), h)
+    return fwd, predict
+
+
+def smooth_posterior_std(J, std, R, mu):
+    """Linearised posterior std of log10(rho) under the roughness prior.
+
+    ``C = (J^T W J + mu R^T R)^-1`` (the regularisation read as a Gaussian
+    prior; Tarantola 2005, from memory). Layers the data do not see keep the
+    spread the roughness prior allows, so the band widens below the DOI.
+    """
+    Jw = J / std[:, None]
+    H = Jw.T @ Jw + mu * (R.T @ R)
+    try:
+        C = np.linalg.inv(H)
+    except np.linalg.LinAlgError:
+        C = np.linalg.pinv(H)
+    return np.sqrt(np.clip(np.diag(C), 0, None)) / np.log(10)
+
+
+def smooth_station(sd, settings: InversionSettings, h=None, m_ref_value=None, ref_weight=None,
+                   callback=None):
+    """Occam smooth inversion of one station; returns (OccamResult, thickness, rho_hs)."""
+    hs_fwd_cache = {}
+
+    def predict_uniform(x):
+        if x not in hs_fwd_cache:
+            hs_fwd_cache[x] = sd.predict(np.array([np.exp(x)]), np.array([]))
+        return hs_fwd_cache[x]
+
+    rho_hs, _ = best_halfspace(predict_uniform, sd.d_obs, sd.std)
+    if h is None:
+        h = mesh_for(sd, rho_hs, settings)
+    M = h.size + 1
+    fwd, predict = _problem(sd, h)
+    ref = settings.ref_resistivity if m_ref_value is None else m_ref_value
+    w_ref = settings.ref_weight if ref_weight is None else ref_weight
+    m_ref = np.full(M, np.log(ref if ref is not None else rho_hs))
+    res = occam(fwd, sd.d_obs, sd.std, np.full(M, np.log(rho_hs)), roughness_matrix(M),
+                predict=predict, m_ref=m_ref, ref_weight=w_ref, target=settings.target,
+                max_iter=settings.max_iter, callback=callback)
+    return res, h, rho_hs
+
+
+def _few_dict(fr: FewLayerResult, start_rho, start_h):
+    return dict(resistivity=fr.resistivity, thickness=fr.thickness, depth_top=fr.depth_top,
+                log10_res_std=fr.log10_res_std, thickness_std=fr.thickness_std,
+                depth_std=fr.depth_std, ln_std=fr.ln_std, correlation=fr.correlation,
+                names=fr.names, chi2=fr.chi2, d_pred=fr.d_pred, converged=fr.lm.converged,
+                message=fr.lm.message, start_resistivity=np.asarray(start_rho, float),
+                start_thickness=np.asarray(start_h, float))
+
+
+def invert_station(sd, settings: InversionSettings = InversionSettings(), callback=None) -> StationResult:
+    """Smooth inversion, DOI and (optionally) few-layer inversion of one station."""
+    res, h, rho_hs = smooth_station(sd, settings, callback=callback)
+    M = h.size + 1
+    R = roughness_matrix(M)
+    if settings.doi_method == "sensitivity":
+        thr = 0.8 if settings.doi_threshold is None else settings.doi_threshold
+        doi = cumulative_sensitivity_doi(res.J, sd.std, h, threshold=thr)
+    else:
+        thr = 0.2 if settings.doi_threshold is None else settings.doi_threshold
+        wr = settings.ref_weight if settings.ref_weight > 0 else 0.01
+        ra, _, _ = smooth_station(sd, settings, h=h, m_ref_value=rho_hs * 10, ref_weight=wr)
+        rb, _, _ = smooth_station(sd, settings, h=h, m_ref_value=rho_hs / 10, ref_weight=wr)
+        doi, _ = two_reference_doi(ra.m, rb.m, np.log(rho_hs * 10), np.log(rho_hs / 10), h, cutoff=thr)
+    out = StationResult(
+        station=sd.station, x=sd.x, y=sd.y, z=sd.z, thickness=h, resistivity=np.exp(res.m),
+        log10_res_std=smooth_posterior_std(res.J, sd.std, R, res.mu), chi2=res.chi2, doi=doi,
+        halfspace=rho_hs, d_obs=sd.d_obs, std=sd.std, d_pred=res.d_pred, component=sd.component,
+        channel=sd.channel, times=sd.gate_centre[np.nonzero(sd.mask)[1]], mu=res.mu,
+        converged=res.converged, message=res.message, history=res.history)
+    if settings.few_layers is not None or settings.start_resistivity is not None:
+        out.few = fewlayer_station(sd, settings, res.m, h, doi)
+    return out
+
+
+def fewlayer_station(sd, settings, m_smooth=None, h_smooth=None, doi=None):
+    """Few-layer inversion of one station from the smooth model or the user's start."""
+    if settings.start_resistivity is not None:
+        rho0 = np.asarray(settings.start_resistivity, float)
+        h0 = np.asarray(settings.start_thickness if settings.start_thickness is not None else [], float)
+        if rho0.size != h0.size + 1:
+            raise ValueError("start model: need one more resistivity than thicknesses")
+        starts = [(rho0, h0)]
+    else:
+        starts = starting_models(m_smooth, h_smooth, settings.few_layers, max_depth=doi)
+
+    def layer_fwd(rho, h):
+        return sd.jacobian(rho, h, with_thickness=True)
+
+    best = None
+    for rho0, h0 in starts:
+        fr = fewlayer_inversion(layer_fwd, sd.d_obs, sd.std, rho0, h0, priors=tuple(settings.priors),
+                                max_iter=settings.lm_max_iter)
+        if best is None or fr.lm.objective < best[0].lm.objective:
+            best = (fr, rho0, h0)
+    return _few_dict(*best)
+
+
+__all__ += ["fewlayer_station", "Prior"]
