@@ -31,19 +31,19 @@ MU0 = 4e-7 * np.pi
 __all__ = ["MU0", "layered_kernels"]
 
 
-@nb.njit(cache=True, fastmath=False)
+@nb.njit(cache=True, fastmath=True)
 def _kernels(lam, omega, res, thk, need_tm, jac, jac_thk,
              rte, btm, drte, dbtm):  # pragma: no cover - compiled
     nw = omega.size
     nl = lam.size
     L = res.size
     sig = 1.0 / res
-    gam = np.empty(L, np.complex128)
-    tnh = np.empty(L, np.complex128)
-    X = np.empty(L, np.complex128)
-    Z = np.empty(L, np.complex128)
-    K = np.empty(L, np.complex128)
     for iw in range(nw):
+        gam = np.empty(L, np.complex128)
+        tnh = np.empty(L, np.complex128)
+        X = np.empty(L, np.complex128)
+        Z = np.empty(L, np.complex128)
+        K = np.empty(L, np.complex128)
         iwm = 1j * omega[iw] * 4e-7 * np.pi
         for il in range(nl):
             lm = lam[il]

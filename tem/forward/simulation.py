@@ -21,6 +21,8 @@ grid and a few matrix products; the Jacobian reuses the same matrices.
 """
 from __future__ import annotations
 
+from functools import lru_cache
+
 import numpy as np
 from scipy import signal
 
@@ -56,7 +58,13 @@ class Simulation:
     lowpass : (order, cutoff_hz), optional
         Receiver Butterworth low-pass filter applied to the response.
     hankel, fourier : str
-        Names of the libdlf filters.
+        Names of the libdlf filters. By default the Fourier filter is
+        key_201_2012 for fields (cosine transform) and wer_101_2020b for
+        time derivatives (sine transform).
+    freq_per_decade : float or None
+        Density of the frequencies at which the layered kernel is evaluated
+        (spline interpolation to the filters' frequencies); None evaluates at
+        the filters' own frequencies (slower, reference-grade).
     n_half_periods : int, optional
         Past half-cycles summed explicitly for a periodic waveform (an
         Euler-Boole correction accounts for the rest); default from the
@@ -64,8 +72,8 @@ class Simulation:
     """
 
     def __init__(self, source, receivers, times=None, gates=None, gate_shape="boxcar",
-                 waveform=None, response=None, lowpass=None, hankel="key_101_2009",
-                 fourier="key_201_2012", n_half_periods=None, gate_nodes=6):
+                 waveform=None, response=None, lowpass=None, hankel="key_201_2012",
+                 fourier=None, freq_per_decade=14, n_half_periods=None, gate_nodes=6):
         if not isinstance(source, (Wire, PolygonLoop, CircularLoop)):
             raise ValueError("source: must be a Wire, PolygonLoop or CircularLoop")
         receivers = list(receivers)
@@ -84,6 +92,7 @@ class Simulation:
         self.gate_shape = gatewindow.check_shape(gate_shape)
         self.lowpass = _check_lowpass(lowpass)
         self.hankel_name, self.fourier_name = hankel, fourier
+        self.freq_per_decade = freq_per_decade
 
         self._setup_times(times, gates, gate_nodes, n_half_periods)
         self._check_geometry()
@@ -249,35 +258,71 @@ class Simulation:
         self._need_tm = np.any(G["b"] != 0)
 
     def _setup_fourier(self):
-        base, fsin, fcos = dlf.fourier_filter(self.fourier_name)
+        """Time-domain operators per receiver on a common (coarse) frequency grid.
+
+        Each receiver gets the lagged sine/cosine DLF of its filter on a log time
+        grid, a spline to its evaluation times and the waveform/gate operator,
+        all folded into one matrix over frequency. The kernel is evaluated on a
+        coarse log-frequency grid (``freq_per_decade`` inside the band the times
+        need, half as dense outside) and the spectrum, divided by omega, is
+        carried to each filter's frequencies by a cubic spline in log omega;
+        ``freq_per_decade=None`` evaluates the kernel at the filters' own
+        frequencies instead (reference-grade, slower).
+        """
         u = self._u
         umin = max(u.min(), 1e-9)
-        tgrid, omega, _ = dlf.lagged_grid(base, umin, u.max())
-        self._omega = omega
-        nt = tgrid.size
-        S = dlf.spline_matrix(tgrid, np.maximum(u, umin))
-        A = self._U @ S                       # (n_out, nt)
-        Csin = dlf.lagged_matrix(fsin, nt) / tgrid[:, None] * (2 / np.pi)
-        Ccos = dlf.lagged_matrix(fcos, nt) / tgrid[:, None] * (2 / np.pi)
-        # transforms of Im F (and Re F through the low-pass), derivative order p:
-        # p=0 field step-off: cos of -Im F/omega; p=1: sin of Im F; p=2: cos of omega Im F
-        T = {0: Ccos * (-1.0 / omega)[None, :], 1: Csin.copy(), 2: Ccos * omega[None, :]}
+        umax = u.max()
+        kinds = [0 if rx.kind in ("e", "b") else 1 for rx in self.receivers]
+        if self.response == "impulse":
+            kinds = [k + 1 for k in kinds]
+        fine = {}
+        for k in set(kinds):
+            name = self.fourier_name or ("key_201_2012" if k % 2 == 0 else "wer_101_2020b")
+            if name in fine:
+                continue
+            base, fsin, fcos = dlf.fourier_filter(name)
+            tgrid, omega, _ = dlf.lagged_grid(base, umin, umax)
+            nt = tgrid.size
+            S = dlf.spline_matrix(tgrid, np.maximum(u, umin))
+            A = self._U @ S
+            Csin = dlf.lagged_matrix(fsin, nt) / tgrid[:, None] * (2 / np.pi)
+            Ccos = dlf.lagged_matrix(fcos, nt) / tgrid[:, None] * (2 / np.pi)
+            fine[name] = (omega, A, Csin, Ccos)
+        # the frequency grid the kernel is evaluated on
+        if self.freq_per_decade is None:
+            omega_c = np.concatenate([f[0] for f in fine.values()])
+        else:
+            wlo = min(f[0][0] for f in fine.values())
+            whi = max(f[0][-1] for f in fine.values())
+            omega_c = _coarse_omega(wlo, whi, 0.1 / umax, 100.0 / umin, self.freq_per_decade)
+        self._omega = omega_c
         if self.lowpass is not None:
             b, a = signal.butter(self.lowpass[0], _TWO_PI * self.lowpass[1], analog=True)
-            _, hlp = signal.freqs(b, a, worN=omega)
-        else:
-            hlp = np.ones(omega.size, complex)
-        self._hlp = hlp
         self._D = []
-        for rx in self.receivers:
-            p = 0 if rx.kind in ("e", "b") else 1
-            if self.response == "impulse":
-                p, sgn = p + 1, -1.0
+        offset = 0
+        blocks = {}
+        for name, (omega, A, Csin, Ccos) in fine.items():
+            if self.freq_per_decade is None:
+                Q = np.zeros((omega.size, omega_c.size))
+                Q[:, offset:offset + omega.size] = np.eye(omega.size)
+                offset += omega.size
             else:
-                sgn = 1.0
-            D = sgn * (A @ T[p])
-            # Im(F * H) = Im F Re H + Re F Im H
-            self._D.append((D * hlp.real[None, :], D * hlp.imag[None, :]))
+                Q = omega[:, None] * dlf.spline_matrix(omega_c, omega) / omega_c[None, :]
+            if self.lowpass is not None:
+                _, hlp = signal.freqs(b, a, worN=omega)
+            else:
+                hlp = np.ones(omega.size, complex)
+            # derivative order p: 0 field step-off (cos of -Im F/omega), 1 its time
+            # derivative (sin of Im F), 2 the second derivative (cos of omega Im F)
+            T = {0: Ccos * (-1.0 / omega)[None, :], 1: Csin, 2: Ccos * omega[None, :]}
+            blocks[name] = (A, T, hlp, Q)
+        for rx, k in zip(self.receivers, kinds):
+            name = self.fourier_name or ("key_201_2012" if k % 2 == 0 else "wer_101_2020b")
+            A, T, hlp, Q = blocks[name]
+            sgn = -1.0 if self.response == "impulse" else 1.0
+            D = sgn * (A @ T[k])
+            # Im(F H) = Im F Re H + Re F Im H, F on the coarse grid through Q
+            self._D.append(((D * hlp.real[None, :]) @ Q, (D * hlp.imag[None, :]) @ Q))
         self._scale = np.array([MU0 if rx.kind in ("b", "dbdt") else 1.0
                                 for rx in self.receivers])
 
@@ -364,6 +409,14 @@ class Simulation:
             J[:, :, k] = self._assemble(dF[k], ddc[k] if needs else None)
         return d, J
 
+    def dc(self, model: LayeredModel) -> np.ndarray:
+        """Steady (DC) fields per receiver while 1 A flows: E [V/m] or B [T]; 0 for dB/dt."""
+        if not isinstance(model, LayeredModel):
+            raise ValueError("model: must be a tem.forward.LayeredModel")
+        dc = self._dc(model)[0]
+        kinds = np.array([rx.kind for rx in self.receivers])
+        return np.where(kinds == "dbdt", 0.0, dc * self._scale)
+
     # ------------------------------------------------------------ conveniences
     @property
     def n_frequencies(self):
@@ -380,6 +433,17 @@ class Simulation:
         return simulation_from_sounding(cls, ds, **kw)
 
 
+def _coarse_omega(wlo, whi, core_lo, core_hi, per_decade):
+    """Log-frequency grid: ``per_decade`` inside [core_lo, core_hi], half as dense outside."""
+    step = np.log(10.0) / per_decade
+    lo, hi = np.log(max(core_lo, wlo)), np.log(min(core_hi, whi))
+    core = np.arange(lo, hi + step, step)
+    out_step = 2 * step
+    left = np.arange(core[0] - out_step, np.log(wlo) - out_step, -out_step)[::-1]
+    right = np.arange(core[-1] + out_step, np.log(whi) + out_step, out_step)
+    return np.exp(np.concatenate([left, core, right]))
+
+
 def _check_lowpass(lowpass):
     if lowpass is None:
         return None
@@ -394,6 +458,11 @@ def _check_lowpass(lowpass):
     return order, fc
 
 
+@lru_cache(maxsize=64)
+def _leggauss(n):
+    return np.polynomial.legendre.leggauss(n)
+
+
 def _log_gauss(lo, hi):
     """Gauss-Legendre nodes and weights for int_lo^hi f(u) du, in log u when lo > 0."""
     if lo <= 0:
@@ -403,7 +472,7 @@ def _log_gauss(lo, hi):
         return np.r_[lo_eff, uq], np.r_[lo_eff, wq]
     span = np.log(hi / lo)
     n = int(np.clip(np.ceil(8 * span / np.log(10.0)) + 3, 3, 40))
-    xg, wg = np.polynomial.legendre.leggauss(n)
+    xg, wg = _leggauss(n)
     x = np.log(lo) + 0.5 * (xg + 1.0) * span
     u = np.exp(x)
     return u, 0.5 * span * wg * u
