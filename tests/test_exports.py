@@ -59,8 +59,13 @@ def profile(tmp_path_factory):
     models_path = write_models(synthetic_models(), root / "in" / "models.nc")
     vel = root / "vel.csv"
     vel.write_text(f"# two-layer test model\ndepth_m,vp_m_per_s\n0,{V1}\n{H1},{V2}\n")
+    rhoa = root / "rhoa.csv"
+    t = np.logspace(-5, -2, 12)
+    rhoa.write_text("station,time_s,rhoa_ohmm\n" + "".join(
+        f"EP-0{k},{tt:.17g},{100 * (tt / 1e-4) ** (0.1 * k):.17g}\n" for k in range(1, 6) for tt in t))
     assert main(["section", str(models_path), "--out", str(root / "sec"), "--depth-step", "5",
-                 "--trace-spacing", "25", "--report", "--below-doi", "hide"]) == 0
+                 "--trace-spacing", "25", "--report", "--below-doi", "hide",
+                 "--rhoa-csv", str(rhoa)]) == 0
     assert main(["export", str(models_path), "--out", str(root / "exp"), "--velocity", str(vel),
                  "--depth-step", "2.5", "--max-depth", "450", "--las-step", "2", "--dt-ms", "4"]) == 0
     assert main(["export", str(models_path), "--out", str(root / "exp2"), "--what", "segy-depth",
@@ -188,7 +193,7 @@ def test_section_outputs_figures_and_report(profile):
 
     root, m = profile
     sec = root / "sec"
-    for name in ("section.png", "section.pdf", "models.png", "models.pdf"):
+    for name in ("section.png", "section.pdf", "models.png", "models.pdf", "pseudosection.png"):
         assert (sec / "figures" / name).stat().st_size > 1000
     with xr.open_dataset(sec / "section.nc", engine="h5netcdf") as g:
         assert g.attrs["tem_format"] == "section"
@@ -199,6 +204,7 @@ def test_section_outputs_figures_and_report(profile):
     parser = _Links()
     parser.feed((sec / "report.html").read_text(encoding="utf-8"))
     assert "figures/section.png" in parser.links and "figures/models.png" in parser.links
+    assert "figures/pseudosection.png" in parser.links
     for link in parser.links:
         assert (sec / link).is_file(), link
 
@@ -251,4 +257,6 @@ def test_cli_bad_input_exits_2(tmp_path, capsys):
     assert "bad.nc: chi2" in capsys.readouterr().err
     assert main(["export", str(path), "--out", str(tmp_path / "o"), "--what", "segy-twt"]) == 2
     assert "--velocity" in capsys.readouterr().err
-    assert not (tmp_path / "o" / "section_twt.sgy").exists()
+    assert main(["export", str(path), "--out", str(tmp_path / "o"), "--depth-step", "0.0005"]) == 2
+    assert "--depth-step" in capsys.readouterr().err
+    assert not (tmp_path / "o").exists()  # options are checked before anything is written

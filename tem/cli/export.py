@@ -77,6 +77,20 @@ def run(args) -> int:
         raise input_error("--out", "must not be the folder of the input models file", args.out)
     epsg = int(models.attrs.get("epsg", 0) or 0)
     table = segy.read_velocity_table(args.velocity) if "segy-twt" in kinds else None
+    # Check every option before writing anything.
+    depth_interval = _depth_interval_mm(args.depth_step) if "segy-depth" in kinds else None
+    if "segy-twt" in kinds:
+        if args.vertical != "depth":
+            raise input_error("--vertical", "the TWT section is computed from depth below surface; "
+                              "use --vertical depth")
+        time_interval = int(round(args.dt_ms * 1000))
+        if abs(args.dt_ms * 1000 - time_interval) > 1e-6 or not 1 <= time_interval <= 65535:
+            raise input_error("--dt-ms", "must be a whole number of microseconds in 1..65535")
+        if args.max_twt_ms is not None and not args.max_twt_ms > 0:
+            raise input_error("--max-twt-ms", f"must be positive, got {args.max_twt_ms}")
+    if "las" in kinds and not args.las_step > 0:
+        raise input_error("--las-step", f"must be positive, got {args.las_step}")
+    grid = build_grid(models, args) if {"segy-depth", "segy-twt"} & set(kinds) else None
     written = []
     if "csv" in kinds:
         written.append(write_models_csv(models, out / "models.csv"))
@@ -84,32 +98,24 @@ def run(args) -> int:
         written += las_io.write_las_all(models, out / "las", args.las_step, args.las_bottom,
                                         args.las_null_below_doi, source=args.models)
     if "segy-depth" in kinds:
-        interval = _depth_interval_mm(args.depth_step)
-        grid = build_grid(models, args)
         data, first, step = segy.depth_section_traces(grid, args.segy_value, args.segy_below_doi)
         text = segy.describe(grid, args.vertical, step, args.segy_value, args.segy_below_doi,
                              epsg, args.models)
-        written.append(segy.write_segy(out / "section_depth.sgy", data, grid, interval, first,
+        written.append(segy.write_segy(out / "section_depth.sgy", data, grid, depth_interval, first,
                                        args.vertical, text, args.line_number))
     if "segy-twt" in kinds:
-        if args.vertical != "depth":
-            raise input_error("--vertical", "the TWT section is computed from depth below surface; "
-                              "use --vertical depth")
         dt = args.dt_ms * 1e-3
-        interval = int(round(args.dt_ms * 1000))
-        if abs(args.dt_ms * 1000 - interval) > 1e-6:
-            raise input_error("--dt-ms", "must be a whole number of microseconds")
         if args.max_twt_ms is not None:
             max_twt = args.max_twt_ms * 1e-3
         else:
-            bottom = build_grid(models, args)["depth"].values[-1]
+            bottom = float(grid[grid["log10_resistivity"].dims[1]].values[-1])
             max_twt = float(depth_to_twt(bottom, *table))
-        data, twt, grid, doi_twt = segy.twt_section_traces(
+        data, twt, tgrid, doi_twt = segy.twt_section_traces(
             lambda d: build_grid(models, args, depth=d), table[0], table[1], dt, max_twt,
             args.segy_value, args.segy_below_doi)
-        text = segy.describe(grid, "twt", dt, args.segy_value, args.segy_below_doi, epsg,
+        text = segy.describe(tgrid, "twt", dt, args.segy_value, args.segy_below_doi, epsg,
                              args.models, args.velocity)
-        written.append(segy.write_segy(out / "section_twt.sgy", data, grid, interval, 0.0, "twt",
+        written.append(segy.write_segy(out / "section_twt.sgy", data, tgrid, time_interval, 0.0, "twt",
                                        text, args.line_number, doi_twt=doi_twt))
     params = {k: v for k, v in vars(args).items() if not k.startswith("_") and k != "command"}
     records = records_from_json(models.attrs.get("provenance"))
