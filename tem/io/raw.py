@@ -1,0 +1,367 @@
+"""Raw recordings: a header plus samples read in chunks, readers by format.
+
+Formats (``docs/recordings.md``):
+
+``npy``
+    One ``.npy`` file per channel (1-D, int32 or float32 counts, never
+    pickled) and a TOML sidecar of the same stem (``ex.npy`` -> ``ex.toml``)
+    holding ``sample_rate`` (Hz), ``volts_per_count`` (V) and ``start_time``
+    (ISO-8601 UTC). Samples are memory-mapped and read one chunk at a time;
+    each chunk maps only its own byte range, so a day never has to fit in
+    memory (and never stays resident).
+``text``
+    Plain text: ``# key = value`` header lines (same keys as the sidecar),
+    then whitespace- or comma-separated numeric columns, one row per sample.
+    Read whole (text recordings are small).
+
+Readers live in a small table (:data:`FORMATS`): ``sniff(path)``,
+``open(path, column)`` and ``write(path, counts, header)``. An explicit format
+wins; sniffing by content and suffix is the fallback; an unknown name raises
+one error listing the valid ones.
+"""
+from __future__ import annotations
+
+import math
+import tomllib
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Callable
+
+import numpy as np
+
+from ..errors import TemInputError, input_error
+from ..survey import format_time, parse_time, seconds_between
+from .atomic import atomic_path
+
+__all__ = ["RawHeader", "Recording", "MultiRecording", "FORMATS", "open_recording",
+           "open_receiver", "write_npy_recording", "write_text_recording", "sidecar_path"]
+
+SIDECAR_VERSION = 1
+
+
+@dataclass(frozen=True)
+class RawHeader:
+    """Header of one channel recording.
+
+    sample_rate : Hz. volts_per_count : V per count. start_time : UTC instant
+    of sample 0 (numpy.datetime64[ns]). full_scale : counts at which the
+    digitiser clips (0 if unknown). component, station : labels (optional).
+    """
+
+    sample_rate: float
+    volts_per_count: float
+    start_time: np.datetime64
+    full_scale: float = 0.0
+    component: str = ""
+    station: str = ""
+
+    def __post_init__(self):
+        for name in ("sample_rate", "volts_per_count"):
+            v = getattr(self, name)
+            if not (isinstance(v, (int, float, np.floating)) and math.isfinite(v) and v > 0):
+                raise input_error(name, f"must be a positive number, got {v!r}")
+            object.__setattr__(self, name, float(v))
+        object.__setattr__(self, "start_time", parse_time(self.start_time, "start_time"))
+        fs = float(self.full_scale or 0.0)
+        if not (math.isfinite(fs) and fs >= 0):
+            raise input_error("full_scale", f"must be >= 0, got {self.full_scale!r}")
+        object.__setattr__(self, "full_scale", fs)
+
+    def to_dict(self) -> dict:
+        d = {"format_version": SIDECAR_VERSION, "sample_rate": self.sample_rate,
+             "volts_per_count": self.volts_per_count, "start_time": format_time(self.start_time)}
+        if self.full_scale:
+            d["full_scale"] = self.full_scale
+        if self.component:
+            d["component"] = self.component
+        if self.station:
+            d["station"] = self.station
+        return d
+
+    @classmethod
+    def from_dict(cls, d: dict, file=None) -> "RawHeader":
+        allowed = {"format_version", "sample_rate", "volts_per_count", "start_time", "full_scale",
+                   "component", "station"}
+        try:
+            extra = set(d) - allowed
+            if extra:
+                raise input_error(sorted(extra)[0], f"unknown key; valid: {', '.join(sorted(allowed))}")
+            if int(d.get("format_version", 1)) != SIDECAR_VERSION:
+                raise input_error("format_version", f"unsupported {d['format_version']!r}")
+            for key in ("sample_rate", "volts_per_count", "start_time"):
+                if key not in d:
+                    raise input_error(key, "missing")
+            return cls(sample_rate=d["sample_rate"], volts_per_count=d["volts_per_count"],
+                       start_time=d["start_time"], full_scale=d.get("full_scale", 0.0),
+                       component=str(d.get("component", "")), station=str(d.get("station", "")))
+        except TemInputError as exc:
+            raise TemInputError(f"{file}: {exc}" if file else str(exc)) from None
+
+
+class Recording:
+    """One channel: header plus a chunk reader returning volts (float64).
+
+    ``read(start, stop)`` returns samples ``start:stop`` in volts; ``counts``
+    gives the raw counts. Reading never writes to the file.
+    """
+
+    def __init__(self, path, header: RawHeader, n_samples: int, reader: Callable):
+        self.path = Path(path)
+        self.header = header
+        self.n_samples = int(n_samples)
+        self._reader = reader
+
+    @property
+    def sample_rate(self) -> float:
+        return self.header.sample_rate
+
+    @property
+    def duration(self) -> float:
+        return self.n_samples / self.header.sample_rate
+
+    def counts(self, start: int, stop: int) -> np.ndarray:
+        start, stop = max(0, int(start)), min(self.n_samples, int(stop))
+        if stop <= start:
+            return np.empty(0, dtype=np.float32)
+        return self._reader(start, stop)
+
+    def read(self, start: int, stop: int) -> np.ndarray:
+        c = self.counts(start, stop)
+        return c.astype(np.float64) * self.header.volts_per_count
+
+    def file_at(self, index: int) -> Path:
+        return self.path
+
+    def __repr__(self):
+        return f"Recording({self.path}, n={self.n_samples}, fs={self.sample_rate})"
+
+
+class MultiRecording(Recording):
+    """Several contiguous recordings of one channel seen as one."""
+
+    def __init__(self, parts):
+        parts = list(parts)
+        first = parts[0]
+        fs = first.sample_rate
+        for a, b in zip(parts[:-1], parts[1:]):
+            if b.header.sample_rate != fs:
+                raise input_error("sample_rate", f"differs from {a.path.name}", b.path)
+            if b.header.volts_per_count != first.header.volts_per_count:
+                raise input_error("volts_per_count", f"differs from {a.path.name}", b.path)
+            gap = seconds_between(a.header.start_time, b.header.start_time) - a.n_samples / fs
+            if abs(gap) > 0.5 / fs:
+                raise input_error("start_time", f"not contiguous with {a.path.name} "
+                                  f"(gap {gap:+.6f} s)", b.path)
+        self.parts = parts
+        self.edges = np.cumsum([0] + [p.n_samples for p in parts])
+        super().__init__(first.path, first.header, int(self.edges[-1]), self._read_parts)
+
+    def _read_parts(self, start, stop):
+        out = []
+        for p, e0, e1 in zip(self.parts, self.edges[:-1], self.edges[1:]):
+            a, b = max(start, e0), min(stop, e1)
+            if b > a:
+                out.append(p.counts(a - e0, b - e0))
+        return np.concatenate(out)
+
+    def file_at(self, index: int) -> Path:
+        i = int(np.searchsorted(self.edges, index, side="right")) - 1
+        return self.parts[min(max(i, 0), len(self.parts) - 1)].path
+
+
+# ---------------------------------------------------------------------------- npy + sidecar
+def sidecar_path(path) -> Path:
+    return Path(path).with_suffix(".toml")
+
+
+def _read_sidecar(path) -> RawHeader:
+    side = sidecar_path(path)
+    try:
+        with open(side, "rb") as fh:
+            doc = tomllib.load(fh)
+    except FileNotFoundError:
+        raise input_error("sidecar", f"missing {side.name}", path) from None
+    except tomllib.TOMLDecodeError as exc:
+        raise input_error("toml", str(exc).splitlines()[0], side) from None
+    return RawHeader.from_dict(doc, file=side)
+
+
+def _npy_sniff(path) -> bool:
+    try:
+        with open(path, "rb") as fh:
+            return fh.read(6) == b"\x93NUMPY"
+    except OSError:
+        return False
+
+
+def _npy_open(path, column: int = 0) -> Recording:
+    path = Path(path)
+    header = _read_sidecar(path)
+    try:
+        with open(path, "rb") as fh:
+            version = np.lib.format.read_magic(fh)
+            if version == (1, 0):
+                shape, fortran, dtype = np.lib.format.read_array_header_1_0(fh)
+            else:
+                shape, fortran, dtype = np.lib.format.read_array_header_2_0(fh)
+            offset = fh.tell()
+    except FileNotFoundError:
+        raise input_error("file", "not found", path) from None
+    except (ValueError, OSError) as exc:
+        raise input_error("npy header", f"unreadable ({exc})", path) from None
+    if dtype.hasobject:
+        raise input_error("dtype", "object arrays are refused (no unpickling)", path)
+    if dtype.newbyteorder("=") not in (np.dtype(np.int32), np.dtype(np.float32),
+                                       np.dtype(np.int16), np.dtype(np.float64)):
+        raise input_error("dtype", f"{dtype} unsupported; use int32 or float32 counts", path)
+    if len(shape) != 1:
+        raise input_error("shape", f"expected one channel (1-D), got {shape}", path)
+    n = int(shape[0])
+    size = path.stat().st_size
+    need = offset + n * dtype.itemsize
+    if size < need:
+        have = (size - offset) // dtype.itemsize
+        raise input_error("data", f"truncated: header promises {n} samples, file holds {have}", path)
+    if n == 0:
+        raise input_error("data", "no samples", path)
+
+    def reader(start, stop, _p=path, _d=dtype, _o=offset):
+        # Map only this byte range; the map is dropped on return so mapped
+        # pages do not accumulate in the resident set.
+        mm = np.memmap(_p, dtype=_d, mode="r", offset=_o + start * _d.itemsize,
+                       shape=(stop - start,))
+        out = np.array(mm)
+        del mm
+        return out
+
+    return Recording(path, header, n, reader)
+
+
+def write_npy_recording(path, counts, header: RawHeader) -> Path:
+    """Write counts (int32 or float32, 1-D) and the sidecar, each atomically."""
+    counts = np.asarray(counts)
+    if counts.dtype not in (np.int32, np.float32) or counts.ndim != 1:
+        raise ValueError("counts: must be a 1-D int32 or float32 array")
+    path = Path(path)
+    with atomic_path(path) as tmp:
+        np.save(tmp, counts, allow_pickle=False)
+    _write_sidecar(sidecar_path(path), header)
+    return path
+
+
+def _write_sidecar(path, header):
+    import tomli_w
+
+    from .atomic import write_text_atomic
+    write_text_atomic(path, tomli_w.dumps(header.to_dict()))
+
+
+# ---------------------------------------------------------------------------- plain text
+def _text_sniff(path) -> bool:
+    return Path(path).suffix.lower() in (".txt", ".csv", ".dat", ".asc")
+
+
+def _text_open(path, column: int = 0) -> Recording:
+    path = Path(path)
+    meta = {}
+    rows_start = 0
+    try:
+        with open(path, encoding="utf-8") as fh:
+            lines = fh.readlines()
+    except FileNotFoundError:
+        raise input_error("file", "not found", path) from None
+    except UnicodeDecodeError:
+        raise input_error("text", "not UTF-8 text", path) from None
+    for rows_start, line in enumerate(lines):
+        s = line.strip()
+        if not s.startswith("#"):
+            break
+        body = s.lstrip("#").strip()
+        if "=" in body:
+            k, v = body.split("=", 1)
+            v = v.strip().strip('"')
+            k = k.strip()
+            meta[k] = v if k in ("start_time", "component", "station") else _num(v, k, path)
+    else:
+        rows_start = len(lines)
+    header = RawHeader.from_dict(meta, file=path)
+    values = []
+    for i, line in enumerate(lines[rows_start:], start=rows_start + 1):
+        s = line.strip()
+        if not s or s.startswith("#"):
+            continue
+        parts = s.replace(",", " ").split()
+        if column >= len(parts):
+            raise input_error(f"line {i}", f"has no column {column}", path)
+        try:
+            values.append(float(parts[column]))
+        except ValueError:
+            raise input_error(f"line {i}", f"not a number: {parts[column]!r}", path) from None
+    if not values:
+        raise input_error("data", "no samples", path)
+    data = np.asarray(values, dtype=np.float64)
+    return Recording(path, header, data.size, lambda a, b: data[a:b].copy())
+
+
+def _num(v, k, path):
+    try:
+        return float(v)
+    except ValueError:
+        raise input_error(k, f"not a number: {v!r}", path) from None
+
+
+def write_text_recording(path, columns, header: RawHeader, fmt="%.9g") -> Path:
+    """Write one or more columns of counts as a plain-text recording."""
+    cols = np.atleast_2d(np.asarray(columns, dtype=float))
+    if cols.shape[0] < cols.shape[1]:
+        cols = cols.T
+    head = "\n".join(f"{k} = {v}" for k, v in header.to_dict().items())
+    with atomic_path(path) as tmp:
+        np.savetxt(tmp, cols, fmt=fmt, header=head, comments="# ")
+    return Path(path)
+
+
+# ---------------------------------------------------------------------------- registry
+@dataclass(frozen=True)
+class Format:
+    name: str
+    sniff: Callable
+    open: Callable
+    write: Callable
+    suffixes: tuple = field(default=())
+
+
+FORMATS = {
+    "npy": Format("npy", _npy_sniff, _npy_open, write_npy_recording, (".npy",)),
+    "text": Format("text", _text_sniff, _text_open, write_text_recording,
+                   (".txt", ".csv", ".dat", ".asc")),
+}
+
+
+def open_recording(path, format: str | None = None, column: int = 0) -> Recording:
+    """Open one recording; ``format`` wins, else sniff (npy magic, then suffix)."""
+    path = Path(path)
+    if format is not None:
+        if format not in FORMATS:
+            raise input_error("format", f"unknown {format!r}; valid: {', '.join(FORMATS)}", path)
+        return FORMATS[format].open(path, column)
+    if not path.exists():
+        raise input_error("file", "not found", path)
+    for fmt in FORMATS.values():
+        if fmt.sniff(path):
+            return fmt.open(path, column)
+    raise input_error("format", f"cannot tell the format; valid: {', '.join(FORMATS)}", path)
+
+
+def open_receiver(receiver, survey) -> Recording:
+    """Open the recording(s) of a survey receiver and check them against it."""
+    parts = [open_recording(survey.path(f), receiver.format, receiver.column)
+             for f in receiver.files]
+    if not parts:
+        raise input_error("receiver.files", f"{receiver.component}: no recording listed")
+    for p in parts:
+        if abs(p.header.sample_rate - receiver.sample_rate) > 1e-9 * receiver.sample_rate:
+            raise input_error("sample_rate", f"sidecar says {p.header.sample_rate:g} Hz, survey says "
+                              f"{receiver.sample_rate:g} Hz", sidecar_path(p.path)
+                              if p.path.suffix == ".npy" else p.path)
+    return parts[0] if len(parts) == 1 else MultiRecording(parts)

@@ -1,0 +1,151 @@
+"""Stacked-transient and gated-sounding files (netCDF via xarray, h5netcdf engine).
+
+``stacked/<station>.nc`` (``tem_format = "stacked"``) holds per channel the
+stacked half-period transient, its standard error and the batch influence
+sums from which any gate's error follows (docs/stacking.md).
+``gated/<station>.nc`` (``tem_format = "gated"``) follows docs/data-model.md.
+"""
+from __future__ import annotations
+
+import json
+from pathlib import Path
+
+import numpy as np
+import xarray as xr
+
+from .. import __version__
+from ..errors import input_error
+from ..provenance import records_from_json, records_to_json
+from .atomic import atomic_path
+
+__all__ = ["stacked_dataset", "write_dataset", "read_product", "gated_dataset", "result_from_dataset",
+           "COUNT_FIELDS"]
+
+COUNT_FIELDS = ("transients_total", "transients_used", "rejected_noisy", "rejected_bad_samples",
+                "samples_clipped", "samples_outlier")
+_MAJOR = "1"
+
+
+def _rx_geometry(rx, station):
+    if rx.dipole is not None:
+        (x0, y0), (x1, y1) = rx.dipole
+        return x0, y0, x1, y1, np.nan
+    return station.x, station.y, station.x, station.y, (rx.coil_area or np.nan)
+
+
+def _common_attrs(survey, station, fmt, provenance):
+    tx = survey.transmitter
+    return {
+        "station": station.id, "x": station.x, "y": station.y, "z": station.z,
+        "epsg": int(station.epsg or survey.epsg or 0),
+        "time_reference": "end of switch-off ramp",
+        "normalisation": "per ampere of peak current; E: volts / (gain * dipole length); "
+                         "dB/dt: volts / (gain * coil effective area)",
+        "tx_kind": tx.kind, "tx_points": np.asarray(tx.flat_points(), float),
+        "tx_current": tx.current, "base_frequency": tx.base_frequency,
+        "duty_cycle": tx.duty_cycle, "ramp_on": tx.ramp_on, "ramp_off": tx.ramp_off,
+        "lowpass_order": int(survey.lowpass_order), "lowpass_cutoff": float(survey.lowpass_cutoff),
+        "mains_frequency": survey.mains_frequency,
+        "tem_format": fmt, "format_version": "1.0", "tem_version": __version__,
+        "provenance": records_to_json(provenance),
+    }
+
+
+def stacked_dataset(survey, station, channels, timing, settings, provenance) -> xr.Dataset:
+    """Dataset of one station's stacked channels (see module docstring)."""
+    times = channels[0].times
+    geo = np.array([_rx_geometry(c.receiver, station) for c in channels], float)
+    data = {
+        "value": (("channel", "time"), np.stack([c.result.value for c in channels]),
+                  {"long_name": "stacked transient per ampere"}),
+        "error": (("channel", "time"), np.stack([c.result.error for c in channels]),
+                  {"long_name": "one standard error of value"}),
+        "influence": (("channel", "batch", "time"),
+                      np.stack([c.result.influence for c in channels]),
+                      {"long_name": "batch influence sums; error^2 = B/(B-1) sum_b influence^2"}),
+        "n_used": (("channel", "time"), np.stack([c.result.n_used for c in channels])),
+        "scale": (("channel", "time"), np.stack([c.result.scale for c in channels]),
+                  {"long_name": "robust spread of one three-window estimate"}),
+        "excerpt": (("channel", "excerpt_time"), np.stack([c.excerpt for c in channels]),
+                    {"long_name": "first full period of the raw record, normalised"}),
+        "raw_rms": ("channel", np.array([c.raw_rms for c in channels]), {"units": "V"}),
+        "dead": ("channel", np.array([c.dead for c in channels])),
+        "component": ("channel", np.array([c.receiver.component for c in channels])),
+        "unit": ("channel", np.array([c.receiver.unit for c in channels])),
+        "rx_x0": ("channel", geo[:, 0]), "rx_y0": ("channel", geo[:, 1]),
+        "rx_x1": ("channel", geo[:, 2]), "rx_y1": ("channel", geo[:, 3]),
+        "coil_area": ("channel", geo[:, 4]),
+        "source_file": ("channel", np.array([c.file for c in channels])),
+    }
+    for f in COUNT_FIELDS:
+        data[f] = ("channel", np.array([c.result.counts.get(f, 0) for c in channels], np.int64))
+    fs = 1.0 / (times[1] - times[0])
+    attrs = _common_attrs(survey, station, "stacked", provenance)
+    attrs.update(sample_rate=fs, timing_source=timing["source"],
+                 timing_residual=float(timing["residual_rms"]),
+                 stack_settings=json.dumps(settings.as_dict(), sort_keys=True),
+                 off_time=survey.transmitter.off_time)
+    return xr.Dataset(data, coords={"time": ("time", times, {"units": "s"}),
+                                    "excerpt_time": ("excerpt_time",
+                                                     times[0] + np.arange(2 * times.size) / fs)},
+                      attrs=attrs)
+
+
+def gated_dataset(stacked: xr.Dataset, table, value, error, usable, noise_floor,
+                  provenance) -> xr.Dataset:
+    """Gated sounding (docs/data-model.md) from a stacked dataset and gate results."""
+    keep = ("station", "x", "y", "z", "epsg", "time_reference", "normalisation", "tx_kind",
+            "tx_points", "tx_current", "base_frequency", "duty_cycle", "ramp_on", "ramp_off",
+            "lowpass_order", "lowpass_cutoff", "mains_frequency")
+    attrs = {k: stacked.attrs[k] for k in keep if k in stacked.attrs}
+    attrs.update(gate_shape=table.shape, tem_format="gated", format_version="1.0",
+                 tem_version=__version__, provenance=records_to_json(provenance))
+    ch = {k: stacked[k] for k in ("component", "rx_x0", "rx_y0", "rx_x1", "rx_y1", "coil_area")}
+    return xr.Dataset({
+        "value": (("channel", "gate"), np.asarray(value, float)),
+        "error": (("channel", "gate"), np.asarray(error, float)),
+        "usable": (("channel", "gate"), np.asarray(usable, bool)),
+        "noise_floor": ("channel", np.asarray(noise_floor, float)),
+        "gate_open": ("gate", table.open, {"units": "s"}),
+        "gate_close": ("gate", table.close, {"units": "s"}),
+        "gate_centre": ("gate", table.centre, {"units": "s"}),
+        **{k: ("channel", v.values) for k, v in ch.items()},
+    }, attrs=attrs)
+
+
+def write_dataset(ds: xr.Dataset, path) -> Path:
+    """Write a product Dataset atomically (netCDF4 via h5netcdf)."""
+    path = Path(path)
+    with atomic_path(path, suffix=".nc") as tmp:
+        ds.to_netcdf(tmp, engine="h5netcdf")
+    return path
+
+
+def read_product(path, fmt: str) -> xr.Dataset:
+    """Open a product file and check ``tem_format`` and the major ``format_version``."""
+    path = Path(path)
+    try:
+        ds = xr.load_dataset(path, engine="h5netcdf")
+    except FileNotFoundError:
+        raise input_error("file", "not found", path) from None
+    except (OSError, ValueError) as exc:
+        raise input_error("netcdf", f"unreadable ({type(exc).__name__})", path) from None
+    if ds.attrs.get("tem_format") != fmt:
+        raise input_error("tem_format", f"expected {fmt!r}, found {ds.attrs.get('tem_format')!r}", path)
+    if str(ds.attrs.get("format_version", "")).split(".")[0] != _MAJOR:
+        raise input_error("format_version", f"{ds.attrs.get('format_version')!r} not supported", path)
+    return ds
+
+
+def result_from_dataset(ds: xr.Dataset, channel: int):
+    """:class:`tem.stack.StackResult` of one channel of a stacked Dataset."""
+    from ..stack import StackResult
+    counts = {f: int(ds[f].values[channel]) for f in COUNT_FIELDS if f in ds}
+    return StackResult(value=ds["value"].values[channel], error=ds["error"].values[channel],
+                       influence=ds["influence"].values[channel],
+                       n_used=ds["n_used"].values[channel], scale=ds["scale"].values[channel],
+                       counts=counts)
+
+
+def provenance_of(ds) -> list:
+    return records_from_json(ds.attrs.get("provenance"))

@@ -1,0 +1,570 @@
+"""Stacking: cut at switch times, polarity-reversal combination, robust stack, errors.
+
+Method (docs/stacking.md; weights from REFERENCE.md section 6):
+
+1. The record is cut into half-period windows d_k (M samples each) starting
+   at successive switch-off ends; window k has polarity p_k = (-1)^k.
+2. Optional baseline removal: the mean over one full period holds no signal
+   (a bipolar response obeys s(t + T/2) = -s(t)), so the means of adjacent
+   window pairs sample the drift; a line through them is removed from each
+   window. This cancels quadratic drift exactly after step 3.
+3. Three-window combination (REFERENCE.md 6.2, cf. Macnae, Lamontagne & West
+   1984, Geophysics 49(7)): e_k = p_k (d_k - 2 d_{k+1} + d_{k+2}) / 4. Any
+   offset plus linear drift cancels exactly. The mean of all e_k is the
+   sliding stack with window weights p_j [1, 3, 4, ..., 4, 3, 1] / (4 (n-2)).
+4. Robust location of the e_k per sample: one-step M-estimates from a robust
+   start (Bickel 1975, JASA 70, 428-434): start m0 = median of batch
+   medians, scale s0 = median of batch MADs; then m = m0 + s0 sum(psi(r)) /
+   sum(psi'(r)), r = (e - m0) / s0. psi: identity (mean), Huber clip
+   (Huber 1964), winsorising at the alpha-quantiles (trimmed mean) or sign
+   (median, psi' from a density estimate).
+5. Errors: the e_k are correlated (neighbours share windows). The estimates
+   are split into B contiguous batches; the per-batch influence sums
+   U_b = s0 (sum_{k in b} psi_k - n_b mean(psi)) / sum(psi') give
+   Var(m) = B/(B-1) sum_b U_b^2 (batch means). Batches are long compared
+   with the correlation length, so this is honest for any short-range
+   correlation; the U_b are stored so that any linear combination of samples
+   (a gate) gets its error the same way.
+
+Kernels take arrays and return new objects; reading and headers are apart.
+"""
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from .errors import input_error
+
+__all__ = ["ESTIMATORS", "StackSettings", "StackResult", "WindowSource", "ArraySource",
+           "RecordingSource", "combine_three", "stack_windows", "stack_source",
+           "window_layout", "detect_switch_times", "plain_bipolar_stack", "ChannelStack",
+           "stack_station", "timing_for_station"]
+
+ESTIMATORS = ("huber", "mean", "median", "trimmed")
+_MAD = 1.482602218505602  # 1 / Phi^{-1}(3/4): MAD -> sigma for Gaussian data
+
+
+@dataclass(frozen=True)
+class StackSettings:
+    """Stacking parameters (all explicit, no globals).
+
+    estimator : one of ``huber`` (default), ``mean``, ``median``, ``trimmed``.
+    huber_k : Huber clipping constant in robust sigmas (1.5: 96 % efficiency).
+    trim : fraction trimmed at each end for ``trimmed`` (0.1).
+    reject_sigma : a sample estimate further than this many robust sigmas from
+        the start is rejected (weight 0); not used by ``mean``.
+    transient_rms : a transient whose rms normalised residual (residuals
+        clipped at reject_sigma) exceeds this is rejected as noisy.
+    bad_fraction : a transient with more than this fraction of rejected
+        samples is rejected whole.
+    n_batches : batches for the error estimate (B).
+    detrend : remove the period-mean baseline before combining.
+    chunk_bytes : target size of one chunk of windows in memory (float64).
+    start_estimates : per batch, how many estimates feed the robust start.
+    """
+
+    estimator: str = "huber"
+    huber_k: float = 1.5
+    trim: float = 0.1
+    reject_sigma: float = 6.0
+    transient_rms: float = 2.5
+    bad_fraction: float = 0.2
+    n_batches: int = 32
+    detrend: bool = True
+    chunk_bytes: int = 64 << 20
+    start_estimates: int = 64
+
+    def __post_init__(self):
+        if self.estimator not in ESTIMATORS:
+            raise input_error("estimator", f"unknown {self.estimator!r}; valid: {', '.join(ESTIMATORS)}")
+        if not 0 <= self.trim < 0.5:
+            raise input_error("trim", f"must be in [0, 0.5), got {self.trim}")
+        if self.huber_k <= 0 or self.reject_sigma <= self.huber_k:
+            raise input_error("reject_sigma", "need 0 < huber_k < reject_sigma")
+        if self.n_batches < 4:
+            raise input_error("n_batches", "need at least 4 batches")
+
+    def as_dict(self) -> dict:
+        return {k: getattr(self, k) for k in self.__dataclass_fields__}
+
+
+@dataclass
+class StackResult:
+    """Stacked half-period transient of one channel (units of the input, e.g. V).
+
+    value, error : (M,) stack and one standard error per sample.
+    influence : (B, M) batch influence sums; error**2 = B/(B-1) sum_b influence**2.
+    n_used : (M,) estimates accepted per sample. scale : (M,) robust sigma of one estimate.
+    counts : what was used and rejected, and why.
+    """
+
+    value: np.ndarray
+    error: np.ndarray
+    influence: np.ndarray
+    n_used: np.ndarray
+    scale: np.ndarray
+    counts: dict = field(default_factory=dict)
+
+    def scaled(self, factor: float) -> "StackResult":
+        f = float(factor)
+        return StackResult(self.value * f, self.error * abs(f), self.influence * f,
+                           self.n_used.copy(), self.scale * abs(f), dict(self.counts))
+
+    def linear_error(self, weights) -> np.ndarray:
+        """Standard error of ``weights @ value`` for weights (..., M), from the batches."""
+        w = np.asarray(weights, float)
+        u = w @ self.influence.T  # (..., B)
+        b = self.influence.shape[0]
+        return np.sqrt(b / (b - 1.0) * np.sum(u * u, axis=-1))
+
+
+# ---------------------------------------------------------------------------- window sources
+class WindowSource:
+    """Consecutive half-period windows: ``get(k0, k1)`` -> (k1-k0, M) float64 (new array).
+
+    ``clipped(k0, k1)`` -> bool mask of digitiser-clipped samples or None.
+    ``polarity0``: polarity of window 0 (+1 or -1).
+    """
+
+    n_windows: int
+    m: int
+    polarity0: int = 1
+
+    def get(self, k0, k1):  # pragma: no cover - interface
+        raise NotImplementedError
+
+    def clipped(self, k0, k1):
+        return None
+
+    def locate_nan(self, k0, k1):
+        return None
+
+
+class ArraySource(WindowSource):
+    """Windows from an in-memory (n, M) array (never modified)."""
+
+    def __init__(self, windows, polarity0: int = 1, clip_mask=None):
+        self._d = np.asarray(windows)
+        if self._d.ndim != 2:
+            raise ValueError("windows: expected a 2-D (n_windows, samples) array")
+        self.n_windows, self.m = self._d.shape
+        self.polarity0 = 1 if polarity0 >= 0 else -1
+        self._clip = None if clip_mask is None else np.asarray(clip_mask, bool)
+
+    def get(self, k0, k1):
+        return np.array(self._d[k0:k1], dtype=np.float64)
+
+    def clipped(self, k0, k1):
+        return None if self._clip is None else self._clip[k0:k1]
+
+    def locate_nan(self, k0, k1):
+        bad = np.flatnonzero(~np.isfinite(self._d[k0:k1]).ravel())
+        return None if bad.size == 0 else ("windows", k0 * self.m + int(bad[0]))
+
+
+class RecordingSource(WindowSource):
+    """Windows cut from a :class:`tem.io.raw.Recording` at sample ``first`` (int)."""
+
+    def __init__(self, recording, first: int, m: int, n_windows: int, polarity0: int = 1):
+        self.rec, self.first, self.m, self.n_windows = recording, int(first), int(m), int(n_windows)
+        self.polarity0 = polarity0
+        self._vpc = recording.header.volts_per_count
+        self._fs = recording.header.full_scale
+
+    def _counts(self, k0, k1):
+        a = self.first + k0 * self.m
+        return self.rec.counts(a, a + (k1 - k0) * self.m).reshape(k1 - k0, self.m)
+
+    def get(self, k0, k1):
+        c = self._counts(k0, k1)
+        out = c.astype(np.float64)
+        out *= self._vpc
+        return out
+
+    def clipped(self, k0, k1):
+        if not self._fs:
+            return None
+        c = self._counts(k0, k1)
+        mask = np.abs(c) >= self._fs
+        return mask if mask.any() else None
+
+    def locate_nan(self, k0, k1):
+        c = self._counts(k0, k1).ravel()
+        bad = np.flatnonzero(~np.isfinite(c))
+        if bad.size == 0:
+            return None
+        idx = self.first + k0 * self.m + int(bad[0])
+        return (self.rec.file_at(idx), idx)
+
+
+# ---------------------------------------------------------------------------- kernels
+def combine_three(d, polarity0: int = 1):
+    """Three-window estimates e_k = p_k (d_k - 2 d_{k+1} + d_{k+2}) / 4 (REFERENCE.md 6.2).
+
+    d : (n, M) consecutive half-period windows. Returns (n-2, M), a new array.
+    """
+    d = np.asarray(d, float)
+    p = polarity0 * (1.0 - 2.0 * (np.arange(d.shape[0] - 2) % 2))
+    e = d[:-2] - 2.0 * d[1:-1] + d[2:]
+    e *= (0.25 * p)[:, None]
+    return e
+
+
+def plain_bipolar_stack(d, polarity0: int = 1):
+    """Plain alternating stack (1/n) sum_k p_k d_k (REFERENCE.md 6.1), for comparison."""
+    d = np.asarray(d, float)
+    p = polarity0 * (1.0 - 2.0 * (np.arange(d.shape[0]) % 2))
+    return p @ d / d.shape[0]
+
+
+def _detrend(d, t_frac):
+    """Remove the period-mean baseline from every window of ``d`` (n, M); new array.
+
+    The boundary baseline between windows j and j+1 is (mu_j + mu_{j+1}) / 2, a
+    full-period mean that holds no signal. A line joins consecutive boundary
+    values across each window; the outer boundaries are extrapolated linearly.
+    ``t_frac`` = (i + 1/2)/M places sample i between the boundaries.
+    """
+    n = d.shape[0]
+    mu = d.mean(axis=1)
+    bnd = 0.5 * (mu[:-1] + mu[1:])            # boundaries 1..n-1
+    if n >= 3:
+        bnd = np.concatenate([[2 * bnd[0] - bnd[1]], bnd, [2 * bnd[-1] - bnd[-2]]])
+    else:
+        bnd = np.concatenate([[bnd[0]], bnd, [bnd[-1]]])
+    b0, b1 = bnd[:-1], bnd[1:]
+    out = d - b0[:, None]
+    out -= (b1 - b0)[:, None] * t_frac[None, :]
+    return out
+
+
+def window_layout(n_samples: int, fs: float, t_first: float, half_period: float, file=None):
+    """Sample index of the first window, samples per window, number of windows, delay.
+
+    t_first : time (s, from sample 0) of the end of a positive switch-off ramp.
+    Returns ``(first, m, n_windows, delay, k_first)`` where ``delay`` is the
+    time of each window's first sample after its switch-off end (s) and
+    ``k_first`` the index of the first usable window counted from t_first.
+    """
+    m_f = fs * half_period
+    m = int(round(m_f))
+    if abs(m_f - m) > 1e-6 * max(1.0, m_f) or m < 2:
+        raise input_error("sample_rate", f"{fs:g} Hz gives {m_f:g} samples per half-period; "
+                          "it must be a whole number", file)
+    k_first = 0
+    if t_first < 0:
+        k_first = int(math.ceil(-t_first / half_period - 1e-9))
+    t0 = t_first + k_first * half_period
+    first = int(math.ceil(t0 * fs - 1e-6))
+    delay = first / fs - t0
+    n_windows = (n_samples - first) // m if first < n_samples else 0
+    if n_samples < 2 * m:
+        raise input_error("n_samples", f"recording of {n_samples / fs:g} s is shorter than one "
+                          f"period ({2 * half_period:g} s)", file)
+    if n_windows < 4:
+        raise input_error("first_switch_off", f"switch times fall outside the recording: "
+                          f"{max(n_windows, 0)} half-periods of {n_samples / fs:g} s lie after the "
+                          f"first switch at {t_first:+.6g} s from its start", file)
+    return first, m, int(n_windows), delay, k_first
+
+
+def _batches(n_est: int, n_batches: int):
+    b = min(n_batches, max(n_est // 10, 4))
+    edges = np.linspace(0, n_est, b + 1).round().astype(int)
+    return edges
+
+
+def _chunks(edges, m, chunk_bytes):
+    """(k0, k1, batch) estimate ranges; chunks never straddle batches."""
+    per = max(1, int(chunk_bytes // (8 * m)) - 4)
+    out = []
+    for b, (a, z) in enumerate(zip(edges[:-1], edges[1:])):
+        for k0 in range(a, z, per):
+            out.append((k0, min(z, k0 + per), b))
+    return out
+
+
+def _estimates(src, k0, k1, detrend, t_frac):
+    """Three-window estimates e_k0..e_{k1-1} (each uses windows k..k+2), plus clip mask."""
+    pol = src.polarity0 * (1 if k0 % 2 == 0 else -1)
+    if detrend:
+        a, z = max(k0 - 1, 0), min(k1 + 3, src.n_windows)
+        d = _detrend(src.get(a, z), t_frac)
+        dd = d[k0 - a:k0 - a + (k1 - k0) + 2]
+    else:
+        dd = src.get(k0, k1 + 2)
+    e = combine_three(dd, pol)
+    clip = src.clipped(k0, k1 + 2)
+    bad = None
+    if clip is not None:
+        bad = clip[:-2] | clip[1:-1] | clip[2:]
+    if not np.isfinite(e).all():
+        where = src.locate_nan(k0, k1 + 2)
+        if where is not None:
+            f, idx = where
+            raise input_error("samples", f"NaN or infinite value at sample {idx}", f)
+    return e, bad
+
+
+def stack_source(src: WindowSource, settings: StackSettings = StackSettings(), progress=None):
+    """Stack all windows of a :class:`WindowSource` (streams chunk by chunk).
+
+    Returns a :class:`StackResult` in the units of the source.
+    """
+    s = settings
+    n_est = src.n_windows - 2
+    if n_est < 2:
+        raise input_error("n_windows", f"need at least 4 half-periods, got {src.n_windows}")
+    m = src.m
+    t_frac = (np.arange(m) + 0.5) / m
+    edges = _batches(n_est, s.n_batches)
+    nb = len(edges) - 1
+    chunks = _chunks(edges, m, s.chunk_bytes)
+    total_steps = len(chunks) * (1 if s.estimator == "mean" else 2)
+    step = [0]
+
+    def tick():
+        step[0] += 1
+        if progress is not None:
+            progress(step[0], total_steps)
+
+    # ---- pass 1: robust start from the first estimates of every batch
+    if s.estimator == "mean":
+        m0, s0, lo, hi = np.zeros(m), np.ones(m), None, None
+    else:
+        # pooled start sample: the first estimates of every batch, every third
+        # one (neighbours share windows and are correlated, which would shrink
+        # the spread seen by the MAD)
+        per = max(1, min(s.start_estimates, -(-n_est // nb)))
+        pool, pool_bad = [], []
+        for b in range(nb):
+            a = edges[b]
+            z = min(edges[b + 1], a + 3 * per)
+            e, bad = _estimates(src, a, z, s.detrend, t_frac)
+            pool.append(e[::3])
+            pool_bad.append(np.zeros(pool[-1].shape, bool) if bad is None else bad[::3])
+        e = np.concatenate(pool)
+        bad = np.concatenate(pool_bad)
+        if bad.any():
+            e[bad] = np.nan
+            med = np.nanmedian(e, axis=0)
+            mad = np.nanmedian(np.abs(e - med), axis=0)
+        else:
+            med = np.median(e, axis=0)
+            mad = np.median(np.abs(e - med), axis=0)
+        n = e.shape[0]
+        m0 = np.nan_to_num(med)
+        s0 = np.nan_to_num(mad) * _MAD * n / max(n - 0.8, 1.0)
+        # floor: rounding noise of noise-free data must not reject anything
+        floor = max(1e-9 * float(np.max(np.abs(m0))), np.finfo(float).tiny)
+        s0 = np.maximum(s0, floor)
+        if s.estimator == "trimmed":
+            q = np.nanquantile(e, [s.trim, 1 - s.trim], axis=0)
+            lo = (np.nan_to_num(q[0]) - m0) / s0
+            hi = (np.nan_to_num(q[1]) - m0) / s0
+
+    # ---- pass 2: accumulate psi sums per batch
+    spsi_b = np.zeros((nb, m))
+    cnt_b = np.zeros((nb, m))
+    sdpsi = np.zeros(m)
+    counts = {"transients_total": int(n_est), "transients_used": 0, "rejected_noisy": 0,
+              "rejected_bad_samples": 0, "samples_clipped": 0, "samples_outlier": 0}
+    inv_s = 1.0 / s0
+    h_med = max(0.1, n_est ** -0.2) if s.estimator == "median" else None
+    for k0, k1, b in chunks:
+        e, bad = _estimates(src, k0, k1, s.detrend, t_frac)
+        if bad is not None:
+            counts["samples_clipped"] += int(bad.sum())
+        if s.estimator == "mean":
+            psi = e
+            good = None
+            if bad is not None:
+                good = ~bad
+                psi = np.where(bad, 0.0, e)
+                dpsi = good
+            n_rows = e.shape[0]
+            spsi_b[b] += psi.sum(axis=0)
+            c = good.sum(axis=0) if good is not None else n_rows
+            cnt_b[b] += c
+            sdpsi += c
+            counts["transients_used"] += n_rows
+            tick()
+            continue
+        r = e
+        r -= m0
+        r *= inv_s
+        ar = np.abs(r)
+        out = ar > s.reject_sigma
+        if bad is not None:
+            out |= bad
+        frac = out.mean(axis=1)
+        np.minimum(ar, s.reject_sigma, out=ar)
+        rms = np.sqrt(np.mean(ar * ar, axis=1))
+        drop_noisy = rms > s.transient_rms
+        drop_bad = (frac > s.bad_fraction) & ~drop_noisy
+        drop = drop_noisy | drop_bad
+        counts["rejected_noisy"] += int(drop_noisy.sum())
+        counts["rejected_bad_samples"] += int(drop_bad.sum())
+        counts["transients_used"] += int((~drop).sum())
+        keep = ~out
+        keep[drop] = False
+        counts["samples_outlier"] += int((out[~drop].sum()) - (0 if bad is None else bad[~drop].sum()))
+        if s.estimator == "huber":
+            psi = np.clip(r, -s.huber_k, s.huber_k)
+            dpsi = (ar <= s.huber_k) & keep
+        elif s.estimator == "trimmed":
+            psi = np.clip(r, lo, hi)
+            dpsi = (r > lo) & (r < hi) & keep
+        else:  # median
+            psi = np.sign(r)
+            dpsi = (ar < h_med) & keep
+        psi[~keep] = 0.0
+        spsi_b[b] += psi.sum(axis=0)
+        cnt_b[b] += keep.sum(axis=0)
+        sdpsi += dpsi.sum(axis=0) / (2.0 * h_med) if s.estimator == "median" else dpsi.sum(axis=0)
+        tick()
+
+    n_used = cnt_b.sum(axis=0)
+    if s.estimator == "trimmed":
+        sdpsi = sdpsi / max(1e-12, 1.0)  # psi' = 1 inside the quantiles
+    with np.errstate(invalid="ignore", divide="ignore"):
+        denom = np.where(sdpsi > 0, sdpsi, np.nan)
+        mean_psi = spsi_b.sum(axis=0) / np.where(n_used > 0, n_used, np.nan)
+        value = m0 + s0 * spsi_b.sum(axis=0) / denom
+        infl = s0 * (spsi_b - cnt_b * mean_psi) / denom
+    infl = np.nan_to_num(infl)
+    err = np.sqrt(nb / (nb - 1.0) * np.sum(infl * infl, axis=0))
+    if s.estimator == "mean":
+        scale = np.sqrt(np.maximum(err ** 2 * n_used, 0.0))
+    else:
+        scale = s0
+    return StackResult(value=value, error=err, influence=infl, n_used=n_used, scale=scale,
+                       counts=counts)
+
+
+def stack_windows(windows, polarity0: int = 1, settings: StackSettings = StackSettings(),
+                  clip_mask=None) -> StackResult:
+    """Pure kernel: (n, M) half-period windows -> :class:`StackResult`. Input untouched."""
+    return stack_source(ArraySource(windows, polarity0, clip_mask), settings)
+
+
+# ---------------------------------------------------------------------------- timing
+def detect_switch_times(current, fs: float, half_period: float, ramp_off: float,
+                        duty_cycle: float):
+    """Switch-off ends of positive half-cycles detected on a transmitter-current record.
+
+    current : (N,) samples proportional to the transmitter current (any scale).
+    The falling edge of each positive pulse crosses half the peak (duty < 1:
+    +I -> 0, crossing at I/2) or zero (duty = 1: +I -> -I) at the middle of
+    the linear switch-off ramp; the end of the ramp is ramp_off/2 later.
+    Crossings are found by linear interpolation, then a straight line
+    t_j = t0 + j T is fitted by least squares.
+
+    Returns ``(t0, period, residual_rms, times)`` in s from sample 0.
+    """
+    x = np.asarray(current, float)
+    peak = np.quantile(np.abs(x), 0.95)
+    if not peak > 0:
+        raise input_error("current", "transmitter-current channel is flat")
+    level = 0.5 * peak if duty_cycle < 1.0 else 0.0
+    a, b = x[:-1], x[1:]
+    idx = np.flatnonzero((a > level) & (b <= level))
+    # keep falling edges of positive pulses only (previous half period was +I)
+    if idx.size < 2:
+        raise input_error("current", "fewer than two switch-off edges found")
+    frac = (a[idx] - level) / (a[idx] - b[idx])
+    t_cross = (idx + frac) / fs + 0.5 * ramp_off
+    period = 2.0 * half_period
+    j = np.round((t_cross - t_cross[0]) / period).astype(int)
+    keep = np.concatenate([[True], np.diff(j) > 0])
+    j, t_cross = j[keep], t_cross[keep]
+    A = np.column_stack([np.ones_like(t_cross), j.astype(float)])
+    coef, *_ = np.linalg.lstsq(A, t_cross, rcond=None)
+    res = t_cross - A @ coef
+    return float(coef[0]), float(coef[1]), float(np.sqrt(np.mean(res ** 2))), t_cross
+
+
+# ---------------------------------------------------------------------------- station driver
+@dataclass
+class ChannelStack:
+    """One channel's stack, normalised per A, with its header facts."""
+
+    receiver: object
+    result: StackResult          # normalised (V/m/A, T/s/A)
+    times: np.ndarray            # (M,) s from the end of the switch-off ramp
+    raw_rms: float               # rms of the raw record after removing its mean (V)
+    dead: bool
+    excerpt: np.ndarray          # (2M,) first full period of the record, normalised
+    file: str
+
+
+def timing_for_station(survey, station, recordings: dict):
+    """Time (s, from the start of the first data recording) of a positive switch-off end.
+
+    Returns ``(t_first, source, residual_rms)``; ``source`` says where the
+    timing came from ("survey" or "current"), residual_rms (s) is the rms of
+    the detected switch times about a straight line (NaN for "survey").
+    """
+    from .survey import seconds_between
+    tx = survey.transmitter
+    rec0 = recordings[station.data_receivers[0].component]
+    t_first = seconds_between(rec0.header.start_time, tx.first_switch_off)
+    if tx.timing == "survey":
+        return t_first, "survey", float("nan")
+    cur = recordings.get("current")
+    if cur is None:
+        raise input_error("transmitter.timing", f"station {station.id}: timing='current' needs a "
+                          "receiver with component 'current'")
+    n = min(cur.n_samples, int(round(60.0 * tx.period * cur.sample_rate)))
+    x = cur.read(0, n)
+    t0, period, res, _ = detect_switch_times(x, cur.sample_rate, tx.half_period, tx.ramp_off,
+                                              tx.duty_cycle)
+    if abs(period - tx.period) > 1e-4 * tx.period:
+        raise input_error("base_frequency", f"current channel repeats every {period:.6g} s, survey "
+                          f"says {tx.period:.6g} s", cur.path)
+    offset = seconds_between(rec0.header.start_time, cur.header.start_time)
+    return t0 + offset, "current", res
+
+
+def stack_station(survey, station, settings: StackSettings = StackSettings(), progress=None):
+    """Open, check and stack every data channel of ``station``.
+
+    Returns ``(channels, timing)`` with a list of :class:`ChannelStack` and a
+    dict ``{"source", "residual_rms", "t_first", "delay"}``. Raises
+    :class:`tem.errors.TemInputError` naming file and field on bad input.
+    """
+    from .io.raw import open_receiver
+    from .survey import seconds_between
+    tx = survey.transmitter
+    recs = {rx.component: open_receiver(rx, survey) for rx in station.receivers}
+    if not station.data_receivers:
+        raise input_error("station.receiver", f"station {station.id} has no data channel")
+    t_first, source, resid = timing_for_station(survey, station, recs)
+    rec0 = recs[station.data_receivers[0].component]
+    out = []
+    delay = None
+    for rx in station.data_receivers:
+        rec = recs[rx.component]
+        shift = seconds_between(rec0.header.start_time, rec.header.start_time)
+        first, m, nw, dly, k_first = window_layout(rec.n_samples, rec.sample_rate,
+                                                   t_first - shift, tx.half_period, rec.path)
+        delay = dly if delay is None else delay
+        if abs(dly - delay) > 1e-3 / rec.sample_rate:
+            raise input_error("start_time", "channels of one station are not sampled in step", rec.path)
+        pol = 1 if k_first % 2 == 0 else -1
+        src = RecordingSource(rec, first, m, nw, polarity0=pol)
+        probe = rec.read(first, first + min(2 * m, rec.n_samples - first))
+        if not np.isfinite(probe).all():
+            bad = int(np.flatnonzero(~np.isfinite(probe))[0]) + first
+            raise input_error("samples", f"NaN or infinite value at sample {bad}", rec.file_at(bad))
+        dead = bool(np.ptp(rec.counts(first, first + 2 * m)) <= 1)
+        raw_rms = float(np.std(probe))
+        res = stack_source(src, settings, progress=progress)
+        factor = rx.volts_to_field(tx.current)
+        excerpt = probe[:2 * m] * factor
+        times = dly + np.arange(m) / rec.sample_rate
+        out.append(ChannelStack(rx, res.scaled(factor), times, raw_rms, dead, excerpt,
+                                str(rec.path)))
+    return out, {"source": source, "residual_rms": resid, "t_first": t_first, "delay": delay}
