@@ -17,7 +17,6 @@ from __future__ import annotations
 
 import csv
 from html.parser import HTMLParser
-from pathlib import Path
 
 import numpy as np
 import pytest
