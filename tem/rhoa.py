@@ -61,6 +61,9 @@ __all__ = [
     "late_time_rhoa",
     "LateTimeResult",
     "halfspace_match",
+    "halfspace_table",
+    "rho_grid",
+    "all_time_rhoa",
     "choose_branches",
     "AllTimeResult",
 ]
@@ -573,7 +576,25 @@ def _unique_sorted(x, tol=1e-9):
     return x[np.concatenate([[True], np.diff(x) > tol])]
 
 
-def halfspace_match(rho_grid, table, value, error=None):
+def _peak_root(spline, tol):
+    """The extremum of ``spline`` (q = response/datum - 1) closest to zero, if within ``tol``.
+
+    A datum at the maximum of a non-monotonic response (the two branches
+    merge) may lie a hair beyond the interpolated maximum; within the
+    interpolation tolerance or the datum's relative error it is taken as the
+    double root.
+    """
+    ext = spline.derivative().solve(0.0, extrapolate=False)
+    if ext.size == 0:
+        return np.empty(0), np.empty(0)
+    q = np.abs(spline(ext))
+    i = int(np.argmin(q))
+    if q[i] > tol:
+        return np.empty(0), np.empty(0)
+    return ext[i:i + 1], np.zeros(1)
+
+
+def halfspace_match(rho_grid, table, value, error=None, slope_table=None, peak_tol=1e-3):
     """Half-spaces that reproduce each datum, from a table of responses.
 
     The response of each datum's half-space is interpolated in ln(rho) by a
@@ -594,12 +615,20 @@ def halfspace_match(rho_grid, table, value, error=None):
         Data.
     error : array_like, optional
         One standard error of the data.
+    slope_table : array_like, optional
+        d(response)/d ln(rho) at ``rho_grid``, same shape as ``table``; with
+        it the interpolation is a cubic Hermite spline (value and slope at
+        every node) instead of a not-a-knot spline.
+    peak_tol : float
+        A datum beyond the extreme half-space response by at most this
+        fraction (or by its own relative error, if larger) is matched to the
+        extremum (double root, flagged ``two-branches``), -.
 
     Returns
     -------
     AllTimeResult
     """
-    from scipy.interpolate import CubicSpline
+    from scipy.interpolate import CubicHermiteSpline, CubicSpline
 
     rho_grid = np.asarray(rho_grid, float)
     if rho_grid.ndim != 1 or rho_grid.size < 4 or np.any(np.diff(rho_grid) <= 0) or rho_grid[0] <= 0:
@@ -613,8 +642,16 @@ def halfspace_match(rho_grid, table, value, error=None):
     v = value.reshape(-1)
     e = err.reshape(-1)
     tab = table.reshape(rho_grid.size, -1)
+    dtab = None
+    if slope_table is not None:
+        dtab = np.asarray(slope_table, float)
+        if dtab.shape != table.shape:
+            raise input_error("slope_table", f"shape {dtab.shape} does not match {table.shape}")
+        dtab = dtab.reshape(rho_grid.size, -1)
     x = np.log(rho_grid)
     flags = np.zeros(v.size, np.int64)
+    peak = np.zeros(v.size, bool)
+    curv = np.full(v.size, np.nan)
     roots, slopes = [], []
     for k in range(v.size):
         rk, sk = np.empty(0), np.empty(0)
@@ -625,13 +662,22 @@ def halfspace_match(rho_grid, table, value, error=None):
         elif np.all(tab[:, k] * v[k] <= 0):
             flags[k] |= FLAGS["wrong-sign"]
         else:
-            spline = CubicSpline(x, tab[:, k] / v[k] - 1.0)
+            if dtab is None:
+                spline = CubicSpline(x, tab[:, k] / v[k] - 1.0)
+            else:
+                spline = CubicHermiteSpline(x, tab[:, k] / v[k] - 1.0, dtab[:, k] / v[k])
             rk = _unique_sorted(spline.solve(0.0, extrapolate=False))
             sk = spline(rk, 1)
             if rk.size == 0:
+                rk, sk = _peak_root(spline, max(peak_tol, e[k] / abs(v[k])))
+                if rk.size:
+                    peak[k] = True
+            if rk.size == 0:
                 flags[k] |= FLAGS["no-root"]
-            elif rk.size > 1:
+            elif rk.size > 1 or peak[k]:
                 flags[k] |= FLAGS["two-branches"]
+        if peak[k]:
+            curv[k] = float(spline(rk[0], 2))
         roots.append(rk)
         slopes.append(sk)
     n_roots = np.array([r.size for r in roots])
@@ -650,6 +696,9 @@ def halfspace_match(rho_grid, table, value, error=None):
             slope[k] = slopes[k][c]
     with np.errstate(divide="ignore", invalid="ignore"):
         rel = np.abs(e) / np.abs(v) / np.abs(slope)
+        # At a peak the first-order error is infinite; use the curvature:
+        # q(x) ~ q'' dx^2 / 2 = sigma  =>  dx = sqrt(2 sigma / |q''|).
+        rel[peak] = np.sqrt(2 * np.abs(e[peak]) / np.abs(v[peak]) / np.abs(curv[peak]))
     out = [a.reshape(shape) for a in (rho, low, high, n_roots, rel, slope, flags)]
     return AllTimeResult(*out)
 
@@ -688,3 +737,83 @@ def choose_branches(roots):
         c = int(back[pos - 1][c])
         chosen[idx[pos - 1]] = c
     return chosen
+
+
+def halfspace_table(sim, rho_grid, progress=None):
+    """Half-space responses and their ln(rho) slopes for a Simulation.
+
+    Parameters
+    ----------
+    sim : tem.forward.Simulation
+        The data's simulation: geometry, waveform, ramps, gates, filter.
+    rho_grid : array_like, shape (n_rho,)
+        Resistivities, ohm-m.
+    progress : callable, optional
+        Called with no argument after each resistivity.
+
+    Returns
+    -------
+    table, slope : ndarray, shape (n_rho, n_receivers, n_gates)
+        Responses (per ampere, SI) and d response / d ln(rho).
+    """
+    from .forward import LayeredModel
+
+    rho_grid = np.asarray(rho_grid, float)
+    table = slope = None
+    for i, rho in enumerate(rho_grid):
+        d, jac = sim.jacobian(LayeredModel(thickness=[], resistivity=[float(rho)]))
+        if table is None:
+            table = np.empty((rho_grid.size,) + d.shape)
+            slope = np.empty_like(table)
+        table[i] = d
+        slope[i] = jac[..., 0]
+        if progress is not None:
+            progress()
+    return table, slope
+
+
+def rho_grid(rho_min=0.1, rho_max=1e5, points_per_decade=16):
+    """Log-spaced resistivities for the all-time search, ohm-m."""
+    if not (0 < rho_min < rho_max) or not np.isfinite(rho_max):
+        raise input_error("rho_range", "needs 0 < minimum < maximum (ohm-m)")
+    if points_per_decade < 2:
+        raise input_error("points_per_decade", "needs at least 2")
+    n = int(np.ceil(np.log10(rho_max / rho_min) * points_per_decade)) + 1
+    return np.logspace(np.log10(rho_min), np.log10(rho_max), n)
+
+
+def all_time_rhoa(sim, value, error=None, rho_min=0.1, rho_max=1e5, points_per_decade=16,
+                  progress=None):
+    """All-time apparent resistivity: the half-space that reproduces each datum.
+
+    The half-space response of ``sim`` (the same geometry, waveform, ramps,
+    gates and receiver filter as the data) and its slope are tabulated on a
+    log grid of resistivities and matched per datum by
+    :func:`halfspace_match` (all roots, flags, smoothest branch).
+
+    Parameters
+    ----------
+    sim : tem.forward.Simulation
+        Simulation of the data (e.g. ``Simulation.from_sounding(ds)``).
+    value : array_like, shape (n_receivers, n_gates)
+        Data per ampere (V/m, T, T/s).
+    error : array_like, optional
+        One standard error of the data.
+    rho_min, rho_max : float
+        Search range, ohm-m.
+    points_per_decade : int
+        Grid density.
+    progress : callable, optional
+        Called after each grid resistivity.
+
+    Returns
+    -------
+    AllTimeResult
+    """
+    grid = rho_grid(rho_min, rho_max, points_per_decade)
+    value = np.asarray(value, float)
+    table, slope = halfspace_table(sim, grid, progress)
+    if table.shape[1:] != value.shape:
+        raise input_error("value", f"shape {value.shape} does not match the simulation's "
+                          f"{table.shape[1:]} (receivers, gates)")
+    return halfspace_match(grid, table, value, error, slope_table=slope)
