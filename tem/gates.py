@@ -152,3 +152,53 @@ def usable_gates(value, error, t_open, t_close, t_limit: float, snr_min: float =
     v, e = np.asarray(value), np.asarray(error)
     ok = (np.asarray(t_close) <= t_limit) & np.isfinite(v) & np.isfinite(e) & (e > 0)
     return ok & (np.abs(v) >= snr_min * e)
+
+
+def default_range(times, off_time: float, half_period: float):
+    """Default gate range (s): from 4 samples after time zero to the end of the off-time.
+
+    With no off-time (duty 1) the gates run to 2 samples before the next switch.
+    """
+    t = np.asarray(times, float)
+    h = float(t[1] - t[0])
+    t_min = max(4.0 * h, t[0] + 2.0 * h)
+    t_max = off_time if off_time > 0 else half_period
+    return t_min, min(t_max, t[-1] + 0.5 * h) - 0.5 * h
+
+
+def gate_stacked(stacked, per_decade: float = 9.0, shape: str = "boxcar", t_min=None,
+                 t_max=None, snr_min: float = 2.0, provenance=()):
+    """Gate every channel of a stacked Dataset; returns the gated-sounding Dataset.
+
+    The gate table is shared by all channels of the station (docs/data-model.md).
+    Dead channels are kept with every gate flagged unusable.
+    """
+    from .io.stacked import gated_dataset, result_from_dataset
+    from .provenance import stage_record
+    times = stacked["time"].values
+    lo, hi = default_range(times, float(stacked.attrs.get("off_time", 0.0)),
+                           0.5 / float(stacked.attrs["base_frequency"]))
+    t_min = lo if t_min is None else float(t_min)
+    t_max = hi if t_max is None else float(t_max)
+    table = log_gates(times, t_min, t_max, per_decade, shape)
+    W = gate_matrix(times, table)
+    nch = stacked.sizes["channel"]
+    value = np.empty((nch, len(table)))
+    error = np.empty_like(value)
+    usable = np.zeros_like(value, bool)
+    floor = np.empty(nch)
+    for c in range(nch):
+        res = result_from_dataset(stacked, c)
+        value[c] = W @ res.value
+        error[c] = res.linear_error(W)
+        floor[c] = noise_floor(res, times, t_max / 3.0, t_max)
+        usable[c] = usable_gates(value[c], error[c], table.open, table.close, t_max + 1e-12,
+                                 snr_min)
+        if bool(stacked["dead"].values[c]):
+            usable[c] = False
+    prov = list(provenance) or []
+    from .io.stacked import provenance_of
+    prov = provenance_of(stacked) + prov + [stage_record("gate", {
+        "per_decade": per_decade, "shape": shape, "t_min": t_min, "t_max": t_max,
+        "snr_min": snr_min})]
+    return gated_dataset(stacked, table, value, error, usable, floor, prov)

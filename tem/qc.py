@@ -1,0 +1,163 @@
+"""Quality control: a per-station table for the terminal and QC figures.
+
+Table rows come from stacked and gated Datasets (``qc_rows``); ``qc_table``
+renders them with rich. Figures use the matplotlib object API (no pyplot):
+the gated decay with error bars on log-log axes, and a raw record period
+against the stacked transient.
+"""
+from __future__ import annotations
+
+import numpy as np
+
+__all__ = ["qc_rows", "qc_table", "usable_range", "decay_figure", "raw_vs_stacked_figure"]
+
+
+def usable_range(t_open, t_close, usable):
+    """(start, end) in s of the first contiguous run of usable gates; (nan, nan) if none."""
+    u = np.asarray(usable, bool)
+    if not u.any():
+        return float("nan"), float("nan")
+    i0 = int(np.argmax(u))
+    i1 = i0
+    while i1 + 1 < u.size and u[i1 + 1]:
+        i1 += 1
+    return float(t_open[i0]), float(t_close[i1])
+
+
+def qc_rows(stacked, gated=None) -> list[dict]:
+    """One dict per channel: counts, noise level, signal-to-noise, usable time range."""
+    rows = []
+    for c in range(stacked.sizes["channel"]):
+        r = {"station": stacked.attrs["station"],
+             "channel": str(stacked["component"].values[c]),
+             "unit": str(stacked["unit"].values[c]),
+             "used": int(stacked["transients_used"].values[c]),
+             "total": int(stacked["transients_total"].values[c]),
+             "noisy": int(stacked["rejected_noisy"].values[c]),
+             "bad": int(stacked["rejected_bad_samples"].values[c]),
+             "clipped": int(stacked["samples_clipped"].values[c]),
+             "outliers": int(stacked["samples_outlier"].values[c]),
+             "dead": bool(stacked["dead"].values[c])}
+        if gated is not None:
+            v, e = gated["value"].values[c], gated["error"].values[c]
+            u = gated["usable"].values[c]
+            r["noise"] = float(gated["noise_floor"].values[c])
+            snr = np.abs(v) / np.where(e > 0, e, np.nan)
+            r["snr"] = float(snr[0]) if np.isfinite(snr[0]) else float("nan")
+            r["t_start"], r["t_end"] = usable_range(gated["gate_open"].values,
+                                                    gated["gate_close"].values, u)
+            r["usable"] = int(u.sum())
+            r["gates"] = int(u.size)
+        r["status"] = _status(r)
+        rows.append(r)
+    return rows
+
+
+def _status(r) -> str:
+    if r["dead"]:
+        return "DEAD"
+    if r["total"] and r["used"] < 0.5 * r["total"]:
+        return "POOR"
+    if "t_end" in r:
+        if not np.isfinite(r["t_end"]):
+            return "POOR"
+        if r["t_end"] / max(r["t_start"], 1e-12) < 10.0:
+            return "POOR"
+    return "ok"
+
+
+def qc_table(rows, failed=(), title="Stack QC", console=None):
+    """Print the QC rows (and failed stations) as a rich table."""
+    from rich.console import Console
+    from rich.table import Table
+    console = console or Console()
+    t = Table(title=title, header_style="bold")
+    for col, just in [("station", "left"), ("ch", "left"), ("transients", "right"),
+                      ("rej noisy/bad", "right"), ("clipped/outlier smp", "right"),
+                      ("noise (per A)", "right"), ("SNR 1st gate", "right"),
+                      ("usable time (s)", "right"), ("status", "left")]:
+        t.add_column(col, justify=just)
+    for r in rows:
+        rng = "-"
+        if np.isfinite(r.get("t_end", np.nan)):
+            rng = f"{r['t_start']:.2g} - {r['t_end']:.2g}"
+        status = {"ok": "[green]ok[/]", "POOR": "[yellow]POOR[/]", "DEAD": "[red]DEAD[/]"}.get(
+            r["status"], r["status"])
+        t.add_row(r["station"], r["channel"], f"{r['used']}/{r['total']}",
+                  f"{r['noisy']}/{r['bad']}", f"{r['clipped']}/{r['outliers']}",
+                  f"{r['noise']:.2e} {r['unit']}" if "noise" in r else "-",
+                  f"{r['snr']:.0f}" if np.isfinite(r.get("snr", np.nan)) else "-", rng, status)
+    for sid, msg in failed:
+        t.add_row(sid, "-", "-", "-", "-", "-", "-", "-", f"[red]FAILED[/] {msg}")
+    console.print(t)
+    return t
+
+
+def _figure(w=7.0, h=4.5):
+    from matplotlib.backends.backend_agg import FigureCanvasAgg
+    from matplotlib.figure import Figure
+    fig = Figure(figsize=(w, h), layout="constrained")
+    FigureCanvasAgg(fig)
+    return fig
+
+
+def decay_figure(gated, stacked=None):
+    """Gated decay per channel, |value| with 1-sigma bars on log-log axes.
+
+    Filled markers: positive usable gates; open: negative usable gates;
+    grey: gates flagged unusable. The dashed line is the noise floor per
+    sample; the faint curve is the stacked transient (if given).
+    """
+    n = gated.sizes["channel"]
+    fig = _figure(5.0 * n, 4.2)
+    axes = fig.subplots(1, n, squeeze=False)[0]
+    tc = gated["gate_centre"].values
+    for c, ax in enumerate(axes):
+        v, e = gated["value"].values[c], gated["error"].values[c]
+        u = gated["usable"].values[c]
+        comp = str(gated["component"].values[c])
+        unit = "V/m/A" if comp in ("ex", "ey") else "T/s/A"
+        if stacked is not None:
+            t = stacked["time"].values
+            s = np.abs(stacked["value"].values[c])
+            sel = t <= gated["gate_close"].values[-1]
+            ax.plot(t[sel], s[sel], color="0.8", lw=0.6, label="stacked samples")
+        for mask, kw, lab in [(u & (v > 0), dict(fmt="o", color="tab:blue"), "usable, +"),
+                              (u & (v <= 0), dict(fmt="o", mfc="white", color="tab:red"), "usable, -"),
+                              (~u, dict(fmt="x", color="0.5"), "below noise")]:
+            if mask.any():
+                ax.errorbar(tc[mask], np.abs(v[mask]), yerr=e[mask], ms=4, lw=0.8, capsize=2,
+                            label=lab, **kw)
+        ax.axhline(float(gated["noise_floor"].values[c]), ls="--", color="k", lw=0.8,
+                   label="noise floor (per sample)")
+        ax.set_xscale("log")
+        ax.set_yscale("log")
+        ax.set_xlabel("time after switch-off (s)")
+        ax.set_ylabel(f"|{comp}| ({unit})")
+        ax.set_title(f"{gated.attrs['station']} {comp}")
+        ax.grid(True, which="both", alpha=0.3)
+        ax.legend(fontsize=7)
+    return fig
+
+
+def raw_vs_stacked_figure(stacked):
+    """First full period of the raw record against the stacked transient (both per A)."""
+    n = stacked.sizes["channel"]
+    fig = _figure(5.0 * n, 4.2)
+    axes = fig.subplots(1, n, squeeze=False)[0]
+    te = stacked["excerpt_time"].values
+    t = stacked["time"].values
+    m = t.size
+    for c, ax in enumerate(axes):
+        comp = str(stacked["component"].values[c])
+        raw = stacked["excerpt"].values[c]
+        s = stacked["value"].values[c]
+        ax.plot(te, raw - np.mean(raw), color="0.6", lw=0.5, label="raw (one period, mean removed)")
+        ax.plot(te, np.concatenate([s, -s])[: te.size], color="tab:blue", lw=1.0,
+                label="stacked (+, then -)")
+        ax.set_xlabel("time after a positive switch-off (s)")
+        ax.set_ylabel(f"{comp} ({stacked['unit'].values[c]})")
+        ax.set_title(f"{stacked.attrs['station']} {comp}: raw vs stacked")
+        ax.set_xlim(te[0], te[min(2 * m, te.size) - 1])
+        ax.legend(fontsize=7)
+    return fig
