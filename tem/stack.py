@@ -122,10 +122,10 @@ class StackResult:
 
 # ---------------------------------------------------------------------------- window sources
 class WindowSource:
-    """Consecutive half-period windows: ``get(k0, k1)`` -> (k1-k0, M) float64 (new array).
+    """Consecutive half-period windows.
 
-    ``clipped(k0, k1)`` -> bool mask of digitiser-clipped samples or None.
-    ``polarity0``: polarity of window 0 (+1 or -1).
+    ``get(k0, k1)`` -> ((k1-k0, M) float64 new array, bool mask of
+    digitiser-clipped samples or None). ``polarity0``: polarity of window 0.
     """
 
     n_windows: int
@@ -134,9 +134,6 @@ class WindowSource:
 
     def get(self, k0, k1):  # pragma: no cover - interface
         raise NotImplementedError
-
-    def clipped(self, k0, k1):
-        return None
 
     def locate_nan(self, k0, k1):
         return None
@@ -154,10 +151,8 @@ class ArraySource(WindowSource):
         self._clip = None if clip_mask is None else np.asarray(clip_mask, bool)
 
     def get(self, k0, k1):
-        return np.array(self._d[k0:k1], dtype=np.float64)
-
-    def clipped(self, k0, k1):
-        return None if self._clip is None else self._clip[k0:k1]
+        clip = None if self._clip is None else self._clip[k0:k1]
+        return np.array(self._d[k0:k1], dtype=np.float64), clip
 
     def locate_nan(self, k0, k1):
         bad = np.flatnonzero(~np.isfinite(self._d[k0:k1]).ravel())
@@ -179,16 +174,12 @@ class RecordingSource(WindowSource):
 
     def get(self, k0, k1):
         c = self._counts(k0, k1)
+        mask = None
+        if self._fs and (c.max() >= self._fs or c.min() <= -self._fs):
+            mask = np.abs(c) >= self._fs
         out = c.astype(np.float64)
         out *= self._vpc
-        return out
-
-    def clipped(self, k0, k1):
-        if not self._fs:
-            return None
-        c = self._counts(k0, k1)
-        mask = np.abs(c) >= self._fs
-        return mask if mask.any() else None
+        return out, mask
 
     def locate_nan(self, k0, k1):
         c = self._counts(k0, k1).ravel()
@@ -219,7 +210,7 @@ def plain_bipolar_stack(d, polarity0: int = 1):
     return p @ d / d.shape[0]
 
 
-def _detrend(d, t_frac):
+def _detrend(d, t_frac, clip=None):
     """Remove the period-mean baseline from every window of ``d`` (n, M); new array.
 
     The boundary baseline between windows j and j+1 is (mu_j + mu_{j+1}) / 2, a
@@ -228,9 +219,16 @@ def _detrend(d, t_frac):
     ``t_frac`` = (i + 1/2)/M places sample i between the boundaries.
     """
     n = d.shape[0]
-    mu = d.mean(axis=1)
+    if clip is None:
+        mu = d.mean(axis=1)
+    else:       # clipped samples do not enter the baseline
+        good = ~clip
+        mu = np.where(good, d, 0.0).sum(axis=1) / np.maximum(good.sum(axis=1), 1)
     bnd = 0.5 * (mu[:-1] + mu[1:])            # boundaries 1..n-1
-    if n >= 3:
+    if n >= 4:      # quadratic extrapolation: exact for drift up to degree 2
+        bnd = np.concatenate([[3 * bnd[0] - 3 * bnd[1] + bnd[2]], bnd,
+                              [3 * bnd[-1] - 3 * bnd[-2] + bnd[-3]]])
+    elif n == 3:
         bnd = np.concatenate([[2 * bnd[0] - bnd[1]], bnd, [2 * bnd[-1] - bnd[-2]]])
     else:
         bnd = np.concatenate([[bnd[0]], bnd, [bnd[-1]]])
@@ -291,12 +289,14 @@ def _estimates(src, k0, k1, detrend, t_frac):
     pol = src.polarity0 * (1 if k0 % 2 == 0 else -1)
     if detrend:
         a, z = max(k0 - 1, 0), min(k1 + 3, src.n_windows)
-        d = _detrend(src.get(a, z), t_frac)
-        dd = d[k0 - a:k0 - a + (k1 - k0) + 2]
+        d, clip = src.get(a, z)
+        d = _detrend(d, t_frac, clip)
+        lo = k0 - a
+        dd = d[lo:lo + (k1 - k0) + 2]
+        clip = None if clip is None else clip[lo:lo + (k1 - k0) + 2]
     else:
-        dd = src.get(k0, k1 + 2)
+        dd, clip = src.get(k0, k1 + 2)
     e = combine_three(dd, pol)
-    clip = src.clipped(k0, k1 + 2)
     bad = None
     if clip is not None:
         bad = clip[:-2] | clip[1:-1] | clip[2:]
@@ -434,6 +434,9 @@ def stack_source(src: WindowSource, settings: StackSettings = StackSettings(), p
         mean_psi = spsi_b.sum(axis=0) / np.where(n_used > 0, n_used, np.nan)
         value = m0 + s0 * spsi_b.sum(axis=0) / denom
         infl = s0 * (spsi_b - cnt_b * mean_psi) / denom
+    # no slope information (all estimates equal to rounding, e.g. noise-free data): keep the start
+    flat = ~(sdpsi > 0) & (n_used > 0)
+    value = np.where(flat, m0, value)
     infl = np.nan_to_num(infl)
     err = np.sqrt(nb / (nb - 1.0) * np.sum(infl * infl, axis=0))
     if s.estimator == "mean":
@@ -456,9 +459,11 @@ def detect_switch_times(current, fs: float, half_period: float, ramp_off: float,
     """Switch-off ends of positive half-cycles detected on a transmitter-current record.
 
     current : (N,) samples proportional to the transmitter current (any scale).
-    The falling edge of each positive pulse crosses half the peak (duty < 1:
-    +I -> 0, crossing at I/2) or zero (duty = 1: +I -> -I) at the middle of
-    the linear switch-off ramp; the end of the ramp is ramp_off/2 later.
+    Duty < 1: the falling edge of each positive pulse crosses half the peak
+    at the middle of the linear switch-off ramp; the end of the ramp is
+    ramp_off/2 later. Duty 1: +I falls to 0 over ramp_off and the next
+    pulse starts there (tem.forward.Waveform), so the zero crossing is
+    time zero itself.
     Crossings are found by linear interpolation, then a straight line
     t_j = t0 + j T is fitted by least squares.
 
@@ -475,7 +480,7 @@ def detect_switch_times(current, fs: float, half_period: float, ramp_off: float,
     if idx.size < 2:
         raise input_error("current", "fewer than two switch-off edges found")
     frac = (a[idx] - level) / (a[idx] - b[idx])
-    t_cross = (idx + frac) / fs + 0.5 * ramp_off
+    t_cross = (idx + frac) / fs + (0.5 * ramp_off if duty_cycle < 1.0 else 0.0)
     period = 2.0 * half_period
     j = np.round((t_cross - t_cross[0]) / period).astype(int)
     keep = np.concatenate([[True], np.diff(j) > 0])
