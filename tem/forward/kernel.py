@@ -28,99 +28,184 @@ import numpy as np
 
 MU0 = 4e-7 * np.pi
 
-__all__ = ["MU0", "layered_kernels"]
+__all__ = ["MU0", "layered_kernels", "fused_spectra"]
 
 
 @nb.njit(cache=True, fastmath=True)
+def _point(lm, iwm, res, sig, thk, need_tm, jac, jac_thk, gam, tnh, X, Z, K,
+           dR, dB):  # pragma: no cover - compiled
+    """Kernels at one (omega, lambda); derivatives into dR, dB (length 2L)."""
+    L = res.size
+    l2 = lm * lm
+    # layers below an accumulated attenuation exp(-40) do not affect the
+    # surface: end the stack there with a half-space (exact to 1e-17)
+    nb = L - 1
+    att = 0.0
+    for n in range(L):
+        gam[n] = np.sqrt(l2 + iwm * sig[n])
+        if n < L - 1:
+            att += gam[n].real * thk[n]
+            if att > 20.0:
+                gam[n + 1] = np.sqrt(l2 + iwm * sig[n + 1])
+                nb = n + 1
+                break
+    for n in range(nb):
+        # tanh via exp(-2z): Re(z) > 0, so no overflow for thick layers
+        e2 = np.exp(-2.0 * gam[n] * thk[n])
+        tnh[n] = (1.0 - e2) / (1.0 + e2)
+    # TE recursion
+    X[nb] = gam[nb]
+    for n in range(nb - 1, -1, -1):
+        g = gam[n]
+        t = tnh[n]
+        X[n] = g * (X[n + 1] + g * t) / (g + X[n + 1] * t)
+    Y = X[0]
+    den = lm + Y
+    rte = (lm - Y) / den
+    btm = 0.0 + 0.0j
+    if need_tm:
+        for n in range(nb + 1):
+            K[n] = gam[n] * res[n]
+        Z[nb] = K[nb]
+        for n in range(nb - 1, -1, -1):
+            k = K[n]
+            t = tnh[n]
+            Z[n] = k * (Z[n + 1] + k * t) / (k + Z[n + 1] * t)
+        btm = Z[0] - res[0] * lm - iwm / (2.0 * lm)
+    if jac:
+        for n in range(dR.size):
+            dR[n] = 0.0
+            dB[n] = 0.0
+        dR_dY = -2.0 * lm / (den * den)
+        # TE reverse sweep: a = dY/dX_n
+        a = 1.0 + 0.0j
+        for n in range(nb):
+            g = gam[n]
+            t = tnh[n]
+            x = X[n + 1]
+            D = g + x * t
+            D2 = D * D
+            fK = t * (x * x + g * g + 2.0 * g * x * t) / D2
+            fT = g * (g * g - x * x) / D2
+            fX = g * g * (1.0 - t * t) / D2
+            dg = -iwm * sig[n] / (2.0 * g)
+            dT = thk[n] * (1.0 - t * t) * dg
+            dR[n] = dR_dY * a * (fK * dg + fT * dT)
+            if jac_thk:
+                dR[L + n] = dR_dY * a * fT * g * thk[n] * (1.0 - t * t)
+            a = a * fX
+        dR[nb] = dR_dY * a * (-iwm * sig[nb] / (2.0 * gam[nb]))
+        if need_tm:
+            a = 1.0 + 0.0j
+            for n in range(nb):
+                g = gam[n]
+                k = K[n]
+                t = tnh[n]
+                z = Z[n + 1]
+                D = k + z * t
+                D2 = D * D
+                fK = t * (z * z + k * k + 2.0 * k * z * t) / D2
+                fT = k * (k * k - z * z) / D2
+                fX = k * k * (1.0 - t * t) / D2
+                dg = -iwm * sig[n] / (2.0 * g)
+                dK = k + res[n] * dg
+                dT = thk[n] * (1.0 - t * t) * dg
+                dB[n] = a * (fK * dK + fT * dT)
+                if jac_thk:
+                    dB[L + n] = a * fT * g * thk[n] * (1.0 - t * t)
+                a = a * fX
+            g = gam[nb]
+            dg = -iwm * sig[nb] / (2.0 * g)
+            dB[nb] = a * (g * res[nb] + res[nb] * dg)
+            dB[0] -= res[0] * lm
+    return rte, btm
+
+
+@nb.njit(cache=True)
 def _kernels(lam, omega, res, thk, need_tm, jac, jac_thk,
              rte, btm, drte, dbtm):  # pragma: no cover - compiled
     nw = omega.size
     nl = lam.size
     L = res.size
     sig = 1.0 / res
+    gam = np.empty(L, np.complex128)
+    tnh = np.empty(L, np.complex128)
+    X = np.empty(L, np.complex128)
+    Z = np.empty(L, np.complex128)
+    K = np.empty(L, np.complex128)
+    dR = np.zeros(2 * L, np.complex128)
+    dB = np.zeros(2 * L, np.complex128)
+    npar = drte.shape[0]
     for iw in range(nw):
-        gam = np.empty(L, np.complex128)
-        tnh = np.empty(L, np.complex128)
-        X = np.empty(L, np.complex128)
-        Z = np.empty(L, np.complex128)
-        K = np.empty(L, np.complex128)
         iwm = 1j * omega[iw] * 4e-7 * np.pi
         for il in range(nl):
-            lm = lam[il]
-            l2 = lm * lm
-            for n in range(L):
-                gam[n] = np.sqrt(l2 + iwm * sig[n])
-            for n in range(L - 1):
-                # tanh via exp(-2z): Re(z) > 0, so no overflow for thick layers
-                e2 = np.exp(-2.0 * gam[n] * thk[n])
-                tnh[n] = (1.0 - e2) / (1.0 + e2)
-            # TE recursion
-            X[L - 1] = gam[L - 1]
-            for n in range(L - 2, -1, -1):
-                g = gam[n]
-                t = tnh[n]
-                X[n] = g * (X[n + 1] + g * t) / (g + X[n + 1] * t)
-            Y = X[0]
-            den = lm + Y
-            rte[iw, il] = (lm - Y) / den
-            if need_tm:
-                for n in range(L):
-                    K[n] = gam[n] * res[n]
-                Z[L - 1] = K[L - 1]
-                for n in range(L - 2, -1, -1):
-                    k = K[n]
-                    t = tnh[n]
-                    Z[n] = k * (Z[n + 1] + k * t) / (k + Z[n + 1] * t)
-                btm[iw, il] = Z[0] - res[0] * lm - iwm / (2.0 * lm)
+            r, b = _point(lam[il], iwm, res, sig, thk, need_tm, jac, jac_thk,
+                          gam, tnh, X, Z, K, dR, dB)
+            rte[iw, il] = r
+            btm[iw, il] = b
             if jac:
-                dR_dY = -2.0 * lm / (den * den)
-                # TE reverse sweep
-                a = 1.0 + 0.0j
-                for n in range(L - 1):
-                    g = gam[n]
-                    t = tnh[n]
-                    x = X[n + 1]
-                    D = g + x * t
-                    D2 = D * D
-                    fK = t * (x * x + g * g + 2.0 * g * x * t) / D2
-                    fT = g * (g * g - x * x) / D2
-                    fX = g * g * (1.0 - t * t) / D2
-                    dg = -iwm * sig[n] / (2.0 * g)
-                    dT = thk[n] * (1.0 - t * t) * dg
-                    drte[n, iw, il] = dR_dY * a * (fK * dg + fT * dT)
-                    if jac_thk:
-                        drte[L + n, iw, il] = dR_dY * a * fT * g * thk[n] * (1.0 - t * t)
-                    a = a * fX
-                dg = -iwm * sig[L - 1] / (2.0 * gam[L - 1])
-                drte[L - 1, iw, il] = dR_dY * a * dg
-                if need_tm:
-                    a = 1.0 + 0.0j
-                    for n in range(L - 1):
-                        g = gam[n]
-                        k = K[n]
-                        t = tnh[n]
-                        z = Z[n + 1]
-                        D = k + z * t
-                        D2 = D * D
-                        fK = t * (z * z + k * k + 2.0 * k * z * t) / D2
-                        fT = k * (k * k - z * z) / D2
-                        fX = k * k * (1.0 - t * t) / D2
-                        dg = -iwm * sig[n] / (2.0 * g)
-                        dK = k + res[n] * dg
-                        dT = thk[n] * (1.0 - t * t) * dg
-                        val = a * (fK * dK + fT * dT)
-                        if n == 0:
-                            val -= res[0] * lm
-                        dbtm[n, iw, il] = val
-                        if jac_thk:
-                            dbtm[L + n, iw, il] = a * fT * g * thk[n] * (1.0 - t * t)
-                        a = a * fX
-                    g = gam[L - 1]
-                    dg = -iwm * sig[L - 1] / (2.0 * g)
-                    val = a * (g * res[L - 1] + res[L - 1] * dg)
-                    if L == 1:
-                        val -= res[0] * lm
-                    dbtm[L - 1, iw, il] = val
+                for p in range(npar):
+                    drte[p, iw, il] = dR[p]
+                    dbtm[p, iw, il] = dB[p]
+
+
+@nb.njit(cache=True)
+def _fused(lam, omega, res, thk, need_tm, jac, jac_thk, Gr, Ga, Gb,
+           F, dF):  # pragma: no cover - compiled
+    """F[w, r] = sum_l rte (Gr + i w mu0 Ga) + btm Gb, and the same for derivatives."""
+    nw = omega.size
+    nl = lam.size
+    L = res.size
+    nr = Gr.shape[0]
+    sig = 1.0 / res
+    gam = np.empty(L, np.complex128)
+    tnh = np.empty(L, np.complex128)
+    X = np.empty(L, np.complex128)
+    Z = np.empty(L, np.complex128)
+    K = np.empty(L, np.complex128)
+    dR = np.zeros(2 * L, np.complex128)
+    dB = np.zeros(2 * L, np.complex128)
+    npar = dF.shape[0]
+    for iw in range(nw):
+        iwm = 1j * omega[iw] * 4e-7 * np.pi
+        for il in range(nl):
+            r, b = _point(lam[il], iwm, res, sig, thk, need_tm, jac, jac_thk,
+                          gam, tnh, X, Z, K, dR, dB)
+            for ir in range(nr):
+                ga = Gr[ir, il] + iwm * Ga[ir, il]
+                gb = Gb[ir, il]
+                F[iw, ir] += r * ga + b * gb
+                if jac:
+                    for p in range(npar):
+                        dF[p, iw, ir] += dR[p] * ga + dB[p] * gb
+
+
+def _param_index(L, jac_thk):
+    """Slots of the derivative vector: ln rho_0..L-1, then ln h_0..L-2."""
+    return np.r_[np.arange(L), L + np.arange(L - 1)] if jac_thk else np.arange(L)
+
+
+def fused_spectra(lam, omega, resistivity, thickness, Gr, Ga, Gb, need_tm=True, jac=False,
+                  jac_thk=False):
+    """Wavenumber integrals of the kernels against coefficient matrices, for every omega.
+
+    Returns F (nw, nr) = sum_l R_TE (Gr + i omega mu0 Ga) + B_TM Gb, and with ``jac`` its
+    derivatives dF (npar, nw, nr) with respect to ln(resistivity) (and ln(thickness)).
+    """
+    lam = np.ascontiguousarray(lam, dtype=float)
+    omega = np.ascontiguousarray(omega, dtype=float)
+    res = np.ascontiguousarray(resistivity, dtype=float)
+    thk = np.ascontiguousarray(np.r_[np.asarray(thickness, float), 0.0])
+    L = res.size
+    nr = Gr.shape[0]
+    F = np.zeros((omega.size, nr), np.complex128)
+    dF = np.zeros((2 * L if jac else 0, omega.size, nr), np.complex128)
+    _fused(lam, omega, res, thk, bool(need_tm), bool(jac), bool(jac_thk),
+           np.ascontiguousarray(Gr, float), np.ascontiguousarray(Ga, float),
+           np.ascontiguousarray(Gb, float), F, dF)
+    if not jac:
+        return F, None
+    return F, dF[_param_index(L, jac_thk)]
 
 
 def layered_kernels(lam, omega, resistivity, thickness, need_tm=True, jac=False,
@@ -156,18 +241,14 @@ def layered_kernels(lam, omega, resistivity, thickness, need_tm=True, jac=False,
     nw, nl = omega.size, lam.size
     rte = np.empty((nw, nl), np.complex128)
     btm = np.zeros((nw, nl), np.complex128)
-    npar = (2 * L - 1) if jac_thk else L
     if jac:
-        drte = np.zeros((npar + (1 if jac_thk else 0), nw, nl), np.complex128)
+        drte = np.zeros((2 * L, nw, nl), np.complex128)
         dbtm = np.zeros_like(drte)
     else:
-        drte = np.zeros((1, 1, 1), np.complex128)
-        dbtm = np.zeros((1, 1, 1), np.complex128)
+        drte = np.zeros((0, 1, 1), np.complex128)
+        dbtm = np.zeros((0, 1, 1), np.complex128)
     _kernels(lam, omega, res, thk, bool(need_tm), bool(jac), bool(jac_thk), rte, btm, drte, dbtm)
     if not jac:
         return rte, btm, None, None
-    if jac_thk:
-        # layout: [ln rho_0..ln rho_{L-1}, ln h_0..ln h_{L-2}]; slot L+L-1 unused
-        keep = np.r_[np.arange(L), L + np.arange(L - 1)]
-        drte, dbtm = drte[keep], dbtm[keep]
-    return rte, btm, drte, dbtm
+    keep = _param_index(L, jac_thk)
+    return rte, btm, drte[keep], dbtm[keep]

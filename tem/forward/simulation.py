@@ -28,7 +28,7 @@ from scipy import signal
 
 from . import dlf, gatewindow
 from .geometry import CircularLoop, PolygonLoop, Receiver, Wire
-from .kernel import MU0, layered_kernels
+from .kernel import MU0, fused_spectra, layered_kernels
 from .model import LayeredModel
 from .waveform import Waveform
 
@@ -329,21 +329,13 @@ class Simulation:
     # ---------------------------------------------------------------- evaluate
     def _spectra(self, model, jac=False, jac_thk=False):
         res, thk = model.resistivity, model.thickness
-        rte, btm, drte, dbtm = layered_kernels(self._lam, self._omega, res, thk,
-                                               need_tm=self._need_tm, jac=jac, jac_thk=jac_thk)
-        iwm = 1j * self._omega * MU0
         G = self._G
-        F = (rte @ (G["r"].T)) + iwm[:, None] * (rte @ G["a1"].T)
-        if self._need_tm:
-            F = F + btm @ G["b"].T
+        F, dF = fused_spectra(self._lam, self._omega, res, thk, G["r"], G["a1"], G["b"],
+                              need_tm=self._need_tm, jac=jac, jac_thk=jac_thk)
+        iwm = 1j * self._omega * MU0
         an = self._analytic
         F = F + res[0] * an[:, 0][None, :] + iwm[:, None] * an[:, 1][None, :] + an[:, 2][None, :]
-        dF = None
         if jac:
-            dF = np.einsum("pwl,rl->pwr", drte, G["r"]) + \
-                iwm[None, :, None] * np.einsum("pwl,rl->pwr", drte, G["a1"])
-            if self._need_tm:
-                dF = dF + np.einsum("pwl,rl->pwr", dbtm, G["b"])
             dF[0] += res[0] * an[:, 0][None, :]
         return F, dF
 
@@ -405,8 +397,16 @@ class Simulation:
         d = self._assemble(F, dc)
         npar = dF.shape[0]
         J = np.empty(d.shape + (npar,))
-        for k in range(npar):
-            J[:, :, k] = self._assemble(dF[k], ddc[k] if needs else None)
+        for i, (Dre, Dim) in enumerate(self._D):
+            # all parameters at once: (n_out, n_w) @ (n_w, npar)
+            J[i] = Dre @ dF[:, :, i].imag.T + Dim @ dF[:, :, i].real.T
+            if needs:
+                rx = self.receivers[i]
+                if rx.kind in ("e", "b"):
+                    J[i] += np.outer(self._dc_coef, ddc[:, i])
+                elif self._dc_rate is not None:
+                    J[i] += np.outer(self._dc_rate, ddc[:, i])
+            J[i] *= self._scale[i]
         return d, J
 
     def dc(self, model: LayeredModel) -> np.ndarray:
