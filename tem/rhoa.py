@@ -418,14 +418,19 @@ _E_COMPONENTS = {"ex": (1.0, 0.0), "ey": (0.0, 1.0)}
 
 
 def late_time_rhoa(component, value, t, tx_kind, tx_points, rx, error=None, current=1.0,
-                   rho_ref=None):
+                   rho_ref=None, tol=0.05):
     """Late-time apparent resistivity of one channel; bad gates are flagged.
 
     Validity (flag ``late-invalid`` where it fails; ``valid`` below):
 
-    * with ``rho_ref`` (e.g. the all-time apparent resistivity): u =
-      theta(rho_ref) r_max below :data:`U_LIMIT_REF`; for a half-space this is
-      exactly "late-time rho_a within 5 %";
+    * with ``rho_ref`` (the all-time apparent resistivity of the same
+      datum): |rho_a / rho_ref - 1| < ``tol``. At the all-time root the datum
+      *is* the response of the half-space rho_ref under the real waveform,
+      ramps, gates and filter, so this says exactly "the late-time formula is
+      within tol of that half-space" - including the effect of the periodic
+      waveform, which the step-off formulas ignore (on a bipolar waveform
+      the late gates near the half-period are biased, and the u test alone
+      would miss it);
     * without it: u = theta(rho_a) r_max below :data:`U_LIMIT` *and* the decay
       steeper than :data:`SLOPE_LIMIT` (d ln|value|/d ln t across the gates).
       The slope test is needed because at early times the late-time rho_a is
@@ -454,7 +459,10 @@ def late_time_rhoa(component, value, t, tx_kind, tx_points, rx, error=None, curr
     current : float
         Transmitter current, A.
     rho_ref : array_like, optional
-        Reference resistivity per gate for the validity test, ohm-m.
+        All-time apparent resistivity per gate for the validity test, ohm-m;
+        ``u`` is then computed from it.
+    tol : float
+        Relative tolerance of the ``rho_ref`` validity test (0.05).
 
     Returns
     -------
@@ -502,7 +510,7 @@ def late_time_rhoa(component, value, t, tx_kind, tx_points, rx, error=None, curr
         if rho_ref is not None:
             ref = np.broadcast_to(np.asarray(rho_ref, float), value.shape)
             u = np.sqrt(MU0 / (4 * ref * t)) * r_max
-            valid = ok & (u < U_LIMIT_REF[kind])
+            valid = ok & (np.abs(rho / ref - 1) < tol)
         else:
             u = np.sqrt(MU0 / (4 * rho * t)) * r_max
             valid = ok & (u < U_LIMIT[kind]) & (decay_slope(value, t, ok) < SLOPE_LIMIT[kind])
