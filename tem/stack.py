@@ -62,7 +62,8 @@ class StackSettings:
     n_batches : batches for the error estimate (B).
     detrend : remove the period-mean baseline before combining.
     chunk_bytes : target size of one chunk of windows in memory (float64).
-    start_estimates : per batch, how many estimates feed the robust start.
+    start_estimates : how many estimates (spread over all batches, every third
+        one) feed the robust start.
     """
 
     estimator: str = "huber"
@@ -74,7 +75,7 @@ class StackSettings:
     n_batches: int = 32
     detrend: bool = True
     chunk_bytes: int = 64 << 20
-    start_estimates: int = 64
+    start_estimates: int = 256
 
     def __post_init__(self):
         if self.estimator not in ESTIMATORS:
@@ -138,6 +139,11 @@ class WindowSource:
     def locate_nan(self, k0, k1):
         return None
 
+    def raw(self, k0, k1):
+        """(rows as stored, factor to volts, clip level or 0) for the fast linear path."""
+        d, clip = self.get(k0, k1)
+        return (d, 1.0, 0.0) if clip is None else (None, 1.0, 0.0)
+
 
 class ArraySource(WindowSource):
     """Windows from an in-memory (n, M) array (never modified)."""
@@ -153,6 +159,11 @@ class ArraySource(WindowSource):
     def get(self, k0, k1):
         clip = None if self._clip is None else self._clip[k0:k1]
         return np.array(self._d[k0:k1], dtype=np.float64), clip
+
+    def raw(self, k0, k1):
+        if self._clip is not None and self._clip[k0:k1].any():
+            return None, 1.0, 0.0
+        return self._d[k0:k1], 1.0, 0.0
 
     def locate_nan(self, k0, k1):
         bad = np.flatnonzero(~np.isfinite(self._d[k0:k1]).ravel())
@@ -171,6 +182,12 @@ class RecordingSource(WindowSource):
     def _counts(self, k0, k1):
         a = self.first + k0 * self.m
         return self.rec.counts(a, a + (k1 - k0) * self.m).reshape(k1 - k0, self.m)
+
+    def raw(self, k0, k1):
+        c = self._counts(k0, k1)
+        if self._fs and (c.max() >= self._fs or c.min() <= -self._fs):
+            return None, self._vpc, self._fs
+        return c, self._vpc, self._fs
 
     def get(self, k0, k1):
         c = self._counts(k0, k1)
@@ -308,6 +325,49 @@ def _estimates(src, k0, k1, detrend, t_frac):
     return e, bad
 
 
+def _linear_sum(src, k0, k1, detrend, t_frac):
+    """sum_{k0<=k<k1} e_k without forming the e_k (mean estimator, interior chunks).
+
+    sum_k e_k = sum_j c_j d~_j with c_j = p_j [1/4, 3/4, 1, ..., 1, 3/4, 1/4]
+    (REFERENCE.md 6.3), so the bulk is an even-minus-odd row sum of the stored
+    counts in one pass. The period-mean baseline (B_j = (mu_{j-1} + mu_j)/2)
+    telescopes: its contribution sum_i mu_i (c_i + c_{i+1})/2 + t sum_i mu_i
+    (c_{i-1} - c_{i+1})/2 only involves the window means near the chunk ends.
+    Returns None when the chunk holds clipped samples (generic path).
+    """
+    d, vpc, _ = src.raw(k0, k1 + 2)
+    if d is None:
+        return None
+    n = d.shape[0]
+    pol = src.polarity0 * (1 if k0 % 2 == 0 else -1)
+    tot = d[0::2].sum(axis=0, dtype=np.float64)
+    tot -= d[1::2].sum(axis=0, dtype=np.float64)
+    a = np.ones(n)
+    a[[0, -1]] = 0.25
+    a[[1, -2]] = 0.75
+    p = pol * (1.0 - 2.0 * (np.arange(n) % 2))
+    c = a * p
+    for j in (0, 1, n - 2, n - 1):       # edge weights differ from +-1
+        tot += (c[j] - p[j]) * pol * d[j]
+    tot *= pol
+    if not np.isfinite(tot).all():
+        return None
+    tot *= vpc
+    if not detrend:
+        return tot
+    # window means mu_i for i = k0-1 .. k1+2 enter only near the ends
+    ce = np.concatenate([[0.0], c, [0.0]])           # index i-(k0-1)
+    g = 0.5 * (ce + np.append(ce[1:], 0.0))
+    h = 0.5 * (np.insert(ce[:-1], 0, 0.0) - np.append(ce[1:], 0.0))
+    idx = np.flatnonzero((np.abs(g) > 1e-12) | (np.abs(h) > 1e-12))
+    beta = gamma = 0.0
+    for i in idx:
+        mu = float(src.get(k0 - 1 + i, k0 + i)[0].mean())
+        beta += g[i] * mu
+        gamma += h[i] * mu
+    return tot - beta - gamma * t_frac
+
+
 def stack_source(src: WindowSource, settings: StackSettings = StackSettings(), progress=None):
     """Stack all windows of a :class:`WindowSource` (streams chunk by chunk).
 
@@ -337,14 +397,13 @@ def stack_source(src: WindowSource, settings: StackSettings = StackSettings(), p
         # pooled start sample: the first estimates of every batch, every third
         # one (neighbours share windows and are correlated, which would shrink
         # the spread seen by the MAD)
-        per = max(1, min(s.start_estimates, -(-n_est // nb)))
+        per = max(1, min(-(-s.start_estimates // nb), -(-n_est // (3 * nb))))
         pool, pool_bad = [], []
         for b in range(nb):
-            a = edges[b]
-            z = min(edges[b + 1], a + 3 * per)
-            e, bad = _estimates(src, a, z, s.detrend, t_frac)
-            pool.append(e[::3])
-            pool_bad.append(np.zeros(pool[-1].shape, bool) if bad is None else bad[::3])
+            for k in range(edges[b], min(edges[b + 1], edges[b] + 3 * per), 3):
+                e, bad = _estimates(src, k, k + 1, s.detrend, t_frac)
+                pool.append(e)
+                pool_bad.append(np.zeros(e.shape, bool) if bad is None else bad)
         e = np.concatenate(pool)
         bad = np.concatenate(pool_bad)
         if bad.any():
@@ -371,9 +430,21 @@ def stack_source(src: WindowSource, settings: StackSettings = StackSettings(), p
     sdpsi = np.zeros(m)
     counts = {"transients_total": int(n_est), "transients_used": 0, "rejected_noisy": 0,
               "rejected_bad_samples": 0, "samples_clipped": 0, "samples_outlier": 0}
-    inv_s = 1.0 / s0
+    m0_32 = m0.astype(np.float32)
+    inv_s32 = (1.0 / s0).astype(np.float32)
+    if s.estimator == "trimmed":
+        lo32, hi32 = lo.astype(np.float32), hi.astype(np.float32)
     h_med = max(0.1, n_est ** -0.2) if s.estimator == "median" else None
     for k0, k1, b in chunks:
+        if s.estimator == "mean" and k0 >= 1 and k1 + 3 <= src.n_windows and k1 - k0 >= 8:
+            tot = _linear_sum(src, k0, k1, s.detrend, t_frac)
+            if tot is not None:
+                spsi_b[b] += tot
+                cnt_b[b] += k1 - k0
+                sdpsi += k1 - k0
+                counts["transients_used"] += k1 - k0
+                tick()
+                continue
         e, bad = _estimates(src, k0, k1, s.detrend, t_frac)
         if bad is not None:
             counts["samples_clipped"] += int(bad.sum())
@@ -392,16 +463,17 @@ def stack_source(src: WindowSource, settings: StackSettings = StackSettings(), p
             counts["transients_used"] += n_rows
             tick()
             continue
-        r = e
-        r -= m0
-        r *= inv_s
+        # residuals in float32: they only feed weights and clipped psi values
+        r = e.astype(np.float32)
+        r -= m0_32
+        r *= inv_s32
         ar = np.abs(r)
         out = ar > s.reject_sigma
         if bad is not None:
             out |= bad
-        frac = out.mean(axis=1)
-        np.minimum(ar, s.reject_sigma, out=ar)
-        rms = np.sqrt(np.mean(ar * ar, axis=1))
+        frac = out.mean(axis=1) if out.any() else np.zeros(r.shape[0])
+        np.minimum(ar, np.float32(s.reject_sigma), out=ar)
+        rms = np.sqrt(np.einsum("ij,ij->i", ar, ar, dtype=np.float64) / r.shape[1])
         drop_noisy = rms > s.transient_rms
         drop_bad = (frac > s.bad_fraction) & ~drop_noisy
         drop = drop_noisy | drop_bad
@@ -412,16 +484,17 @@ def stack_source(src: WindowSource, settings: StackSettings = StackSettings(), p
         keep[drop] = False
         counts["samples_outlier"] += int((out[~drop].sum()) - (0 if bad is None else bad[~drop].sum()))
         if s.estimator == "huber":
-            psi = np.clip(r, -s.huber_k, s.huber_k)
-            dpsi = (ar <= s.huber_k) & keep
+            psi = np.clip(r, -s.huber_k, s.huber_k, out=r)
+            dpsi = ar <= s.huber_k
         elif s.estimator == "trimmed":
-            psi = np.clip(r, lo, hi)
-            dpsi = (r > lo) & (r < hi) & keep
+            psi = np.clip(r, lo32, hi32, out=r)
+            dpsi = (psi > lo32) & (psi < hi32)
         else:  # median
-            psi = np.sign(r)
-            dpsi = (ar < h_med) & keep
-        psi[~keep] = 0.0
-        spsi_b[b] += psi.sum(axis=0)
+            psi = np.sign(r, out=r)
+            dpsi = ar < h_med
+        dpsi &= keep
+        np.putmask(psi, ~keep, np.float32(0.0))
+        spsi_b[b] += psi.sum(axis=0, dtype=np.float64)
         cnt_b[b] += keep.sum(axis=0)
         sdpsi += dpsi.sum(axis=0) / (2.0 * h_med) if s.estimator == "median" else dpsi.sum(axis=0)
         tick()
