@@ -160,7 +160,7 @@ def test_late_time_arbitrary_wire_orientation_uses_perpendicular_distance():
     assert np.all(np.abs(lt.rho[lt.valid] / 100 - 1) < 0.05)
 
 
-def test_late_time_loop_dbzdt_and_bz_vs_empymod_polygon():
+def test_late_time_loop_dbzdt_vs_empymod_polygon():
     """Central 50 m loop (empymod, 90-segment polygon of equal area, REFERENCE 0)."""
     n = 90
     a_eq = 50.0 * np.sqrt((2 * np.pi / n) / np.sin(2 * np.pi / n))
@@ -214,7 +214,7 @@ def test_late_time_bad_input_errors_and_flags():
 
 
 # ---------------------------------------------------------------- all-time
-forward = pytest.importorskip("tem.forward")
+pytest.importorskip("tem.forward")
 from tem.forward import (CircularLoop, LayeredModel, Receiver, Simulation,  # noqa: E402
                          Waveform, Wire)
 
@@ -375,7 +375,7 @@ def test_choose_branches_smoothest_path():
 
 
 # -------------------------------------------------------------- sounding/CLI
-def _gated(station, x, model, rng, tmp=None):
+def _gated(station, x, model, rng):
     """A gated sounding (docs/data-model.md) on the fictional Emberline Plateau line.
 
     1.5 km east-west wire 800 m north of the profile, bipolar 0.25 Hz, Ex on
