@@ -64,8 +64,8 @@ def log_gates(times, t_min: float, t_max: float, per_decade: float = 9.0,
     per_decade : gates per decade (about 8-10 is usual; common practice, no source).
     min_samples : narrowest gate in samples; early gates narrower than this
         are widened (so the first gates are linear in time, later ones log).
-    Tapered gates need at least 3 samples to carry weight; ``min_samples`` is
-    raised to 3 for ``taper``.
+    Tapered (Hann) gates are at least 6 samples wide, so the discrete weights
+    follow the continuous window (0.1 % at 4 samples per ms, t^-2.5 decay).
     """
     check_shape(shape)
     t = np.asarray(times, float)
@@ -75,7 +75,7 @@ def log_gates(times, t_min: float, t_max: float, per_decade: float = 9.0,
     if not (t_max > t_min > 0):
         raise input_error("t_max", f"need 0 < t_min < t_max, got {t_min}, {t_max}")
     if shape == "taper":
-        min_samples = max(min_samples, 3)
+        min_samples = max(min_samples, 6)
     # edges on half-sample positions
     def snap(x):
         return t[0] + (np.round((x - t[0]) / dt - 0.5) + 0.5) * dt

@@ -71,6 +71,8 @@ def qc_table(rows, failed=(), title="Stack QC", console=None):
     from rich.console import Console
     from rich.table import Table
     console = console or Console()
+    if not console.is_terminal:
+        console = Console(file=console.file, width=150)
     t = Table(title=title, header_style="bold")
     for col, just in [("station", "left"), ("ch", "left"), ("transients", "right"),
                       ("rej noisy/bad", "right"), ("clipped/outlier smp", "right"),
@@ -88,7 +90,7 @@ def qc_table(rows, failed=(), title="Stack QC", console=None):
                   f"{r['noise']:.2e} {r['unit']}" if "noise" in r else "-",
                   f"{r['snr']:.0f}" if np.isfinite(r.get("snr", np.nan)) else "-", rng, status)
     for sid, msg in failed:
-        t.add_row(sid, "-", "-", "-", "-", "-", "-", "-", f"[red]FAILED[/] {msg}")
+        t.add_row(sid, "-", "-", "-", "-", "-", "-", "-", "[red]FAILED[/] (error above)")
     console.print(t)
     return t
 

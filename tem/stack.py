@@ -417,7 +417,7 @@ def stack_source(src: WindowSource, settings: StackSettings = StackSettings(), p
         m0 = np.nan_to_num(med)
         s0 = np.nan_to_num(mad) * _MAD * n / max(n - 0.8, 1.0)
         # floor: rounding noise of noise-free data must not reject anything
-        floor = max(1e-9 * float(np.max(np.abs(m0))), np.finfo(float).tiny)
+        floor = max(1e-9 * float(np.max(np.abs(m0))), 1e-30)
         s0 = np.maximum(s0, floor)
         if s.estimator == "trimmed":
             q = np.nanquantile(e, [s.trim, 1 - s.trim], axis=0)

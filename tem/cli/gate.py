@@ -1,6 +1,7 @@
 """tem gate: stacked transients -> gated soundings (docs/data-model.md) + QC."""
 from __future__ import annotations
 
+import sys
 from pathlib import Path
 
 from ..errors import TemInputError, input_error
@@ -51,6 +52,6 @@ def run(args) -> int:
                 decay_figure(g, st).savefig(out / "qc" / f"{f.stem}_decay.png", dpi=110)
         except TemInputError as exc:
             failed.append((f.stem, str(exc)))
-            console.print(f"[red]tem gate: error[/]: {exc}", highlight=False)
+            print(f"tem gate: error: {exc}", file=sys.stderr, flush=True)
     qc_table(rows, failed, title="Gate QC", console=console)
     return 1 if failed else 0

@@ -1,6 +1,7 @@
 """tem stack: raw recordings -> stacked transients per station (+ QC table and figures)."""
 from __future__ import annotations
 
+import sys
 from pathlib import Path
 
 from ..errors import TemInputError
@@ -50,7 +51,7 @@ def run(args) -> int:
     if args.stations:
         want = args.stations.split(",")
         stations = [survey.station(s) for s in want]
-    console = Console(stderr=False)
+    console = Console()
     ok, _ = survey.mains_rule()
     if not ok:
         console.print(f"[yellow]warning[/]: mains {survey.mains_frequency:g} Hz / (2 x base "
@@ -78,7 +79,7 @@ def run(args) -> int:
                     fig.savefig(out / "qc" / f"{st.id}_raw_vs_stacked.png", dpi=110)
             except TemInputError as exc:
                 failed.append((st.id, str(exc)))
-                console.print(f"[red]tem stack: error[/]: {st.id}: {exc}", highlight=False)
+                print(f"tem stack: error: {st.id}: {exc}", file=sys.stderr, flush=True)
             prog.update(task, advance=1)
     qc_table(rows, failed, title=f"Stack QC: {survey.name}", console=console)
     return 1 if failed else 0
