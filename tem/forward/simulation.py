@@ -58,9 +58,10 @@ class Simulation:
     lowpass : (order, cutoff_hz), optional
         Receiver Butterworth low-pass filter applied to the response.
     hankel, fourier : str
-        Names of the libdlf filters. By default the Fourier filter is
-        key_201_2012 for fields (cosine transform) and wer_101_2020b for
-        time derivatives (sine transform).
+        Names of the libdlf filters. The defaults (key_201_2012 for both)
+        reach 1e-4 against empymod on layered models and against closed forms
+        down to u = theta r ~ 3e-3; at even later times the Fourier filter
+        loses accuracy (REFERENCE.md 2.2 and 4.2 show the same limit).
     freq_per_decade : float or None
         Density of the frequencies at which the layered kernel is evaluated
         (spline interpolation to the filters' frequencies); None evaluates at
@@ -73,7 +74,7 @@ class Simulation:
 
     def __init__(self, source, receivers, times=None, gates=None, gate_shape="boxcar",
                  waveform=None, response=None, lowpass=None, hankel="key_201_2012",
-                 fourier=None, freq_per_decade=14, n_half_periods=None, gate_nodes=6):
+                 fourier="key_201_2012", freq_per_decade=14, n_half_periods=None, gate_nodes=6):
         if not isinstance(source, (Wire, PolygonLoop, CircularLoop)):
             raise ValueError("source: must be a Wire, PolygonLoop or CircularLoop")
         receivers = list(receivers)
@@ -277,7 +278,7 @@ class Simulation:
             kinds = [k + 1 for k in kinds]
         fine = {}
         for k in set(kinds):
-            name = self.fourier_name or ("key_201_2012" if k % 2 == 0 else "wer_101_2020b")
+            name = self.fourier_name
             if name in fine:
                 continue
             base, fsin, fcos = dlf.fourier_filter(name)
@@ -317,8 +318,7 @@ class Simulation:
             T = {0: Ccos * (-1.0 / omega)[None, :], 1: Csin, 2: Ccos * omega[None, :]}
             blocks[name] = (A, T, hlp, Q)
         for rx, k in zip(self.receivers, kinds):
-            name = self.fourier_name or ("key_201_2012" if k % 2 == 0 else "wer_101_2020b")
-            A, T, hlp, Q = blocks[name]
+            A, T, hlp, Q = blocks[self.fourier_name]
             sgn = -1.0 if self.response == "impulse" else 1.0
             D = sgn * (A @ T[k])
             # Im(F H) = Im F Re H + Re F Im H, F on the coarse grid through Q
