@@ -11,7 +11,7 @@ import numpy as np
 
 from . import __version__
 from . import rhoa as R
-from .errors import TemInputError, input_error
+from .errors import input_error
 from .provenance import records_from_json, records_to_json, stage_record
 
 __all__ = ["sounding_rhoa", "simulation_for_sounding", "table_rows", "TABLE_COLUMNS",
@@ -43,55 +43,10 @@ def _check(ds, source):
 
 
 def simulation_for_sounding(ds, source=None):
-    """The forward Simulation of a gated sounding (same settings as its data).
-
-    Uses ``Simulation.from_sounding`` of :mod:`tem.forward` when that is
-    available; otherwise builds it here from the Dataset: wire or polygon
-    loop, point receivers or E dipoles, bipolar waveform with ramps, the gate
-    windows and shape, and the receiver low-pass filter.
-    """
+    """The forward Simulation of a gated sounding (same geometry, waveform, gates, filter)."""
     from .forward import Simulation
 
-    try:
-        return Simulation.from_sounding(ds)
-    except ImportError:
-        pass
-    from .forward import PolygonLoop, Receiver, Waveform, Wire
-
-    pts = np.asarray(ds.attrs["tx_points"], float).reshape(-1, 2)
-    kind = str(ds.attrs["tx_kind"])
-    try:
-        if kind == "wire":
-            if len(pts) != 2:
-                raise input_error("tx_points", "a wire needs exactly two end points here", source)
-            src = Wire(a=tuple(pts[0]), b=tuple(pts[-1]))
-        elif kind == "loop":
-            src = PolygonLoop(vertices=[tuple(p) for p in pts])
-        else:
-            raise input_error("tx_kind", f"unknown transmitter kind {kind!r}; valid: wire, loop", source)
-        rxs = []
-        for c in range(ds.sizes["channel"]):
-            comp = str(ds["component"].values[c])
-            p0 = (float(ds["rx_x0"].values[c]), float(ds["rx_y0"].values[c]))
-            p1 = (float(ds["rx_x1"].values[c]), float(ds["rx_y1"].values[c]))
-            if comp in ("ex", "ey") and np.hypot(p1[0] - p0[0], p1[1] - p0[1]) > 0:
-                rxs.append(Receiver(comp, dipole=(p0, p1)))
-            else:
-                rxs.append(Receiver(comp, (0.5 * (p0[0] + p1[0]), 0.5 * (p0[1] + p1[1]))))
-        a = ds.attrs
-        wf = Waveform.bipolar(base_frequency=float(a["base_frequency"]),
-                              duty_cycle=float(a.get("duty_cycle", 0.5)),
-                              ramp_on=float(a.get("ramp_on", 0.0)), ramp_off=float(a.get("ramp_off", 0.0)))
-        order = int(a.get("lowpass_order", 0) or 0)
-        lowpass = (order, float(a["lowpass_cutoff"])) if order > 0 else None
-        return Simulation(src, rxs, gates=(ds["gate_open"].values, ds["gate_close"].values),
-                          gate_shape=str(a.get("gate_shape", "boxcar")), waveform=wf, lowpass=lowpass)
-    except KeyError as exc:
-        raise input_error(str(exc.args[0]), "missing attribute needed by the forward model", source) from None
-    except TemInputError:
-        raise
-    except ValueError as exc:
-        raise input_error("geometry", str(exc), source) from None
+    return Simulation.from_sounding(ds, source=source)
 
 
 def sounding_rhoa(ds, all_time=True, rho_min=0.1, rho_max=1e5, points_per_decade=12, sim=None,

@@ -427,10 +427,13 @@ class Simulation:
         return self._lam.size
 
     @classmethod
-    def from_sounding(cls, ds, **kw):
-        """Simulation matching a gated-sounding Dataset (docs/data-model.md)."""
+    def from_sounding(cls, ds, channels=None, source=None, **kw):
+        """Simulation matching a gated-sounding Dataset (docs/data-model.md).
+
+        ``channels`` selects channel indices; ``source`` names the file in errors.
+        """
         from .sounding import simulation_from_sounding
-        return simulation_from_sounding(cls, ds, **kw)
+        return simulation_from_sounding(cls, ds, channels=channels, source=source, **kw)
 
 
 def _coarse_omega(wlo, whi, core_lo, core_hi, per_decade):

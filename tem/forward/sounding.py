@@ -1,0 +1,97 @@
+"""Build the forward simulation that matches a gated-sounding Dataset.
+
+The gated file (docs/data-model.md) stores the transmitter, receivers,
+waveform, gate windows and receiver filter; the forward model must average
+and filter the same way, so it is rebuilt from exactly those attributes.
+"""
+from __future__ import annotations
+
+import numpy as np
+
+from ..errors import TemInputError, input_error
+
+__all__ = ["source_from_attrs", "receivers_from_sounding", "waveform_from_attrs",
+           "simulation_from_sounding"]
+
+
+def source_from_attrs(attrs, source=None):
+    """Wire or loop from ``tx_kind`` and ``tx_points`` (flat x0, y0, x1, y1, ...)."""
+    from .geometry import PolygonLoop, Wire
+
+    try:
+        kind = str(attrs["tx_kind"])
+        pts = np.asarray(attrs["tx_points"], float).reshape(-1, 2)
+    except KeyError as exc:
+        raise input_error(str(exc.args[0]), "missing transmitter attribute", source) from None
+    except ValueError:
+        raise input_error("tx_points", "expected a flat list of x, y pairs (m)", source) from None
+    try:
+        if kind == "wire":
+            if len(pts) != 2:
+                raise input_error("tx_points", "a wire needs exactly two end points", source)
+            return Wire(a=tuple(pts[0]), b=tuple(pts[1]))
+        if kind == "loop":
+            return PolygonLoop(vertices=[tuple(p) for p in pts])
+    except TemInputError:
+        raise
+    except ValueError as exc:
+        raise input_error("tx_points", str(exc), source) from None
+    raise input_error("tx_kind", f"unknown transmitter kind {kind!r}; valid: wire, loop", source)
+
+
+def receivers_from_sounding(ds, channels=None, source=None):
+    """Receivers per channel: E dipoles where the two electrodes differ, else points."""
+    from .geometry import Receiver
+
+    chans = range(ds.sizes["channel"]) if channels is None else channels
+    out = []
+    try:
+        for c in chans:
+            comp = str(ds["component"].values[c])
+            p0 = (float(ds["rx_x0"].values[c]), float(ds["rx_y0"].values[c]))
+            p1 = (float(ds["rx_x1"].values[c]), float(ds["rx_y1"].values[c]))
+            if comp in ("ex", "ey") and np.hypot(p1[0] - p0[0], p1[1] - p0[1]) > 0:
+                out.append(Receiver(comp, dipole=(p0, p1)))
+            else:
+                out.append(Receiver(comp, (0.5 * (p0[0] + p1[0]), 0.5 * (p0[1] + p1[1]))))
+    except KeyError as exc:
+        raise input_error(str(exc.args[0]), "missing receiver variable", source) from None
+    except ValueError as exc:
+        raise input_error("component", str(exc), source) from None
+    return out
+
+
+def waveform_from_attrs(attrs, source=None):
+    """Bipolar waveform from ``base_frequency``, ``duty_cycle``, ``ramp_on``, ``ramp_off``."""
+    from .waveform import Waveform
+
+    try:
+        return Waveform.bipolar(base_frequency=float(attrs["base_frequency"]),
+                                duty_cycle=float(attrs.get("duty_cycle", 0.5)),
+                                ramp_on=float(attrs.get("ramp_on", 0.0)),
+                                ramp_off=float(attrs.get("ramp_off", 0.0)))
+    except KeyError as exc:
+        raise input_error(str(exc.args[0]), "missing waveform attribute", source) from None
+    except ValueError as exc:
+        raise input_error("waveform", str(exc), source) from None
+
+
+def simulation_from_sounding(cls, ds, channels=None, source=None, **kw):
+    """``cls(...)`` (a Simulation) with the sounding's geometry, waveform, gates and filter."""
+    a = ds.attrs
+    src = source_from_attrs(a, source)
+    rxs = receivers_from_sounding(ds, channels, source)
+    wf = waveform_from_attrs(a, source)
+    order = int(a.get("lowpass_order", 0) or 0)
+    lowpass = (order, float(a.get("lowpass_cutoff", 0.0))) if order > 0 else None
+    try:
+        gates = (np.asarray(ds["gate_open"].values, float), np.asarray(ds["gate_close"].values, float))
+    except KeyError as exc:
+        raise input_error(str(exc.args[0]), "missing gate table", source) from None
+    try:
+        return cls(src, rxs, gates=gates, gate_shape=str(a.get("gate_shape", "boxcar")),
+                   waveform=wf, lowpass=lowpass, **kw)
+    except TemInputError:
+        raise
+    except ValueError as exc:
+        raise input_error("geometry", str(exc), source) from None
