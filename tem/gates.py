@@ -24,7 +24,8 @@ import numpy as np
 from .errors import input_error
 from .forward.gatewindow import check_shape, weights
 
-__all__ = ["GateTable", "log_gates", "gate_matrix", "gate_values", "noise_floor", "usable_gates"]
+__all__ = ["GateTable", "log_gates", "gate_matrix", "gate_values", "noise_floor", "usable_gates",
+           "default_range", "gate_stacked"]
 
 
 @dataclass(frozen=True)
@@ -155,13 +156,17 @@ def usable_gates(value, error, t_open, t_close, t_limit: float, snr_min: float =
 
 
 def default_range(times, off_time: float, half_period: float):
-    """Default gate range (s): from 4 samples after time zero to the end of the off-time.
+    """Default gate range (s): from 16 samples after time zero to the end of the off-time.
 
-    With no off-time (duty 1) the gates run to 2 samples before the next switch.
+    16 samples keep the discrete gate average within about 1e-5 of the
+    continuous window average the forward model computes (the boxcar
+    end-corrected midpoint rule errs by O((h/t)^4)); at high signal-to-noise
+    ratios earlier gates would carry discretisation errors larger than their
+    statistical errors. With no off-time (duty 1) the gates run to the next switch.
     """
     t = np.asarray(times, float)
     h = float(t[1] - t[0])
-    t_min = max(4.0 * h, t[0] + 2.0 * h)
+    t_min = max(16.0 * h, t[0] + 2.0 * h)
     t_max = off_time if off_time > 0 else half_period
     return t_min, min(t_max, t[-1] + 0.5 * h) - 0.5 * h
 

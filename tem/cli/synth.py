@@ -67,10 +67,7 @@ def run(args) -> int:
     else:
         if not args.survey:
             raise input_error("survey", "give a survey TOML or --emberline")
-        survey = read_survey(args.survey)
-        if Path(args.survey).resolve().parent == out.resolve():
-            pass
-        survey = replace(survey, base_dir=out)
+        survey = replace(read_survey(args.survey), base_dir=out)
         if subset:
             survey = replace(survey, stations=[s for s in survey.stations if s.id in subset])
         if not args.models:
