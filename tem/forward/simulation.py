@@ -163,7 +163,7 @@ class Simulation:
         else:
             hp = wf.half_period
             if n_half_periods is None:
-                n_half_periods = int(np.clip(np.ceil(20.0 * t.max() / hp), 6, 200))
+                n_half_periods = int(np.clip(np.ceil(20.0 * t.max() / hp), 20, 200))
             K = int(n_half_periods)
             k = np.arange(-1, K + 2)
             signs = (-1.0) ** k
