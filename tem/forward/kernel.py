@@ -28,7 +28,7 @@ import numpy as np
 
 MU0 = 4e-7 * np.pi
 
-__all__ = ["MU0", "layered_kernels", "fused_spectra"]
+__all__ = ["MU0", "fused_spectra"]
 
 
 @nb.njit(cache=True, fastmath=True)
@@ -122,34 +122,6 @@ def _point(lm, iwm, res, sig, thk, need_tm, jac, jac_thk, gam, tnh, X, Z, K,
 
 
 @nb.njit(cache=True)
-def _kernels(lam, omega, res, thk, need_tm, jac, jac_thk,
-             rte, btm, drte, dbtm):  # pragma: no cover - compiled
-    nw = omega.size
-    nl = lam.size
-    L = res.size
-    sig = 1.0 / res
-    gam = np.empty(L, np.complex128)
-    tnh = np.empty(L, np.complex128)
-    X = np.empty(L, np.complex128)
-    Z = np.empty(L, np.complex128)
-    K = np.empty(L, np.complex128)
-    dR = np.zeros(2 * L, np.complex128)
-    dB = np.zeros(2 * L, np.complex128)
-    npar = drte.shape[0]
-    for iw in range(nw):
-        iwm = 1j * omega[iw] * 4e-7 * np.pi
-        for il in range(nl):
-            r, b = _point(lam[il], iwm, res, sig, thk, need_tm, jac, jac_thk,
-                          gam, tnh, X, Z, K, dR, dB)
-            rte[iw, il] = r
-            btm[iw, il] = b
-            if jac:
-                for p in range(npar):
-                    drte[p, iw, il] = dR[p]
-                    dbtm[p, iw, il] = dB[p]
-
-
-@nb.njit(cache=True)
 def _fused(lam, omega, res, thk, need_tm, jac, jac_thk, Gr, Ga, Gb,
            F, dF):  # pragma: no cover - compiled
     """F[w, r] = sum_l rte (Gr + i w mu0 Ga) + btm Gb, and the same for derivatives."""
@@ -206,49 +178,3 @@ def fused_spectra(lam, omega, resistivity, thickness, Gr, Ga, Gb, need_tm=True, 
     if not jac:
         return F, None
     return F, dF[_param_index(L, jac_thk)]
-
-
-def layered_kernels(lam, omega, resistivity, thickness, need_tm=True, jac=False,
-                    jac_thk=False):
-    """Evaluate R_TE and the TM remainder on a (omega, lambda) grid.
-
-    Parameters
-    ----------
-    lam : ndarray (nl,)
-        Horizontal wavenumbers [1/m].
-    omega : ndarray (nw,)
-        Angular frequencies [rad/s] (0 allowed: the DC kernels).
-    resistivity : ndarray (L,)
-        Layer resistivities [ohm-m], half-space last.
-    thickness : ndarray (L-1,)
-        Layer thicknesses [m].
-    need_tm : bool
-        Compute the TM remainder (needed for electric fields of grounded wires).
-    jac, jac_thk : bool
-        Also return derivatives with respect to ln(resistivity) (all L) and,
-        with ``jac_thk``, ln(thickness) (L-1).
-
-    Returns
-    -------
-    rte, btm : ndarray (nw, nl) complex
-    drte, dbtm : ndarray (npar, nw, nl) complex or None
-    """
-    lam = np.ascontiguousarray(lam, dtype=float)
-    omega = np.ascontiguousarray(omega, dtype=float)
-    res = np.ascontiguousarray(resistivity, dtype=float)
-    thk = np.ascontiguousarray(np.r_[np.asarray(thickness, float), 0.0])
-    L = res.size
-    nw, nl = omega.size, lam.size
-    rte = np.empty((nw, nl), np.complex128)
-    btm = np.zeros((nw, nl), np.complex128)
-    if jac:
-        drte = np.zeros((2 * L, nw, nl), np.complex128)
-        dbtm = np.zeros_like(drte)
-    else:
-        drte = np.zeros((0, 1, 1), np.complex128)
-        dbtm = np.zeros((0, 1, 1), np.complex128)
-    _kernels(lam, omega, res, thk, bool(need_tm), bool(jac), bool(jac_thk), rte, btm, drte, dbtm)
-    if not jac:
-        return rte, btm, None, None
-    keep = _param_index(L, jac_thk)
-    return rte, btm, drte[keep], dbtm[keep]

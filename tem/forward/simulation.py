@@ -28,7 +28,7 @@ from scipy import signal
 
 from . import dlf, gatewindow
 from .geometry import CircularLoop, PolygonLoop, Receiver, Wire
-from .kernel import MU0, fused_spectra, layered_kernels
+from .kernel import MU0, fused_spectra
 from .model import LayeredModel
 from .waveform import Waveform
 
@@ -340,21 +340,18 @@ class Simulation:
         return F, dF
 
     def _dc(self, model, jac=False, jac_thk=False):
-        """DC (omega = 0) values per receiver (fields, not rates)."""
+        """DC (omega = 0) values per receiver (fields, not rates), and their derivatives."""
         res, thk = model.resistivity, model.thickness
-        rte, btm, drte, dbtm = layered_kernels(self._lam, np.zeros(1), res, thk,
-                                               need_tm=self._need_tm, jac=jac, jac_thk=jac_thk)
+        G = self._G
+        F, dF = fused_spectra(self._lam, np.zeros(1), res, thk, G["r"], G["a1"], G["b"],
+                              need_tm=self._need_tm, jac=jac, jac_thk=jac_thk)
         an = self._analytic
-        dc = (rte @ self._G["r"].T)[0] + res[0] * an[:, 0] + an[:, 2]
-        if self._need_tm:
-            dc = dc + (btm @ self._G["b"].T)[0]
+        dc = F[0].real + res[0] * an[:, 0] + an[:, 2]
         ddc = None
         if jac:
-            ddc = np.einsum("pl,rl->pr", drte[:, 0], self._G["r"])
-            if self._need_tm:
-                ddc = ddc + np.einsum("pl,rl->pr", dbtm[:, 0], self._G["b"])
+            ddc = dF[:, 0].real.copy()
             ddc[0] += res[0] * an[:, 0]
-        return dc.real, (ddc.real if jac else None)
+        return dc, ddc
 
     def _assemble(self, F, dc):
         out = np.empty((len(self.receivers), self._U.shape[0]))
