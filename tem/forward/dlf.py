@@ -17,7 +17,7 @@ import numpy as np
 from scipy.interpolate import CubicSpline
 
 __all__ = ["HANKEL_FILTERS", "FOURIER_FILTERS", "hankel_filter", "fourier_filter",
-           "lagged_grid", "spline_matrix"]
+           "lagged_grid", "lagged_matrix", "spline_matrix", "spline_weighted_sum"]
 
 HANKEL_FILTERS = ("key_101_2009", "key_201_2009", "key_401_2009", "wer_201_2018",
                   "key_101_2012", "key_201_2012")
@@ -76,3 +76,23 @@ def spline_matrix(x_grid, x_eval, log=True):
     xe = np.log(x_eval) if log else np.asarray(x_eval, float)
     spl = CubicSpline(xg, np.eye(xg.size), axis=0)
     return spl(xe)
+
+
+def spline_weighted_sum(x_grid, x_eval, rows, weights, n_rows):
+    """Matrix A (n_rows, n_grid) with A[r] = sum over j with rows[j] = r of
+    weights[j] * (spline row at x_eval[j]), for the spline of :func:`spline_matrix`.
+
+    Equal to ``W @ spline_matrix(x_grid, x_eval)`` for the sparse W given by
+    (rows, weights), without forming the (n_eval, n_grid) matrix: the spline's
+    piecewise-cubic coefficients are contracted with the summed powers of the
+    offsets within each interval.
+    """
+    xg = np.log(x_grid)
+    xe = np.log(x_eval)
+    c = CubicSpline(xg, np.eye(xg.size), axis=0).c          # (4, n_int, n_grid)
+    k = np.clip(np.searchsorted(xg, xe, side="right") - 1, 0, xg.size - 2)
+    dx = xe - xg[k]
+    acc = np.zeros((4, n_rows, xg.size - 1))
+    for m in range(4):
+        np.add.at(acc[m], (rows, k), weights * dx ** (3 - m))
+    return np.einsum("mrk,mkg->rg", acc, c)

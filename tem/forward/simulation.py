@@ -141,9 +141,11 @@ class Simulation:
             for i in range(g0.size):
                 obs_w[i, i * n:(i + 1) * n] = w[i]
         # map observation times to (u nodes, coefficients) for the step-off function s(u)
-        u, coef, dc = self._time_operator(obs_t, n_half_periods)
-        self._u = u
-        self._U = obs_w @ coef          # (n_out, n_u): coefficient of s(u)
+        u, rows, cs, dc = self._time_operator(obs_t, n_half_periods)
+        # the response at observation time rows[j] gets cs[j] * s(u[j]); outputs are
+        # the window-weighted sums of observation times (obs_w)
+        self._u, self._urows, self._ucoef, self._obs_w = u, rows, cs, obs_w
+        self._n_out = obs_w.shape[0]
         self._dc_coef = obs_w @ dc           # (n_out,): coefficient of the DC value
         self._dc_rate = None
         if self.response == "waveform":
@@ -154,9 +156,9 @@ class Simulation:
         """Express the response at times t as sum coef * s(u) + dc * DC."""
         r = self.response
         if r in ("step-off", "impulse"):
-            return t, np.eye(t.size), np.zeros(t.size)
+            return t, np.arange(t.size), np.ones(t.size), np.zeros(t.size)
         if r == "step-on":
-            return t, -np.eye(t.size), np.ones(t.size)
+            return t, np.arange(t.size), -np.ones(t.size), np.ones(t.size)
         wf = self.waveform
         if wf.half_period is None:
             shifts, signs = np.array([0.0]), np.array([1.0])
@@ -177,28 +179,17 @@ class Simulation:
             signs[iK + 1] += -(-1.0) ** K * (1 / 8)
             shifts = k * hp
         t0, t1, m = wf.segments()
-        us, rows, cs = [], [], []
-        dc = np.zeros(t.size)
-        for i, ti in enumerate(t):
-            for sh, sg in zip(shifts, signs):
-                tt = ti + sh          # time since the end of this pulse
-                dc[i] += sg * wf.current_at(tt)
-                for a, b, mj in zip(t0, t1, m):
-                    hi = tt - a       # u range of this segment: [tt - b, tt - a]
-                    if hi <= 0:
-                        continue
-                    lo = max(tt - b, 0.0)
-                    uq, wq = _log_gauss(lo, hi)
-                    us.append(uq)
-                    rows.append(np.full(uq.size, i))
-                    cs.append(-sg * mj * wq)
-        u = np.concatenate(us)
-        rows = np.concatenate(rows)
-        cs = np.concatenate(cs)
-        # merge identical nodes is unnecessary: the spline matrix handles any u
-        coef = np.zeros((t.size, u.size))
-        coef[rows, np.arange(u.size)] = cs
-        return u, coef, dc
+        # every (time, past pulse, ramp segment) at once; u runs over [tt - b, tt - a]
+        tt = t[:, None] + shifts[None, :]                       # (n_t, n_shift)
+        dc = (signs[None, :] * wf.current_at(tt)).sum(axis=1)
+        hi = tt[..., None] - t0                                  # (n_t, n_shift, n_seg)
+        lo = np.maximum(tt[..., None] - t1, 0.0)
+        coef = -signs[None, :, None] * m[None, None, :] * np.ones_like(hi)
+        rows = np.broadcast_to(np.arange(t.size)[:, None, None], hi.shape)
+        keep = hi > 0
+        u, wq, r = _log_gauss_many(lo[keep], hi[keep], rows[keep])
+        cs = wq * np.repeat(coef[keep], np.diff(r[1]))
+        return u, np.repeat(rows[keep], np.diff(r[1])), cs, dc
 
     def _waveform_rate(self, t):
         """Coefficient of the DC field's rate term (dB/dt receivers): sum of I'(t)."""
@@ -284,8 +275,8 @@ class Simulation:
             base, fsin, fcos = dlf.fourier_filter(name)
             tgrid, omega, _ = dlf.lagged_grid(base, umin, umax)
             nt = tgrid.size
-            S = dlf.spline_matrix(tgrid, np.maximum(u, umin))
-            A = self._U @ S
+            A = self._obs_w @ dlf.spline_weighted_sum(tgrid, np.maximum(u, umin), self._urows,
+                                                      self._ucoef, self._obs_w.shape[1])
             Csin = dlf.lagged_matrix(fsin, nt) / tgrid[:, None] * (2 / np.pi)
             Ccos = dlf.lagged_matrix(fcos, nt) / tgrid[:, None] * (2 / np.pi)
             fine[name] = (omega, A, Csin, Ccos)
@@ -354,7 +345,7 @@ class Simulation:
         return dc, ddc
 
     def _assemble(self, F, dc):
-        out = np.empty((len(self.receivers), self._U.shape[0]))
+        out = np.empty((len(self.receivers), self._n_out))
         for i, (Dre, Dim) in enumerate(self._D):
             out[i] = Dre @ F[:, i].imag + Dim @ F[:, i].real
             if dc is not None:
@@ -463,19 +454,37 @@ def _leggauss(n):
     return np.polynomial.legendre.leggauss(n)
 
 
-def _log_gauss(lo, hi):
-    """Gauss-Legendre nodes and weights for int_lo^hi f(u) du, in log u when lo > 0."""
-    if lo <= 0:
-        lo_eff = min(hi * 1e-6, 1e-8)
-        uq, wq = _log_gauss(lo_eff, hi)
-        # the piece [0, lo_eff] is taken as s(lo_eff) * lo_eff
-        return np.r_[lo_eff, uq], np.r_[lo_eff, wq]
-    span = np.log(hi / lo)
-    n = int(np.clip(np.ceil(8 * span / np.log(10.0)) + 3, 3, 40))
-    xg, wg = _leggauss(n)
-    x = np.log(lo) + 0.5 * (xg + 1.0) * span
-    u = np.exp(x)
-    return u, 0.5 * span * wg * u
+def _log_gauss_many(lo, hi, tag):
+    """Gauss-Legendre nodes and weights for many integrals int_lo^hi f(u) du, in log u.
+
+    Returns (u, w, (tag, offsets)): the nodes of interval i are u[offsets[i]:offsets[i+1]].
+    An interval starting at 0 (a ramp still in progress) starts at min(hi 1e-6, 1e-8)
+    instead; the piece below is taken as f(start) * start (one extra node).
+    """
+    lo = np.asarray(lo, float)
+    hi = np.asarray(hi, float)
+    zero = lo <= 0
+    lo_eff = np.where(zero, np.minimum(hi * 1e-6, 1e-8), lo)
+    span = np.log(hi / lo_eff)
+    n = np.clip(np.ceil(8 * span / np.log(10.0)) + 3, 3, 40).astype(int)
+    counts = n + zero
+    offsets = np.r_[0, np.cumsum(counts)]
+    u = np.empty(offsets[-1])
+    w = np.empty(offsets[-1])
+    for nn in np.unique(n):
+        sel = np.flatnonzero(n == nn)
+        xg, wg = _leggauss(int(nn))
+        x = np.log(lo_eff[sel])[:, None] + 0.5 * (xg + 1.0)[None, :] * span[sel, None]
+        uu = np.exp(x)
+        ww = 0.5 * span[sel, None] * wg[None, :] * uu
+        start = offsets[sel] + zero[sel]
+        idx = start[:, None] + np.arange(nn)[None, :]
+        u[idx] = uu
+        w[idx] = ww
+    zi = np.flatnonzero(zero)
+    u[offsets[zi]] = lo_eff[zi]
+    w[offsets[zi]] = lo_eff[zi]
+    return u, w, (tag, offsets)
 
 
 def _receiver_terms(src, rx):
