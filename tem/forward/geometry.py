@@ -61,21 +61,34 @@ class _Segments:
 
 @dataclass(frozen=True)
 class Wire:
-    """Grounded wire from electrode ``a`` to electrode ``b`` (m); +I enters the ground at b."""
+    """Grounded wire from electrode ``a`` to electrode ``b`` (m); +I enters the ground at b.
+
+    ``via`` lists the corner points of a wire laid along a bent path (m);
+    the wire then runs a -> via[0] -> ... -> b, straight between corners.
+    """
     a: tuple
     b: tuple
+    via: tuple = ()
     grounded = True
 
     def __post_init__(self):
         a, b = _point(self.a, "transmitter.a"), _point(self.b, "transmitter.b")
-        if np.hypot(*(b - a)) <= 0:
-            raise ValueError("transmitter: wire endpoints a and b coincide")
+        via = np.array([_point(p, "transmitter.via") for p in self.via]).reshape(-1, 2)
+        pts = np.vstack([a, via, b])
+        if np.any(np.hypot(*np.diff(pts, axis=0).T) <= 0):
+            raise ValueError("transmitter: consecutive wire points coincide")
         object.__setattr__(self, "a", a)
         object.__setattr__(self, "b", b)
+        object.__setattr__(self, "via", via)
+
+    @property
+    def points(self):
+        return np.vstack([self.a, self.via, self.b])
 
     @property
     def segments(self):
-        return _Segments(self.a[None, :], self.b[None, :])
+        p = self.points
+        return _Segments(p[:-1], p[1:])
 
     @property
     def electrodes(self):
@@ -90,7 +103,7 @@ class Wire:
         return float(self.segments.length.sum())
 
     def describe(self):
-        return {"tx_kind": "wire", "tx_points": np.r_[self.a, self.b].tolist()}
+        return {"tx_kind": "wire", "tx_points": self.points.ravel().tolist()}
 
 
 @dataclass(frozen=True)

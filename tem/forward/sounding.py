@@ -27,9 +27,9 @@ def source_from_attrs(attrs, source=None):
         raise input_error("tx_points", "expected a flat list of x, y pairs (m)", source) from None
     try:
         if kind == "wire":
-            if len(pts) != 2:
-                raise input_error("tx_points", "a wire needs exactly two end points", source)
-            return Wire(a=tuple(pts[0]), b=tuple(pts[1]))
+            if len(pts) < 2:
+                raise input_error("tx_points", "a wire needs at least its two end points", source)
+            return Wire(a=tuple(pts[0]), b=tuple(pts[-1]), via=[tuple(p) for p in pts[1:-1]])
         if kind == "loop":
             return PolygonLoop(vertices=[tuple(p) for p in pts])
     except TemInputError:
