@@ -58,7 +58,11 @@ def print_summary(outcome, console):
     """Closing summary: station table, profile stages, where the outputs are."""
     from ..pipeline import summary_table
 
+    from rich.console import Console
+
     state = outcome.state
+    if not console.is_terminal:
+        console = Console(file=console.file, width=160)
     console.print(summary_table(state))
     for stage in ("invert", "section", "export", "report"):
         rec = state["stages"].get(stage)

@@ -12,6 +12,7 @@ from __future__ import annotations
 import contextlib
 import datetime as _dt
 import json
+import math
 import time
 from dataclasses import dataclass
 from pathlib import Path
@@ -66,9 +67,21 @@ def read_run(project) -> dict:
     return state
 
 
+def _plain(obj):
+    """JSON-safe copy: non-finite floats become null (strict JSON has no NaN)."""
+    if isinstance(obj, dict):
+        return {str(k): _plain(v) for k, v in obj.items()}
+    if isinstance(obj, (list, tuple)):
+        return [_plain(v) for v in obj]
+    if isinstance(obj, float) and not math.isfinite(obj):
+        return None
+    return obj
+
+
 def _write_run(project, state):
     from ..io.atomic import write_text_atomic
-    write_text_atomic(project.run_json, json.dumps(state, indent=1, sort_keys=False) + "\n")
+    text = json.dumps(_plain(state), indent=1, sort_keys=False, allow_nan=False)
+    write_text_atomic(project.run_json, text + "\n")
 
 
 def _ok(state, survey):
@@ -252,6 +265,10 @@ def run_pipeline(survey_file, project_dir, from_stage=None, overrides=(), jobs=1
     return RunOutcome(state=state, exit_status=1 if failed else 0, project=project)
 
 
+def _finite(v):
+    return isinstance(v, (int, float)) and math.isfinite(v)
+
+
 def summary_table(state, title=None):
     """A rich Table: per station the status of each station stage, usable gates, chi2, DOI."""
     from rich.table import Table
@@ -272,8 +289,8 @@ def summary_table(state, title=None):
             else:
                 cells.append("[green]ok[/]" if rec["status"] == "ok" else "[red]FAILED[/]")
         gates = f"{s['usable_gates']}/{s.get('gates', '?')}" if "usable_gates" in s else "-"
-        chi2 = f"{s['chi2']:.2f}" if "chi2" in s else "-"
-        doi = f"{s['doi']:.0f}" if s.get("doi") == s.get("doi") and "doi" in s else "-"
+        chi2 = f"{s['chi2']:.2f}" if _finite(s.get("chi2")) else "-"
+        doi = f"{s['doi']:.0f}" if _finite(s.get("doi")) else "-"
         note = s.get("message") or ("" if s.get("qc", "ok") == "ok" else f"QC {s['qc']}")
         if not note and s.get("invert_message"):
             note = s["invert_message"]
