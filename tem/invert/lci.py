@@ -153,3 +153,33 @@ def lci(fwds, d_obs, std, m0, *, positions=None, lateral_weight=1.0, predicts=No
         row += n
     return LCIResult(m=m, chi2_station=np.array(chis), J=Js, d_pred=d_parts, occam=res,
                      history=res.history)
+
+
+def pick_depth(thickness, log_rho, rho_threshold, below=0.0):
+    """Depth (m) where a smooth model first drops below ``rho_threshold`` downwards.
+
+    ln(rho) is interpolated linearly in depth between layer centres (the
+    half-space is represented at its top). Only a crossing from above the
+    threshold to below it counts, and only below ``below`` m, so a conductive
+    near-surface layer does not stop the search. Used to pick the top of a
+    conductor under a resistor, e.g. with the geometric mean of the two
+    resistivities as threshold (common practice, no source). NaN if no
+    crossing.
+    """
+    h = np.asarray(thickness, float)
+    m = np.asarray(log_rho, float)
+    top = np.concatenate([[0.0], np.cumsum(h)])
+    zc = np.concatenate([top[:-1] + 0.5 * h, [top[-1]]])
+    lt = np.log(rho_threshold)
+    for k in range(m.size - 1):
+        if zc[k + 1] <= below:
+            continue
+        if m[k] >= lt > m[k + 1]:
+            f = (m[k] - lt) / (m[k] - m[k + 1])
+            z = zc[k] + f * (zc[k + 1] - zc[k])
+            if z >= below:
+                return float(z)
+    return float("nan")
+
+
+__all__ += ["pick_depth"]

@@ -244,7 +244,8 @@ def _mu_search(chi2_of_mu, mu_grid, target):
 
 def occam(fwd, d_obs, std, m0, R=None, *, predict=None, m_ref=None, ref_weight=0.0,
           target=1.0, max_iter=20, mu0=None, decades=3.0, per_decade=1.0,
-          bounds=(LN_RHO_MIN, LN_RHO_MAX), tol=0.01, callback=None) -> OccamResult:
+          bounds=(LN_RHO_MIN, LN_RHO_MAX), tol=0.01, misfit_drop=0.3,
+          callback=None) -> OccamResult:
     """Occam inversion (Constable, Parker & Constable 1987).
 
     Parameters
@@ -274,6 +275,12 @@ def occam(fwd, d_obs, std, m0, R=None, *, predict=None, m_ref=None, ref_weight=0
         Numerical guard on ln(rho); models are clipped into it.
     tol : float
         Relative tolerance on misfit and roughness changes for convergence.
+    misfit_drop : float
+        Each step aims at ``max(target, misfit_drop * chi2_now)`` rather than
+        the final target at once (the smoothest model reaching that
+        intermediate misfit), which keeps early models smooth and the
+        linearisation valid (common practice, no source); 0 = aim at the
+        target from the first step (plain Occam).
     callback : callable, optional
         Called with the history dict after each iteration.
     """
@@ -309,16 +316,23 @@ def occam(fwd, d_obs, std, m0, R=None, *, predict=None, m_ref=None, ref_weight=0
         rhat = (d_obs - d) * w + Jw @ m
         cache = {}
 
-        def chi2_of_mu(mu_try, _rhat=rhat, _Jw=Jw):
+        def chi2_of_mu(mu_try, _rhat=rhat, _Jw=Jw, _m=m, _chi2=chi2):
             key = float(mu_try)
             if key not in cache:
                 mt = np.clip(solve_regularised(_Jw, _rhat, R, mu_try, m_ref, ref_weight), *bounds)
-                cache[key] = (chi2_per_datum(d_obs, predict(mt), std), mt)
+                c = chi2_per_datum(d_obs, predict(mt), std)
+                if c > _chi2:    # overshoot of the linearisation: try the half step too
+                    mh = 0.5 * (_m + mt)
+                    ch = chi2_per_datum(d_obs, predict(mh), std)
+                    if ch < c:
+                        mt, c = mh, ch
+                cache[key] = (c, mt)
             return cache[key]
 
         n = int(round(2 * decades * per_decade)) + 1
         grid = mu * np.logspace(-decades, decades, n)
-        mu_new, chi2_new, m_new = _mu_search(chi2_of_mu, grid, target)
+        step_target = max(target, misfit_drop * chi2)
+        mu_new, chi2_new, m_new = _mu_search(chi2_of_mu, grid, step_target)
 
         if chi2_new > chi2 * (1 - 1e-6) and chi2 > target:
             # No grid mu improves the misfit: try shorter steps towards the best model.

@@ -225,3 +225,64 @@ def fewlayer_station(sd, settings, m_smooth=None, h_smooth=None, doi=None):
 
 
 __all__ += ["fewlayer_station", "Prior"]
+
+
+def profile_positions(x, y):
+    """Distance along the profile (m): projection on the stations' principal direction."""
+    xy = np.column_stack([np.asarray(x, float), np.asarray(y, float)])
+    c = xy - xy.mean(axis=0)
+    if len(xy) < 2 or not np.any(c):
+        return np.zeros(len(xy))
+    _, _, vt = np.linalg.svd(c, full_matrices=False)
+    s = c @ vt[0]
+    return s - s.min()
+
+
+def lci_profile(sds, settings: InversionSettings = InversionSettings(), lateral_weight=1.0,
+                callback=None):
+    """Laterally constrained smooth inversion of a profile of stations.
+
+    Stations are ordered along the profile (principal direction of their
+    coordinates); all share one mesh built from the median best half-space.
+    Returns a list of :class:`StationResult` in profile order.
+    """
+    from .lci import lci
+
+    if len(sds) < 2:
+        raise ValueError("lci: need at least two stations")
+    pos = profile_positions([s.x for s in sds], [s.y for s in sds])
+    order = np.argsort(pos, kind="stable")
+    sds = [sds[i] for i in order]
+    pos = pos[order]
+    rho_hs = []
+    for sd in sds:
+        rho_hs.append(best_halfspace(lambda x, sd=sd: sd.predict(np.array([np.exp(x)]), np.array([])),
+                                     sd.d_obs, sd.std)[0])
+    rho_med = float(np.exp(np.median(np.log(rho_hs))))
+    tmin = min(s.gate_centre[np.unique(np.nonzero(s.mask)[1])].min() for s in sds)
+    tmax = max(s.gate_centre[np.unique(np.nonzero(s.mask)[1])].max() for s in sds)
+    zmin = settings.depth_min or settings.depth_min_factor * diffusion_depth(rho_med, tmin)
+    zmax = settings.depth_max or settings.depth_max_factor * diffusion_depth(rho_med, tmax)
+    h = log_mesh(settings.n_layers, zmin, max(zmax, 3 * zmin * settings.n_layers))
+    M = h.size + 1
+    problems = [_problem(sd, h) for sd in sds]
+    m0 = np.array([np.full(M, np.log(r)) for r in rho_hs])
+    res = lci([p[0] for p in problems], [s.d_obs for s in sds], [s.std for s in sds], m0,
+              positions=pos, lateral_weight=lateral_weight, predicts=[p[1] for p in problems],
+              target=settings.target, max_iter=settings.max_iter, callback=callback)
+    thr = 0.8 if settings.doi_threshold is None else settings.doi_threshold
+    R = roughness_matrix(M)
+    out = []
+    for s, sd in enumerate(sds):
+        doi = cumulative_sensitivity_doi(res.J[s], sd.std, h, threshold=thr)
+        out.append(StationResult(
+            station=sd.station, x=sd.x, y=sd.y, z=sd.z, thickness=h, resistivity=np.exp(res.m[s]),
+            log10_res_std=smooth_posterior_std(res.J[s], sd.std, R, res.occam.mu),
+            chi2=float(res.chi2_station[s]), doi=doi, halfspace=rho_hs[s], d_obs=sd.d_obs,
+            std=sd.std, d_pred=res.d_pred[s], component=sd.component, channel=sd.channel,
+            times=sd.gate_centre[np.nonzero(sd.mask)[1]], mu=res.occam.mu,
+            converged=res.occam.converged, message=res.occam.message, history=res.history))
+    return out
+
+
+__all__ += ["profile_positions", "lci_profile"]

@@ -1,0 +1,163 @@
+"""Inversion figures: data and response with normalised residuals; model with
+DOI and uncertainty band; a profile section of 1D models.
+
+Object API only (``matplotlib.figure.Figure`` + ``FigureCanvasAgg``); no
+pyplot state.
+"""
+from __future__ import annotations
+
+from pathlib import Path
+
+import numpy as np
+
+__all__ = ["station_figure", "section_figure", "save_figure"]
+
+_COLOURS = ("#1b6ca8", "#c0392b", "#2e8b57", "#8e44ad", "#d35400", "#34495e")
+
+
+def save_figure(fig, path, dpi=130):
+    """Render with the Agg canvas and write atomically (PNG by suffix)."""
+    from matplotlib.backends.backend_agg import FigureCanvasAgg
+
+    from ..io.atomic import atomic_path
+
+    FigureCanvasAgg(fig)
+    with atomic_path(path) as tmp:
+        fig.savefig(tmp, dpi=dpi, format=Path(path).suffix.lstrip(".") or "png")
+    return Path(path)
+
+
+def _steps(top, values, z_max):
+    """Staircase (value, depth) arrays of a layered profile down to z_max."""
+    top = np.asarray(top, float)
+    bot = np.append(top[1:], max(z_max, top[-1] * 1.05 + 1))
+    z = np.column_stack([top, bot]).ravel()
+    v = np.repeat(np.asarray(values, float), 2)
+    return v, z
+
+
+def station_figure(result, kind="smooth", true_model=None):
+    """Figure of one station's fit and model.
+
+    Parameters
+    ----------
+    result : tem.invert.station.StationResult
+    kind : {"smooth", "few-layer"}
+        Which predicted response is drawn in the data panel.
+    true_model : tem.forward.LayeredModel, optional
+        Drawn for synthetic studies.
+    """
+    from matplotlib.figure import Figure
+
+    fig = Figure(figsize=(11, 6.5), layout="constrained")
+    gs = fig.add_gridspec(3, 2, width_ratios=[1.6, 1])
+    ax_d = fig.add_subplot(gs[:2, 0])
+    ax_r = fig.add_subplot(gs[2, 0], sharex=ax_d)
+    ax_m = fig.add_subplot(gs[:, 1])
+    few = result.few if kind == "few-layer" else None
+    pred = few["d_pred"] if few is not None else result.d_pred
+    nres = (result.d_obs - pred) / result.std
+    units = {"ex": "V/m/A", "ey": "V/m/A", "bz": "T/A"}
+    for k, ch in enumerate(np.unique(result.channel)):
+        sel = result.channel == ch
+        comp = str(result.component[sel][0])
+        col = _COLOURS[k % len(_COLOURS)]
+        t, d, s, p = result.times[sel], result.d_obs[sel], result.std[sel], pred[sel]
+        pos = d >= 0
+        ax_d.errorbar(t[pos], d[pos], yerr=np.minimum(s[pos], 0.999 * d[pos]), fmt="o", ms=4,
+                      color=col, label=f"{comp} observed ({units.get(comp, 'T/s/A')})")
+        if np.any(~pos):
+            ax_d.plot(t[~pos], -d[~pos], "o", mfc="none", color=col, ms=5, label=f"{comp} observed < 0")
+        ax_d.plot(t, np.abs(p), "-", color=col, lw=1.4, label=f"{comp} response")
+        ax_r.plot(t, nres[sel], "o-", color=col, ms=3, lw=0.8)
+    ax_d.set_xscale("log")
+    ax_d.set_yscale("log")
+    ax_d.set_ylabel("|response| per ampere (SI)")
+    ax_d.set_title(f"station {result.station}: data and {kind} response "
+                   f"(chi2/N = {(few['chi2'] if few else result.chi2):.2f})")
+    ax_d.legend(fontsize=7, loc="lower left")
+    ax_d.grid(True, which="both", alpha=0.25)
+    ax_r.axhspan(-1, 1, color="0.85", zorder=0)
+    ax_r.axhline(0, color="0.3", lw=0.8)
+    ax_r.set_xscale("log")
+    ax_r.set_xlabel("time after switch-off (s)")
+    ax_r.set_ylabel("(obs - pred) / std")
+    lim = max(3.0, float(np.nanmax(np.abs(nres))) * 1.1) if nres.size else 3.0
+    ax_r.set_ylim(-lim, lim)
+
+    top = np.concatenate([[0.0], np.cumsum(result.thickness)])
+    z_max = max(1.3 * result.doi, top[-1] if top.size > 1 else 1.0) if np.isfinite(result.doi) else top[-1]
+    v, z = _steps(top, result.resistivity, z_max)
+    sd = np.repeat(result.log10_res_std, 2)
+    ax_m.fill_betweenx(z, v / 10 ** sd, v * 10 ** sd, color="#f5b041", alpha=0.35,
+                       label="smooth +-1 std", step=None)
+    ax_m.plot(v, z, color="#b03a2e", lw=1.6, label="smooth model")
+    if result.few is not None:
+        f = result.few
+        vf, zf = _steps(f["depth_top"], f["resistivity"], z_max)
+        ax_m.plot(vf, zf, color="#1b4f72", lw=2.0, label="few-layer model")
+        for k in range(1, len(f["depth_top"])):
+            zt, s = f["depth_top"][k], f["depth_std"][k]
+            if np.isfinite(s) and s > 0:
+                ax_m.fill_between([1e-3, 1e6], zt - 2 * s, zt + 2 * s, color="#5dade2", alpha=0.25,
+                                  lw=0, label="depth +-2 std" if k == 1 else None)
+    if true_model is not None:
+        vt, zt = _steps(true_model.depth_top, true_model.resistivity, z_max)
+        ax_m.plot(vt, zt, "k--", lw=1.0, label="true model")
+    if np.isfinite(result.doi):
+        ax_m.axhspan(result.doi, z_max, color="0.6", alpha=0.35, lw=0, label="below DOI")
+        ax_m.axhline(result.doi, color="0.3", lw=1.0, ls=":")
+    ax_m.set_xscale("log")
+    lo = max(np.nanmin(result.resistivity) / 5, 1e-2)
+    hi = min(np.nanmax(result.resistivity) * 5, 1e6)
+    ax_m.set_xlim(lo, hi)
+    ax_m.set_ylim(z_max, 0)
+    ax_m.set_xlabel("resistivity (ohm-m)")
+    ax_m.set_ylabel("depth (m)")
+    ax_m.set_title(f"model, DOI = {result.doi:.0f} m")
+    ax_m.legend(fontsize=7, loc="lower left")
+    ax_m.grid(True, which="both", alpha=0.25)
+    return fig
+
+
+def section_figure(x, thickness, log_rho, doi, title="", true_depth=None, picks=None,
+                   z_max=None, cmap="RdYlBu"):
+    """Resistivity section of 1D models on a shared mesh.
+
+    Parameters
+    ----------
+    x : (S,) m; thickness : (M-1,) m; log_rho : (S, M) ln(ohm-m); doi : (S,) m
+    true_depth, picks : optional (S,) m, drawn as lines (true) and markers (picked).
+    cmap : str
+        Colour map; low resistivity in warm colours (``RdYlBu`` runs red to blue).
+    """
+    from matplotlib.colors import LogNorm
+    from matplotlib.figure import Figure
+
+    x = np.asarray(x, float)
+    top = np.concatenate([[0.0], np.cumsum(thickness)])
+    z_max = z_max or float(np.nanmax(doi)) * 1.3
+    bottom = np.append(top[1:], max(z_max, top[-1] * 1.1))
+    dx = np.median(np.diff(x)) if x.size > 1 else 1000.0
+    xe = np.concatenate([x - dx / 2, [x[-1] + dx / 2]])
+    ze = np.concatenate([top, [bottom[-1]]])
+    fig = Figure(figsize=(10, 4.8), layout="constrained")
+    ax = fig.add_subplot()
+    rho = np.exp(np.asarray(log_rho, float))
+    pc = ax.pcolormesh(xe, ze, rho.T, cmap=cmap, norm=LogNorm(vmin=max(rho.min(), 1e-2),
+                                                                vmax=min(rho.max(), 1e6)))
+    for i in range(x.size):   # shade below the DOI
+        ax.fill_between([xe[i], xe[i + 1]], doi[i], ze[-1], color="white", alpha=0.55, lw=0)
+    ax.plot(x, doi, "k:", lw=1.0, label="DOI")
+    if true_depth is not None:
+        ax.plot(x, true_depth, "k--", lw=1.2, label="true top of sediments")
+    if picks is not None:
+        ax.plot(x, picks, "kv", ms=5, label="picked top of sediments")
+    ax.set_ylim(min(z_max, ze[-1]), 0)
+    ax.set_xlabel("x (m, east)")
+    ax.set_ylabel("depth (m)")
+    ax.set_title(title)
+    ax.legend(fontsize=8, loc="lower left")
+    cb = fig.colorbar(pc, ax=ax)
+    cb.set_label("resistivity (ohm-m)")
+    return fig
