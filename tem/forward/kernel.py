@@ -32,8 +32,33 @@ __all__ = ["MU0", "fused_spectra"]
 
 
 @nb.njit(cache=True, fastmath=True)
+def _reverse_sweep(K, dK, dT, dTh, tnh, X, nb, L, jac_thk, scale, out):  # pragma: no cover
+    """Reverse-mode derivatives of X_0 through X_n = f(K_n, T_n, X_{n+1}).
+
+    f(K, T, X) = K (X + K T)/(K + X T); ``dK``, ``dT`` are d/d ln rho_n of K_n
+    and T_n, ``dTh`` d T_n/d ln h_n; results (times ``scale``) into ``out``:
+    ln rho_0..nb at 0..nb, ln h_n at L + n.
+    """
+    a = scale
+    for n in range(nb):
+        k = K[n]
+        t = tnh[n]
+        x = X[n + 1]
+        D = k + x * t
+        D2 = D * D
+        fK = t * (x * x + k * k + 2.0 * k * x * t) / D2
+        fT = k * (k * k - x * x) / D2
+        fX = k * k * (1.0 - t * t) / D2
+        out[n] = a * (fK * dK[n] + fT * dT[n])
+        if jac_thk:
+            out[L + n] = a * fT * dTh[n]
+        a = a * fX
+    out[nb] = a * dK[nb]
+
+
+@nb.njit(cache=True, fastmath=True)
 def _point(lm, iwm, res, sig, thk, need_tm, jac, jac_thk, gam, tnh, X, Z, K,
-           dR, dB):  # pragma: no cover - compiled
+           dR, dB, W):  # pragma: no cover - compiled
     """Kernels at one (omega, lambda); derivatives into dR, dB (length 2L)."""
     L = res.size
     l2 = lm * lm
@@ -76,47 +101,21 @@ def _point(lm, iwm, res, sig, thk, need_tm, jac, jac_thk, gam, tnh, X, Z, K,
         for n in range(dR.size):
             dR[n] = 0.0
             dB[n] = 0.0
-        dR_dY = -2.0 * lm / (den * den)
-        # TE reverse sweep: a = dY/dX_n
-        a = 1.0 + 0.0j
-        for n in range(nb):
-            g = gam[n]
-            t = tnh[n]
-            x = X[n + 1]
-            D = g + x * t
-            D2 = D * D
-            fK = t * (x * x + g * g + 2.0 * g * x * t) / D2
-            fT = g * (g * g - x * x) / D2
-            fX = g * g * (1.0 - t * t) / D2
-            dg = -iwm * sig[n] / (2.0 * g)
-            dT = thk[n] * (1.0 - t * t) * dg
-            dR[n] = dR_dY * a * (fK * dg + fT * dT)
-            if jac_thk:
-                dR[L + n] = dR_dY * a * fT * g * thk[n] * (1.0 - t * t)
-            a = a * fX
-        dR[nb] = dR_dY * a * (-iwm * sig[nb] / (2.0 * gam[nb]))
+        # derivatives of Gamma_n and T_n with respect to ln rho_n and ln h_n
+        for n in range(nb + 1):
+            dg = -iwm * sig[n] / (2.0 * gam[n])
+            W[0, n] = dg
+            if n < nb:
+                s = thk[n] * (1.0 - tnh[n] * tnh[n])
+                W[1, n] = s * dg
+                W[2, n] = s * gam[n]
+        # TE: intrinsic value Gamma_n, dR_TE/dY = -2 lambda/(lambda + Y)^2
+        _reverse_sweep(gam, W[0], W[1], W[2], tnh, X, nb, L, jac_thk, -2.0 * lm / (den * den), dR)
         if need_tm:
-            a = 1.0 + 0.0j
-            for n in range(nb):
-                g = gam[n]
-                k = K[n]
-                t = tnh[n]
-                z = Z[n + 1]
-                D = k + z * t
-                D2 = D * D
-                fK = t * (z * z + k * k + 2.0 * k * z * t) / D2
-                fT = k * (k * k - z * z) / D2
-                fX = k * k * (1.0 - t * t) / D2
-                dg = -iwm * sig[n] / (2.0 * g)
-                dK = k + res[n] * dg
-                dT = thk[n] * (1.0 - t * t) * dg
-                dB[n] = a * (fK * dK + fT * dT)
-                if jac_thk:
-                    dB[L + n] = a * fT * g * thk[n] * (1.0 - t * t)
-                a = a * fX
-            g = gam[nb]
-            dg = -iwm * sig[nb] / (2.0 * g)
-            dB[nb] = a * (g * res[nb] + res[nb] * dg)
+            # TM: intrinsic value Gamma_n rho_n, d/d ln rho = Gamma rho + rho dGamma
+            for n in range(nb + 1):
+                W[3, n] = K[n] + res[n] * W[0, n]
+            _reverse_sweep(K, W[3], W[1], W[2], tnh, Z, nb, L, jac_thk, 1.0 + 0.0j, dB)
             dB[0] -= res[0] * lm
     return rte, btm
 
@@ -137,12 +136,13 @@ def _fused(lam, omega, res, thk, need_tm, jac, jac_thk, Gr, Ga, Gb,
     K = np.empty(L, np.complex128)
     dR = np.zeros(2 * L, np.complex128)
     dB = np.zeros(2 * L, np.complex128)
+    W = np.zeros((4, L), np.complex128)
     npar = dF.shape[0]
     for iw in range(nw):
         iwm = 1j * omega[iw] * 4e-7 * np.pi
         for il in range(nl):
             r, b = _point(lam[il], iwm, res, sig, thk, need_tm, jac, jac_thk,
-                          gam, tnh, X, Z, K, dR, dB)
+                          gam, tnh, X, Z, K, dR, dB, W)
             for ir in range(nr):
                 ga = Gr[ir, il] + iwm * Ga[ir, il]
                 gb = Gb[ir, il]
