@@ -35,6 +35,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
+from . import stack_kernels as _kern
 from .errors import input_error
 
 __all__ = ["ESTIMATORS", "StackSettings", "StackResult", "WindowSource", "ArraySource",
@@ -61,7 +62,8 @@ class StackSettings:
         samples is rejected whole.
     n_batches : batches for the error estimate (B).
     detrend : remove the period-mean baseline before combining.
-    chunk_bytes : target size of one chunk of windows in memory (float64).
+    chunk_bytes : target size (bytes, as stored) of one chunk of windows: a
+        chunk is mapped, stacked in one compiled pass and released.
     start_estimates : how many estimates (spread over all batches, every third
         one) feed the robust start.
     """
@@ -74,7 +76,7 @@ class StackSettings:
     bad_fraction: float = 0.2
     n_batches: int = 32
     detrend: bool = True
-    chunk_bytes: int = 64 << 20
+    chunk_bytes: int = 32 << 20
     start_estimates: int = 256
 
     def __post_init__(self):
@@ -126,7 +128,10 @@ class WindowSource:
     """Consecutive half-period windows.
 
     ``get(k0, k1)`` -> ((k1-k0, M) float64 new array, bool mask of
-    digitiser-clipped samples or None). ``polarity0``: polarity of window 0.
+    digitiser-clipped samples or None). ``view(k0, k1)`` -> (rows as stored,
+    e.g. int32 counts, no copy where possible; factor to volts; clip level
+    ``|x| >= full_scale`` or 0; bool clip mask or None) feeds the compiled
+    kernels. ``polarity0``: polarity of window 0.
     """
 
     n_windows: int
@@ -139,10 +144,13 @@ class WindowSource:
     def locate_nan(self, k0, k1):
         return None
 
-    def raw(self, k0, k1):
-        """(rows as stored, factor to volts, clip level or 0) for the fast linear path."""
+    def view(self, k0, k1):
         d, clip = self.get(k0, k1)
-        return (d, 1.0, 0.0) if clip is None else (None, 1.0, 0.0)
+        return d, 1.0, 0.0, clip
+
+    @property
+    def itemsize(self) -> int:
+        return 8
 
 
 class ArraySource(WindowSource):
@@ -152,6 +160,8 @@ class ArraySource(WindowSource):
         self._d = np.asarray(windows)
         if self._d.ndim != 2:
             raise ValueError("windows: expected a 2-D (n_windows, samples) array")
+        if not np.issubdtype(self._d.dtype, np.number) or np.iscomplexobj(self._d):
+            self._d = self._d.astype(np.float64)
         self.n_windows, self.m = self._d.shape
         self.polarity0 = 1 if polarity0 >= 0 else -1
         self._clip = None if clip_mask is None else np.asarray(clip_mask, bool)
@@ -160,34 +170,79 @@ class ArraySource(WindowSource):
         clip = None if self._clip is None else self._clip[k0:k1]
         return np.array(self._d[k0:k1], dtype=np.float64), clip
 
-    def raw(self, k0, k1):
-        if self._clip is not None and self._clip[k0:k1].any():
-            return None, 1.0, 0.0
-        return self._d[k0:k1], 1.0, 0.0
+    def view(self, k0, k1):
+        clip = None if self._clip is None else np.ascontiguousarray(self._clip[k0:k1])
+        return np.ascontiguousarray(self._d[k0:k1]), 1.0, 0.0, clip
+
+    @property
+    def itemsize(self) -> int:
+        return self._d.dtype.itemsize
 
     def locate_nan(self, k0, k1):
         bad = np.flatnonzero(~np.isfinite(self._d[k0:k1]).ravel())
         return None if bad.size == 0 else ("windows", k0 * self.m + int(bad[0]))
 
 
+def _npy_layout(rec):
+    """Parts of an npy-backed recording as (first sample, samples, path, dtype, byte offset).
+
+    None if any part is not a plain 1-D native-endian ``.npy`` file (then
+    samples are read through the recording). Headers are parsed by
+    ``np.load(mmap_mode="r")`` (never unpickles); nothing is read here.
+    """
+    parts = getattr(rec, "parts", None) or [rec]
+    out, first = [], 0
+    for p in parts:
+        try:
+            arr = np.load(p.path, mmap_mode="r", allow_pickle=False)
+        except (OSError, ValueError):
+            return None
+        ok = (isinstance(arr, np.memmap) and arr.ndim == 1 and arr.shape[0] == p.n_samples
+              and arr.dtype.isnative and arr.dtype.kind in "if")
+        layout = (first, p.n_samples, p.path, arr.dtype, int(arr.offset)) if ok else None
+        del arr
+        if layout is None:
+            return None
+        out.append(layout)
+        first += p.n_samples
+    return out
+
+
 class RecordingSource(WindowSource):
-    """Windows cut from a :class:`tem.io.raw.Recording` at sample ``first`` (int)."""
+    """Windows cut from a :class:`tem.io.raw.Recording` at sample ``first`` (int).
+
+    ``view`` maps the byte range of a chunk of an ``.npy`` recording directly
+    (no copy; the map is released with the returned array, so mapped pages do
+    not accumulate in the resident set).
+    """
 
     def __init__(self, recording, first: int, m: int, n_windows: int, polarity0: int = 1):
         self.rec, self.first, self.m, self.n_windows = recording, int(first), int(m), int(n_windows)
         self.polarity0 = polarity0
         self._vpc = recording.header.volts_per_count
         self._fs = recording.header.full_scale
+        self._layout = _npy_layout(recording)
 
     def _counts(self, k0, k1):
         a = self.first + k0 * self.m
         return self.rec.counts(a, a + (k1 - k0) * self.m).reshape(k1 - k0, self.m)
 
-    def raw(self, k0, k1):
+    def view(self, k0, k1):
+        a = self.first + k0 * self.m
+        z = a + (k1 - k0) * self.m
+        for first, n, path, dtype, offset in self._layout or ():
+            if first <= a and z <= first + n:
+                mm = np.memmap(path, dtype=dtype, mode="r",
+                               offset=offset + (a - first) * dtype.itemsize, shape=(z - a,))
+                return mm.reshape(k1 - k0, self.m), self._vpc, self._fs, None
         c = self._counts(k0, k1)
-        if self._fs and (c.max() >= self._fs or c.min() <= -self._fs):
-            return None, self._vpc, self._fs
-        return c, self._vpc, self._fs
+        if not (c.dtype.isnative and c.dtype.kind in "if"):
+            c = c.astype(np.float64)
+        return c, self._vpc, self._fs, None
+
+    @property
+    def itemsize(self) -> int:
+        return self._layout[0][3].itemsize if self._layout else 8
 
     def get(self, k0, k1):
         c = self._counts(k0, k1)
@@ -291,9 +346,8 @@ def _batches(n_est: int, n_batches: int):
     return edges
 
 
-def _chunks(edges, m, chunk_bytes):
-    """(k0, k1, batch) estimate ranges; chunks never straddle batches."""
-    per = max(1, int(chunk_bytes // (8 * m)) - 4)
+def _chunks(edges, per):
+    """(k0, k1, batch) estimate ranges of at most ``per`` estimates; never straddle batches."""
     out = []
     for b, (a, z) in enumerate(zip(edges[:-1], edges[1:])):
         for k0 in range(a, z, per):
@@ -301,76 +355,102 @@ def _chunks(edges, m, chunk_bytes):
     return out
 
 
-def _estimates(src, k0, k1, detrend, t_frac):
-    """Three-window estimates e_k0..e_{k1-1} (each uses windows k..k+2), plus clip mask."""
-    pol = src.polarity0 * (1 if k0 % 2 == 0 else -1)
-    if detrend:
-        a, z = max(k0 - 1, 0), min(k1 + 3, src.n_windows)
-        d, clip = src.get(a, z)
-        d = _detrend(d, t_frac, clip)
-        lo = k0 - a
-        dd = d[lo:lo + (k1 - k0) + 2]
-        clip = None if clip is None else clip[lo:lo + (k1 - k0) + 2]
-    else:
-        dd, clip = src.get(k0, k1 + 2)
-    e = combine_three(dd, pol)
-    bad = None
-    if clip is not None:
-        bad = clip[:-2] | clip[1:-1] | clip[2:]
-    if not np.isfinite(e).all():
-        where = src.locate_nan(k0, k1 + 2)
-        if where is not None:
-            f, idx = where
-            raise input_error("samples", f"NaN or infinite value at sample {idx}", f)
-    return e, bad
+_NO_MASK = np.zeros((0, 0), np.bool_)
+_NO_F32 = np.zeros(0, np.float32)
+_NO_F64 = np.zeros((0, 0))
+_NO_THR = np.zeros(3, np.float32)
 
 
-def _linear_sum(src, k0, k1, detrend, t_frac):
-    """sum_{k0<=k<k1} e_k without forming the e_k (mean estimator, interior chunks).
+def _run_kernel(src, k0, k1, step, detrend, t_frac, mode, acc=None, start=None, thr=None,
+                limits=(0.0, 0.0), emit=None):
+    """Three-window estimates k0, k0+step, ... < k1 through the compiled kernels.
 
-    sum_k e_k = sum_j c_j d~_j with c_j = p_j [1/4, 3/4, 1, ..., 1, 3/4, 1/4]
-    (REFERENCE.md 6.3), so the bulk is an even-minus-odd row sum of the stored
-    counts in one pass. The period-mean baseline (B_j = (mu_{j-1} + mu_j)/2)
-    telescopes: its contribution sum_i mu_i (c_i + c_{i+1})/2 + t sum_i mu_i
-    (c_{i-1} - c_{i+1})/2 only involves the window means near the chunk ends.
-    Returns None when the chunk holds clipped samples (generic path).
+    Maps windows k0-1 .. last+3 (k0 .. last+2 without detrend: what the
+    baseline of the estimates needs), then accumulates into ``acc`` =
+    (spsi, cnt, sdpsi, tally) or writes ``emit`` = (e, bad). The mean of a
+    chunk without clipped samples goes through :func:`stack_kernels.mean_pass`.
+    Raises the input error of a NaN or infinite sample.
     """
-    d, vpc, _ = src.raw(k0, k1 + 2)
-    if d is None:
-        return None
-    n = d.shape[0]
-    pol = src.polarity0 * (1 if k0 % 2 == 0 else -1)
-    tot = d[0::2].sum(axis=0, dtype=np.float64)
-    tot -= d[1::2].sum(axis=0, dtype=np.float64)
-    a = np.ones(n)
-    a[[0, -1]] = 0.25
-    a[[1, -2]] = 0.75
-    p = pol * (1.0 - 2.0 * (np.arange(n) % 2))
-    c = a * p
-    for j in (0, 1, n - 2, n - 1):       # edge weights differ from +-1
-        tot += (c[j] - p[j]) * pol * d[j]
-    tot *= pol
-    if not np.isfinite(tot).all():
-        return None
-    tot *= vpc
-    if not detrend:
-        return tot
-    # window means mu_i for i = k0-1 .. k1+2 enter only near the ends
-    ce = np.concatenate([[0.0], c, [0.0]])           # index i-(k0-1)
-    g = 0.5 * (ce + np.append(ce[1:], 0.0))
-    h = 0.5 * (np.insert(ce[:-1], 0, 0.0) - np.append(ce[1:], 0.0))
-    idx = np.flatnonzero((np.abs(g) > 1e-12) | (np.abs(h) > 1e-12))
-    beta = gamma = 0.0
-    for i in idx:
-        mu = float(src.get(k0 - 1 + i, k0 + i)[0].mean())
-        beta += g[i] * mu
-        gamma += h[i] * mu
-    return tot - beta - gamma * t_frac
+    n_est = len(range(k0, k1, step))
+    last = k0 + (n_est - 1) * step
+    a = max(k0 - 1, 0) if detrend else k0
+    z = min(last + 4, src.n_windows) if detrend else last + 3
+    x, vpc, full_scale, clip = src.view(a, z)
+    m = src.m
+    if acc is None:
+        acc = (np.zeros(m), np.zeros(m, np.int64), np.zeros(m, np.int64), np.zeros(6, np.int64))
+    spsi, cnt, sdpsi, tally = acc
+    pol = src.polarity0 * (1 if a % 2 == 0 else -1)
+    done = False
+    if mode == _kern.MODE_MEAN and clip is None and step == 1:
+        done = _kern.mean_pass(x, float(vpc), float(full_scale), t_frac, bool(detrend), k0 - a,
+                               n_est, pol, spsi, tally)
+        if done:
+            cnt += n_est
+    if not done:
+        m0, inv_s, lo, hi = start if start is not None else (_NO_F32,) * 4
+        e, bad = emit if emit is not None else (_NO_F64, _NO_MASK)
+        _kern.chunk_pass(x, float(vpc), float(full_scale), _NO_MASK if clip is None else clip,
+                         t_frac, bool(detrend), k0 - a, n_est, step, pol, mode, m0, inv_s, lo, hi,
+                         _NO_THR if thr is None else thr, float(limits[0]), float(limits[1]),
+                         spsi, cnt, sdpsi, e, bad, tally)
+    del x
+    if tally[5]:
+        where = src.locate_nan(a, z)
+        f, idx = where if where is not None else (None, f"in windows {a}..{z - 1}")
+        raise input_error("samples", f"NaN or infinite value at sample {idx}", f)
+    return acc
+
+
+def _robust_start(src, edges, s, t_frac):
+    """Start m0, scale s0 (and trimmed bounds lo, hi in units of s0) from a pooled sample.
+
+    The pool holds the first estimates of every batch, every third one
+    (neighbours share windows and are correlated, which would shrink the
+    spread seen by the MAD), about ``start_estimates`` in all.
+    """
+    nb = len(edges) - 1
+    n_est = src.n_windows - 2
+    m = src.m
+    per = max(1, min(-(-s.start_estimates // nb), -(-n_est // (3 * nb))))
+    pool, pool_bad = [], []
+    for b in range(nb):
+        k0, k1 = edges[b], min(edges[b + 1], edges[b] + 3 * per)
+        n = len(range(k0, k1, 3))
+        e, bad = np.empty((n, m)), np.empty((n, m), np.bool_)
+        _run_kernel(src, k0, k1, 3, s.detrend, t_frac, _kern.MODE_EMIT, emit=(e, bad))
+        pool.append(e)
+        pool_bad.append(bad)
+    # samples along the fast axis: median and quantiles per sample are then cheap
+    e = np.concatenate(pool).T.copy()
+    bad = np.concatenate(pool_bad).T
+    if bad.any():
+        e[bad] = np.nan
+        med = np.nanmedian(e, axis=1)
+        mad = np.nanmedian(np.abs(e - med[:, None]), axis=1)
+    else:
+        med = np.median(e, axis=1)
+        mad = np.median(np.abs(e - med[:, None]), axis=1)
+    n = e.shape[1]
+    m0 = np.nan_to_num(med)
+    s0 = np.nan_to_num(mad) * _MAD * n / max(n - 0.8, 1.0)
+    # floor: rounding noise of noise-free data must not reject anything
+    floor = max(1e-9 * float(np.max(np.abs(m0))), 1e-30)
+    s0 = np.maximum(s0, floor)
+    lo = hi = None
+    if s.estimator == "trimmed":
+        q = np.nanquantile(e, [s.trim, 1 - s.trim], axis=1)
+        lo = (np.nan_to_num(q[0]) - m0) / s0
+        hi = (np.nan_to_num(q[1]) - m0) / s0
+    return m0, s0, lo, hi
 
 
 def stack_source(src: WindowSource, settings: StackSettings = StackSettings(), progress=None):
     """Stack all windows of a :class:`WindowSource` (streams chunk by chunk).
 
+    Two passes: a small one for the robust start (not for ``mean``), then one
+    compiled pass over every chunk of windows (:mod:`tem.stack_kernels`) that
+    reads each stored sample once and accumulates the psi sums per batch.
     Returns a :class:`StackResult` in the units of the source.
     """
     s = settings
@@ -381,127 +461,55 @@ def stack_source(src: WindowSource, settings: StackSettings = StackSettings(), p
     t_frac = (np.arange(m) + 0.5) / m
     edges = _batches(n_est, s.n_batches)
     nb = len(edges) - 1
-    chunks = _chunks(edges, m, s.chunk_bytes)
-    total_steps = len(chunks) * (1 if s.estimator == "mean" else 2)
+    chunks = _chunks(edges, max(1, int(s.chunk_bytes // (src.itemsize * m)) - 3))
+    total_steps = len(chunks) + (0 if s.estimator == "mean" else nb)
     step = [0]
 
-    def tick():
-        step[0] += 1
+    def tick(k=1):
+        step[0] += k
         if progress is not None:
             progress(step[0], total_steps)
 
-    # ---- pass 1: robust start from the first estimates of every batch
+    # ---- pass 1: robust start from a pooled sample
+    h_med = max(0.1, n_est ** -0.2) if s.estimator == "median" else 0.0
     if s.estimator == "mean":
         m0, s0, lo, hi = np.zeros(m), np.ones(m), None, None
+        start, thr = None, None
     else:
-        # pooled start sample: the first estimates of every batch, every third
-        # one (neighbours share windows and are correlated, which would shrink
-        # the spread seen by the MAD)
-        per = max(1, min(-(-s.start_estimates // nb), -(-n_est // (3 * nb))))
-        pool, pool_bad = [], []
-        for b in range(nb):
-            for k in range(edges[b], min(edges[b + 1], edges[b] + 3 * per), 3):
-                e, bad = _estimates(src, k, k + 1, s.detrend, t_frac)
-                pool.append(e)
-                pool_bad.append(np.zeros(e.shape, bool) if bad is None else bad)
-        e = np.concatenate(pool)
-        bad = np.concatenate(pool_bad)
-        if bad.any():
-            e[bad] = np.nan
-            med = np.nanmedian(e, axis=0)
-            mad = np.nanmedian(np.abs(e - med), axis=0)
-        else:
-            med = np.median(e, axis=0)
-            mad = np.median(np.abs(e - med), axis=0)
-        n = e.shape[0]
-        m0 = np.nan_to_num(med)
-        s0 = np.nan_to_num(mad) * _MAD * n / max(n - 0.8, 1.0)
-        # floor: rounding noise of noise-free data must not reject anything
-        floor = max(1e-9 * float(np.max(np.abs(m0))), 1e-30)
-        s0 = np.maximum(s0, floor)
-        if s.estimator == "trimmed":
-            q = np.nanquantile(e, [s.trim, 1 - s.trim], axis=0)
-            lo = (np.nan_to_num(q[0]) - m0) / s0
-            hi = (np.nan_to_num(q[1]) - m0) / s0
+        m0, s0, lo, hi = _robust_start(src, edges, s, t_frac)
+        tick(nb)
+        f32 = np.float32
+        start = (m0.astype(f32), (1.0 / s0).astype(f32),
+                 lo.astype(f32) if lo is not None else np.zeros(m, f32),
+                 hi.astype(f32) if hi is not None else np.zeros(m, f32))
+        thr = np.array([s.huber_k, s.reject_sigma, h_med], f32)
 
-    # ---- pass 2: accumulate psi sums per batch
+    # ---- pass 2: psi sums per batch, one compiled pass per chunk
     spsi_b = np.zeros((nb, m))
-    cnt_b = np.zeros((nb, m))
-    sdpsi = np.zeros(m)
-    counts = {"transients_total": int(n_est), "transients_used": 0, "rejected_noisy": 0,
-              "rejected_bad_samples": 0, "samples_clipped": 0, "samples_outlier": 0}
-    m0_32 = m0.astype(np.float32)
-    inv_s32 = (1.0 / s0).astype(np.float32)
-    if s.estimator == "trimmed":
-        lo32, hi32 = lo.astype(np.float32), hi.astype(np.float32)
-    h_med = max(0.1, n_est ** -0.2) if s.estimator == "median" else None
+    cnt_b = np.zeros((nb, m), np.int64)
+    sdpsi_n = np.zeros(m, np.int64)
+    tally = np.zeros(6, np.int64)
+    mode = _kern.MODES[s.estimator]
     for k0, k1, b in chunks:
-        if s.estimator == "mean" and k0 >= 1 and k1 + 3 <= src.n_windows and k1 - k0 >= 8:
-            tot = _linear_sum(src, k0, k1, s.detrend, t_frac)
-            if tot is not None:
-                spsi_b[b] += tot
-                cnt_b[b] += k1 - k0
-                sdpsi += k1 - k0
-                counts["transients_used"] += k1 - k0
-                tick()
-                continue
-        e, bad = _estimates(src, k0, k1, s.detrend, t_frac)
-        if bad is not None:
-            counts["samples_clipped"] += int(bad.sum())
-        if s.estimator == "mean":
-            psi = e
-            good = None
-            if bad is not None:
-                good = ~bad
-                psi = np.where(bad, 0.0, e)
-                dpsi = good
-            n_rows = e.shape[0]
-            spsi_b[b] += psi.sum(axis=0)
-            c = good.sum(axis=0) if good is not None else n_rows
-            cnt_b[b] += c
-            sdpsi += c
-            counts["transients_used"] += n_rows
-            tick()
-            continue
-        # residuals in float32: they only feed weights and clipped psi values
-        r = e.astype(np.float32)
-        r -= m0_32
-        r *= inv_s32
-        ar = np.abs(r)
-        out = ar > s.reject_sigma
-        if bad is not None:
-            out |= bad
-        frac = out.mean(axis=1) if out.any() else np.zeros(r.shape[0])
-        np.minimum(ar, np.float32(s.reject_sigma), out=ar)
-        rms = np.sqrt(np.einsum("ij,ij->i", ar, ar, dtype=np.float64) / r.shape[1])
-        drop_noisy = rms > s.transient_rms
-        drop_bad = (frac > s.bad_fraction) & ~drop_noisy
-        drop = drop_noisy | drop_bad
-        counts["rejected_noisy"] += int(drop_noisy.sum())
-        counts["rejected_bad_samples"] += int(drop_bad.sum())
-        counts["transients_used"] += int((~drop).sum())
-        keep = ~out
-        keep[drop] = False
-        counts["samples_outlier"] += int((out[~drop].sum()) - (0 if bad is None else bad[~drop].sum()))
-        if s.estimator == "huber":
-            psi = np.clip(r, -s.huber_k, s.huber_k, out=r)
-            dpsi = ar <= s.huber_k
-        elif s.estimator == "trimmed":
-            psi = np.clip(r, lo32, hi32, out=r)
-            dpsi = (psi > lo32) & (psi < hi32)
-        else:  # median
-            psi = np.sign(r, out=r)
-            dpsi = ar < h_med
-        dpsi &= keep
-        np.putmask(psi, ~keep, np.float32(0.0))
-        spsi_b[b] += psi.sum(axis=0, dtype=np.float64)
-        cnt_b[b] += keep.sum(axis=0)
-        sdpsi += dpsi.sum(axis=0) / (2.0 * h_med) if s.estimator == "median" else dpsi.sum(axis=0)
+        _run_kernel(src, k0, k1, 1, s.detrend, t_frac, mode, acc=(spsi_b[b], cnt_b[b], sdpsi_n, tally),
+                    start=start, thr=thr, limits=(s.transient_rms, s.bad_fraction))
         tick()
+    counts = {"transients_total": int(n_est)}
+    counts.update({k: int(v) for k, v in zip(_kern.TALLY_FIELDS[:5], tally[:5])})
+    counts = {k: counts[k] for k in ("transients_total", "transients_used", "rejected_noisy",
+                                     "rejected_bad_samples", "samples_clipped", "samples_outlier")}
+    if s.estimator == "mean":        # psi' = 1 for every accepted estimate
+        sdpsi = cnt_b.sum(axis=0).astype(float)
+    elif s.estimator == "median":    # box density estimate of psi'
+        sdpsi = sdpsi_n / (2.0 * h_med)
+    else:
+        sdpsi = sdpsi_n.astype(float)
+    return _finish(s, nb, m0, s0, spsi_b, cnt_b.astype(float), sdpsi, counts)
 
+
+def _finish(s, nb, m0, s0, spsi_b, cnt_b, sdpsi, counts):
+    """One-step M-estimate, batch influence sums and errors from the psi sums."""
     n_used = cnt_b.sum(axis=0)
-    if s.estimator == "trimmed":
-        sdpsi = sdpsi / max(1e-12, 1.0)  # psi' = 1 inside the quantiles
     with np.errstate(invalid="ignore", divide="ignore"):
         denom = np.where(sdpsi > 0, sdpsi, np.nan)
         mean_psi = spsi_b.sum(axis=0) / np.where(n_used > 0, n_used, np.nan)

@@ -178,3 +178,218 @@ def test_switch_detection(duty):
     tol = 2e-6 if duty < 1 else 0.25 / FS
     assert abs(((t0 - t_first + 0.1) % 0.2) - 0.1) < tol
     assert period == pytest.approx(0.2, rel=1e-6) and res < 5e-6
+
+
+# ---------------------------------------------------------------------------- compiled vs numpy
+def _reference_stack(src, s):
+    """The previous pure-numpy stacker (before the compiled kernels), kept as the reference.
+
+    Same method (docs/stacking.md): float64 windows, _detrend per chunk, combine_three,
+    pooled median/MAD start, float32 residuals, per-batch psi sums. Only for comparison.
+    """
+    from tem.stack import _MAD, _batches, _detrend
+
+    def estimates(k0, k1, t_frac):
+        pol = src.polarity0 * (1 if k0 % 2 == 0 else -1)
+        if s.detrend:
+            a, z = max(k0 - 1, 0), min(k1 + 3, src.n_windows)
+            d, clip = src.get(a, z)
+            d = _detrend(d, t_frac, clip)
+            lo = k0 - a
+            dd = d[lo:lo + (k1 - k0) + 2]
+            clip = None if clip is None else clip[lo:lo + (k1 - k0) + 2]
+        else:
+            dd, clip = src.get(k0, k1 + 2)
+        e = combine_three(dd, pol)
+        bad = None if clip is None else clip[:-2] | clip[1:-1] | clip[2:]
+        return e, bad
+
+    n_est = src.n_windows - 2
+    m = src.m
+    t_frac = (np.arange(m) + 0.5) / m
+    edges = _batches(n_est, s.n_batches)
+    nb = len(edges) - 1
+    per_chunk = max(1, int(s.chunk_bytes // (8 * m)) - 4)
+    chunks = [(k0, min(z, k0 + per_chunk), b) for b, (a, z) in enumerate(zip(edges[:-1], edges[1:]))
+              for k0 in range(a, z, per_chunk)]
+    if s.estimator == "mean":
+        m0, s0 = np.zeros(m), np.ones(m)
+    else:
+        per = max(1, min(-(-s.start_estimates // nb), -(-n_est // (3 * nb))))
+        pool, pool_bad = [], []
+        for b in range(nb):
+            for k in range(edges[b], min(edges[b + 1], edges[b] + 3 * per), 3):
+                e, bad = estimates(k, k + 1, t_frac)
+                pool.append(e)
+                pool_bad.append(np.zeros(e.shape, bool) if bad is None else bad)
+        e = np.concatenate(pool)
+        bad = np.concatenate(pool_bad)
+        if bad.any():
+            e[bad] = np.nan
+            med = np.nanmedian(e, axis=0)
+            mad = np.nanmedian(np.abs(e - med), axis=0)
+        else:
+            med = np.median(e, axis=0)
+            mad = np.median(np.abs(e - med), axis=0)
+        n = e.shape[0]
+        m0 = np.nan_to_num(med)
+        s0 = np.nan_to_num(mad) * _MAD * n / max(n - 0.8, 1.0)
+        s0 = np.maximum(s0, max(1e-9 * float(np.max(np.abs(m0))), 1e-30))
+        if s.estimator == "trimmed":
+            q = np.nanquantile(e, [s.trim, 1 - s.trim], axis=0)
+            lo32 = ((np.nan_to_num(q[0]) - m0) / s0).astype(np.float32)
+            hi32 = ((np.nan_to_num(q[1]) - m0) / s0).astype(np.float32)
+    spsi_b = np.zeros((nb, m))
+    cnt_b = np.zeros((nb, m))
+    sdpsi = np.zeros(m)
+    counts = {"transients_total": int(n_est), "transients_used": 0, "rejected_noisy": 0,
+              "rejected_bad_samples": 0, "samples_clipped": 0, "samples_outlier": 0}
+    m0_32, inv_s32 = m0.astype(np.float32), (1.0 / s0).astype(np.float32)
+    h_med = max(0.1, n_est ** -0.2)
+    for k0, k1, b in chunks:
+        e, bad = estimates(k0, k1, t_frac)
+        if bad is not None:
+            counts["samples_clipped"] += int(bad.sum())
+        if s.estimator == "mean":
+            good = np.ones(e.shape, bool) if bad is None else ~bad
+            spsi_b[b] += np.where(good, e, 0.0).sum(axis=0)
+            cnt_b[b] += good.sum(axis=0)
+            sdpsi += good.sum(axis=0)
+            counts["transients_used"] += e.shape[0]
+            continue
+        r = e.astype(np.float32)
+        r -= m0_32
+        r *= inv_s32
+        ar = np.abs(r)
+        out = ar > s.reject_sigma
+        if bad is not None:
+            out |= bad
+        frac = out.mean(axis=1)
+        np.minimum(ar, np.float32(s.reject_sigma), out=ar)
+        rms = np.sqrt(np.einsum("ij,ij->i", ar, ar, dtype=np.float64) / r.shape[1])
+        drop_noisy = rms > s.transient_rms
+        drop_bad = (frac > s.bad_fraction) & ~drop_noisy
+        drop = drop_noisy | drop_bad
+        counts["rejected_noisy"] += int(drop_noisy.sum())
+        counts["rejected_bad_samples"] += int(drop_bad.sum())
+        counts["transients_used"] += int((~drop).sum())
+        keep = ~out
+        keep[drop] = False
+        counts["samples_outlier"] += int(out[~drop].sum() - (0 if bad is None else bad[~drop].sum()))
+        if s.estimator == "huber":
+            psi = np.clip(r, -s.huber_k, s.huber_k, out=r)
+            dpsi = ar <= s.huber_k
+        elif s.estimator == "trimmed":
+            psi = np.clip(r, lo32, hi32, out=r)
+            dpsi = (psi > lo32) & (psi < hi32)
+        else:
+            psi = np.sign(r, out=r)
+            dpsi = ar < h_med
+        dpsi &= keep
+        np.putmask(psi, ~keep, np.float32(0.0))
+        spsi_b[b] += psi.sum(axis=0, dtype=np.float64)
+        cnt_b[b] += keep.sum(axis=0)
+        sdpsi += dpsi.sum(axis=0) / (2.0 * h_med) if s.estimator == "median" else dpsi.sum(axis=0)
+    n_used = cnt_b.sum(axis=0)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        denom = np.where(sdpsi > 0, sdpsi, np.nan)
+        mean_psi = spsi_b.sum(axis=0) / np.where(n_used > 0, n_used, np.nan)
+        value = m0 + s0 * spsi_b.sum(axis=0) / denom
+        infl = s0 * (spsi_b - cnt_b * mean_psi) / denom
+    value = np.where(~(sdpsi > 0) & (n_used > 0), m0, value)
+    infl = np.nan_to_num(infl)
+    err = np.sqrt(nb / (nb - 1.0) * np.sum(infl * infl, axis=0))
+    scale = np.sqrt(np.maximum(err ** 2 * n_used, 0.0)) if s.estimator == "mean" else s0
+    return value, err, infl, n_used, scale, counts
+
+
+def _nasty_counts(n, m, rng, full_scale=None):
+    """Decay + noise + quadratic drift + spikes + a few noisy and spiky transients (counts)."""
+    t = (np.arange(m) + 0.5) / m
+    pol = 1 - 2 * (np.arange(n) % 2)
+    x = pol[:, None] * 4e4 * np.exp(-t / 0.1)[None, :]
+    x = x + rng.normal(0, 300, (n, m))
+    x += 2e3 + 40 * np.arange(n)[:, None] + 0.3 * (np.arange(n)[:, None] + t) ** 2
+    flat = x.ravel()
+    idx = rng.integers(0, flat.size, n * m // 200)
+    flat[idx] += rng.choice([-1, 1], idx.size) * rng.lognormal(np.log(3e4), 1.0, idx.size)
+    x[n // 3] += rng.normal(0, 5e3, m)                      # a noisy transient
+    x[n // 2, : m // 2] += 2e4 * rng.choice([-1, 1], m // 2)  # half a window of rubbish
+    x[n // 4, :: 12] += 2e4                                   # 8 % bad samples
+    if full_scale is not None:
+        x[5, 3:7] = full_scale + 10.0                        # clipped samples
+        x[n - 4, -2:] = -full_scale - 10.0
+        x = np.clip(x, -full_scale, full_scale)
+    return np.round(x).astype(np.int32)
+
+
+def _assert_same(fast, ref, what):
+    value, err, infl, n_used, scale, counts = ref
+    big = float(np.max(np.abs(scale))) + float(np.max(np.abs(value)))
+    tol = 1e-11 * big     # rounding (float32 residuals identical, float64 sums reordered)
+    assert fast.counts == counts, what
+    np.testing.assert_array_equal(fast.n_used, n_used, err_msg=what)
+    np.testing.assert_allclose(fast.value, value, rtol=0, atol=tol, err_msg=what)
+    np.testing.assert_allclose(fast.error, err, rtol=0, atol=tol, err_msg=what)
+    np.testing.assert_allclose(fast.influence, infl, rtol=0, atol=tol, err_msg=what)
+    np.testing.assert_allclose(fast.scale, scale, rtol=0, atol=tol, err_msg=what)
+
+
+@pytest.mark.parametrize("est", ESTIMATORS)
+def test_compiled_path_matches_numpy_reference_recording(est, tmp_path):
+    # int32 counts in an .npy file (memory-mapped chunks), clipped samples at full scale,
+    # window 0 at sample 37 with polarity -1, chunks of a few windows (many chunk edges):
+    # same results as the previous numpy formulation, to rounding (no external source:
+    # this checks the compiled kernels against the straightforward formulation)
+    from tem.io.raw import RawHeader, open_recording, write_npy_recording
+    from tem.stack import RecordingSource, stack_source
+    rng = np.random.default_rng(11)
+    n, m, fs_counts = 181, 48, 2 ** 17
+    x = _nasty_counts(n, m, rng, full_scale=fs_counts)
+    counts = np.concatenate([rng.integers(-50, 50, 37), x.ravel(), rng.integers(-50, 50, 20)])
+    hdr = RawHeader(sample_rate=FS, volts_per_count=2.5e-7, start_time="2025-06-02T08:00:00Z",
+                    full_scale=fs_counts)
+    path = write_npy_recording(tmp_path / "ex.npy", counts.astype(np.int32), hdr)
+    rec = open_recording(path)
+    for detrend in (True, False):
+        for chunk in (7 * m * 4, 64 << 20):
+            s = StackSettings(estimator=est, detrend=detrend, chunk_bytes=chunk, n_batches=8,
+                              bad_fraction=0.05)
+            src = RecordingSource(rec, 37, m, n, polarity0=-1)
+            fast = stack_source(src, s)
+            ref = _reference_stack(RecordingSource(rec, 37, m, n, polarity0=-1), s)
+            assert ref[5]["samples_clipped"] > 0 and ref[5]["transients_total"] == n - 2
+            if est != "mean":
+                assert ref[5]["rejected_noisy"] > 0 and ref[5]["rejected_bad_samples"] > 0
+                assert ref[5]["samples_outlier"] > 0
+            _assert_same(fast, ref, (est, detrend, chunk))
+
+
+@pytest.mark.parametrize("est", ESTIMATORS)
+def test_compiled_path_matches_numpy_reference_arrays(est):
+    # float64 windows in memory, with and without an explicit clip mask, odd batch sizes
+    rng = np.random.default_rng(12)
+    n, m = 97, 40
+    x = _nasty_counts(n, m, rng) * 1e-6
+    clip = np.zeros(x.shape, bool)
+    clip[[3, 40, 95], [0, 17, 39]] = True
+    for mask in (None, clip):
+        for detrend in (True, False):
+            s = StackSettings(estimator=est, detrend=detrend, n_batches=5, chunk_bytes=3 * m * 8,
+                              huber_k=1.345, trim=0.15)
+            fast = stack_windows(x, polarity0=1, settings=s, clip_mask=mask)
+            from tem.stack import ArraySource
+            ref = _reference_stack(ArraySource(x, 1, mask), s)
+            _assert_same(fast, ref, (est, detrend, mask is None))
+
+
+def test_nan_in_recording_names_file_and_sample(tmp_path):
+    from tem.io.raw import RawHeader, open_recording, write_npy_recording
+    from tem.stack import RecordingSource, stack_source
+    c = np.random.default_rng(0).normal(0, 1, 40 * 16).astype(np.float32)
+    c[300] = np.nan
+    hdr = RawHeader(sample_rate=FS, volts_per_count=1e-6, start_time="2025-06-02T08:00:00Z")
+    rec = open_recording(write_npy_recording(tmp_path / "bad.npy", c, hdr))
+    for est in ("mean", "huber"):
+        with pytest.raises(TemInputError, match=r"bad\.npy.*samples: NaN or infinite value at sample 300"):
+            stack_source(RecordingSource(rec, 0, 16, 40), StackSettings(estimator=est))
