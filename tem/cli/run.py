@@ -38,7 +38,7 @@ def run(args) -> int:
     from rich.console import Console
 
     from ..errors import input_error
-    from ..pipeline import parse_assignment, run_pipeline, summary_table
+    from ..pipeline import parse_assignment, run_pipeline
 
     overrides = [parse_assignment(s) for s in args.settings]
     if args.lci:
@@ -64,7 +64,7 @@ def print_summary(outcome, console):
     if not console.is_terminal:
         console = Console(file=console.file, width=160)
     console.print(summary_table(state))
-    for stage in ("invert", "section", "export", "report"):
+    for stage in STAGES:
         rec = state["stages"].get(stage)
         if rec is None:
             continue
