@@ -66,6 +66,8 @@ class StackSettings:
         chunk is mapped, stacked in one compiled pass and released.
     start_estimates : how many estimates (spread over all batches, every third
         one) feed the robust start.
+    threads : batches stacked concurrently (compiled kernels release the GIL);
+        results are the same for any number.
     """
 
     estimator: str = "huber"
@@ -76,8 +78,9 @@ class StackSettings:
     bad_fraction: float = 0.2
     n_batches: int = 32
     detrend: bool = True
-    chunk_bytes: int = 32 << 20
+    chunk_bytes: int = 64 << 20
     start_estimates: int = 256
+    threads: int = 1
 
     def __post_init__(self):
         if self.estimator not in ESTIMATORS:
@@ -88,6 +91,8 @@ class StackSettings:
             raise input_error("reject_sigma", "need 0 < huber_k < reject_sigma")
         if self.n_batches < 4:
             raise input_error("n_batches", "need at least 4 batches")
+        if int(self.threads) != self.threads or self.threads < 1:
+            raise input_error("threads", f"must be a whole number >= 1, got {self.threads!r}")
 
     def as_dict(self) -> dict:
         return {k: getattr(self, k) for k in self.__dataclass_fields__}
@@ -439,7 +444,8 @@ def _robust_start(src, edges, s, t_frac):
     s0 = np.maximum(s0, floor)
     lo = hi = None
     if s.estimator == "trimmed":
-        q = np.nanquantile(e, [s.trim, 1 - s.trim], axis=1)
+        quantile = np.nanquantile if bad.any() else np.quantile   # same values without NaN
+        q = quantile(e, [s.trim, 1 - s.trim], axis=1)
         lo = (np.nan_to_num(q[0]) - m0) / s0
         hi = (np.nan_to_num(q[1]) - m0) / s0
     return m0, s0, lo, hi
@@ -484,16 +490,32 @@ def stack_source(src: WindowSource, settings: StackSettings = StackSettings(), p
                  hi.astype(f32) if hi is not None else np.zeros(m, f32))
         thr = np.array([s.huber_k, s.reject_sigma, h_med], f32)
 
-    # ---- pass 2: psi sums per batch, one compiled pass per chunk
+    # ---- pass 2: psi sums per batch, one compiled pass per chunk. Every batch has its
+    # own accumulators and its chunks run in order, so results do not depend on threads.
     spsi_b = np.zeros((nb, m))
     cnt_b = np.zeros((nb, m), np.int64)
-    sdpsi_n = np.zeros(m, np.int64)
-    tally = np.zeros(6, np.int64)
+    sdpsi_b = np.zeros((nb, m), np.int64)
+    tally_b = np.zeros((nb, 6), np.int64)
     mode = _kern.MODES[s.estimator]
-    for k0, k1, b in chunks:
-        _run_kernel(src, k0, k1, 1, s.detrend, t_frac, mode, acc=(spsi_b[b], cnt_b[b], sdpsi_n, tally),
-                    start=start, thr=thr, limits=(s.transient_rms, s.bad_fraction))
-        tick()
+    by_batch = [[c for c in chunks if c[2] == b] for b in range(nb)]
+
+    def run_batch(b):
+        for k0, k1, _ in by_batch[b]:
+            _run_kernel(src, k0, k1, 1, s.detrend, t_frac, mode,
+                        acc=(spsi_b[b], cnt_b[b], sdpsi_b[b], tally_b[b]), start=start, thr=thr,
+                        limits=(s.transient_rms, s.bad_fraction))
+        return b
+
+    if s.threads > 1:
+        from concurrent.futures import ThreadPoolExecutor, as_completed
+        with ThreadPoolExecutor(max_workers=s.threads) as pool:
+            for fut in as_completed([pool.submit(run_batch, b) for b in range(nb)]):
+                tick(len(by_batch[fut.result()]))
+    else:
+        for b in range(nb):
+            tick(len(by_batch[run_batch(b)]))
+    tally = tally_b.sum(axis=0)
+    sdpsi_n = sdpsi_b.sum(axis=0)
     counts = {"transients_total": int(n_est)}
     counts.update({k: int(v) for k, v in zip(_kern.TALLY_FIELDS[:5], tally[:5])})
     counts = {k: counts[k] for k in ("transients_total", "transients_used", "rejected_noisy",

@@ -60,6 +60,22 @@ def _row_stats(r):  # pragma: no cover - compiled
     return s, lo, hi
 
 
+@nb.njit(cache=True, fastmath={"reassoc"})
+def _row_stats_acc(r, c, acc):  # pragma: no cover - compiled
+    """:func:`_row_stats` of one row while adding c * row to acc (one read of the row)."""
+    s = 0.0
+    lo = r[0]
+    hi = r[0]
+    for i in range(r.size):
+        v = r[i]
+        f = np.float64(v)
+        s += f
+        lo = min(lo, v)
+        hi = max(hi, v)
+        acc[i] += c * f
+    return s, lo, hi
+
+
 @nb.njit(cache=True)
 def _clipped(v, full_scale):  # pragma: no cover - compiled
     return full_scale > 0 and abs(np.float64(v)) >= full_scale
@@ -134,7 +150,7 @@ def _prepare(x, k, vpc, full_scale, mask, use_mask, detrend, mu, rowclip, state)
 
 
 # ---------------------------------------------------------------------------- estimates
-@nb.njit(cache=True)
+@nb.njit(cache=True, nogil=True)
 def chunk_pass(x, vpc, full_scale, mask, t_frac, detrend, j0, n_est, step, pol0, mode,
                m0, inv_s, lo, hi, thr, transient_rms, bad_fraction,
                spsi, cnt, sdpsi, emit_e, emit_bad, tally):  # pragma: no cover - compiled
@@ -329,7 +345,7 @@ def _sum_sq_capped(r, cap):  # pragma: no cover - compiled
 
 
 # ---------------------------------------------------------------------------- linear sum
-@nb.njit(cache=True)
+@nb.njit(cache=True, nogil=True)
 def mean_pass(x, vpc, full_scale, t_frac, detrend, j0, n_est, pol0, spsi, tally):  # pragma: no cover
     """sum_k e_k of estimates j0 .. j0+n_est-1 of a chunk, added to spsi (M,).
 
@@ -344,20 +360,16 @@ def mean_pass(x, vpc, full_scale, t_frac, detrend, j0, n_est, pol0, spsi, tally)
     clipped = False
     for j in range(nrow):
         r = x[j]
-        s, lo, hi = _row_stats(r)
-        mu[j] = s * vpc / m
-        nonfinite |= not np.isfinite(mu[j])
-        clipped |= _clipped(lo, full_scale) or _clipped(hi, full_scale)
         # weight of window j in sum_k e_k: p_j (1 [k=j] + 2 [k=j-1] + 1 [k=j-2]) / 4
         a = 0
         for d, w in ((0, 1), (1, 2), (2, 1)):
             if j0 <= j - d < j0 + n_est:
                 a += w
-        if a == 0:
-            continue
         c = (0.25 * a) * (pol0 if j % 2 == 0 else -pol0)
-        for i in range(m):
-            acc[i] += c * np.float64(r[i])
+        s, lo, hi = _row_stats(r) if a == 0 else _row_stats_acc(r, c, acc)
+        mu[j] = s * vpc / m
+        nonfinite |= not np.isfinite(mu[j])
+        clipped |= _clipped(lo, full_scale) or _clipped(hi, full_scale)
     if nonfinite:
         tally[5] = 1
         return True

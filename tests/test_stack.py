@@ -393,3 +393,17 @@ def test_nan_in_recording_names_file_and_sample(tmp_path):
     for est in ("mean", "huber"):
         with pytest.raises(TemInputError, match=r"bad\.npy.*samples: NaN or infinite value at sample 300"):
             stack_source(RecordingSource(rec, 0, 16, 40), StackSettings(estimator=est))
+
+
+def test_threads_give_identical_results():
+    # every batch has its own accumulators, so threads only change the order of batches
+    rng = np.random.default_rng(13)
+    x = _nasty_counts(120, 32, rng).astype(np.float64)
+    for est in ("mean", "huber"):
+        a = stack_windows(x, settings=StackSettings(estimator=est, n_batches=6))
+        b = stack_windows(x, settings=StackSettings(estimator=est, n_batches=6, threads=2))
+        np.testing.assert_array_equal(a.value, b.value)
+        np.testing.assert_array_equal(a.influence, b.influence)
+        assert a.counts == b.counts
+    with pytest.raises(TemInputError, match="threads"):
+        StackSettings(threads=0)
