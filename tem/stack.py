@@ -31,6 +31,7 @@ Kernels take arrays and return new objects; reading and headers are apart.
 from __future__ import annotations
 
 import math
+import mmap
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -213,6 +214,22 @@ def _npy_layout(rec):
     return out
 
 
+def _map_rows(path, dtype, start: int, count: int):
+    """Read-only map of ``count`` items of ``dtype`` at byte ``start`` of ``path`` (no copy).
+
+    Pages are faulted in by one call where the system allows it (MAP_POPULATE,
+    Linux); the map is released when the returned array is dropped.
+    """
+    if not hasattr(mmap, "MAP_SHARED"):      # no POSIX mmap flags (Windows)
+        return np.memmap(path, dtype=dtype, mode="r", offset=start, shape=(count,))
+    base = start - start % mmap.ALLOCATIONGRANULARITY
+    flags = mmap.MAP_SHARED | getattr(mmap, "MAP_POPULATE", 0)
+    with open(path, "rb") as fh:
+        mm = mmap.mmap(fh.fileno(), start - base + count * dtype.itemsize, flags=flags,
+                       prot=mmap.PROT_READ, offset=base)
+    return np.frombuffer(mm, dtype=dtype, count=count, offset=start - base)
+
+
 class RecordingSource(WindowSource):
     """Windows cut from a :class:`tem.io.raw.Recording` at sample ``first`` (int).
 
@@ -237,9 +254,8 @@ class RecordingSource(WindowSource):
         z = a + (k1 - k0) * self.m
         for first, n, path, dtype, offset in self._layout or ():
             if first <= a and z <= first + n:
-                mm = np.memmap(path, dtype=dtype, mode="r",
-                               offset=offset + (a - first) * dtype.itemsize, shape=(z - a,))
-                return mm.reshape(k1 - k0, self.m), self._vpc, self._fs, None
+                x = _map_rows(path, dtype, offset + (a - first) * dtype.itemsize, z - a)
+                return x.reshape(k1 - k0, self.m), self._vpc, self._fs, None
         c = self._counts(k0, k1)
         if not (c.dtype.isnative and c.dtype.kind in "if"):
             c = c.astype(np.float64)
