@@ -229,9 +229,11 @@ def stage_report(survey, project, params, ctx) -> StageResult:
         sections.append((p, f"Apparent-resistivity pseudo-section, {comp}"))
     sections = [(p, c) for p, c in sections if _png(p)]
     model_figs = [(p, "1D models with +-1 std band and DOI") for p in [figs / "models.png"] if _png(p)]
-    captions = {"decay": "gated decay (error bars; crosses below the noise)",
-                "rhoa": "apparent resistivity", "fit": "data, model response, normalised "
-                "residuals; model with DOI and uncertainty band", "raw": "raw period vs stack"}
+    captions = {"raw": "first raw period against the stack",
+                "decay": "gated decay (error bars; crosses below the noise)",
+                "rhoa": "apparent resistivity",
+                "fit": "data, model response, normalised residuals; model with DOI and "
+                       "uncertainty band"}
     station_figs, info = {}, {}
     stations = ctx.state.get("stations", {})
     for st in survey.stations:
