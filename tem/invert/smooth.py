@@ -208,42 +208,57 @@ def _sumsq(A):
     return float(np.sum(A * A))
 
 
-def _mu_search(chi2_of_mu, mu_grid, target):
-    """Pick ``mu`` on a grid (true misfit), refining by bisection in log mu.
+def _mu_search(chi2_true, chi2_lin, mu_grid, target, chi2_now):
+    """Pick ``mu``: screen a fine grid with the linearised misfit, then confirm
+    with the true (nonlinear) misfit at a few values.
 
-    Returns (mu, chi2, model) of the largest mu with chi2 <= target, or of the
-    least misfit when no grid point reaches the target.
+    The candidate is the largest mu whose linearised misfit reaches ``target``
+    (else the mu of least linearised misfit). If its true misfit reaches the
+    target, larger mu (smoother models) are tried while they still do; if it
+    does not, smaller mu are tried while the true misfit improves.
+    Returns (mu, chi2, model).
     """
-    evals = [chi2_of_mu(mu) for mu in mu_grid]
-    chis = np.array([e[0] for e in evals])
-    ok = np.flatnonzero(chis <= target)
-    if ok.size:
-        k = int(ok.max())
-        best = (mu_grid[k], chis[k], evals[k][1])
-        if k + 1 < len(mu_grid):  # bisect between a passing and a failing mu
-            lo, hi = np.log(mu_grid[k]), np.log(mu_grid[k + 1])
-            for _ in range(3):
-                mid = 0.5 * (lo + hi)
-                c, m = chi2_of_mu(np.exp(mid))
-                if c <= target:
-                    lo, best = mid, (np.exp(mid), c, m)
-                else:
-                    hi = mid
-        return best
-    k = int(np.argmin(chis))
-    best = (mu_grid[k], chis[k], evals[k][1])
-    # one golden-type refinement on each side of the minimum
-    for j in (k - 1, k + 1):
-        if 0 <= j < len(mu_grid):
-            mu = np.sqrt(mu_grid[k] * mu_grid[j])
-            c, m = chi2_of_mu(mu)
-            if c < best[1]:
-                best = (mu, c, m)
+    lin = np.array([chi2_lin(mu) for mu in mu_grid])
+    ok = np.flatnonzero(lin <= target)
+    k = int(ok.max()) if ok.size else int(np.argmin(lin))
+    mu_c = float(mu_grid[k])
+    c, m = chi2_true(mu_c)
+    best = (mu_c, c, m)
+    f = np.sqrt(10.0)
+    if c <= target:
+        fail = None
+        for _ in range(3):
+            mu_t = best[0] * f
+            c2, m2 = chi2_true(mu_t)
+            if c2 > target:
+                fail = mu_t
+                break
+            best = (mu_t, c2, m2)
+        if fail is not None:      # one bisection in log mu towards the target
+            mu_t = np.sqrt(best[0] * fail)
+            c2, m2 = chi2_true(mu_t)
+            if c2 <= target:
+                best = (mu_t, c2, m2)
+    else:
+        for _ in range(4):
+            mu_t = best[0] / f
+            c2, m2 = chi2_true(mu_t)
+            if c2 >= best[1]:
+                break
+            best = (mu_t, c2, m2)
+            if c2 <= target:
+                break
+        if best[1] >= chi2_now and k + 1 < len(mu_grid):
+            # the rough end overshoots: try smoother steps than the candidate
+            for mu_t in (mu_c * f, mu_c * 10.0):
+                c2, m2 = chi2_true(mu_t)
+                if c2 < best[1]:
+                    best = (mu_t, c2, m2)
     return best
 
 
 def occam(fwd, d_obs, std, m0, R=None, *, predict=None, m_ref=None, ref_weight=0.0,
-          target=1.0, max_iter=20, mu0=None, decades=3.0, per_decade=1.0,
+          target=1.0, max_iter=20, mu0=None, decades=3.0, per_decade=4.0,
           bounds=(LN_RHO_MIN, LN_RHO_MAX), tol=0.01, misfit_drop=0.3,
           callback=None) -> OccamResult:
     """Occam inversion (Constable, Parker & Constable 1987).
@@ -270,7 +285,9 @@ def occam(fwd, d_obs, std, m0, R=None, *, predict=None, m_ref=None, ref_weight=0
     mu0 : float, optional
         Centre of the first mu search; default ``trace(Jw^T Jw) / trace(R^T R)``.
     decades, per_decade : float
-        The mu grid at each step spans ``mu_prev * 10**(+-decades)``.
+        The mu grid screened (with the linearised misfit) at each step spans
+        ``mu_prev * 10**(+-decades)``; the true misfit is then evaluated at a
+        few mu only (forward predictions dominate the cost).
     bounds : (float, float)
         Numerical guard on ln(rho); models are clipped into it.
     tol : float
@@ -329,20 +346,32 @@ def occam(fwd, d_obs, std, m0, R=None, *, predict=None, m_ref=None, ref_weight=0
                 cache[key] = (c, mt)
             return cache[key]
 
+        def chi2_lin(mu_try, _rhat=rhat, _Jw=Jw):
+            mt = np.clip(solve_regularised(_Jw, _rhat, R, mu_try, m_ref, ref_weight), *bounds)
+            r = _Jw @ mt - _rhat
+            return float(r @ r) / r.size
+
         n = int(round(2 * decades * per_decade)) + 1
         grid = mu * np.logspace(-decades, decades, n)
         step_target = max(target, misfit_drop * chi2)
-        mu_new, chi2_new, m_new = _mu_search(chi2_of_mu, grid, step_target)
+        mu_new, chi2_new, m_new = _mu_search(chi2_of_mu, chi2_lin, grid, step_target, chi2)
 
         if chi2_new > chi2 * (1 - 1e-6) and chi2 > target:
-            # No grid mu improves the misfit: try shorter steps towards the best model.
-            for frac in (0.5, 0.25, 0.1):
-                mt = m + frac * (m_new - m)
-                c = chi2_per_datum(d_obs, predict(mt), std)
-                if c < chi2:
-                    m_new, chi2_new = mt, c
+            # No mu improves the misfit with a full or half step: line search along
+            # rougher directions (small mu approaches the Gauss-Newton direction of
+            # chi2 alone, a descent direction for it).
+            found = False
+            for mu_t in (mu_new, mu_new * 1e-2, grid[0] * 1e-3):
+                mt_full = np.clip(solve_regularised(Jw, rhat, R, mu_t, m_ref, ref_weight), *bounds)
+                for frac in (0.25, 0.1, 0.03):
+                    mt = m + frac * (mt_full - m)
+                    c = chi2_per_datum(d_obs, predict(mt), std)
+                    if c < chi2:
+                        m_new, chi2_new, mu_new, found = mt, c, mu_t, True
+                        break
+                if found:
                     break
-            else:
+            if not found:
                 message = "misfit cannot be reduced further; target not reached"
                 history.append(dict(iteration=it, chi2=chi2, mu=mu, roughness=float(np.sum((R @ m) ** 2))))
                 break

@@ -12,7 +12,7 @@ import numpy as np
 
 from .doi import cumulative_sensitivity_doi, two_reference_doi
 from .fewlayer import FewLayerResult, Prior, fewlayer_inversion, starting_models
-from .smooth import best_halfspace, diffusion_depth, log_mesh, occam, roughness_matrix
+from .smooth import best_halfspace, chi2_per_datum, diffusion_depth, log_mesh, occam, roughness_matrix
 
 __all__ = ["InversionSettings", "StationResult", "mesh_for", "smooth_station", "invert_station",
            "smooth_posterior_std"]
@@ -32,6 +32,9 @@ class InversionSettings:
         earliest and latest usable gate (0.02 and 0.3; chosen here so that
         a 20 m top layer and a 5-10 km deep target fit one 30-layer mesh;
         no source).
+    offset_factor : float
+        The mesh reaches at least this many transmitter-receiver offsets
+        (1.5; rule of thumb, no source).
     depth_min, depth_max : float or None, m
         Explicit mesh limits (override the factors).
     target : float
@@ -57,6 +60,7 @@ class InversionSettings:
     n_layers: int = 30
     depth_min_factor: float = 0.02
     depth_max_factor: float = 0.3
+    offset_factor: float = 1.5
     depth_min: float | None = None
     depth_max: float | None = None
     target: float = 1.0
@@ -109,12 +113,42 @@ class StationResult:
     history: list = field(default_factory=list)
 
 
+def source_offset(sd):
+    """Largest distance (m) from the transmitter to any receiver of the station."""
+    src = getattr(sd.sim, "source", None)
+    if src is None:
+        return 0.0
+    out = 0.0
+    for rx in getattr(sd.sim, "receivers", []):
+        p = np.asarray(rx.position, float)
+        try:
+            dist = src.distance_to(p) if hasattr(src, "distance_to") else src.segments.distance_to(p)
+        except (AttributeError, ValueError):
+            continue
+        out = max(out, float(dist))
+    return out
+
+
+def mesh_depths(rho_hs, t_min, t_max, offset, settings: InversionSettings):
+    """(first-layer thickness, top of the mesh half-space) in m.
+
+    ``depth_min_factor * delta(t_min)`` and the larger of
+    ``depth_max_factor * delta(t_max)`` and ``offset_factor * offset``, where
+    delta is the diffusion depth of the best half-space: a conductive
+    half-space (the target seen at late time) would otherwise give a mesh
+    shallower than the structure above the target (the offset term is a rule of
+    thumb for grounded-wire soundings, common practice, no source).
+    """
+    zmin = settings.depth_min or settings.depth_min_factor * diffusion_depth(rho_hs, t_min)
+    zmax = settings.depth_max or max(settings.depth_max_factor * diffusion_depth(rho_hs, t_max),
+                                     settings.offset_factor * offset)
+    return zmin, max(zmax, 3 * zmin * settings.n_layers)
+
+
 def mesh_for(sd, rho_hs, settings: InversionSettings):
     """Layer thicknesses (m) of the smooth mesh for this station's data."""
     t = sd.gate_centre[np.unique(np.nonzero(sd.mask)[1])]
-    zmin = settings.depth_min or settings.depth_min_factor * diffusion_depth(rho_hs, t.min())
-    zmax = settings.depth_max or settings.depth_max_factor * diffusion_depth(rho_hs, t.max())
-    zmax = max(zmax, 3 * zmin * settings.n_layers)
+    zmin, zmax = mesh_depths(rho_hs, t.min(), t.max(), source_offset(sd), settings)
     return log_mesh(settings.n_layers, zmin, zmax)
 
 
@@ -125,6 +159,36 @@ def _problem(sd, h):
     def predict(m):
         return sd.predict(np.exp(m), h)
     return fwd, predict
+
+
+def asinh_problem(fwd, predict, d_obs, std):
+    """The same problem in transformed data ``T(d) = asinh(d / s)``.
+
+    For ``|d| >> s`` this is ``sign(d) ln(2|d|/s)``, i.e. the logarithm of the
+    decay, which makes the response far more linear in ln(rho) over the many
+    decades a transient spans; near zero it stays linear, so sign changes are
+    allowed. Errors map to first order, ``s_T = s / sqrt(s^2 + d_obs^2)``, so
+    the transformed chi-square equals the linear one to first order in the
+    residuals (common practice for data spanning decades, no source). Returns
+    (fwd_T, predict_T, d_obs_T, std_T).
+    """
+    s = np.asarray(std, float)
+    d_obs = np.asarray(d_obs, float)
+
+    def fwd_t(m):
+        d, J = fwd(m)
+        return np.arcsinh(d / s), J / np.sqrt(s * s + d * d)[:, None]
+
+    def predict_t(m):
+        return np.arcsinh(predict(m) / s)
+
+    return fwd_t, predict_t, np.arcsinh(d_obs / s), s / np.sqrt(s * s + d_obs * d_obs)
+
+
+def _to_linear(d_t, J_t, std):
+    """Back from the asinh domain: predicted data and Jacobian."""
+    d = std * np.sinh(d_t)
+    return d, J_t * np.sqrt(std * std + d * d)[:, None]
 
 
 def smooth_posterior_std(J, std, R, mu):
@@ -157,13 +221,30 @@ def smooth_station(sd, settings: InversionSettings, h=None, m_ref_value=None, re
     if h is None:
         h = mesh_for(sd, rho_hs, settings)
     M = h.size + 1
-    fwd, predict = _problem(sd, h)
     ref = settings.ref_resistivity if m_ref_value is None else m_ref_value
     w_ref = settings.ref_weight if ref_weight is None else ref_weight
     m_ref = np.full(M, np.log(ref if ref is not None else rho_hs))
-    res = occam(fwd, sd.d_obs, sd.std, np.full(M, np.log(rho_hs)), roughness_matrix(M),
-                predict=predict, m_ref=m_ref, ref_weight=w_ref, target=settings.target,
-                max_iter=settings.max_iter, callback=callback)
+    kw = dict(m_ref=m_ref, ref_weight=w_ref, target=settings.target, max_iter=settings.max_iter,
+              callback=callback)
+    lin_fwd, lin_predict = _problem(sd, h)
+    # 1) asinh (log-like) data: usually converges in a few steps
+    fwd, predict, d_t, s_t = asinh_problem(lin_fwd, lin_predict, sd.d_obs, sd.std)
+    res = occam(fwd, d_t, s_t, np.full(M, np.log(rho_hs)), roughness_matrix(M), predict=predict, **kw)
+    res.d_pred, res.J = _to_linear(res.d_pred, res.J, sd.std)
+    res.chi2 = chi2_per_datum(sd.d_obs, res.d_pred, sd.std)
+    if res.chi2 > 1.2 * settings.target:
+        # 2) target missed: continue on the linear data from that model, keep the better
+        res2 = occam(lin_fwd, sd.d_obs, sd.std, res.m, roughness_matrix(M), predict=lin_predict,
+                     mu0=res.mu, **kw)
+        if res2.chi2 < res.chi2:
+            res2.history = res.history + res2.history
+            res = res2
+    if res.chi2 > 1.2 * settings.target:
+        # 3) still missed: linear data from the half-space (another path), keep the better
+        res3 = occam(lin_fwd, sd.d_obs, sd.std, np.full(M, np.log(rho_hs)), roughness_matrix(M),
+                     predict=lin_predict, **kw)
+        if res3.chi2 < res.chi2:
+            res = res3
     return res, h, rho_hs
 
 
@@ -261,15 +342,17 @@ def lci_profile(sds, settings: InversionSettings = InversionSettings(), lateral_
     rho_med = float(np.exp(np.median(np.log(rho_hs))))
     tmin = min(s.gate_centre[np.unique(np.nonzero(s.mask)[1])].min() for s in sds)
     tmax = max(s.gate_centre[np.unique(np.nonzero(s.mask)[1])].max() for s in sds)
-    zmin = settings.depth_min or settings.depth_min_factor * diffusion_depth(rho_med, tmin)
-    zmax = settings.depth_max or settings.depth_max_factor * diffusion_depth(rho_med, tmax)
-    h = log_mesh(settings.n_layers, zmin, max(zmax, 3 * zmin * settings.n_layers))
+    offset = float(np.median([source_offset(s) for s in sds]))
+    h = log_mesh(settings.n_layers, *mesh_depths(rho_med, tmin, tmax, offset, settings))
     M = h.size + 1
-    problems = [_problem(sd, h) for sd in sds]
+    problems = [asinh_problem(*_problem(sd, h), sd.d_obs, sd.std) for sd in sds]
     m0 = np.array([np.full(M, np.log(r)) for r in rho_hs])
-    res = lci([p[0] for p in problems], [s.d_obs for s in sds], [s.std for s in sds], m0,
+    res = lci([p[0] for p in problems], [p[2] for p in problems], [p[3] for p in problems], m0,
               positions=pos, lateral_weight=lateral_weight, predicts=[p[1] for p in problems],
               target=settings.target, max_iter=settings.max_iter, callback=callback)
+    for s, sd in enumerate(sds):
+        res.d_pred[s], res.J[s] = _to_linear(res.d_pred[s], res.J[s], sd.std)
+        res.chi2_station[s] = chi2_per_datum(sd.d_obs, res.d_pred[s], sd.std)
     thr = 0.8 if settings.doi_threshold is None else settings.doi_threshold
     R = roughness_matrix(M)
     out = []
