@@ -206,23 +206,27 @@ def test_run_end_to_end(tmp_path, capsys):
     _check_section(proj, models)
     _check_report(proj)
 
-    # --from invert: earlier stages' files untouched, later ones rewritten with new parameters
+    # --from invert with new parameters and the laterally constrained inversion exported:
+    # earlier stages' files untouched, later ones rewritten
     early = _mtimes(proj, ["stacked", "gated", "rhoa"])
     late = _mtimes(proj, ["models", "exports"])
     stack_record = state["stages"]["stack"]
     status = main(["run", str(survey), "--out", str(proj), "--from", "invert", "--jobs", "1",
-                   "--no-progress", "--set", "invert.layers=10"])
+                   "--no-progress", "--lci", "--set", "invert.layers=10",
+                   "--set", "export.models=lci"])
     assert status == 1                          # the corrupt station still has no model
     assert _mtimes(proj, ["stacked", "gated", "rhoa"]) == early
     assert all(p.stat().st_mtime_ns > t for p, t in late.items())
     state2 = json.loads((proj / "run.json").read_text())
     assert state2["stages"]["stack"] == stack_record
     assert state2["stages"]["invert"]["parameters"]["layers"] == 10
-    with xr.open_dataset(proj / "models" / "models.nc", engine="h5netcdf") as ds:
-        models = ds.load()
-    assert models.sizes["layer"] == 10
-    _check_las(proj, models)
+    with xr.open_dataset(proj / "models" / "models_lci.nc", engine="h5netcdf") as ds:
+        lci = ds.load()
+    assert lci.attrs["model_kind"] == "lci" and lci.sizes["layer"] == 10
+    _check_las(proj, lci)                       # the exports now hold the LCI models
+    _check_segy(proj, lci)
     _check_report(proj)
+    assert "figures/section_lci.png" in (proj / "report.html").read_text()
 
 
 def test_bad_processing_table(tmp_path, capsys):

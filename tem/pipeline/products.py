@@ -16,11 +16,21 @@ from ..errors import input_error
 from ..provenance import file_sha256, records_from_json, stage_record
 from .project import StageResult
 
-__all__ = ["stage_section", "stage_export", "stage_report", "profile_kwargs", "section_grid"]
+__all__ = ["stage_section", "stage_export", "stage_report", "profile_kwargs", "section_grid",
+           "prune"]
 
 
 def _inputs(paths):
     return [{"file": str(p), "sha256": file_sha256(p)} for p in paths if Path(p).is_file()]
+
+
+def prune(folder, patterns, keep):
+    """Remove files in ``folder`` matching ``patterns`` that are not in ``keep`` (stale products)."""
+    keep = {Path(k).resolve() for k in keep}
+    for pattern in patterns:
+        for p in Path(folder).glob(pattern):
+            if p.is_file() and p.resolve() not in keep:
+                p.unlink()
 
 
 def _need(path, stage):
@@ -129,6 +139,8 @@ def stage_section(survey, project, params, ctx) -> StageResult:
     res.inputs += _inputs(project.station_file("rhoa", s) for s in rhoa_ok)
     for files in _pseudo_sections(project, params, ctx.params["rhoa"], rhoa_ok, formats):
         res.outputs += [str(p) for p in files]
+    prune(figs, ["section*.*", "models.*", "pseudosection_*.*"], res.outputs)
+    prune(project.folder("sections"), ["section*.nc"], res.outputs)
     return res
 
 
@@ -201,6 +213,7 @@ def stage_export(survey, project, params, ctx) -> StageResult:
                 "provenance": records_from_json(models.attrs.get("provenance")) + [record]}
     written.append(write_text_atomic(out / "export.json",
                                      json.dumps(manifest, indent=1, sort_keys=True) + "\n"))
+    prune(out, ["*.csv", "*.sgy", "las/*.las"], written)
     n_las = sum(1 for p in written if Path(p).suffix == ".las")
     return StageResult(outputs=[str(p) for p in written], inputs=record["inputs"],
                        notes=[f"exports: {len(written)} files ({n_las} LAS; "

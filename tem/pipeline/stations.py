@@ -215,10 +215,12 @@ def stage_invert(survey, project, params, ctx) -> StageResult:
     for oc in res.stations.values():
         oc.payload = None
     res.inputs = [i for oc in res.stations.values() for i in oc.inputs]
+    folder = project.folder("models")
     if not results:
+        from .products import prune
+        prune(folder, ["models*.nc", "*.csv"], [])   # no stale models for later stages
         res.failed = "no station could be inverted"
         return res
-    folder = project.folder("models")
     record = stage_record("invert", params)
     record["inputs"] = res.inputs
     epsg = int(survey.epsg or 0)
@@ -228,6 +230,8 @@ def stage_invert(survey, project, params, ctx) -> StageResult:
                     str(write_fit_csv(results, folder / "fit.csv"))]
     if params["lci"]:
         res.outputs += _lci(results, project, params, settings, floors, record, epsg, res)
+    from .products import prune
+    prune(folder, ["models*.nc", "*.csv"], res.outputs)
     return res
 
 
