@@ -13,8 +13,8 @@ Method (docs/stacking.md; weights from REFERENCE.md section 6):
    offset plus linear drift cancels exactly. The mean of all e_k is the
    sliding stack with window weights p_j [1, 3, 4, ..., 4, 3, 1] / (4 (n-2)).
 4. Robust location of the e_k per sample: one-step M-estimates from a robust
-   start (Bickel 1975, JASA 70, 428-434): start m0 = median of batch
-   medians, scale s0 = median of batch MADs; then m = m0 + s0 sum(psi(r)) /
+   start (Bickel 1975, JASA 70, 428-434): start m0 = median, scale s0 =
+   MAD of a pooled sample spread over the record; then m = m0 + s0 sum(psi(r)) /
    sum(psi'(r)), r = (e - m0) / s0. psi: identity (mean), Huber clip
    (Huber 1964), winsorising at the alpha-quantiles (trimmed mean) or sign
    (median, psi' from a density estimate).
@@ -26,7 +26,10 @@ Method (docs/stacking.md; weights from REFERENCE.md section 6):
    correlation; the U_b are stored so that any linear combination of samples
    (a gate) gets its error the same way.
 
-Kernels take arrays and return new objects; reading and headers are apart.
+Steps 1-4 run in one compiled pass per chunk of windows
+(:mod:`tem.stack_kernels`; a chunk of an ``.npy`` recording is memory-mapped,
+not copied). The numpy helpers here (:func:`combine_three`, :func:`_detrend`)
+state the same steps plainly. Reading and headers are apart.
 """
 from __future__ import annotations
 
@@ -201,7 +204,7 @@ def _npy_layout(rec):
     for p in parts:
         try:
             arr = np.load(p.path, mmap_mode="r", allow_pickle=False)
-        except (OSError, ValueError):
+        except (OSError, ValueError, EOFError):
             return None
         ok = (isinstance(arr, np.memmap) and arr.ndim == 1 and arr.shape[0] == p.n_samples
               and arr.dtype.isnative and arr.dtype.kind in "if")
