@@ -37,6 +37,7 @@ __all__ = [
     "fewlayer_inversion",
     "block_smooth_model",
     "starting_models",
+    "gradient_blocks",
 ]
 
 KINDS = ("resistivity", "thickness", "depth")
@@ -386,19 +387,52 @@ def starting_models(m_smooth, thickness, n_layers, max_depth=None):
 
     1. optimal segmentation of the smooth model into ``n_layers`` blocks
        (:func:`block_smooth_model`);
-    2. the first mesh layer kept as a thin top layer over an optimal
-       segmentation of the rest into ``n_layers - 1`` blocks (smooth models
-       blur a thin near-surface layer into the one below, so the
-       segmentation alone rarely isolates it).
+    2. interfaces at the largest steps of ln(rho) (:func:`gradient_blocks`);
+    3. and 4. the first mesh layer kept as a thin top layer over 1. or 2. of the
+       rest with ``n_layers - 1`` blocks (smooth models blur a thin
+       near-surface layer into the one below, so neither rule isolates it).
     Duplicates are dropped.
     """
     m = np.asarray(m_smooth, float)
     h = np.asarray(thickness, float)
-    out = [block_smooth_model(m, h, n_layers, max_depth)]
+    cands = [block_smooth_model(m, h, n_layers, max_depth),
+             gradient_blocks(m, h, n_layers, max_depth)]
     if n_layers >= 3 and m.size > n_layers:
-        rho_r, h_r = block_smooth_model(m[1:], h[1:], n_layers - 1,
-                                        None if max_depth is None else max_depth - h[0])
-        cand = (np.concatenate([[np.exp(m[0])], rho_r]), np.concatenate([[h[0]], h_r]))
-        if not any(c[1].shape == cand[1].shape and np.allclose(c[1], cand[1]) for c in out):
-            out.append(cand)
+        sub = None if max_depth is None else max_depth - h[0]
+        for fn in (block_smooth_model, gradient_blocks):
+            rho_r, h_r = fn(m[1:], h[1:], n_layers - 1, sub)
+            cands.append((np.concatenate([[np.exp(m[0])], rho_r]), np.concatenate([[h[0]], h_r])))
+    out = []
+    for c in cands:
+        if not any(o[1].shape == c[1].shape and np.allclose(o[1], c[1]) for o in out):
+            out.append(c)
     return out
+
+
+def gradient_blocks(m_smooth, thickness, n_layers, max_depth=None):
+    """Few-layer model with interfaces at the largest ln(rho) steps of a smooth model.
+
+    The ``n_layers - 1`` largest jumps between neighbouring mesh layers above
+    ``max_depth`` (no two on adjacent interfaces) become interfaces; block
+    resistivities are the geometric means of their mesh layers.
+    """
+    m = np.asarray(m_smooth, float)
+    h = np.asarray(thickness, float)
+    ztop = np.concatenate([[0.0], np.cumsum(h)])
+    cand = np.arange(1, m.size)
+    jumps = np.abs(np.diff(m))
+    if max_depth is not None:
+        keep = ztop[cand] <= max_depth
+        cand, jumps = cand[keep], jumps[keep]
+    chosen = []
+    for idx in np.argsort(-jumps):
+        k = int(cand[idx])
+        if all(abs(k - c) > 1 for c in chosen):
+            chosen.append(k)
+        if len(chosen) == n_layers - 1:
+            break
+    if len(chosen) < n_layers - 1:
+        return block_smooth_model(m, h, n_layers, max_depth)
+    edges = [0] + sorted(chosen) + [m.size]
+    rho = np.array([np.exp(np.mean(m[a:b])) for a, b in zip(edges[:-1], edges[1:])])
+    return rho, np.diff(np.concatenate([[0.0], ztop[edges[1:-1]]]))

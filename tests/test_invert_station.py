@@ -1,0 +1,104 @@
+"""Station inversion on synthetic Emberline Plateau data (tem.forward as the engine).
+
+Sources beside each check:
+* chi-square per datum, target 1: REFERENCE.md 5 (Constable, Parker & Constable 1987, Occam).
+* linearised posterior std from (J^T W J)^-1: Marquardt 1963 / Gauss-Markov (REFERENCE.md 5).
+* DOI from cumulative sensitivity: Christiansen & Auken 2012 (threshold from memory, UNVERIFIED).
+* tolerances 25 % / 10 % / 2 sigma / chi2 <= 1.2: the acceptance criteria of the inversion issue
+  (common practice, no source).
+"""
+import numpy as np
+import pytest
+
+from tem.errors import TemInputError
+from tem.invert.data import station_data, station_data_from_arrays
+from tem.invert.smooth import best_halfspace, occam
+from tem.invert.station import InversionSettings, invert_station, mesh_for, _problem
+from tem.invert.synthetic import (basalt_thickness, emberline_gates, emberline_model,
+                                  emberline_simulation, emberline_station, gated_dataset)
+
+X = 1500.0
+GATES = emberline_gates(24, 1e-3, 1.0)
+CENTRE = np.sqrt(GATES[0] * GATES[1])
+
+
+@pytest.fixture(scope="module")
+def emberline_result():
+    v, e, sim, model = emberline_station(X, noise=0.03, seed=0, gates=GATES)
+    sd = station_data_from_arrays(sim, v, e, ["ex", "dbzdt"], x=X, gate_centre=CENTRE)
+    return invert_station(sd, InversionSettings(few_layers=4)), model
+
+
+def test_emberline_fewlayer_recovers_sediment_target(emberline_result):
+    res, model = emberline_result
+    f = res.few
+    true_rho, true_top = 8.0, 20.0 + basalt_thickness(X)
+    # sediment = the most conductive layer of the few-layer model
+    k = int(np.argmin(f["resistivity"]))
+    assert abs(f["resistivity"][k] / true_rho - 1) < 0.25
+    assert abs(f["depth_top"][k] / true_top - 1) < 0.10
+    assert f["chi2"] < 1.5
+    # true values inside 2 posterior std for the well-resolved parameters
+    # (std of the ln parameter < 0.4, i.e. better than a factor 1.5; common practice, no source)
+    true_p = np.log(np.concatenate([model.resistivity, model.thickness]))
+    est_p = np.log(np.concatenate([f["resistivity"], f["thickness"]]))
+    well = (f["ln_std"] > 0) & (f["ln_std"] < 0.4)
+    assert well[k] and well[4 + k - 1]          # sediment resistivity and basalt thickness
+    assert np.all(np.abs(est_p[well] - true_p[well]) <= 2 * f["ln_std"][well])
+    assert abs(f["depth_top"][k] - true_top) <= 2 * f["depth_std"][k]
+
+
+def test_emberline_smooth_reaches_target_and_sees_conductor(emberline_result):
+    res, _ = emberline_result
+    assert res.chi2 <= 1.2
+    assert res.thickness.size == 29                 # 30 layers incl. half-space
+    ztop = np.concatenate([[0.0], np.cumsum(res.thickness)])
+    k = int(np.argmin(res.resistivity[:-1]))
+    z_conductor = ztop[k] + 0.5 * res.thickness[k]
+    assert res.resistivity[k] < 20.0                 # the 8 ohm-m sediments show as a conductor
+    assert z_conductor < res.doi
+    # posterior band widens below the DOI (less information there)
+    below = ztop >= res.doi
+    assert np.median(res.log10_res_std[below]) > np.median(res.log10_res_std[~below])
+
+
+def test_noise_free_halfspace_recovered_within_one_percent():
+    sim = emberline_simulation(X, gates=emberline_gates(10, 2e-3, 0.5))
+    from tem.forward import LayeredModel
+    d = sim.predict(LayeredModel.halfspace(100.0))
+    g = emberline_gates(10, 2e-3, 0.5)
+    sd = station_data_from_arrays(sim, d, 0.03 * np.abs(d), ["ex", "dbzdt"], x=X,
+                                  gate_centre=np.sqrt(g[0] * g[1]))
+    rho, c = best_halfspace(lambda x: sd.predict(np.array([np.exp(x)]), np.array([])), sd.d_obs, sd.std)
+    assert rho == pytest.approx(100.0, rel=0.01)
+    h = mesh_for(sd, rho, InversionSettings())
+    fwd, pred = _problem(sd, h)
+    r = occam(fwd, sd.d_obs, sd.std, np.full(h.size + 1, np.log(10.0)), predict=pred)
+    assert np.exp(r.m) == pytest.approx(np.full(h.size + 1, 100.0), rel=0.01)
+
+
+def _gated(**kw):
+    gates = emberline_gates(6, 2e-3, 0.5)
+    v = np.ones((2, 6)) * 1e-9
+    args = dict(station="B", x=X, y=0.0, value=v, error=0.03 * v, components=["ex", "dbzdt"],
+                gates=gates)
+    args.update(kw)
+    return gated_dataset(**args)
+
+
+def test_bad_input_is_reported_clearly():
+    with pytest.raises(TemInputError, match="f.nc: usable: no usable gates"):
+        station_data(_gated(usable=np.zeros((2, 6), bool)), file="f.nc")
+    with pytest.raises(TemInputError, match="error: all standard errors"):
+        station_data(_gated(error=np.zeros((2, 6))), file="f.nc")
+    ds = _gated()
+    ds.attrs["tx_points"] = np.array([-750.0, 800.0, 750.0])
+    with pytest.raises(TemInputError, match="tx_points"):
+        station_data(ds, file="f.nc")
+    ds = _gated(x=0.0, y=800.0)          # receiver on the wire
+    with pytest.raises(TemInputError, match="within 1 m of the transmitter"):
+        station_data(ds, file="f.nc")
+    ds = _gated()
+    ds["rx_x1"].values[1] = X + 5.0      # coil with two ends
+    with pytest.raises(TemInputError, match="coil"):
+        station_data(ds, file="f.nc")
