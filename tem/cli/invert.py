@@ -138,7 +138,7 @@ def run(args) -> int:
                 prog.update(task, advance=0.5, description=f"read {Path(f).name}")
             if len(sds) < 2:
                 for fl in failures:
-                    console.print(f"[red]failed[/] {fl.message}")
+                    console.print(f"[red]failed[/] {fl.message}", soft_wrap=True)
                 raise input_error("inputs", "laterally constrained inversion needs two or more usable stations")
 
             def cb(rec):
@@ -153,7 +153,7 @@ def run(args) -> int:
             results, fails = invert_files(files, settings, floors, workers=args.workers, progress=progress)
             failures += fails
     for fl in failures:
-        console.print(f"[red]station failed:[/] {fl.message}")
+        console.print(f"[red]station failed:[/] {fl.message}", soft_wrap=True)
     if not results:
         console.print("[red]no station could be inverted[/]")
         return 1

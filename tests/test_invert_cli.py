@@ -1,0 +1,62 @@
+"""tem invert end to end, in-process: gated files in; models, CSV and figures out;
+a bad station is reported and the others still inverted (exit status 1).
+
+Checks are on the product contract (docs/data-model.md) and on chi-square per
+datum near its target (REFERENCE.md 5); tolerances are common practice, no source.
+"""
+import csv
+
+import numpy as np
+import pytest
+
+from tem.cli import main
+from tem.invert.synthetic import emberline_gates, emberline_station, gated_dataset
+from tem.io.models import read_models
+
+
+@pytest.fixture(scope="module")
+def gated_folder(tmp_path_factory):
+    folder = tmp_path_factory.mktemp("gated")
+    gates = emberline_gates(10, 2e-3, 0.8)
+    for i, x in enumerate([500.0, 2500.0]):
+        v, e, _, _ = emberline_station(x, noise=0.03, seed=10 + i, gates=gates)
+        gated_dataset(f"E{i}", x, 0.0, v, e, ["ex", "dbzdt"], gates).to_netcdf(
+            folder / f"E{i}.nc", engine="h5netcdf")
+    bad = gated_dataset("BAD", 3500.0, 0.0, v, np.zeros_like(e), ["ex", "dbzdt"], gates)
+    bad.to_netcdf(folder / "BAD.nc", engine="h5netcdf")
+    return folder
+
+
+def test_invert_command_few_layer_with_a_bad_station(gated_folder, tmp_path, capsys):
+    out = tmp_path / "inv"
+    rc = main(["invert", str(gated_folder), "-o", str(out), "--kind", "few-layer", "--few-layers", "4",
+               "--layers", "30", "--workers", "2"])
+    err = " ".join(capsys.readouterr().err.split())
+    assert rc == 1                                    # one station failed
+    assert "BAD.nc: error: all standard errors of usable gates are zero" in err
+    ds = read_models(out / "models.nc")
+    assert ds.attrs["model_kind"] == "few-layer"
+    assert list(ds["station"].values) == ["E0", "E1"]
+    assert np.all(np.isfinite(ds["doi"].values))
+    assert np.all(ds["chi2"].values < 2.0)            # near the target of 1 for 3 % noise
+    assert np.all(np.isfinite(ds["log10_res_std"].values[:, :4]))
+    smooth = read_models(out / "models_smooth.nc")
+    assert smooth.sizes["layer"] == 30
+    assert (out / "figures" / "E0.png").stat().st_size > 10_000
+    with open(out / "fit.csv", encoding="utf-8") as fh:
+        rows = list(csv.DictReader(fh))
+    assert {r["station"] for r in rows} == {"E0", "E1"} and len(rows) == 40
+    assert (out / "models.csv").is_file()
+
+
+def test_invert_command_rejects_missing_input(tmp_path, capsys):
+    rc = main(["invert", str(tmp_path / "nothing"), "-o", str(tmp_path / "o")])
+    assert rc == 2
+    assert "no such file or folder" in capsys.readouterr().err
+
+
+def test_invert_command_rejects_bad_prior(gated_folder, tmp_path, capsys):
+    rc = main(["invert", str(gated_folder), "-o", str(tmp_path / "o"), "--kind", "few-layer",
+               "--prior", "porosity:1=3"])
+    assert rc == 2
+    assert "--prior" in capsys.readouterr().err
