@@ -86,7 +86,9 @@ def station_figure(result, kind="smooth", true_model=None):
     ax_r.set_ylim(-lim, lim)
 
     top = np.concatenate([[0.0], np.cumsum(result.thickness)])
-    z_max = max(1.3 * result.doi, top[-1] if top.size > 1 else 1.0) if np.isfinite(result.doi) else top[-1]
+    z_max = 1.6 * result.doi if (np.isfinite(result.doi) and result.doi > 0) else max(top[-1], 1.0)
+    if result.few is not None:
+        z_max = max(z_max, 1.2 * float(result.few["depth_top"][-1]))
     v, z = _steps(top, result.resistivity, z_max)
     sd = np.repeat(result.log10_res_std, 2)
     ax_m.fill_betweenx(z, v / 10 ** sd, v * 10 ** sd, color="#f5b041", alpha=0.35,
