@@ -243,6 +243,10 @@ def run_pipeline(survey_file, project_dir, from_stage=None, overrides=(), jobs=1
                 result = STAGE_FUNCTIONS[stage](survey, project, params[stage], ctx)
             finally:
                 _write_run(project, state)
+            for sid, oc in result.stations.items():
+                if oc.status != "ok":
+                    prog.console.print(f"[red]{stage}: station {sid} failed[/]: {oc.message}",
+                                       highlight=False)
             if stage in STATION_STAGES:
                 ok = [sid for sid, oc in result.stations.items() if oc.status == "ok"]
                 _prune_station_files(project, stage, ok, survey, params["report"]["station_figures"])
