@@ -24,11 +24,19 @@ def atomic_path(target, suffix=None):
     tmp = Path(tmp)
     try:
         yield tmp
+        # mkstemp makes the file private (0600); products get the usual umask mode
+        os.chmod(tmp, 0o666 & ~_umask())
         os.replace(tmp, target)
     except BaseException:
         with contextlib.suppress(FileNotFoundError):
             tmp.unlink()
         raise
+
+
+def _umask() -> int:
+    mask = os.umask(0)
+    os.umask(mask)
+    return mask
 
 
 def write_text_atomic(target, text: str) -> Path:
