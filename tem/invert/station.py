@@ -161,34 +161,55 @@ def _problem(sd, h):
     return fwd, predict
 
 
-def asinh_problem(fwd, predict, d_obs, std):
+def sign_consistent(sd):
+    """Per datum: True where the datum's channel keeps one sign over all its gates."""
+    out = np.zeros(sd.d_obs.size, bool)
+    for ch in np.unique(sd.channel):
+        sel = sd.channel == ch
+        v = sd.d_obs[sel]
+        out[sel] = bool(np.all(v > 0) or np.all(v < 0))
+    return out
+
+
+def asinh_problem(fwd, predict, d_obs, std, where=None):
     """The same problem in transformed data ``T(d) = asinh(d / s)``.
 
     For ``|d| >> s`` this is ``sign(d) ln(2|d|/s)``, i.e. the logarithm of the
     decay, which makes the response far more linear in ln(rho) over the many
-    decades a transient spans; near zero it stays linear, so sign changes are
-    allowed. Errors map to first order, ``s_T = s / sqrt(s^2 + d_obs^2)``, so
-    the transformed chi-square equals the linear one to first order in the
-    residuals (common practice for data spanning decades, no source). Returns
+    decades a transient spans. Errors map to first order,
+    ``s_T = s / sqrt(s^2 + d_obs^2)``, so the transformed chi-square equals the
+    linear one to first order in the residuals (common practice for data
+    spanning decades, no source). A channel whose data change sign is left
+    linear (``where`` False): in the asinh domain a wrong-sign prediction sits
+    behind a steep barrier that linearised steps cannot cross. Returns
     (fwd_T, predict_T, d_obs_T, std_T).
     """
     s = np.asarray(std, float)
     d_obs = np.asarray(d_obs, float)
+    w = np.ones(d_obs.size, bool) if where is None else np.asarray(where, bool)
+    sc = np.where(w, s, 1.0)
+
+    def tr(d):
+        return np.where(w, np.arcsinh(d / sc), d)
 
     def fwd_t(m):
         d, J = fwd(m)
-        return np.arcsinh(d / s), J / np.sqrt(s * s + d * d)[:, None]
+        g = np.where(w, 1.0 / np.sqrt(sc * sc + d * d), 1.0)
+        return tr(d), J * g[:, None]
 
     def predict_t(m):
-        return np.arcsinh(predict(m) / s)
+        return tr(predict(m))
 
-    return fwd_t, predict_t, np.arcsinh(d_obs / s), s / np.sqrt(s * s + d_obs * d_obs)
+    s_t = np.where(w, s / np.sqrt(sc * sc + d_obs * d_obs), s)
+    return fwd_t, predict_t, tr(d_obs), s_t
 
 
-def _to_linear(d_t, J_t, std):
+def _to_linear(d_t, J_t, std, where=None):
     """Back from the asinh domain: predicted data and Jacobian."""
-    d = std * np.sinh(d_t)
-    return d, J_t * np.sqrt(std * std + d * d)[:, None]
+    w = np.ones(d_t.size, bool) if where is None else np.asarray(where, bool)
+    d = np.where(w, std * np.sinh(np.where(w, d_t, 0.0)), d_t)
+    g = np.where(w, np.sqrt(std * std + d * d), 1.0)
+    return d, J_t * g[:, None]
 
 
 def smooth_posterior_std(J, std, R, mu):
@@ -228,9 +249,10 @@ def smooth_station(sd, settings: InversionSettings, h=None, m_ref_value=None, re
               callback=callback)
     lin_fwd, lin_predict = _problem(sd, h)
     # 1) asinh (log-like) data: usually converges in a few steps
-    fwd, predict, d_t, s_t = asinh_problem(lin_fwd, lin_predict, sd.d_obs, sd.std)
+    where = sign_consistent(sd)
+    fwd, predict, d_t, s_t = asinh_problem(lin_fwd, lin_predict, sd.d_obs, sd.std, where)
     res = occam(fwd, d_t, s_t, np.full(M, np.log(rho_hs)), roughness_matrix(M), predict=predict, **kw)
-    res.d_pred, res.J = _to_linear(res.d_pred, res.J, sd.std)
+    res.d_pred, res.J = _to_linear(res.d_pred, res.J, sd.std, where)
     res.chi2 = chi2_per_datum(sd.d_obs, res.d_pred, sd.std)
     if res.chi2 > 1.2 * settings.target:
         # 2) target missed: continue on the linear data from that model, keep the better
@@ -319,13 +341,31 @@ def profile_positions(x, y):
     return s - s.min()
 
 
+def lci_mesh(sds, settings: InversionSettings = InversionSettings()):
+    """Shared mesh of a profile: (thickness (M-1,), best half-space per station)."""
+    rho_hs = []
+    for sd in sds:
+        rho_hs.append(best_halfspace(lambda x, sd=sd: sd.predict(np.array([np.exp(x)]), np.array([])),
+                                     sd.d_obs, sd.std)[0])
+    rho_med = float(np.exp(np.median(np.log(rho_hs))))
+    tmin = min(s.gate_centre[np.unique(np.nonzero(s.mask)[1])].min() for s in sds)
+    tmax = max(s.gate_centre[np.unique(np.nonzero(s.mask)[1])].max() for s in sds)
+    offset = float(np.median([source_offset(s) for s in sds]))
+    return log_mesh(settings.n_layers, *mesh_depths(rho_med, tmin, tmax, offset, settings)), rho_hs
+
+
 def lci_profile(sds, settings: InversionSettings = InversionSettings(), lateral_weight=1.0,
-                callback=None):
+                callback=None, m0=None, mesh=None):
     """Laterally constrained smooth inversion of a profile of stations.
 
     Stations are ordered along the profile (principal direction of their
     coordinates); all share one mesh built from the median best half-space.
-    Returns a list of :class:`StationResult` in profile order.
+    The joint inversion starts from independent smooth inversions of every
+    station on that mesh (or from ``m0``, ln ohm-m, shape (S, M), in the
+    given station order, with ``mesh`` its thicknesses): starting where each
+    station already fits keeps the joint linearisation valid (common
+    practice, no source). Returns a list of :class:`StationResult` in profile
+    order.
     """
     from .lci import lci
 
@@ -335,24 +375,18 @@ def lci_profile(sds, settings: InversionSettings = InversionSettings(), lateral_
     order = np.argsort(pos, kind="stable")
     sds = [sds[i] for i in order]
     pos = pos[order]
-    rho_hs = []
-    for sd in sds:
-        rho_hs.append(best_halfspace(lambda x, sd=sd: sd.predict(np.array([np.exp(x)]), np.array([])),
-                                     sd.d_obs, sd.std)[0])
-    rho_med = float(np.exp(np.median(np.log(rho_hs))))
-    tmin = min(s.gate_centre[np.unique(np.nonzero(s.mask)[1])].min() for s in sds)
-    tmax = max(s.gate_centre[np.unique(np.nonzero(s.mask)[1])].max() for s in sds)
-    offset = float(np.median([source_offset(s) for s in sds]))
-    h = log_mesh(settings.n_layers, *mesh_depths(rho_med, tmin, tmax, offset, settings))
+    if m0 is None or mesh is None:
+        h, rho_hs = lci_mesh(sds, settings)
+        m0 = np.array([smooth_station(sd, settings, h=h)[0].m for sd in sds])
+    else:
+        h = np.asarray(mesh, float)
+        m0 = np.asarray(m0, float)[order]
+        rho_hs = [float(np.exp(np.mean(m))) for m in m0]
     M = h.size + 1
-    problems = [asinh_problem(*_problem(sd, h), sd.d_obs, sd.std) for sd in sds]
-    m0 = np.array([np.full(M, np.log(r)) for r in rho_hs])
-    res = lci([p[0] for p in problems], [p[2] for p in problems], [p[3] for p in problems], m0,
+    problems = [_problem(sd, h) for sd in sds]
+    res = lci([p[0] for p in problems], [sd.d_obs for sd in sds], [sd.std for sd in sds], m0,
               positions=pos, lateral_weight=lateral_weight, predicts=[p[1] for p in problems],
               target=settings.target, max_iter=settings.max_iter, callback=callback)
-    for s, sd in enumerate(sds):
-        res.d_pred[s], res.J[s] = _to_linear(res.d_pred[s], res.J[s], sd.std)
-        res.chi2_station[s] = chi2_per_datum(sd.d_obs, res.d_pred[s], sd.std)
     thr = 0.8 if settings.doi_threshold is None else settings.doi_threshold
     R = roughness_matrix(M)
     out = []
@@ -368,4 +402,4 @@ def lci_profile(sds, settings: InversionSettings = InversionSettings(), lateral_
     return out
 
 
-__all__ += ["profile_positions", "lci_profile"]
+__all__ += ["profile_positions", "lci_profile", "lci_mesh", "sign_consistent", "asinh_problem"]
