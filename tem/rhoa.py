@@ -695,7 +695,9 @@ def halfspace_match(rho_grid, table, value, error=None, slope_table=None, peak_t
     n_gates = shape[-1]
     chosen = np.full(v.size, -1)
     for start in range(0, v.size, n_gates):
-        chosen[start:start + n_gates] = choose_branches(roots[start:start + n_gates])
+        # gates with signal-to-noise below 2 do not steer the branch choice
+        weak = ~(np.abs(v[start:start + n_gates]) > 2.0 * np.abs(e[start:start + n_gates]))
+        chosen[start:start + n_gates] = choose_branches(roots[start:start + n_gates], weak)
     rho = np.full(v.size, np.nan)
     slope = np.full(v.size, np.nan)
     for k, c in enumerate(chosen):
@@ -711,28 +713,37 @@ def halfspace_match(rho_grid, table, value, error=None, slope_table=None, peak_t
     return AllTimeResult(*out)
 
 
-def choose_branches(roots):
+def choose_branches(roots, weak=None):
     """Pick one root per gate: the path with the least total |change of ln rho|.
 
     A Viterbi pass over the gates that have roots (gates without roots are
     skipped, so they do not break the path). Choosing the smoothest curve is
     common practice, no source; on a half-space it follows the true branch
     because the spurious root moves with time while the true one does not.
+    Gates marked ``weak`` (e.g. signal-to-noise below 2) take no part in the
+    path, so a noise-dominated late gate with a single spurious root cannot
+    pull the whole curve onto the wrong branch; each of them then takes the
+    root nearest to the chosen value at the nearest gate on the path.
 
     Parameters
     ----------
     roots : sequence of 1-D arrays
         ln(rho) roots per gate, in gate order.
+    weak : array_like of bool, optional
+        Gates that follow the path instead of steering it.
 
     Returns
     -------
     ndarray of int
         Index of the chosen root per gate, -1 where the gate has no root.
     """
-    idx = [i for i, r in enumerate(roots) if len(r)]
-    chosen = np.full(len(roots), -1)
-    if not idx:
+    n = len(roots)
+    weak = np.zeros(n, bool) if weak is None else np.asarray(weak, bool)
+    has = [i for i, r in enumerate(roots) if len(r)]
+    chosen = np.full(n, -1)
+    if not has:
         return chosen
+    idx = [i for i in has if not weak[i]] or has
     cost = np.zeros(len(roots[idx[0]]))
     back = []
     for prev, cur in zip(idx[:-1], idx[1:]):
@@ -744,6 +755,11 @@ def choose_branches(roots):
     for pos in range(len(idx) - 1, 0, -1):
         c = int(back[pos - 1][c])
         chosen[idx[pos - 1]] = c
+    on_path = np.array(idx)
+    for i in has:
+        if chosen[i] < 0:
+            j = on_path[np.argmin(np.abs(on_path - i))]
+            chosen[i] = int(np.argmin(np.abs(np.asarray(roots[i]) - roots[j][chosen[j]])))
     return chosen
 
 

@@ -57,7 +57,7 @@ def sounding_figure(ds, channels=None, title=None, panel_width=3.4, height=6.4):
         ax = axes[0, j]
         pos = v > 0
         xerr = np.vstack([t - t_lo, t_hi - t])
-        for sel, face, lab in ((pos, "C0", "positive"), (~pos & np.isfinite(v), "white", "negative")):
+        for sel, face, lab in ((pos, "C0", "positive"), (v < 0, "white", "negative")):
             if sel.any():
                 ax.errorbar(t[sel], np.abs(v[sel]), yerr=np.minimum(e[sel], 0.999 * np.abs(v[sel])),
                             xerr=xerr[:, sel], fmt="o", ms=4, mfc=face, mec="C0", ecolor="0.5",
@@ -65,11 +65,9 @@ def sounding_figure(ds, channels=None, title=None, panel_width=3.4, height=6.4):
         bad = ~usable & np.isfinite(v) & (v != 0)
         if bad.any():
             ax.plot(t[bad], np.abs(v[bad]), "x", color="C3", ms=7, label="unusable")
-        ax.set_xscale("log")
-        ax.set_yscale("log")
+        _log_axes_or_note(ax, np.isfinite(v) & (v != 0), "no data (dead or empty channel)")
         ax.set_title(f"ch {c}: {comp}", fontsize=9)
         ax.set_ylabel(f"|{comp}| ({UNITS.get(comp, '')})")
-        ax.legend(fontsize=7, loc="lower left")
         ax.grid(True, which="major", lw=0.4, alpha=0.5)
 
         ax = axes[1, j]
@@ -98,15 +96,24 @@ def sounding_figure(ds, channels=None, title=None, panel_width=3.4, height=6.4):
             y0 = np.nanmin(rho[ok])
             ax.plot(t[no_root], np.full(no_root.sum(), y0), "v", color="C3", ms=5,
                     label="not converted")
-        ax.set_xscale("log")
-        ax.set_yscale("log")
+        _log_axes_or_note(ax, ok | np.isfinite(late), "no gate converted")
         ax.set_xlabel("time after switch-off (s)")
         ax.set_ylabel("apparent resistivity (ohm-m)")
-        ax.legend(fontsize=7, loc="best")
         ax.grid(True, which="major", lw=0.4, alpha=0.5)
     station = ds.attrs.get("station", "")
     fig.suptitle(title or f"station {station}")
     return fig
+
+
+def _log_axes_or_note(ax, has_data, note):
+    """Log-log axes with a legend when something was drawn; otherwise say why the panel is empty."""
+    if np.any(has_data):
+        ax.set_xscale("log")
+        ax.set_yscale("log")
+        if ax.get_legend_handles_labels()[0]:
+            ax.legend(fontsize=7, loc="best")
+    else:
+        ax.text(0.5, 0.5, note, transform=ax.transAxes, ha="center", va="center", fontsize=9)
 
 
 def pseudo_section(stations, x, y, times, rhoa, depths=None, axis_kind="time", n_columns=200,

@@ -489,3 +489,22 @@ def test_cli_rhoa_writes_table_files_and_figures(tmp_path):
     # bad command-line input: exit 2
     assert main(["rhoa", str(tmp_path / "nothing"), "--out", str(out)]) == 2
     assert main(["rhoa", str(gated), "--out", str(out), "--rho-range", "10", "1"]) == 2
+
+
+def test_noise_dominated_gates_do_not_steer_the_branch():
+    """A late gate below signal-to-noise 2 with only the spurious (1/t) root must not drag
+    the whole curve onto that branch (common practice, no source: noisy gates follow)."""
+    t = np.geomspace(5e-3, 0.8, 12)
+    true = np.log(np.interp(np.log(t), np.log(t[[0, 6, 11]]), [800.0, 30.0, 70.0]))
+    spurious = np.log(30.0 * (t[0] / t))            # runs as 1/t
+    roots = [np.sort([a, b]) for a, b in zip(true, spurious)]
+    roots[-1] = np.array([spurious[-1]])            # the last, noisy gate has one root
+    weak = np.zeros(t.size, bool)
+    weak[-1] = True
+    chosen = R.choose_branches(roots, weak)
+    picked = np.array([r[c] for r, c in zip(roots, chosen)])
+    np.testing.assert_allclose(picked[:-1], true[:-1])
+    # without the weak flag the single late root wins and the path is wrong
+    chosen_all = R.choose_branches(roots)
+    picked_all = np.array([r[c] for r, c in zip(roots, chosen_all)])
+    assert not np.allclose(picked_all[:-1], true[:-1])
