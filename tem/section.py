@@ -18,11 +18,15 @@ same way, and every sample deeper than the local DOI is flagged.
 """
 from __future__ import annotations
 
+import csv
+from pathlib import Path
+
 import numpy as np
 
 from .errors import input_error
 
 __all__ = [
+    "read_line_csv",
     "station_line",
     "polyline_chainage",
     "points_at_chainage",
@@ -530,3 +534,27 @@ def twt_to_depth(twt, table_depth, table_velocity):
     t = np.asarray(twt, float)
     k = np.clip(np.searchsorted(t0, t, side="right") - 1, 0, z0.size - 1)
     return z0[k] + 0.5 * (t - t0[k]) * v[k]
+
+
+def read_line_csv(path):
+    """Polyline vertices from a CSV with columns ``x``, ``y`` (m)."""
+    path = Path(path)
+    if not path.is_file():
+        raise input_error("line", "file not found", path)
+    with open(path, newline="", encoding="utf-8") as fh:
+        reader = csv.DictReader(ln for ln in fh if ln.strip() and not ln.startswith("#"))
+        fields = [f.strip() for f in reader.fieldnames or []]
+        for need in ("x", "y"):
+            if need not in fields:
+                raise input_error(need, "column missing", path)
+        xs, ys = [], []
+        for k, row in enumerate(reader, start=2):
+            row = {(key or "").strip(): v for key, v in row.items()}
+            try:
+                xs.append(float(row["x"]))
+                ys.append(float(row["y"]))
+            except (TypeError, ValueError):
+                raise input_error("x", f"line {k}: not a number", path) from None
+    if len(xs) < 2:
+        raise input_error("line", "a polyline needs at least two vertices", path)
+    return np.array(xs), np.array(ys)

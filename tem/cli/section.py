@@ -7,6 +7,7 @@ from pathlib import Path
 import numpy as np
 
 from ..errors import input_error
+from ..section import read_line_csv  # noqa: F401  (re-exported for callers)
 
 HELP = "stitch 1D models along the profile: section grid, figures, QC report"
 
@@ -31,30 +32,6 @@ def add_profile_options(p):
     g.add_argument("--vertical", choices=("depth", "elevation"), default="depth",
                    help="vertical axis: depth below surface, or elevation (default depth)")
     return g
-
-
-def read_line_csv(path):
-    """Polyline vertices from a CSV with columns ``x``, ``y`` (m)."""
-    path = Path(path)
-    if not path.is_file():
-        raise input_error("line", "file not found", path)
-    with open(path, newline="", encoding="utf-8") as fh:
-        reader = csv.DictReader(ln for ln in fh if ln.strip() and not ln.startswith("#"))
-        fields = [f.strip() for f in reader.fieldnames or []]
-        for need in ("x", "y"):
-            if need not in fields:
-                raise input_error(need, "column missing", path)
-        xs, ys = [], []
-        for k, row in enumerate(reader, start=2):
-            row = {(key or "").strip(): v for key, v in row.items()}
-            try:
-                xs.append(float(row["x"]))
-                ys.append(float(row["y"]))
-            except (TypeError, ValueError):
-                raise input_error("x", f"line {k}: not a number", path) from None
-    if len(xs) < 2:
-        raise input_error("line", "a polyline needs at least two vertices", path)
-    return np.array(xs), np.array(ys)
 
 
 def profile_kwargs(args):

@@ -46,7 +46,7 @@ def profile_kwargs(models, sp):
     kw = {"order": sp["order"], "lateral": sp["lateral"], "max_gap": sp["max_gap"],
           "vertical": sp["vertical"], "max_depth": sp["max_depth"]}
     if sp["line"]:
-        from ..cli.section import read_line_csv
+        from ..section import read_line_csv
         kw["line"] = read_line_csv(sp["line"])
     if sp["trace_spacing"]:
         x, y = models["x"].values, models["y"].values
