@@ -7,7 +7,7 @@ from pathlib import Path
 import numpy as np
 
 from ..errors import input_error
-from ..section import read_line_csv  # noqa: F401  (re-exported for callers)
+from ..section import read_line_csv
 
 HELP = "stitch 1D models along the profile: section grid, figures, QC report"
 
