@@ -384,9 +384,15 @@ def lci_profile(sds, settings: InversionSettings = InversionSettings(), lateral_
         rho_hs = [float(np.exp(np.mean(m))) for m in m0]
     M = h.size + 1
     problems = [_problem(sd, h) for sd in sds]
+    # joint target: the requested one, or the misfit the independent models reach if that is
+    # higher (then the LCI is the smoothest profile fitting as well as the stitched models)
+    d_all = np.concatenate([sd.d_obs for sd in sds])
+    s_all = np.concatenate([sd.std for sd in sds])
+    p_all = np.concatenate([p[1](m) for p, m in zip(problems, m0)])
+    target = max(settings.target, chi2_per_datum(d_all, p_all, s_all))
     res = lci([p[0] for p in problems], [sd.d_obs for sd in sds], [sd.std for sd in sds], m0,
               positions=pos, lateral_weight=lateral_weight, predicts=[p[1] for p in problems],
-              target=settings.target, max_iter=settings.max_iter, callback=callback)
+              target=target, max_iter=settings.max_iter, callback=callback)
     thr = 0.8 if settings.doi_threshold is None else settings.doi_threshold
     R = roughness_matrix(M)
     out = []
