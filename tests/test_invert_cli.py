@@ -60,3 +60,17 @@ def test_invert_command_rejects_bad_prior(gated_folder, tmp_path, capsys):
                "--prior", "porosity:1=3"])
     assert rc == 2
     assert "--prior" in capsys.readouterr().err
+
+
+def test_invert_command_lci(gated_folder, tmp_path, capsys):
+    out = tmp_path / "lci"
+    rc = main(["invert", str(gated_folder), "-o", str(out), "--kind", "lci", "--no-figures"])
+    err = " ".join(capsys.readouterr().err.split())
+    assert rc == 1 and "BAD.nc" in err                # reported, the rest inverted jointly
+    ds = read_models(out / "models.nc")
+    assert ds.attrs["model_kind"] == "lci"
+    assert list(ds["station"].values) == ["E0", "E1"]     # profile order (west to east)
+    assert ds.sizes["layer"] == 30
+    # one shared mesh for the profile
+    assert np.allclose(ds["thickness"].values[0], ds["thickness"].values[1], equal_nan=True)
+    assert np.all(ds["chi2"].values < 2.0)

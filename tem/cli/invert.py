@@ -33,7 +33,8 @@ def add_parser(subparsers):
                    help="relative error floor: '0.03' or per component 'ex=0.05,dbzdt=0.03' (default 0.03)")
     p.add_argument("--target", type=float, default=1.0, help="target chi-square per datum (default 1)")
     p.add_argument("--ref-resistivity", type=float, default=None, help="reference model (ohm-m)")
-    p.add_argument("--ref-weight", type=float, default=0.0, help="reference-model weight (default 0)")
+    p.add_argument("--ref-weight", type=float, default=0.01,
+                   help="reference-model weight relative to the roughness (default 0.01; 0 = off)")
     p.add_argument("--doi", choices=("sensitivity", "two-reference"), default="sensitivity")
     p.add_argument("--doi-threshold", type=float, default=None,
                    help="cumulative-sensitivity threshold (0.8) or two-reference cut-off (0.2)")

@@ -45,6 +45,9 @@ class InversionSettings:
         Reference model (uniform); None = the best half-space.
     ref_weight : float
         Weight of ``||m - m_ref||^2`` relative to the roughness (0 = off).
+        Default 0.01: a weak pull towards the reference keeps layers the
+        data barely see from running away to extreme values (seen on
+        Emberline stations without it; common practice, no source).
     doi_method : {"sensitivity", "two-reference"}
     doi_threshold : float
         Cumulative-sensitivity threshold (0.8, from memory) or the
@@ -66,7 +69,7 @@ class InversionSettings:
     target: float = 1.0
     max_iter: int = 20
     ref_resistivity: float | None = None
-    ref_weight: float = 0.0
+    ref_weight: float = 0.01
     doi_method: str = "sensitivity"
     doi_threshold: float | None = None
     few_layers: int | None = None
