@@ -41,7 +41,7 @@ def wire_response(thickness, resistivity, a, b, receivers, component, t, srcpts=
     return sign * out.T
 
 
-def polygon_loop_response(thickness, resistivity, vertices, receivers, component, t, srcpts=21):
+def polygon_loop_response(thickness, resistivity, vertices, receivers, component, t, srcpts=11):
     """Step-off of a closed polygon loop (ours, current along vertex order), sum of wires."""
     v = np.asarray(vertices, float)
     total = 0.0
