@@ -38,3 +38,15 @@ def test_two_reference_index():
     assert R == pytest.approx([0.0, 0.0, np.log(4.0) / np.log(10.0), 1.0])
     # R crosses 0.2 between centres of layers 1 (150 m, R=0) and 2 (250 m, R=0.602)
     assert doi == pytest.approx(150.0 + 100.0 * 0.2 / (np.log(4.0) / np.log(10.0)))
+
+
+def test_two_reference_ignores_unresolved_surface_layer():
+    # a thin, poorly resolved top layer (R = 0.5) over resolved layers: the DOI is where
+    # the reference takes over for good, not the top layer (Oldenburg & Li 1999 index)
+    h = [10.0, 100.0, 100.0]
+    R_target = np.array([0.5, 0.0, 0.5, 1.0])
+    ma = np.log(10.0) * R_target
+    doi, R = two_reference_doi(ma, np.zeros(4), np.log(10.0), 0.0, h, cutoff=0.2)
+    assert R == pytest.approx(R_target)
+    # centres 60 m (R=0) and 160 m (R=0.5): crossing at 60 + 100 * 0.2/0.5
+    assert doi == pytest.approx(100.0)

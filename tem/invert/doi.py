@@ -20,9 +20,10 @@ Two measures:
 * ``two_reference_doi``: Oldenburg & Li (1999), "Estimating depth of
   investigation in DC resistivity and IP surveys", Geophysics 64(2),
   403-416. ``R(z) = (m_A(z) - m_B(z)) / (m_A^ref - m_B^ref)`` from two
-  inversions with different reference models; the DOI is the shallowest depth
-  where ``R`` exceeds a cut-off (about 0.1-0.2, from memory, UNVERIFIED;
-  default 0.2).
+  inversions with different reference models; the DOI is the top of the
+  deepest run of layers (reaching the bottom of the model) where ``R``
+  exceeds a cut-off (about 0.1-0.2, from memory, UNVERIFIED; default 0.2), so
+  a poorly resolved thin surface layer does not end the search.
 """
 from __future__ import annotations
 
@@ -93,8 +94,9 @@ def two_reference_doi(m_a, m_b, mref_a, mref_b, thickness, cutoff=0.2):
     Returns
     -------
     doi : float, m
-        Depth to the top of the shallowest layer whose index exceeds ``cutoff``
-        (the top of the half-space if none does).
+        Depth (interpolated between layer centres) where the index rises above
+        ``cutoff`` for the last time going down (the top of the half-space if
+        the bottom layer is still below the cut-off).
     R : ndarray (M,)
         The index per layer.
     """
@@ -102,12 +104,12 @@ def two_reference_doi(m_a, m_b, mref_a, mref_b, thickness, cutoff=0.2):
     den = np.broadcast_to(np.asarray(mref_a, float) - np.asarray(mref_b, float), ma.shape)
     R = np.abs(ma - mb) / np.abs(den)
     ztop = np.concatenate([[0.0], np.cumsum(np.asarray(thickness, float))])
-    over = np.flatnonzero(R > cutoff)
-    if over.size == 0:
-        return float(ztop[-1]), R
-    j = int(over[0])
-    if j == 0:
+    under = np.flatnonzero(R <= cutoff)
+    if under.size == 0:
         return 0.0, R
+    if under[-1] == R.size - 1:
+        return float(ztop[-1]), R
+    j = int(under[-1]) + 1       # top of the run of layers, down to the bottom, above the cut-off
     # interpolate between layer centres j-1 and j
     zc = np.concatenate([ztop[:-1] + 0.5 * np.diff(ztop), [ztop[-1]]])
     r0, r1 = R[j - 1], R[j]

@@ -292,7 +292,7 @@ def invert_station(sd, settings: InversionSettings = InversionSettings(), callba
         doi = cumulative_sensitivity_doi(res.J, sd.std, h, threshold=thr)
     else:
         thr = 0.2 if settings.doi_threshold is None else settings.doi_threshold
-        wr = settings.ref_weight if settings.ref_weight > 0 else 0.01
+        wr = max(settings.ref_weight, 0.3)   # the references must govern where data do not
         ra, _, _ = smooth_station(sd, settings, h=h, m_ref_value=rho_hs * 10, ref_weight=wr)
         rb, _, _ = smooth_station(sd, settings, h=h, m_ref_value=rho_hs / 10, ref_weight=wr)
         doi, _ = two_reference_doi(ra.m, rb.m, np.log(rho_hs * 10), np.log(rho_hs / 10), h, cutoff=thr)
