@@ -14,7 +14,7 @@ from tem.errors import TemInputError
 from tem.invert.data import station_data, station_data_from_arrays
 from tem.invert.smooth import best_halfspace, occam
 from tem.invert.station import InversionSettings, invert_station, mesh_for, _problem
-from tem.invert.synthetic import (basalt_thickness, emberline_gates, emberline_model,
+from tem.invert.synthetic import (basalt_thickness, emberline_gates,
                                   emberline_simulation, emberline_station, gated_dataset)
 
 X = 1500.0

@@ -290,21 +290,21 @@ def fewlayer_inversion(layer_fwd, d_obs, std, resistivity0, thickness0, *, prior
         d, J = layer_fwd(rho, h)
         return d, J[:, fi]
 
-    prior_rows = None
-    if soft:
-        def prior_rows(q):
-            p = full(q)
-            r = np.empty(len(soft))
-            G = np.zeros((len(soft), P))
-            for i, (kind, idx, val, sig) in enumerate(soft):
-                if kind == "depth":
-                    h = np.exp(p[n + 1: n + 1 + idx])
-                    r[i] = (h.sum() - val) / sig
-                    G[i, n + 1: n + 1 + idx] = h / sig
-                else:
-                    r[i] = (p[idx] - val) / sig
-                    G[i, idx] = 1.0 / sig
-            return r, G[:, fi]
+    def _prior_rows(q):
+        p = full(q)
+        r = np.empty(len(soft))
+        G = np.zeros((len(soft), P))
+        for i, (kind, idx, val, sig) in enumerate(soft):
+            if kind == "depth":
+                h = np.exp(p[n + 1: n + 1 + idx])
+                r[i] = (h.sum() - val) / sig
+                G[i, n + 1: n + 1 + idx] = h / sig
+            else:
+                r[i] = (p[idx] - val) / sig
+                G[i, idx] = 1.0 / sig
+        return r, G[:, fi]
+
+    prior_rows = _prior_rows if soft else None
 
     lm = levenberg_marquardt(fwd, d_obs, std, p0[fi], lower=lo[fi], upper=hi[fi],
                              prior_rows=prior_rows, max_iter=max_iter, callback=callback)
