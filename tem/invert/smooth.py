@@ -234,11 +234,14 @@ def _mu_search(chi2_true, chi2_lin, mu_grid, target, chi2_now):
                 fail = mu_t
                 break
             best = (mu_t, c2, m2)
-        if fail is not None:      # one bisection in log mu towards the target
-            mu_t = np.sqrt(best[0] * fail)
+        lo = best[0]
+        for _ in range(3 if fail is not None else 0):   # bisection in log mu towards the target
+            mu_t = np.sqrt(lo * fail)
             c2, m2 = chi2_true(mu_t)
             if c2 <= target:
-                best = (mu_t, c2, m2)
+                best, lo = (mu_t, c2, m2), mu_t
+            else:
+                fail = mu_t
     else:
         for _ in range(4):
             mu_t = best[0] / f
