@@ -359,6 +359,8 @@ _TX_KEYS = {"kind", "points", "current", "base_frequency", "duty_cycle", "ramp_o
             "first_switch_off", "timing"}
 _RX_KEYS = {"component", "files", "sample_rate", "gain", "dipole", "coil_area", "format", "column"}
 _ST_KEYS = {"id", "x", "y", "z", "epsg", "receiver"}
+# Top-level tables; [processing] is read by the pipeline (tem.pipeline.params).
+_TOP_KEYS = {"survey", "transmitter", "station", "processing"}
 
 
 def _check_keys(table, allowed, where):
@@ -372,6 +374,10 @@ def _check_keys(table, allowed, where):
 
 def survey_from_dict(doc: dict, base_dir=".") -> Survey:
     """Build a :class:`Survey` from the parsed TOML document."""
+    extra = set(doc) - _TOP_KEYS
+    if extra:
+        raise input_error(sorted(extra)[0], "unknown table or key; valid: "
+                          f"{', '.join(sorted(_TOP_KEYS))}")
     head = doc.get("survey", {})
     _check_keys(head, {"name", "mains_frequency", "epsg", "lowpass_order", "lowpass_cutoff",
                        "format_version"}, "survey")
@@ -427,6 +433,13 @@ def read_survey(path) -> Survey:
             doc = tomllib.load(fh)
     except FileNotFoundError:
         raise input_error("survey", "file not found", path) from None
+    except IsADirectoryError:
+        raise input_error("survey", "is a folder; give the survey TOML file", path) from None
+    except UnicodeDecodeError:
+        raise input_error("toml", "not a text file (UTF-8 TOML expected)", path) from None
+    except OSError as exc:
+        raise input_error("survey", f"cannot read ({exc.strerror or exc.__class__.__name__})",
+                          path) from None
     except tomllib.TOMLDecodeError as exc:
         raise input_error("toml", str(exc).splitlines()[0], path) from None
     try:

@@ -49,3 +49,35 @@ def test_bad_survey_names_file_and_field(tmp_path, edit, field):
         read_survey(p)
     msg = str(exc.value)
     assert str(p) in msg and field in msg and "\n" not in msg
+
+
+@pytest.mark.parametrize("edit, field", [
+    (("[transmitter]", "[transmiter]"), "transmiter"),
+    (("[survey]", "[procesing.gate]\nper_decade = 8\n\n[survey]"), "procesing"),
+])
+def test_unknown_top_level_table_is_refused(tmp_path, edit, field):
+    # a typo'd table name must not be ignored silently (its settings would be lost)
+    sv, _ = emberline_survey(base_dir=tmp_path, stations=["EM01"])
+    p = write_survey(sv, tmp_path / "s.toml")
+    p.write_text(p.read_text().replace(*edit, 1))
+    with pytest.raises(TemInputError, match="unknown table") as exc:
+        read_survey(p)
+    assert str(p) in str(exc.value) and field in str(exc.value)
+
+
+def test_processing_table_is_accepted(tmp_path):
+    sv, _ = emberline_survey(base_dir=tmp_path, stations=["EM01"])
+    p = write_survey(sv, tmp_path / "s.toml")
+    p.write_text(p.read_text() + "\n[processing.gate]\nper_decade = 8.0\n")
+    assert read_survey(p).stations[0].id == "EM01"
+
+
+def test_folder_or_binary_survey_is_one_line_error(tmp_path):
+    with pytest.raises(TemInputError, match="survey: is a folder") as exc:
+        read_survey(tmp_path)
+    assert str(tmp_path) in str(exc.value)
+    b = tmp_path / "ex.npy"
+    b.write_bytes(b"\x93NUMPY\x01\x00v\x00{'descr': '<i4'}")
+    with pytest.raises(TemInputError, match="toml: not a text file") as exc:
+        read_survey(b)
+    assert str(b) in str(exc.value)
