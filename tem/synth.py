@@ -224,6 +224,31 @@ def _to_counts(volts, full_scale_v, vpc):
     return c.astype(np.int32), fsc
 
 
+def _check_synth_inputs(survey, models, duration, noisy_station, dead_channel):
+    """Refuse inputs that would be ignored or fail half-way, before any file is written."""
+    if not survey.stations:
+        raise input_error("stations", "survey lists no station")
+    if not (np.isfinite(duration) and duration > 0):
+        raise input_error("duration", f"must be a positive number of seconds, got {duration}")
+    ids = [st.id for st in survey.stations]
+    missing = [i for i in ids if i not in models]
+    if missing:
+        raise input_error("models", f"no layered model for station {', '.join(missing)}")
+    if noisy_station is not None and noisy_station not in ids:
+        raise input_error("noisy_station", f"no station {noisy_station!r}; valid: {', '.join(ids)}")
+    if dead_channel is not None:
+        if len(dead_channel) != 2:
+            raise input_error("dead", f"expected STATION:COMPONENT, got {dead_channel!r}")
+        sid, comp = dead_channel
+        st = next((s for s in survey.stations if s.id == sid), None)
+        if st is None:
+            raise input_error("dead", f"no station {sid!r}; valid: {', '.join(ids)}")
+        comps = [rx.component for rx in st.receivers]
+        if comp not in comps:
+            raise input_error("dead", f"station {sid} has no {comp!r} channel; valid: "
+                              f"{', '.join(comps)}")
+
+
 def synth_survey(survey: Survey, models: dict, out_dir, seed: int = 0, duration: float = 900.0,
                  noise: dict | None = None, noisy_station: str | None = None,
                  noisy_factor: float = 8.0, dead_channel: tuple | None = None,
@@ -235,14 +260,13 @@ def synth_survey(survey: Survey, models: dict, out_dir, seed: int = 0, duration:
     switch (rounded down to the second) + 30 min + 20 min per station + 1 s. Returns
     {station: {component: noise-free transient per A (M,)}} (the truth).
     """
+    _check_synth_inputs(survey, models, duration, noisy_station, dead_channel)
     tx = survey.transmitter
     noise = dict(EMBERLINE_NOISE if noise is None else noise)
     master = np.random.default_rng(seed)
     truth = {}
     for si, st in enumerate(survey.stations):
         rng = np.random.default_rng(master.integers(2**63))
-        if st.id not in models:
-            raise input_error("models", f"no layered model for station {st.id}")
         whole = tx.first_switch_off.astype("datetime64[s]").astype("datetime64[ns]")
         start = whole + np.timedelta64(int((1800 + 1200 * si + 1.0) * 1e9), "ns")
         recs = st.data_receivers

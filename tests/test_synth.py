@@ -7,6 +7,8 @@ import numpy as np
 import pytest
 
 from tem.cli import main
+from tem.cli.synth import read_models_csv
+from tem.errors import TemInputError
 from tem.forward import Simulation
 from tem.gates import gate_stacked
 from tem.io.raw import open_recording, sidecar_path
@@ -156,3 +158,55 @@ def test_cli_chain_writes_contract(tmp_path, capsys):
     assert (tmp_path / "p/gated/qc/EM06_decay.png").is_file()
     sv = read_survey(tmp_path / "survey.toml")
     assert sv.stations[0].id == "EM06"
+
+
+# ---------------------------------------------------------------- bad input to tem synth
+@pytest.mark.parametrize("kw, field", [
+    ({"duration": 0.0}, "duration"),
+    ({"duration": float("nan")}, "duration"),
+    ({"noisy_station": "EM77"}, "noisy_station"),
+    ({"dead_channel": ("EM02", "ex")}, "dead"),
+    ({"dead_channel": ("EM01", "ey")}, "dead"),
+])
+def test_synth_refuses_ignored_or_failing_options_before_writing(tmp_path, kw, field):
+    # options that used to be ignored silently (unknown station or channel) or to fail
+    # half-way with a traceback (duration <= 0) are refused before any file exists
+    sv, models = emberline_survey(base_dir=tmp_path, stations=["EM01"])
+    with pytest.raises(TemInputError, match=f"^{field}: "):
+        synth_survey(sv, models, tmp_path, duration=kw.pop("duration", 8.0), **kw)
+    assert not any(tmp_path.rglob("*.npy"))
+
+
+@pytest.mark.parametrize("rows, field", [
+    ("EM01,20,30\nEM01,abc,500\nEM01,,2000\n", "line 3"),       # was a ValueError traceback
+    ("EM01,20,30\nEM01,900,500\n", "line 3"),                   # half-space row missing: was dropped
+    ("EM01,20,30\nEM01,,500\nEM01,,2000\n", "thickness_m"),
+    ("EM01,20,nan\nEM01,,2000\n", "station EM01"),
+])
+def test_synth_models_csv_errors_name_file_and_line(tmp_path, rows, field):
+    p = tmp_path / "m.csv"
+    p.write_text("station,thickness_m,resistivity_ohmm\n" + rows)
+    with pytest.raises(TemInputError) as exc:
+        read_models_csv(p)
+    assert str(exc.value).startswith(f"{p}: {field}") and "\n" not in str(exc.value)
+
+
+def test_synth_cli_never_writes_into_the_survey_folder(tmp_path, capsys):
+    sv, _ = emberline_survey(base_dir=tmp_path, stations=["EM01"])
+    survey = write_survey(sv, tmp_path / "survey.toml")
+    before = survey.read_bytes()
+    m = tmp_path / "m.csv"
+    m.write_text("station,thickness_m,resistivity_ohmm\nEM01,20,30\nEM01,,2000\n")
+    rc = main(["synth", str(survey), "--models", str(m), "--out", str(tmp_path),
+               "--duration", "8"])
+    assert rc == 2 and "--out: must not be the survey's folder" in capsys.readouterr().err
+    assert survey.read_bytes() == before and not (tmp_path / "raw").exists()
+    # a missing model leaves no survey.toml behind in --out
+    m.write_text("station,thickness_m,resistivity_ohmm\nEM09,20,30\nEM09,,2000\n")
+    rc = main(["synth", str(survey), "--models", str(m), "--out", str(tmp_path / "o"),
+               "--duration", "8"])
+    assert rc == 2 and "station: no rows for station EM01" in capsys.readouterr().err
+    assert not (tmp_path / "o" / "survey.toml").exists()
+    rc = main(["synth", "--emberline", "--out", str(tmp_path / "e"), "--stations", "EM01",
+               "--duration", "8", "--dead", "EM01"])
+    assert rc == 2 and "--dead: expected ID:COMPONENT" in capsys.readouterr().err

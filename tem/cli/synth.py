@@ -29,29 +29,53 @@ def add_parser(sub):
 
 
 def read_models_csv(path):
+    """Layered models per station from ``station,thickness_m,resistivity_ohmm`` rows
+    (half-space last, with an empty thickness); errors name the file and the line."""
     from ..forward import LayeredModel
     path = Path(path)
     if not path.is_file():
         raise input_error("models", "file not found", path)
-    rows = {}
-    with open(path, newline="", encoding="utf-8") as fh:
-        for k, row in enumerate(csv.DictReader(ln for ln in fh if not ln.startswith("#")), start=2):
-            try:
-                sid = row["station"].strip()
-                th = row["thickness_m"].strip()
-                rho = float(row["resistivity_ohmm"])
-            except (KeyError, AttributeError, ValueError):
-                raise input_error(f"line {k}", "needs station,thickness_m,resistivity_ohmm", path) \
-                    from None
-            rows.setdefault(sid, []).append((float(th) if th else None, rho))
+    rows, last_line = {}, {}
+    try:
+        with open(path, newline="", encoding="utf-8") as fh:
+            for k, row in enumerate(csv.DictReader(ln for ln in fh if not ln.startswith("#")),
+                                    start=2):
+                try:
+                    sid = row["station"].strip()
+                    th = row["thickness_m"].strip()
+                    rows.setdefault(sid, []).append((float(th) if th else None,
+                                                     float(row["resistivity_ohmm"])))
+                except (KeyError, AttributeError, TypeError, ValueError):
+                    raise input_error(f"line {k}", "needs station,thickness_m,resistivity_ohmm "
+                                      "(numbers)", path) from None
+                last_line[sid] = k
+    except UnicodeDecodeError:
+        raise input_error("models", "not a UTF-8 text file", path) from None
+    if not rows:
+        raise input_error("models", "no layers", path)
     out = {}
     for sid, layers in rows.items():
+        if layers[-1][0] is not None:
+            raise input_error(f"line {last_line[sid]}", f"station {sid}: the last row (half-space) "
+                              "must have an empty thickness", path)
+        if any(t is None for t, _ in layers[:-1]):
+            raise input_error("thickness_m", f"station {sid}: only the last row (half-space) may "
+                              "have an empty thickness", path)
         try:
             out[sid] = LayeredModel(thickness=[t for t, _ in layers[:-1]],
                                     resistivity=[r for _, r in layers])
         except ValueError as exc:
             raise input_error(f"station {sid}", str(exc), path) from None
     return out
+
+
+def _dead_channel(text):
+    if text is None:
+        return None
+    sid, sep, comp = text.partition(":")
+    if not (sep and sid and comp):
+        raise input_error("--dead", f"expected ID:COMPONENT, got {text!r}")
+    return sid, comp
 
 
 def run(args) -> int:
@@ -61,25 +85,36 @@ def run(args) -> int:
     from ..synth import emberline_survey, synth_survey
     out = Path(args.out)
     subset = args.stations.split(",") if args.stations else None
+    dead = _dead_channel(args.dead)
     if args.emberline:
         survey, models = emberline_survey(base_dir=out, stations=subset)
-        write_survey(survey, out / "survey.toml")
     else:
         if not args.survey:
             raise input_error("survey", "give a survey TOML or --emberline")
-        survey = replace(read_survey(args.survey), base_dir=out)
+        src = read_survey(args.survey)
+        if out.resolve() == Path(args.survey).resolve().parent:
+            raise input_error("--out", "must not be the survey's folder (its recordings would be "
+                              "overwritten)", out)
+        if subset:
+            unknown = [s for s in subset if s not in {st.id for st in src.stations}]
+            if unknown:
+                raise input_error("--stations", f"no station {unknown[0]!r} in the survey",
+                                  args.survey)
+        survey = replace(src, base_dir=out)
         if subset:
             survey = replace(survey, stations=[s for s in survey.stations if s.id in subset])
         if not args.models:
             raise input_error("models", "give --models CSV (or use --emberline)")
         models = read_models_csv(args.models)
-        write_survey(survey, out / "survey.toml")
-    dead = tuple(args.dead.split(":", 1)) if args.dead else None
+        missing = [st.id for st in survey.stations if st.id not in models]
+        if missing:
+            raise input_error("station", f"no rows for station {', '.join(missing)}", args.models)
     with Progress(transient=True) as prog:
         task = prog.add_task("synth", total=len(survey.stations))
         synth_survey(survey, models, out, seed=args.seed, duration=args.duration,
                      noisy_station=args.noisy_station, dead_channel=dead,
                      progress=lambda i, n: prog.update(task, completed=i))
+    write_survey(survey, out / "survey.toml")
     print(f"wrote raw recordings of {len(survey.stations)} stations under {out}; "
           f"survey: {out / 'survey.toml'}")
     return 0
