@@ -71,9 +71,9 @@ def log_gates(times, t_min: float, t_max: float, per_decade: float = 9.0,
     check_shape(shape)
     t = np.asarray(times, float)
     dt = float(t[1] - t[0])
-    if per_decade <= 0:
+    if not (np.isfinite(per_decade) and per_decade > 0):
         raise input_error("per_decade", f"must be positive, got {per_decade}")
-    if not (t_max > t_min > 0):
+    if not (np.isfinite(t_max) and t_max > t_min > 0):
         raise input_error("t_max", f"need 0 < t_min < t_max, got {t_min}, {t_max}")
     if shape == "taper":
         min_samples = max(min_samples, 6)
@@ -180,6 +180,8 @@ def gate_stacked(stacked, per_decade: float = 9.0, shape: str = "boxcar", t_min=
     """
     from .io.stacked import gated_dataset, result_from_dataset
     from .provenance import stage_record
+    if not (np.isfinite(snr_min) and snr_min >= 0):
+        raise input_error("snr_min", f"must be zero or positive, got {snr_min}")
     times = stacked["time"].values
     lo, hi = default_range(times, float(stacked.attrs.get("off_time", 0.0)),
                            0.5 / float(stacked.attrs["base_frequency"]))

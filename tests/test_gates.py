@@ -83,3 +83,31 @@ def test_usable_flags_and_bad_tables():
         GateTable([0.2], [0.1])
     with pytest.raises(TemInputError, match="contains no sample"):
         gate_matrix(T, GateTable([1e-5], [2e-5]))
+
+
+def test_nan_per_decade_is_an_input_error():
+    # was a ValueError traceback (int(nan)) from the gate count
+    with pytest.raises(TemInputError, match="per_decade"):
+        log_gates(T, 1e-3, 0.4, float("nan"))
+    with pytest.raises(TemInputError, match="t_max"):
+        log_gates(T, 1e-3, float("nan"), 9.0)
+
+
+@pytest.mark.parametrize("opts, field", [
+    (["--per-decade", "nan"], "--per-decade"),
+    (["--per-decade", "0"], "--per-decade"),
+    (["--t-min", "0.5", "--t-max", "0.1"], "--t-max"),
+    (["--t-min", "-1"], "--t-min"),
+    (["--snr-min", "-1"], "--snr-min"),
+])
+def test_cli_bad_option_is_one_error_exit_2(tmp_path, capsys, opts, field):
+    # option errors used to be reported once per station with exit status 1
+    from tem.cli import main
+    src = tmp_path / "stacked"
+    src.mkdir()
+    for name in ("EM01.nc", "EM02.nc"):
+        (src / name).write_bytes(b"not read: options are checked first")
+    rc = main(["gate", str(src), "--out", str(tmp_path / "g")] + opts)
+    err = capsys.readouterr().err.strip().splitlines()
+    assert rc == 2 and len(err) == 1 and err[0].startswith(f"tem gate: error: {field}: ")
+    assert not (tmp_path / "g").exists()

@@ -25,6 +25,21 @@ def add_parser(sub):
     return p
 
 
+def _check_options(args):
+    """Option errors are one error (exit 2), not one failure per station."""
+    import math
+    if not (math.isfinite(args.per_decade) and args.per_decade > 0):
+        raise input_error("--per-decade", f"must be positive, got {args.per_decade}")
+    for name in ("t_min", "t_max"):
+        v = getattr(args, name)
+        if v is not None and not (math.isfinite(v) and v > 0):
+            raise input_error(f"--{name.replace('_', '-')}", f"must be positive (s), got {v}")
+    if args.t_min is not None and args.t_max is not None and not args.t_min < args.t_max:
+        raise input_error("--t-max", f"must exceed --t-min, got {args.t_min}, {args.t_max}")
+    if not (math.isfinite(args.snr_min) and args.snr_min >= 0):
+        raise input_error("--snr-min", f"must be zero or positive, got {args.snr_min}")
+
+
 def run(args) -> int:
     from rich.console import Console
 
@@ -38,6 +53,7 @@ def run(args) -> int:
     out = Path(args.out)
     if src.resolve() == out.resolve():
         raise input_error("out", "must differ from the input folder")
+    _check_options(args)
     console = Console()
     rows, failed = [], []
     for f in files:
