@@ -60,3 +60,15 @@ def test_lci_beats_independent_inversions_on_smoothly_varying_truth():
     err_j = np.sqrt(np.mean((joint.m - np.array(truths)) ** 2))
     assert joint.occam.chi2 <= 1.02
     assert err_j < err_i
+
+
+def test_pick_depth_anchors_at_the_conductor():
+    from tem.invert.lci import pick_depth
+    h = np.full(9, 100.0)                       # centres 50, 150, ..., 850; half-space at 900
+    rho = np.array([40.0, 200.0, 500.0, 500.0, 100.0, 10.0, 8.0, 50.0, 500.0, 1000.0])
+    # a conductive surface layer (40 < 63) must not be picked; the conductor's top is between
+    # centres 450 (100 ohm-m) and 550 (10 ohm-m): ln-linear crossing of 63 ohm-m
+    z = pick_depth(h, np.log(rho), 63.0, below=0.0)
+    f = (np.log(100.0) - np.log(63.0)) / (np.log(100.0) - np.log(10.0))
+    assert z == pytest.approx(450.0 + 100.0 * f)
+    assert np.isnan(pick_depth(h, np.log(np.full(10, 100.0)), 63.0))

@@ -155,30 +155,36 @@ def lci(fwds, d_obs, std, m0, *, positions=None, lateral_weight=1.0, predicts=No
                      history=res.history)
 
 
-def pick_depth(thickness, log_rho, rho_threshold, below=0.0):
-    """Depth (m) where a smooth model first drops below ``rho_threshold`` downwards.
+def pick_depth(thickness, log_rho, rho_threshold, below=0.0, max_depth=None):
+    """Depth (m) of the top of the main conductor of a smooth model.
 
-    ln(rho) is interpolated linearly in depth between layer centres (the
-    half-space is represented at its top). Only a crossing from above the
-    threshold to below it counts, and only below ``below`` m, so a conductive
-    near-surface layer does not stop the search. Used to pick the top of a
-    conductor under a resistor, e.g. with the geometric mean of the two
-    resistivities as threshold (common practice, no source). NaN if no
-    crossing.
+    The most conductive point between ``below`` and ``max_depth`` (e.g. the
+    DOI) anchors the search; from there upwards, the first depth where ln(rho)
+    rises above ``ln(rho_threshold)`` is the top of the conductor. ln(rho) is
+    interpolated linearly in depth between layer centres (the half-space is
+    represented at its top). With the geometric mean of the resistivities
+    above and in the conductor as threshold this picks the top of a conductor
+    under a resistor (common practice, no source); anchoring at the
+    conductor keeps a smeared conductive surface layer from being picked.
+    NaN if the model never reaches the threshold above the conductor.
     """
     h = np.asarray(thickness, float)
     m = np.asarray(log_rho, float)
     top = np.concatenate([[0.0], np.cumsum(h)])
     zc = np.concatenate([top[:-1] + 0.5 * h, [top[-1]]])
     lt = np.log(rho_threshold)
-    for k in range(m.size - 1):
-        if zc[k + 1] <= below:
-            continue
-        if m[k] >= lt > m[k + 1]:
-            f = (m[k] - lt) / (m[k] - m[k + 1])
-            z = zc[k] + f * (zc[k + 1] - zc[k])
-            if z >= below:
-                return float(z)
+    ok = zc >= below
+    if max_depth is not None and np.isfinite(max_depth):
+        ok &= zc <= max_depth
+    if not ok.any():
+        return float("nan")
+    k0 = int(np.flatnonzero(ok)[np.argmin(m[ok])])
+    if m[k0] >= lt:
+        return float("nan")
+    for k in range(k0, 0, -1):
+        if m[k - 1] >= lt > m[k]:
+            f = (m[k - 1] - lt) / (m[k - 1] - m[k])
+            return float(zc[k - 1] + f * (zc[k] - zc[k - 1]))
     return float("nan")
 
 

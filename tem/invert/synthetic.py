@@ -128,10 +128,11 @@ def lci_vs_stitched(xs=None, n_gates=31, noise=0.03, seed=100, lateral_weight=1.
 
     Both use one shared mesh (the LCI mesh) and the same noisy data
     (station ``i`` seeded with ``seed + i``); the LCI starts from the
-    stitched models (``time_lci`` is the joint part only). The top of the sediments is
-    picked on every smooth model where ln(rho) first falls below the
-    geometric mean of basalt and sediment resistivity (sqrt(500 * 8) = 63
-    ohm-m) below 50 m depth (:func:`tem.invert.lci.pick_depth`).
+    stitched models (``time_lci`` is the joint part only). The top of the
+    sediments is picked on every smooth model where ln(rho), going up from
+    the most conductive point between 50 m and the station's LCI DOI, rises
+    above the geometric mean of basalt and sediment resistivity
+    (sqrt(500 * 8) = 63 ohm-m) (:func:`tem.invert.lci.pick_depth`).
 
     Returns a dict: ``x``, ``true_depth``, ``pick_lci``, ``pick_stitched``,
     ``rms_lci``, ``rms_stitched`` (m, over the stations where both picks
@@ -168,8 +169,10 @@ def lci_vs_stitched(xs=None, n_gates=31, noise=0.03, seed=100, lateral_weight=1.
                        m0=np.array([r.m for r in ind]), mesh=h)
     t_lci = time.perf_counter() - t0
     true = e["top"][0] + basalt_thickness(xs)
-    p_l = np.array([pick_depth(h, np.log(r.resistivity), thr, below=50.0) for r in lres])
-    p_s = np.array([pick_depth(h, r.m, thr, below=50.0) for r in ind])
+    p_l = np.array([pick_depth(h, np.log(r.resistivity), thr, below=50.0, max_depth=r.doi)
+                    for r in lres])
+    p_s = np.array([pick_depth(h, r.m, thr, below=50.0, max_depth=d)
+                    for r, d in zip(ind, [q.doi for q in lres])])
     both = np.isfinite(p_l) & np.isfinite(p_s)
 
     def rms(p):
