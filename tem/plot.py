@@ -233,7 +233,9 @@ def model_figure(models, indices=None, max_depth=None, ncols=6, panel_width=1.8,
         rr = np.repeat(r, 2)
         ax.plot(rr, zz, color="k", lw=1.3)
         if np.isfinite(sd).any():
-            s2 = np.repeat(sd, 2)
+            # An unresolved layer can carry a std of hundreds of decades; the band
+            # is clipped far outside the axis so 10**s2 cannot overflow.
+            s2 = np.minimum(np.repeat(sd, 2), 30.0)
             ax.fill_betweenx(zz, rr / 10 ** s2, rr * 10 ** s2, color="tab:orange",
                              alpha=0.35, lw=0)
         if np.isfinite(doi[i]):

@@ -555,6 +555,9 @@ def read_line_csv(path):
                 ys.append(float(row["y"]))
             except (TypeError, ValueError):
                 raise input_error("x", f"line {k}: not a number", path) from None
+            if not (np.isfinite(xs[-1]) and np.isfinite(ys[-1])):
+                raise input_error("x" if not np.isfinite(xs[-1]) else "y",
+                                  f"line {k}: not a finite number", path)
     if len(xs) < 2:
         raise input_error("line", "a polyline needs at least two vertices", path)
     return np.array(xs), np.array(ys)

@@ -23,6 +23,7 @@ import pytest
 
 from profile_fixture import DOI, N_LAYERS, X, Y, Z, synthetic_models
 from tem.cli import main
+from tem.cli.section import read_rhoa_csv
 from tem.errors import TemInputError
 from tem.io.models import CSV_COLUMNS, read_models, write_models
 from tem.io.segy import apply_scalar, coordinate_scalar, read_velocity_table
@@ -259,3 +260,55 @@ def test_cli_bad_input_exits_2(tmp_path, capsys):
     assert main(["export", str(path), "--out", str(tmp_path / "o"), "--depth-step", "0.0005"]) == 2
     assert "--depth-step" in capsys.readouterr().err
     assert not (tmp_path / "o").exists()  # options are checked before anything is written
+
+
+def test_cli_bad_options_and_line_exit_2_before_writing(tmp_path, capsys):
+    # each of these used to write outputs (or a traceback) instead of one error line
+    path = write_models(synthetic_models(), tmp_path / "in" / "models.nc")
+    line = tmp_path / "line.csv"
+    line.write_text(f"x,y\n{X[0]},{Y[0]}\nnan,{Y[-1]}\n")
+    cases = [
+        (["section", "--vmin", "-1"], "--vmin: must be a positive"),            # was a traceback
+        (["section", "--vmin", "100", "--vmax", "10"], "--vmax: must exceed"),  # was accepted
+        (["section", "--line", str(line)], "line.csv: x: line 3: not a finite"),  # traceback
+        (["export", "--line", str(line)], "line.csv: x: line 3: not a finite"),   # NaN coordinates
+        (["export", "--las-bottom", "-3"], "--las-bottom: must be a positive"),  # empty LAS logs
+    ]
+    for (cmd, *opts), msg in cases:
+        out = tmp_path / f"o_{cmd}"
+        assert main([cmd, str(path), "--out", str(out)] + opts) == 2
+        err = capsys.readouterr().err
+        assert msg in err and err.count("\n") == 1, (opts, err)
+        assert not out.exists(), opts
+
+
+def test_section_reads_rhoa_table_of_tem_rhoa_before_writing(tmp_path, capsys):
+    # 'tem rhoa' writes t_centre_s, one row per channel and gate, empty rhoa_ohmm where
+    # not converted; 'tem section --rhoa-csv' refused that table after writing section.nc
+    path = write_models(synthetic_models(), tmp_path / "in" / "models.nc")
+    t = np.logspace(-4, -2, 8)
+    rows = ["station,channel,component,t_centre_s,usable,rhoa_ohmm"]
+    for k in range(1, 6):
+        for tt in t:
+            rows.append(f"EP-0{k},0,ex,{tt:.6g},1,{50 + k}")
+            rows.append(f"EP-0{k},1,dbzdt,{tt:.6g},1,{500 + k}")
+        rows.append(f"EP-0{k},0,ex,0.02,1,")          # not converted
+        rows.append(f"EP-0{k},0,ex,0.03,0,1e9")       # unusable gate
+    rhoa = tmp_path / "rhoa.csv"
+    rhoa.write_text("\n".join(rows) + "\n")
+    table, comp = read_rhoa_csv(rhoa)
+    assert comp == "ex" and set(table) == {f"EP-0{k}" for k in range(1, 6)}
+    np.testing.assert_allclose(table["EP-02"][0], t, rtol=1e-5)
+    np.testing.assert_array_equal(table["EP-02"][1], 52.0)
+    table, comp = read_rhoa_csv(rhoa, "dbzdt")
+    np.testing.assert_array_equal(table["EP-05"][1], 505.0)
+    assert main(["section", str(path), "--out", str(tmp_path / "s"), "--rhoa-csv", str(rhoa),
+                 "--formats", "png"]) == 0
+    assert (tmp_path / "s" / "figures" / "pseudosection.png").is_file()
+    assert main(["section", str(path), "--out", str(tmp_path / "s2"), "--rhoa-csv", str(rhoa),
+                 "--rhoa-component", "ey"]) == 2
+    assert "rhoa.csv: component: no usable apparent resistivity for 'ey'" in capsys.readouterr().err
+    rhoa.write_text("station,time_s,rhoa_ohmm\nEP-01,1e-3,10\n")
+    assert main(["section", str(path), "--out", str(tmp_path / "s3"), "--rhoa-csv", str(rhoa)]) == 2
+    assert "no apparent resistivity for EP-02" in capsys.readouterr().err
+    assert not (tmp_path / "s2").exists() and not (tmp_path / "s3").exists()

@@ -190,3 +190,26 @@ def test_section_figure_shows_doi_mask(tmp_path):
     files = save_figure(section_figure(g), tmp_path / "sec", ("png", "pdf"))
     assert [f.suffix for f in files] == [".png", ".pdf"]
     assert files[0].read_bytes()[:8] == b"\x89PNG\r\n\x1a\n" and files[1].read_bytes()[:5] == b"%PDF-"
+
+
+def test_model_figure_with_huge_std_does_not_overflow():
+    # an unresolved layer's posterior std can be hundreds of decades (seen on a 20 s
+    # Emberline recording); 10**std overflowed with a RuntimeWarning
+    import warnings
+
+    from tem.plot import model_figure
+    m = synthetic_models()
+    m["log10_res_std"].values[:, :3] = 565.0
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")
+        fig = model_figure(m)
+    titles = [ax.get_title() for ax in fig.axes]
+    assert [t for t in titles if t] == list(m["station"].values)
+
+
+def test_line_csv_refuses_non_finite_vertex(tmp_path):
+    from tem.section import read_line_csv
+    p = tmp_path / "line.csv"
+    p.write_text("x,y\n0,0\n1000,inf\n")
+    with pytest.raises(TemInputError, match=r"line\.csv: y: line 3: not a finite number"):
+        read_line_csv(p)

@@ -90,6 +90,8 @@ def run(args) -> int:
             raise input_error("--max-twt-ms", f"must be positive, got {args.max_twt_ms}")
     if "las" in kinds and not args.las_step > 0:
         raise input_error("--las-step", f"must be positive, got {args.las_step}")
+    if "las" in kinds and args.las_bottom is not None and not 0 < args.las_bottom < float("inf"):
+        raise input_error("--las-bottom", f"must be a positive depth (m), got {args.las_bottom}")
     grid = build_grid(models, args) if {"segy-depth", "segy-twt"} & set(kinds) else None
     written = []
     if "csv" in kinds:

@@ -95,33 +95,66 @@ def add_parser(subparsers):
     f.add_argument("--formats", default="png,pdf", help="figure formats, comma separated (default png,pdf)")
     f.add_argument("--title", default=None, help="section figure title")
     f.add_argument("--rhoa-csv", metavar="CSV", help="apparent resistivity table (columns "
-                   "station,time_s,rhoa_ohmm) for a pseudo-section figure")
+                   "station,time_s,rhoa_ohmm, or the rhoa.csv of 'tem rhoa') for a "
+                   "pseudo-section figure")
+    f.add_argument("--rhoa-component", metavar="COMP", help="component of a rhoa.csv with "
+                   "several (default: the first listed)")
     f.add_argument("--report", action="store_true", help="also write report.html linking the figures")
     return p
 
 
-def read_rhoa_csv(path):
-    """Per-station (time, rho_a) arrays from a CSV ``station,time_s,rhoa_ohmm``."""
+def read_rhoa_csv(path, component=None):
+    """Per-station (time, rho_a) arrays from a CSV ``station,time_s,rhoa_ohmm``.
+
+    The table written by ``tem rhoa`` (``rhoa.csv``) is read as well: its gate
+    centre ``t_centre_s`` is the time, rows flagged ``usable = 0`` or without a
+    converted ``rhoa_ohmm`` are left out, and with a ``component`` column only
+    the rows of ``component`` (default: the first listed) are used. Returns
+    ``({station: (time_s, rhoa_ohmm)}, component or None)``.
+    """
     path = Path(path)
     if not path.is_file():
         raise input_error("rhoa", "file not found", path)
     table = {}
-    with open(path, newline="", encoding="utf-8") as fh:
-        reader = csv.DictReader(ln for ln in fh if ln.strip() and not ln.startswith("#"))
-        fields = [f.strip() for f in reader.fieldnames or []]
-        for need in ("station", "time_s", "rhoa_ohmm"):
-            if need not in fields:
-                raise input_error(need, "column missing", path)
-        for k, row in enumerate(reader, start=2):
-            row = {(key or "").strip(): v for key, v in row.items()}
-            try:
-                t, r = float(row["time_s"]), float(row["rhoa_ohmm"])
-            except (TypeError, ValueError):
-                raise input_error("time_s", f"line {k}: not a number", path) from None
-            table.setdefault(row["station"].strip(), ([], []))
-            table[row["station"].strip()][0].append(t)
-            table[row["station"].strip()][1].append(r)
-    return {k: (np.array(v[0]), np.array(v[1])) for k, v in table.items()}
+    try:
+        with open(path, newline="", encoding="utf-8") as fh:
+            reader = csv.DictReader(ln for ln in fh if ln.strip() and not ln.startswith("#"))
+            fields = [f.strip() for f in reader.fieldnames or []]
+            tcol = "time_s" if "time_s" in fields or "t_centre_s" not in fields else "t_centre_s"
+            for need in ("station", tcol, "rhoa_ohmm"):
+                if need not in fields:
+                    raise input_error(need, "column missing", path)
+            for k, row in enumerate(reader, start=2):
+                row = {(key or "").strip(): (v or "").strip() for key, v in row.items()}
+                comp = row.get("component") if "component" in fields else None
+                if comp is not None:
+                    component = component or comp
+                    if comp != component:
+                        continue
+                if row.get("usable", "1") in ("0", "false", "False") or not row["rhoa_ohmm"]:
+                    continue
+                try:
+                    t, r = float(row[tcol]), float(row["rhoa_ohmm"])
+                except ValueError:
+                    raise input_error(tcol, f"line {k}: not a number", path) from None
+                if not (np.isfinite(t) and t > 0 and np.isfinite(r) and r > 0):
+                    continue
+                table.setdefault(row["station"], ([], []))
+                table[row["station"]][0].append(t)
+                table[row["station"]][1].append(r)
+    except UnicodeDecodeError:
+        raise input_error("rhoa", "not a UTF-8 text file", path) from None
+    if "component" in fields and component is not None and not table:
+        raise input_error("component", f"no usable apparent resistivity for {component!r}", path)
+    return {k: (np.array(v[0]), np.array(v[1])) for k, v in table.items()}, component
+
+
+def _check_colour_range(vmin, vmax):
+    for name, v in (("--vmin", vmin), ("--vmax", vmax)):
+        if v is not None and not (np.isfinite(v) and v > 0):
+            raise input_error(name, f"must be a positive resistivity (ohm-m), got {v}")
+    if vmin is not None and vmax is not None and not vmin < vmax:
+        raise input_error("--vmax", f"must exceed --vmin, got {vmin}, {vmax}")
 
 
 def run(args) -> int:
@@ -139,7 +172,16 @@ def run(args) -> int:
     formats = tuple(s.strip() for s in args.formats.split(",") if s.strip())
     if args.report and "png" not in formats:
         raise input_error("--formats", "the report links PNG figures; include png")
+    _check_colour_range(args.vmin, args.vmax)
+    # Read every input before writing anything.
+    if args.rhoa_csv:
+        table, rhoa_comp = read_rhoa_csv(args.rhoa_csv, args.rhoa_component)
     grid = build_grid(models, args)
+    if args.rhoa_csv:
+        ids = grid["station"].values.astype(str)
+        missing = [s for s in ids if s not in table]
+        if missing:
+            raise input_error("station", f"no apparent resistivity for {', '.join(missing)}", args.rhoa_csv)
     params = {k: v for k, v in vars(args).items() if not k.startswith("_") and k != "command"}
     records = records_from_json(models.attrs.get("provenance"))
     records.append(export_record("section", params, args.models))
@@ -151,11 +193,6 @@ def run(args) -> int:
                               out / "figures" / "models", formats)
     figures = [(section_files, "Resistivity section along the profile")]
     if args.rhoa_csv:
-        table = read_rhoa_csv(args.rhoa_csv)
-        ids = grid["station"].values.astype(str)
-        missing = [s for s in ids if s not in table]
-        if missing:
-            raise input_error("station", f"no apparent resistivity for {', '.join(missing)}", args.rhoa_csv)
         t_all = np.concatenate([table[s][0] for s in ids])
         t_all = t_all[t_all > 0]
         axis = np.logspace(np.log10(t_all.min()), np.log10(t_all.max()), 60)
@@ -163,7 +200,8 @@ def run(args) -> int:
         val = pseudo_section_grid(grid["station_distance"].values, [table[s][0] for s in ids],
                                   [table[s][1] for s in ids], pos, axis, lateral=args.lateral,
                                   max_gap=args.max_gap)
-        pfig = pseudo_section_figure(pos, axis, val, grid["station_distance"].values, ids)
+        pfig = pseudo_section_figure(pos, axis, val, grid["station_distance"].values, ids,
+                                     title=f"{rhoa_comp} apparent resistivity" if rhoa_comp else None)
         pfiles = save_figure(pfig, out / "figures" / "pseudosection", formats)
         figures.append((pfiles, "Apparent resistivity pseudo-section"))
     print(f"section: {grid.sizes['distance']} columns x {grid.sizes[grid['log10_resistivity'].dims[1]]} "
