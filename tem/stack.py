@@ -91,8 +91,11 @@ class StackSettings:
             raise input_error("estimator", f"unknown {self.estimator!r}; valid: {', '.join(ESTIMATORS)}")
         if not 0 <= self.trim < 0.5:
             raise input_error("trim", f"must be in [0, 0.5), got {self.trim}")
-        if self.huber_k <= 0 or self.reject_sigma <= self.huber_k:
-            raise input_error("reject_sigma", "need 0 < huber_k < reject_sigma")
+        if not self.huber_k > 0:
+            raise input_error("huber_k", f"must be positive, got {self.huber_k}")
+        if not self.reject_sigma > self.huber_k:
+            raise input_error("reject_sigma", f"must exceed huber_k ({self.huber_k}), got "
+                              f"{self.reject_sigma}")
         if self.n_batches < 4:
             raise input_error("n_batches", "need at least 4 batches")
         if int(self.threads) != self.threads or self.threads < 1:

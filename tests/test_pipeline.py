@@ -195,6 +195,9 @@ def test_run_end_to_end(tmp_path, capsys):
         assert np.isfinite(st[sid]["chi2"]) and st[sid]["doi"] > 0 and st[sid]["usable_gates"] > 5
     assert not (proj / "gated" / f"{CORRUPT}.nc").exists()
     assert CORRUPT in out.out and "FAILED" in out.out           # closing summary table
+    # the failure line on stderr is one line, however long (rich wrapped it at 80 columns)
+    line = [ln for ln in out.err.splitlines() if ln.startswith(f"stack: station {CORRUPT} failed")]
+    assert len(line) == 1 and line[0].endswith(st[CORRUPT]["message"])
     # parameters from the survey's [processing] table are recorded
     assert state["stages"]["invert"]["parameters"]["layers"] == 12
     assert state["stages"]["stack"]["inputs"][0]["sha256"]
@@ -257,6 +260,7 @@ def test_parameter_overrides_and_checks(tmp_path):
                        ({"invert": {"layers": 2.5}}, "processing.invert.layers"),
                        ({"section": {"depth_step": -5.0}}, "processing.section.depth_step"),
                        ({"export": {"models": "lci"}}, "processing.export.models"),
+                       ({"invert": {"floor": {"exx": 0.05}}}, "processing.invert.floor.exx"),
                        ({"plot": {}}, "processing.plot")]:
         with pytest.raises(TemInputError, match=field.replace(".", r"\.")):
             resolve_parameters(bad, survey_file=tmp_path / "s.toml")

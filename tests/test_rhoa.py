@@ -458,7 +458,7 @@ def test_sounding_rhoa_missing_geometry_is_a_clear_error():
         sounding_rhoa(bad, sim=sim, source="s1.nc")
 
 
-def test_cli_rhoa_writes_table_files_and_figures(tmp_path):
+def test_cli_rhoa_writes_table_files_and_figures(tmp_path, capsys):
     import csv
 
     from tem.cli import main
@@ -486,6 +486,14 @@ def test_cli_rhoa_writes_table_files_and_figures(tmp_path):
     assert (out / "figures" / "pseudosection_dbzdt_depth.png").is_file()
     assert (out / "figures" / "pseudosection_ex_depth.png").is_file()
     assert not (out / "broken.nc").exists()
+    # a failing file's error is one line on stderr, however long (rich wrapped it)
+    long = gated / ("a_station_file_with_a_long_name_" * 3 + ".nc")
+    long.write_text("not a netCDF file")
+    capsys.readouterr()
+    assert main(["rhoa", str(long), "--out", str(tmp_path / "r2"), "--late-only",
+                 "--no-figures"]) == 1
+    err = [ln for ln in capsys.readouterr().err.splitlines() if ln.strip()]
+    assert len(err) == 1 and err[0].startswith("tem rhoa: error: ") and len(err[0]) > 120
     # bad command-line input: exit 2
     assert main(["rhoa", str(tmp_path / "nothing"), "--out", str(out)]) == 2
     assert main(["rhoa", str(gated), "--out", str(out), "--rho-range", "10", "1"]) == 2

@@ -407,3 +407,11 @@ def test_threads_give_identical_results():
         assert a.counts == b.counts
     with pytest.raises(TemInputError, match="threads"):
         StackSettings(threads=0)
+
+
+def test_settings_errors_name_the_field_at_fault():
+    # huber_k <= 0 was reported as a reject_sigma error
+    with pytest.raises(TemInputError, match="^huber_k: must be positive"):
+        StackSettings(huber_k=0.0)
+    with pytest.raises(TemInputError, match=r"^reject_sigma: must exceed huber_k"):
+        StackSettings(huber_k=1.5, reject_sigma=1.0)

@@ -96,7 +96,7 @@ def run(args) -> int:
                             out / "figures" / f"sounding_{f.stem}", formats=("png",))
             except TemInputError as exc:
                 failed.append((f.stem, str(exc)))
-                console.print(f"[red]tem rhoa: error[/]: {exc}", highlight=False)
+                console.print(f"[red]tem rhoa: error[/]: {exc}", highlight=False, soft_wrap=True)
     write_text_atomic(out / "rhoa.csv", _csv_text(rows))
     if not args.no_figures and len(results) >= 2:
         _sections(results, args, out, console)

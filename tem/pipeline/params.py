@@ -16,6 +16,7 @@ import tomllib
 from pathlib import Path
 
 from ..errors import input_error
+from ..survey import COIL_COMPONENTS, E_COMPONENTS
 
 __all__ = ["STAGES", "SPEC", "default_parameters", "read_processing", "resolve_parameters",
            "parse_assignment"]
@@ -100,6 +101,8 @@ SPEC = {
     },
 }
 
+# Components a per-component error floor may name (data channels of a gated file).
+_FLOOR_COMPONENTS = E_COMPONENTS + ("bz",) + COIL_COMPONENTS
 _POSITIVE = {"huber_k", "reject_sigma", "transient_rms", "per_decade", "rho_min", "rho_max",
              "layers", "target", "max_iter", "depth_step", "las_step", "dt_ms", "chi2_limit",
              "max_depth", "trace_spacing", "max_gap", "las_bottom", "max_twt_ms", "t_min",
@@ -141,6 +144,9 @@ def _coerce(stage, key, value, file):
         if isinstance(value, dict):
             out = {}
             for comp, v in value.items():
+                if comp not in _FLOOR_COMPONENTS:
+                    raise input_error(f"{field}.{comp}", "unknown component; valid: "
+                                      f"{', '.join(_FLOOR_COMPONENTS)}", file)
                 if isinstance(v, bool) or not isinstance(v, (int, float)) or not 0 <= v < 1:
                     raise input_error(f"{field}.{comp}", f"relative floor must be in [0, 1), got {v!r}",
                                       file)

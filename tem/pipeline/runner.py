@@ -246,7 +246,7 @@ def run_pipeline(survey_file, project_dir, from_stage=None, overrides=(), jobs=1
             for sid, oc in result.stations.items():
                 if oc.status != "ok":
                     prog.console.print(f"[red]{stage}: station {sid} failed[/]: {oc.message}",
-                                       highlight=False)
+                                       highlight=False, soft_wrap=True)
             if stage in STATION_STAGES:
                 ok = [sid for sid, oc in result.stations.items() if oc.status == "ok"]
                 _prune_station_files(project, stage, ok, survey, params["report"]["station_figures"])
