@@ -76,6 +76,11 @@ def test_forward_command_bad_inputs_exit_2_with_one_line(tmp_path, capsys):
     noend.write_text("thickness_m,resistivity_ohmm\n20,10\n30,100\n")
     assert main(["forward", str(noend), str(survey), "--out", str(tmp_path / "o")]) == 2
     assert "thickness_m" in capsys.readouterr().err
+    # a row with a surplus field (a shifted column) was accepted silently
+    extra = tmp_path / "extra.csv"
+    extra.write_text("thickness_m,resistivity_ohmm\n20,30,4\n,100\n")
+    assert main(["forward", str(extra), str(survey), "--out", str(tmp_path / "o")]) == 2
+    assert "extra.csv: line 2: more fields than the header has (2)" in capsys.readouterr().err
     # receiver on the wire
     (tmp_path / "s2.toml").write_text(SURVEY.replace("x = 2500.0\ny = 0.0", "x = 0.0\ny = 800.0")
                                       .replace("[[2450.0, 0.0], [2550.0, 0.0]]",

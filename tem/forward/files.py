@@ -34,6 +34,8 @@ def read_model_csv(path) -> dict:
             raise input_error(col, "missing column (need thickness_m,resistivity_ohmm)", path)
     groups: dict = {}
     for i, r in enumerate(rows, start=2):
+        if None in r:  # csv.DictReader files surplus fields under the key None
+            raise input_error(f"line {i}", f"more fields than the header has ({len(r) - 1})", path)
         key = (r.get("station") or "*").strip()
         try:
             rho = float(r["resistivity_ohmm"])
