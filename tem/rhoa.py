@@ -695,9 +695,11 @@ def halfspace_match(rho_grid, table, value, error=None, slope_table=None, peak_t
     n_gates = shape[-1]
     chosen = np.full(v.size, -1)
     for start in range(0, v.size, n_gates):
+        sl = slice(start, start + n_gates)
         # gates with signal-to-noise below 2 do not steer the branch choice
-        weak = ~(np.abs(v[start:start + n_gates]) > 2.0 * np.abs(e[start:start + n_gates]))
-        chosen[start:start + n_gates] = choose_branches(roots[start:start + n_gates], weak)
+        weak = ~(np.abs(v[sl]) > 2.0 * np.abs(e[sl]))
+        mismatch = _decay_mismatch(x, tab[:, sl], v[sl], roots[sl])
+        chosen[sl] = choose_branches(roots[sl], weak, mismatch)
     rho = np.full(v.size, np.nan)
     slope = np.full(v.size, np.nan)
     for k, c in enumerate(chosen):
@@ -713,30 +715,43 @@ def halfspace_match(rho_grid, table, value, error=None, slope_table=None, peak_t
     return AllTimeResult(*out)
 
 
-def choose_branches(roots, weak=None):
-    """Pick one root per gate: the path with the least total |change of ln rho|.
+def _gate_steps(y):
+    """Centred differences along the last axis (one-sided at the ends)."""
+    d = np.empty_like(y)
+    d[..., 1:-1] = 0.5 * (y[..., 2:] - y[..., :-2])
+    d[..., 0] = y[..., 1] - y[..., 0]
+    d[..., -1] = y[..., -1] - y[..., -2]
+    return d
 
-    A Viterbi pass over the gates that have roots (gates without roots are
-    skipped, so they do not break the path). Choosing the smoothest curve is
-    common practice, no source; on a half-space it follows the true branch
-    because the spurious root moves with time while the true one does not.
-    Gates marked ``weak`` (e.g. signal-to-noise below 2) take no part in the
-    path, so a noise-dominated late gate with a single spurious root cannot
-    pull the whole curve onto the wrong branch; each of them then takes the
-    root nearest to the chosen value at the nearest gate on the path.
 
-    Parameters
-    ----------
-    roots : sequence of 1-D arrays
-        ln(rho) roots per gate, in gate order.
-    weak : array_like of bool, optional
-        Gates that follow the path instead of steering it.
+def _decay_mismatch(x, tab, v, roots):
+    """Per gate and root: |observed - half-space| change of ln|response| per gate step.
 
-    Returns
-    -------
-    ndarray of int
-        Index of the chosen root per gate, -1 where the gate has no root.
+    On each side of a response maximum a half-space decays differently (for
+    example E_x is nearly flat on the early-time side and falls as t^-3/2 on
+    the late-time side), so comparing the data's own decay with the decay of
+    each candidate half-space tells the branches apart where smoothness alone
+    cannot. Gates with fewer than two neighbours or a sign change give 0.
     """
+    n = v.size
+    out = [np.zeros(len(r)) for r in roots]
+    if n < 2:
+        return out
+    with np.errstate(divide="ignore", invalid="ignore"):
+        obs = _gate_steps(np.log(np.abs(v)))
+        hs = _gate_steps(np.log(np.abs(tab)))                     # (n_rho, n_gates)
+    for k, r in enumerate(roots):
+        if len(r) == 0 or not np.isfinite(obs[k]):
+            continue
+        col = hs[:, k]
+        ok = np.isfinite(col)
+        if ok.sum() < 2:
+            continue
+        out[k] = np.abs(obs[k] - np.interp(np.asarray(r), x[ok], col[ok]))
+    return out
+
+
+def choose_branches(roots, weak=None, mismatch=None):
     n = len(roots)
     weak = np.zeros(n, bool) if weak is None else np.asarray(weak, bool)
     has = [i for i, r in enumerate(roots) if len(r)]
@@ -744,12 +759,13 @@ def choose_branches(roots, weak=None):
     if not has:
         return chosen
     idx = [i for i in has if not weak[i]] or has
-    cost = np.zeros(len(roots[idx[0]]))
+    extra = (lambda i: 0.0) if mismatch is None else (lambda i: np.asarray(mismatch[i], float))
+    cost = np.zeros(len(roots[idx[0]])) + extra(idx[0])
     back = []
     for prev, cur in zip(idx[:-1], idx[1:]):
         step = np.abs(np.asarray(roots[cur])[:, None] - np.asarray(roots[prev])[None, :]) + cost[None, :]
         back.append(np.argmin(step, axis=1))
-        cost = np.min(step, axis=1)
+        cost = np.min(step, axis=1) + extra(cur)
     c = int(np.argmin(cost))
     chosen[idx[-1]] = c
     for pos in range(len(idx) - 1, 0, -1):

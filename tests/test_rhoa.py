@@ -516,3 +516,47 @@ def test_noise_dominated_gates_do_not_steer_the_branch():
     chosen_all = R.choose_branches(roots)
     picked_all = np.array([r[c] for r, c in zip(roots, chosen_all)])
     assert not np.allclose(picked_all[:-1], true[:-1])
+
+
+def test_layered_earth_late_gates_read_on_the_late_time_branch():
+    """Emberline-like earth (30/500/8/2000 ohm-m), receiver 1.7 km from the wire, 0.25 Hz
+    bipolar waveform as in the demo: the late-time formula (REFERENCE 2.2, valid as u -> 0) and the all-time value
+    agree at the late gates only on the late-time branch; the spurious early-side root
+    there is orders of magnitude lower. Smoothness alone picked that root (ln rho varies
+    as much along the true branch), the decay-rate term must not."""
+    model = LayeredModel([20.0, 1154.5, 600.0], [30.0, 500.0, 8.0, 2000.0])   # demo's EM05
+    edges = np.geomspace(4e-3, 0.86, 22)
+    rx = [Receiver("ex", dipole=((-1550.0, 0.0), (-1450.0, 0.0))), Receiver("dbzdt", (-1500.0, 0.0))]
+    wf = Waveform.bipolar(base_frequency=0.25, duty_cycle=0.5, ramp_on=1e-3, ramp_off=5e-4)
+    sim = Simulation(Wire(a=(-750.0, 800.0), b=(750.0, 800.0)), rx, gates=(edges[:-1], edges[1:]),
+                     waveform=wf)
+    clean = sim.predict(model)
+    # 2 % noise, as after stacking: its jitter along the true branch made that branch look
+    # rougher than the spurious one, which runs smoothly as 1/t
+    d = clean * (1 + 0.02 * np.random.default_rng(7).standard_normal(clean.shape))
+    at = R.all_time_rhoa(sim, d, 0.02 * np.abs(d), rho_min=0.05, rho_max=2e5, points_per_decade=12)
+    t = np.sqrt(edges[:-1] * edges[1:])
+    late = (t > 0.05) & (t < 0.3)
+    for c, comp in enumerate(("ex", "dbzdt")):
+        lt = R.late_time_rhoa(comp, d[c], t, "wire", [-750.0, 800.0, 750.0, 800.0],
+                              (-1500.0, 0.0, -1500.0, 0.0))
+        ratio = at.rho[c, late] / lt.rho[late]
+        assert np.all((ratio > 0.5) & (ratio < 2.0)), (comp, ratio)
+        # and a genuinely different second root exists there, far below
+        assert np.all(at.n_roots[c, late] >= 2)
+        assert np.all(at.rho_low[c, late] < 0.1 * at.rho_high[c, late])
+
+
+def test_decay_rate_mismatch_overrules_a_smoother_spurious_path():
+    """Along a layered earth the true root can vary more than the 1/t spurious root; the
+    per-gate decay mismatch (observed vs candidate half-space) must decide then."""
+    t = np.geomspace(5e-3, 0.8, 15)
+    true = np.log(np.interp(np.log(t), np.log(t[[0, 4, 14]]), [1200.0, 3500.0, 60.0]))
+    spurious = np.log(45.0 * (t[0] / t))
+    roots = [np.sort([a, b]) for a, b in zip(true, spurious)]
+    is_true_low = [r[0] == a for r, a in zip(roots, true)]
+    # the true half-space decays like the data (mismatch 0); the spurious one does not (0.5)
+    mismatch = [np.array([0.0, 0.5]) if low else np.array([0.5, 0.0]) for low in is_true_low]
+    pick = lambda ch: np.array([r[c] for r, c in zip(roots, ch)])  # noqa: E731
+    assert not np.allclose(pick(R.choose_branches(roots)), true)      # smoothness alone fails
+    np.testing.assert_allclose(pick(R.choose_branches(roots, mismatch=mismatch)), true)
