@@ -85,7 +85,7 @@ def main():
                   "empymod_ms": round(t_emp * 1e3, 1), "speedup": round(t_emp / t_tem, 1),
                   "max_rel_dev": float(f"{dev:.2e}"),
                   "jacobian_over_forward": round(t_jac / t_tem, 2),
-                  "tem_settings": f"hankel={sim.hankel_name} fourier=auto "
+                  "tem_settings": f"hankel={sim.hankel_name} fourier={sim.fourier_name} "
                                   f"freq_per_decade={sim.freq_per_decade} "
                                   f"n_freq={sim.n_frequencies} n_lambda={sim.n_wavenumbers}",
                   "empymod_settings": "QS (eperm=0), z=1e-3 m, key_201_2009 DLF, "
