@@ -57,7 +57,7 @@ SPEC = {
         "target": (1.0, "float", None),
         "max_iter": (20, "int", None),
         "ref_resistivity": (None, "float?", None),
-        "ref_weight": (0.0, "float", None),
+        "ref_weight": (0.01, "float", None),
         "doi_method": ("sensitivity", "str", ("sensitivity", "two-reference")),
         "doi_threshold": (None, "float?", None),
         "depth_min": (None, "float?", None),
