@@ -10,13 +10,13 @@ from __future__ import annotations
 import dataclasses
 import datetime as _dt
 import math
-import tomllib
 from dataclasses import dataclass, field
 from pathlib import Path
 
 import numpy as np
 
 from .errors import TemInputError, input_error
+from .io.tomlfile import read_toml
 
 __all__ = ["COMPONENTS", "E_COMPONENTS", "COIL_COMPONENTS", "Transmitter", "Receiver",
            "Station", "Survey", "read_survey", "write_survey", "survey_to_dict",
@@ -428,20 +428,7 @@ def survey_from_dict(doc: dict, base_dir=".") -> Survey:
 def read_survey(path) -> Survey:
     """Read and check a survey TOML file; errors name the file and the field."""
     path = Path(path)
-    try:
-        with open(path, "rb") as fh:
-            doc = tomllib.load(fh)
-    except FileNotFoundError:
-        raise input_error("survey", "file not found", path) from None
-    except IsADirectoryError:
-        raise input_error("survey", "is a folder; give the survey TOML file", path) from None
-    except UnicodeDecodeError:
-        raise input_error("toml", "not a text file (UTF-8 TOML expected)", path) from None
-    except OSError as exc:
-        raise input_error("survey", f"cannot read ({exc.strerror or exc.__class__.__name__})",
-                          path) from None
-    except tomllib.TOMLDecodeError as exc:
-        raise input_error("toml", str(exc).splitlines()[0], path) from None
+    doc = read_toml(path, "survey")
     try:
         return survey_from_dict(doc, base_dir=path.parent)
     except TemInputError as exc:

@@ -22,7 +22,6 @@ one error listing the valid ones.
 from __future__ import annotations
 
 import math
-import tomllib
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Callable
@@ -32,6 +31,7 @@ import numpy as np
 from ..errors import TemInputError, input_error
 from ..survey import format_time, parse_time, seconds_between
 from .atomic import atomic_path
+from .tomlfile import read_toml
 
 __all__ = ["RawHeader", "Recording", "MultiRecording", "FORMATS", "open_recording",
            "open_receiver", "write_npy_recording", "write_text_recording", "sidecar_path"]
@@ -176,13 +176,7 @@ def sidecar_path(path) -> Path:
 
 def _read_sidecar(path) -> RawHeader:
     side = sidecar_path(path)
-    try:
-        with open(side, "rb") as fh:
-            doc = tomllib.load(fh)
-    except FileNotFoundError:
-        raise input_error("sidecar", f"missing {side.name}", path) from None
-    except tomllib.TOMLDecodeError as exc:
-        raise input_error("toml", str(exc).splitlines()[0], side) from None
+    doc = read_toml(side, "sidecar", file=path)
     return RawHeader.from_dict(doc, file=side)
 
 

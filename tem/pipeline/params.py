@@ -3,7 +3,7 @@
 Every stage reads one table of ``[processing]`` in the survey TOML
 (``[processing.stack]``, ``[processing.gate]``, ...); keys not given keep the
 defaults below. ``tem.survey`` ignores top-level tables it does not know, so
-the table is read here with :mod:`tomllib`. Unknown stages or keys and values
+the table is read here (tem.io.tomlfile). Unknown stages or keys and values
 of the wrong type are refused with one line naming the file and the field.
 Relative paths (``section.line``, ``export.velocity``) are relative to the
 survey file. docs/pipeline.md lists every key.
@@ -16,6 +16,7 @@ import tomllib
 from pathlib import Path
 
 from ..errors import input_error
+from ..io.tomlfile import read_toml
 from ..survey import COIL_COMPONENTS, E_COMPONENTS
 
 __all__ = ["STAGES", "SPEC", "default_parameters", "read_processing", "resolve_parameters",
@@ -175,13 +176,7 @@ def _coerce(stage, key, value, file):
 def read_processing(survey_path) -> dict:
     """The raw ``[processing]`` table of a survey TOML file ({} when absent)."""
     path = Path(survey_path)
-    try:
-        with open(path, "rb") as fh:
-            doc = tomllib.load(fh)
-    except FileNotFoundError:
-        raise input_error("survey", "file not found", path) from None
-    except tomllib.TOMLDecodeError as exc:
-        raise input_error("toml", str(exc).splitlines()[0], path) from None
+    doc = read_toml(path, "survey")
     table = doc.get("processing", {})
     if not isinstance(table, dict):
         raise input_error("processing", "expected a table", path)
