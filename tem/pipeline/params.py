@@ -2,8 +2,8 @@
 
 Every stage reads one table of ``[processing]`` in the survey TOML
 (``[processing.stack]``, ``[processing.gate]``, ...); keys not given keep the
-defaults below. ``tem.survey`` ignores top-level tables it does not know, so
-the table is read here (tem.io.tomlfile). Unknown stages or keys and values
+defaults below. ``tem.survey`` accepts the ``[processing]`` table but leaves it
+to this module (read with tem.io.tomlfile). Unknown stages or keys and values
 of the wrong type are refused with one line naming the file and the field.
 Relative paths (``section.line``, ``export.velocity``) are relative to the
 survey file. docs/pipeline.md lists every key.
