@@ -74,3 +74,14 @@ def test_invert_command_lci(gated_folder, tmp_path, capsys):
     # one shared mesh for the profile
     assert np.allclose(ds["thickness"].values[0], ds["thickness"].values[1], equal_nan=True)
     assert np.all(ds["chi2"].values < 2.0)
+
+
+def test_invert_command_refuses_a_non_gated_product(tmp_path, capsys):
+    # a models-like netCDF is not a gated sounding: one line naming the file and tem_format
+    import xarray as xr
+    bad = tmp_path / "EM01.nc"
+    xr.Dataset(attrs={"tem_format": "rhoa", "format_version": "1.0"}).to_netcdf(bad, engine="h5netcdf")
+    rc = main(["invert", str(bad), "-o", str(tmp_path / "out"), "--no-figures"])
+    err = capsys.readouterr().err
+    assert rc != 0
+    assert "tem_format" in err and "EM01.nc" in err

@@ -34,17 +34,12 @@ class StationFailure:
 
 def load_station(path, floors=None):
     """Read one gated-sounding file into a :class:`StationData` (raises TemInputError)."""
-    import xarray as xr
+    from ..io.stacked import read_product
 
     path = Path(path)
     if not path.is_file():
         raise input_error("gated sounding", "file not found", path)
-    try:
-        with xr.open_dataset(path, engine="h5netcdf") as ds:
-            ds = ds.load()
-    except (OSError, ValueError) as exc:
-        raise input_error("gated sounding", f"cannot be read as netCDF ({exc.__class__.__name__})",
-                          path) from None
+    ds = read_product(path, "gated")      # refuses stacked, rhoa or other product files
     return station_data(ds, floors=floors, file=str(path))
 
 

@@ -72,7 +72,8 @@ def station_figure(result, kind="smooth", true_model=None):
         ax_r.plot(t, nres[sel], "o-", color=col, ms=3, lw=0.8)
     ax_d.set_xscale("log")
     ax_d.set_yscale("log")
-    ax_d.set_ylabel("|response| per ampere (SI)")
+    present = sorted({units.get(str(c), "T/s/A") for c in np.unique(result.component)})
+    ax_d.set_ylabel(f"|response| per ampere ({', '.join(present)})")
     ax_d.set_title(f"station {result.station}: data and {kind} response "
                    f"(chi2/N = {(few['chi2'] if few else result.chi2):.2f})")
     ax_d.legend(fontsize=7, loc="lower left")
