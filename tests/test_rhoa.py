@@ -560,3 +560,19 @@ def test_decay_rate_mismatch_overrules_a_smoother_spurious_path():
     pick = lambda ch: np.array([r[c] for r, c in zip(roots, ch)])  # noqa: E731
     assert not np.allclose(pick(R.choose_branches(roots)), true)      # smoothness alone fails
     np.testing.assert_allclose(pick(R.choose_branches(roots, mismatch=mismatch)), true)
+
+
+def test_cli_rhoa_all_stations_failing_writes_no_table(tmp_path, capsys):
+    """A folder holding only a non-gated product: exit 1, one error line, no empty rhoa.csv."""
+    import xarray as xr
+
+    from tem.cli import main
+    src = tmp_path / "in"
+    src.mkdir()
+    xr.Dataset(attrs={"tem_format": "stacked", "format_version": "1.0"}).to_netcdf(
+        src / "EM01.nc", engine="h5netcdf")
+    rc = main(["rhoa", str(src), "--out", str(tmp_path / "out"), "--late-only", "--no-figures"])
+    err = capsys.readouterr().err
+    assert rc == 1
+    assert "tem_format" in err
+    assert not (tmp_path / "out" / "rhoa.csv").exists()

@@ -97,7 +97,8 @@ def run(args) -> int:
             except TemInputError as exc:
                 failed.append((f.stem, str(exc)))
                 console.print(f"[red]tem rhoa: error[/]: {exc}", highlight=False, soft_wrap=True)
-    write_text_atomic(out / "rhoa.csv", _csv_text(rows))
+    if results:  # no table at all rather than a header-only one when every station failed
+        write_text_atomic(out / "rhoa.csv", _csv_text(rows))
     if not args.no_figures and len(results) >= 2:
         _sections(results, args, out, console)
     _summary(results, failed, Console(), Table)
@@ -130,6 +131,9 @@ def _sections(results, args, out, console):
             rr.append(rho)
             dd.append(R.diffusion_depth(rho, t))
         if len(st) < 2 or not np.all(np.isfinite(x + y)):
+            console.print(f"tem rhoa: no pseudo-section for {comp}: needs the component at two "
+                          f"or more stations with coordinates ({len(st)} found)", highlight=False,
+                          soft_wrap=True)
             continue
         try:
             fig = pseudo_section(st, x, y, tt, rr, dd, axis_kind=args.section_axis,
