@@ -111,3 +111,19 @@ def test_sparse_and_dense_regularised_solves_agree():
     b = solve_regularised(sparse.csr_matrix(Jw), rhat, sparse.csr_matrix(R), 0.3,
                           m_ref=np.ones(M), ref_weight=0.1)
     assert np.allclose(a, b, rtol=1e-8, atol=1e-10)
+
+
+def test_posterior_std_is_bounded_by_the_reference_term():
+    # Gaussian-prior reading of the regularisation (Tarantola 2005, from memory): with no
+    # data sensitivity the variance is that of the prior mu (R^T R + w I); its largest
+    # eigenvalue of the inverse is 1/(mu w), so std <= 1/sqrt(mu w) in ln units.
+    from tem.invert.smooth import roughness_matrix
+    from tem.invert.station import smooth_posterior_std
+    M, mu, w = 20, 3.0, 0.01
+    J = np.zeros((5, M))
+    J[:, :4] = 1.0                      # data see only the top four layers
+    R = roughness_matrix(M)
+    R = R.toarray() if hasattr(R, "toarray") else R
+    std = smooth_posterior_std(J, np.ones(5), R, mu, ref_weight=w)
+    assert np.all(std <= 1 / np.sqrt(mu * w) / np.log(10) + 1e-12)
+    assert std[0] < std[-1]             # resolved at the top, prior spread at depth

@@ -215,15 +215,18 @@ def _to_linear(d_t, J_t, std, where=None):
     return d, J_t * g[:, None]
 
 
-def smooth_posterior_std(J, std, R, mu):
+def smooth_posterior_std(J, std, R, mu, ref_weight=0.0):
     """Linearised posterior std of log10(rho) under the roughness prior.
 
-    ``C = (J^T W J + mu R^T R)^-1`` (the regularisation read as a Gaussian
-    prior; Tarantola 2005, from memory). Layers the data do not see keep the
-    spread the roughness prior allows, so the band widens below the DOI.
+    ``C = (J^T W J + mu (R^T R + ref_weight I))^-1`` (the regularisation that
+    the inversion used, read as a Gaussian prior; Tarantola 2005, from
+    memory). Layers the data do not see keep the spread the prior allows, so
+    the band widens below the DOI; the reference term bounds it (without it
+    the roughness prior leaves the mean level free and the std can run to
+    hundreds of decades on weak data).
     """
     Jw = J / std[:, None]
-    H = Jw.T @ Jw + mu * (R.T @ R)
+    H = Jw.T @ Jw + mu * (R.T @ R + ref_weight * np.eye(J.shape[1]))
     try:
         C = np.linalg.inv(H)
     except np.linalg.LinAlgError:
@@ -298,7 +301,7 @@ def invert_station(sd, settings: InversionSettings = InversionSettings(), callba
         doi, _ = two_reference_doi(ra.m, rb.m, np.log(rho_hs * 10), np.log(rho_hs / 10), h, cutoff=thr)
     out = StationResult(
         station=sd.station, x=sd.x, y=sd.y, z=sd.z, thickness=h, resistivity=np.exp(res.m),
-        log10_res_std=smooth_posterior_std(res.J, sd.std, R, res.mu), chi2=res.chi2, doi=doi,
+        log10_res_std=smooth_posterior_std(res.J, sd.std, R, res.mu, settings.ref_weight), chi2=res.chi2, doi=doi,
         halfspace=rho_hs, d_obs=sd.d_obs, std=sd.std, d_pred=res.d_pred, component=sd.component,
         channel=sd.channel, times=sd.gate_centre[np.nonzero(sd.mask)[1]], mu=res.mu,
         converged=res.converged, message=res.message, history=res.history)
