@@ -158,6 +158,11 @@ def test_cli_chain_writes_contract(tmp_path, capsys):
     assert (tmp_path / "p/gated/qc/EM06_decay.png").is_file()
     sv = read_survey(tmp_path / "survey.toml")
     assert sv.stations[0].id == "EM06"
+    # products never go into the survey's folder or a recording folder (raw data read-only)
+    for bad in (tmp_path, tmp_path / "raw" / "EM06" / "x"):
+        capsys.readouterr()
+        assert main(["stack", str(tmp_path / "survey.toml"), "--out", str(bad)]) == 2
+        assert "out" in capsys.readouterr().err
 
 
 # ---------------------------------------------------------------- bad input to tem synth

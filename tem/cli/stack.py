@@ -4,7 +4,7 @@ from __future__ import annotations
 import sys
 from pathlib import Path
 
-from ..errors import TemInputError
+from ..errors import TemInputError, input_error
 
 HELP = "stack each station's raw recordings into half-period transients with errors"
 
@@ -47,6 +47,13 @@ def run(args) -> int:
                              reject_sigma=args.reject_sigma, transient_rms=args.transient_rms,
                              n_batches=args.batches, detrend=not args.no_detrend)
     out = Path(args.out)
+    # raw data are read-only: products go to a project folder, never beside the recordings
+    raw_dirs = {survey.path(f).resolve().parent for st in survey.stations for r in st.receivers
+                for f in r.files}
+    o = out.resolve()
+    if o == Path(args.survey).resolve().parent or any(o == p or p in o.parents for p in raw_dirs):
+        raise input_error("out", f"{out} is the survey's folder or inside a recording folder; "
+                          "choose a separate project folder", args.survey)
     stations = survey.stations
     if args.stations:
         want = args.stations.split(",")
