@@ -102,9 +102,6 @@ class Wire:
     def scale(self):
         return float(self.segments.length.sum())
 
-    def describe(self):
-        return {"tx_kind": "wire", "tx_points": self.points.ravel().tolist()}
-
 
 @dataclass(frozen=True)
 class PolygonLoop:
@@ -138,9 +135,6 @@ class PolygonLoop:
     @property
     def scale(self):
         return float(self.segments.length.max())
-
-    def describe(self):
-        return {"tx_kind": "loop", "tx_points": self.vertices.ravel().tolist()}
 
 
 @dataclass(frozen=True)
@@ -189,9 +183,6 @@ class CircularLoop:
 
     def distance_to(self, p):
         return abs(np.hypot(*(np.asarray(p) - self.centre)) - self.radius)
-
-    def describe(self):
-        return {"tx_kind": "loop", "tx_points": self.segments.p0[::10].ravel().tolist()}
 
 
 @dataclass(frozen=True)

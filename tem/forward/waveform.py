@@ -104,10 +104,6 @@ class Waveform:
         t = np.asarray(t, float)[..., None]
         return np.sum(np.where((t > t0) & (t < t1), m, 0.0), axis=-1)
 
-    def describe(self):
-        return {"waveform_times": self.times.tolist(), "waveform_current": self.current.tolist(),
-                "half_period": self.half_period or 0.0}
-
 
 def _drop_vertical(t, c):
     """Replace zero-length ramps by a tiny step of 1e-9 s so times increase strictly."""
