@@ -14,10 +14,11 @@ SEG, section on layered earths; the recursion form is common practice):
 * TM: Z = the earth's TM input impedance, same recursion with the intrinsic
   impedance Gamma_n rho_n in place of Gamma_n.
 
-Time dependence exp(+i omega t). The kernels returned are
-``rte = R_TE`` and ``btm = Z - rho_1 lambda - i omega mu0/(2 lambda)``: both
-decay at large lambda, the subtracted parts are handled in closed form by
-the caller. Derivatives with respect to ln(resistivity) of every layer and
+Time dependence exp(+i omega t). The kernels used are ``rte = R_TE`` and
+``btm = Z - rho_1 lambda - i omega mu0/(2 lambda)``: both decay at large
+lambda, the subtracted parts are handled in closed form by the caller.
+:func:`fused_spectra` evaluates them and integrates them against the
+caller's wavenumber-coefficient matrices in one compiled pass. Derivatives with respect to ln(resistivity) of every layer and
 ln(thickness) come from one reverse sweep through the recursion, so the
 cost of all derivatives is a small multiple of one kernel evaluation.
 """
