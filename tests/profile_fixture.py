@@ -9,6 +9,8 @@ fictional survey); no inversion is involved.
 """
 from __future__ import annotations
 
+from html.parser import HTMLParser
+
 import numpy as np
 
 from tem.io.models import models_dataset
@@ -47,3 +49,29 @@ def synthetic_models(epsg=32735):
         chi2=np.array([0.95, 1.1, 1.02, 1.4, 0.88]),
         log10_res_std=std, model_kind="smooth", epsg=epsg,
     )
+
+
+def layer_lookup(top, values, z):
+    """Independent layer lookup: value of the last layer whose top <= z."""
+    out = np.nan
+    for t, v in zip(top, values):
+        if np.isfinite(t) and np.isfinite(v) and t <= z:
+            out = v
+    return out
+
+
+class LinkCollector(HTMLParser):
+    """Files an HTML page refers to (img src, non-anchor a href) and its table rows."""
+
+    def __init__(self):
+        super().__init__()
+        self.links, self.rows = [], 0
+
+    def handle_starttag(self, tag, attrs):
+        a = dict(attrs)
+        if tag == "img":
+            self.links.append(a["src"])
+        if tag == "a" and not a.get("href", "#").startswith("#"):
+            self.links.append(a["href"])
+        if tag == "tr":
+            self.rows += 1

@@ -16,12 +16,12 @@ Sources of the checks:
 from __future__ import annotations
 
 import csv
-from html.parser import HTMLParser
 
 import numpy as np
 import pytest
 
-from profile_fixture import DOI, N_LAYERS, X, Y, Z, synthetic_models
+from profile_fixture import DOI, N_LAYERS, X, Y, Z, LinkCollector, synthetic_models
+from profile_fixture import layer_lookup as _lookup
 from tem.cli import main
 from tem.cli.section import read_rhoa_csv
 from tem.errors import TemInputError
@@ -29,27 +29,6 @@ from tem.io.models import CSV_COLUMNS, read_models, write_models
 from tem.io.segy import apply_scalar, coordinate_scalar, read_velocity_table
 
 H1, V1, V2 = 150.0, 2000.0, 3000.0  # two-layer velocity model of the TWT test
-
-
-def _lookup(top, values, z):
-    out = np.nan
-    for t, v in zip(top, values):
-        if np.isfinite(t) and np.isfinite(v) and t <= z:
-            out = v
-    return out
-
-
-class _Links(HTMLParser):
-    def __init__(self):
-        super().__init__()
-        self.links = []
-
-    def handle_starttag(self, tag, attrs):
-        a = dict(attrs)
-        if tag == "img":
-            self.links.append(a["src"])
-        if tag == "a" and not a.get("href", "#").startswith("#"):
-            self.links.append(a["href"])
 
 
 @pytest.fixture(scope="module")
@@ -201,7 +180,7 @@ def test_section_outputs_figures_and_report(profile):
         assert below.any() and np.isnan(g["log10_resistivity"].values[below]).all()
         assert np.isfinite(g["log10_resistivity"].values[~below & np.isfinite(g["log10_resistivity_full"].values)]).all()
         assert g.sizes["distance"] == 41  # 0..1000 m every 25 m
-    parser = _Links()
+    parser = LinkCollector()
     parser.feed((sec / "report.html").read_text(encoding="utf-8"))
     assert "figures/section.png" in parser.links and "figures/models.png" in parser.links
     assert "figures/pseudosection.png" in parser.links

@@ -11,13 +11,14 @@ to the layer whose top is at or above it), not tem's own samplers.
 """
 from __future__ import annotations
 
-import html.parser
 import json
 import os
 from pathlib import Path
 
 import numpy as np
 import pytest
+
+from profile_fixture import LinkCollector
 
 from tem.cli import main
 
@@ -142,24 +143,11 @@ def _check_section(proj, models):
     assert np.isfinite(g["log10_resistivity_full"].values).all()
 
 
-class _Links(html.parser.HTMLParser):
-    def __init__(self):
-        super().__init__()
-        self.links, self.rows = [], 0
-
-    def handle_starttag(self, tag, attrs):
-        a = dict(attrs)
-        if tag == "img":
-            self.links.append(a["src"])
-        if tag == "a" and not a.get("href", "#").startswith("#"):
-            self.links.append(a["href"])
-        if tag == "tr":
-            self.rows += 1
 
 
 def _check_report(proj):
     text = (proj / "report.html").read_text(encoding="utf-8")
-    parser = _Links()
+    parser = LinkCollector()
     parser.feed(text)
     parser.close()
     assert parser.links

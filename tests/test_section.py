@@ -17,19 +17,13 @@ import numpy as np
 import pytest
 
 from profile_fixture import CONDUCTOR, CONDUCTOR_TOPS, DOI, HOST, X, Y, Z, synthetic_models
+from profile_fixture import layer_lookup as _lookup
 from tem.errors import TemInputError
 from tem.section import (check_velocity_table, depth_to_twt, layer_values, points_at_chainage,
                          polyline_chainage, pseudo_section_grid, station_line, stitch_grid,
                          stitch_models, twt_to_depth)
 
 
-def _lookup(top, values, z):
-    """Independent layer lookup: value of the last layer whose top <= z."""
-    out = np.nan
-    for t, v in zip(top, values):
-        if np.isfinite(t) and np.isfinite(v) and t <= z:
-            out = v
-    return out
 
 
 # ------------------------------------------------------------------ geometry
