@@ -4,8 +4,9 @@ Cases: 5- and 30-layer models; wire Ex and dBz/dt; 1 km wire, receiver at
 2 km offset (azimuth 60 degrees, so both components are non-zero); 31
 log-spaced boxcar gates from 0.1 ms to 1 s, step-off response.
 
-empymod is run the way ../shared/REFERENCE.md section 0 prescribes for an
-accurate quasi-static reference: source and receiver at z = 1e-3 m,
+empymod (Werthmueller 2017, Geophysics 82(6), WB9-WB19) is run as an
+accurate quasi-static reference as described in docs/forward.md ("empymod as
+the reference"): source and receiver at z = 1e-3 m,
 epermH = epermV = 0, its default Hankel filter (key_201_2009, standard DLF)
 and Fourier filter (key_201_2012, lagged convolution), srcpts = 11 (11 vs 21
 points change the result by < 1e-7). Both codes evaluate the gate averages

@@ -29,8 +29,8 @@ contribution is proportional to (ds x (r - p))_z, the element length times the
 signed perpendicular distance from its line to the receiver. Summed over the
 wire this is the "effective moment" M = I S / 2 with S = sum_k (B_k - A_k) x
 (r - A_k); for a closed loop S = 2 * area wherever the receiver is, and for
-a straight x-directed wire S = L y (REFERENCE 2.1: only the perpendicular
-distance matters).
+a straight x-directed wire S = L y (the late-time HED asymptote of Ward &
+Hohmann 1988: only the perpendicular distance matters).
 """
 from __future__ import annotations
 
@@ -68,17 +68,17 @@ __all__ = [
     "AllTimeResult",
 ]
 
-MU0 = 4e-7 * np.pi  # H/m, the value empymod uses (REFERENCE 0)
+MU0 = 4e-7 * np.pi  # H/m, the value empymod uses (Werthmueller 2017)
 
 #: Late-time validity limits on u = theta(rho_a) * r_max, with theta computed
 #: from the returned rho_a itself: below them the late-time rho_a of a
 #: half-space is within 5 % of its resistivity. Derived from the shape
-#: functions of REFERENCE 1.0 (Ward & Hohmann 1988): rho_a/rho = R(u)^-p with
+#: functions of Ward & Hohmann (1988): rho_a/rho = R(u)^-p with
 #: R the ratio of exact to asymptotic response (p = 2 for E, 2/3 for dB/dt and
 #: B), solved for rho_a/rho = 1.05 and mapped to u_a = u R(u)^(p/2). Exact
-#: roots 0.1970 (E), 0.3129 (dB/dt), 0.4055 (B); rounded down here. (The
-#: REFERENCE 2.2 table gives 0.293/0.268/0.347 for the *response* within 5 %,
-#: which for E means rho_a within 11 %.)
+#: roots 0.1970 (E), 0.3129 (dB/dt), 0.4055 (B); rounded down here. (Bounding
+#: the *response* R(u) within 5 % instead gives u < 0.293/0.268/0.347, which
+#: for E means rho_a within 11 %.)
 U_LIMIT = {"e": 0.19, "dbdt": 0.31, "b": 0.40}
 
 #: The same limits on u = theta(rho) * r_max for a reference resistivity
@@ -123,7 +123,7 @@ def diffusion_depth(rho, t):
     Returns
     -------
     ndarray
-        Depth, m (NaN where rho is NaN). Ward & Hohmann (1988); REFERENCE 3.
+        Depth, m (NaN where rho is NaN). Ward & Hohmann (1988), from memory.
     """
     rho = np.asarray(rho, float)
     t = np.asarray(t, float)
@@ -163,7 +163,9 @@ def late_time_dbzdt(dbzdt, t, moment):
     """Late-time apparent resistivity from the step-off dBz/dt of a loop.
 
     rho_a = (mu0 / (4 pi t)) [2 mu0 |M| / (5 t |dBz/dt|)]^(2/3)
-    (Spies & Frischknecht 1991, loop dB/dt form; REFERENCE 2.2).
+    (Spies & Frischknecht 1991, "Electromagnetic sounding", in Nabighian (ed.),
+    EM Methods in Applied Geophysics vol. 2, SEG; loop dB/dt form, from memory;
+    re-derived from the late-time asymptote of Ward & Hohmann 1988).
 
     Parameters
     ----------
@@ -190,8 +192,9 @@ def late_time_dbzdt(dbzdt, t, moment):
 def late_time_bz(bz, t, moment):
     """Late-time apparent resistivity from the step-off B_z of a loop.
 
-    rho_a = (mu0 / (4 pi t)) [4 mu0 |M| / (15 |B_z|)]^(2/3) (REFERENCE 2.2,
-    re-derived from the asymptote of Ward & Hohmann 1988).
+    rho_a = (mu0 / (4 pi t)) [4 mu0 |M| / (15 |B_z|)]^(2/3) (after Spies &
+    Frischknecht 1991, from memory; re-derived from the late-time asymptote of
+    Ward & Hohmann 1988).
 
     Parameters
     ----------
@@ -216,8 +219,9 @@ def late_time_bz(bz, t, moment):
 def late_time_e(e, t, current_length):
     """Late-time apparent resistivity from the step-off E of a grounded wire.
 
-    rho_a = mu0^3 (I L)^2 / (144 pi^3 t^3 E^2) (REFERENCE 2.2, from the HED
-    asymptote of Ward & Hohmann 1988). At late time E does not depend on the
+    rho_a = mu0^3 (I L)^2 / (144 pi^3 t^3 E^2) (after Spies & Frischknecht
+    1991, from memory; re-derived from the late-time HED asymptote of Ward &
+    Hohmann 1988). At late time E does not depend on the
     receiver position.
 
     Parameters
@@ -245,7 +249,9 @@ def late_time_wire_dbzdt(dbzdt, t, current_length, y):
     """Late-time apparent resistivity from the dBz/dt of a straight wire.
 
     rho_a = (mu0 / (4 pi t)) [mu0 I L |y| / (5 t |dBz/dt|)]^(2/3)
-    (REFERENCE 2.2); the loop form with M = I L y / 2.
+    (after Spies & Frischknecht 1991, from memory; re-derived from the
+    late-time HED asymptote of Ward & Hohmann 1988): the loop form with
+    M = I L y / 2.
 
     Parameters
     ----------
@@ -312,8 +318,8 @@ def effective_moment(tx_kind, tx_points, rx_xy, current=1.0):
     S = sum_k ((B_k - A_k) x (r - A_k))_z over the straight segments: twice
     the signed area of a closed loop (independent of r), L y for a straight
     wire (y: signed perpendicular distance). Then the loop formulas for dBz/dt
-    and B_z apply to every source (REFERENCE 2.2: "the HED dB/dt form equals
-    the loop form with M -> I L y / 2").
+    and B_z apply to every source (from the late-time asymptotes of Ward &
+    Hohmann 1988, the HED dB/dt form equals the loop form with M -> I L y / 2).
 
     Parameters
     ----------
@@ -434,8 +440,8 @@ def late_time_rhoa(component, value, t, tx_kind, tx_points, rx, error=None, curr
     * without it: u = theta(rho_a) r_max below :data:`U_LIMIT` *and* the decay
       steeper than :data:`SLOPE_LIMIT` (d ln|value|/d ln t across the gates).
       The slope test is needed because at early times the late-time rho_a is
-      so large that its own u is small again (the same non-uniqueness as
-      REFERENCE 2.3); early-time step-off E and dB/dt are nearly constant in
+      so large that its own u is small again (the two-branch non-uniqueness
+      of Spies & Eggers 1986); early-time step-off E and dB/dt are nearly constant in
       time (Ward & Hohmann 1988 t -> 0+ limits), late-time ones fall as
       t^-1.5 and t^-2.5. The thresholds halfway between are common practice,
       no source. A single gate has no slope and is judged on u alone.
@@ -608,7 +614,9 @@ def halfspace_match(rho_grid, table, value, error=None, slope_table=None, peak_t
     The response of each datum's half-space is interpolated in ln(rho) by a
     cubic spline of response/datum - 1 (not-a-knot), and all its roots in the
     table range are returned: one on a monotonic stretch, two (or more) where
-    the response has a maximum (REFERENCE 2.3; Spies & Eggers 1986). With 16
+    the response has a maximum (Spies & Eggers 1986, "The use and misuse of
+    apparent resistivity in electromagnetic methods", Geophysics 51(7),
+    1462-1471, from memory). With 16
     resistivities per decade the interpolation error of a smooth half-space
     response is below 1e-4 (measured in tests/test_rhoa.py).
 

@@ -1,6 +1,6 @@
 """Stacking: cut at switch times, polarity-reversal combination, robust stack, errors.
 
-Method (docs/stacking.md; weights from REFERENCE.md section 6):
+Method (docs/stacking.md, where the weights are derived):
 
 1. The record is cut into half-period windows d_k (M samples each) starting
    at successive switch-off ends; window k has polarity p_k = (-1)^k.
@@ -8,8 +8,9 @@ Method (docs/stacking.md; weights from REFERENCE.md section 6):
    (a bipolar response obeys s(t + T/2) = -s(t)), so the means of adjacent
    window pairs sample the drift; a line through them is removed from each
    window. This cancels quadratic drift exactly after step 3.
-3. Three-window combination (REFERENCE.md 6.2, cf. Macnae, Lamontagne & West
-   1984, Geophysics 49(7)): e_k = p_k (d_k - 2 d_{k+1} + d_{k+2}) / 4. Any
+3. Three-window combination (Macnae, Lamontagne & West 1984, Geophysics
+   49(7), 934-948, from memory; docs/stacking.md section 3):
+   e_k = p_k (d_k - 2 d_{k+1} + d_{k+2}) / 4. Any
    offset plus linear drift cancels exactly. The mean of all e_k is the
    sliding stack with window weights p_j [1, 3, 4, ..., 4, 3, 1] / (4 (n-2)).
 4. Robust location of the e_k per sample: one-step M-estimates from a robust
@@ -291,7 +292,7 @@ class RecordingSource(WindowSource):
 
 # ---------------------------------------------------------------------------- kernels
 def combine_three(d, polarity0: int = 1):
-    """Three-window estimates e_k = p_k (d_k - 2 d_{k+1} + d_{k+2}) / 4 (REFERENCE.md 6.2).
+    """Three-window estimates e_k = p_k (d_k - 2 d_{k+1} + d_{k+2}) / 4 (docs/stacking.md).
 
     d : (n, M) consecutive half-period windows. Returns (n-2, M), a new array.
     """
@@ -303,7 +304,7 @@ def combine_three(d, polarity0: int = 1):
 
 
 def plain_bipolar_stack(d, polarity0: int = 1):
-    """Plain alternating stack (1/n) sum_k p_k d_k (REFERENCE.md 6.1), for comparison."""
+    """Plain alternating stack (1/n) sum_k p_k d_k (docs/stacking.md), for comparison."""
     d = np.asarray(d, float)
     p = polarity0 * (1.0 - 2.0 * (np.arange(d.shape[0]) % 2))
     return p @ d / d.shape[0]

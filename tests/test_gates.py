@@ -35,7 +35,7 @@ def test_gate_matrix_uses_forward_weights():
 
 @pytest.mark.parametrize("shape", ["boxcar", "taper"])
 def test_gate_average_matches_continuous_integral(shape):
-    # f = t^-2.5 (late dB/dt decay of a half-space, REFERENCE.md 2.1): the discrete gate must
+    # f = t^-2.5 (late dB/dt decay of a half-space, Ward & Hohmann 1988): the discrete gate must
     # match the continuous window average the forward model computes (Gauss-Legendre here)
     tab = log_gates(T, 1e-3, 0.4, per_decade=9, shape=shape)
     W = gate_matrix(T, tab)

@@ -2,7 +2,8 @@
 a bad station is reported and the others still inverted (exit status 1).
 
 Checks are on the product contract (docs/data-model.md) and on chi-square per
-datum near its target (REFERENCE.md 5); tolerances are common practice, no source.
+datum near its target (Constable, Parker & Constable 1987, Geophysics 52(3),
+289-300); tolerances are common practice, no source.
 """
 import csv
 

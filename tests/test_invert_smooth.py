@@ -1,7 +1,8 @@
 """Occam smooth inversion on toy problems with known answers (no EM kernel).
 
 Method: Constable, Parker & Constable 1987, Geophysics 52(3), 289-300 (Occam:
-smoothest model at the target misfit). Chi-square statistics: REFERENCE.md 5.
+smoothest model at the target misfit). Chi-square statistics: for Gaussian errors
+chi^2 over N data has mean N and standard deviation sqrt(2N) (textbook).
 """
 import numpy as np
 import pytest
@@ -24,7 +25,8 @@ def toy_fwd(m):
 
 
 def test_diffusion_depth_reference_value():
-    # REFERENCE.md section 3: rho = 100 ohm-m, t = 1e-3 s -> 398.94 m (Ward & Hohmann 1988 form)
+    # sqrt(2 t rho / mu0) (Ward & Hohmann 1988, from memory):
+    # rho = 100 ohm-m, t = 1e-3 s -> 398.94 m
     assert diffusion_depth(100.0, 1e-3) == pytest.approx(398.94, abs=0.01)
     assert diffusion_depth(10.0, 1e-2) == pytest.approx(398.94, abs=0.01)
 

@@ -1,8 +1,10 @@
 """Station inversion on synthetic Emberline Plateau data (tem.forward as the engine).
 
 Sources beside each check:
-* chi-square per datum, target 1: REFERENCE.md 5 (Constable, Parker & Constable 1987, Occam).
-* linearised posterior std from (J^T W J)^-1: Marquardt 1963 / Gauss-Markov (REFERENCE.md 5).
+* chi-square per datum, target 1: Constable, Parker & Constable 1987, Geophysics 52(3),
+  289-300 (Occam).
+* linearised posterior std from (J^T W J)^-1: Marquardt 1963, J. SIAM 11(2), 431-441 /
+  Gauss-Markov.
 * DOI from cumulative sensitivity: Christiansen & Auken 2012 (threshold from memory, UNVERIFIED).
 * tolerances 25 % / 10 % / 2 sigma / chi2 <= 1.2: the acceptance criteria of the inversion issue
   (common practice, no source).

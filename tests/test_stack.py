@@ -29,7 +29,7 @@ def tau(n):
 @pytest.mark.parametrize("est", ESTIMATORS)
 @pytest.mark.parametrize("detrend", [True, False])
 def test_offset_and_linear_drift_cancel_exactly(est, detrend):
-    # REFERENCE.md 6.2 (three-window combination kills c0 + c1 t exactly)
+    # three-window combination kills c0 + c1 t exactly (proof in docs/stacking.md section 3)
     n = 60
     d = record(n, 0.7 + 0.03 * tau(n))
     r = stack_windows(d, settings=StackSettings(estimator=est, detrend=detrend))
@@ -38,7 +38,7 @@ def test_offset_and_linear_drift_cancel_exactly(est, detrend):
 
 
 def test_plain_stack_leaves_half_drift():
-    # REFERENCE.md 6.1: plain bipolar stack leaves -c1/2 (c1 = drift per half-period)
+    # plain bipolar stack leaves -c1/2 (c1 = drift per half-period; docs/stacking.md section 3)
     n = 40
     c1 = 2e-5
     drift = c1 * np.repeat(np.arange(n)[:, None], M, axis=1)
@@ -48,7 +48,8 @@ def test_plain_stack_leaves_half_drift():
 
 def test_quadratic_drift_removed_by_detrend():
     # without the baseline each three-window estimate keeps 2 c2 (T/2)^2 / 4 of a quadratic
-    # drift c2 t^2, alternating in sign (REFERENCE.md 6.2); the period-mean baseline is exact
+    # drift c2 t^2, alternating in sign (docs/stacking.md section 3); the period-mean
+    # baseline is exact
     # for quadratic drift (docs/stacking.md), so every estimate is clean
     from tem.stack import _detrend
     n = 60
@@ -107,7 +108,8 @@ def test_robust_beats_mean_with_spikes():
 
 @pytest.mark.parametrize("mains", [50.0, 60.0])
 def test_mains_alone_rejected_40db(mains):
-    # REFERENCE.md 6.4: f_b = 5 Hz puts 50 and 60 Hz (and harmonics) on nulls; with slowly
+    # gain |sin(Nx)/(N sin x)| derived in docs/stacking.md section 6: f_b = 5 Hz puts 50 and
+    # 60 Hz (and harmonics) on nulls; with slowly
     # drifting amplitude (10 %/min) and phase (0.3 rad/min) the residual must be < -40 dB
     rng = np.random.default_rng(1)
     n = 600                                   # 60 s at f_b = 5 Hz
@@ -123,7 +125,8 @@ def test_mains_alone_rejected_40db(mains):
 
 
 def test_mains_rule_violated_passes_mains():
-    # REFERENCE.md 6.4: 50/f_b odd (f_b = 50/3 Hz, half-period 0.03 s) passes 50 Hz fully
+    # same gain (docs/stacking.md section 6): 50/f_b odd (f_b = 50/3 Hz, half-period 0.03 s)
+    # passes 50 Hz fully
     m = 120
     n = 200
     t = (np.arange(n)[:, None] * m + np.arange(m)[None, :]) / FS

@@ -61,7 +61,7 @@ class Simulation:
         Names of the libdlf filters. The defaults (key_201_2012 for both)
         reach 1e-4 against empymod on layered models and against closed forms
         down to u = theta r ~ 3e-3; at even later times the Fourier filter
-        loses accuracy (REFERENCE.md 2.2 and 4.2 show the same limit).
+        loses accuracy (empymod shows the same limit; docs/forward.md).
     freq_per_decade : float or None
         Density of the frequencies at which the layered kernel is evaluated
         (spline interpolation to the filters' frequencies); None evaluates at

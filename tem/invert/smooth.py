@@ -70,7 +70,7 @@ def roughness_matrix(n: int, weights=None) -> np.ndarray:
 
 
 def diffusion_depth(rho, t):
-    """Diffusion depth ``sqrt(2 t rho / mu0)`` in m (REFERENCE.md section 3).
+    """Diffusion depth ``sqrt(2 t rho / mu0)`` in m (Ward & Hohmann 1988, from memory).
 
     Parameters
     ----------
@@ -112,7 +112,7 @@ def best_halfspace(predict_uniform, d_obs, std, rho_range=(0.1, 1e5)):
 
     ``predict_uniform(ln_rho) -> d`` predicts the data of a uniform earth.
     The grid (4 points a decade) guards against the two-branch ambiguity of
-    early-time E-field data (REFERENCE.md 2.3); the best grid point is then
+    early-time E-field data (Spies & Eggers 1986); the best grid point is then
     refined with a bounded scalar search.
     """
     from scipy.optimize import minimize_scalar

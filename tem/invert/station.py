@@ -28,7 +28,7 @@ class InversionSettings:
         Layers of the smooth mesh including the half-space (>= 30 recommended).
     depth_min_factor, depth_max_factor : float
         First-layer thickness and top of the mesh half-space as fractions of
-        the diffusion depth (REFERENCE.md 3) of the best half-space at the
+        the diffusion depth (Ward & Hohmann 1988) of the best half-space at the
         earliest and latest usable gate (0.02 and 0.3; chosen here so that
         a 20 m top layer and a 5-10 km deep target fit one 30-layer mesh;
         no source).
