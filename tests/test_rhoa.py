@@ -420,7 +420,7 @@ def test_sounding_rhoa_dataset_halfspace_and_flags():
     rel_error); late-time valid gates within 5 % + 3 sigma (issue 4 and
     REFERENCE 2.2).
     """
-    from tem.rhoa_sounding import sounding_rhoa, table_rows
+    from tem.rhoa.sounding import sounding_rhoa, table_rows
 
     rng = np.random.default_rng(4)
     ds, sim = _gated("EM05", -1500.0, LayeredModel(thickness=[], resistivity=[300.0]), rng)
@@ -444,7 +444,7 @@ def test_sounding_rhoa_dataset_halfspace_and_flags():
 
 
 def test_sounding_rhoa_missing_geometry_is_a_clear_error():
-    from tem.rhoa_sounding import sounding_rhoa
+    from tem.rhoa.sounding import sounding_rhoa
 
     ds, sim = _gated("EM01", 0.0, LayeredModel(thickness=[], resistivity=[100.0]),
                      np.random.default_rng(0))
