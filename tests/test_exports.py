@@ -26,7 +26,7 @@ from tem.cli import main
 from tem.cli.section import read_rhoa_csv
 from tem.errors import TemInputError
 from tem.io.models import CSV_COLUMNS, read_models, write_models
-from tem.io.segy import apply_scalar, coordinate_scalar, read_velocity_table
+from tem.export.segy import apply_scalar, coordinate_scalar, read_velocity_table
 
 H1, V1, V2 = 150.0, 2000.0, 3000.0  # two-layer velocity model of the TWT test
 

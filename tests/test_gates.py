@@ -4,7 +4,7 @@ import pytest
 
 from tem.errors import TemInputError
 from tem.forward.gatewindow import weights
-from tem.gates import GateTable, gate_matrix, gate_values, log_gates, usable_gates
+from tem.gate.windows import GateTable, gate_matrix, gate_values, log_gates, usable_gates
 from tem.stack import StackSettings, stack_windows
 
 FS = 4000.0

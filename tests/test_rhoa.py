@@ -428,7 +428,7 @@ def test_sounding_rhoa_dataset_halfspace_and_flags():
     rel_error); late-time valid gates within 5 % + 3 sigma (issue 4; the late-time
     formulas of Spies & Frischknecht 1991, from memory).
     """
-    from tem.rhoa_sounding import sounding_rhoa, table_rows
+    from tem.rhoa.sounding import sounding_rhoa, table_rows
 
     rng = np.random.default_rng(4)
     ds, sim = _gated("EM05", -1500.0, LayeredModel(thickness=[], resistivity=[300.0]), rng)
@@ -452,7 +452,7 @@ def test_sounding_rhoa_dataset_halfspace_and_flags():
 
 
 def test_sounding_rhoa_missing_geometry_is_a_clear_error():
-    from tem.rhoa_sounding import sounding_rhoa
+    from tem.rhoa.sounding import sounding_rhoa
 
     ds, sim = _gated("EM01", 0.0, LayeredModel(thickness=[], resistivity=[100.0]),
                      np.random.default_rng(0))

@@ -4,7 +4,7 @@ and the section figures of tem.plot.
 Sources of the checks:
 * geometry: orthogonal projection of a point on a segment and arc length of a
   polyline (elementary Euclidean geometry, hand computation);
-* stitching: the definition in tem/section.py (the layer holding a depth;
+* stitching: the definition in tem/section/profile.py (the layer holding a depth;
   linear interpolation in log10 resistivity), checked against an independent
   loop over the layers written here;
 * two-way time through interval velocities: t(z) = 2 sum h_i / v_i (vertical
@@ -168,7 +168,7 @@ def test_bad_velocity_tables(depth, vel, field):
 
 # ------------------------------------------------------------------ figures
 def test_section_figure_shows_doi_mask(tmp_path):
-    from tem.plot import save_figure, section_figure
+    from tem.section.plot import save_figure, section_figure
 
     m = synthetic_models()
     g = stitch_models(m, 5.0, positions=np.arange(0.0, 1001.0, 50.0))
@@ -191,7 +191,7 @@ def test_model_figure_with_huge_std_does_not_overflow():
     # Emberline recording); 10**std overflowed with a RuntimeWarning
     import warnings
 
-    from tem.plot import model_figure
+    from tem.section.plot import model_figure
     m = synthetic_models()
     m["log10_res_std"].values[:, :3] = 565.0
     with warnings.catch_warnings():

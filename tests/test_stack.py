@@ -51,7 +51,7 @@ def test_quadratic_drift_removed_by_detrend():
     # drift c2 t^2, alternating in sign (docs/stacking.md section 3); the period-mean
     # baseline is exact
     # for quadratic drift (docs/stacking.md), so every estimate is clean
-    from tem.stack import _detrend
+    from tem.stack.stacking import _detrend
     n = 60
     c2 = 1e-3
     d = record(n, c2 * tau(n) ** 2)
@@ -190,7 +190,7 @@ def _reference_stack(src, s):
     Same method (docs/stacking.md): float64 windows, _detrend per chunk, combine_three,
     pooled median/MAD start, float32 residuals, per-batch psi sums. Only for comparison.
     """
-    from tem.stack import _MAD, _batches, _detrend
+    from tem.stack.stacking import _MAD, _batches, _detrend
 
     def estimates(k0, k1, t_frac):
         pol = src.polarity0 * (1 if k0 % 2 == 0 else -1)

@@ -10,7 +10,7 @@ from tem.cli import main
 from tem.cli.synth import read_models_csv
 from tem.errors import TemInputError
 from tem.forward import Simulation
-from tem.gates import gate_stacked
+from tem.gate.windows import gate_stacked
 from tem.io.raw import open_recording, sidecar_path
 from tem.io.stacked import read_product
 from tem.stack import StackSettings, stack_station

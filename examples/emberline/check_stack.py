@@ -19,7 +19,7 @@ from pathlib import Path
 import numpy as np
 
 from tem.forward import Simulation
-from tem.gates import gate_stacked
+from tem.gate.windows import gate_stacked
 from tem.io.stacked import stacked_dataset
 from tem.stack import StackSettings, stack_station
 from tem.synth import (emberline_survey, forward_receiver, forward_source, survey_waveform,

@@ -63,8 +63,8 @@ def _depth_interval_mm(step):
 
 
 def run(args) -> int:
-    from ..io import las as las_io
-    from ..io import segy
+    from ..export import las as las_io
+    from ..export import segy
     from ..io.atomic import write_text_atomic
     from ..io.models import read_models, write_models_csv
     from ..provenance import records_from_json, stage_record

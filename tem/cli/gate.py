@@ -43,7 +43,7 @@ def _check_options(args):
 def run(args) -> int:
     from rich.console import Console
 
-    from ..gates import gate_stacked
+    from ..gate.windows import gate_stacked
     from ..io.stacked import read_product, write_dataset
     from ..qc import decay_figure, qc_rows, qc_table
     src = Path(args.stacked)

@@ -46,7 +46,7 @@ def _inputs(paths):
 
 
 def _csv_text(rows):
-    from ..rhoa_sounding import TABLE_COLUMNS
+    from ..rhoa.sounding import TABLE_COLUMNS
     buf = io.StringIO()
     w = csv.writer(buf, lineterminator="\n")
     w.writerow(TABLE_COLUMNS)
@@ -64,7 +64,7 @@ def run(args) -> int:
     from ..io.atomic import write_text_atomic
     from ..io.stacked import read_product, write_dataset
     from ..rhoa import rho_grid
-    from ..rhoa_sounding import sounding_rhoa, table_rows
+    from ..rhoa.sounding import sounding_rhoa, table_rows
 
     files = _inputs(args.gated)
     out = Path(args.out)
@@ -90,8 +90,8 @@ def run(args) -> int:
                 results.append((f.stem, res))
                 if args.no_figures:
                     continue
-                from ..plot import save_figure
-                from ..rhoa_plot import sounding_figure
+                from ..section.plot import save_figure
+                from ..rhoa.plot import sounding_figure
                 save_figure(sounding_figure(res, title=f"station {name}: apparent resistivity"),
                             out / "figures" / f"sounding_{f.stem}", formats=("png",))
             except TemInputError as exc:
@@ -109,8 +109,8 @@ def _sections(results, args, out, console):
     import numpy as np
 
     from .. import rhoa as R
-    from ..plot import save_figure
-    from ..rhoa_plot import pseudo_section
+    from ..section.plot import save_figure
+    from ..rhoa.plot import pseudo_section
 
     key = "rhoa_late" if args.late_only else "rhoa"
     comps = [args.component] if args.component else sorted(

@@ -160,9 +160,9 @@ def _check_colour_range(vmin, vmax):
 def run(args) -> int:
     from ..io.models import export_record, read_models
     from ..io.sections import write_section_grid
-    from ..plot import model_figure, pseudo_section_figure, save_figure, section_figure
+    from ..section.plot import model_figure, pseudo_section_figure, save_figure, section_figure
     from ..provenance import records_from_json
-    from ..report import write_report
+    from ..report.html import write_report
     from ..section import pseudo_section_grid
 
     models = read_models(args.models)

@@ -68,9 +68,9 @@ def section_grid(models, sp, depth=None):
 def _pseudo_sections(project, sp, rp, ok, formats):
     """Apparent-resistivity pseudo-section per component from ``rhoa/<station>.nc``."""
     from ..io.stacked import read_product
-    from ..plot import save_figure
+    from ..section.plot import save_figure
     from ..rhoa import diffusion_depth
-    from ..rhoa_plot import pseudo_section
+    from ..rhoa.plot import pseudo_section
 
     data = []
     for sid in ok:
@@ -107,7 +107,7 @@ def stage_section(survey, project, params, ctx) -> StageResult:
     """Section grid, section and model figures, pseudo-sections (and the LCI section)."""
     from ..io.models import read_models
     from ..io.sections import write_section_grid
-    from ..plot import model_figure, save_figure, section_figure
+    from ..section.plot import model_figure, save_figure, section_figure
 
     res = StageResult()
     figs = project.folder("figures")
@@ -154,8 +154,8 @@ def _whole(value, lo, hi, field, what):
 
 def stage_export(survey, project, params, ctx) -> StageResult:
     """CSV layer table, LAS pseudo-wells, SEG-Y depth and two-way-time sections."""
-    from ..io import las as las_io
-    from ..io import segy
+    from ..export import las as las_io
+    from ..export import segy
     from ..io.atomic import write_text_atomic
     from ..io.models import read_models, write_models_csv
     from ..io.sections import read_section_grid
@@ -228,7 +228,7 @@ def _png(path):
 def stage_report(survey, project, params, ctx) -> StageResult:
     """``report.html``: station table, section, model and per-station figures."""
     from ..io.models import read_models
-    from ..report import STATUS_MISFIT, STATUS_NONE, STATUS_OK, write_report
+    from ..report.html import STATUS_MISFIT, STATUS_NONE, STATUS_OK, write_report
 
     mfile = _need(project.folder("models") / "models.nc", "report")
     models = read_models(mfile)

@@ -25,7 +25,7 @@ def _checksums(paths):
 
 
 def _save_png(fig, path):
-    from ..plot import save_figure
+    from ..section.plot import save_figure
     return save_figure(fig, Path(path).with_suffix(""), formats=("png",), dpi=110)[0]
 
 
@@ -86,7 +86,7 @@ def _worst_qc(rows):
 
 
 def _gate_one(sid, in_path, out_path, params, fig_path):
-    from ..gates import gate_stacked
+    from ..gate.windows import gate_stacked
     from ..io.stacked import read_product, write_dataset
     from ..qc import decay_figure, qc_rows
 
@@ -117,7 +117,7 @@ def stage_gate(survey, project, params, ctx) -> StageResult:
 # ---------------------------------------------------------------------------- rhoa
 def _rhoa_one(sid, in_path, out_path, params, fig_path):
     from ..io.stacked import read_product, write_dataset
-    from ..rhoa_sounding import sounding_rhoa, table_rows
+    from ..rhoa.sounding import sounding_rhoa, table_rows
 
     ds = read_product(in_path, "gated")
     res = sounding_rhoa(ds, all_time=params["all_time"], rho_min=params["rho_min"],
@@ -126,7 +126,7 @@ def _rhoa_one(sid, in_path, out_path, params, fig_path):
     write_dataset(res, out_path)
     outputs = [str(out_path)]
     if fig_path:
-        from ..rhoa_plot import sounding_figure
+        from ..rhoa.plot import sounding_figure
         outputs.append(str(_save_png(sounding_figure(res, title=f"station {sid}: apparent "
                                                      "resistivity"), fig_path)))
     key = "rhoa" if params["all_time"] else "rhoa_late"
@@ -151,7 +151,7 @@ def _write_rows_csv(path, columns, rows):
 
 def stage_rhoa(survey, project, params, ctx) -> StageResult:
     """All-time and late-time apparent resistivity into ``rhoa/<station>.nc`` and ``rhoa.csv``."""
-    from ..rhoa_sounding import TABLE_COLUMNS
+    from ..rhoa.sounding import TABLE_COLUMNS
 
     figs = ctx.params["report"]["station_figures"]
     jobs = [(sid, (sid, project.station_file("gated", sid), project.station_file("rhoa", sid),

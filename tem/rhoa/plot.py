@@ -15,7 +15,7 @@ import numpy as np
 from matplotlib.backends.backend_agg import FigureCanvasAgg
 from matplotlib.figure import Figure
 
-from .errors import input_error
+from ..errors import input_error
 
 __all__ = ["sounding_figure", "pseudo_section", "UNITS"]
 
@@ -140,8 +140,8 @@ def pseudo_section(stations, x, y, times, rhoa, depths=None, axis_kind="time", n
     -------
     matplotlib.figure.Figure
     """
-    from .plot import pseudo_section_figure
-    from .section import polyline_chainage, pseudo_section_grid, station_line
+    from ..section.plot import pseudo_section_figure
+    from ..section.profile import polyline_chainage, pseudo_section_grid, station_line
 
     if axis_kind not in ("time", "depth"):
         raise input_error("axis_kind", f"unknown axis {axis_kind!r}; valid: time, depth")

@@ -22,8 +22,8 @@ import numpy as np
 
 from .. import __version__
 from ..errors import input_error
-from ..section import layer_values
-from .atomic import atomic_path
+from ..section.profile import layer_values
+from ..io.atomic import atomic_path
 
 __all__ = ["NULL", "station_log", "las_for_station", "write_las", "write_las_all", "safe_name"]
 

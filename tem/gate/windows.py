@@ -21,8 +21,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .errors import input_error
-from .forward.gatewindow import check_shape, weights
+from ..errors import input_error
+from ..forward.gatewindow import check_shape, weights
 
 __all__ = ["GateTable", "log_gates", "gate_matrix", "gate_values", "noise_floor", "usable_gates",
            "default_range", "gate_stacked"]
@@ -178,8 +178,8 @@ def gate_stacked(stacked, per_decade: float = 9.0, shape: str = "boxcar", t_min=
     The gate table is shared by all channels of the station (docs/data-model.md).
     Dead channels are kept with every gate flagged unusable.
     """
-    from .io.stacked import gated_dataset, result_from_dataset
-    from .provenance import stage_record
+    from ..io.stacked import gated_dataset, result_from_dataset
+    from ..provenance import stage_record
     if not (np.isfinite(snr_min) and snr_min >= 0):
         raise input_error("snr_min", f"must be zero or positive, got {snr_min}")
     times = stacked["time"].values
@@ -204,7 +204,7 @@ def gate_stacked(stacked, per_decade: float = 9.0, shape: str = "boxcar", t_min=
         if bool(stacked["dead"].values[c]):
             usable[c] = False
     prov = list(provenance) or []
-    from .io.stacked import provenance_of
+    from ..io.stacked import provenance_of
     prov = provenance_of(stacked) + prov + [stage_record("gate", {
         "per_decade": per_decade, "shape": shape, "t_min": t_min, "t_max": t_max,
         "snr_min": snr_min})]

@@ -28,7 +28,7 @@ Method (docs/stacking.md, where the weights are derived):
    (a gate) gets its error the same way.
 
 Steps 1-4 run in one compiled pass per chunk of windows
-(:mod:`tem.stack_kernels`; a chunk of an ``.npy`` recording is memory-mapped,
+(:mod:`tem.stack.kernels`; a chunk of an ``.npy`` recording is memory-mapped,
 not copied). The numpy helpers here (:func:`combine_three`, :func:`_detrend`)
 state the same steps plainly. Reading and headers are apart.
 """
@@ -40,8 +40,8 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from . import stack_kernels as _kern
-from .errors import input_error
+from . import kernels as _kern
+from ..errors import input_error
 
 __all__ = ["ESTIMATORS", "StackSettings", "StackResult", "WindowSource", "ArraySource",
            "RecordingSource", "combine_three", "stack_windows", "stack_source",
@@ -396,7 +396,7 @@ def _run_kernel(src, k0, k1, step, detrend, t_frac, mode, acc=None, start=None, 
     Maps windows k0-1 .. last+3 (k0 .. last+2 without detrend: what the
     baseline of the estimates needs), then accumulates into ``acc`` =
     (spsi, cnt, sdpsi, tally) or writes ``emit`` = (e, bad). The mean of a
-    chunk without clipped samples goes through :func:`stack_kernels.mean_pass`.
+    chunk without clipped samples goes through :func:`tem.stack.kernels.mean_pass`.
     Raises the input error of a NaN or infinite sample.
     """
     n_est = len(range(k0, k1, step))
@@ -478,7 +478,7 @@ def stack_source(src: WindowSource, settings: StackSettings = StackSettings(), p
     """Stack all windows of a :class:`WindowSource` (streams chunk by chunk).
 
     Two passes: a small one for the robust start (not for ``mean``), then one
-    compiled pass over every chunk of windows (:mod:`tem.stack_kernels`) that
+    compiled pass over every chunk of windows (:mod:`tem.stack.kernels`) that
     reads each stored sample once and accumulates the psi sums per batch.
     Returns a :class:`StackResult` in the units of the source.
     """
@@ -638,7 +638,7 @@ def timing_for_station(survey, station, recordings: dict):
     timing came from ("survey" or "current"), residual_rms (s) is the rms of
     the detected switch times about a straight line (NaN for "survey").
     """
-    from .survey import seconds_between
+    from ..survey import seconds_between
     tx = survey.transmitter
     rec0 = recordings[station.data_receivers[0].component]
     t_first = seconds_between(rec0.header.start_time, tx.first_switch_off)
@@ -666,8 +666,8 @@ def stack_station(survey, station, settings: StackSettings = StackSettings(), pr
     dict ``{"source", "residual_rms", "t_first", "delay"}``. Raises
     :class:`tem.errors.TemInputError` naming file and field on bad input.
     """
-    from .io.raw import open_receiver
-    from .survey import seconds_between
+    from ..io.raw import open_receiver
+    from ..survey import seconds_between
     tx = survey.transmitter
     recs = {rx.component: open_receiver(rx, survey) for rx in station.receivers}
     if not station.data_receivers:

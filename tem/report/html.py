@@ -20,9 +20,9 @@ from pathlib import Path
 
 import numpy as np
 
-from . import SAFETY_NOTE, __version__
-from .errors import input_error
-from .io.atomic import write_text_atomic
+from .. import SAFETY_NOTE, __version__
+from ..errors import input_error
+from ..io.atomic import write_text_atomic
 
 __all__ = ["station_table", "render_report", "write_report", "STATUS_OK", "STATUS_MISFIT",
            "STATUS_NONE"]

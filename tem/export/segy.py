@@ -33,8 +33,8 @@ import numpy as np
 
 from .. import __version__
 from ..errors import input_error
-from ..section import check_velocity_table, depth_to_twt, twt_to_depth
-from .atomic import atomic_path
+from ..section.profile import check_velocity_table, depth_to_twt, twt_to_depth
+from ..io.atomic import atomic_path
 
 __all__ = [
     "coordinate_scalar",

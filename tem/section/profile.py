@@ -23,7 +23,7 @@ from pathlib import Path
 
 import numpy as np
 
-from .errors import input_error
+from ..errors import input_error
 
 __all__ = [
     "read_line_csv",

@@ -16,8 +16,8 @@ from matplotlib.backends.backend_agg import FigureCanvasAgg
 from matplotlib.colors import LogNorm
 from matplotlib.figure import Figure
 
-from .errors import input_error
-from .io.atomic import atomic_path
+from ..errors import input_error
+from ..io.atomic import atomic_path
 
 __all__ = ["section_figure", "pseudo_section_figure", "model_figure", "save_figure",
            "CMAP", "BELOW_DOI_STYLES"]
@@ -207,7 +207,7 @@ def model_figure(models, indices=None, max_depth=None, ncols=6, panel_width=1.8,
     max_depth : float or None
         Depth axis bottom, m; default 1.25 times the deepest DOI.
     """
-    from .section import default_max_depth
+    from .profile import default_max_depth
 
     idx = list(range(models.sizes["station"])) if indices is None else list(indices)
     if not idx:

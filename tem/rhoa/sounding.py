@@ -9,10 +9,11 @@ from __future__ import annotations
 
 import numpy as np
 
-from . import __version__
-from . import rhoa as R
-from .errors import input_error
-from .provenance import records_from_json, records_to_json, stage_record
+from .. import __version__
+from . import all_time as _at
+from . import late_time as _lt
+from ..errors import input_error
+from ..provenance import records_from_json, records_to_json, stage_record
 
 __all__ = ["sounding_rhoa", "simulation_for_sounding", "table_rows", "TABLE_COLUMNS",
            "FORMAT_VERSION"]
@@ -44,7 +45,7 @@ def _check(ds, source):
 
 def simulation_for_sounding(ds, source=None):
     """The forward Simulation of a gated sounding (same geometry, waveform, gates, filter)."""
-    from .forward import Simulation
+    from ..forward import Simulation
 
     return Simulation.from_sounding(ds, source=source)
 
@@ -91,9 +92,9 @@ def sounding_rhoa(ds, all_time=True, rho_min=0.1, rho_max=1e5, points_per_decade
     if all_time:
         if sim is None:
             sim = simulation_for_sounding(ds, source)
-        at = R.all_time_rhoa(sim, value, error, rho_min, rho_max, points_per_decade, progress)
+        at = _at.all_time_rhoa(sim, value, error, rho_min, rho_max, points_per_decade, progress)
     else:
-        at = R.AllTimeResult(nan, nan.copy(), nan.copy(), np.zeros(value.shape, int), nan.copy(),
+        at = _at.AllTimeResult(nan, nan.copy(), nan.copy(), np.zeros(value.shape, int), nan.copy(),
                              nan.copy(), np.zeros(value.shape, np.int64))
     pts = np.asarray(ds.attrs["tx_points"], float)
     kind = str(ds.attrs["tx_kind"])
@@ -103,14 +104,14 @@ def sounding_rhoa(ds, all_time=True, rho_min=0.1, rho_max=1e5, points_per_decade
     for c in range(n_ch):
         rx = [float(ds[k].values[c]) for k in ("rx_x0", "rx_y0", "rx_x1", "rx_y1")]
         ref = at.rho[c] if all_time else None
-        lt = R.late_time_rhoa(str(ds["component"].values[c]), value[c], t, kind, pts, rx,
+        lt = _lt.late_time_rhoa(str(ds["component"].values[c]), value[c], t, kind, pts, rx,
                               error=error[c], rho_ref=ref)
         late["rho"][c], late["rel"][c], late["u"][c] = lt.rho, lt.rel_error, lt.u
         late_valid[c], late_flags[c] = lt.valid, lt.flags
     flags = at.flags.copy()
-    flags[~usable] |= R.FLAGS["unusable"]
-    late_flags[~usable] |= R.FLAGS["unusable"]
-    depth = R.diffusion_depth(at.rho, t[None, :])
+    flags[~usable] |= _lt.FLAGS["unusable"]
+    late_flags[~usable] |= _lt.FLAGS["unusable"]
+    depth = _lt.diffusion_depth(at.rho, t[None, :])
     dims = ("channel", "gate")
     keep_attrs = {k: v for k, v in ds.attrs.items() if k not in ("tem_format", "format_version",
                                                                  "tem_version", "provenance")}
@@ -131,15 +132,15 @@ def sounding_rhoa(ds, all_time=True, rho_min=0.1, rho_max=1e5, points_per_decade
             "rhoa_high": (dims, at.rho_high, {"units": "ohm-m"}),
             "rhoa_n_roots": (dims, np.asarray(at.n_roots, np.int32)),
             "rhoa_rel_error": (dims, at.rel_error, {"units": "1"}),
-            "rhoa_flags": (dims, flags, {"flag_masks": list(R.FLAGS.values()),
-                                         "flag_meanings": " ".join(R.FLAGS)}),
+            "rhoa_flags": (dims, flags, {"flag_masks": list(_lt.FLAGS.values()),
+                                         "flag_meanings": " ".join(_lt.FLAGS)}),
             "pseudo_depth": (dims, depth, {"units": "m", "long_name": "diffusion depth of rhoa"}),
             "rhoa_late": (dims, late["rho"], {"units": "ohm-m"}),
             "rhoa_late_rel_error": (dims, late["rel"], {"units": "1"}),
             "rhoa_late_u": (dims, late["u"], {"units": "1"}),
             "rhoa_late_valid": (dims, late_valid),
-            "rhoa_late_flags": (dims, late_flags, {"flag_masks": list(R.FLAGS.values()),
-                                                   "flag_meanings": " ".join(R.FLAGS)}),
+            "rhoa_late_flags": (dims, late_flags, {"flag_masks": list(_lt.FLAGS.values()),
+                                                   "flag_meanings": " ".join(_lt.FLAGS)}),
         },
         attrs={**keep_attrs, "tem_format": "rhoa", "format_version": FORMAT_VERSION,
                "tem_version": __version__, "provenance": records_to_json(prov)},
@@ -168,8 +169,8 @@ def table_rows(out):
                 float(out["gate_centre"].values[g]), float(v("value")), float(v("error")),
                 int(bool(v("usable"))), float(v("rhoa")), float(v("rhoa_rel_error")),
                 float(v("rhoa_low")), float(v("rhoa_high")), int(v("rhoa_n_roots")),
-                float(v("pseudo_depth")), R.flag_text(v("rhoa_flags")), float(v("rhoa_late")),
+                float(v("pseudo_depth")), _lt.flag_text(v("rhoa_flags")), float(v("rhoa_late")),
                 float(v("rhoa_late_u")), int(bool(v("rhoa_late_valid"))),
-                R.flag_text(v("rhoa_late_flags")),
+                _lt.flag_text(v("rhoa_late_flags")),
             ))
     return rows
