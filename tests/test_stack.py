@@ -190,7 +190,8 @@ def _reference_stack(src, s):
     Same method (docs/stacking.md): float64 windows, _detrend per chunk, combine_three,
     pooled median/MAD start, float32 residuals, per-batch psi sums. Only for comparison.
     """
-    from tem.stack.stacking import _MAD, _batches, _detrend
+    from tem.stack.batchvar import batch_lags, pooled_lag_correlations, variance_factor
+    from tem.stack.stacking import _MAD, _batches, _detrend, rail_counts
 
     def estimates(k0, k1, t_frac):
         pol = src.polarity0 * (1 if k0 % 2 == 0 else -1)
@@ -301,8 +302,18 @@ def _reference_stack(src, s):
         infl = s0 * (spsi_b - cnt_b * mean_psi) / denom
     value = np.where(~(sdpsi > 0) & (n_used > 0), m0, value)
     infl = np.nan_to_num(infl)
-    err = np.sqrt(nb / (nb - 1.0) * np.sum(infl * infl, axis=0))
-    scale = np.sqrt(np.maximum(err ** 2 * n_used, 0.0)) if s.estimator == "mean" else s0
+    # errors: the batch variance with the pooled lag correction (tem.stack.batchvar, tested
+    # by Monte Carlo below), rails counted from the clip mask and the sign of the sample
+    ss = np.sum(infl * infl, axis=0)
+    rho = pooled_lag_correlations(infl, batch_lags(n_est, nb))
+    err = np.sqrt(variance_factor(rho[0], nb) * ss)
+    scale = np.sqrt(np.maximum(nb / (nb - 1.0) * ss * n_used, 0.0)) if s.estimator == "mean" else s0
+    d, clip = src.get(0, src.n_windows)
+    rails = np.zeros((src.n_windows, 2), np.int64)
+    if clip is not None:
+        rails[:, 0] = (clip & (d > 0)).sum(axis=1)
+        rails[:, 1] = (clip & ~(d > 0)).sum(axis=1)
+    counts.update(rail_counts(rails))
     return value, err, infl, n_used, scale, counts
 
 

@@ -25,7 +25,7 @@ from ..errors import input_error
 from ..forward.gatewindow import check_shape, weights
 
 __all__ = ["GateTable", "log_gates", "gate_matrix", "gate_values", "noise_floor", "usable_gates",
-           "default_range", "gate_stacked"]
+           "default_range", "gate_stacked", "last_usable_time"]
 
 
 @dataclass(frozen=True)
@@ -155,6 +155,17 @@ def usable_gates(value, error, t_open, t_close, t_limit: float, snr_min: float =
     return ok & (np.abs(v) >= snr_min * e)
 
 
+def last_usable_time(t_close, usable) -> float:
+    """End (s) of the run of usable gates that starts at the first usable gate; NaN if none."""
+    u = np.asarray(usable, bool)
+    if not u.any():
+        return float("nan")
+    i = int(np.argmax(u))
+    while i + 1 < u.size and u[i + 1]:
+        i += 1
+    return float(np.asarray(t_close)[i])
+
+
 def default_range(times, off_time: float, half_period: float):
     """Default gate range (s): from 16 samples after time zero to the end of the off-time.
 
@@ -176,8 +187,13 @@ def gate_stacked(stacked, per_decade: float = 9.0, shape: str = "boxcar", t_min=
     """Gate every channel of a stacked Dataset; returns the gated-sounding Dataset.
 
     The gate table is shared by all channels of the station (docs/data-model.md).
-    Dead channels are kept with every gate flagged unusable.
+    Dead channels are kept with every gate flagged unusable. Per channel the
+    gated file also holds ``last_usable`` (s, :func:`last_usable_time`) and
+    ``noise_slope``, how the noise of the late samples falls with the number
+    of periods stacked, measured on halves, quarters and eighths of the record
+    (:func:`tem.stack.batchvar.noise_by_length`; -0.5 for random noise).
     """
+    from ..stack.batchvar import noise_by_length
     from ..io.stacked import gated_dataset, result_from_dataset
     from ..provenance import stage_record
     if not (np.isfinite(snr_min) and snr_min >= 0):
@@ -194,6 +210,9 @@ def gate_stacked(stacked, per_decade: float = 9.0, shape: str = "boxcar", t_min=
     error = np.empty_like(value)
     usable = np.zeros_like(value, bool)
     floor = np.empty(nch)
+    last = np.full(nch, np.nan)
+    slope = np.full(nch, np.nan)
+    late = (times >= t_max / 3.0) & (times <= t_max)
     for c in range(nch):
         res = result_from_dataset(stacked, c)
         value[c] = W @ res.value
@@ -203,9 +222,13 @@ def gate_stacked(stacked, per_decade: float = 9.0, shape: str = "boxcar", t_min=
                                  snr_min)
         if bool(stacked["dead"].values[c]):
             usable[c] = False
+        last[c] = last_usable_time(table.close, usable[c])
+        slope[c] = noise_by_length(res.influence, res.lag_corr, late if late.any() else None)[0]
     prov = list(provenance) or []
     from ..io.stacked import provenance_of
     prov = provenance_of(stacked) + prov + [stage_record("gate", {
         "per_decade": per_decade, "shape": shape, "t_min": t_min, "t_max": t_max,
         "snr_min": snr_min})]
-    return gated_dataset(stacked, table, value, error, usable, floor, prov)
+    measures = {"last_usable": (last, "s", "end of the first run of usable gates"),
+                "noise_slope": (slope, "1", "d log(noise) / d log(periods stacked), late samples")}
+    return gated_dataset(stacked, table, value, error, usable, floor, prov, measures)

@@ -2,8 +2,14 @@
 
 ``stacked/<station>.nc`` (``tem_format = "stacked"``) holds per channel the
 stacked half-period transient, its standard error and the batch influence
-sums from which any gate's error follows (docs/stacking.md).
-``gated/<station>.nc`` (``tem_format = "gated"``) follows docs/data-model.md.
+sums from which any gate's error follows (docs/stacking.md), and the
+per-channel checks of the raw record (window means, rail counts, half-cycle
+asymmetry, mains, offset and drift; docs/qc.md).
+``gated/<station>.nc`` (``tem_format = "gated"``) follows docs/data-model.md,
+plus per-channel noise measures (docs/qc.md).
+
+Version 1.1 (both) adds variables to 1.0; 1.0 files still read (missing
+measures read as absent, errors as uncorrelated batches).
 """
 from __future__ import annotations
 
@@ -19,10 +25,22 @@ from ..provenance import records_from_json, records_to_json
 from .atomic import atomic_path
 
 __all__ = ["stacked_dataset", "write_dataset", "read_product", "gated_dataset", "result_from_dataset",
-           "COUNT_FIELDS"]
+           "COUNT_FIELDS", "CHECK_FIELDS"]
 
 COUNT_FIELDS = ("transients_total", "transients_used", "rejected_noisy", "rejected_bad_samples",
-                "samples_clipped", "samples_outlier")
+                "samples_clipped", "samples_outlier", "clipped_high", "clipped_low",
+                "windows_clipped")
+#: Raw-record checks per channel (tem.stack.station.ChannelStack.checks): (key, unit, meaning)
+CHECK_FIELDS = (("offset", "V", "median baseline at the logger"),
+                ("drift", "V/s", "slope of the baseline at the logger"),
+                ("wander", "V", "rms of the baseline about its straight line"),
+                ("asymmetry", "1", "half-cycle asymmetry sum|P-N| / sum|P+N| over the off-time"),
+                ("asymmetry_windows", "1", "off-time windows the asymmetry is taken over"),
+                ("mains", "V", "mains fundamental amplitude at the logger"),
+                ("mains_rms", "V", "rms of mains fundamental and harmonics at the logger"),
+                ("duration", "s", "record length stacked"),
+                ("full_scale", "V", "digitiser full scale at the logger"))
+_VERSION = "1.1"
 _MAJOR = "1"
 
 
@@ -51,23 +69,51 @@ def _common_attrs(survey, station, fmt, provenance):
     }
 
 
+def _padded(arrays, fill, dtype=float):
+    """Stack arrays of equal rank whose first dimension may differ, padding with ``fill``."""
+    n = max(a.shape[0] for a in arrays)
+    out = np.full((len(arrays), n) + arrays[0].shape[1:], fill, dtype)
+    for i, a in enumerate(arrays):
+        out[i, :a.shape[0]] = a
+    return out
+
+
 def stacked_dataset(survey, station, channels, timing, settings, provenance) -> xr.Dataset:
     """Dataset of one station's stacked channels (see module docstring)."""
     times = channels[0].times
     geo = np.array([_rx_geometry(c.receiver, station) for c in channels], float)
+    res = [c.result for c in channels]
+    rhos = [np.atleast_2d(r.lag_corr) for r in res]
+    lag_corr = np.zeros((len(res), max(r.shape[0] for r in rhos), max(r.shape[1] for r in rhos)))
+    for i, rho in enumerate(rhos):
+        lag_corr[i, :rho.shape[0], :rho.shape[1]] = rho
+        lag_corr[i, rho.shape[0]:, :rho.shape[1]] = rho[-1]
     data = {
         "value": (("channel", "time"), np.stack([c.result.value for c in channels]),
                   {"long_name": "stacked transient per ampere"}),
         "error": (("channel", "time"), np.stack([c.result.error for c in channels]),
                   {"long_name": "one standard error of value"}),
         "influence": (("channel", "batch", "time"),
-                      np.stack([c.result.influence for c in channels]),
-                      {"long_name": "batch influence sums; error^2 = B/(B-1) sum_b influence^2"}),
+                      _padded([r.influence for r in res], 0.0, np.float32),
+                      {"long_name": "batch influence sums (error: tem.stack.batchvar)"}),
+        "n_batches": ("channel", np.array([r.influence.shape[0] for r in res], np.int64)),
+        "lag_corr": (("channel", "lag_kind", "lag"), lag_corr,
+                     {"long_name": "correlation of neighbouring batch sums at lags 1..L, "
+                                   "pooled over averages of 1, 4, 16, ... samples (kind 0, 1, "
+                                   "2, ...)"}),
+        "window_mean": (("channel", "window"), _padded([r.window_means for r in res], np.nan),
+                        {"long_name": "mean of each half-period window (unclipped samples)",
+                         "units": "V"}),
+        "window_rails": (("channel", "window", "rail"),
+                         _padded([r.window_rails for r in res], 0, np.int64),
+                         {"long_name": "samples at the positive (rail 0) and negative (rail 1) "
+                                       "full-scale rail"}),
         "n_used": (("channel", "time"), np.stack([c.result.n_used for c in channels])),
         "scale": (("channel", "time"), np.stack([c.result.scale for c in channels]),
                   {"long_name": "robust spread of one three-window estimate"}),
         "excerpt": (("channel", "excerpt_time"), np.stack([c.excerpt for c in channels]),
-                    {"long_name": "first full period of the raw record, normalised"}),
+                    {"long_name": "one full period of the raw record from its first positive "
+                                  "switch-off, normalised"}),
         "raw_rms": ("channel", np.array([c.raw_rms for c in channels]), {"units": "V"}),
         "dead": ("channel", np.array([c.dead for c in channels])),
         "component": ("channel", np.array([c.receiver.component for c in channels])),
@@ -79,10 +125,15 @@ def stacked_dataset(survey, station, channels, timing, settings, provenance) -> 
     }
     for f in COUNT_FIELDS:
         data[f] = ("channel", np.array([c.result.counts.get(f, 0) for c in channels], np.int64))
+    for key, unit, meaning in CHECK_FIELDS:
+        data[key] = ("channel", np.array([float(c.checks.get(key, np.nan)) for c in channels]),
+                     {"units": unit, "long_name": meaning})
     fs = 1.0 / (times[1] - times[0])
     attrs = _common_attrs(survey, station, "stacked", provenance)
-    attrs.update(sample_rate=fs, timing_source=timing["source"],
+    attrs.update(format_version=_VERSION, sample_rate=fs, timing_source=timing["source"],
                  timing_residual=float(timing["residual_rms"]),
+                 cut_offset=float(timing.get("cut_offset", np.nan)),
+                 cut_residual=float(timing.get("cut_residual", np.nan)),
                  stack_settings=json.dumps(settings.as_dict(), sort_keys=True),
                  off_time=survey.transmitter.off_time)
     return xr.Dataset(data, coords={"time": ("time", times, {"units": "s"}),
@@ -92,13 +143,17 @@ def stacked_dataset(survey, station, channels, timing, settings, provenance) -> 
 
 
 def gated_dataset(stacked: xr.Dataset, table, value, error, usable, noise_floor,
-                  provenance) -> xr.Dataset:
-    """Gated sounding (docs/data-model.md) from a stacked dataset and gate results."""
+                  provenance, measures=None) -> xr.Dataset:
+    """Gated sounding (docs/data-model.md) from a stacked dataset and gate results.
+
+    measures : optional dict name -> ((channel,) values, unit, meaning) of
+        per-channel noise measures (tem.gate.windows.gate_stacked).
+    """
     keep = ("station", "x", "y", "z", "epsg", "time_reference", "normalisation", "tx_kind",
             "tx_points", "tx_current", "base_frequency", "duty_cycle", "ramp_on", "ramp_off",
             "lowpass_order", "lowpass_cutoff", "mains_frequency")
     attrs = {k: stacked.attrs[k] for k in keep if k in stacked.attrs}
-    attrs.update(gate_shape=table.shape, tem_format="gated", format_version="1.0",
+    attrs.update(gate_shape=table.shape, tem_format="gated", format_version=_VERSION,
                  tem_version=__version__, provenance=records_to_json(provenance))
     ch = {k: stacked[k] for k in ("component", "rx_x0", "rx_y0", "rx_x1", "rx_y1", "coil_area")}
     return xr.Dataset({
@@ -110,6 +165,8 @@ def gated_dataset(stacked: xr.Dataset, table, value, error, usable, noise_floor,
         "gate_close": ("gate", table.close, {"units": "s"}),
         "gate_centre": ("gate", table.centre, {"units": "s"}),
         **{k: ("channel", v.values) for k, v in ch.items()},
+        **{k: ("channel", np.asarray(v, float), {"units": unit, "long_name": meaning})
+           for k, (v, unit, meaning) in (measures or {}).items()},
     }, attrs=attrs)
 
 
@@ -141,10 +198,20 @@ def result_from_dataset(ds: xr.Dataset, channel: int):
     """:class:`tem.stack.StackResult` of one channel of a stacked Dataset."""
     from ..stack import StackResult
     counts = {f: int(ds[f].values[channel]) for f in COUNT_FIELDS if f in ds}
+    infl = ds["influence"].values[channel].astype(float)
+    if "n_batches" in ds:
+        infl = infl[:int(ds["n_batches"].values[channel])]
+    extra = {}
+    if "lag_corr" in ds:
+        extra["lag_corr"] = ds["lag_corr"].values[channel].astype(float)
+    if "window_mean" in ds:
+        wm = ds["window_mean"].values[channel]
+        n = int(counts.get("transients_total", wm.size - 2)) + 2
+        extra["window_means"] = wm[:n]
+        extra["window_rails"] = ds["window_rails"].values[channel][:n]
     return StackResult(value=ds["value"].values[channel], error=ds["error"].values[channel],
-                       influence=ds["influence"].values[channel],
-                       n_used=ds["n_used"].values[channel], scale=ds["scale"].values[channel],
-                       counts=counts)
+                       influence=infl, n_used=ds["n_used"].values[channel],
+                       scale=ds["scale"].values[channel], counts=counts, **extra)
 
 
 def provenance_of(ds) -> list:

@@ -83,41 +83,60 @@ def _clipped(v, full_scale):  # pragma: no cover - compiled
 
 @nb.njit(cache=True)
 def _row_mean(x, j, s, lo, hi, vpc, full_scale, mask, use_mask):  # pragma: no cover - compiled
-    """(mean in volts of the unclipped samples of row j, number clipped).
+    """(mean in volts of the unclipped samples of row j, number clipped, number positive).
 
     s, lo, hi : sum, min and max of the row (as from :func:`_row_stats`).
+    A clipped sample counts as positive (at the positive rail) when its value is > 0.
     """
     m = x.shape[1]
     r = x[j]
     nclip = 0
+    npos = 0
     if use_mask:
         for i in range(m):
             nclip += mask[j, i]
+            npos += mask[j, i] and r[i] > 0
     elif full_scale > 0 and (_clipped(lo, full_scale) or _clipped(hi, full_scale)):
         for i in range(m):
-            nclip += _clipped(r[i], full_scale)
+            c = _clipped(r[i], full_scale)
+            nclip += c
+            npos += c and r[i] > 0
     if nclip:
         s = 0.0
         for i in range(m):
             c = mask[j, i] if use_mask else _clipped(r[i], full_scale)
             s += 0.0 if c else np.float64(r[i])
-    return s * vpc / max(m - nclip, 1), nclip
+    return s * vpc / max(m - nclip, 1), nclip, npos
 
 
 @nb.njit(cache=True)
-def _ensure_mu(x, upto, vpc, full_scale, mask, use_mask, mu, rowclip, state):  # pragma: no cover
+def _ensure_mu(x, upto, vpc, full_scale, mask, use_mask, mu, rowclip, state, wmeans,
+               wrails):  # pragma: no cover - compiled
     """Means and clip counts of rows state[0] .. upto; state[2] = 1 on a non-finite mean."""
     for j in range(state[0], upto + 1):
         s, lo, hi = _row_stats(x[j])
-        _set_mu(x, j, s, lo, hi, vpc, full_scale, mask, use_mask, mu, rowclip, state)
+        _set_mu(x, j, s, lo, hi, vpc, full_scale, mask, use_mask, mu, rowclip, state, wmeans,
+                wrails)
 
 
 @nb.njit(cache=True)
-def _set_mu(x, j, s, lo, hi, vpc, full_scale, mask, use_mask, mu, rowclip, state):  # pragma: no cover
-    mu[j], rowclip[j] = _row_mean(x, j, s, lo, hi, vpc, full_scale, mask, use_mask)
+def _set_mu(x, j, s, lo, hi, vpc, full_scale, mask, use_mask, mu, rowclip, state, wmeans,
+            wrails):  # pragma: no cover - compiled
+    """Mean and clip count of row j, also written to the record's window arrays.
+
+    state[1] is the record index of row 0; wmeans (n_windows,) and wrails
+    (n_windows, 2) receive the mean (volts) and the samples at the positive
+    and negative rail (a row read by two chunks gets the same values twice).
+    """
+    mu[j], rowclip[j], npos = _row_mean(x, j, s, lo, hi, vpc, full_scale, mask, use_mask)
     if not np.isfinite(mu[j]):
         state[2] = 1
     state[0] = j + 1
+    g = state[1] + j
+    if g < wmeans.size:
+        wmeans[g] = mu[j]
+        wrails[g, 0] = npos
+        wrails[g, 1] = rowclip[j] - npos
 
 
 @nb.njit(cache=True)
@@ -133,13 +152,14 @@ def _bound(mu, j, nrow):  # pragma: no cover - compiled
 
 
 @nb.njit(cache=True)
-def _prepare(x, k, vpc, full_scale, mask, use_mask, detrend, mu, rowclip, state):  # pragma: no cover
+def _prepare(x, k, vpc, full_scale, mask, use_mask, detrend, mu, rowclip, state, wmeans,
+             wrails):  # pragma: no cover - compiled
     """Means up to what estimate k (rows k..k+2) needs; (baseline, slope) combination."""
     nrow = x.shape[0]
     # B_{k+3} needs the mean of row k+3; an extrapolated end (row 0 at the record
     # start, row nrow at its end) needs four means, which rows 0..3 / all rows give
     last = min(k + 3, nrow - 1) if detrend else k + 2
-    _ensure_mu(x, last, vpc, full_scale, mask, use_mask, mu, rowclip, state)
+    _ensure_mu(x, last, vpc, full_scale, mask, use_mask, mu, rowclip, state, wmeans, wrails)
     if not detrend:
         return 0.0, 0.0
     b0 = _bound(mu, k, nrow)
@@ -153,7 +173,8 @@ def _prepare(x, k, vpc, full_scale, mask, use_mask, detrend, mu, rowclip, state)
 @nb.njit(cache=True, nogil=True)
 def chunk_pass(x, vpc, full_scale, mask, t_frac, detrend, j0, n_est, step, pol0, mode,
                m0, inv_s, lo, hi, thr, transient_rms, bad_fraction,
-               spsi, cnt, sdpsi, emit_e, emit_bad, tally):  # pragma: no cover - compiled
+               spsi, cnt, sdpsi, emit_e, emit_bad, tally, row0, wmeans,
+               wrails):  # pragma: no cover - compiled
     """Three-window estimates of one chunk: write them out, or accumulate psi sums.
 
     x : (nrow, M) stored samples of windows a .. a+nrow-1. Row 0 is the
@@ -175,12 +196,16 @@ def chunk_pass(x, vpc, full_scale, mask, t_frac, detrend, j0, n_est, step, pol0,
         density divides it later).
     emit_e (n_est, M) float64, emit_bad (n_est, M) bool : MODE_EMIT output.
     tally : (6,) int64 counters, see TALLY_FIELDS (+=).
+    row0 : record index of row 0. wmeans (n_windows,) float64, wrails
+        (n_windows, 2) int64 : window means (volts) and rail counts, written
+        for every row read (zero-size arrays: not written).
     """
     nrow, m = x.shape
     use_mask = mask.shape[0] > 0
     mu = np.zeros(nrow)
     rowclip = np.zeros(nrow, np.int64)
-    state = np.zeros(3, np.int64)          # rows with means, (spare), non-finite seen
+    state = np.zeros(3, np.int64)          # rows with means, record index of row 0, non-finite
+    state[1] = row0
     rbuf = np.empty(m, np.float32)
     obuf = np.empty(m, np.bool_)
     cnt32 = np.zeros(m, np.int32)
@@ -190,7 +215,8 @@ def chunk_pass(x, vpc, full_scale, mask, t_frac, detrend, j0, n_est, step, pol0,
     h_med = thr[2]
     for q in range(n_est):
         k = j0 + q * step
-        bc, sc = _prepare(x, k, vpc, full_scale, mask, use_mask, detrend, mu, rowclip, state)
+        bc, sc = _prepare(x, k, vpc, full_scale, mask, use_mask, detrend, mu, rowclip, state,
+                          wmeans, wrails)
         if state[2]:
             tally[5] = 1
             return
@@ -242,7 +268,8 @@ def chunk_pass(x, vpc, full_scale, mask, t_frac, detrend, j0, n_est, step, pol0,
         nout, sa, lo_a, hi_a = _residuals(x0, x1, x2, x[ahead], vpc, bc, sc, t_frac, qp, m0,
                                           inv_s, rej, rbuf)
         if ahead != k:
-            _set_mu(x, ahead, sa, lo_a, hi_a, vpc, full_scale, mask, use_mask, mu, rowclip, state)
+            _set_mu(x, ahead, sa, lo_a, hi_a, vpc, full_scale, mask, use_mask, mu, rowclip, state,
+                    wmeans, wrails)
         ss = _sum_sq_capped(rbuf, rej)
         if has_clip:    # samples touching a clipped one are out: NaN residual
             for i in range(m):
@@ -346,12 +373,14 @@ def _sum_sq_capped(r, cap):  # pragma: no cover - compiled
 
 # ---------------------------------------------------------------------------- linear sum
 @nb.njit(cache=True, nogil=True)
-def mean_pass(x, vpc, full_scale, t_frac, detrend, j0, n_est, pol0, spsi, tally):  # pragma: no cover
+def mean_pass(x, vpc, full_scale, t_frac, detrend, j0, n_est, pol0, spsi, tally, row0,
+              wmeans):  # pragma: no cover - compiled
     """sum_k e_k of estimates j0 .. j0+n_est-1 of a chunk, added to spsi (M,).
 
     Same chunk layout as :func:`chunk_pass`. Returns False, adding nothing,
     if the chunk holds a clipped sample (then each estimate needs its own
-    flags: use :func:`chunk_pass`). Also counts the transients in tally.
+    flags: use :func:`chunk_pass`). Also counts the transients in tally and
+    writes the window means (volts) to wmeans[row0 + j] (rails hold no sample).
     """
     nrow, m = x.shape
     acc = np.zeros(m)
@@ -375,6 +404,9 @@ def mean_pass(x, vpc, full_scale, t_frac, detrend, j0, n_est, pol0, spsi, tally)
         return True
     if clipped:
         return False
+    for j in range(nrow):
+        if row0 + j < wmeans.size:
+            wmeans[row0 + j] = mu[j]
     beta = 0.0
     gamma = 0.0
     if detrend:     # sum_j c_j (B_j + (B_{j+1} - B_j) t)

@@ -20,12 +20,13 @@ Method (docs/stacking.md, where the weights are derived):
    (Huber 1964), winsorising at the alpha-quantiles (trimmed mean) or sign
    (median, psi' from a density estimate).
 5. Errors: the e_k are correlated (neighbours share windows). The estimates
-   are split into B contiguous batches; the per-batch influence sums
-   U_b = s0 (sum_{k in b} psi_k - n_b mean(psi)) / sum(psi') give
-   Var(m) = B/(B-1) sum_b U_b^2 (batch means). Batches are long compared
-   with the correlation length, so this is honest for any short-range
-   correlation; the U_b are stored so that any linear combination of samples
-   (a gate) gets its error the same way.
+   are split into B contiguous batches of a few estimates each; the
+   per-batch influence sums U_b = s0 (sum_{k in b} psi_k - n_b mean(psi)) /
+   sum(psi') give Var(m) = c sum_b U_b^2, where c corrects the batch-means
+   factor B/(B-1) for the correlation between neighbouring batches, pooled
+   over all samples (:mod:`tem.stack.batchvar`). The U_b and the pooled lag
+   correlations are stored so that any linear combination of samples (a
+   gate) gets its error the same way.
 
 Steps 1-4 run in one compiled pass per chunk of windows
 (:mod:`tem.stack.kernels`; a chunk of an ``.npy`` recording is memory-mapped,
@@ -35,18 +36,18 @@ state the same steps plainly. Reading and headers are apart.
 from __future__ import annotations
 
 import math
-import mmap
 from dataclasses import dataclass, field
 
 import numpy as np
 
 from . import kernels as _kern
+from .sources import ArraySource, RecordingSource, WindowSource, clip_level  # noqa: F401
+from .batchvar import batch_lags, linear_variance, pooled_lag_correlations, variance_factor
 from ..errors import input_error
 
 __all__ = ["ESTIMATORS", "StackSettings", "StackResult", "WindowSource", "ArraySource",
            "RecordingSource", "combine_three", "stack_windows", "stack_source",
-           "window_layout", "detect_switch_times", "plain_bipolar_stack", "ChannelStack",
-           "stack_station", "timing_for_station"]
+           "window_layout", "plain_bipolar_stack", "clip_level", "rail_counts"]
 
 ESTIMATORS = ("huber", "mean", "median", "trimmed")
 _MAD = 1.482602218505602  # 1 / Phi^{-1}(3/4): MAD -> sigma for Gaussian data
@@ -65,7 +66,10 @@ class StackSettings:
         clipped at reject_sigma) exceeds this is rejected as noisy.
     bad_fraction : a transient with more than this fraction of rejected
         samples is rejected whole.
-    n_batches : batches for the error estimate (B).
+    n_batches : largest number of batches for the error estimate (B); a record
+        of fewer estimates gets one batch per estimate. Many short batches
+        give error bars with many degrees of freedom; their correlation is
+        corrected (:mod:`tem.stack.batchvar`).
     detrend : remove the period-mean baseline before combining.
     chunk_bytes : target size (bytes, as stored) of one chunk of windows: a
         chunk is mapped, stacked in one compiled pass and released.
@@ -81,7 +85,7 @@ class StackSettings:
     reject_sigma: float = 6.0
     transient_rms: float = 2.5
     bad_fraction: float = 0.2
-    n_batches: int = 32
+    n_batches: int = 128
     detrend: bool = True
     chunk_bytes: int = 64 << 20
     start_estimates: int = 256
@@ -111,9 +115,18 @@ class StackResult:
     """Stacked half-period transient of one channel (units of the input, e.g. V).
 
     value, error : (M,) stack and one standard error per sample.
-    influence : (B, M) batch influence sums; error**2 = B/(B-1) sum_b influence**2.
+    influence : (B, M) batch influence sums; error**2 = c sum_b influence**2
+        with c from ``lag_corr`` (:func:`tem.stack.batchvar.variance_factor`).
+    lag_corr : (K, L) correlation of neighbouring batch sums at lags 1..L, pooled
+        over averages of 1, 4, 16, ... samples (row k: ``batchvar.WIDTHS[k]``;
+        empty: uncorrelated batches, c = B/(B-1)).
     n_used : (M,) estimates accepted per sample. scale : (M,) robust sigma of one estimate.
     counts : what was used and rejected, and why.
+    window_means : (n_windows,) mean of each half-period window over its
+        unclipped samples, in the units of the source as read (volts at the
+        logger; not scaled by :meth:`scaled`): the baseline (offset and drift).
+    window_rails : (n_windows, 2) int, samples of each window at the positive
+        and at the negative full-scale rail.
     """
 
     value: np.ndarray
@@ -122,172 +135,21 @@ class StackResult:
     n_used: np.ndarray
     scale: np.ndarray
     counts: dict = field(default_factory=dict)
+    lag_corr: np.ndarray = field(default_factory=lambda: np.zeros((1, 0)))
+    window_means: np.ndarray = field(default_factory=lambda: np.zeros(0))
+    window_rails: np.ndarray = field(default_factory=lambda: np.zeros((0, 2), np.int64))
 
     def scaled(self, factor: float) -> "StackResult":
+        """The stack times ``factor`` (e.g. volts -> field per ampere); window measures kept."""
         f = float(factor)
         return StackResult(self.value * f, self.error * abs(f), self.influence * f,
-                           self.n_used.copy(), self.scale * abs(f), dict(self.counts))
+                           self.n_used.copy(), self.scale * abs(f), dict(self.counts),
+                           self.lag_corr.copy(), self.window_means.copy(),
+                           self.window_rails.copy())
 
     def linear_error(self, weights) -> np.ndarray:
         """Standard error of ``weights @ value`` for weights (..., M), from the batches."""
-        w = np.asarray(weights, float)
-        u = w @ self.influence.T  # (..., B)
-        b = self.influence.shape[0]
-        return np.sqrt(b / (b - 1.0) * np.sum(u * u, axis=-1))
-
-
-# ---------------------------------------------------------------------------- window sources
-class WindowSource:
-    """Consecutive half-period windows.
-
-    ``get(k0, k1)`` -> ((k1-k0, M) float64 new array, bool mask of
-    digitiser-clipped samples or None). ``view(k0, k1)`` -> (rows as stored,
-    e.g. int32 counts, no copy where possible; factor to volts; clip level
-    ``|x| >= full_scale`` or 0; bool clip mask or None) feeds the compiled
-    kernels. ``polarity0``: polarity of window 0.
-    """
-
-    n_windows: int
-    m: int
-    polarity0: int = 1
-
-    def get(self, k0, k1):  # pragma: no cover - interface
-        raise NotImplementedError
-
-    def locate_nan(self, k0, k1):
-        return None
-
-    def view(self, k0, k1):
-        d, clip = self.get(k0, k1)
-        return d, 1.0, 0.0, clip
-
-    @property
-    def itemsize(self) -> int:
-        return 8
-
-
-class ArraySource(WindowSource):
-    """Windows from an in-memory (n, M) array (never modified)."""
-
-    def __init__(self, windows, polarity0: int = 1, clip_mask=None):
-        self._d = np.asarray(windows)
-        if self._d.ndim != 2:
-            raise ValueError("windows: expected a 2-D (n_windows, samples) array")
-        if not np.issubdtype(self._d.dtype, np.number) or np.iscomplexobj(self._d):
-            self._d = self._d.astype(np.float64)
-        self.n_windows, self.m = self._d.shape
-        self.polarity0 = 1 if polarity0 >= 0 else -1
-        self._clip = None if clip_mask is None else np.asarray(clip_mask, bool)
-
-    def get(self, k0, k1):
-        clip = None if self._clip is None else self._clip[k0:k1]
-        return np.array(self._d[k0:k1], dtype=np.float64), clip
-
-    def view(self, k0, k1):
-        clip = None if self._clip is None else np.ascontiguousarray(self._clip[k0:k1])
-        return np.ascontiguousarray(self._d[k0:k1]), 1.0, 0.0, clip
-
-    @property
-    def itemsize(self) -> int:
-        return self._d.dtype.itemsize
-
-    def locate_nan(self, k0, k1):
-        bad = np.flatnonzero(~np.isfinite(self._d[k0:k1]).ravel())
-        return None if bad.size == 0 else ("windows", k0 * self.m + int(bad[0]))
-
-
-def _npy_layout(rec):
-    """Parts of an npy-backed recording as (first sample, samples, path, dtype, byte offset).
-
-    None if any part is not a plain 1-D native-endian ``.npy`` file (then
-    samples are read through the recording). Headers are parsed by
-    ``np.load(mmap_mode="r")`` (never unpickles); nothing is read here.
-    """
-    parts = getattr(rec, "parts", None) or [rec]
-    out, first = [], 0
-    for p in parts:
-        try:
-            arr = np.load(p.path, mmap_mode="r", allow_pickle=False)
-        except (OSError, ValueError, EOFError):
-            return None
-        ok = (isinstance(arr, np.memmap) and arr.ndim == 1 and arr.shape[0] == p.n_samples
-              and arr.dtype.isnative and arr.dtype.kind in "if")
-        layout = (first, p.n_samples, p.path, arr.dtype, int(arr.offset)) if ok else None
-        del arr
-        if layout is None:
-            return None
-        out.append(layout)
-        first += p.n_samples
-    return out
-
-
-def _map_rows(path, dtype, start: int, count: int):
-    """Read-only map of ``count`` items of ``dtype`` at byte ``start`` of ``path`` (no copy).
-
-    Pages are faulted in by one call where the system allows it (MAP_POPULATE,
-    Linux); the map is released when the returned array is dropped.
-    """
-    if not hasattr(mmap, "MAP_SHARED"):      # no POSIX mmap flags (Windows)
-        return np.memmap(path, dtype=dtype, mode="r", offset=start, shape=(count,))
-    base = start - start % mmap.ALLOCATIONGRANULARITY
-    flags = mmap.MAP_SHARED | getattr(mmap, "MAP_POPULATE", 0)
-    with open(path, "rb") as fh:
-        mm = mmap.mmap(fh.fileno(), start - base + count * dtype.itemsize, flags=flags,
-                       prot=mmap.PROT_READ, offset=base)
-    return np.frombuffer(mm, dtype=dtype, count=count, offset=start - base)
-
-
-class RecordingSource(WindowSource):
-    """Windows cut from a :class:`tem.io.raw.Recording` at sample ``first`` (int).
-
-    ``view`` maps the byte range of a chunk of an ``.npy`` recording directly
-    (no copy; the map is released with the returned array, so mapped pages do
-    not accumulate in the resident set).
-    """
-
-    def __init__(self, recording, first: int, m: int, n_windows: int, polarity0: int = 1):
-        self.rec, self.first, self.m, self.n_windows = recording, int(first), int(m), int(n_windows)
-        self.polarity0 = polarity0
-        self._vpc = recording.header.volts_per_count
-        self._fs = recording.header.full_scale
-        self._layout = _npy_layout(recording)
-
-    def _counts(self, k0, k1):
-        a = self.first + k0 * self.m
-        return self.rec.counts(a, a + (k1 - k0) * self.m).reshape(k1 - k0, self.m)
-
-    def view(self, k0, k1):
-        a = self.first + k0 * self.m
-        z = a + (k1 - k0) * self.m
-        for first, n, path, dtype, offset in self._layout or ():
-            if first <= a and z <= first + n:
-                x = _map_rows(path, dtype, offset + (a - first) * dtype.itemsize, z - a)
-                return x.reshape(k1 - k0, self.m), self._vpc, self._fs, None
-        c = self._counts(k0, k1)
-        if not (c.dtype.isnative and c.dtype.kind in "if"):
-            c = c.astype(np.float64)
-        return c, self._vpc, self._fs, None
-
-    @property
-    def itemsize(self) -> int:
-        return self._layout[0][3].itemsize if self._layout else 8
-
-    def get(self, k0, k1):
-        c = self._counts(k0, k1)
-        mask = None
-        if self._fs and (c.max() >= self._fs or c.min() <= -self._fs):
-            mask = np.abs(c) >= self._fs
-        out = c.astype(np.float64)
-        out *= self._vpc
-        return out, mask
-
-    def locate_nan(self, k0, k1):
-        c = self._counts(k0, k1).ravel()
-        bad = np.flatnonzero(~np.isfinite(c))
-        if bad.size == 0:
-            return None
-        idx = self.first + k0 * self.m + int(bad[0])
-        return (self.rec.file_at(idx), idx)
+        return np.sqrt(linear_variance(weights, self.influence, self.lag_corr))
 
 
 # ---------------------------------------------------------------------------- kernels
@@ -369,7 +231,8 @@ def window_layout(n_samples: int, fs: float, t_first: float, half_period: float,
 
 
 def _batches(n_est: int, n_batches: int):
-    b = min(n_batches, max(n_est // 10, 4))
+    """Edges of min(n_batches, n_est) contiguous batches of estimates (sizes differ by <= 1)."""
+    b = max(1, min(n_batches, n_est))
     edges = np.linspace(0, n_est, b + 1).round().astype(int)
     return edges
 
@@ -383,6 +246,8 @@ def _chunks(edges, per):
     return out
 
 
+_NO_WIN = np.zeros(0)
+_NO_RAILS = np.zeros((0, 2), np.int64)
 _NO_MASK = np.zeros((0, 0), np.bool_)
 _NO_F32 = np.zeros(0, np.float32)
 _NO_F64 = np.zeros((0, 0))
@@ -390,13 +255,14 @@ _NO_THR = np.zeros(3, np.float32)
 
 
 def _run_kernel(src, k0, k1, step, detrend, t_frac, mode, acc=None, start=None, thr=None,
-                limits=(0.0, 0.0), emit=None):
+                limits=(0.0, 0.0), emit=None, windows=(_NO_WIN, _NO_RAILS)):
     """Three-window estimates k0, k0+step, ... < k1 through the compiled kernels.
 
     Maps windows k0-1 .. last+3 (k0 .. last+2 without detrend: what the
     baseline of the estimates needs), then accumulates into ``acc`` =
     (spsi, cnt, sdpsi, tally) or writes ``emit`` = (e, bad). The mean of a
     chunk without clipped samples goes through :func:`tem.stack.kernels.mean_pass`.
+    ``windows`` = (means, rails) of the whole record receive every window read.
     Raises the input error of a NaN or infinite sample.
     """
     n_est = len(range(k0, k1, step))
@@ -412,7 +278,7 @@ def _run_kernel(src, k0, k1, step, detrend, t_frac, mode, acc=None, start=None, 
     done = False
     if mode == _kern.MODE_MEAN and clip is None and step == 1:
         done = _kern.mean_pass(x, float(vpc), float(full_scale), t_frac, bool(detrend), k0 - a,
-                               n_est, pol, spsi, tally)
+                               n_est, pol, spsi, tally, a, windows[0])
         if done:
             cnt += n_est
     if not done:
@@ -421,7 +287,7 @@ def _run_kernel(src, k0, k1, step, detrend, t_frac, mode, acc=None, start=None, 
         _kern.chunk_pass(x, float(vpc), float(full_scale), _NO_MASK if clip is None else clip,
                          t_frac, bool(detrend), k0 - a, n_est, step, pol, mode, m0, inv_s, lo, hi,
                          _NO_THR if thr is None else thr, float(limits[0]), float(limits[1]),
-                         spsi, cnt, sdpsi, e, bad, tally)
+                         spsi, cnt, sdpsi, e, bad, tally, a, windows[0], windows[1])
     del x
     if tally[5]:
         where = src.locate_nan(a, z)
@@ -452,13 +318,17 @@ def _robust_start(src, edges, s, t_frac):
     # samples along the fast axis: median and quantiles per sample are then cheap
     e = np.concatenate(pool).T.copy()
     bad = np.concatenate(pool_bad).T
-    if bad.any():
+    med = np.empty(m)
+    mad = np.empty(m)
+    rows = bad.any(axis=1)          # samples with a clipped estimate: NaN-aware (slow) median
+    clean = ~rows
+    med[clean] = np.median(e[clean], axis=1)
+    mad[clean] = np.median(np.abs(e[clean] - med[clean, None]), axis=1)
+    if rows.any():
+        er = np.where(bad[rows], np.nan, e[rows])
+        med[rows] = np.nanmedian(er, axis=1)
+        mad[rows] = np.nanmedian(np.abs(er - med[rows, None]), axis=1)
         e[bad] = np.nan
-        med = np.nanmedian(e, axis=1)
-        mad = np.nanmedian(np.abs(e - med[:, None]), axis=1)
-    else:
-        med = np.median(e, axis=1)
-        mad = np.median(np.abs(e - med[:, None]), axis=1)
     n = e.shape[1]
     m0 = np.nan_to_num(med)
     s0 = np.nan_to_num(mad) * _MAD * n / max(n - 0.8, 1.0)
@@ -519,6 +389,8 @@ def stack_source(src: WindowSource, settings: StackSettings = StackSettings(), p
     cnt_b = np.zeros((nb, m), np.int64)
     sdpsi_b = np.zeros((nb, m), np.int64)
     tally_b = np.zeros((nb, 6), np.int64)
+    wmeans = np.full(src.n_windows, np.nan)
+    wrails = np.zeros((src.n_windows, 2), np.int64)
     mode = _kern.MODES[s.estimator]
     by_batch = [[c for c in chunks if c[2] == b] for b in range(nb)]
 
@@ -526,7 +398,7 @@ def stack_source(src: WindowSource, settings: StackSettings = StackSettings(), p
         for k0, k1, _ in by_batch[b]:
             _run_kernel(src, k0, k1, 1, s.detrend, t_frac, mode,
                         acc=(spsi_b[b], cnt_b[b], sdpsi_b[b], tally_b[b]), start=start, thr=thr,
-                        limits=(s.transient_rms, s.bad_fraction))
+                        limits=(s.transient_rms, s.bad_fraction), windows=(wmeans, wrails))
         return b
 
     if s.threads > 1:
@@ -543,13 +415,26 @@ def stack_source(src: WindowSource, settings: StackSettings = StackSettings(), p
     counts.update({k: int(v) for k, v in zip(_kern.TALLY_FIELDS[:5], tally[:5])})
     counts = {k: counts[k] for k in ("transients_total", "transients_used", "rejected_noisy",
                                      "rejected_bad_samples", "samples_clipped", "samples_outlier")}
+    counts.update(rail_counts(wrails))
     if s.estimator == "mean":        # psi' = 1 for every accepted estimate
         sdpsi = cnt_b.sum(axis=0).astype(float)
     elif s.estimator == "median":    # box density estimate of psi'
         sdpsi = sdpsi_n / (2.0 * h_med)
     else:
         sdpsi = sdpsi_n.astype(float)
-    return _finish(s, nb, m0, s0, spsi_b, cnt_b.astype(float), sdpsi, counts)
+    res = _finish(s, nb, m0, s0, spsi_b, cnt_b.astype(float), sdpsi, counts)
+    res.window_means, res.window_rails = wmeans, wrails
+    return res
+
+
+def rail_counts(rails) -> dict:
+    """Raw samples at the positive and negative full-scale rails and windows touching either.
+
+    rails : (n_windows, 2) samples per window at the positive and negative rail.
+    """
+    r = np.asarray(rails).reshape(-1, 2)
+    return {"clipped_high": int(r[:, 0].sum()), "clipped_low": int(r[:, 1].sum()),
+            "windows_clipped": int(np.count_nonzero(r.sum(axis=1)))}
 
 
 def _finish(s, nb, m0, s0, spsi_b, cnt_b, sdpsi, counts):
@@ -564,138 +449,18 @@ def _finish(s, nb, m0, s0, spsi_b, cnt_b, sdpsi, counts):
     flat = ~(sdpsi > 0) & (n_used > 0)
     value = np.where(flat, m0, value)
     infl = np.nan_to_num(infl)
-    err = np.sqrt(nb / (nb - 1.0) * np.sum(infl * infl, axis=0))
-    if s.estimator == "mean":
-        scale = np.sqrt(np.maximum(err ** 2 * n_used, 0.0))
+    ss = np.sum(infl * infl, axis=0)
+    rho = pooled_lag_correlations(infl, batch_lags(counts["transients_total"], nb))
+    err = np.sqrt(variance_factor(rho[0], nb) * ss)
+    if s.estimator == "mean":       # spread of one estimate, from the plain batch variance
+        scale = np.sqrt(np.maximum(nb / (nb - 1.0) * ss * n_used, 0.0))
     else:
         scale = s0
     return StackResult(value=value, error=err, influence=infl, n_used=n_used, scale=scale,
-                       counts=counts)
+                       counts=counts, lag_corr=rho)
 
 
 def stack_windows(windows, polarity0: int = 1, settings: StackSettings = StackSettings(),
                   clip_mask=None) -> StackResult:
     """Pure kernel: (n, M) half-period windows -> :class:`StackResult`. Input untouched."""
     return stack_source(ArraySource(windows, polarity0, clip_mask), settings)
-
-
-# ---------------------------------------------------------------------------- timing
-def detect_switch_times(current, fs: float, half_period: float, ramp_off: float,
-                        duty_cycle: float):
-    """Switch-off ends of positive half-cycles detected on a transmitter-current record.
-
-    current : (N,) samples proportional to the transmitter current (any scale).
-    Duty < 1: the falling edge of each positive pulse crosses half the peak
-    at the middle of the linear switch-off ramp; the end of the ramp is
-    ramp_off/2 later. Duty 1: +I falls to 0 over ramp_off and the next
-    pulse starts there (tem.forward.Waveform), so the zero crossing is
-    time zero itself.
-    Crossings are found by linear interpolation, then a straight line
-    t_j = t0 + j T is fitted by least squares.
-
-    Returns ``(t0, period, residual_rms, times)`` in s from sample 0.
-    """
-    x = np.asarray(current, float)
-    peak = np.quantile(np.abs(x), 0.95)
-    if not peak > 0:
-        raise input_error("current", "transmitter-current channel is flat")
-    level = 0.5 * peak if duty_cycle < 1.0 else 0.0
-    a, b = x[:-1], x[1:]
-    idx = np.flatnonzero((a > level) & (b <= level))
-    # keep falling edges of positive pulses only (previous half period was +I)
-    if idx.size < 2:
-        raise input_error("current", "fewer than two switch-off edges found")
-    frac = (a[idx] - level) / (a[idx] - b[idx])
-    t_cross = (idx + frac) / fs + (0.5 * ramp_off if duty_cycle < 1.0 else 0.0)
-    period = 2.0 * half_period
-    j = np.round((t_cross - t_cross[0]) / period).astype(int)
-    keep = np.concatenate([[True], np.diff(j) > 0])
-    j, t_cross = j[keep], t_cross[keep]
-    A = np.column_stack([np.ones_like(t_cross), j.astype(float)])
-    coef, *_ = np.linalg.lstsq(A, t_cross, rcond=None)
-    res = t_cross - A @ coef
-    return float(coef[0]), float(coef[1]), float(np.sqrt(np.mean(res ** 2))), t_cross
-
-
-# ---------------------------------------------------------------------------- station driver
-@dataclass
-class ChannelStack:
-    """One channel's stack, normalised per A, with its header facts."""
-
-    receiver: object
-    result: StackResult          # normalised (V/m/A, T/s/A)
-    times: np.ndarray            # (M,) s from the end of the switch-off ramp
-    raw_rms: float               # rms of the raw record after removing its mean (V)
-    dead: bool
-    excerpt: np.ndarray          # (2M,) first full period of the record, normalised
-    file: str
-
-
-def timing_for_station(survey, station, recordings: dict):
-    """Time (s, from the start of the first data recording) of a positive switch-off end.
-
-    Returns ``(t_first, source, residual_rms)``; ``source`` says where the
-    timing came from ("survey" or "current"), residual_rms (s) is the rms of
-    the detected switch times about a straight line (NaN for "survey").
-    """
-    from ..survey import seconds_between
-    tx = survey.transmitter
-    rec0 = recordings[station.data_receivers[0].component]
-    t_first = seconds_between(rec0.header.start_time, tx.first_switch_off)
-    if tx.timing == "survey":
-        return t_first, "survey", float("nan")
-    cur = recordings.get("current")
-    if cur is None:
-        raise input_error("transmitter.timing", f"station {station.id}: timing='current' needs a "
-                          "receiver with component 'current'")
-    n = min(cur.n_samples, int(round(60.0 * tx.period * cur.sample_rate)))
-    x = cur.read(0, n)
-    t0, period, res, _ = detect_switch_times(x, cur.sample_rate, tx.half_period, tx.ramp_off,
-                                              tx.duty_cycle)
-    if abs(period - tx.period) > 1e-4 * tx.period:
-        raise input_error("base_frequency", f"current channel repeats every {period:.6g} s, survey "
-                          f"says {tx.period:.6g} s", cur.path)
-    offset = seconds_between(rec0.header.start_time, cur.header.start_time)
-    return t0 + offset, "current", res
-
-
-def stack_station(survey, station, settings: StackSettings = StackSettings(), progress=None):
-    """Open, check and stack every data channel of ``station``.
-
-    Returns ``(channels, timing)`` with a list of :class:`ChannelStack` and a
-    dict ``{"source", "residual_rms", "t_first", "delay"}``. Raises
-    :class:`tem.errors.TemInputError` naming file and field on bad input.
-    """
-    from ..io.raw import open_receiver
-    from ..survey import seconds_between
-    tx = survey.transmitter
-    recs = {rx.component: open_receiver(rx, survey) for rx in station.receivers}
-    if not station.data_receivers:
-        raise input_error("station.receiver", f"station {station.id} has no data channel")
-    t_first, source, resid = timing_for_station(survey, station, recs)
-    rec0 = recs[station.data_receivers[0].component]
-    out = []
-    delay = None
-    for rx in station.data_receivers:
-        rec = recs[rx.component]
-        shift = seconds_between(rec0.header.start_time, rec.header.start_time)
-        first, m, nw, dly, k_first = window_layout(rec.n_samples, rec.sample_rate,
-                                                   t_first - shift, tx.half_period, rec.path)
-        delay = dly if delay is None else delay
-        if abs(dly - delay) > 1e-3 / rec.sample_rate:
-            raise input_error("start_time", "channels of one station are not sampled in step", rec.path)
-        pol = 1 if k_first % 2 == 0 else -1
-        src = RecordingSource(rec, first, m, nw, polarity0=pol)
-        probe = rec.read(first, first + min(2 * m, rec.n_samples - first))
-        if not np.isfinite(probe).all():
-            bad = int(np.flatnonzero(~np.isfinite(probe))[0]) + first
-            raise input_error("samples", f"NaN or infinite value at sample {bad}", rec.file_at(bad))
-        dead = bool(np.ptp(rec.counts(first, first + 2 * m)) <= 1)
-        raw_rms = float(np.std(probe))
-        res = stack_source(src, settings, progress=progress)
-        factor = rx.volts_to_field(tx.current)
-        excerpt = probe[:2 * m] * factor
-        times = dly + np.arange(m) / rec.sample_rate
-        out.append(ChannelStack(rx, res.scaled(factor), times, raw_rms, dead, excerpt,
-                                str(rec.path)))
-    return out, {"source": source, "residual_rms": resid, "t_first": t_first, "delay": delay}

@@ -1,0 +1,209 @@
+"""Stacking one station: open its recordings, find the switch times, stack every channel.
+
+Besides the stack (:mod:`tem.stack.stacking`) each channel gets the raw-record
+checks of :mod:`tem.stack.rawchecks` (half-cycle asymmetry, mains level,
+offset and drift) and, where the station records the transmitter current, a
+check of the cut against the detected switch-offs. The excerpt kept for the
+raw-versus-stack figure starts at a positive switch-off.
+"""
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from ..errors import input_error
+from .rawchecks import baseline_measures, block_starts, half_cycle_check, timing_check
+from .stacking import (RecordingSource, StackResult, StackSettings, clip_level, stack_source,
+                       window_layout)
+
+__all__ = ["detect_switch_times", "ChannelStack", "timing_for_station", "stack_station"]
+
+
+# ---------------------------------------------------------------------------- timing
+def detect_switch_times(current, fs: float, half_period: float, ramp_off: float,
+                        duty_cycle: float):
+    """Switch-off ends of positive half-cycles detected on a transmitter-current record.
+
+    current : (N,) samples proportional to the transmitter current (any scale).
+    Duty < 1: the falling edge of each positive pulse crosses half the peak
+    at the middle of the linear switch-off ramp; the end of the ramp is
+    ramp_off/2 later. Duty 1: +I falls to 0 over ramp_off and the next
+    pulse starts there (tem.forward.Waveform), so the zero crossing is
+    time zero itself.
+    Crossings are found by linear interpolation, then a straight line
+    t_j = t0 + j T is fitted by least squares.
+
+    Returns ``(t0, period, residual_rms, times)`` in s from sample 0.
+    """
+    x = np.asarray(current, float)
+    peak = np.quantile(np.abs(x), 0.95)
+    if not peak > 0:
+        raise input_error("current", "transmitter-current channel is flat")
+    level = 0.5 * peak if duty_cycle < 1.0 else 0.0
+    a, b = x[:-1], x[1:]
+    idx = np.flatnonzero((a > level) & (b <= level))
+    # keep falling edges of positive pulses only (previous half period was +I)
+    if idx.size < 2:
+        raise input_error("current", "fewer than two switch-off edges found")
+    frac = (a[idx] - level) / (a[idx] - b[idx])
+    t_cross = (idx + frac) / fs + (0.5 * ramp_off if duty_cycle < 1.0 else 0.0)
+    period = 2.0 * half_period
+    j = np.round((t_cross - t_cross[0]) / period).astype(int)
+    keep = np.concatenate([[True], np.diff(j) > 0])
+    j, t_cross = j[keep], t_cross[keep]
+    A = np.column_stack([np.ones_like(t_cross), j.astype(float)])
+    coef, *_ = np.linalg.lstsq(A, t_cross, rcond=None)
+    res = t_cross - A @ coef
+    return float(coef[0]), float(coef[1]), float(np.sqrt(np.mean(res ** 2))), t_cross
+
+
+# ---------------------------------------------------------------------------- station driver
+@dataclass
+class ChannelStack:
+    """One channel's stack, normalised per A, with its header facts and raw-record checks.
+
+    checks : ``offset`` (V), ``drift`` (V/s), ``wander`` (V) of the baseline at
+    the logger; ``asymmetry`` (fraction) and ``asymmetry_windows`` of the
+    half-cycles; ``mains`` and ``mains_rms`` (V at the logger); ``duration``
+    (s of record stacked); ``full_scale`` (V at the logger, NaN if unknown).
+    """
+
+    receiver: object
+    result: StackResult          # normalised (V/m/A, T/s/A)
+    times: np.ndarray            # (M,) s from the end of the switch-off ramp
+    raw_rms: float               # rms of the raw record over the excerpt, mean removed (V)
+    dead: bool
+    excerpt: np.ndarray          # (2M,) one full period from a positive switch-off, normalised
+    file: str
+    checks: dict = field(default_factory=dict)
+
+
+def timing_for_station(survey, station, recordings: dict):
+    """Time (s, from the start of the first data recording) of a positive switch-off end.
+
+    Returns ``(t_first, source, residual_rms)``; ``source`` says where the
+    timing came from ("survey" or "current"), residual_rms (s) is the rms of
+    the detected switch times about a straight line (NaN for "survey").
+    """
+    from ..survey import seconds_between
+    tx = survey.transmitter
+    rec0 = recordings[station.data_receivers[0].component]
+    t_first = seconds_between(rec0.header.start_time, tx.first_switch_off)
+    if tx.timing == "survey":
+        return t_first, "survey", float("nan")
+    cur = recordings.get("current")
+    if cur is None:
+        raise input_error("transmitter.timing", f"station {station.id}: timing='current' needs a "
+                          "receiver with component 'current'")
+    t0, period, res, _ = detect_switch_times(_current_head(cur, tx), cur.sample_rate,
+                                              tx.half_period, tx.ramp_off, tx.duty_cycle)
+    if abs(period - tx.period) > 1e-4 * tx.period:
+        raise input_error("base_frequency", f"current channel repeats every {period:.6g} s, survey "
+                          f"says {tx.period:.6g} s", cur.path)
+    offset = seconds_between(rec0.header.start_time, cur.header.start_time)
+    return t0 + offset, "current", res
+
+
+def _current_head(cur, tx, periods: float = 60.0):
+    """The first ``periods`` transmitter periods of the current channel (volts)."""
+    return cur.read(0, min(cur.n_samples, int(round(periods * tx.period * cur.sample_rate))))
+
+
+def _cut_check(survey, recs, rec0, t_first):
+    """Offset (s) of the detected switch-offs from the cut, or NaN without a current channel."""
+    from ..survey import seconds_between
+    cur = recs.get("current")
+    nan = {"offset": float("nan"), "residual": float("nan")}
+    if cur is None:
+        return nan
+    shift = seconds_between(rec0.header.start_time, cur.header.start_time)
+    try:
+        return timing_check(_current_head(cur, survey.transmitter), cur.sample_rate,
+                            t_first - shift, survey.transmitter, detect_switch_times)
+    except Exception:       # noqa: BLE001 - a current that cannot be read for edges: no check
+        return nan
+
+
+def stack_station(survey, station, settings: StackSettings = StackSettings(), progress=None):
+    """Open, check and stack every data channel of ``station``.
+
+    progress : callable or None, called as ``progress(fraction)`` with the
+        fraction (0..1) of the station's work done; it advances with every
+        chunk of every channel.
+
+    Returns ``(channels, timing)`` with a list of :class:`ChannelStack` and a
+    dict ``{"source", "residual_rms", "t_first", "delay", "cut_offset",
+    "cut_residual"}`` (``cut_offset``: switch-offs detected on the current
+    channel minus the switch time the record was cut at, s; NaN without a
+    current channel). Raises :class:`tem.errors.TemInputError` naming file
+    and field on bad input.
+    """
+    from ..io.raw import open_receiver
+    from ..survey import seconds_between
+    tx = survey.transmitter
+    recs = {rx.component: open_receiver(rx, survey) for rx in station.receivers}
+    if not station.data_receivers:
+        raise input_error("station.receiver", f"station {station.id} has no data channel")
+    t_first, source, resid = timing_for_station(survey, station, recs)
+    rec0 = recs[station.data_receivers[0].component]
+    cut = _cut_check(survey, recs, rec0, t_first)
+    out = []
+    delay = None
+    n_ch = len(station.data_receivers)
+    for ci, rx in enumerate(station.data_receivers):
+        rec = recs[rx.component]
+        shift = seconds_between(rec0.header.start_time, rec.header.start_time)
+        first, m, nw, dly, k_first = window_layout(rec.n_samples, rec.sample_rate,
+                                                   t_first - shift, tx.half_period, rec.path)
+        delay = dly if delay is None else delay
+        if abs(dly - delay) > 1e-3 / rec.sample_rate:
+            raise input_error("start_time", "channels of one station are not sampled in step", rec.path)
+        pol = 1 if k_first % 2 == 0 else -1
+        src = RecordingSource(rec, first, m, nw, polarity0=pol)
+        # one full period from the first positive switch-off (window 0 may follow a negative one)
+        e0 = first + (0 if pol > 0 else m)
+        probe = rec.read(e0, e0 + 2 * m)
+        if not np.isfinite(probe).all():
+            bad = int(np.flatnonzero(~np.isfinite(probe))[0]) + e0
+            raise input_error("samples", f"NaN or infinite value at sample {bad}", rec.file_at(bad))
+        dead = bool(np.ptp(rec.counts(e0, e0 + 2 * m)) <= 1)
+        raw_rms = float(np.std(probe))
+        tick = None
+        if progress is not None:
+            def tick(done, total, ci=ci):
+                progress((ci + done / max(total, 1)) / n_ch)
+        res = stack_source(src, settings, progress=tick)
+        factor = rx.volts_to_field(tx.current)
+        times = dly + np.arange(m) / rec.sample_rate
+        checks = _channel_checks(src, rec, res, times, tx, survey.mains_frequency)
+        out.append(ChannelStack(rx, res.scaled(factor), times, raw_rms, dead, probe * factor,
+                                str(rec.path), checks))
+    timing = {"source": source, "residual_rms": resid, "t_first": t_first, "delay": delay,
+              "cut_offset": cut["offset"], "cut_residual": cut["residual"]}
+    return out, timing
+
+
+def _channel_checks(src, rec, res, times, tx, mains_frequency):
+    """Raw-record checks of one channel (volts at the logger; see :class:`ChannelStack`)."""
+    m = src.m
+    n_off = int(np.searchsorted(times, tx.off_time)) if tx.off_time > 0 else m
+    # log-spaced windows over the off-time from sample 16 on (9 per decade, as gates)
+    edges = (np.unique(np.geomspace(16, n_off, max(2, int(9 * np.log10(n_off / 16)) + 1))
+                       .round().astype(int)) if n_off > 32 else np.zeros(0, int))
+    vpc = rec.header.volts_per_count
+
+    def read(j0, j1):
+        a = src.first + j0 * m
+        return rec.read(a, a + (j1 - j0) * m).reshape(j1 - j0, m)
+
+    means = np.nan_to_num(res.window_means, nan=float(np.nanmedian(res.window_means))
+                          if np.isfinite(res.window_means).any() else 0.0)
+    checks = half_cycle_check(read, block_starts(src.n_windows, src.polarity0), m, means,
+                              res.value, clip_level(rec.header.full_scale) * vpc,
+                              rec.sample_rate, mains_frequency, edges)
+    checks.update(baseline_measures(res.window_means, tx.half_period))
+    checks["duration"] = src.n_windows * tx.half_period
+    fsc = float(rec.header.full_scale or 0.0)
+    checks["full_scale"] = fsc * vpc if fsc > 0 else float("nan")
+    return checks
