@@ -1,0 +1,285 @@
+"""A verdict per station (good / reoccupy / check) with reasons, from the QC measures.
+
+The thresholds live in one settings table, ``[processing.qc]`` (:data:`QC_TABLE`,
+:data:`QCSettings`); each says where its default comes from. The rules
+(docs/qc.md):
+
+reoccupy
+    a dead channel; noise floor ``noise_ratio`` times the survey median of
+    its component and offset class or more; clipped windows or rejected
+    periods beyond the ``*_reoccupy`` shares.
+check
+    clipping, rejected periods or spikes beyond the ``*_check`` shares; a
+    reversed polarity; the cut off the detected switch-offs; offset, drift
+    or mains a large share of full scale; asymmetric half-cycles; a last
+    usable time well short of the class median.
+good
+    none of these.
+
+For a noisy station the extra recording time that brings its noise floor to
+the survey median follows from how random noise falls with the number N of
+stacked periods, as N^s with s = -1/2 (common practice, no source): T_extra
+= T (r^(1/|s|) - 1) for a noise ratio r. The slope s is measured on the
+station's own record (halves, quarters, eighths; ``noise_slope``) and that
+measured value is used; a slope flatter than ``slope_flat`` means more time
+will not help, and no time is given.
+"""
+from __future__ import annotations
+
+import csv
+import io
+import math
+from dataclasses import dataclass
+
+import numpy as np
+
+from ..settings import Setting, SettingsTable
+
+__all__ = ["QC_TABLE", "QCSettings", "StationVerdict", "offset_classes", "class_medians",
+           "station_verdicts", "stations_csv_text", "write_stations_csv", "VERDICTS"]
+
+VERDICTS = ("good", "check", "reoccupy")
+_NS = "common practice, no source"
+
+QC_TABLE = SettingsTable("qc", [
+    Setting("noise_ratio", 2.0, "float", "", "noise floor over the survey median of its "
+            "component and offset class at which a station is re-occupied", minimum=1.0,
+            exclusive=True, source=_NS + "; a factor 2 in noise costs 4 times the recording"),
+    Setting("class_ratio", 2.0, "float", "", "ratio of the largest to the smallest "
+            "transmitter-receiver offset within one offset class", minimum=1.0, exclusive=True,
+            source=_NS),
+    Setting("class_min", 3, "int", "", "fewest live channels of a component in an offset class "
+            "for a class median; smaller classes use the component's survey median", minimum=1,
+            source=_NS),
+    Setting("last_usable_ratio", 0.5, "float", "", "last usable time below this share of the "
+            "class median is checked", minimum=0.0, maximum=1.0, source=_NS),
+    Setting("rejected_check", 0.10, "float", "", "share of periods rejected whole (noisy or bad "
+            "samples) that is checked", minimum=0.0, maximum=1.0, source=_NS),
+    Setting("rejected_reoccupy", 0.50, "float", "", "share of periods rejected whole that "
+            "re-occupies the station", minimum=0.0, maximum=1.0, source=_NS),
+    Setting("outlier_check", 0.01, "float", "", "share of used samples rejected as outliers "
+            "(spikes) that is checked", minimum=0.0, maximum=1.0, source=_NS),
+    Setting("clipped_check", 0.10, "float", "", "share of half-period windows holding a sample "
+            "at either full-scale rail that is checked (isolated spikes stay below)",
+            minimum=0.0, maximum=1.0, source=_NS),
+    Setting("clipped_reoccupy", 0.50, "float", "", "share of windows with clipped samples that "
+            "re-occupies the station (lower the gain)", minimum=0.0, maximum=1.0, source=_NS),
+    Setting("offset_check", 0.25, "float", "", "baseline offset, as a share of full scale, "
+            "that is checked", minimum=0.0, source=_NS),
+    Setting("drift_check", 0.10, "float", "", "baseline change over the record, as a share of "
+            "full scale, that is checked", minimum=0.0, source=_NS),
+    Setting("mains_check", 0.25, "float", "", "mains amplitude at the logger, as a share of "
+            "full scale, that is checked", minimum=0.0, source=_NS),
+    Setting("asymmetry_check", 0.05, "float", "", "difference of positive and negative "
+            "half-cycles, as a share of their mean, that is checked", minimum=0.0, source=_NS),
+    Setting("timing_check", 2e-5, "float", "s", "offset or rms scatter of the detected "
+            "switch-offs from the cut that is checked", minimum=0.0,
+            source=_NS + "; 20 us shift a t^-2.5 decay by 1 % at 5 ms"),
+    Setting("polarity_snr", 5.0, "float", "", "signal-to-noise of the on-time response "
+            "needed to call a polarity reversed", minimum=0.0, source=_NS),
+    Setting("slope_flat", -0.1, "float", "", "noise slope (d log noise / d log periods) above "
+            "which more recording is not expected to help", maximum=0.0, source=_NS),
+], "QCSettings", doc="Thresholds of the evening QC verdict (docs/qc.md).")
+QCSettings = QC_TABLE.cls
+
+
+@dataclass(frozen=True)
+class StationVerdict:
+    """Verdict of one station.
+
+    verdict : ``good``, ``check`` or ``reoccupy``.
+    reasons : tuple of sentences with numbers (empty when good).
+    extra_minutes : recording time to add (noise) or to record anew (dead
+        channel, clipping, rejected periods), minutes; 0 when none is
+        needed; NaN when more time is not expected to help.
+    """
+
+    station: str
+    verdict: str
+    reasons: tuple
+    extra_minutes: float
+
+
+# ---------------------------------------------------------------------------- survey context
+def offset_classes(measures, class_ratio: float = 2.0) -> dict:
+    """Offset class (0, 1, ...) of every (station, component): factor-``class_ratio`` bins.
+
+    Bins start at the smallest positive offset of the component in the survey;
+    offsets of 0 (inside a loop) form class -1.
+    """
+    out = {}
+    by_comp = {}
+    for m in measures:
+        by_comp.setdefault(m.component, []).append(m)
+    for comp, ms in by_comp.items():
+        pos = [m.offset_m for m in ms if m.offset_m > 0]
+        base = min(pos) if pos else 1.0
+        for m in ms:
+            k = -1 if not m.offset_m > 0 else int(math.floor(
+                math.log(m.offset_m / base) / math.log(class_ratio) + 1e-9))
+            out[(m.station, comp)] = k
+    return out
+
+
+def class_medians(measures, settings=None) -> dict:
+    """Survey medians per (station, component): noise floor, last usable time and the group.
+
+    Returns {(station, component): (noise median, last-usable median, label)}.
+    Live (not dead) channels with a finite noise floor count; a class with
+    fewer than ``class_min`` of them falls back to the component's survey median.
+    """
+    s = settings or QCSettings()
+    cls = offset_classes(measures, s.class_ratio)
+    live = [m for m in measures if not m.dead and np.isfinite(m.noise_floor)]
+    out = {}
+    for m in measures:
+        group = [x for x in live if x.component == m.component
+                 and cls[(x.station, x.component)] == cls[(m.station, m.component)]]
+        label = "offset class"
+        if len(group) < s.class_min:
+            group = [x for x in live if x.component == m.component]
+            label = "survey"
+        if not group:
+            out[(m.station, m.component)] = (float("nan"), float("nan"), label)
+            continue
+        lu = [x.last_usable for x in group if np.isfinite(x.last_usable)]
+        out[(m.station, m.component)] = (float(np.median([x.noise_floor for x in group])),
+                                         float(np.median(lu)) if lu else float("nan"), label)
+    return out
+
+
+# ---------------------------------------------------------------------------- rules
+def _pct(x):
+    return f"{100.0 * x:.0f} %" if x >= 0.1 else f"{100.0 * x:.1f} %"
+
+
+def _extra_for_noise(m, ratio, s):
+    """(minutes to add, slope used, how) for a noise ratio ``ratio`` > 1."""
+    slope = m.noise_slope
+    how = f"noise falls as N^{slope:.2f} on this record" if np.isfinite(slope) else \
+        "noise assumed to fall as N^-0.50"
+    if not np.isfinite(slope):
+        slope = -0.5
+    if slope > s.slope_flat:
+        return float("nan"), how + ": more time will not help; record at another time or place"
+    slope = max(slope, -1.0)
+    minutes = m.duration / 60.0 * (ratio ** (1.0 / abs(slope)) - 1.0)
+    return minutes, how
+
+
+def _channel_rules(m, med, s):
+    """(reoccupy reasons, check reasons, extra minutes) of one channel."""
+    re, ck, extra = [], [], 0.0
+    c = m.component
+    full = m.duration / 60.0
+    if m.dead:
+        return [f"{c} dead: flat record (peak-to-peak at most 1 count)"], [], full
+    noise_med, lu_med, label = med
+    if np.isfinite(m.noise_floor) and noise_med > 0:
+        r = m.noise_floor / noise_med
+        if r >= s.noise_ratio:
+            minutes, how = _extra_for_noise(m, r, s)
+            tail = f"{minutes:.0f} min more to reach the median" if np.isfinite(minutes) else ""
+            re.append(f"{c} noise floor {r:.1f}x the {label} median ({m.noise_floor:.2g} against "
+                      f"{noise_med:.2g} {m.unit}); {how}" + (f": {tail}" if tail else ""))
+            extra = max(extra, minutes) if np.isfinite(minutes) else float("nan")
+    if np.isfinite(m.last_usable) and np.isfinite(lu_med) and \
+            m.last_usable < s.last_usable_ratio * lu_med:
+        ck.append(f"{c} last usable time {m.last_usable:.2g} s against {lu_med:.2g} s "
+                  f"({label} median)")
+    elif not np.isfinite(m.last_usable) and m.gates:
+        ck.append(f"{c} no usable gate")
+    nw = max(m.windows, 1)
+    fc = m.windows_clipped / nw
+    if fc >= s.clipped_check:
+        text = (f"{c} {_pct(fc)} of half-periods clipped ({m.clipped_high} samples at the "
+                f"positive rail, {m.clipped_low} at the negative)")
+        if fc >= s.clipped_reoccupy:
+            re.append(text + ": lower the gain")
+            extra = max(extra, full) if np.isfinite(extra) else extra
+        else:
+            ck.append(text)
+    rej = (m.rejected_noisy + m.rejected_bad) / max(m.periods_total, 1)
+    if rej >= s.rejected_check:
+        text = (f"{c} {_pct(rej)} of periods rejected ({m.rejected_noisy} noisy, "
+                f"{m.rejected_bad} with bad samples)")
+        if rej >= s.rejected_reoccupy:
+            re.append(text)
+            extra = max(extra, full) if np.isfinite(extra) else extra
+        else:
+            ck.append(text)
+    if m.outlier_fraction >= s.outlier_check:
+        ck.append(f"{c} spikes: {_pct(m.outlier_fraction)} of samples rejected as outliers")
+    if np.isfinite(m.polarity) and m.polarity < 0 and m.polarity_snr >= s.polarity_snr:
+        what = (f"apparent DC resistivity {m.polarity:.3g} ohm-m" if c in ("ex", "ey")
+                else f"{m.polarity:.2f}x the primary field")
+        ck.append(f"{c} polarity reversed: on-time response opposite to the transmitter's "
+                  f"({what}); check the wiring")
+    fs = m.full_scale if np.isfinite(m.full_scale) and m.full_scale > 0 else float("nan")
+    if np.isfinite(fs):
+        if np.isfinite(m.offset) and abs(m.offset) >= s.offset_check * fs:
+            ck.append(f"{c} offset {m.offset:.2g} V ({_pct(abs(m.offset) / fs)} of full scale)")
+        change = abs(m.drift) * m.duration if np.isfinite(m.drift) else float("nan")
+        if np.isfinite(change) and change >= s.drift_check * fs:
+            ck.append(f"{c} drift {m.drift * 60.0:.2g} V/min, {change:.2g} V over the record "
+                      f"({_pct(change / fs)} of full scale)")
+        if np.isfinite(m.mains) and m.mains >= s.mains_check * fs:
+            ck.append(f"{c} mains {m.mains:.2g} V ({_pct(m.mains / fs)} of full scale)")
+    if np.isfinite(m.asymmetry) and m.asymmetry >= s.asymmetry_check:
+        ck.append(f"{c} positive and negative half-cycles differ by {_pct(m.asymmetry)}")
+    return re, ck, extra
+
+
+def station_verdicts(measures, settings=None, failed=None) -> list:
+    """A :class:`StationVerdict` per station from all channels' :class:`ChannelMeasures`.
+
+    failed : optional {station: message} of stations that could not be
+        processed; each gets ``check`` with the message as its reason.
+    Stations come out in the order first met in ``measures``, failed ones last.
+    """
+    s = settings or QCSettings()
+    med = class_medians(measures, s)
+    order = list(dict.fromkeys(m.station for m in measures))
+    out = []
+    for sid in order:
+        chans = [m for m in measures if m.station == sid]
+        re, ck, extra = [], [], 0.0
+        for m in chans:
+            r, c, e = _channel_rules(m, med[(m.station, m.component)], s)
+            re += r
+            ck += c
+            extra = float("nan") if not np.isfinite(e) else max(extra, e) if np.isfinite(extra) \
+                else extra
+        t = {m.cut_offset for m in chans if np.isfinite(m.cut_offset)}
+        if t:
+            off = max(t, key=abs)
+            jit = max((m.cut_residual for m in chans if np.isfinite(m.cut_residual)), default=0.0)
+            if abs(off) >= s.timing_check or jit >= s.timing_check:
+                ck.append(f"timing: switch-offs on the current channel {off * 1e3:+.3f} ms from "
+                          f"the cut (scatter {jit * 1e6:.1f} us rms)")
+        verdict = "reoccupy" if re else "check" if ck else "good"
+        out.append(StationVerdict(sid, verdict, tuple(re + ck),
+                                  extra if verdict == "reoccupy" else 0.0))
+    for sid, msg in (failed or {}).items():
+        if sid not in order:
+            out.append(StationVerdict(sid, "check", (f"not processed: {msg}",), float("nan")))
+    return out
+
+
+def stations_csv_text(verdicts) -> str:
+    """``station,verdict,reasons,extra_minutes`` with reasons joined by "; " (CSV text)."""
+    buf = io.StringIO()
+    w = csv.writer(buf, lineterminator="\n")
+    w.writerow(["station", "verdict", "reasons", "extra_minutes"])
+    for v in verdicts:
+        minutes = "" if not np.isfinite(v.extra_minutes) else f"{v.extra_minutes:.0f}"
+        w.writerow([v.station, v.verdict, "; ".join(v.reasons), minutes])
+    return buf.getvalue()
+
+
+def write_stations_csv(project, verdicts):
+    """Write ``<project>/qc/stations.csv`` atomically; returns its path."""
+    from pathlib import Path
+
+    from ..io.atomic import write_text_atomic
+    return write_text_atomic(Path(project) / "qc" / "stations.csv", stations_csv_text(verdicts))
