@@ -12,7 +12,7 @@ The Emberline Plateau scenario (fictional) is defined here:
 """
 from __future__ import annotations
 
-from dataclasses import dataclass, replace
+from dataclasses import dataclass, field, replace
 from pathlib import Path
 
 import numpy as np
@@ -24,7 +24,7 @@ from .io.raw import RawHeader, write_npy_recording
 from .survey import (COIL_COMPONENTS, Receiver, Station, Survey, Transmitter, parse_time,
                      seconds_between)
 
-__all__ = ["NoiseSpec", "forward_source", "forward_receiver", "survey_waveform",
+__all__ = ["NoiseSpec", "Faults", "forward_source", "forward_receiver", "survey_waveform",
            "station_transient", "synth_channel", "synth_survey", "emberline_survey",
            "emberline_models", "EMBERLINE_NOISE"]
 
@@ -61,6 +61,31 @@ class NoiseSpec:
         """Random noise (white, 1/f, spikes) scaled by ``factor``."""
         return replace(self, white=self.white * factor, pink=self.pink * factor,
                        spike_amp=self.spike_amp * factor)
+
+
+@dataclass(frozen=True)
+class Faults:
+    """Faults injected into one station's recordings (synthetic QC tests and demos only).
+
+    noise : factor on the random noise (white, 1/f, spikes) of the data channels.
+    burst : (start, end, rate, amplitude): extra spikes between the fractions
+        start..end of the record, ``rate`` per s, median amplitude (V).
+    dead : components recorded flat (all zero).
+    offset : {component: V} added to a channel (e.g. near full scale: clipping
+        at the positive rail).
+    reversed : components wired the other way round (every sample negated).
+    clock : s by which the logger's clock runs ahead: every header of the
+        station says the recording started ``clock`` later than it did.
+    drift : V/s of extra linear drift on every data channel.
+    """
+
+    noise: float = 1.0
+    burst: tuple = ()
+    dead: tuple = ()
+    offset: dict = field(default_factory=dict)
+    reversed: tuple = ()
+    clock: float = 0.0
+    drift: float = 0.0
 
 
 # Logger-volt noise per component in the Emberline scenario (common practice, no source)
@@ -219,9 +244,38 @@ def synth_channel(transient, t_first: float, fs: float, n: int, scale: float,
 
 
 def _to_counts(volts, full_scale_v, vpc):
+    """Counts of a two's complement digitiser of full scale ``full_scale_v``: rails -F and F - 1."""
     fsc = int(round(full_scale_v / vpc))
-    c = np.clip(np.round(volts / vpc), -fsc, fsc)
+    c = np.clip(np.round(volts / vpc), -fsc, fsc - 1)
     return c.astype(np.int32), fsc
+
+
+def _burst(rng, n, fs, burst):
+    """Spikes of a burst (start, end, rate, amplitude), decaying over 8 samples (V)."""
+    x = np.zeros(n)
+    if not burst:
+        return x
+    a, z, rate, amp = burst
+    i0, i1 = int(a * n), max(int(z * n) - 8, int(a * n) + 1)
+    k = rng.poisson(rate * (i1 - i0) / fs)
+    pos = rng.integers(i0, i1, k)
+    val = amp * rng.lognormal(0.0, 1.0, k) * rng.choice([-1, 1], k)
+    for j, w in enumerate(np.exp(-np.arange(8) / 1.5)):
+        np.add.at(x, pos + j, val * w)
+    return x
+
+
+def _apply_faults(volts, comp, f, rng, n, fs):
+    """A data channel's volts with the faults of its station (new array)."""
+    volts = volts + _burst(rng, n, fs, f.burst)
+    if f.drift:
+        volts = volts + f.drift * np.arange(n) / fs
+    volts = volts + float(f.offset.get(comp, 0.0))
+    if comp in f.reversed:
+        volts = -volts
+    if comp in f.dead:
+        volts = np.zeros(n)
+    return volts
 
 
 def _check_synth_inputs(survey, models, duration, noisy_station, dead_channel):
@@ -252,15 +306,28 @@ def _check_synth_inputs(survey, models, duration, noisy_station, dead_channel):
 def synth_survey(survey: Survey, models: dict, out_dir, seed: int = 0, duration: float = 900.0,
                  noise: dict | None = None, noisy_station: str | None = None,
                  noisy_factor: float = 8.0, dead_channel: tuple | None = None,
-                 current_channel: bool = True, progress=None) -> dict:
+                 current_channel: bool = True, progress=None, faults: dict | None = None) -> dict:
     """Write raw recordings for every station of ``survey`` (paths from the survey).
 
     models : station id -> LayeredModel. noise : component -> NoiseSpec.
+    faults : station id -> :class:`Faults` (``noisy_station`` and
+    ``dead_channel`` are shorthands for the noise and dead faults).
     Each station's recordings start at its own time: the survey's first
-    switch (rounded down to the second) + 30 min + 20 min per station + 1 s. Returns
+    switch (rounded down to the second) + 30 min + 20 min per station + 1 s.
+    Stations of identical geometry and model share one forward computation. Returns
     {station: {component: noise-free transient per A (M,)}} (the truth).
     """
     _check_synth_inputs(survey, models, duration, noisy_station, dead_channel)
+    faults = dict(faults or {})
+    unknown = [k for k in faults if k not in {st.id for st in survey.stations}]
+    if unknown:
+        raise input_error("faults", f"no station {unknown[0]!r}")
+    if noisy_station is not None:
+        faults[noisy_station] = replace(faults.get(noisy_station, Faults()), noise=noisy_factor)
+    if dead_channel is not None:
+        f = faults.get(dead_channel[0], Faults())
+        faults[dead_channel[0]] = replace(f, dead=tuple(f.dead) + (dead_channel[1],))
+    cache = {}
     tx = survey.transmitter
     noise = dict(EMBERLINE_NOISE if noise is None else noise)
     master = np.random.default_rng(seed)
@@ -278,16 +345,21 @@ def synth_survey(survey: Survey, models: dict, out_dir, seed: int = 0, duration:
         first = int(np.ceil((t_first + k_first * tx.half_period) * fs - 1e-6))
         delay = first / fs - (t_first + k_first * tx.half_period)
         times = np.maximum(delay + np.arange(m) / fs, 1e-3 / fs)
-        tr = station_transient(survey, st, models[st.id], times, recs)
+        key = (st.x, st.y, tuple((r.component, r.dipole, r.coil_area, r.gain) for r in recs),
+               tuple(models[st.id].thickness), tuple(models[st.id].resistivity), times.tobytes())
+        if key not in cache:
+            cache[key] = station_transient(survey, st, models[st.id], times, recs)
+        tr = cache[key]
         truth[st.id] = {r.component: tr[i] for i, r in enumerate(recs)}
+        f = faults.get(st.id, Faults())
         for i, rx in enumerate(st.receivers):
             if abs(rx.sample_rate - fs) > 1e-9:
                 raise input_error("sample_rate", f"{st.id}: receivers must share one sample rate")
             spec = noise.get(rx.component, noise.get("ex")) if rx.component != "current" else \
                 NoiseSpec(white=1e-4, pink=0, mains=0, spike_rate=0, offset=1e-3, drift=0, poly=0,
                           n_clip=0)
-            if st.id == noisy_station:
-                spec = spec.scaled(noisy_factor)
+            if rx.component != "current" and f.noise != 1.0:
+                spec = spec.scaled(f.noise)
             if rx.component == "current":
                 wf = survey_waveform(tx)
                 cur = -wf.current_at(times - tx.half_period)
@@ -298,11 +370,12 @@ def synth_survey(survey: Survey, models: dict, out_dir, seed: int = 0, duration:
                 length = rx.dipole_length if rx.coil_area is None else rx.coil_area
                 volts = synth_channel(tr[k], t_first, fs, n, rx.gain * length * tx.current,
                                       noise_record(rng, n, fs, spec, survey.mains_frequency))
-            if dead_channel is not None and (st.id, rx.component) == tuple(dead_channel):
-                volts = np.zeros(n)
+            if rx.component != "current":
+                volts = _apply_faults(volts, rx.component, f, rng, n, fs)
             vpc = spec.full_scale / 2**23          # 24-bit digitiser
             counts, fsc = _to_counts(volts, spec.full_scale, vpc)
-            header = RawHeader(sample_rate=fs, volts_per_count=vpc, start_time=start,
+            stamp = start + np.timedelta64(int(round(f.clock * 1e9)), "ns")
+            header = RawHeader(sample_rate=fs, volts_per_count=vpc, start_time=stamp,
                                full_scale=fsc, component=rx.component, station=st.id)
             path = survey.path(rx.files[0])
             path.parent.mkdir(parents=True, exist_ok=True)

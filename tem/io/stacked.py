@@ -155,7 +155,8 @@ def gated_dataset(stacked: xr.Dataset, table, value, error, usable, noise_floor,
     attrs = {k: stacked.attrs[k] for k in keep if k in stacked.attrs}
     attrs.update(gate_shape=table.shape, tem_format="gated", format_version=_VERSION,
                  tem_version=__version__, provenance=records_to_json(provenance))
-    ch = {k: stacked[k] for k in ("component", "rx_x0", "rx_y0", "rx_x1", "rx_y1", "coil_area")}
+    ch = {k: stacked[k] for k in ("component", "rx_x0", "rx_y0", "rx_x1", "rx_y1", "coil_area",
+                                  "dead") if k in stacked}
     return xr.Dataset({
         "value": (("channel", "gate"), np.asarray(value, float)),
         "error": (("channel", "gate"), np.asarray(error, float)),

@@ -9,7 +9,8 @@ from __future__ import annotations
 
 import numpy as np
 
-__all__ = ["qc_rows", "qc_table", "usable_range", "decay_figure", "raw_vs_stacked_figure"]
+__all__ = ["qc_rows", "qc_table", "usable_range", "decay_figure", "raw_vs_stacked_figure",
+           "panel_note"]
 
 
 def usable_range(t_open, t_close, usable):
@@ -103,6 +104,19 @@ def _figure(w=7.0, h=4.5):
     return fig
 
 
+def panel_note(ax, text):
+    """Write ``text`` across the middle of an axes panel (a dead or empty channel)."""
+    ax.text(0.5, 0.5, text, transform=ax.transAxes, ha="center", va="center", fontsize=9,
+            color="tab:red", bbox=dict(boxstyle="round", fc="white", ec="tab:red"))
+
+
+def _dead(ds, comp):
+    if "dead" not in ds:
+        return False
+    comps = [str(x) for x in ds["component"].values]
+    return comp in comps and bool(ds["dead"].values[comps.index(comp)])
+
+
 def decay_figure(gated, stacked=None):
     """Gated decay per channel, |value| with 1-sigma bars on log-log axes.
 
@@ -132,6 +146,11 @@ def decay_figure(gated, stacked=None):
                             label=lab, **kw)
         ax.axhline(float(gated["noise_floor"].values[c]), ls="--", color="k", lw=0.8,
                    label="noise floor (per sample)")
+        dead = _dead(gated, comp) or (stacked is not None and _dead(stacked, comp))
+        if dead:
+            panel_note(ax, "dead channel: flat record\n(peak-to-peak at most 1 count)")
+        elif not u.any():
+            panel_note(ax, "no usable gate:\nevery gate below the noise")
         ax.set_xscale("log")
         ax.set_yscale("log")
         ax.set_xlabel("time after switch-off (s)")
@@ -143,7 +162,12 @@ def decay_figure(gated, stacked=None):
 
 
 def raw_vs_stacked_figure(stacked):
-    """First full period of the raw record against the stacked transient (both per A)."""
+    """One full period of the raw record against the stacked transient (both per A).
+
+    The excerpt starts at the record's first positive switch-off, so the raw
+    period and the stack drawn as (+s, -s) have the same sign; a dead channel
+    is noted in its panel.
+    """
     n = stacked.sizes["channel"]
     fig = _figure(5.0 * n, 4.2)
     axes = fig.subplots(1, n, squeeze=False)[0]
@@ -157,6 +181,8 @@ def raw_vs_stacked_figure(stacked):
         ax.plot(te, raw - np.mean(raw), color="0.6", lw=0.5, label="raw (one period, mean removed)")
         ax.plot(te, np.concatenate([s, -s])[: te.size], color="tab:blue", lw=1.0,
                 label="stacked (+, then -)")
+        if bool(stacked["dead"].values[c]):
+            panel_note(ax, "dead channel: flat record\n(peak-to-peak at most 1 count)")
         ax.set_xlabel("time after a positive switch-off (s)")
         ax.set_ylabel(f"{comp} ({stacked['unit'].values[c]})")
         ax.set_title(f"{stacked.attrs['station']} {comp}: raw vs stacked")

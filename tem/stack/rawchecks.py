@@ -17,6 +17,7 @@ These are quality measures, not estimates fed back into the stack.
 from __future__ import annotations
 
 import math
+import warnings
 
 import numpy as np
 
@@ -108,8 +109,10 @@ def half_cycle_check(read_volts, starts, m: int, means, stack_volts, clip_volts:
                 amp1.append(a[0])
                 amp_rms.append(math.sqrt(0.5 * float(np.sum(a * a))))
                 d = d - (basis @ coef).reshape(4, m)
-        pos = np.nanmean(d[[0, 2]], axis=0)
-        neg = -np.nanmean(d[[1, 3]], axis=0)
+        with warnings.catch_warnings():     # a sample clipped in both windows: NaN
+            warnings.simplefilter("ignore", RuntimeWarning)
+            pos = np.nanmean(d[[0, 2]], axis=0)
+            neg = -np.nanmean(d[[1, 3]], axis=0)
         if e.size >= 2:
             cs_a = np.nancumsum(np.concatenate([[0.0], 0.5 * (pos - neg)]))
             cs_s = np.nancumsum(np.concatenate([[0.0], 0.5 * (pos + neg)]))

@@ -36,6 +36,7 @@ state the same steps plainly. Reading and headers are apart.
 from __future__ import annotations
 
 import math
+import warnings
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -326,8 +327,10 @@ def _robust_start(src, edges, s, t_frac):
     mad[clean] = np.median(np.abs(e[clean] - med[clean, None]), axis=1)
     if rows.any():
         er = np.where(bad[rows], np.nan, e[rows])
-        med[rows] = np.nanmedian(er, axis=1)
-        mad[rows] = np.nanmedian(np.abs(er - med[rows, None]), axis=1)
+        with warnings.catch_warnings():     # a sample clipped in every estimate: NaN, then 0
+            warnings.simplefilter("ignore", RuntimeWarning)
+            med[rows] = np.nanmedian(er, axis=1)
+            mad[rows] = np.nanmedian(np.abs(er - med[rows, None]), axis=1)
         e[bad] = np.nan
     n = e.shape[1]
     m0 = np.nan_to_num(med)
