@@ -184,3 +184,14 @@ def test_dead_and_empty_channels_are_noted_in_their_panels(fault_day):
     ds, g = products["S14"]                 # clipped Ex: no usable gate
     notes = [t.get_text() for t in decay_figure(g, ds).axes[0].texts]
     assert any("no usable gate" in t for t in notes), notes
+
+
+def test_progress_advances_within_a_station(fault_day):
+    # progress(fraction) is called per chunk of every channel, not once per station
+    survey, _, _ = fault_day
+    seen = []
+    stack_station(survey, survey.stations[0], StackSettings(chunk_bytes=40 * 400 * 4),
+                  progress=seen.append)
+    assert len(seen) > 6 and seen[-1] == pytest.approx(1.0)
+    assert np.all(np.diff(seen) >= 0) and 0 < min(seen) < 0.5
+    assert sum(0 < f < 0.5 for f in seen) >= 3         # several steps inside the first channel

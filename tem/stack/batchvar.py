@@ -19,18 +19,21 @@ sigma^2 and lag correlations rho_l (l = 1..L, zero beyond):
 
     Var(sum_b x_b) = sigma^2 (B F - 2 sum_l l rho_l),  F = 1 + 2 sum_l rho_l,
 
-and for the stored, centred sums U_b = x_b - mean(x) (sum_b U_b = 0):
+and for the stored, centred sums U_b = x_b - mean(x) (sum_b U_b = 0), for long
+records,
 
     E[sum_b U_b^2]            = sigma^2 (B - F)
     E[sum_b U_b U_{b+l}]      = sigma^2 (B - l) (rho_l - F / B)
 
 (the algebra of batch means, cf. Law & Kelton 2000, "Simulation modeling and
 analysis", 3rd ed., chapter 9, and of lag-window variance estimates, cf.
-Newey & West 1987, Econometrica 55(3), 703-708; both from memory). The pooled ratios
-of the sample cross sums are solved for rho_l by fixed-point iteration, and
-the variance of any linear combination u_b = w . U_b follows as
+Newey & West 1987, Econometrica 55(3), 703-708; both from memory; the code
+uses the exact moments of the centred sums, ends included: :func:`_moments`).
+The pooled ratios
+of the sample cross sums are solved for rho_l, and the variance of any linear
+combination u_b = w . U_b follows as
 
-    Var = sum_b u_b^2 (B F - 2 sum_l l rho_l) / (B - F).
+    Var = sum_b u_b^2 (B F - 2 sum_l l rho_l) / (B - F)   (long records).
 
 With no correlation (rho = 0) this is the batch-means formula B/(B-1) sum u^2.
 
@@ -45,6 +48,7 @@ interpolated in log width.
 from __future__ import annotations
 
 import math
+from functools import lru_cache
 
 import numpy as np
 
@@ -61,13 +65,32 @@ def batch_lags(n_estimates: int, n_batches: int) -> int:
     return max(1, math.ceil(CORRELATION_LENGTH / b - 1e-9))
 
 
-def lag_correlations(influence, lags: int, iterations: int = 8) -> np.ndarray:
+@lru_cache(maxsize=64)
+def _moments(nb: int, lags: int) -> np.ndarray:
+    """A[l, k] = tr(J_l C T_k C): E[sum_b U_b U_{b+l}] = sigma^2 sum_k rho_k A[l, k].
+
+    C = I - 11'/B centres the batch sums, J_l has ones at (b, b + l), T_0 = I and
+    T_k = J_k + J_k' (the covariance of stationary sums is sigma^2 sum_k rho_k T_k,
+    rho_0 = 1). Exact for equal batches, including the ends of the record.
+    """
+    c = np.eye(nb) - 1.0 / nb
+    mats = [np.eye(nb)] + [np.eye(nb, k=k) + np.eye(nb, k=-k) for k in range(1, lags + 1)]
+    cmc = [c @ t @ c for t in mats]
+    return np.array([[np.sum(np.eye(nb, k=l) * m) for m in cmc] for l in range(lags + 1)])
+
+
+def lag_correlations(influence, lags: int) -> np.ndarray:
     """Pooled lag correlations rho_1..rho_L of the batch sums behind ``influence``.
 
     influence : (B, M) centred batch influence sums (any unit).
-    Each sample t gives the ratios c_l(t)/c_0(t) of its lag-l cross sum to its
-    sum of squares; their mean over all samples with c_0 > 0 is solved for
-    rho_l (module docstring). Returns (L,) floats; zeros if nothing is known.
+    The lag-l cross sums c_l(t) and the sums of squares c_0(t) of every
+    sample t are pooled as sum_t w_t c_l(t) / sum_t w_t c_0(t), with weights
+    w_t = 1 / (c_0 averaged over the 33 samples around t): every sample counts
+    about equally, and a weight hardly depends on its own sample (a mean of
+    ratios c_l/c_0 would be biased by a few per cent). The pooled ratios are
+    set equal to the ratios of the exact expectations of the centred sums
+    (:func:`_moments`), a linear system in rho. Returns (L,) floats; zeros if
+    nothing is known.
     """
     u = np.asarray(influence, float)
     nb = u.shape[0]
@@ -75,35 +98,43 @@ def lag_correlations(influence, lags: int, iterations: int = 8) -> np.ndarray:
     if lags < 1:
         return np.zeros(0)
     c0 = np.einsum("bm,bm->m", u, u)
-    ok = c0 > 0
-    if not ok.any():
+    if not np.any(c0 > 0):
         return np.zeros(lags)
-    raw = np.array([np.mean(np.einsum("bm,bm->m", u[l:, ok], u[:-l, ok]) / c0[ok])
-                    for l in range(1, lags + 1)])
-    ell = np.arange(1, lags + 1)
-    f = 1.0 + 2.0 * raw.sum()
-    rho = raw
-    for _ in range(iterations):
-        f = _clip_factor(f, nb)
-        rho = (raw * (nb - f) + (nb - ell) * f / nb) / (nb - ell)
-        f = 1.0 + 2.0 * rho.sum()
-    return rho
-
-
-def _clip_factor(f: float, nb: int) -> float:
-    # F is 8/3 for white noise and about 1 + 2/b for batches of b estimates; outside
-    # [0.1, B/3] the correlation model does not describe the record (too few batches)
-    return float(min(max(f, 0.1), nb / 3.0))
+    k = np.ones(min(33, c0.size))
+    smooth = np.convolve(c0, k, "same") / np.convolve(np.ones(c0.size), k, "same")
+    w = np.where(smooth > 0, 1.0 / np.where(smooth > 0, smooth, 1.0), 0.0)
+    raw = np.array([np.einsum("bm,bm,m->", u[l:], u[:-l], w) for l in range(1, lags + 1)])
+    raw /= float(c0 @ w)
+    a = _moments(nb, lags)
+    # raw_l (A[0,0] + sum_k A[0,k] rho_k) = A[l,0] + sum_k A[l,k] rho_k
+    lhs = a[1:, 1:] - raw[:, None] * a[0, 1:][None, :]
+    rhs = raw * a[0, 0] - a[1:, 0]
+    try:
+        rho = np.linalg.solve(lhs, rhs)
+    except np.linalg.LinAlgError:
+        return np.zeros(lags)
+    return rho if np.all(np.isfinite(rho)) else np.zeros(lags)
 
 
 def variance_factor(rho, nb: int) -> float:
-    """Factor c with Var(sum of batch sums) = c * sum_b U_b^2 (module docstring)."""
-    rho = np.asarray(rho, float)
-    if rho.size == 0:
-        return nb / (nb - 1.0)
-    f = _clip_factor(1.0 + 2.0 * rho.sum(), nb)
+    """Factor c with Var(sum of the batch sums) = c * sum_b U_b^2 (module docstring).
+
+    Var(sum) = sigma^2 (B + 2 sum_l (B - l) rho_l) and E[sum_b U_b^2] = sigma^2
+    sum_k rho_k A[0, k] (:func:`_moments`). Where the correlations do not
+    describe the record (the factor would leave [0.1, B/3] times the
+    uncorrelated one, e.g. with very few batches) the factor is held there.
+    """
+    rho = np.asarray(rho, float).ravel()
+    plain = nb / (nb - 1.0)
+    if rho.size == 0 or nb < 3:
+        return plain
+    a = _moments(nb, rho.size)
     ell = np.arange(1, rho.size + 1)
-    return max(nb * f - 2.0 * float(np.sum(ell * rho)), 0.1) / (nb - f)
+    num = nb + 2.0 * float(np.sum((nb - ell) * rho))
+    den = a[0, 0] + float(a[0, 1:] @ rho)
+    if not (num > 0 and den > 0):
+        return plain
+    return float(min(max(num / den, 0.1 * plain), plain * nb / 3.0))
 
 
 def batch_variance(u, rho=()) -> np.ndarray:
