@@ -28,7 +28,7 @@ CENTRE = np.sqrt(GATES[0] * GATES[1])
 def emberline_result():
     v, e, sim, model = emberline_station(X, noise=0.03, seed=0, gates=GATES)
     sd = station_data_from_arrays(sim, v, e, ["ex", "dbzdt"], x=X, gate_centre=CENTRE)
-    return invert_station(sd, InversionSettings(few_layers=4)), model
+    return invert_station(sd, InversionSettings(kind="few-layer", few_layers=4)), model
 
 
 def test_emberline_fewlayer_recovers_sediment_target(emberline_result):

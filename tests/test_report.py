@@ -16,7 +16,8 @@ import pytest
 from profile_fixture import X, synthetic_models
 from tem import SAFETY_NOTE
 from tem.errors import TemInputError
-from tem.section.plot import model_figure, save_figure
+from tem.io.figures import save_figure
+from tem.section.plot import model_figure
 from tem.report.html import STATUS_MISFIT, STATUS_NONE, STATUS_OK, station_table, write_report
 
 

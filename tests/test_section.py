@@ -168,7 +168,8 @@ def test_bad_velocity_tables(depth, vel, field):
 
 # ------------------------------------------------------------------ figures
 def test_section_figure_shows_doi_mask(tmp_path):
-    from tem.section.plot import save_figure, section_figure
+    from tem.io.figures import save_figure
+    from tem.section.plot import section_figure
 
     m = synthetic_models()
     g = stitch_models(m, 5.0, positions=np.arange(0.0, 1001.0, 50.0))

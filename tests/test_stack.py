@@ -210,7 +210,7 @@ def _reference_stack(src, s):
     n_est = src.n_windows - 2
     m = src.m
     t_frac = (np.arange(m) + 0.5) / m
-    edges = _batches(n_est, s.n_batches)
+    edges = _batches(n_est, s.batches)
     nb = len(edges) - 1
     per_chunk = max(1, int(s.chunk_bytes // (8 * m)) - 4)
     chunks = [(k0, min(z, k0 + per_chunk), b) for b, (a, z) in enumerate(zip(edges[:-1], edges[1:]))
@@ -356,7 +356,7 @@ def test_compiled_path_matches_numpy_reference_recording(est, tmp_path):
     rec = open_recording(path)
     for detrend in (True, False):
         for chunk in (7 * m * 4, 64 << 20):
-            s = StackSettings(estimator=est, detrend=detrend, chunk_bytes=chunk, n_batches=8,
+            s = StackSettings(estimator=est, detrend=detrend, chunk_bytes=chunk, batches=8,
                               bad_fraction=0.05)
             src = RecordingSource(rec, 37, m, n, polarity0=-1)
             fast = stack_source(src, s)
@@ -378,7 +378,7 @@ def test_compiled_path_matches_numpy_reference_arrays(est):
     clip[[3, 40, 95], [0, 17, 39]] = True
     for mask in (None, clip):
         for detrend in (True, False):
-            s = StackSettings(estimator=est, detrend=detrend, n_batches=5, chunk_bytes=3 * m * 8,
+            s = StackSettings(estimator=est, detrend=detrend, batches=5, chunk_bytes=3 * m * 8,
                               huber_k=1.345, trim=0.15)
             fast = stack_windows(x, polarity0=1, settings=s, clip_mask=mask)
             from tem.stack import ArraySource
@@ -403,8 +403,8 @@ def test_threads_give_identical_results():
     rng = np.random.default_rng(13)
     x = _nasty_counts(120, 32, rng).astype(np.float64)
     for est in ("mean", "huber"):
-        a = stack_windows(x, settings=StackSettings(estimator=est, n_batches=6))
-        b = stack_windows(x, settings=StackSettings(estimator=est, n_batches=6, threads=2))
+        a = stack_windows(x, settings=StackSettings(estimator=est, batches=6))
+        b = stack_windows(x, settings=StackSettings(estimator=est, batches=6, threads=2))
         np.testing.assert_array_equal(a.value, b.value)
         np.testing.assert_array_equal(a.influence, b.influence)
         assert a.counts == b.counts

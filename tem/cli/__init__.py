@@ -16,7 +16,8 @@ from ..errors import TemInputError
 
 __all__ = ["main", "build_parser"]
 
-_ORDER = ["forward", "synth", "stack", "gate", "rhoa", "invert", "section", "export", "run", "demo"]
+_ORDER = ["forward", "synth", "stack", "gate", "rhoa", "invert", "section", "export", "report",
+          "run", "demo"]
 
 
 def _command_modules():

@@ -42,68 +42,14 @@ import numpy as np
 
 from . import kernels as _kern
 from ..errors import input_error
+from .settings import ESTIMATORS, StackSettings
 
 __all__ = ["ESTIMATORS", "StackSettings", "StackResult", "WindowSource", "ArraySource",
            "RecordingSource", "combine_three", "stack_windows", "stack_source",
            "window_layout", "detect_switch_times", "plain_bipolar_stack", "ChannelStack",
            "stack_station", "timing_for_station"]
 
-ESTIMATORS = ("huber", "mean", "median", "trimmed")
 _MAD = 1.482602218505602  # 1 / Phi^{-1}(3/4): MAD -> sigma for Gaussian data
-
-
-@dataclass(frozen=True)
-class StackSettings:
-    """Stacking parameters (all explicit, no globals).
-
-    estimator : one of ``huber`` (default), ``mean``, ``median``, ``trimmed``.
-    huber_k : Huber clipping constant in robust sigmas (1.5: 96 % efficiency).
-    trim : fraction trimmed at each end for ``trimmed`` (0.1).
-    reject_sigma : a sample estimate further than this many robust sigmas from
-        the start is rejected (weight 0); not used by ``mean``.
-    transient_rms : a transient whose rms normalised residual (residuals
-        clipped at reject_sigma) exceeds this is rejected as noisy.
-    bad_fraction : a transient with more than this fraction of rejected
-        samples is rejected whole.
-    n_batches : batches for the error estimate (B).
-    detrend : remove the period-mean baseline before combining.
-    chunk_bytes : target size (bytes, as stored) of one chunk of windows: a
-        chunk is mapped, stacked in one compiled pass and released.
-    start_estimates : how many estimates (spread over all batches, every third
-        one) feed the robust start.
-    threads : batches stacked concurrently (compiled kernels release the GIL);
-        results are the same for any number.
-    """
-
-    estimator: str = "huber"
-    huber_k: float = 1.5
-    trim: float = 0.1
-    reject_sigma: float = 6.0
-    transient_rms: float = 2.5
-    bad_fraction: float = 0.2
-    n_batches: int = 32
-    detrend: bool = True
-    chunk_bytes: int = 64 << 20
-    start_estimates: int = 256
-    threads: int = 1
-
-    def __post_init__(self):
-        if self.estimator not in ESTIMATORS:
-            raise input_error("estimator", f"unknown {self.estimator!r}; valid: {', '.join(ESTIMATORS)}")
-        if not 0 <= self.trim < 0.5:
-            raise input_error("trim", f"must be in [0, 0.5), got {self.trim}")
-        if not self.huber_k > 0:
-            raise input_error("huber_k", f"must be positive, got {self.huber_k}")
-        if not self.reject_sigma > self.huber_k:
-            raise input_error("reject_sigma", f"must exceed huber_k ({self.huber_k}), got "
-                              f"{self.reject_sigma}")
-        if self.n_batches < 4:
-            raise input_error("n_batches", "need at least 4 batches")
-        if int(self.threads) != self.threads or self.threads < 1:
-            raise input_error("threads", f"must be a whole number >= 1, got {self.threads!r}")
-
-    def as_dict(self) -> dict:
-        return {k: getattr(self, k) for k in self.__dataclass_fields__}
 
 
 @dataclass
@@ -488,7 +434,7 @@ def stack_source(src: WindowSource, settings: StackSettings = StackSettings(), p
         raise input_error("n_windows", f"need at least 4 half-periods, got {src.n_windows}")
     m = src.m
     t_frac = (np.arange(m) + 0.5) / m
-    edges = _batches(n_est, s.n_batches)
+    edges = _batches(n_est, s.batches)
     nb = len(edges) - 1
     chunks = _chunks(edges, max(1, int(s.chunk_bytes // (src.itemsize * m)) - 3))
     total_steps = len(chunks) + (0 if s.estimator == "mean" else nb)
