@@ -14,6 +14,7 @@ import pytest
 
 from tem import rhoa as R
 from tem.errors import TemInputError
+from tem.rhoa.settings import RhoaSettings
 
 empymod = pytest.importorskip("empymod")
 
@@ -434,7 +435,7 @@ def test_sounding_rhoa_dataset_halfspace_and_flags():
     ds, sim = _gated("EM05", -1500.0, LayeredModel(thickness=[], resistivity=[300.0]), rng)
     ds["usable"].values[1, -1] = False
     ds["value"].values[0, 3] = 0.0   # a dead sample: flagged, kept
-    out = sounding_rhoa(ds, sim=sim, points_per_decade=12)
+    out = sounding_rhoa(ds, RhoaSettings(rho_per_decade=12), sim=sim)
     assert out.attrs["tem_format"] == "rhoa" and "rhoa" in out.attrs["provenance"]
     rho, rel = out["rhoa"].values, out["rhoa_rel_error"].values
     ok = np.isfinite(rho)

@@ -56,7 +56,7 @@ def test_gates_agree_with_engine_truth(day, tmp_path, shape):
     for st in sv.stations:
         chans, timing = stack_station(sv, st, StackSettings())
         ds = stacked_dataset(sv, st, chans, timing, StackSettings(), [])
-        g = gate_stacked(ds, per_decade=9, shape=shape)
+        g = gate_stacked(ds, 9.0, shape, None, None, 2.0)
         for c in range(g.sizes["channel"]):
             u = g["usable"].values[c]
             truth = engine_truth(sv, st, models[st.id], g, c)

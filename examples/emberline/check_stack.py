@@ -53,7 +53,7 @@ def main():
                 if est != "huber":
                     continue
                 ds = stacked_dataset(sv, st, chans, timing, StackSettings(), [])
-                g = gate_stacked(ds, shape=args.shape)
+                g = gate_stacked(ds, 9.0, args.shape, None, None, 2.0)
                 for ci, c in enumerate(chans):
                     u = g["usable"].values[ci]
                     if not u.any():

@@ -22,7 +22,7 @@ def _steps(top, values, z_max):
     return v, z
 
 
-def station_figure(result, kind="smooth", true_model=None):
+def station_figure(result, kind, true_model=None):
     """Figure of one station's fit and model.
 
     Parameters

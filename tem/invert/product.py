@@ -34,7 +34,7 @@ def _pad(rows, width):
     return out
 
 
-def models_from_results(results, kind="smooth", provenance=(), epsg=0):
+def models_from_results(results, kind, provenance=(), epsg=0):
     """Models Dataset (docs/data-model.md) from station results.
 
     ``kind="smooth"`` uses the smooth models (std from the roughness prior),
@@ -76,7 +76,7 @@ def models_from_results(results, kind="smooth", provenance=(), epsg=0):
     return ds
 
 
-def write_fit_csv(results, path, kind="smooth"):
+def write_fit_csv(results, path, kind):
     """Observed and predicted data of every station (one row per datum), atomically."""
     from ..io.atomic import atomic_path
 

@@ -56,7 +56,7 @@ def _lci(results, files, settings, floors, folder, record, epsg, res):
         return []
     try:
         sds = [load_station(files[r.station], floors) for r in results]
-        lres = lci_profile(sds, settings, lateral_weight=settings.lateral_weight)
+        lres = lci_profile(sds, settings)
         ds = models_from_results(lres, kind="lci", epsg=epsg)
     except (TemInputError, ValueError, np.linalg.LinAlgError, FloatingPointError) as exc:
         res.failed = f"laterally constrained inversion failed: {exc}".splitlines()[0]

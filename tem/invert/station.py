@@ -290,7 +290,7 @@ def lci_mesh(sds, settings: InversionSettings = InversionSettings()):
     return log_mesh(settings.layers, *mesh_depths(rho_med, tmin, tmax, offset, settings)), rho_hs
 
 
-def lci_profile(sds, settings: InversionSettings = InversionSettings(), lateral_weight=1.0,
+def lci_profile(sds, settings: InversionSettings = InversionSettings(),
                 callback=None, m0=None, mesh=None):
     """Laterally constrained smooth inversion of a profile of stations.
 
@@ -327,7 +327,7 @@ def lci_profile(sds, settings: InversionSettings = InversionSettings(), lateral_
     p_all = np.concatenate([p[1](m) for p, m in zip(problems, m0)])
     target = max(settings.target, chi2_per_datum(d_all, p_all, s_all))
     res = lci([p[0] for p in problems], [sd.d_obs for sd in sds], [sd.std for sd in sds], m0,
-              positions=pos, lateral_weight=lateral_weight, predicts=[p[1] for p in problems],
+              positions=pos, lateral_weight=settings.lateral_weight, predicts=[p[1] for p in problems],
               target=target, max_iter=settings.max_iter, callback=callback)
     thr = 0.8 if settings.doi_threshold is None else settings.doi_threshold
     R = roughness_matrix(M)

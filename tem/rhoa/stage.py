@@ -27,9 +27,7 @@ def rhoa_one(sid, in_path, settings: RhoaSettings, out_path, fig_path):
     from .sounding import sounding_rhoa, table_rows
 
     ds = read_product(in_path, "gated")
-    res = sounding_rhoa(ds, all_time=settings.all_time, rho_min=settings.rho_min,
-                        rho_max=settings.rho_max, points_per_decade=settings.rho_per_decade,
-                        source=str(in_path))
+    res = sounding_rhoa(ds, settings, source=str(in_path))
     write_dataset(res, out_path)
     outputs = [str(out_path)]
     if fig_path:

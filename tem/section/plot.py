@@ -65,8 +65,8 @@ def _station_labels(ax, station_d, labels, scale):
     return top
 
 
-def section_figure(grid, title=None, vmin=None, vmax=None, below_doi="shade",
-                   distance_unit="auto", cmap=CMAP, width=10.0, height=4.5):
+def section_figure(grid, *, below_doi, title=None, vmin=None, vmax=None, distance_unit="auto",
+                   cmap=CMAP, width=10.0, height=4.5):
     """Figure of a stitched resistivity section.
 
     Parameters
