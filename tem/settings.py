@@ -530,3 +530,43 @@ def parse_assignment(text: str):
     if raw.lower() == "none":
         value = None
     return stage.strip(), key.strip(), value
+
+
+# ----------------------------------------------------------------------------- reference
+def markdown(tables) -> str:
+    """The settings reference (docs/settings.md) generated from the tables themselves."""
+    lines = ["# Processing settings", "",
+             "Generated from the settings tables (`tem/<stage>/settings.py`) by",
+             "`python -m tem.settings > docs/settings.md`; a test keeps this page in step with",
+             "the code. Each setting is a key of the survey's `[processing.<stage>]` table",
+             "(`tem run`), an option of the stage's command (`--name-with-dashes`) and a field",
+             "of the stage's settings class in the library.", ""]
+    for t in tables:
+        lines += [f"## `{t.stage}` ({t.cls.__name__})", "",
+                  "| key | option | default | unit | meaning | source of the default |",
+                  "|---|---|---|---|---|---|"]
+        for s in t.exposed:
+            d = s.default
+            if d is None:
+                dtext = "unset"
+            elif isinstance(d, bool):
+                dtext = "true" if d else "false"
+            elif isinstance(d, (list, tuple)):
+                dtext = ", ".join(map(str, d)) if d else "none"
+            else:
+                dtext = f"{d:g}" if isinstance(d, float) else str(d)
+            if s.kind in ("choice", "list") and s.choices:
+                meaning = f"{s.help} (one of: {', '.join(map(str, s.choices))})"
+            else:
+                meaning = s.help
+            lines.append(f"| `{s.name}` | `{s.flag}` | {dtext} | {s.unit} | {meaning} | "
+                         f"{s.source} |")
+        lines.append("")
+    return "\n".join(lines)
+
+
+if __name__ == "__main__":  # pragma: no cover - writes the reference page
+    from .forward.settings import FORWARD
+    from .pipeline.settings import TABLES
+
+    sys.stdout.write(markdown(list(TABLES.values()) + [FORWARD]))

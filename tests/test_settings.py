@@ -123,3 +123,11 @@ def test_a_table_refuses_duplicate_names():
 
     with pytest.raises(ValueError):
         SettingsTable("x", [Setting("a", 1, "int"), Setting("a", 2, "int")], "X")
+
+
+def test_reference_page_is_generated_from_the_tables():
+    from tem.settings import markdown
+
+    page = Path(__file__).resolve().parents[1] / "docs" / "settings.md"
+    assert page.read_text(encoding="utf-8") == markdown(list(TABLES.values()) + [FORWARD]), \
+        "docs/settings.md is stale: python -m tem.settings > docs/settings.md"
