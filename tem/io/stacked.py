@@ -16,7 +16,7 @@ import xarray as xr
 from .. import __version__
 from ..errors import input_error
 from ..provenance import records_from_json, records_to_json
-from .atomic import atomic_path
+from .netcdf import write_netcdf
 
 __all__ = ["stacked_dataset", "write_dataset", "read_product", "gated_dataset",
            "COUNT_FIELDS"]
@@ -115,10 +115,7 @@ def gated_dataset(stacked: xr.Dataset, table, value, error, usable, noise_floor,
 
 def write_dataset(ds: xr.Dataset, path) -> Path:
     """Write a product Dataset atomically (netCDF4 via h5netcdf)."""
-    path = Path(path)
-    with atomic_path(path, suffix=".nc") as tmp:
-        ds.to_netcdf(tmp, engine="h5netcdf")
-    return path
+    return write_netcdf(ds, path)
 
 
 def read_product(path, fmt: str) -> xr.Dataset:
