@@ -21,6 +21,7 @@ from __future__ import annotations
 import argparse
 import dataclasses
 import math
+import sys
 import tomllib
 from dataclasses import dataclass
 from pathlib import Path
@@ -97,7 +98,8 @@ class Setting:
     help : str
         One sentence for the command's help and docs/pipeline.md.
     minimum, maximum : float or None
-        Bounds; ``exclusive`` makes the minimum strict (e.g. positive).
+        Bounds; ``exclusive`` makes the minimum strict (e.g. positive),
+        ``exclusive_max`` the maximum.
     choices : tuple
         Valid values of ``choice`` and ``list`` kinds.
     optional : bool
@@ -126,6 +128,7 @@ class Setting:
     minimum: float | None = None
     maximum: float | None = None
     exclusive: bool = False
+    exclusive_max: bool = False
     choices: tuple = ()
     optional: bool = False
     source: str = ""
@@ -149,8 +152,8 @@ class Setting:
         """Help text with default and unit, e.g. ``gates per decade (default 9)``."""
         d = self.default
         if d is None:
-            dtext = "unset"
-        elif isinstance(d, bool):
+            return self.help if "unset" in self.help else f"{self.help} (default unset)"
+        if isinstance(d, bool):
             dtext = "on" if d else "off"
         elif isinstance(d, (list, tuple)):
             dtext = ",".join(str(v) for v in d) if d else "none"
@@ -299,8 +302,9 @@ def _bounds(s: Setting, value, bad):
             raise bad(f"must be positive, got {value:g}{unit}")
         rel = ">" if s.exclusive else ">="
         raise bad(f"must be {rel} {lo:g}{unit}, got {value:g}")
-    if hi is not None and value > hi:
-        raise bad(f"must be <= {hi:g}{unit}, got {value:g}")
+    if hi is not None and (value > hi or (s.exclusive_max and value == hi)):
+        rel = "<" if s.exclusive_max else "<="
+        raise bad(f"must be {rel} {hi:g}{unit}, got {value:g}")
 
 
 def _show(value) -> str:
@@ -326,8 +330,11 @@ class SettingsTable:
         the error names the field as the user typed it.
     """
 
-    def __init__(self, stage: str, items, cls_name: str, doc: str = "", checks=()):
+    def __init__(self, stage: str, items, cls_name: str, doc: str = "", checks=(), module=None):
         self.stage = stage
+        # the generated class lives (for pickling into worker processes) in the module that
+        # assigns it, by default the caller's
+        self._module = module or sys._getframe(1).f_globals.get("__name__", __name__)
         self.items = tuple(items)
         self._by_name = {s.name: s for s in self.items}
         if len(self._by_name) != len(self.items):
@@ -378,32 +385,40 @@ class SettingsTable:
             cls_name, fields, frozen=True,
             namespace={"__post_init__": __post_init__, "as_dict": as_dict, "replace": replace,
                        "__doc__": "\n".join(lines), "table": self})
-        cls.__module__ = "tem.settings"
+        cls.__module__ = self._module
         return cls
 
     # -- checking ---------------------------------------------------------------------------
-    def check(self, values: dict, origin: Origin = PYTHON) -> dict:
-        """Checked copy of ``values`` (every setting of the table)."""
+    def check(self, values: dict, origin: Origin = PYTHON, origins: dict | None = None) -> dict:
+        """Checked copy of ``values`` (every setting of the table).
+
+        ``origins`` maps a field to the :class:`Origin` it came from when the
+        values were gathered from several places (defaults, survey, options).
+        """
+        origins = origins or {}
         out = {}
         for s in self.items:
-            out[s.name] = s.coerce(values.get(s.name, s.default), origin.label(self, s.name),
-                                   origin.file)
+            o = origins.get(s.name, origin)
+            out[s.name] = s.coerce(values.get(s.name, s.default), o.label(self, s.name), o.file)
         for check in self.checks:
             fault = check(out)
             if fault:
                 field, problem = fault
-                raise input_error(origin.label(self, field), problem, origin.file)
+                o = origins.get(field, origin)
+                raise input_error(o.label(self, field), problem, o.file)
         return out
 
-    def build(self, values: dict | None = None, origin: Origin = PYTHON):
+    def build(self, values: dict | None = None, origin: Origin = PYTHON, origins=None):
         """A settings object from defaults updated by ``values`` (checked, labelled by origin)."""
         values = dict(values or {})
-        unknown = [k for k in values if k not in self._by_name]
-        if unknown:
-            raise input_error(origin.label(self, unknown[0]), "unknown setting; valid: "
-                              + ", ".join(s.name for s in self.exposed), origin.file)
+        origins = origins or {}
+        for k in values:
+            if k not in self._by_name or not self._by_name[k].expose and origin.kind != "python":
+                o = origins.get(k, origin)
+                raise input_error(o.label(self, _show_key(k)), "unknown setting; valid: "
+                                  + ", ".join(s.name for s in self.exposed), o.file)
         merged = {**self.defaults(), **values}
-        checked = self.check(merged, origin)
+        checked = self.check(merged, origin, origins)
         return _construct(self.cls, checked)
 
     def from_table(self, table, file=None, base=None) -> dict:
@@ -515,3 +530,43 @@ def parse_assignment(text: str):
     if raw.lower() == "none":
         value = None
     return stage.strip(), key.strip(), value
+
+
+# ----------------------------------------------------------------------------- reference
+def markdown(tables) -> str:
+    """The settings reference (docs/settings.md) generated from the tables themselves."""
+    lines = ["# Processing settings", "",
+             "Generated from the settings tables (`tem/<stage>/settings.py`) by",
+             "`python -m tem.settings > docs/settings.md`; a test keeps this page in step with",
+             "the code. Each setting is a key of the survey's `[processing.<stage>]` table",
+             "(`tem run`), an option of the stage's command (`--name-with-dashes`) and a field",
+             "of the stage's settings class in the library.", ""]
+    for t in tables:
+        lines += [f"## `{t.stage}` ({t.cls.__name__})", "",
+                  "| key | option | default | unit | meaning | source of the default |",
+                  "|---|---|---|---|---|---|"]
+        for s in t.exposed:
+            d = s.default
+            if d is None:
+                dtext = "unset"
+            elif isinstance(d, bool):
+                dtext = "true" if d else "false"
+            elif isinstance(d, (list, tuple)):
+                dtext = ", ".join(map(str, d)) if d else "none"
+            else:
+                dtext = f"{d:g}" if isinstance(d, float) else str(d)
+            if s.kind in ("choice", "list") and s.choices:
+                meaning = f"{s.help} (one of: {', '.join(map(str, s.choices))})"
+            else:
+                meaning = s.help
+            lines.append(f"| `{s.name}` | `{s.flag}` | {dtext} | {s.unit} | {meaning} | "
+                         f"{s.source} |")
+        lines.append("")
+    return "\n".join(lines)
+
+
+if __name__ == "__main__":  # pragma: no cover - writes the reference page
+    from .forward.settings import FORWARD
+    from .pipeline.settings import TABLES
+
+    sys.stdout.write(markdown(list(TABLES.values()) + [FORWARD]))

@@ -13,7 +13,7 @@ T = (np.arange(M) + 0.5) / FS
 
 
 def test_log_spacing_and_edges_between_samples():
-    tab = log_gates(T, 1e-3, 0.4, per_decade=9)
+    tab = log_gates(T, 1e-3, 0.4, 9, "boxcar")
     h = 1 / FS
     # edges sit half-way between samples
     assert np.allclose(((tab.open - T[0]) / h) % 1, 0.5) and np.allclose(((tab.close - T[0]) / h) % 1, 0.5)
@@ -59,7 +59,7 @@ def test_gate_errors_with_correlated_noise_monte_carlo():
     n = 200
     sig = 1e-3 * np.exp(-T / 0.02)
     pol = 1 - 2 * (np.arange(n) % 2)
-    tab = log_gates(T, 1e-3, 0.45, per_decade=8)
+    tab = log_gates(T, 1e-3, 0.45, 8, "boxcar")
     W = gate_matrix(T, tab)
     truth = W @ sig
     z = []
@@ -88,9 +88,9 @@ def test_usable_flags_and_bad_tables():
 def test_nan_per_decade_is_an_input_error():
     # was a ValueError traceback (int(nan)) from the gate count
     with pytest.raises(TemInputError, match="per_decade"):
-        log_gates(T, 1e-3, 0.4, float("nan"))
+        log_gates(T, 1e-3, 0.4, float("nan"), "boxcar")
     with pytest.raises(TemInputError, match="t_max"):
-        log_gates(T, 1e-3, float("nan"), 9.0)
+        log_gates(T, 1e-3, float("nan"), 9.0, "boxcar")
 
 
 @pytest.mark.parametrize("opts, field", [

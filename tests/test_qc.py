@@ -67,7 +67,7 @@ def fault_day(tmp_path_factory):
     for st in survey.stations:
         chans, timing = stack_station(survey, st, StackSettings())
         ds = stacked_dataset(survey, st, chans, timing, StackSettings(), [])
-        g = gate_stacked(ds)
+        g = gate_stacked(ds, 9.0, "boxcar", None, None, 2.0)
         products[st.id] = (ds, g)
         measures += channel_measures(ds, g)
     return survey, products, measures

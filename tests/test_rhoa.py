@@ -14,6 +14,7 @@ import pytest
 
 from tem import rhoa as R
 from tem.errors import TemInputError
+from tem.rhoa.settings import RhoaSettings
 
 empymod = pytest.importorskip("empymod")
 
@@ -434,7 +435,7 @@ def test_sounding_rhoa_dataset_halfspace_and_flags():
     ds, sim = _gated("EM05", -1500.0, LayeredModel(thickness=[], resistivity=[300.0]), rng)
     ds["usable"].values[1, -1] = False
     ds["value"].values[0, 3] = 0.0   # a dead sample: flagged, kept
-    out = sounding_rhoa(ds, sim=sim, points_per_decade=12)
+    out = sounding_rhoa(ds, RhoaSettings(rho_per_decade=12), sim=sim)
     assert out.attrs["tem_format"] == "rhoa" and "rhoa" in out.attrs["provenance"]
     rho, rel = out["rhoa"].values, out["rhoa_rel_error"].values
     ok = np.isfinite(rho)
@@ -480,31 +481,33 @@ def test_cli_rhoa_writes_table_files_and_figures(tmp_path, capsys):
         write_dataset(ds, gated / f"{st}.nc")
     (gated / "broken.nc").write_text("not a netCDF file")
     out = tmp_path / "rhoa"
-    code = main(["rhoa", str(gated), "--out", str(out), "--per-decade", "8",
+    code = main(["rhoa", str(gated), "--out", str(out), "--rho-per-decade", "8",
                  "--section-axis", "depth"])
     assert code == 1  # one station failed, the others processed
-    with open(out / "rhoa.csv", newline="") as fh:
+    with open(out / "rhoa" / "rhoa.csv", newline="") as fh:
         rows = list(csv.DictReader(fh))
     assert len(rows) == 3 * 2 * 16
     assert {r["station"] for r in rows} == set(models)
     assert all(r["rhoa_ohmm"] or r["flags"] for r in rows)  # unconverted gates carry a flag
     for st in models:
-        assert (out / f"{st}.nc").is_file()
-        assert (out / "figures" / f"sounding_{st}.png").stat().st_size > 10_000
-    assert (out / "figures" / "pseudosection_dbzdt_depth.png").is_file()
-    assert (out / "figures" / "pseudosection_ex_depth.png").is_file()
-    assert not (out / "broken.nc").exists()
+        assert (out / "rhoa" / f"{st}.nc").is_file()
+        assert (out / "figures" / "stations" / f"{st}_rhoa.png").stat().st_size > 10_000
+    assert (out / "figures" / "pseudosection_dbzdt.png").is_file()
+    assert (out / "figures" / "pseudosection_ex.png").is_file()
+    assert not (out / "rhoa" / "broken.nc").exists()
     # a failing file's error is one line on stderr, however long (rich wrapped it)
     long = gated / ("a_station_file_with_a_long_name_" * 3 + ".nc")
     long.write_text("not a netCDF file")
     capsys.readouterr()
-    assert main(["rhoa", str(long), "--out", str(tmp_path / "r2"), "--late-only",
+    assert main(["rhoa", str(long), "--out", str(tmp_path / "r2"), "--no-all-time",
                  "--no-figures"]) == 1
     err = [ln for ln in capsys.readouterr().err.splitlines() if ln.strip()]
-    assert len(err) == 1 and err[0].startswith("tem rhoa: error: ") and len(err[0]) > 120
+    assert err[0].startswith("tem rhoa: station a_station") and len(err[0]) > 120
+    assert err[1] == "tem rhoa: no station could be converted to apparent resistivity"
     # bad command-line input: exit 2
     assert main(["rhoa", str(tmp_path / "nothing"), "--out", str(out)]) == 2
-    assert main(["rhoa", str(gated), "--out", str(out), "--rho-range", "10", "1"]) == 2
+    assert main(["rhoa", str(gated), "--out", str(out), "--rho-min", "10", "--rho-max", "1"]) == 2
+    assert "--rho-max: must exceed rho_min" in capsys.readouterr().err
 
 
 def test_noise_dominated_gates_do_not_steer_the_branch():
@@ -579,8 +582,8 @@ def test_cli_rhoa_all_stations_failing_writes_no_table(tmp_path, capsys):
     src.mkdir()
     xr.Dataset(attrs={"tem_format": "stacked", "format_version": "1.0"}).to_netcdf(
         src / "EM01.nc", engine="h5netcdf")
-    rc = main(["rhoa", str(src), "--out", str(tmp_path / "out"), "--late-only", "--no-figures"])
+    rc = main(["rhoa", str(src), "--out", str(tmp_path / "out"), "--no-all-time", "--no-figures"])
     err = capsys.readouterr().err
     assert rc == 1
     assert "tem_format" in err
-    assert not (tmp_path / "out" / "rhoa.csv").exists()
+    assert not (tmp_path / "out" / "rhoa" / "rhoa.csv").exists()

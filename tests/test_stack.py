@@ -211,7 +211,7 @@ def _reference_stack(src, s):
     n_est = src.n_windows - 2
     m = src.m
     t_frac = (np.arange(m) + 0.5) / m
-    edges = _batches(n_est, s.n_batches)
+    edges = _batches(n_est, s.batches)
     nb = len(edges) - 1
     per_chunk = max(1, int(s.chunk_bytes // (8 * m)) - 4)
     chunks = [(k0, min(z, k0 + per_chunk), b) for b, (a, z) in enumerate(zip(edges[:-1], edges[1:]))
@@ -367,7 +367,7 @@ def test_compiled_path_matches_numpy_reference_recording(est, tmp_path):
     rec = open_recording(path)
     for detrend in (True, False):
         for chunk in (7 * m * 4, 64 << 20):
-            s = StackSettings(estimator=est, detrend=detrend, chunk_bytes=chunk, n_batches=8,
+            s = StackSettings(estimator=est, detrend=detrend, chunk_bytes=chunk, batches=8,
                               bad_fraction=0.05)
             src = RecordingSource(rec, 37, m, n, polarity0=-1)
             fast = stack_source(src, s)
@@ -389,7 +389,7 @@ def test_compiled_path_matches_numpy_reference_arrays(est):
     clip[[3, 40, 95], [0, 17, 39]] = True
     for mask in (None, clip):
         for detrend in (True, False):
-            s = StackSettings(estimator=est, detrend=detrend, n_batches=5, chunk_bytes=3 * m * 8,
+            s = StackSettings(estimator=est, detrend=detrend, batches=5, chunk_bytes=3 * m * 8,
                               huber_k=1.345, trim=0.15)
             fast = stack_windows(x, polarity0=1, settings=s, clip_mask=mask)
             from tem.stack import ArraySource
@@ -414,8 +414,8 @@ def test_threads_give_identical_results():
     rng = np.random.default_rng(13)
     x = _nasty_counts(120, 32, rng).astype(np.float64)
     for est in ("mean", "huber"):
-        a = stack_windows(x, settings=StackSettings(estimator=est, n_batches=6))
-        b = stack_windows(x, settings=StackSettings(estimator=est, n_batches=6, threads=2))
+        a = stack_windows(x, settings=StackSettings(estimator=est, batches=6))
+        b = stack_windows(x, settings=StackSettings(estimator=est, batches=6, threads=2))
         np.testing.assert_array_equal(a.value, b.value)
         np.testing.assert_array_equal(a.influence, b.influence)
         assert a.counts == b.counts
@@ -454,7 +454,7 @@ def test_short_record_errors_honest_with_coloured_noise():
     from tem.stack.batchvar import linear_variance
     rng = np.random.default_rng(21)
     n = 60
-    W = gate_matrix(T, log_gates(T, T[16], T[-1], 9.0))
+    W = gate_matrix(T, log_gates(T, T[16], T[-1], 9.0, "boxcar"))
     W = np.vstack([W, np.eye(M)[::40]])
     z_new, z_old = [], []
     for _ in range(150):
@@ -462,7 +462,7 @@ def test_short_record_errors_honest_with_coloured_noise():
         d = record(n, noise + 0.01 * tau(n))
         r = stack_windows(d)
         z_new.append((W @ r.value - W @ SIG) / r.linear_error(W))
-        old = stack_windows(d, settings=StackSettings(n_batches=5))
+        old = stack_windows(d, settings=StackSettings(batches=5))
         z_old.append((W @ old.value - W @ SIG) / np.sqrt(linear_variance(W, old.influence, ())))
     z_new, z_old = np.concatenate(z_new), np.concatenate(z_old)
     assert 0.9 < z_new.std() < 1.12, z_new.std()

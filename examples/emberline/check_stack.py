@@ -45,10 +45,10 @@ def score_day(out, seed, duration, shape, verbose):
     rows, gates = [], []
     for st in sv.stations:
         chans, timing = stack_station(sv, st, StackSettings())
-        old, _ = stack_station(sv, st, StackSettings(n_batches=32))
+        old, _ = stack_station(sv, st, StackSettings(batches=32))
         mean, _ = stack_station(sv, st, StackSettings(estimator="mean"))
         ds = stacked_dataset(sv, st, chans, timing, StackSettings(), [])
-        g = gate_stacked(ds, shape=shape)
+        g = gate_stacked(ds, 9.0, shape, None, None, 2.0)
         table = GateTable(g["gate_open"].values, g["gate_close"].values, shape)
         W = gate_matrix(ds["time"].values, table)
         for ci, c in enumerate(chans):

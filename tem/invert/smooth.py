@@ -261,7 +261,7 @@ def _mu_search(chi2_true, chi2_lin, mu_grid, target, chi2_now):
 
 
 def occam(fwd, d_obs, std, m0, R=None, *, predict=None, m_ref=None, ref_weight=0.0,
-          target=1.0, max_iter=20, mu0=None, decades=3.0, per_decade=4.0,
+          target, max_iter, mu0=None, decades=3.0, per_decade=4.0,
           bounds=(LN_RHO_MIN, LN_RHO_MAX), tol=0.01, misfit_drop=0.3,
           callback=None) -> OccamResult:
     """Occam inversion (Constable, Parker & Constable 1987).

@@ -2,10 +2,12 @@
 
 :func:`run_pipeline` reads the survey and its ``[processing]`` table, runs the
 stages from the first (or from ``from_stage``, reusing the earlier stages'
-files and records), writes ``run.json`` after every stage (atomically) and
-returns the run record and an exit status: 0 when every station passed every
-stage, 1 when a station or a profile step failed. Bad input raises
-:class:`tem.errors.TemInputError` (the CLI exits 2).
+files and records) through each stage's one door (``tem.<stage>.stage.run``),
+writes ``run.json`` after every stage (atomically), removes products an
+earlier run left that this run did not make, and returns the run record and
+an exit status: 0 when every station passed every stage, 1 when a station or a
+profile step failed. Bad input raises :class:`tem.errors.TemInputError` (the
+CLI exits 2).
 """
 from __future__ import annotations
 
@@ -19,24 +21,31 @@ from pathlib import Path
 
 from .. import __version__
 from ..errors import input_error
+from ..io.project import Project, check_output
 from ..provenance import file_sha256, stage_record
-from .params import STAGES, read_processing, resolve_parameters
-from .products import stage_export, stage_report, stage_section
-from .project import Project, StageContext, process_pool
-from .stations import stage_gate, stage_invert, stage_rhoa, stage_stack
+from ..runtime import StageContext, process_pool
+from .settings import STAGES, read_processing, resolve_settings
 
-__all__ = ["run_pipeline", "RunOutcome", "STAGE_FUNCTIONS", "STATION_STAGES", "read_run",
-           "summary_table", "FORMAT", "FORMAT_VERSION"]
+__all__ = ["run_pipeline", "RunOutcome", "STATION_STAGES", "read_run", "summary_table", "FORMAT",
+           "FORMAT_VERSION", "OWNED"]
 
 FORMAT = "run"
 FORMAT_VERSION = "1.0"
 
-STAGE_FUNCTIONS = {"stack": stage_stack, "gate": stage_gate, "rhoa": stage_rhoa,
-                   "invert": stage_invert, "section": stage_section, "export": stage_export,
-                   "report": stage_report}
-#: Station stages: the stage whose passing stations they process, their folder, figure kind.
-STATION_STAGES = {"stack": (None, "stacked", "raw"), "gate": ("stack", "gated", "decay"),
-                  "rhoa": ("gate", "rhoa", "rhoa"), "invert": ("gate", None, "fit")}
+#: Station stages: the stage whose passing stations they process.
+STATION_STAGES = {"stack": None, "gate": "stack", "rhoa": "gate", "invert": "gate"}
+
+#: Files each stage owns in a project (globs): what an earlier run left there and this
+#: run did not write is removed, so no stale product outlives a rerun.
+OWNED = {
+    "stack": ("stacked/*.nc", "figures/stations/*_raw.png"),
+    "gate": ("gated/*.nc", "figures/stations/*_decay.png"),
+    "rhoa": ("rhoa/*.nc", "rhoa/*.csv", "figures/stations/*_rhoa.png", "figures/pseudosection_*"),
+    "invert": ("models/*.nc", "models/*.csv", "figures/stations/*_fit.png"),
+    "section": ("sections/*.nc", "figures/section*.*", "figures/models.*"),
+    "export": ("exports/*.csv", "exports/*.sgy", "exports/*.json", "exports/las/*.las"),
+    "report": ("report.html",),
+}
 
 
 @dataclass
@@ -60,9 +69,11 @@ def read_run(project) -> dict:
                           "--from first", path)
     try:
         state = json.loads(path.read_text(encoding="utf-8"))
-    except (OSError, ValueError) as exc:
+    except (OSError, ValueError, UnicodeDecodeError) as exc:
         raise input_error("run.json", f"unreadable ({type(exc).__name__})", path) from None
-    if state.get("tem_format") != FORMAT or str(state.get("format_version", "")).split(".")[0] != "1":
+    if not isinstance(state, dict) or state.get("tem_format") != FORMAT \
+            or str(state.get("format_version", "")).split(".")[0] != "1" \
+            or not isinstance(state.get("stages"), dict):
         raise input_error("format_version", "not a tem run record of version 1.x", path)
     return state
 
@@ -92,15 +103,6 @@ def _ok(state, survey):
     return out
 
 
-def _stage_stations(stage, state, survey):
-    if stage not in STATION_STAGES:
-        return [s.id for s in survey.stations]
-    prev = STATION_STAGES[stage][0]
-    if prev is None:
-        return [s.id for s in survey.stations]
-    return _ok(state, survey).get(prev, [])
-
-
 def _station_summary(state, survey):
     """Per-station summary from the stage records: first failure, gates, chi2, DOI, QC."""
     out = {}
@@ -118,26 +120,20 @@ def _station_summary(state, survey):
     return out
 
 
-def _prune_station_files(project, stage, ok, survey, figures):
-    """Remove a station stage's files of stations that did not pass it (earlier runs)."""
-    _, folder, kind = STATION_STAGES[stage]
-    keep = set(ok)
-    for st in survey.stations:
-        paths = []
-        if st.id not in keep and folder:
-            paths.append(project.station_file(folder, st.id))
-        if st.id not in keep or not figures:
-            paths.append(project.station_figure(st.id, kind))
-        for p in paths:
-            with contextlib.suppress(FileNotFoundError):
-                p.unlink()
+def _prune(project, stage, outputs):
+    """Remove files the stage owns that this run did not write (an earlier run's products)."""
+    keep = {Path(p).resolve() for p in outputs}
+    for pattern in OWNED[stage]:
+        for p in project.root.glob(pattern):
+            if p.is_file() and p.resolve() not in keep:
+                with contextlib.suppress(FileNotFoundError):
+                    p.unlink()
 
 
-def _record(stage, params, result, project, elapsed):
-    rec = stage_record(stage, params)
+def _record(stage, settings, result, project, elapsed):
+    rec = stage_record(stage, settings.as_dict())
     rec["inputs"] = result.inputs or [i for oc in result.stations.values() for i in oc.inputs]
-    outputs = list(result.outputs) + [o for oc in result.stations.values() for o in oc.outputs]
-    rec["outputs"] = [project.rel(p) for p in outputs]
+    rec["outputs"] = [project.rel(p) for p in result.all_outputs()]
     rec["stations"] = {sid: {"status": oc.status, **({"message": oc.message} if oc.message else {}),
                              **oc.info} for sid, oc in result.stations.items()}
     rec["notes"] = list(result.notes)
@@ -146,18 +142,52 @@ def _record(stage, params, result, project, elapsed):
     return rec
 
 
-def _check_project(project, survey, survey_file):
-    root = project.root.resolve()
-    inputs = {Path(survey_file).resolve().parent}
-    inputs |= {survey.path(f).resolve().parent for s in survey.stations for r in s.receivers
-               for f in r.files}
-    if root in inputs:
-        raise input_error("--out", "the project folder holds input files (survey or recordings); "
-                          "choose another folder", project.root)
+def _user_inputs(survey, survey_file, settings):
+    """Files the user gave (never written): survey, recordings, line and velocity tables."""
+    files = [Path(survey_file)] + [survey.path(f) for s in survey.stations for r in s.receivers
+                                   for f in r.files]
+    files += [Path(p) for p in (settings["section"].line, settings["export"].velocity) if p]
+    folders = {Path(survey_file).resolve().parent}
+    folders |= {survey.path(f).resolve().parent for s in survey.stations for r in s.receivers
+                for f in r.files}
+    return files, folders
+
+
+def _stage_call(stage, settings, survey, survey_file, project, state, ctx):
+    """Call the stage's one door with its inputs from the project."""
+    ok = _ok(state, survey)
+    s = settings[stage]
+    if stage == "stack":
+        from ..stack.stage import run
+        return run(s, survey, [st.id for st in survey.stations], project, ctx, survey_file)
+    if stage in ("gate", "rhoa", "invert"):
+        prev = {"gate": ("stack", "stacked"), "rhoa": ("gate", "gated"),
+                "invert": ("gate", "gated")}[stage]
+        files = [project.station_file(prev[1], sid) for sid in ok.get(prev[0], [])]
+        if stage == "gate":
+            from ..gate.stage import run
+        elif stage == "rhoa":
+            from ..rhoa.stage import run
+        else:
+            from ..invert.stage import run
+        return run(s, files, project, ctx)
+    if stage == "section":
+        from ..section.stage import run
+        files = [project.folder("models") / "models.nc"]
+        if settings["invert"].lci and (project.folder("models") / "models_lci.nc").is_file():
+            files.append(project.folder("models") / "models_lci.nc")
+        if not files[0].is_file():
+            raise input_error("file", "missing (run the invert stage first)", files[0])
+        return run(s, files, project, ctx, title_prefix=f"{survey.name}: ")
+    if stage == "export":
+        from ..export.stage import run
+        return run(s, project, project, ctx)
+    from ..report.stage import run
+    return run(s, project, project, ctx)
 
 
 def run_pipeline(survey_file, project_dir, from_stage=None, overrides=(), jobs=1, console=None,
-                 progress=True) -> RunOutcome:
+                 progress=True, figures=True) -> RunOutcome:
     """Run the chain stack -> gate -> rhoa -> invert -> section -> export -> report.
 
     Parameters
@@ -171,13 +201,15 @@ def run_pipeline(survey_file, project_dir, from_stage=None, overrides=(), jobs=1
         Rerun from this stage, reusing the files and records of the stages
         before it (they must exist in ``run.json``).
     overrides : sequence of (stage, key, value)
-        Parameters that win over the survey's table (command-line options).
+        ``--set`` values; they win over the survey's table.
     jobs : int
         Worker processes for the station stages (1: in this process).
     console : rich.console.Console or None
         Where progress is drawn (default: standard error).
     progress : bool
         Draw progress bars.
+    figures : bool
+        Write the per-station and profile figures.
 
     Returns
     -------
@@ -191,15 +223,16 @@ def run_pipeline(survey_file, project_dir, from_stage=None, overrides=(), jobs=1
 
     survey_file = Path(survey_file)
     survey = read_survey(survey_file)
-    params = resolve_parameters(read_processing(survey_file), overrides, survey_file)
+    settings = resolve_settings(read_processing(survey_file), overrides, survey_file)
     project = Project(project_dir)
-    _check_project(project, survey, survey_file)
+    files, folders = _user_inputs(survey, survey_file, settings)
+    check_output(project.root, STAGES, inputs=files, read_only=folders)
     if from_stage is not None and from_stage not in STAGES:
         raise input_error("--from", f"unknown stage {from_stage!r}; valid: {', '.join(STAGES)}")
     start = STAGES.index(from_stage) if from_stage else 0
     if start > 0:
         state = read_run(project.root)
-        missing = [s for s in STAGES[:start] if s not in state.get("stages", {})]
+        missing = [s for s in STAGES[:start] if s not in state["stages"]]
         if missing:
             raise input_error("--from", f"stage {missing[0]} has no record in run.json; rerun "
                               f"from {missing[0]} or earlier", project.run_json)
@@ -211,9 +244,9 @@ def run_pipeline(survey_file, project_dir, from_stage=None, overrides=(), jobs=1
     state.update({"tem_version": __version__,
                   "survey": {"file": str(survey_file.resolve()), "sha256": file_sha256(survey_file),
                              "name": survey.name},
-                  "parameters": params,
+                  "parameters": {k: v.as_dict() for k, v in settings.items()},
                   "last_run": {"from": STAGES[start], "stages": list(STAGES[start:]),
-                               "started_utc": _now(), "jobs": int(jobs)}})
+                               "started_utc": _now(), "jobs": int(jobs), "figures": bool(figures)}})
     console = console or Console(stderr=True)
     columns = (TextColumn("[bold]{task.fields[stage]:<8}"), BarColumn(), MofNCompleteColumn(),
                TextColumn("{task.description}"), TimeElapsedColumn())
@@ -222,11 +255,14 @@ def run_pipeline(survey_file, project_dir, from_stage=None, overrides=(), jobs=1
         pool = process_pool(jobs)
         if pool is not None:
             stack.enter_context(pool)
-        prog = stack.enter_context(Progress(*columns, console=console, disable=not progress,
+        prog = stack.enter_context(Progress(*columns, console=console,
+                                            disable=not progress or not console.is_terminal,
                                             transient=False))
         for stage in STAGES[start:]:
-            stations = _stage_stations(stage, state, survey)
-            n = len(stations) if stage in STATION_STAGES else 1
+            ok = _ok(state, survey)
+            prev = STATION_STAGES.get(stage)
+            n = (len(survey.stations) if prev is None else len(ok.get(prev, []))) \
+                if stage in STATION_STAGES else 1
             task = prog.add_task("", total=max(n, 1), stage=stage)
             if stop:
                 prog.update(task, description=f"[yellow]not run[/]: {stop}")
@@ -236,27 +272,24 @@ def run_pipeline(survey_file, project_dir, from_stage=None, overrides=(), jobs=1
                 mark = "ok" if status == "ok" else "[red]FAILED[/]"
                 prog.update(task, advance=1, description=f"{sid} {mark}")
 
-            ctx = StageContext(survey_file=survey_file, stations=stations, ok=_ok(state, survey),
-                               params=params, executor=pool, progress=tick, state=state)
+            ctx = StageContext(executor=pool, progress=tick, figures=figures, run_state=state)
             t0 = time.perf_counter()
             try:
-                result = STAGE_FUNCTIONS[stage](survey, project, params[stage], ctx)
+                result = _stage_call(stage, settings, survey, survey_file, project, state, ctx)
             finally:
                 _write_run(project, state)
             for sid, oc in result.stations.items():
                 if oc.status != "ok":
                     prog.console.print(f"[red]{stage}: station {sid} failed[/]: {oc.message}",
                                        highlight=False, soft_wrap=True)
-            if stage in STATION_STAGES:
-                ok = [sid for sid, oc in result.stations.items() if oc.status == "ok"]
-                _prune_station_files(project, stage, ok, survey, params["report"]["station_figures"])
-            state["stages"][stage] = _record(stage, params[stage], result, project,
+            _prune(project, stage, result.all_outputs())
+            state["stages"][stage] = _record(stage, settings[stage], result, project,
                                              time.perf_counter() - t0)
             state["stations"] = _station_summary(state, survey)
             _write_run(project, state)
             prog.update(task, completed=max(n, 1),
                         description="[red]" + result.failed if result.failed else "done")
-            if stage in STATION_STAGES and not ok:
+            if stage in STATION_STAGES and not result.ok:
                 stop = f"no station passed {stage}"
             elif stage == "invert" and not (project.folder("models") / "models.nc").is_file():
                 stop = result.failed or "no models"
@@ -298,5 +331,5 @@ def summary_table(state, title=None):
         note = s.get("message") or ("" if s.get("qc", "ok") == "ok" else f"QC {s['qc']}")
         if not note and s.get("invert_message"):
             note = s["invert_message"]
-        t.add_row(sid, *cells, gates, chi2, doi, note[:90])
+        t.add_row(sid, *cells, gates, chi2, doi, note)
     return t

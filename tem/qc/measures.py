@@ -210,7 +210,7 @@ def polarity_ratio(stacked, c: int, result=None):
     switch-on and the on-time (the change of Bz) against the primary Bz.
     Needs an off-time for dB/dt (duty < 1). NaN where nothing is expected.
     """
-    from ..io.stacked import result_from_dataset
+    from ..stack.stacking import StackResult
     expected = _expected_on_time(stacked, c)
     nan = (float("nan"), float("nan"))
     if not (np.isfinite(expected) and expected != 0):
@@ -232,7 +232,7 @@ def polarity_ratio(stacked, c: int, result=None):
         w = np.where(sel, 1.0 / max(sel.sum(), 1), 0.0)
     if not sel.any():
         return nan
-    res = result if result is not None else result_from_dataset(stacked, c)
+    res = result if result is not None else StackResult.from_dataset(stacked, c)
     v = float(w @ np.nan_to_num(res.value))
     e = float(res.linear_error(w))
     return v / (-expected), (abs(v) / e if e > 0 else float("inf"))
@@ -249,12 +249,12 @@ def _int(ds, name, c):
 
 def channel_measures(stacked, gated=None) -> list:
     """One :class:`ChannelMeasures` per channel of a station's stacked (and gated) product."""
-    from ..io.stacked import result_from_dataset
+    from ..stack.stacking import StackResult
     out = []
     sid = str(stacked.attrs["station"])
     m = stacked.sizes["time"]
     for c in range(stacked.sizes["channel"]):
-        res = result_from_dataset(stacked, c)
+        res = StackResult.from_dataset(stacked, c)
         used = _int(stacked, "transients_used", c)
         comp = str(stacked["component"].values[c])
         g = {}

@@ -287,7 +287,7 @@ def halfspace_table(sim, rho_grid, progress=None):
     return table, slope
 
 
-def rho_grid(rho_min=0.1, rho_max=1e5, points_per_decade=16):
+def rho_grid(rho_min, rho_max, points_per_decade):
     """Log-spaced resistivities for the all-time search, ohm-m."""
     if not (0 < rho_min < rho_max) or not np.isfinite(rho_max):
         raise input_error("rho_range", "needs 0 < minimum < maximum (ohm-m)")
@@ -297,8 +297,7 @@ def rho_grid(rho_min=0.1, rho_max=1e5, points_per_decade=16):
     return np.logspace(np.log10(rho_min), np.log10(rho_max), n)
 
 
-def all_time_rhoa(sim, value, error=None, rho_min=0.1, rho_max=1e5, points_per_decade=16,
-                  progress=None):
+def all_time_rhoa(sim, value, error=None, *, rho_min, rho_max, points_per_decade, progress=None):
     """All-time apparent resistivity: the half-space that reproduces each datum.
 
     The half-space response of ``sim`` (the same geometry, waveform, ramps,

@@ -168,6 +168,7 @@ def pseudo_section(stations, x, y, times, rhoa, depths=None, axis_kind="time", n
     else:
         axis = np.linspace(allx.min(), allx.max(), 120)
     positions = np.linspace(s[0], s[-1], int(n_columns))
-    grid = pseudo_section_grid(s, absc, vals, positions, axis, log_axis=(axis_kind == "time"))
+    grid = pseudo_section_grid(s, absc, vals, positions, axis, "linear",
+                               log_axis=(axis_kind == "time"))
     labels = [str(stations[i]) for i in idx]
     return pseudo_section_figure(positions, axis, grid, s, labels, axis_kind=axis_kind, title=title)

@@ -50,20 +50,17 @@ def simulation_for_sounding(ds, source=None):
     return Simulation.from_sounding(ds, source=source)
 
 
-def sounding_rhoa(ds, all_time=True, rho_min=0.1, rho_max=1e5, points_per_decade=12, sim=None,
-                  source=None, progress=None):
+def sounding_rhoa(ds, settings=None, sim=None, source=None, progress=None):
     """Late-time and all-time apparent resistivity of every channel of a sounding.
 
     Parameters
     ----------
     ds : xarray.Dataset
         Gated sounding (docs/data-model.md), values per ampere.
-    all_time : bool
-        Also compute the all-time rho_a (needs the forward model).
-    rho_min, rho_max : float
-        All-time search range, ohm-m.
-    points_per_decade : int
-        Density of the half-space table.
+    settings : tem.rhoa.settings.RhoaSettings, optional
+        ``all_time`` (also the all-time rho_a, which needs the forward model),
+        the search range ``rho_min``/``rho_max`` (ohm-m) and the table density
+        ``rho_per_decade``; default: the table's defaults.
     sim : tem.forward.Simulation, optional
         The data's simulation (default :func:`simulation_for_sounding`).
     source : str, optional
@@ -89,10 +86,15 @@ def sounding_rhoa(ds, all_time=True, rho_min=0.1, rho_max=1e5, points_per_decade
     t = ds["gate_centre"].values.astype(float)
     n_ch, n_g = value.shape
     nan = np.full(value.shape, np.nan)
+    if settings is None:
+        from .settings import RhoaSettings
+        settings = RhoaSettings()
+    all_time = settings.all_time
     if all_time:
         if sim is None:
             sim = simulation_for_sounding(ds, source)
-        at = _at.all_time_rhoa(sim, value, error, rho_min, rho_max, points_per_decade, progress)
+        at = _at.all_time_rhoa(sim, value, error, rho_min=settings.rho_min, rho_max=settings.rho_max,
+                               points_per_decade=settings.rho_per_decade, progress=progress)
     else:
         at = _at.AllTimeResult(nan, nan.copy(), nan.copy(), np.zeros(value.shape, int), nan.copy(),
                              nan.copy(), np.zeros(value.shape, np.int64))
@@ -116,8 +118,7 @@ def sounding_rhoa(ds, all_time=True, rho_min=0.1, rho_max=1e5, points_per_decade
     keep_attrs = {k: v for k, v in ds.attrs.items() if k not in ("tem_format", "format_version",
                                                                  "tem_version", "provenance")}
     prov = records_from_json(ds.attrs.get("provenance")) + [stage_record("rhoa", {
-        "all_time": bool(all_time), "rho_min": rho_min, "rho_max": rho_max,
-        "points_per_decade": points_per_decade, "source": str(source or "")})]
+        **settings.as_dict(), "source": str(source or "")})]
     out = xr.Dataset(
         {
             "value": (dims, value, {"units": "per A (V/m, T or T/s)"}),

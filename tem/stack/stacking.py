@@ -45,70 +45,13 @@ from . import kernels as _kern
 from .sources import ArraySource, RecordingSource, WindowSource, clip_level  # noqa: F401
 from .batchvar import batch_lags, linear_variance, pooled_lag_correlations, variance_factor
 from ..errors import input_error
+from .settings import ESTIMATORS, StackSettings
 
 __all__ = ["ESTIMATORS", "StackSettings", "StackResult", "WindowSource", "ArraySource",
            "RecordingSource", "combine_three", "stack_windows", "stack_source",
            "window_layout", "plain_bipolar_stack", "clip_level", "rail_counts"]
 
-ESTIMATORS = ("huber", "mean", "median", "trimmed")
 _MAD = 1.482602218505602  # 1 / Phi^{-1}(3/4): MAD -> sigma for Gaussian data
-
-
-@dataclass(frozen=True)
-class StackSettings:
-    """Stacking parameters (all explicit, no globals).
-
-    estimator : one of ``huber`` (default), ``mean``, ``median``, ``trimmed``.
-    huber_k : Huber clipping constant in robust sigmas (1.5: 96 % efficiency).
-    trim : fraction trimmed at each end for ``trimmed`` (0.1).
-    reject_sigma : a sample estimate further than this many robust sigmas from
-        the start is rejected (weight 0); not used by ``mean``.
-    transient_rms : a transient whose rms normalised residual (residuals
-        clipped at reject_sigma) exceeds this is rejected as noisy.
-    bad_fraction : a transient with more than this fraction of rejected
-        samples is rejected whole.
-    n_batches : largest number of batches for the error estimate (B); a record
-        of fewer estimates gets one batch per estimate. Many short batches
-        give error bars with many degrees of freedom; their correlation is
-        corrected (:mod:`tem.stack.batchvar`).
-    detrend : remove the period-mean baseline before combining.
-    chunk_bytes : target size (bytes, as stored) of one chunk of windows: a
-        chunk is mapped, stacked in one compiled pass and released.
-    start_estimates : how many estimates (spread over all batches, every third
-        one) feed the robust start.
-    threads : batches stacked concurrently (compiled kernels release the GIL);
-        results are the same for any number.
-    """
-
-    estimator: str = "huber"
-    huber_k: float = 1.5
-    trim: float = 0.1
-    reject_sigma: float = 6.0
-    transient_rms: float = 2.5
-    bad_fraction: float = 0.2
-    n_batches: int = 128
-    detrend: bool = True
-    chunk_bytes: int = 64 << 20
-    start_estimates: int = 256
-    threads: int = 1
-
-    def __post_init__(self):
-        if self.estimator not in ESTIMATORS:
-            raise input_error("estimator", f"unknown {self.estimator!r}; valid: {', '.join(ESTIMATORS)}")
-        if not 0 <= self.trim < 0.5:
-            raise input_error("trim", f"must be in [0, 0.5), got {self.trim}")
-        if not self.huber_k > 0:
-            raise input_error("huber_k", f"must be positive, got {self.huber_k}")
-        if not self.reject_sigma > self.huber_k:
-            raise input_error("reject_sigma", f"must exceed huber_k ({self.huber_k}), got "
-                              f"{self.reject_sigma}")
-        if self.n_batches < 4:
-            raise input_error("n_batches", "need at least 4 batches")
-        if int(self.threads) != self.threads or self.threads < 1:
-            raise input_error("threads", f"must be a whole number >= 1, got {self.threads!r}")
-
-    def as_dict(self) -> dict:
-        return {k: getattr(self, k) for k in self.__dataclass_fields__}
 
 
 @dataclass
@@ -147,6 +90,31 @@ class StackResult:
                            self.n_used.copy(), self.scale * abs(f), dict(self.counts),
                            self.lag_corr.copy(), self.window_means.copy(),
                            self.window_rails.copy())
+
+    @classmethod
+    def from_dataset(cls, ds, channel: int) -> "StackResult":
+        """The result of one channel of a stacked-transient Dataset (``stacked/<station>.nc``).
+
+        Version 1.0 files have no batch count, lag correlations or window
+        measures: their batches are taken as uncorrelated.
+        """
+        from ..io.stacked import COUNT_FIELDS
+
+        counts = {f: int(ds[f].values[channel]) for f in COUNT_FIELDS if f in ds}
+        infl = ds["influence"].values[channel].astype(float)
+        if "n_batches" in ds:
+            infl = infl[:int(ds["n_batches"].values[channel])]
+        extra = {}
+        if "lag_corr" in ds:
+            extra["lag_corr"] = ds["lag_corr"].values[channel].astype(float)
+        if "window_mean" in ds:
+            wm = ds["window_mean"].values[channel]
+            n = int(counts.get("transients_total", wm.size - 2)) + 2
+            extra["window_means"] = wm[:n]
+            extra["window_rails"] = ds["window_rails"].values[channel][:n]
+        return cls(value=ds["value"].values[channel], error=ds["error"].values[channel],
+                   influence=infl, n_used=ds["n_used"].values[channel],
+                   scale=ds["scale"].values[channel], counts=counts, **extra)
 
     def linear_error(self, weights) -> np.ndarray:
         """Standard error of ``weights @ value`` for weights (..., M), from the batches."""
@@ -361,7 +329,7 @@ def stack_source(src: WindowSource, settings: StackSettings = StackSettings(), p
         raise input_error("n_windows", f"need at least 4 half-periods, got {src.n_windows}")
     m = src.m
     t_frac = (np.arange(m) + 0.5) / m
-    edges = _batches(n_est, s.n_batches)
+    edges = _batches(n_est, s.batches)
     nb = len(edges) - 1
     chunks = _chunks(edges, max(1, int(s.chunk_bytes // (src.itemsize * m)) - 3))
     total_steps = len(chunks) + (0 if s.estimator == "mean" else nb)
