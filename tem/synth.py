@@ -77,6 +77,9 @@ class Faults:
     clock : s by which the logger's clock runs ahead: every header of the
         station says the recording started ``clock`` later than it did.
     drift : V/s of extra linear drift on every data channel.
+    half_cycle : the transmitter drives (1 + h) I one way and (1 - h) I the
+        other: positive half-cycles of the response scaled by 1 + h, negative
+        ones by 1 - h.
     """
 
     noise: float = 1.0
@@ -86,6 +89,7 @@ class Faults:
     reversed: tuple = ()
     clock: float = 0.0
     drift: float = 0.0
+    half_cycle: float = 0.0
 
 
 # Logger-volt noise per component in the Emberline scenario (common practice, no source)
@@ -220,12 +224,13 @@ def noise_record(rng, n, fs, spec: NoiseSpec, mains_frequency: float) -> np.ndar
 
 # ---------------------------------------------------------------------------- channels
 def synth_channel(transient, t_first: float, fs: float, n: int, scale: float,
-                  noise=None) -> np.ndarray:
+                  noise=None, half_cycle: float = 0.0) -> np.ndarray:
     """Logger volts for one channel: periodic tiled transient * scale + noise.
 
     transient : (M,) response per A over one half-period at sample times
     (delay + i/fs). t_first : time (s, from sample 0) of a positive switch-off
     end. scale : volts per unit of the transient (gain * length-or-area * I).
+    half_cycle : positive half-cycles scaled by 1 + h, negative ones by 1 - h.
     """
     m = transient.size
     hp = m / fs
@@ -237,7 +242,7 @@ def synth_channel(transient, t_first: float, fs: float, n: int, scale: float,
     w = np.floor_divide(rel, m)
     i = rel - w * m
     sign = np.where((w + k_first) % 2 == 0, 1.0, -1.0)
-    x = sign * transient[i] * scale
+    x = sign * (1.0 + half_cycle * sign) * transient[i] * scale
     if noise is not None:
         x = x + noise
     return x
@@ -369,7 +374,8 @@ def synth_survey(survey: Survey, models: dict, out_dir, seed: int = 0, duration:
                 k = list(recs).index(rx)
                 length = rx.dipole_length if rx.coil_area is None else rx.coil_area
                 volts = synth_channel(tr[k], t_first, fs, n, rx.gain * length * tx.current,
-                                      noise_record(rng, n, fs, spec, survey.mains_frequency))
+                                      noise_record(rng, n, fs, spec, survey.mains_frequency),
+                                      half_cycle=f.half_cycle)
             if rx.component != "current":
                 volts = _apply_faults(volts, rx.component, f, rng, n, fs)
             vpc = spec.full_scale / 2**23          # 24-bit digitiser

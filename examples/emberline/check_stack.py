@@ -74,7 +74,8 @@ def score_day(out, seed, duration, shape, verbose):
                 rms[est].append(float(np.sqrt(np.mean((vv - st_truth) ** 2))
                                       / np.sqrt(np.mean(st_truth ** 2))))
             rows.append({"channel": f"{st.id} {c.receiver.component}", "usable": int(u.sum()),
-                         "sd_before": round(float(zb.std()), 2), "sd_after": round(float(za.std()), 2),
+                         "sd_before": round(float(zb.std()), 2),
+                         "sd_after": round(float(za.std()), 2),
                          "mean_after": round(float(za.mean()), 2),
                          "within2_after": round(float(np.mean(np.abs(za) < 2)), 2)})
     if verbose:
@@ -106,7 +107,8 @@ def main():
     seeds = [int(s) for s in args.seeds.split(",")]
     pooled = {"after": [], "before": []}
     for seed in seeds:
-        out = Path(args.out) / str(seed) if args.out else Path(tempfile.mkdtemp(prefix="emberline-"))
+        out = (Path(args.out) / str(seed) if args.out
+               else Path(tempfile.mkdtemp(prefix="emberline-")))
         try:
             if not args.quiet:
                 print(f"seed {seed}:")

@@ -72,8 +72,9 @@ class ChannelMeasures:
         Mains fundamental amplitude at the logger, V.
     full_scale : float
         Digitiser full scale at the logger, V.
-    asymmetry : float
-        Half-cycle asymmetry sum |P - N| / sum |P + N| over the off-time.
+    asymmetry, asymmetry_error : float
+        Half-cycle asymmetry |a| in P - N = a (P + N) over the off-time (P, N:
+        positive and sign-corrected negative half-cycles), and its standard error.
     polarity, polarity_snr : float
         Measured over expected on-time response (see module docstring):
         positive if wired as the survey says, negative if reversed; for E
@@ -110,6 +111,7 @@ class ChannelMeasures:
     mains: float
     full_scale: float
     asymmetry: float
+    asymmetry_error: float
     polarity: float
     polarity_snr: float
     cut_offset: float
@@ -145,7 +147,7 @@ def tx_offset(stacked, c: int) -> float:
 
 
 def primary_bz(a, b, p, current: float = 1.0) -> float:
-    """Vertical magnetic field (T) at surface point p of straight segments a->b carrying ``current``.
+    """Vertical magnetic field (T) at surface point p of straight segments a->b carrying current.
 
     Biot-Savart for a finite straight segment, all in the plane z = 0:
     Bz = mu0 I / (4 pi h) (cos alpha_1 - cos alpha_2) with the sign of
@@ -177,7 +179,8 @@ def dc_field_dipole(a, b, p0, p1, current: float = 1.0, rho: float = 1.0) -> flo
     a, b, p0, p1 = (np.asarray(v, float) for v in (a, b, p0, p1))
 
     def pot(p):
-        return rho * current / (2.0 * math.pi) * (1.0 / math.hypot(*(p - b)) - 1.0 / math.hypot(*(p - a)))
+        rb, ra = math.hypot(*(p - b)), math.hypot(*(p - a))
+        return rho * current / (2.0 * math.pi) * (1.0 / rb - 1.0 / ra)
     return (pot(p0) - pot(p1)) / math.hypot(*(p1 - p0))
 
 
@@ -292,6 +295,7 @@ def channel_measures(stacked, gated=None) -> list:
             offset=_num(stacked, "offset", c), drift=_num(stacked, "drift", c),
             wander=_num(stacked, "wander", c), mains=_num(stacked, "mains", c),
             full_scale=_num(stacked, "full_scale", c), asymmetry=_num(stacked, "asymmetry", c),
+            asymmetry_error=_num(stacked, "asymmetry_error", c),
             polarity=pol, polarity_snr=pol_snr,
             cut_offset=float(stacked.attrs.get("cut_offset", float("nan"))),
             cut_residual=float(stacked.attrs.get("cut_residual", float("nan")))))

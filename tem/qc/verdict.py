@@ -36,7 +36,8 @@ import numpy as np
 from ..settings import Setting, SettingsTable
 
 __all__ = ["QC_TABLE", "QCSettings", "StationVerdict", "offset_classes", "class_medians",
-           "station_verdicts", "stations_csv_text", "write_stations_csv", "VERDICTS"]
+           "station_verdicts", "stations_csv_text", "write_stations_csv", "VERDICTS",
+           "project_measures", "evening_qc"]
 
 VERDICTS = ("good", "check", "reoccupy")
 _NS = "common practice, no source"
@@ -71,7 +72,8 @@ QC_TABLE = SettingsTable("qc", [
     Setting("mains_check", 0.25, "float", "", "mains amplitude at the logger, as a share of "
             "full scale, that is checked", minimum=0.0, source=_NS),
     Setting("asymmetry_check", 0.05, "float", "", "difference of positive and negative "
-            "half-cycles, as a share of their mean, that is checked", minimum=0.0, source=_NS),
+            "half-cycles, as a share of their mean, that is checked (when it is at least 3 "
+            "standard errors)", minimum=0.0, source=_NS),
     Setting("timing_check", 2e-5, "float", "s", "offset or rms scatter of the detected "
             "switch-offs from the cut that is checked", minimum=0.0,
             source=_NS + "; 20 us shift a t^-2.5 decay by 1 % at 5 ms"),
@@ -225,7 +227,8 @@ def _channel_rules(m, med, s):
                       f"({_pct(change / fs)} of full scale)")
         if np.isfinite(m.mains) and m.mains >= s.mains_check * fs:
             ck.append(f"{c} mains {m.mains:.2g} V ({_pct(m.mains / fs)} of full scale)")
-    if np.isfinite(m.asymmetry) and m.asymmetry >= s.asymmetry_check:
+    if np.isfinite(m.asymmetry) and m.asymmetry >= s.asymmetry_check and \
+            not m.asymmetry < 3.0 * m.asymmetry_error:
         ck.append(f"{c} positive and negative half-cycles differ by {_pct(m.asymmetry)}")
     return re, ck, extra
 
@@ -283,3 +286,38 @@ def write_stations_csv(project, verdicts):
 
     from ..io.atomic import write_text_atomic
     return write_text_atomic(Path(project) / "qc" / "stations.csv", stations_csv_text(verdicts))
+
+
+def project_measures(project, stations=None) -> list:
+    """:class:`ChannelMeasures` of every station with both ``stacked/`` and ``gated/`` products.
+
+    project : the project folder (``stacked/<station>.nc``, ``gated/<station>.nc``).
+    stations : optional station ids (order kept); default every stacked file, sorted.
+    A station without a gated file is measured from its stacked file alone.
+    """
+    from pathlib import Path
+
+    from ..io.stacked import read_product
+    from .measures import channel_measures
+    root = Path(project)
+    ids = list(stations) if stations is not None else sorted(
+        p.stem for p in (root / "stacked").glob("*.nc"))
+    out = []
+    for sid in ids:
+        st = read_product(root / "stacked" / f"{sid}.nc", "stacked")
+        g_path = root / "gated" / f"{sid}.nc"
+        g = read_product(g_path, "gated") if g_path.exists() else None
+        out += channel_measures(st, g)
+    return out
+
+
+def evening_qc(project, settings=None, stations=None, failed=None):
+    """Measures, verdicts and ``<project>/qc/stations.csv`` from a project's products.
+
+    Returns ``(verdicts, measures)``; see :func:`project_measures` and
+    :func:`station_verdicts`.
+    """
+    measures = project_measures(project, stations)
+    verdicts = station_verdicts(measures, settings, failed)
+    write_stations_csv(project, verdicts)
+    return verdicts, measures
