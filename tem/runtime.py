@@ -11,9 +11,10 @@ import concurrent.futures as cf
 import multiprocessing as mp
 from dataclasses import dataclass, field
 
-from .errors import TemInputError
+from .errors import TemInputError, TemOutputError
 
-__all__ = ["StationOutcome", "StageResult", "StageContext", "map_stations", "process_pool"]
+__all__ = ["StationOutcome", "StageResult", "StageContext", "map_stations", "process_pool",
+           "write_products"]
 
 
 @dataclass
@@ -22,7 +23,10 @@ class StationOutcome:
 
     status is ``ok`` or ``failed``; ``info`` holds summary values (usable
     gates, chi2, DOI, verdicts) that the run record and tables show;
-    ``payload`` carries data back to the parent process (table rows, results).
+    ``payload`` carries data back to the parent process (table rows, results);
+    ``products`` are the files of the station as ``(path, bytes)``: a worker
+    (a local process or a cluster node) only computes, the parent writes them
+    (atomically) and lists them in ``outputs``.
     """
 
     station: str
@@ -32,6 +36,7 @@ class StationOutcome:
     inputs: list = field(default_factory=list)   # [{"file", "sha256"}]
     info: dict = field(default_factory=dict)
     payload: object = None
+    products: list = field(default_factory=list)  # [(path, bytes)]: written by the parent
 
 
 @dataclass
@@ -74,9 +79,15 @@ class StageContext:
 
 
 def _guarded(task, station, args):
-    """Run a station task; any failure becomes a one-line failed outcome."""
+    """Run a station task; any failure becomes a one-line failed outcome.
+
+    A failed write (:class:`TemOutputError`: disk full, file-size limit) is
+    not a station's fault: it stops the stage.
+    """
     try:
         return task(*args)
+    except TemOutputError:
+        raise
     except TemInputError as exc:
         return StationOutcome(station, "failed", str(exc).splitlines()[0])
     except Exception as exc:  # noqa: BLE001 - one station must not stop the batch
@@ -84,16 +95,36 @@ def _guarded(task, station, args):
         return StationOutcome(station, "failed", text)
 
 
+def write_products(oc: StationOutcome):
+    """Write a station's products (in this, the parent, process) and list them in outputs."""
+    from .io.atomic import write_bytes_atomic
+
+    for path, data in oc.products:
+        oc.outputs.append(str(write_bytes_atomic(path, data)))
+    oc.products = []
+
+
+def _completed(executor, futures):
+    """Futures as they finish, for a local pool or a dask.distributed client."""
+    if hasattr(executor, "scheduler_info"):          # dask.distributed.Client
+        from distributed import as_completed
+        return as_completed(list(futures))
+    return cf.as_completed(futures)
+
+
 def map_stations(task, jobs, ctx: StageContext) -> dict:
     """Run ``task(*args)`` for each ``(station, args)`` in ``jobs``; returns id -> outcome.
 
-    Uses ``ctx.executor`` when given (a crashed worker fails only its
-    station), else runs in this process. Outcomes are reported through
-    ``ctx.progress`` as they finish; the result keeps the order of ``jobs``.
+    Uses ``ctx.executor`` when given (a process pool or a dask.distributed
+    client; a crashed worker fails only its station), else runs in this
+    process. Each outcome's products are written here as it arrives, then
+    reported through ``ctx.progress``; the result keeps the order of ``jobs``.
+    A failed write (:class:`TemOutputError`) stops the stage.
     """
     out = {}
 
     def done(oc):
+        write_products(oc)
         out[oc.station] = oc
         if ctx.progress:
             ctx.progress(oc.station, oc.status)
@@ -101,15 +132,18 @@ def map_stations(task, jobs, ctx: StageContext) -> dict:
     if ctx.executor is None or len(jobs) <= 1:
         for sid, args in jobs:
             done(_guarded(task, sid, args))
-    else:
-        futs = {ctx.executor.submit(_guarded, task, sid, args): sid for sid, args in jobs}
-        for fut in cf.as_completed(futs):
-            sid = futs[fut]
-            try:
-                done(fut.result())
-            except Exception as exc:  # noqa: BLE001 - e.g. a killed worker process
-                done(StationOutcome(sid, "failed", f"worker failed: {type(exc).__name__}: {exc}"
-                                    .splitlines()[0]))
+        return {sid: out[sid] for sid, _ in jobs}
+    futs = {ctx.executor.submit(_guarded, task, sid, args): sid for sid, args in jobs}
+    for fut in _completed(ctx.executor, futs):
+        sid = futs[fut]
+        try:
+            oc = fut.result()
+        except TemOutputError:
+            raise
+        except Exception as exc:  # noqa: BLE001 - e.g. a killed worker process
+            oc = StationOutcome(sid, "failed", f"worker failed: {type(exc).__name__}: {exc}"
+                                .splitlines()[0])
+        done(oc)
     return {sid: out[sid] for sid, _ in jobs}
 
 

@@ -250,7 +250,7 @@ def write_segy(path, data, grid, interval_field, first, domain, description, lin
     spec.format = 5
     spec.sorting = None
     text = _text_header(list(description))
-    with atomic_path(path, suffix=".sgy") as tmp:
+    with atomic_path(path) as tmp:
         with segyio.create(str(tmp), spec) as f:
             f.text[0] = text
             f.bin.update({

@@ -97,4 +97,4 @@ def run(settings: ExportSettings, project_in, out, ctx: StageContext = StageCont
     n_las = sum(1 for p in written if Path(p).suffix == ".las")
     others = ", ".join(k for k in what if k != "las")
     return StageResult(outputs=[str(p) for p in written], inputs=record["inputs"],
-                       notes=[f"exports: {len(written)} files ({n_las} LAS; {others})"])
+                       notes=[f"{len(written)} files in {dest} ({n_las} LAS; {others})"])

@@ -16,21 +16,21 @@ __all__ = ["run", "gate_one"]
 
 
 def gate_one(sid, in_path, settings: GateSettings, out_path, fig_path):
-    """Gate one stacked file and write its product (runs in a worker process)."""
+    """Gate one stacked file (runs in a worker); its product and figure ride back as bytes."""
     import numpy as np
 
-    from ..io.figures import save_figure
-    from ..io.stacked import read_product, write_dataset
+    from ..io.figures import figure_bytes
+    from ..io.netcdf import netcdf_bytes
+    from ..io.stacked import read_product
     from ..qc import decay_figure, qc_rows
     from .windows import gate_stacked
 
     st = read_product(in_path, "stacked")
     g = gate_stacked(st, settings.per_decade, settings.shape, settings.t_min, settings.t_max,
                      settings.snr_min)
-    write_dataset(g, out_path)
-    outputs = [str(out_path)]
+    products = [(out_path, netcdf_bytes(g))]
     if fig_path:
-        outputs += [str(p) for p in save_figure(decay_figure(g, st), fig_path)]
+        products.append((fig_path, figure_bytes(decay_figure(g, st))))
     rows = qc_rows(st, g)
     usable = int(np.asarray(g["usable"].values).sum())
     bad = [f"{r['status']} {r['channel']}" for r in rows if r["status"] != "ok"]
@@ -39,8 +39,8 @@ def gate_one(sid, in_path, settings: GateSettings, out_path, fig_path):
     inputs = [{"file": str(in_path), "sha256": file_sha256(in_path)}]
     if not usable:
         return StationOutcome(sid, "failed", f"{out_path}: usable: no gate above the noise",
-                              outputs=outputs, inputs=inputs, info=info, payload=rows)
-    return StationOutcome(sid, "ok", outputs=outputs, inputs=inputs, info=info, payload=rows)
+                              inputs=inputs, info=info, payload=rows, products=products)
+    return StationOutcome(sid, "ok", inputs=inputs, info=info, payload=rows, products=products)
 
 
 def run(settings: GateSettings, stacked_files, out, ctx: StageContext = StageContext()) -> StageResult:

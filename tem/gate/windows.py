@@ -178,7 +178,8 @@ def gate_stacked(stacked, per_decade: float, shape: str, t_min, t_max, snr_min: 
     The gate table is shared by all channels of the station (docs/data-model.md).
     Dead channels are kept with every gate flagged unusable.
     """
-    from ..io.stacked import gated_dataset, result_from_dataset
+    from ..io.stacked import gated_dataset
+    from ..stack.stacking import StackResult
     from ..provenance import stage_record
     if not (np.isfinite(snr_min) and snr_min >= 0):
         raise input_error("snr_min", f"must be zero or positive, got {snr_min}")
@@ -195,7 +196,7 @@ def gate_stacked(stacked, per_decade: float, shape: str, t_min, t_max, snr_min: 
     usable = np.zeros_like(value, bool)
     floor = np.empty(nch)
     for c in range(nch):
-        res = result_from_dataset(stacked, c)
+        res = StackResult.from_dataset(stacked, c)
         value[c] = W @ res.value
         error[c] = res.linear_error(W)
         floor[c] = noise_floor(res, times, t_max / 3.0, t_max)

@@ -80,7 +80,7 @@ def write_fit_csv(results, path, kind):
     """Observed and predicted data of every station (one row per datum), atomically."""
     from ..io.atomic import atomic_path
 
-    with atomic_path(path, suffix=".csv") as tmp:
+    with atomic_path(path) as tmp:
         with open(tmp, "w", newline="", encoding="utf-8") as fh:
             w = csv.writer(fh)
             w.writerow(FIT_COLUMNS)

@@ -29,19 +29,18 @@ def invert_one(sid, in_path, settings: InversionSettings, floors, fig_path):
     ds = read_product(in_path, "gated")
     sd = station_data(ds, floors=floors, file=str(in_path))
     r = invert_station(sd, settings)
-    outputs = []
+    products = []
     if fig_path:
-        from ..io.figures import save_figure
+        from ..io.figures import figure_bytes
         from .plot import station_figure
-        outputs += [str(p) for p in save_figure(station_figure(r, kind=settings.kind), fig_path)]
+        products.append((fig_path, figure_bytes(station_figure(r, kind=settings.kind))))
     info = {"chi2": float(r.chi2), "doi": float(r.doi), "converged": bool(r.converged),
             "invert_message": "" if r.converged else str(r.message),
             "epsg": int(ds.attrs.get("epsg", 0) or 0)}
     if r.few is not None:
         info["few_layer_chi2"] = float(r.few["chi2"])
-    return StationOutcome(sid, "ok", outputs=outputs,
-                          inputs=[{"file": str(in_path), "sha256": file_sha256(in_path)}],
-                          info=info, payload=r)
+    return StationOutcome(sid, "ok", inputs=[{"file": str(in_path), "sha256": file_sha256(in_path)}],
+                          info=info, payload=r, products=products)
 
 
 def _lci(results, files, settings, floors, folder, record, epsg, res):

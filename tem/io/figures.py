@@ -4,11 +4,27 @@ from __future__ import annotations
 from pathlib import Path
 
 from ..errors import input_error
-from .atomic import atomic_path
+from .atomic import write_bytes_atomic
 
-__all__ = ["FIGURE_FORMATS", "save_figure"]
+__all__ = ["FIGURE_FORMATS", "save_figure", "figure_bytes"]
 
 FIGURE_FORMATS = ("png", "pdf", "svg")
+
+
+def figure_bytes(fig, fmt="png", dpi=110) -> bytes:
+    """The figure rendered as ``fmt`` (png, pdf or svg), as bytes (Agg canvas, no pyplot)."""
+    import io
+
+    from matplotlib.backends.backend_agg import FigureCanvasAgg
+
+    if fmt not in FIGURE_FORMATS:
+        raise input_error("formats", f"unknown figure format {fmt!r}; valid: "
+                          f"{', '.join(FIGURE_FORMATS)}")
+    if fig.canvas is None or not isinstance(fig.canvas, FigureCanvasAgg):
+        FigureCanvasAgg(fig)
+    buf = io.BytesIO()
+    fig.savefig(buf, format=fmt, dpi=dpi)
+    return buf.getvalue()
 
 
 def save_figure(fig, stem, formats=("png",), dpi=110):
@@ -24,20 +40,11 @@ def save_figure(fig, stem, formats=("png",), dpi=110):
     dpi : int
         Resolution of raster formats.
     """
-    from matplotlib.backends.backend_agg import FigureCanvasAgg
-
-    if fig.canvas is None or not isinstance(fig.canvas, FigureCanvasAgg):
-        FigureCanvasAgg(fig)
     stem = Path(stem)
     if stem.suffix in {f".{f}" for f in FIGURE_FORMATS}:
         stem = stem.with_suffix("")
     out = []
     for fmt in formats:
-        if fmt not in FIGURE_FORMATS:
-            raise input_error("formats", f"unknown figure format {fmt!r}; valid: "
-                              f"{', '.join(FIGURE_FORMATS)}")
-        target = stem.with_name(f"{stem.name}.{fmt}")
-        with atomic_path(target, suffix=f".{fmt}") as tmp:
-            fig.savefig(tmp, format=fmt, dpi=dpi)
-        out.append(target)
+        data = figure_bytes(fig, fmt, dpi)
+        out.append(write_bytes_atomic(stem.with_name(f"{stem.name}.{fmt}"), data))
     return out

@@ -20,24 +20,23 @@ __all__ = ["run", "rhoa_one", "csv_text"]
 
 
 def rhoa_one(sid, in_path, settings: RhoaSettings, out_path, fig_path):
-    """Apparent resistivity of one gated file; writes its product (runs in a worker)."""
-    from ..io.figures import save_figure
-    from ..io.stacked import read_product, write_dataset
+    """Apparent resistivity of one gated file (runs in a worker); products ride back as bytes."""
+    from ..io.figures import figure_bytes
+    from ..io.netcdf import netcdf_bytes
+    from ..io.stacked import read_product
     from .plot import sounding_figure
     from .sounding import sounding_rhoa, table_rows
 
     ds = read_product(in_path, "gated")
     res = sounding_rhoa(ds, settings, source=str(in_path))
-    write_dataset(res, out_path)
-    outputs = [str(out_path)]
+    products = [(out_path, netcdf_bytes(res))]
     if fig_path:
         fig = sounding_figure(res, title=f"station {sid}: apparent resistivity")
-        outputs += [str(p) for p in save_figure(fig, fig_path)]
+        products.append((fig_path, figure_bytes(fig)))
     rho = res["rhoa" if settings.all_time else "rhoa_late"].values
     info = {"rhoa_converted": int(np.isfinite(rho).sum())}
-    return StationOutcome(sid, "ok", outputs=outputs,
-                          inputs=[{"file": str(in_path), "sha256": file_sha256(in_path)}],
-                          info=info, payload=table_rows(res))
+    return StationOutcome(sid, "ok", inputs=[{"file": str(in_path), "sha256": file_sha256(in_path)}],
+                          info=info, payload=table_rows(res), products=products)
 
 
 def _cell(v):

@@ -89,7 +89,7 @@ def run(settings: SectionSettings, models_files, out, ctx: StageContext = StageC
         res.outputs.append(str(write_section_grid(grid, project.folder("sections") / f"{sname}.nc",
                                                   records)))
         n_below = int(np.asarray(grid["below_doi"].values).sum())
-        res.notes.append(f"{sname}: {grid.sizes['distance']} columns, "
+        res.notes.append(f"{sname}.nc: {grid.sizes['distance']} columns, "
                          f"{grid['log10_resistivity'].shape[1]} samples each, "
                          f"{n_below} samples below the DOI masked")
         if not ctx.figures:

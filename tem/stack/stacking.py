@@ -74,6 +74,16 @@ class StackResult:
         return StackResult(self.value * f, self.error * abs(f), self.influence * f,
                            self.n_used.copy(), self.scale * abs(f), dict(self.counts))
 
+    @classmethod
+    def from_dataset(cls, ds, channel: int) -> "StackResult":
+        """The result of one channel of a stacked-transient Dataset (``stacked/<station>.nc``)."""
+        from ..io.stacked import COUNT_FIELDS
+
+        counts = {f: int(ds[f].values[channel]) for f in COUNT_FIELDS if f in ds}
+        return cls(value=ds["value"].values[channel], error=ds["error"].values[channel],
+                   influence=ds["influence"].values[channel], n_used=ds["n_used"].values[channel],
+                   scale=ds["scale"].values[channel], counts=counts)
+
     def linear_error(self, weights) -> np.ndarray:
         """Standard error of ``weights @ value`` for weights (..., M), from the batches."""
         w = np.asarray(weights, float)

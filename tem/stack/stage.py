@@ -15,9 +15,10 @@ __all__ = ["run", "stack_one"]
 
 
 def stack_one(survey, sid, settings: StackSettings, survey_file, out_path, fig_path):
-    """Stack one station and write its product (runs in a worker process)."""
-    from ..io.figures import save_figure
-    from ..io.stacked import stacked_dataset, write_dataset
+    """Stack one station (runs in a worker); its product and figure ride back as bytes."""
+    from ..io.figures import figure_bytes
+    from ..io.netcdf import netcdf_bytes
+    from ..io.stacked import stacked_dataset
     from ..qc import qc_rows, raw_vs_stacked_figure
     from .stacking import stack_station
 
@@ -28,18 +29,17 @@ def stack_one(survey, sid, settings: StackSettings, survey_file, out_path, fig_p
     rec = stage_record("stack", {"station": sid, **settings.as_dict(), "timing": timing["source"]},
                        inputs=inputs)
     ds = stacked_dataset(survey, st, chans, timing, settings, [rec])
-    write_dataset(ds, out_path)
-    outputs = [str(out_path)]
+    products = [(out_path, netcdf_bytes(ds))]
     if fig_path:
-        outputs += [str(p) for p in save_figure(raw_vs_stacked_figure(ds), fig_path)]
+        products.append((fig_path, figure_bytes(raw_vs_stacked_figure(ds))))
     rows = qc_rows(ds)
     used = sum(r["used"] for r in rows)
     total = sum(r["total"] for r in rows)
     info = {"transients": f"{used}/{total}",
             "timing_source": timing["source"],
             "timing_residual_us": float(timing["residual_rms"]) * 1e6}
-    return StationOutcome(sid, "ok", outputs=outputs, inputs=rec["inputs"], info=info,
-                          payload=rows)
+    return StationOutcome(sid, "ok", inputs=rec["inputs"], info=info, payload=rows,
+                          products=products)
 
 
 def run(settings: StackSettings, survey, stations, out, ctx: StageContext = StageContext(),
