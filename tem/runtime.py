@@ -69,13 +69,16 @@ class StageContext:
     executor : a process pool or None (in this process). progress : called as
     ``progress(station, status)`` after each station (or None). figures :
     write the per-station and profile figures. run_state : the run record of
-    ``tem run`` (None for a stage command).
+    ``tem run`` (None for a stage command). reused : station -> outcome carried
+    over from an earlier run (its products are on disk and up to date): those
+    stations are not computed again.
     """
 
     executor: object = None
     progress: object = None
     figures: bool = True
     run_state: dict | None = None
+    reused: dict = field(default_factory=dict)
 
 
 def _guarded(task, station, args):
@@ -129,11 +132,15 @@ def map_stations(task, jobs, ctx: StageContext) -> dict:
         if ctx.progress:
             ctx.progress(oc.station, oc.status)
 
-    if ctx.executor is None or len(jobs) <= 1:
-        for sid, args in jobs:
+    for sid, _ in jobs:
+        if sid in ctx.reused:
+            done(ctx.reused[sid])
+    todo = [(sid, args) for sid, args in jobs if sid not in ctx.reused]
+    if ctx.executor is None or len(todo) <= 1:
+        for sid, args in todo:
             done(_guarded(task, sid, args))
         return {sid: out[sid] for sid, _ in jobs}
-    futs = {ctx.executor.submit(_guarded, task, sid, args): sid for sid, args in jobs}
+    futs = {ctx.executor.submit(_guarded, task, sid, args): sid for sid, args in todo}
     for fut in _completed(ctx.executor, futs):
         sid = futs[fut]
         try:
@@ -147,12 +154,37 @@ def map_stations(task, jobs, ctx: StageContext) -> dict:
     return {sid: out[sid] for sid, _ in jobs}
 
 
+def _watch_parent(pid: int, period: float = 0.5):
+    """Worker initializer: end this worker soon after the process ``pid`` ends (even kill -9)."""
+    import os
+    import threading
+    import time
+
+    def watch():
+        while True:
+            time.sleep(period)
+            try:
+                os.kill(pid, 0)
+            except ProcessLookupError:
+                os._exit(1)
+            except PermissionError:  # pragma: no cover - another user's process took the pid
+                os._exit(1)
+
+    threading.Thread(target=watch, name="tem-parent-watch", daemon=True).start()
+
+
 def process_pool(jobs: int):
-    """A process pool of ``jobs`` workers (forkserver start: safe beside progress threads)."""
+    """A process pool of ``jobs`` workers (forkserver start: safe beside progress threads).
+
+    Each worker ends within a second when this process ends, however it ends.
+    """
+    import os
+
     if jobs <= 1:
         return None
     try:
         ctx = mp.get_context("forkserver")
     except ValueError:  # pragma: no cover - platforms without forkserver
         ctx = mp.get_context("spawn")
-    return cf.ProcessPoolExecutor(max_workers=int(jobs), mp_context=ctx)
+    return cf.ProcessPoolExecutor(max_workers=int(jobs), mp_context=ctx,
+                                  initializer=_watch_parent, initargs=(os.getpid(),))

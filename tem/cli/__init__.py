@@ -12,6 +12,7 @@ import importlib
 import pkgutil
 import signal
 import sys
+import threading
 
 from .. import SAFETY_NOTE, __version__
 from ..errors import TemInputError, TemOutputError
@@ -46,6 +47,10 @@ def build_parser() -> argparse.ArgumentParser:
     return parser
 
 
+def _terminated(signum, frame):
+    raise SystemExit(128 + signum)
+
+
 def _errno_name(exc: OSError) -> str:
     return errno.errorcode.get(exc.errno or 0, type(exc).__name__)
 
@@ -54,6 +59,9 @@ def main(argv=None) -> int:
     # a file-size limit then fails a write (EFBIG, one error line) instead of killing the process
     if hasattr(signal, "SIGXFSZ"):
         signal.signal(signal.SIGXFSZ, signal.SIG_IGN)
+    # SIGTERM ends the command like Ctrl-C: locks released, temporaries removed, workers stopped
+    if threading.current_thread() is threading.main_thread():
+        signal.signal(signal.SIGTERM, _terminated)
     parser = build_parser()
     args = parser.parse_args(argv)
     if not getattr(args, "_run", None):

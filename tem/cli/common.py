@@ -78,15 +78,22 @@ def input_files(items, option, pattern="*.nc"):
 
 @contextlib.contextmanager
 def stage_context(args, stage: str, total: int):
-    """A :class:`tem.runtime.StageContext` with a pool and a progress bar on standard error."""
+    """A :class:`tem.runtime.StageContext` with a pool and a progress bar on standard error.
+
+    Holds the output folder's lock (:class:`tem.io.project.ProjectLock`) while the stage runs.
+    """
     from rich.console import Console
     from rich.progress import BarColumn, MofNCompleteColumn, Progress, TextColumn, TimeElapsedColumn
 
+    from ..io.project import ProjectLock
     from ..runtime import StageContext, process_pool
 
     jobs = getattr(args, "jobs", None) or default_jobs()
     console = Console(stderr=True)
     with contextlib.ExitStack() as stack:
+        lock = stack.enter_context(ProjectLock(args.out, f"tem {stage}"))
+        if lock.took_over:
+            console.print(f"note: {lock.took_over}", highlight=False)
         pool = process_pool(min(jobs, max(total, 1)))
         if pool is not None:
             stack.enter_context(pool)

@@ -20,7 +20,7 @@ def add_parser(sub):
 
 
 def run(args) -> int:
-    from ..io.project import check_output
+    from ..io.project import ProjectLock, check_output
     from ..report.settings import REPORT
     from ..report.stage import run as report_run
     from ..runtime import StageContext
@@ -28,5 +28,6 @@ def run(args) -> int:
     settings = REPORT.from_command_line(args)
     models = Path(args.project) / "models" / "models.nc"
     check_output(args.out, ["report"], inputs=[models])
-    res = report_run(settings, Path(args.project), args.out, StageContext())
+    with ProjectLock(args.out, "tem report"):
+        res = report_run(settings, Path(args.project), args.out, StageContext())
     return common.finish("report", res, args.out)

@@ -21,6 +21,9 @@ def add_parser(sub):
     p.add_argument("--set", dest="settings", action="append", default=[], metavar="STAGE.KEY=VALUE",
                    help="override one processing setting, e.g. --set invert.layers=24 or "
                    "--set invert.lci=true (TOML value syntax; repeatable)")
+    p.add_argument("--scheduler", metavar="ADDRESS", help="run the station work on a "
+                   "dask.distributed cluster: 'local' (a LocalCluster of --jobs workers) or a "
+                   "scheduler address such as tcp://head:8786 (docs/scaling.md)")
     common.add_run_options(p)
     return p
 
@@ -34,7 +37,7 @@ def run(args) -> int:
     overrides = [parse_assignment(s) for s in args.settings]
     outcome = run_pipeline(args.survey, args.out, from_stage=args.from_stage, overrides=overrides,
                            jobs=args.jobs or common.default_jobs(), console=Console(stderr=True),
-                           progress=args.progress, figures=args.figures)
+                           progress=args.progress, figures=args.figures, scheduler=args.scheduler)
     print_summary(outcome, Console())
     return outcome.exit_status
 
@@ -58,6 +61,8 @@ def print_summary(outcome, console):
         if rec.get("failed"):
             console.print(f"[red]{stage}: {rec['failed']}[/]", highlight=False)
     last = state.get("last_run", {})
+    for note in last.get("notes", []):
+        console.print(f"note: {note}", highlight=False)
     if last.get("stopped"):
         console.print(f"[red]stopped: {last['stopped']}[/]", highlight=False)
     n_fail = sum("failed_stage" in s for s in state.get("stations", {}).values())

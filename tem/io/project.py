@@ -23,11 +23,19 @@ stage folders hold an input that the stage could overwrite or prune.
 """
 from __future__ import annotations
 
+import contextlib
+import datetime as _dt
+import json
+import os
+import socket
 from pathlib import Path
 
 from ..errors import input_error
 
-__all__ = ["Project", "STAGE_FOLDERS", "check_output"]
+__all__ = ["Project", "STAGE_FOLDERS", "check_output", "ProjectLock", "LOCK_NAME"]
+
+#: The lock file of an output folder (held while a command writes into it).
+LOCK_NAME = ".tem-lock"
 
 #: Folders (relative to the output folder) each stage writes, replaces or prunes.
 STAGE_FOLDERS = {
@@ -116,3 +124,75 @@ def check_output(out, stages, inputs=(), read_only=(), planned=(), option="--out
         if f in targets or any(_inside(f, d) for d in folders):
             raise input_error(option, f"would overwrite or remove the input {f}; choose a separate "
                               "output folder", out)
+
+
+class ProjectLock:
+    """Exclusive use of an output folder while a command writes into it.
+
+    An advisory lock (``flock``) on ``OUT/.tem-lock``, which also names the
+    holder (process id, host, start time). The operating system releases it
+    when the holder ends in any way (even ``kill -9``), so a stale lock of a
+    dead process is simply taken over; :attr:`took_over` then names it.
+    A second command into the same folder is refused with one line naming
+    the holder. Entering also removes the temporary files of interrupted
+    writes (``*.tem-part``), and leaving removes them again.
+    """
+
+    def __init__(self, root, command="tem"):
+        self.root = Path(root)
+        self.path = self.root / LOCK_NAME
+        self.command = command
+        self.took_over = ""
+        self.cleaned = 0
+        self._fd = None
+
+    def _holder(self) -> dict:
+        with contextlib.suppress(OSError, ValueError, UnicodeDecodeError):
+            info = json.loads(self.path.read_text(encoding="utf-8") or "{}")
+            if isinstance(info, dict):
+                return info
+        return {}
+
+    def __enter__(self):
+        import fcntl
+
+        from .atomic import clean_partials
+
+        try:
+            self.root.mkdir(parents=True, exist_ok=True)
+            fd = os.open(self.path, os.O_RDWR | os.O_CREAT, 0o644)
+        except OSError as exc:
+            raise input_error("--out", f"cannot use the folder ({exc.strerror})", self.root) from None
+        try:
+            fcntl.flock(fd, fcntl.LOCK_EX | fcntl.LOCK_NB)
+        except OSError:
+            os.close(fd)
+            h = self._holder()
+            raise input_error("--out", f"in use by {h.get('command', 'another tem command')} "
+                              f"(pid {h.get('pid', '?')} on {h.get('host', '?')}, started "
+                              f"{h.get('started_utc', '?')}); wait for it to finish or choose "
+                              "another folder", self.root) from None
+        old = self._holder()
+        if old.get("pid") and old.get("pid") != os.getpid():
+            self.took_over = (f"took over the lock of pid {old['pid']} (started "
+                              f"{old.get('started_utc', '?')}), which ended without releasing it")
+        info = {"pid": os.getpid(), "host": socket.gethostname(), "command": self.command,
+                "started_utc": _dt.datetime.now(_dt.timezone.utc).isoformat(timespec="seconds")}
+        os.ftruncate(fd, 0)
+        os.pwrite(fd, (json.dumps(info) + "\n").encode(), 0)
+        self._fd = fd
+        self.cleaned = clean_partials(self.root)
+        return self
+
+    def __exit__(self, *exc):
+        import fcntl
+
+        from .atomic import clean_partials
+
+        clean_partials(self.root)
+        with contextlib.suppress(OSError):
+            os.ftruncate(self._fd, 0)
+        fcntl.flock(self._fd, fcntl.LOCK_UN)
+        os.close(self._fd)
+        self._fd = None
+        return False

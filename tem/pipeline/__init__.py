@@ -7,7 +7,8 @@ writing its products atomically into the project folder (layout in
 stage (settings, input checksums, outputs, per-station status) in ``run.json``
 and can rerun from any stage.
 """
-from .runner import RunOutcome, read_run, run_pipeline, summary_table
+from .runner import RunOutcome, read_run, run_pipeline
+from .summary import summary_table
 from .settings import STAGES, TABLES, read_processing, resolve_settings
 
 __all__ = ["STAGES", "TABLES", "RunOutcome", "run_pipeline", "read_run", "summary_table",

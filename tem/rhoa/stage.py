@@ -39,6 +39,14 @@ def rhoa_one(sid, in_path, settings: RhoaSettings, out_path, fig_path):
                           info=info, payload=table_rows(res), products=products)
 
 
+def _rows_of(project, sid):
+    """Table rows of a station's apparent-resistivity file (a product kept from an earlier run)."""
+    from ..io.stacked import read_product
+    from .sounding import table_rows
+
+    return table_rows(read_product(project.station_file("rhoa", sid), "rhoa"))
+
+
 def _cell(v):
     if isinstance(v, float):
         return "" if not np.isfinite(v) else f"{v:.9g}"
@@ -112,7 +120,10 @@ def run(settings: RhoaSettings, gated_files, out, ctx: StageContext = StageConte
         jobs.append((sid, (sid, f, settings, project.station_file("rhoa", sid),
                            project.station_figure(sid, "rhoa") if ctx.figures else None)))
     res = StageResult(stations=map_stations(rhoa_one, jobs, ctx))
-    rows = [r for oc in res.stations.values() if oc.status == "ok" for r in oc.payload]
+    rows = []
+    for sid, oc in res.stations.items():
+        if oc.status == "ok":
+            rows += oc.payload if oc.payload is not None else _rows_of(project, sid)
     for oc in res.stations.values():
         oc.payload = None
     if not rows:
