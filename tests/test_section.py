@@ -1,5 +1,5 @@
 """Tests for tem.section (profile geometry, stitching, pseudo-sections, depth to time)
-and the section figures of tem.plot.
+and the section figures of tem.section.plot.
 
 Sources of the checks:
 * geometry: orthogonal projection of a point on a segment and arc length of a

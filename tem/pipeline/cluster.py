@@ -26,11 +26,11 @@ def dask_client(scheduler: str, jobs: int):
     if scheduler == "local":
         with LocalCluster(n_workers=max(1, int(jobs)), threads_per_worker=1, processes=True,
                           dashboard_address=None, silence_logs=50) as cluster, \
-                Client(cluster, set_as_default=False) as client:
+                Client(cluster) as client:
             yield client
         return
     try:
-        client = Client(scheduler, timeout="20s", set_as_default=False)
+        client = Client(scheduler, timeout="20s")
     except (OSError, TimeoutError, ValueError) as exc:
         raise input_error("--scheduler", f"cannot reach {scheduler} "
                           f"({type(exc).__name__}: {str(exc).splitlines()[0][:80]})") from None

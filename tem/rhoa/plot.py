@@ -7,7 +7,7 @@ apparent resistivity below (all-time with error bars, the second branch as
 faint diamonds where the half-space response is not monotonic, late-time as
 a line, solid where its validity condition holds), all log-log. The
 pseudo-section reuses :func:`tem.section.pseudo_section_grid` and
-:func:`tem.plot.pseudo_section_figure` (log colour scale, conductive warm).
+:func:`tem.section.plot.pseudo_section_figure` (log colour scale, conductive warm).
 """
 from __future__ import annotations
 
