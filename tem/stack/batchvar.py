@@ -53,7 +53,7 @@ from functools import lru_cache
 import numpy as np
 
 __all__ = ["batch_lags", "lag_correlations", "variance_factor", "batch_variance",
-           "pooled_lag_correlations", "linear_variance", "window_family", "noise_by_length"]
+           "pooled_lag_correlations", "linear_variance", "noise_by_length"]
 
 #: Estimates e_k and e_{k+l} share raw windows, or baseline windows, for l <= 4.
 CORRELATION_LENGTH = 4
@@ -103,7 +103,7 @@ def lag_correlations(influence, lags: int) -> np.ndarray:
     k = np.ones(min(33, c0.size))
     smooth = np.convolve(c0, k, "same") / np.convolve(np.ones(c0.size), k, "same")
     w = np.where(smooth > 0, 1.0 / np.where(smooth > 0, smooth, 1.0), 0.0)
-    raw = np.array([np.einsum("bm,bm,m->", u[l:], u[:-l], w) for l in range(1, lags + 1)])
+    raw = np.array([np.einsum("bm,bm->m", u[l:], u[:-l]) @ w for l in range(1, lags + 1)])
     raw /= float(c0 @ w)
     a = _moments(nb, lags)
     # raw_l (A[0,0] + sum_k A[0,k] rho_k) = A[l,0] + sum_k A[l,k] rho_k
@@ -149,13 +149,9 @@ def batch_variance(u, rho=()) -> np.ndarray:
     return variance_factor(rho, nb) * np.sum(u * u, axis=-1)
 
 
-#: Widths (samples) of the averages the lag correlations are pooled over.
+#: Widths (samples) of the averages the lag correlations are pooled over (each a multiple
+#: of the one before).
 WIDTHS = (1, 4, 16, 64, 256, 1024)
-
-
-def window_family(m: int, width: int) -> np.ndarray:
-    """Edges (sample indices) of consecutive windows of ``width`` samples tiling M samples."""
-    return np.arange(0, int(m) - int(width) + 1, int(width))
 
 
 def pooled_lag_correlations(influence, lags: int) -> np.ndarray:
@@ -165,14 +161,16 @@ def pooled_lag_correlations(influence, lags: int) -> np.ndarray:
     (at least the single samples); each row pools the windows tiling the record.
     """
     u = np.asarray(influence, float)
-    m = u.shape[1]
-    cs = np.concatenate([np.zeros((u.shape[0], 1)), np.cumsum(u, axis=1)], axis=1)
+    nb, m = u.shape
     rows = []
+    proj = u
     for k, w in enumerate(WIDTHS):
         if k and 4 * w > m:
             break
-        e = window_family(m, w)
-        proj = u if w == 1 else cs[:, e + w] - cs[:, e]
+        if k:       # sums of WIDTHS[k] samples from sums of the previous width
+            f = w // WIDTHS[k - 1]
+            n = proj.shape[1] // f
+            proj = proj[:, :n * f].reshape(nb, n, f).sum(axis=2)
         rows.append(lag_correlations(proj, lags))
     if not rows or rows[0].size == 0:
         return np.zeros((1, 0))

@@ -215,6 +215,26 @@ def _chunks(edges, per):
     return out
 
 
+def _groups(chunks, per):
+    """Runs of consecutive chunks, each run accumulated in order by one worker.
+
+    Small batches are gathered until a run holds ``per`` estimates (mapped
+    once); a batch split over several chunks stays in one run (mapped chunk
+    by chunk), so no two runs share a batch's accumulators.
+    """
+    out, cur, size = [], [], 0
+    for c in chunks:
+        n = c[1] - c[0]
+        if cur and size + n > per and c[2] != cur[-1][2]:
+            out.append(cur)
+            cur, size = [], 0
+        cur.append(c)
+        size += n
+    if cur:
+        out.append(cur)
+    return out
+
+
 _NO_WIN = np.zeros(0)
 _NO_RAILS = np.zeros((0, 2), np.int64)
 _NO_MASK = np.zeros((0, 0), np.bool_)
@@ -223,8 +243,16 @@ _NO_F64 = np.zeros((0, 0))
 _NO_THR = np.zeros(3, np.float32)
 
 
+def _window_span(src, k0, k1, step, detrend):
+    """Windows (a, z) the estimates k0, k0+step, ... < k1 need (their baseline included)."""
+    last = k0 + (len(range(k0, k1, step)) - 1) * step
+    a = max(k0 - 1, 0) if detrend else k0
+    z = min(last + 4, src.n_windows) if detrend else last + 3
+    return a, z
+
+
 def _run_kernel(src, k0, k1, step, detrend, t_frac, mode, acc=None, start=None, thr=None,
-                limits=(0.0, 0.0), emit=None, windows=(_NO_WIN, _NO_RAILS)):
+                limits=(0.0, 0.0), emit=None, windows=(_NO_WIN, _NO_RAILS), block=None):
     """Three-window estimates k0, k0+step, ... < k1 through the compiled kernels.
 
     Maps windows k0-1 .. last+3 (k0 .. last+2 without detrend: what the
@@ -232,13 +260,18 @@ def _run_kernel(src, k0, k1, step, detrend, t_frac, mode, acc=None, start=None, 
     (spsi, cnt, sdpsi, tally) or writes ``emit`` = (e, bad). The mean of a
     chunk without clipped samples goes through :func:`tem.stack.kernels.mean_pass`.
     ``windows`` = (means, rails) of the whole record receive every window read.
-    Raises the input error of a NaN or infinite sample.
+    ``block`` = (first window, ``src.view`` of a span holding these windows)
+    is used instead of mapping them again. Raises the input error of a NaN or
+    infinite sample.
     """
     n_est = len(range(k0, k1, step))
-    last = k0 + (n_est - 1) * step
-    a = max(k0 - 1, 0) if detrend else k0
-    z = min(last + 4, src.n_windows) if detrend else last + 3
-    x, vpc, full_scale, clip = src.view(a, z)
+    a, z = _window_span(src, k0, k1, step, detrend)
+    if block is None:
+        x, vpc, full_scale, clip = src.view(a, z)
+    else:
+        b0, (xb, vpc, full_scale, clipb) = block
+        x = xb[a - b0:z - b0]
+        clip = None if clipb is None else clipb[a - b0:z - b0]
     m = src.m
     if acc is None:
         acc = (np.zeros(m), np.zeros(m, np.int64), np.zeros(m, np.int64), np.zeros(6, np.int64))
@@ -331,7 +364,9 @@ def stack_source(src: WindowSource, settings: StackSettings = StackSettings(), p
     t_frac = (np.arange(m) + 0.5) / m
     edges = _batches(n_est, s.batches)
     nb = len(edges) - 1
-    chunks = _chunks(edges, max(1, int(s.chunk_bytes // (src.itemsize * m)) - 3))
+    per = max(1, int(s.chunk_bytes // (src.itemsize * m)) - 3)
+    chunks = _chunks(edges, per)
+    groups = _groups(chunks, per)
     total_steps = len(chunks) + (0 if s.estimator == "mean" else nb)
     step = [0]
 
@@ -363,23 +398,30 @@ def stack_source(src: WindowSource, settings: StackSettings = StackSettings(), p
     wmeans = np.full(src.n_windows, np.nan)
     wrails = np.zeros((src.n_windows, 2), np.int64)
     mode = _kern.MODES[s.estimator]
-    by_batch = [[c for c in chunks if c[2] == b] for b in range(nb)]
 
-    def run_batch(b):
-        for k0, k1, _ in by_batch[b]:
+    def run_group(g):
+        # small batches: one mapping for the run's windows; a split batch: chunk by chunk
+        block = None
+        if g[-1][1] - g[0][0] <= per:
+            a, _ = _window_span(src, g[0][0], g[0][1], 1, s.detrend)
+            _, z = _window_span(src, g[-1][0], g[-1][1], 1, s.detrend)
+            block = (a, src.view(a, z))
+        for k0, k1, b in g:
             _run_kernel(src, k0, k1, 1, s.detrend, t_frac, mode,
                         acc=(spsi_b[b], cnt_b[b], sdpsi_b[b], tally_b[b]), start=start, thr=thr,
-                        limits=(s.transient_rms, s.bad_fraction), windows=(wmeans, wrails))
-        return b
+                        limits=(s.transient_rms, s.bad_fraction), windows=(wmeans, wrails),
+                        block=block)
+        del block
+        return len(g)
 
     if s.threads > 1:
         from concurrent.futures import ThreadPoolExecutor, as_completed
         with ThreadPoolExecutor(max_workers=s.threads) as pool:
-            for fut in as_completed([pool.submit(run_batch, b) for b in range(nb)]):
-                tick(len(by_batch[fut.result()]))
+            for fut in as_completed([pool.submit(run_group, g) for g in groups]):
+                tick(fut.result())
     else:
-        for b in range(nb):
-            tick(len(by_batch[run_batch(b)]))
+        for g in groups:
+            tick(run_group(g))
     tally = tally_b.sum(axis=0)
     sdpsi_n = sdpsi_b.sum(axis=0)
     counts = {"transients_total": int(n_est)}
