@@ -35,6 +35,10 @@ from .waveform import Waveform
 __all__ = ["Simulation", "RESPONSES"]
 
 RESPONSES = ("step-off", "step-on", "impulse", "waveform")
+# spectrum interpolation: a degree-7 spline in log omega, dense inside the band the
+# times need and sparse in the smooth tails (accuracy study in docs/forward.md)
+_SPLINE_DEGREE = 7
+_OUTER_PER_DECADE = 2
 _TWO_PI = 2.0 * np.pi
 
 
@@ -58,14 +62,17 @@ class Simulation:
     lowpass : (order, cutoff_hz), optional
         Receiver Butterworth low-pass filter applied to the response.
     hankel, fourier : str
-        Names of the libdlf filters. The defaults (key_201_2012 for both)
-        reach 1e-4 against empymod on layered models and against closed forms
-        down to u = theta r ~ 3e-3; at even later times the Fourier filter
-        loses accuracy (REFERENCE.md 2.2 and 4.2 show the same limit).
+        Names of the libdlf filters. Defaults: key_101_2012 (Hankel) and
+        key_201_2012 (Fourier); on the closed-form and empymod checks of
+        tests/test_forward_*.py they reach 1e-4 typically, down to
+        u = theta r ~ 3e-3; at even later times the Fourier filter loses
+        accuracy (docs/forward.md).
     freq_per_decade : float or None
         Density of the frequencies at which the layered kernel is evaluated
-        (spline interpolation to the filters' frequencies); None evaluates at
-        the filters' own frequencies (slower, reference-grade).
+        inside the band the times need (2 per decade outside it); a degree-7
+        spline in log frequency carries the spectrum to the filters'
+        frequencies. None evaluates at the filters' own frequencies (slower,
+        reference-grade).
     n_half_periods : int, optional
         Past half-cycles summed explicitly for a periodic waveform (an
         Euler-Boole correction accounts for the rest); default from the
@@ -73,8 +80,8 @@ class Simulation:
     """
 
     def __init__(self, source, receivers, times=None, gates=None, gate_shape="boxcar",
-                 waveform=None, response=None, lowpass=None, hankel="key_201_2012",
-                 fourier="key_201_2012", freq_per_decade=14, n_half_periods=None, gate_nodes=6):
+                 waveform=None, response=None, lowpass=None, hankel="key_101_2012",
+                 fourier="key_201_2012", freq_per_decade=8, n_half_periods=None, gate_nodes=6):
         if not isinstance(source, (Wire, PolygonLoop, CircularLoop)):
             raise ValueError("source: must be a Wire, PolygonLoop or CircularLoop")
         receivers = list(receivers)
@@ -286,7 +293,8 @@ class Simulation:
         else:
             wlo = min(f[0][0] for f in fine.values())
             whi = max(f[0][-1] for f in fine.values())
-            omega_c = _coarse_omega(wlo, whi, 0.1 / umax, 100.0 / umin, self.freq_per_decade)
+            omega_c = _coarse_omega(wlo, whi, 0.1 / umax, 100.0 / umin, self.freq_per_decade,
+                                    _OUTER_PER_DECADE)
         self._omega = omega_c
         if self.lowpass is not None:
             b, a = signal.butter(self.lowpass[0], _TWO_PI * self.lowpass[1], analog=True)
@@ -299,7 +307,8 @@ class Simulation:
                 Q[:, offset:offset + omega.size] = np.eye(omega.size)
                 offset += omega.size
             else:
-                Q = omega[:, None] * dlf.spline_matrix(omega_c, omega) / omega_c[None, :]
+                Q = omega[:, None] * dlf.spline_matrix(omega_c, omega, degree=_SPLINE_DEGREE) \
+                    / omega_c[None, :]
             if self.lowpass is not None:
                 _, hlp = signal.freqs(b, a, worN=omega)
             else:
@@ -424,12 +433,12 @@ class Simulation:
         return simulation_from_sounding(cls, ds, channels=channels, source=source, **kw)
 
 
-def _coarse_omega(wlo, whi, core_lo, core_hi, per_decade):
-    """Log-frequency grid: ``per_decade`` inside [core_lo, core_hi], half as dense outside."""
+def _coarse_omega(wlo, whi, core_lo, core_hi, per_decade, outer_per_decade):
+    """Log-frequency grid: ``per_decade`` inside [core_lo, core_hi], ``outer_per_decade`` outside."""
     step = np.log(10.0) / per_decade
     lo, hi = np.log(max(core_lo, wlo)), np.log(min(core_hi, whi))
     core = np.arange(lo, hi + step, step)
-    out_step = 2 * step
+    out_step = np.log(10.0) / min(outer_per_decade, per_decade)
     left = np.arange(core[0] - out_step, np.log(wlo) - out_step, -out_step)[::-1]
     right = np.arange(core[-1] + out_step, np.log(whi) + out_step, out_step)
     return np.exp(np.concatenate([left, core, right]))
