@@ -52,6 +52,7 @@ MU0 = 4e-7 * np.pi
 __all__ = ["MU0", "fused_spectra", "fused_spectra_many"]
 
 _ATT_MAX = 20.0
+LANES = 8           # SIMD width in doubles (AVX-512); callers pad the wavenumbers to it
 _JIT = dict(cache=True, fastmath=True, error_model="numpy")
 
 
@@ -84,6 +85,9 @@ def _top_down(l2, wm, sig, thk, gr, gi, er, ei, att, A, B):  # pragma: no cover 
         k = 0
         for il in range(na):
             k += att[il] <= _ATT_MAX
+        # whole SIMD blocks: a few wavenumbers recurse deeper than they need to
+        # (exact, just not required), and loops have no scalar remainder
+        k = min(na, (k + LANES - 1) // LANES * LANES)
         B[n] = k
         h = thk[n]
         h2 = 2.0 * h
@@ -105,19 +109,19 @@ def _top_down(l2, wm, sig, thk, gr, gi, er, ei, att, A, B):  # pragma: no cover 
 
 
 @nb.njit(**_JIT)
-def _bottom_up(scale, gr, gi, er, ei, A, B, XR, XI, store):  # pragma: no cover - compiled
+def _bottom_up(scale, gr, gi, er, ei, A, B, XR, XI):  # pragma: no cover - compiled
     """Upward recursion of the intrinsic values K_n = scale[n] Gamma_n.
 
-    The surface value ends in row 0 of (XR, XI); with ``store`` row n holds
-    the value at the top of layer n (needed by the reverse sweep).
+    Row n of (XR, XI) receives the value at the top of layer n (row 0: the
+    surface value); reading row n + 1 and writing row n, distinct memory,
+    lets the compiler vectorise the loop.
     """
     L = scale.size
     for n in range(L - 1, -1, -1):
         c = scale[n]
-        ro = n if store else 0
-        rb = n + 1 if (store and n + 1 < L) else 0
-        xro = XR[ro]
-        xio = XI[ro]
+        rb = n + 1 if n + 1 < L else n
+        xro = XR[n]
+        xio = XI[n]
         xrb = XR[rb]
         xib = XI[rb]
         grn = gr[n]
@@ -150,133 +154,166 @@ def _bottom_up(scale, gr, gi, er, ei, A, B, XR, XI, store):  # pragma: no cover 
 
 
 @nb.njit(**_JIT)
-def _reverse(scale, tm, sr, si, wm, sig, thk, gr, gi, er, ei, A, B, XR, XI, jac_thk,
-             OR, OI):  # pragma: no cover - compiled
-    """d(surface value)/d ln rho_n (rows n) and d/d ln h_n (rows L + n), times (sr + i si).
+def _bottom_up_jac(scale, tm, wm, sig, thk, gr, gi, er, ei, A, B, XR, XI, jac_thk,
+                   FR, FI, GR, GI, HR, HI):  # pragma: no cover - compiled
+    """:func:`_bottom_up` plus the per-layer partial derivatives the reverse sweep chains.
 
-    Reverse sweep of X_n = f(K_n, T_n, X_{n+1}), f(K, T, X) = K (X + K T)/(K + X T),
-    K_n = scale[n] Gamma_n (``tm``: scale = rho, so K_n also depends on rho_n directly);
-    ``sr, si`` (per wavenumber) is the derivative of the output with respect to X_0.
+    X_n = K (P + e M)/(P - e M), P = X + K, M = X - K, X = X_{n+1}, K = scale[n] Gamma_n,
+    e = e_n = exp(-2 Gamma_n h_n), N = P + e M, w = 1/(P - e M). Partial derivatives:
+    dX_n/dX = 4 e K^2 w^2 (F), dX_n/dK = N w - 4 e X K w^2, dX_n/de = 2 K M P w^2, with
+    de/dln rho = -2 h e dGamma, de/dln h = -2 h e Gamma, dGamma/dln rho = -i omega mu0
+    sigma/(2 Gamma) = -(Gamma^2 - lambda^2)/(2 Gamma), dK = scale dGamma, plus K for ``tm``
+    (scale = rho). Collected: G = dX_n/dln rho_n = dGamma [c N w - 4 e K w^2 (c X + h M P)]
+    (+ K (N w - 4 e X K w^2) for ``tm``), H = dX_n/dln h_n = -4 h e Gamma M P K w^2.
+    The bottom layer of a wavenumber has X_n = K_n: G = dK.
     """
     L = scale.size
-    nl = sr.size
-    ar = sr.copy()
-    ai = si.copy()
-    for n in range(L):
+    for n in range(L - 1, -1, -1):
         c = scale[n]
         q = wm * sig[n]
+        rb = n + 1 if n + 1 < L else n
+        xro = XR[n]
+        xio = XI[n]
+        xrb = XR[rb]
+        xib = XI[rb]
         grn = gr[n]
         gin = gi[n]
-        orn = OR[n]
-        oin = OI[n]
-        ort = OR[L + n]
-        oit = OI[L + n]
-        for il in range(A[n], nl):
-            orn[il] = 0.0
-            oin[il] = 0.0
-        if jac_thk:
-            for il in range(B[n], nl):
-                ort[il] = 0.0
-                oit[il] = 0.0
-        # bottom layer of these wavenumbers: X_n = K_n
+        grr = GR[n]
+        gri = GI[n]
         for il in range(B[n], A[n]):
             g_r = grn[il]
             g_i = gin[il]
+            xro[il] = c * g_r
+            xio[il] = c * g_i
             inv = 0.5 * q / (g_r * g_r + g_i * g_i)
-            # dGamma/dln rho = -i q/(2 Gamma);  dK = c dGamma (+ K if TM: c = rho)
-            dgr = -g_i * inv
-            dgi = -g_r * inv
-            dkr = c * dgr
-            dki = c * dgi
+            dkr = -c * g_i * inv
+            dki = -c * g_r * inv
             if tm:
                 dkr += c * g_r
                 dki += c * g_i
-            orn[il] = ar[il] * dkr - ai[il] * dki
-            oin[il] = ar[il] * dki + ai[il] * dkr
-        if B[n] == 0:
-            continue
+            grr[il] = dkr
+            gri[il] = dki
         h = thk[n]
         ern = er[n]
         ein = ei[n]
-        xrb = XR[n + 1]
-        xib = XI[n + 1]
+        frn = FR[n]
+        fin = FI[n]
         for il in range(B[n]):
             g_r = grn[il]
             g_i = gin[il]
+            kr = c * g_r
+            ki = c * g_i
+            e_r = ern[il]
+            e_i = ein[il]
+            xr = xrb[il]
+            xi = xib[il]
+            pr = xr + kr
+            pi = xi + ki
+            mr = xr - kr
+            mi = xi - ki
+            emr = e_r * mr - e_i * mi
+            emi = e_r * mi + e_i * mr
+            nr = pr + emr
+            ni = pi + emi
+            dr = pr - emr
+            di = pi - emi
+            inv = 1.0 / (dr * dr + di * di)
+            w_r = dr * inv
+            w_i = -di * inv
+            nwr = nr * w_r - ni * w_i                  # N w
+            nwi = nr * w_i + ni * w_r
+            xro[il] = kr * nwr - ki * nwi              # X_n = K N w
+            xio[il] = kr * nwi + ki * nwr
+            w2r = w_r * w_r - w_i * w_i
+            w2i = 2.0 * w_r * w_i
+            kwr = kr * w2r - ki * w2i                  # K w^2
+            kwi = kr * w2i + ki * w2r
+            ekr = 4.0 * (e_r * kwr - e_i * kwi)        # 4 e K w^2
+            eki = 4.0 * (e_r * kwi + e_i * kwr)
+            frn[il] = ekr * kr - eki * ki              # F = 4 e K w^2 K
+            fin[il] = ekr * ki + eki * kr
+            mpr = h * (mr * pr - mi * pi)              # h M P
+            mpi = h * (mr * pi + mi * pr)
+            ur = c * xr + mpr
+            ui = c * xi + mpi
+            vr = c * nwr - (ekr * ur - eki * ui)       # c N w - 4 e K w^2 (c X + h M P)
+            vi = c * nwi - (ekr * ui + eki * ur)
             inv = 0.5 * q / (g_r * g_r + g_i * g_i)
             dgr = -g_i * inv
             dgi = -g_r * inv
-            kr = c * g_r
-            ki = c * g_i
-            dkr = c * dgr
-            dki = c * dgi
+            ogr = dgr * vr - dgi * vi
+            ogi = dgr * vi + dgi * vr
             if tm:
-                dkr += kr
-                dki += ki
-            # T = (1 - e)/(1 + e), 1 - T^2 = 4 e/(1 + e)^2
-            e_r = ern[il]
-            e_i = ein[il]
-            ur = 1.0 + e_r
-            inv = 1.0 / (ur * ur + e_i * e_i)
-            tr = ((1.0 - e_r) * ur - e_i * e_i) * inv
-            ti = (-e_i * ur - (1.0 - e_r) * e_i) * inv
-            t2r = tr * tr - ti * ti
-            t2i = 2.0 * tr * ti
-            sr_ = h * (1.0 - t2r)
-            si_ = -h * t2i
-            # dT/dln rho = s dGamma, dT/dln h = s Gamma
-            dtr = sr_ * dgr - si_ * dgi
-            dti = sr_ * dgi + si_ * dgr
-            xr = xrb[il]
-            xi = xib[il]
-            # D = K + X T
-            Dr = kr + xr * tr - xi * ti
-            Di = ki + xr * ti + xi * tr
-            invD = 1.0 / (Dr * Dr + Di * Di) ** 2
-            D2r = (Dr * Dr - Di * Di) * invD       # 1/D^2 = conj(D)^2/|D|^4
-            D2i = -2.0 * Dr * Di * invD
-            k2r = kr * kr - ki * ki
-            k2i = 2.0 * kr * ki
-            x2r = xr * xr - xi * xi
-            x2i = 2.0 * xr * xi
-            kxr = kr * xr - ki * xi
-            kxi = kr * xi + ki * xr
-            # fK = T (X^2 + K^2 + 2 K X T)/D^2
-            ur = x2r + k2r + 2.0 * (kxr * tr - kxi * ti)
-            ui = x2i + k2i + 2.0 * (kxr * ti + kxi * tr)
-            vr = tr * ur - ti * ui
-            vi = tr * ui + ti * ur
-            fKr = vr * D2r - vi * D2i
-            fKi = vr * D2i + vi * D2r
-            # fT = K (K^2 - X^2)/D^2
-            ur = k2r - x2r
-            ui = k2i - x2i
-            vr = kr * ur - ki * ui
-            vi = kr * ui + ki * ur
-            fTr = vr * D2r - vi * D2i
-            fTi = vr * D2i + vi * D2r
-            # fX = K^2 (1 - T^2)/D^2
-            ur = k2r * (1.0 - t2r) + k2i * t2i
-            ui = k2i * (1.0 - t2r) - k2r * t2i
-            fXr = ur * D2r - ui * D2i
-            fXi = ur * D2i + ui * D2r
-            # out_rho = a (fK dK + fT dT)
-            wr = fKr * dkr - fKi * dki + fTr * dtr - fTi * dti
-            wi = fKr * dki + fKi * dkr + fTr * dti + fTi * dtr
+                # + K (N w - 4 e X K w^2)
+                fkr = nwr - (ekr * xr - eki * xi)
+                fki = nwi - (ekr * xi + eki * xr)
+                ogr += kr * fkr - ki * fki
+                ogi += kr * fki + ki * fkr
+            grr[il] = ogr
+            gri[il] = ogi
+        if jac_thk:
+            hrn = HR[n]
+            hin = HI[n]
+            for il in range(B[n]):
+                # a loop of its own: each loop writes few arrays and stays vectorised
+                g_r = grn[il]
+                g_i = gin[il]
+                kr = c * g_r
+                ki = c * g_i
+                e_r = ern[il]
+                e_i = ein[il]
+                pr = xrb[il] + kr
+                pi = xib[il] + ki
+                mr = xrb[il] - kr
+                mi = xib[il] - ki
+                dr = pr - (e_r * mr - e_i * mi)
+                di = pi - (e_r * mi + e_i * mr)
+                inv = 1.0 / (dr * dr + di * di)
+                w_r = dr * inv
+                w_i = -di * inv
+                w2r = w_r * w_r - w_i * w_i
+                w2i = 2.0 * w_r * w_i
+                kwr = kr * w2r - ki * w2i
+                kwi = kr * w2i + ki * w2r
+                mpr = -4.0 * h * (mr * pr - mi * pi)   # -4 h M P
+                mpi = -4.0 * h * (mr * pi + mi * pr)
+                ur = e_r * g_r - e_i * g_i             # e Gamma
+                ui = e_r * g_i + e_i * g_r
+                vr = mpr * ur - mpi * ui
+                vi = mpr * ui + mpi * ur
+                hrn[il] = vr * kwr - vi * kwi
+                hin[il] = vr * kwi + vi * kwr
+
+
+@nb.njit(**_JIT)
+def _reverse(ar, ai, A, B, FR, FI, GR, GI, HR, HI, jac_thk, OR, OI):  # pragma: no cover
+    """Chain rule from the surface down: row n of (OR, OI) = a_n G_n for the first A[n]
+    wavenumbers, row L + n = a_n H_n for the first B[n] (other entries are not written:
+    the caller sums over those prefixes only); a_0 = ar + i ai on entry (derivative of
+    the output with respect to X_0; overwritten), a_{n+1} = a_n F_n."""
+    L = A.size
+    for n in range(L):
+        orn = OR[n]
+        oin = OI[n]
+        grn = GR[n]
+        gin = GI[n]
+        for il in range(A[n]):
+            orn[il] = ar[il] * grn[il] - ai[il] * gin[il]
+            oin[il] = ar[il] * gin[il] + ai[il] * grn[il]
+        if jac_thk:
+            ort = OR[L + n]
+            oit = OI[L + n]
+            hrn = HR[n]
+            hin = HI[n]
+            for il in range(B[n]):
+                ort[il] = ar[il] * hrn[il] - ai[il] * hin[il]
+                oit[il] = ar[il] * hin[il] + ai[il] * hrn[il]
+        frn = FR[n]
+        fin = FI[n]
+        for il in range(B[n]):
             a_r = ar[il]
-            a_i = ai[il]
-            orn[il] = a_r * wr - a_i * wi
-            oin[il] = a_r * wi + a_i * wr
-            if jac_thk:
-                # out_h = a fT s Gamma
-                dhr = sr_ * g_r - si_ * g_i
-                dhi = sr_ * g_i + si_ * g_r
-                wr = fTr * dhr - fTi * dhi
-                wi = fTr * dhi + fTi * dhr
-                ort[il] = a_r * wr - a_i * wi
-                oit[il] = a_r * wi + a_i * wr
-            ar[il] = a_r * fXr - a_i * fXi
-            ai[il] = a_r * fXi + a_i * fXr
+            ar[il] = a_r * frn[il] - ai[il] * fin[il]
+            ai[il] = a_r * fin[il] + ai[il] * frn[il]
 
 
 @nb.njit(**_JIT)
@@ -297,10 +334,16 @@ def _one_model(lam, omega, res, thk, need_tm, jac, jac_thk, Gr, Ga, Gb, F, dF): 
     A = np.zeros(L, np.int64)
     B = np.zeros(L, np.int64)
     rows = L if jac else 1
-    XR = np.zeros((rows, nl))
-    XI = np.zeros((rows, nl))
-    ZR = np.zeros((rows, nl))
-    ZI = np.zeros((rows, nl))
+    XR = np.zeros((L, nl))
+    XI = np.zeros((L, nl))
+    ZR = np.zeros((L, nl))
+    ZI = np.zeros((L, nl))
+    FR = np.zeros((rows, nl))
+    FI = np.zeros((rows, nl))
+    GR = np.zeros((rows, nl))
+    GI = np.zeros((rows, nl))
+    HR = np.zeros((rows, nl))
+    HI = np.zeros((rows, nl))
     rr = np.empty(nl)
     ri = np.empty(nl)
     npar = 2 * L if jac else 0
@@ -313,7 +356,11 @@ def _one_model(lam, omega, res, thk, need_tm, jac, jac_thk, Gr, Ga, Gb, F, dF): 
     for iw in range(nw):
         wm = omega[iw] * MU0
         _top_down(l2, wm, sig, thk, gr, gi, er, ei, att, A, B)
-        _bottom_up(ones, gr, gi, er, ei, A, B, XR, XI, jac)
+        if jac:
+            _bottom_up_jac(ones, False, wm, sig, thk, gr, gi, er, ei, A, B, XR, XI, jac_thk,
+                           FR, FI, GR, GI, HR, HI)
+        else:
+            _bottom_up(ones, gr, gi, er, ei, A, B, XR, XI)
         xr0 = XR[0]
         xi0 = XI[0]
         for il in range(nl):
@@ -330,16 +377,19 @@ def _one_model(lam, omega, res, thk, need_tm, jac, jac_thk, Gr, Ga, Gb, F, dF): 
                 sr[il] = f * (br_ * br_ - bi_ * bi_)
                 si[il] = -f * 2.0 * br_ * bi_
         if jac:
-            _reverse(ones, False, sr, si, wm, sig, thk, gr, gi, er, ei, A, B, XR, XI, jac_thk, DR, DI)
+            _reverse(sr, si, A, B, FR, FI, GR, GI, HR, HI, jac_thk, DR, DI)
         if need_tm:
-            _bottom_up(res, gr, gi, er, ei, A, B, ZR, ZI, jac)
             if jac:
+                _bottom_up_jac(res, True, wm, sig, thk, gr, gi, er, ei, A, B, ZR, ZI, jac_thk,
+                               FR, FI, GR, GI, HR, HI)
                 for il in range(nl):
                     sr[il] = 1.0
                     si[il] = 0.0
-                _reverse(res, True, sr, si, wm, sig, thk, gr, gi, er, ei, A, B, ZR, ZI, jac_thk, BR, BI)
+                _reverse(sr, si, A, B, FR, FI, GR, GI, HR, HI, jac_thk, BR, BI)
                 for il in range(nl):
                     BR[0, il] -= res[0] * lam[il]
+            else:
+                _bottom_up(res, gr, gi, er, ei, A, B, ZR, ZI)
         for ir in range(nr):
             gri = Gr[ir]
             gai = Ga[ir]
@@ -362,18 +412,20 @@ def _one_model(lam, omega, res, thk, need_tm, jac, jac_thk, Gr, Ga, Gb, F, dF): 
             for p in range(npar):
                 if p >= L and not jac_thk:
                     break
+                # layer p affects the first A[p] wavenumbers, its thickness the first B[p]
+                m = A[p] if p < L else B[p - L]
                 drp = DR[p]
                 dip = DI[p]
                 s_r = 0.0
                 s_i = 0.0
-                for il in range(nl):
+                for il in range(m):
                     ga = wm * gai[il]
                     s_r += drp[il] * gri[il] - dip[il] * ga
                     s_i += dip[il] * gri[il] + drp[il] * ga
                 if need_tm:
                     brp = BR[p]
                     bip = BI[p]
-                    for il in range(nl):
+                    for il in range(m):
                         s_r += brp[il] * gbi[il]
                         s_i += bip[il] * gbi[il]
                 dF[p, iw, ir] += complex(s_r, s_i)

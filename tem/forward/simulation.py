@@ -28,6 +28,7 @@ from scipy import signal
 
 from . import dlf, gatewindow
 from .geometry import CircularLoop, PolygonLoop, Receiver, Wire
+from . import kernel
 from .kernel import MU0, fused_spectra
 from .model import LayeredModel
 from .waveform import Waveform
@@ -253,6 +254,13 @@ class Simulation:
                 S = dlf.spline_matrix(rgrid, R)
                 G[kern][i] += (c / R) @ S @ H
             self._analytic[i] = analytic
+        # pad the wavenumbers to whole SIMD blocks (zero coefficients beyond the filter)
+        pad = (-lam.size) % kernel.LANES
+        if pad:
+            d = np.log(lam[1] / lam[0])
+            lam = np.r_[lam, lam[-1] * np.exp(d * np.arange(1, pad + 1))]
+            G = {k: np.ascontiguousarray(np.pad(v, ((0, 0), (0, pad)))) for k, v in G.items()}
+        self._lam = lam
         self._G = G
         self._need_tm = np.any(G["b"] != 0)
 
