@@ -39,6 +39,10 @@ RESPONSES = ("step-off", "step-on", "impulse", "waveform")
 # times need and sparse in the smooth tails (accuracy study in docs/forward.md)
 _SPLINE_DEGREE = 7
 _OUTER_PER_DECADE = 2
+# hankel="auto": the short filter where a half-space test passes, else the long one
+_HANKEL_CHOICE = ("key_101_2012", "key_201_2012")
+_CHECK_RHO = (1.0, 10.0, 100.0, 1000.0, 10000.0)
+_HANKEL_TOL = 1e-4
 _TWO_PI = 2.0 * np.pi
 
 
@@ -61,12 +65,16 @@ class Simulation:
         ``"step-off"``, ``"step-on"``, ``"impulse"`` or ``"waveform"``.
     lowpass : (order, cutoff_hz), optional
         Receiver Butterworth low-pass filter applied to the response.
-    hankel, fourier : str
-        Names of the libdlf filters. Defaults: key_101_2012 (Hankel) and
-        key_201_2012 (Fourier); on the closed-form and empymod checks of
-        tests/test_forward_*.py they reach 1e-4 typically, down to
-        u = theta r ~ 3e-3; at even later times the Fourier filter loses
-        accuracy (docs/forward.md).
+    hankel : str
+        libdlf Hankel filter, or ``"auto"`` (default): key_101_2012 where a
+        half-space accuracy test on these receivers and times passes, else
+        key_201_2012 (see ``_choose_hankel``; the measured deviation is kept in
+        ``hankel_check``).
+    fourier : str
+        libdlf Fourier filter (default key_201_2012). On the closed-form and
+        empymod checks of tests/test_forward_*.py the defaults reach 1e-4
+        typically, down to u = theta r ~ 3e-3; at even later times the Fourier
+        filter loses accuracy (docs/forward.md).
     freq_per_decade : float or None
         Density of the frequencies at which the layered kernel is evaluated
         inside the band the times need (2 per decade outside it); a degree-7
@@ -80,7 +88,7 @@ class Simulation:
     """
 
     def __init__(self, source, receivers, times=None, gates=None, gate_shape="boxcar",
-                 waveform=None, response=None, lowpass=None, hankel="key_101_2012",
+                 waveform=None, response=None, lowpass=None, hankel="auto",
                  fourier="key_201_2012", freq_per_decade=8, n_half_periods=None, gate_nodes=6):
         if not isinstance(source, (Wire, PolygonLoop, CircularLoop)):
             raise ValueError("source: must be a Wire, PolygonLoop or CircularLoop")
@@ -104,9 +112,16 @@ class Simulation:
 
         self._setup_times(times, gates, gate_nodes, n_half_periods)
         self._check_geometry()
-        self._setup_space()
         self._setup_fourier()
         self._setup_evaluate()
+        self._terms = [receiver_terms(source, rx) for rx in receivers]
+        # closed-form parts per receiver: coefficients of rho_1, i omega mu0, 1
+        self._analytic = np.array([an for _, an in self._terms])
+        self.hankel_check = None
+        if hankel == "auto":
+            self._choose_hankel()
+        else:
+            self._lam, self._G, self._need_tm = self._space_operators(hankel)
 
     # ------------------------------------------------------------------ set-up
     def _setup_times(self, times, gates, gate_nodes, n_half_periods):
@@ -222,20 +237,12 @@ class Simulation:
                     raise ValueError(f"receivers: {rx.component} receiver at "
                                      f"({p[0]:.1f}, {p[1]:.1f}) m lies on the transmitter")
 
-    def _setup_space(self):
-        """Hankel-form coefficient matrices on a common lambda grid."""
-        src = self.source
-        rows = []  # per receiver: list of (form, R, coef) and analytic parts
-        allR = []
-        for rx in self.receivers:
-            terms, analytic = receiver_terms(src, rx)
-            rows.append((terms, analytic))
-            for form, R, c in terms:
-                allR.append(R)
-        allR = np.concatenate(allR)
-        base, j0, j1 = dlf.hankel_filter(self.hankel_name)
-        rgrid, lam, _ = dlf.lagged_grid(base, allR.min(), allR.max())
-        self._lam = lam
+    def _space_operators(self, hankel):
+        """Hankel-form coefficient matrices on a common lambda grid: (lam, G, need_tm)."""
+        allR = np.concatenate([R for terms, _ in self._terms for _, R, _ in terms])
+        base, j0, j1 = dlf.hankel_filter(hankel)
+        # 4 extra offsets each side: the degree-7 spline needs 8 grid points
+        rgrid, lam, _ = dlf.lagged_grid(base, allR.min(), allR.max(), pad=4)
         nx = rgrid.size
         C0 = dlf.lagged_matrix(j0, nx)
         C1 = dlf.lagged_matrix(j1, nx)
@@ -245,24 +252,47 @@ class Simulation:
         nrx = len(self.receivers)
         G = {"a1": np.zeros((nrx, lam.size)), "r": np.zeros((nrx, lam.size)),
              "b": np.zeros((nrx, lam.size))}
-        self._analytic = np.zeros((nrx, 3))  # coefficients of rho_1, i omega mu0, 1
-        for i, (terms, analytic) in enumerate(rows):
+        for i, (terms, _) in enumerate(self._terms):
             for form, R, c in terms:
                 kern, C, p = forms[form]
                 # sum_i w_i f(b_i/r) at grid r, spline in log r, then divide by R
                 H = C * lam[None, :] ** p
-                S = dlf.spline_matrix(rgrid, R)
+                S = dlf.spline_matrix(rgrid, R, degree=_SPLINE_DEGREE)
                 G[kern][i] += (c / R) @ S @ H
-            self._analytic[i] = analytic
         # pad the wavenumbers to whole SIMD blocks (zero coefficients beyond the filter)
         pad = (-lam.size) % kernel.LANES
         if pad:
             d = np.log(lam[1] / lam[0])
             lam = np.r_[lam, lam[-1] * np.exp(d * np.arange(1, pad + 1))]
-            G = {k: np.ascontiguousarray(np.pad(v, ((0, 0), (0, pad)))) for k, v in G.items()}
-        self._lam = lam
-        self._G = G
-        self._need_tm = np.any(G["b"] != 0)
+            G = {k: np.pad(v, ((0, 0), (0, pad))) for k, v in G.items()}
+        G = {k: np.ascontiguousarray(v) for k, v in G.items()}
+        return lam, G, bool(np.any(G["b"] != 0))
+
+    def _choose_hankel(self):
+        """The short Hankel filter where it is accurate for these receivers and times.
+
+        Stated accuracy test: half-spaces of 1, 10, 100, 1000 and 10000 ohm-m
+        computed with key_101_2012 and with key_201_2012 must agree within
+        1e-4 of each value (floor: 1e-3 of the curve's peak) at every output;
+        otherwise key_201_2012 is used. The short filter fails first at very
+        early times of E fields and impulse responses (u = theta r >> 1), where
+        the response is a small remainder of the high-frequency spectrum.
+        """
+        ops = {name: self._space_operators(name) for name in _HANKEL_CHOICE}
+        out = {}
+        for name, (lam, G, need_tm) in ops.items():
+            self._lam, self._G, self._need_tm = lam, G, need_tm
+            out[name] = np.array([self.predict(LayeredModel.halfspace(r)) for r in _CHECK_RHO])
+        a, b = (out[n] for n in _HANKEL_CHOICE)
+        peak = np.max(np.abs(b), axis=-1, keepdims=True)
+        denom = np.maximum(np.abs(b), 1e-3 * peak)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            # a curve that vanishes by symmetry (peak 0) takes no part in the test
+            dev = float(np.max(np.where(denom > 0, np.abs(a - b) / denom, 0.0)))
+        self.hankel_check = dev
+        name = _HANKEL_CHOICE[0] if dev <= _HANKEL_TOL else _HANKEL_CHOICE[1]
+        self.hankel_name = name
+        self._lam, self._G, self._need_tm = ops[name]
 
     def _setup_fourier(self):
         """Time-domain operators per receiver on a common (coarse) frequency grid.
