@@ -4,7 +4,7 @@ Jacobian) and with empymod as forward engine (finite-difference Jacobian).
 Case: synthetic Emberline Plateau station at x = 1500 m (1.5 km grounded wire
 800 m north of the profile), Ex and dBz/dt step-off responses at 31 log-spaced
 times from 1 ms to 1 s, 3 % seeded Gaussian noise, 30-layer mesh. empymod is
-run as REFERENCE.md section 0 prescribes (source and receivers at z = 1 mm,
+run quasi-statically as described in docs/forward.md (source and receivers at z = 1 mm,
 epermH = epermV = 0, default transforms; 5 Gauss points along the wire,
 checked against 11 in the run). Both runs start from the same
 half-space, use the same mesh, data, errors and Occam settings.

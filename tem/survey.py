@@ -348,7 +348,8 @@ class Survey:
         """Whether each half-period holds a whole number of mains cycles.
 
         Returns ``(ok, ratio)`` with ratio = f_mains / (2 f_base); see
-        docs/stacking.md (REFERENCE.md section 6.4).
+        docs/stacking.md section 6, where the stack's mains transfer function
+        is derived.
         """
         ratio = self.mains_frequency / (2.0 * self.transmitter.base_frequency)
         return abs(ratio - round(ratio)) < 1e-9 * max(1.0, ratio), ratio

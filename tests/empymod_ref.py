@@ -1,6 +1,7 @@
-"""empymod as the independent reference, run as ../shared/REFERENCE.md section 0 prescribes.
+"""empymod (Werthmueller 2017, Geophysics 82(6), WB9-WB19) as the independent reference.
 
-Quasi-static (epermH = epermV = 0), source and receivers at z = 1e-3 m just
+Run as described in docs/forward.md ("empymod as the reference"):
+quasi-static (epermH = epermV = 0), source and receivers at z = 1e-3 m just
 inside the earth, default Hankel key_201_2009 and Fourier key_201_2012 with
 lagged convolution. empymod's frame is right-handed with z down; ours has z
 up, so ours (x, y, z) = empymod (x, -y, -z).

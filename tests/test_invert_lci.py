@@ -29,14 +29,15 @@ def test_lateral_operator_structure():
     # spacing 100 vs 200 m, median 150: weights sqrt(1.5) and sqrt(0.75)
     assert L[0, 0] == pytest.approx(-np.sqrt(1.5))
     assert L[2, 2] == pytest.approx(-np.sqrt(0.75))
-    R = lci_operator(3, 2)
+    R = lci_operator(3, 2, 1.0)
     assert R.shape == (3 * 1 + 4, 6)
 
 
 def test_lci_constant_profile_returns_constant():
     m_true = np.full(M, np.log(30.0))
     d = toy_fwd(m_true)[0]
-    res = lci([toy_fwd] * 4, [d] * 4, [0.01 * d] * 4, np.full(M, np.log(3.0)))
+    res = lci([toy_fwd] * 4, [d] * 4, [0.01 * d] * 4, np.full(M, np.log(3.0)), lateral_weight=1.0,
+              target=1.0, max_iter=20)
     assert np.allclose(res.m, m_true, atol=0.01)
     assert np.all(res.chi2_station <= 1.02)
 
@@ -54,8 +55,9 @@ def test_lci_beats_independent_inversions_on_smoothly_varying_truth():
         data.append(dt + sd * rng.standard_normal(dt.size))
         stds.append(sd)
     m0 = np.full(M, np.log(50.0))
-    indep = np.array([occam(toy_fwd, data[s], stds[s], m0).m for s in range(S)])
-    joint = lci([toy_fwd] * S, data, stds, m0, lateral_weight=1.0)
+    indep = np.array([occam(toy_fwd, data[s], stds[s], m0, target=1.0, max_iter=20).m
+                      for s in range(S)])
+    joint = lci([toy_fwd] * S, data, stds, m0, lateral_weight=1.0, target=1.0, max_iter=20)
     err_i = np.sqrt(np.mean((indep - np.array(truths)) ** 2))
     err_j = np.sqrt(np.mean((joint.m - np.array(truths)) ** 2))
     assert joint.occam.chi2 <= 1.02

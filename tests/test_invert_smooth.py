@@ -1,7 +1,8 @@
 """Occam smooth inversion on toy problems with known answers (no EM kernel).
 
 Method: Constable, Parker & Constable 1987, Geophysics 52(3), 289-300 (Occam:
-smoothest model at the target misfit). Chi-square statistics: REFERENCE.md 5.
+smoothest model at the target misfit). Chi-square statistics: for Gaussian errors
+chi^2 over N data has mean N and standard deviation sqrt(2N) (textbook).
 """
 import numpy as np
 import pytest
@@ -24,7 +25,8 @@ def toy_fwd(m):
 
 
 def test_diffusion_depth_reference_value():
-    # REFERENCE.md section 3: rho = 100 ohm-m, t = 1e-3 s -> 398.94 m (Ward & Hohmann 1988 form)
+    # sqrt(2 t rho / mu0) (Ward & Hohmann 1988, from memory):
+    # rho = 100 ohm-m, t = 1e-3 s -> 398.94 m
     assert diffusion_depth(100.0, 1e-3) == pytest.approx(398.94, abs=0.01)
     assert diffusion_depth(10.0, 1e-2) == pytest.approx(398.94, abs=0.01)
 
@@ -49,7 +51,7 @@ def test_occam_constant_truth_returns_constant():
     m_true = np.full(M, np.log(50.0))
     d = toy_fwd(m_true)[0]
     std = 0.01 * np.abs(d)
-    res = occam(toy_fwd, d, std, np.full(M, np.log(5.0)))
+    res = occam(toy_fwd, d, std, np.full(M, np.log(5.0)), target=1.0, max_iter=20)
     assert np.allclose(res.m, m_true, atol=0.01)
     assert res.chi2 <= 1.0 + 0.01
 
@@ -60,7 +62,7 @@ def test_occam_reaches_target_and_is_smoothest_at_target():
     d_true = toy_fwd(m_true)[0]
     std = 0.01 * d_true
     d = d_true + std * rng.standard_normal(d_true.size)
-    res = occam(toy_fwd, d, std, np.full(M, np.log(10.0)))
+    res = occam(toy_fwd, d, std, np.full(M, np.log(10.0)), target=1.0, max_iter=20)
     assert res.converged, res.message
     # target chi2 = 1 reached within the stated convergence tolerance (1 %)
     assert 0.9 <= res.chi2 <= 1.01
@@ -82,7 +84,7 @@ def test_occam_unreachable_target_gives_least_misfit():
     std = 1e-6 * d
     m0 = np.full(M, np.log(10.0))
     c0 = chi2_per_datum(d, toy_fwd(m0)[0], std)
-    res = occam(toy_fwd, d, std, m0, max_iter=8)
+    res = occam(toy_fwd, d, std, m0, target=1.0, max_iter=8)
     assert not res.converged
     assert res.chi2 < 0.01 * c0
 
@@ -90,7 +92,8 @@ def test_occam_unreachable_target_gives_least_misfit():
 def test_occam_rejects_bad_errors():
     d = np.ones(3)
     with pytest.raises(ValueError, match="error"):
-        occam(lambda m: (np.ones(3), np.ones((3, 2))), d, np.zeros(3), np.zeros(2))
+        occam(lambda m: (np.ones(3), np.ones((3, 2))), d, np.zeros(3), np.zeros(2), target=1.0,
+              max_iter=20)
 
 
 def test_best_halfspace_recovers_uniform_value():

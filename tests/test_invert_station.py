@@ -1,8 +1,10 @@
 """Station inversion on synthetic Emberline Plateau data (tem.forward as the engine).
 
 Sources beside each check:
-* chi-square per datum, target 1: REFERENCE.md 5 (Constable, Parker & Constable 1987, Occam).
-* linearised posterior std from (J^T W J)^-1: Marquardt 1963 / Gauss-Markov (REFERENCE.md 5).
+* chi-square per datum, target 1: Constable, Parker & Constable 1987, Geophysics 52(3),
+  289-300 (Occam).
+* linearised posterior std from (J^T W J)^-1: Marquardt 1963, J. SIAM 11(2), 431-441 /
+  Gauss-Markov.
 * DOI from cumulative sensitivity: Christiansen & Auken 2012 (threshold from memory, UNVERIFIED).
 * tolerances 25 % / 10 % / 2 sigma / chi2 <= 1.2: the acceptance criteria of the inversion issue
   (common practice, no source).
@@ -26,7 +28,7 @@ CENTRE = np.sqrt(GATES[0] * GATES[1])
 def emberline_result():
     v, e, sim, model = emberline_station(X, noise=0.03, seed=0, gates=GATES)
     sd = station_data_from_arrays(sim, v, e, ["ex", "dbzdt"], x=X, gate_centre=CENTRE)
-    return invert_station(sd, InversionSettings(few_layers=4)), model
+    return invert_station(sd, InversionSettings(kind="few-layer", few_layers=4)), model
 
 
 def test_emberline_fewlayer_recovers_sediment_target(emberline_result):
@@ -73,7 +75,8 @@ def test_noise_free_halfspace_recovered_within_one_percent():
     assert rho == pytest.approx(100.0, rel=0.01)
     h = mesh_for(sd, rho, InversionSettings())
     fwd, pred = _problem(sd, h)
-    r = occam(fwd, sd.d_obs, sd.std, np.full(h.size + 1, np.log(10.0)), predict=pred)
+    r = occam(fwd, sd.d_obs, sd.std, np.full(h.size + 1, np.log(10.0)), predict=pred, target=1.0,
+              max_iter=20)
     assert np.exp(r.m) == pytest.approx(np.full(h.size + 1, 100.0), rel=0.01)
 
 

@@ -51,6 +51,7 @@ VELOCITY = "depth_m,vp_m_per_s\n0,2000\n500,3000\n"
 def _write_day(d: Path):
     import tomli_w
 
+    d.mkdir(parents=True, exist_ok=True)
     from tem.survey import survey_to_dict
     from tem.synth import emberline_survey, synth_survey
 
@@ -169,7 +170,7 @@ def _mtimes(proj, folders):
 def test_run_end_to_end(tmp_path, capsys):
     import xarray as xr
 
-    survey = _write_day(tmp_path)
+    survey = _write_day(tmp_path / "day")
     proj = tmp_path / "project"
     status = main(["run", str(survey), "--out", str(proj), "--jobs", "2", "--no-progress"])
     out = capsys.readouterr()
@@ -203,7 +204,7 @@ def test_run_end_to_end(tmp_path, capsys):
     late = _mtimes(proj, ["models", "exports"])
     stack_record = state["stages"]["stack"]
     status = main(["run", str(survey), "--out", str(proj), "--from", "invert", "--jobs", "1",
-                   "--no-progress", "--lci", "--set", "invert.layers=10",
+                   "--no-progress", "--set", "invert.lci=true", "--set", "invert.layers=10",
                    "--set", "export.models=lci"])
     assert status == 1                          # the corrupt station still has no model
     assert _mtimes(proj, ["stacked", "gated", "rhoa"]) == early
@@ -228,30 +229,35 @@ def test_bad_processing_table(tmp_path, capsys):
     write_survey(sv, tmp_path / "survey.toml")
     with open(tmp_path / "survey.toml", "a") as fh:
         fh.write("\n[processing.gate]\nper_decad = 8\n")
-    status = main(["run", str(tmp_path / "survey.toml"), "--out", str(tmp_path / "p")])
+    status = main(["run", str(tmp_path / "survey.toml"), "--out", str(tmp_path.parent / "p")])
     err = capsys.readouterr().err.strip().splitlines()
     assert status == 2 and len(err) == 1
     assert "survey.toml" in err[0] and "processing.gate.per_decad: unknown key" in err[0]
-    assert not (tmp_path / "p").exists()
+    assert not (tmp_path.parent / "p").exists()
 
 
 def test_parameter_overrides_and_checks(tmp_path):
     from tem.errors import TemInputError
-    from tem.pipeline import parse_assignment, resolve_parameters
+    from tem.export.settings import kinds_of
+    from tem.pipeline import resolve_settings
+    from tem.settings import parse_assignment
 
-    p = resolve_parameters({"invert": {"layers": 20}, "export": {"velocity": "v.csv"}},
-                           [parse_assignment("invert.layers=24")], tmp_path / "s.toml")
-    assert p["invert"]["layers"] == 24                        # command line wins over the table
-    assert p["export"]["velocity"] == str(tmp_path / "v.csv")  # relative to the survey file
-    assert "segy-twt" in p["export"]["what"]                  # a velocity table adds the TWT SEG-Y
+    p = resolve_settings({"invert": {"layers": 20}, "export": {"velocity": "v.csv"}},
+                         [parse_assignment("invert.layers=24")], tmp_path / "s.toml")
+    assert p["invert"].layers == 24                           # command line wins over the table
+    assert p["export"].velocity == str(tmp_path / "v.csv")    # relative to the survey file
+    assert "segy-twt" in kinds_of(p["export"])                # a velocity table adds the TWT SEG-Y
     for bad, field in [({"gate": {"shape": "round"}}, "processing.gate.shape"),
                        ({"invert": {"layers": 2.5}}, "processing.invert.layers"),
                        ({"section": {"depth_step": -5.0}}, "processing.section.depth_step"),
                        ({"export": {"models": "lci"}}, "processing.export.models"),
-                       ({"invert": {"floor": {"exx": 0.05}}}, "processing.invert.floor.exx"),
+                       ({"invert": {"floor": {"exx": 0.05}}}, "processing.invert.floor: unknown "
+                        "component 'exx'"),
                        ({"plot": {}}, "processing.plot")]:
         with pytest.raises(TemInputError, match=field.replace(".", r"\.")):
-            resolve_parameters(bad, survey_file=tmp_path / "s.toml")
+            resolve_settings(bad, survey_file=tmp_path / "s.toml")
+    with pytest.raises(TemInputError, match=r"^--set invert\.layers: expected a whole number"):
+        resolve_settings({}, [parse_assignment("invert.layers=many")])
 
 
 def test_from_needs_an_earlier_run(tmp_path, capsys):
@@ -260,7 +266,7 @@ def test_from_needs_an_earlier_run(tmp_path, capsys):
 
     sv, _ = emberline_survey(base_dir=tmp_path, stations=["EM01"])
     write_survey(sv, tmp_path / "survey.toml")
-    status = main(["run", str(tmp_path / "survey.toml"), "--out", str(tmp_path / "p"),
+    status = main(["run", str(tmp_path / "survey.toml"), "--out", str(tmp_path.parent / "q"),
                    "--from", "invert"])
     err = capsys.readouterr().err
     assert status == 2 and "run.json" in err

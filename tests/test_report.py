@@ -16,8 +16,9 @@ import pytest
 from profile_fixture import X, synthetic_models
 from tem import SAFETY_NOTE
 from tem.errors import TemInputError
-from tem.plot import model_figure, save_figure
-from tem.report import STATUS_MISFIT, STATUS_NONE, STATUS_OK, station_table, write_report
+from tem.io.figures import save_figure
+from tem.section.plot import model_figure
+from tem.report.html import STATUS_MISFIT, STATUS_NONE, STATUS_OK, station_table, write_report
 
 
 class _Page(HTMLParser):
@@ -71,7 +72,7 @@ def test_report_links_resolve_and_contents(figures):
     out = root / "out" / "report.html"
     write_report(out, m, section_figures=[(files[0], "a section")], model_figures=[files[0]],
                  station_figures={"EP-04": [(decay[0], "decay & fit <EP-04>")]},
-                 station_info={"EP-01": {"usable_gates": 21}})
+                 station_info={"EP-01": {"usable_gates": 21}}, chi2_limit=2.0, embed=False)
     page = _Page()
     page.feed(out.read_text(encoding="utf-8"))
     page.close()
@@ -94,10 +95,11 @@ def test_report_links_resolve_and_contents(figures):
 
 def test_report_embed_and_missing_figure(figures, tmp_path):
     root, m, files, _ = figures
-    out = write_report(tmp_path / "r.html", m, model_figures=[files[0]], embed=True)
+    out = write_report(tmp_path / "r.html", m, model_figures=[files[0]], embed=True, chi2_limit=2.0)
     html = out.read_text(encoding="utf-8")
     data = base64.b64encode(files[0].read_bytes()).decode("ascii")
     assert f"data:image/png;base64,{data}" in html
     with pytest.raises(TemInputError, match=r"nothere\.png: figure"):
-        write_report(tmp_path / "r2.html", m, section_figures=[root / "nothere.png"])
+        write_report(tmp_path / "r2.html", m, section_figures=[root / "nothere.png"], chi2_limit=2.0,
+                     embed=False)
     assert not (tmp_path / "r2.html").exists()

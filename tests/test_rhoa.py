@@ -1,9 +1,11 @@
 """Tests for tem.rhoa: late-time and all-time apparent resistivity, pseudo-depth.
 
-Independent truth: empymod 2.6.1 run quasi-statically as REFERENCE.md section 0
-prescribes (source and receivers at z = 1e-3 m, epermH = epermV = 0, air
-2e14 ohm-m), finite wires integrated with srcpts = 11 (Gauss-Legendre), and
-the check values of REFERENCE.md sections 2 and 3.
+Independent truth: empymod 2.6.1 (Werthmueller 2017, Geophysics 82(6),
+WB9-WB19) run quasi-statically as described in docs/forward.md (source and
+receivers at z = 1e-3 m, epermH = epermV = 0, air 2e14 ohm-m), finite wires
+integrated with srcpts = 11 (Gauss-Legendre); the late-time formulas of
+Spies & Frischknecht (1991, from memory) applied to empymod values; the
+diffusion depth of Ward & Hohmann (1988, from memory).
 """
 from __future__ import annotations
 
@@ -12,6 +14,7 @@ import pytest
 
 from tem import rhoa as R
 from tem.errors import TemInputError
+from tem.rhoa.settings import RhoaSettings
 
 empymod = pytest.importorskip("empymod")
 
@@ -20,9 +23,10 @@ WIRE = [-500.0, 0.0, 500.0, 0.0]  # 1 km wire along +x, current from A to B
 
 
 def emp_step_off(src, rec, rho, t, mrec=False):
-    """QS empymod step-off response of 1 A (REFERENCE 0 recipe).
+    """QS empymod step-off response of 1 A (run as in docs/forward.md).
 
-    ``mrec='b'`` with ``signal=-1`` gives dB/dt step-off (REFERENCE 0).
+    ``mrec='b'`` with ``signal=-1`` gives dB/dt step-off (equal to
+    ``-mu0 * bipole(..., signal=0, mrec=True)`` under QS).
     """
     with np.errstate(all="ignore"):
         out = empymod.bipole(src=src, rec=rec, depth=[0], res=[2e14, rho], freqtime=t, signal=-1,
@@ -37,11 +41,12 @@ def wire_src(a, b):
 
 # ------------------------------------------------------------ check values
 def test_reference_late_time_check_values():
-    # REFERENCE 2.2 "Raw values at t = 1e-2" (empymod QS, 100 ohm-m) and the
-    # rho_a it tabulates for them (Spies & Frischknecht 1991 forms,
-    # re-derived in REFERENCE 2.2). rtol 2e-5: the raw values carry 7 digits.
+    # empymod QS step-off values at t = 1e-2 s over 100 ohm-m, 1 A (50 m central loop;
+    # 1 km wire, E at (2000,0), dBz/dt at (0,2000)) and their late-time rho_a by the
+    # Spies & Frischknecht (1991, from memory) forms, re-derived from the Ward & Hohmann
+    # (1988) asymptotes. rtol 2e-5: the raw values carry 7 digits.
     m_loop = np.pi * 50.0**2
-    # Tolerance: half a unit in the last tabulated digit plus 7-digit raw input.
+    # Tolerance: half a unit in the last quoted digit plus 7-digit raw input.
     assert R.late_time_dbzdt(-1.247715e-11, 1e-2, m_loop) == pytest.approx(100.038, abs=6e-4)
     assert R.late_time_bz(8.319986e-14, 1e-2, m_loop) == pytest.approx(100.022, abs=6e-4)
     assert R.late_time_e(1.057279e-06, 1e-2, 1000.0) == pytest.approx(397.59, abs=6e-3)
@@ -55,7 +60,8 @@ def test_reference_late_time_check_values():
 
 
 def test_diffusion_depth_reference_values():
-    # REFERENCE 3 (Ward & Hohmann 1988 diffusion depth): 398.94 m for both.
+    # diffusion depth sqrt(2 t rho / mu0) (Ward & Hohmann 1988, from memory) = 1261.566
+    # sqrt(rho t) m: 398.94 m for both.
     assert R.diffusion_depth(100.0, 1e-3) == pytest.approx(398.94, abs=0.01)
     assert R.diffusion_depth(10.0, 1e-2) == pytest.approx(398.94, abs=0.01)
     assert R.diffusion_depth(1.0, 1.0) == pytest.approx(1261.566, abs=1e-3)
@@ -70,7 +76,7 @@ def test_effective_moment_loop_is_area_anywhere_and_wire_is_L_y_over_2():
         assert R.effective_moment("loop", sq, rx) == pytest.approx(1e4, rel=1e-12)
     cw = np.array(sq, float).reshape(-1, 2)[::-1].ravel()
     assert R.effective_moment("loop", cw, [50, 50]) == pytest.approx(-1e4)
-    # REFERENCE 2.2: HED dB/dt form = loop form with M -> I L y / 2.
+    # late-time asymptotes (Ward & Hohmann 1988): HED dB/dt form = loop form with M -> I L y / 2.
     assert R.effective_moment("wire", WIRE, [1234.0, 2000.0]) == pytest.approx(1000.0 * 2000.0 / 2)
     assert R.perpendicular_distance((-500, 0), (500, 0), (1234.0, -700.0)) == pytest.approx(-700.0)
     assert R.projected_current_length("wire", WIRE, (0.6, 0.8)) == pytest.approx(600.0)
@@ -83,7 +89,7 @@ TIMES = np.logspace(-5, 0.5, 34)
 
 @pytest.mark.parametrize("rho", [10.0, 100.0, 1000.0])
 def test_late_time_wire_within_5_percent_where_valid_and_fails_early(rho):
-    """Late-time rho_a of a 1 km wire against empymod (REFERENCE 0 recipe).
+    """Late-time rho_a of a 1 km wire against empymod (run as in docs/forward.md).
 
     Condition (tem.rhoa.U_LIMIT, derived from the Ward & Hohmann 1988 shape
     functions): u = theta(rho_a) r_max < 0.19 for E, < 0.31 for dBz/dt, with
@@ -140,7 +146,7 @@ def test_late_time_validity_limit_is_tight_for_a_dipole():
 def test_late_time_arbitrary_wire_orientation_uses_perpendicular_distance():
     """A wire at 30 degrees: same rho_a as the x-directed case (empymod truth).
 
-    REFERENCE 2.1: at late time only the perpendicular distance matters; the
+    Late-time HED asymptote (Ward & Hohmann 1988): only the perpendicular distance matters; the
     E receiver dipole along the wire measures the full late-time E.
     """
     ang = np.deg2rad(30.0)
@@ -161,7 +167,7 @@ def test_late_time_arbitrary_wire_orientation_uses_perpendicular_distance():
 
 
 def test_late_time_loop_dbzdt_vs_empymod_polygon():
-    """Central 50 m loop (empymod, 90-segment polygon of equal area, REFERENCE 0)."""
+    """Central 50 m loop (empymod, 90-segment polygon of equal area, docs/forward.md)."""
     n = 90
     a_eq = 50.0 * np.sqrt((2 * np.pi / n) / np.sin(2 * np.pi / n))
     phi = np.arange(n + 1) * 2 * np.pi / n
@@ -174,11 +180,12 @@ def test_late_time_loop_dbzdt_vs_empymod_polygon():
                               strength=1, verb=1).sum(axis=-1)
     pts = np.column_stack([px[:-1], py[:-1]]).ravel()
     # empymod's frame has z down: the anticlockwise (in its x-y) loop's step-off
-    # dB_z/dt along its +z is negative as in Ward & Hohmann (1988) 1.1.
+    # dB_z/dt along its +z is negative as in Ward & Hohmann (1988), central loop.
     lt = R.late_time_rhoa("dbzdt", np.real(dbdt), t, "loop", pts, [0, 0, 0, 0])
     dev = np.abs(lt.rho / 100 - 1)
     assert lt.valid.sum() >= 5 and dev[lt.valid].max() < 0.05
-    # REFERENCE 2.2 table: 100.374 at 1e-3 s, 100.038 at 1e-2 s.
+    # late-time rho_a of this empymod loop response (Spies & Frischknecht 1991 form):
+    # 100.374 at 1e-3 s, 100.038 at 1e-2 s.
     assert lt.rho[np.argmin(abs(t - 1e-3))] == pytest.approx(100.374, rel=1e-3)
     assert lt.rho[np.argmin(abs(t - 1e-2))] == pytest.approx(100.038, rel=1e-3)
     assert dev[0] > 0.3 and not lt.valid[0]  # t = 1e-5 s, u = 2.8: fails
@@ -330,10 +337,11 @@ def test_all_time_two_layer_early_upper_late_lower(thk, rho1, rho2):
 
 
 def test_halfspace_match_bad_values_and_impossible_data_are_flagged():
-    """Closed-form HED E_x (Ward & Hohmann 1988, REFERENCE 1.2) on a rho grid.
+    """Closed-form HED E_x (Ward & Hohmann 1988) on a rho grid.
 
     E_x is not monotonic in rho: its maximum at fixed t is 0.4280 I ds mu0 /
-    (8 pi r t) (REFERENCE 2.3). A datum above it has no root, one below has
+    (8 pi r t) at u* = 0.9679 (maximising the closed form over u; cf. Spies &
+    Eggers 1986). A datum above it has no root, one below has
     two; zero and NaN data are bad values; a negative one has the wrong sign.
     """
     from scipy.special import erf
@@ -344,7 +352,8 @@ def test_halfspace_match_bad_values_and_impossible_data_are_flagged():
     fe = erf(u) - 2 / np.sqrt(np.pi) * u * np.exp(-u * u)
     ex = grid / (2 * np.pi * r**3) * fe
     emax = 0.4280 * MU0 / (8 * np.pi * r * t)
-    # REFERENCE 2.3: the maximum lies at rho* = 134.15 ohm-m, value 1.0700e-9.
+    # maximum of the closed form at u* = 0.9679: rho* = 0.2669 mu0 r^2 / t = 134.15 ohm-m,
+    # value 1.0700e-9 V/m per A m.
     assert grid[np.argmax(ex)] == pytest.approx(134.15, rel=0.08)
     assert emax == pytest.approx(1.0700e-9, rel=1e-4)
     vals = np.array([1.01 * emax, 0.5 * emax, 0.0, np.nan, -0.5 * emax, 0.999 * emax])
@@ -417,16 +426,16 @@ def test_sounding_rhoa_dataset_halfspace_and_flags():
     """Sounding-level conversion: 300 ohm-m half-space with 1 % noise.
 
     All-time within 3 sigma of the truth at every gate (sigma: the propagated
-    rel_error); late-time valid gates within 5 % + 3 sigma (issue 4 and
-    REFERENCE 2.2).
+    rel_error); late-time valid gates within 5 % + 3 sigma (issue 4; the late-time
+    formulas of Spies & Frischknecht 1991, from memory).
     """
-    from tem.rhoa_sounding import sounding_rhoa, table_rows
+    from tem.rhoa.sounding import sounding_rhoa, table_rows
 
     rng = np.random.default_rng(4)
     ds, sim = _gated("EM05", -1500.0, LayeredModel(thickness=[], resistivity=[300.0]), rng)
     ds["usable"].values[1, -1] = False
     ds["value"].values[0, 3] = 0.0   # a dead sample: flagged, kept
-    out = sounding_rhoa(ds, sim=sim, points_per_decade=12)
+    out = sounding_rhoa(ds, RhoaSettings(rho_per_decade=12), sim=sim)
     assert out.attrs["tem_format"] == "rhoa" and "rhoa" in out.attrs["provenance"]
     rho, rel = out["rhoa"].values, out["rhoa_rel_error"].values
     ok = np.isfinite(rho)
@@ -444,7 +453,7 @@ def test_sounding_rhoa_dataset_halfspace_and_flags():
 
 
 def test_sounding_rhoa_missing_geometry_is_a_clear_error():
-    from tem.rhoa_sounding import sounding_rhoa
+    from tem.rhoa.sounding import sounding_rhoa
 
     ds, sim = _gated("EM01", 0.0, LayeredModel(thickness=[], resistivity=[100.0]),
                      np.random.default_rng(0))
@@ -472,31 +481,33 @@ def test_cli_rhoa_writes_table_files_and_figures(tmp_path, capsys):
         write_dataset(ds, gated / f"{st}.nc")
     (gated / "broken.nc").write_text("not a netCDF file")
     out = tmp_path / "rhoa"
-    code = main(["rhoa", str(gated), "--out", str(out), "--per-decade", "8",
+    code = main(["rhoa", str(gated), "--out", str(out), "--rho-per-decade", "8",
                  "--section-axis", "depth"])
     assert code == 1  # one station failed, the others processed
-    with open(out / "rhoa.csv", newline="") as fh:
+    with open(out / "rhoa" / "rhoa.csv", newline="") as fh:
         rows = list(csv.DictReader(fh))
     assert len(rows) == 3 * 2 * 16
     assert {r["station"] for r in rows} == set(models)
     assert all(r["rhoa_ohmm"] or r["flags"] for r in rows)  # unconverted gates carry a flag
     for st in models:
-        assert (out / f"{st}.nc").is_file()
-        assert (out / "figures" / f"sounding_{st}.png").stat().st_size > 10_000
-    assert (out / "figures" / "pseudosection_dbzdt_depth.png").is_file()
-    assert (out / "figures" / "pseudosection_ex_depth.png").is_file()
-    assert not (out / "broken.nc").exists()
+        assert (out / "rhoa" / f"{st}.nc").is_file()
+        assert (out / "figures" / "stations" / f"{st}_rhoa.png").stat().st_size > 10_000
+    assert (out / "figures" / "pseudosection_dbzdt.png").is_file()
+    assert (out / "figures" / "pseudosection_ex.png").is_file()
+    assert not (out / "rhoa" / "broken.nc").exists()
     # a failing file's error is one line on stderr, however long (rich wrapped it)
     long = gated / ("a_station_file_with_a_long_name_" * 3 + ".nc")
     long.write_text("not a netCDF file")
     capsys.readouterr()
-    assert main(["rhoa", str(long), "--out", str(tmp_path / "r2"), "--late-only",
+    assert main(["rhoa", str(long), "--out", str(tmp_path / "r2"), "--no-all-time",
                  "--no-figures"]) == 1
     err = [ln for ln in capsys.readouterr().err.splitlines() if ln.strip()]
-    assert len(err) == 1 and err[0].startswith("tem rhoa: error: ") and len(err[0]) > 120
+    assert err[0].startswith("tem rhoa: station a_station") and len(err[0]) > 120
+    assert err[1] == "tem rhoa: no station could be converted to apparent resistivity"
     # bad command-line input: exit 2
     assert main(["rhoa", str(tmp_path / "nothing"), "--out", str(out)]) == 2
-    assert main(["rhoa", str(gated), "--out", str(out), "--rho-range", "10", "1"]) == 2
+    assert main(["rhoa", str(gated), "--out", str(out), "--rho-min", "10", "--rho-max", "1"]) == 2
+    assert "--rho-max: must exceed rho_min" in capsys.readouterr().err
 
 
 def test_noise_dominated_gates_do_not_steer_the_branch():
@@ -520,7 +531,7 @@ def test_noise_dominated_gates_do_not_steer_the_branch():
 
 def test_layered_earth_late_gates_read_on_the_late_time_branch():
     """Emberline-like earth (30/500/8/2000 ohm-m), receiver 1.7 km from the wire, 0.25 Hz
-    bipolar waveform as in the demo: the late-time formula (REFERENCE 2.2, valid as u -> 0) and the all-time value
+    bipolar waveform as in the demo: the late-time formula (Spies & Frischknecht 1991, valid as u -> 0) and the all-time value
     agree at the late gates only on the late-time branch; the spurious early-side root
     there is orders of magnitude lower. Smoothness alone picked that root (ln rho varies
     as much along the true branch), the decay-rate term must not."""
@@ -571,8 +582,8 @@ def test_cli_rhoa_all_stations_failing_writes_no_table(tmp_path, capsys):
     src.mkdir()
     xr.Dataset(attrs={"tem_format": "stacked", "format_version": "1.0"}).to_netcdf(
         src / "EM01.nc", engine="h5netcdf")
-    rc = main(["rhoa", str(src), "--out", str(tmp_path / "out"), "--late-only", "--no-figures"])
+    rc = main(["rhoa", str(src), "--out", str(tmp_path / "out"), "--no-all-time", "--no-figures"])
     err = capsys.readouterr().err
     assert rc == 1
     assert "tem_format" in err
-    assert not (tmp_path / "out" / "rhoa.csv").exists()
+    assert not (tmp_path / "out" / "rhoa" / "rhoa.csv").exists()

@@ -1,10 +1,10 @@
 """Tests for tem.section (profile geometry, stitching, pseudo-sections, depth to time)
-and the section figures of tem.plot.
+and the section figures of tem.section.plot.
 
 Sources of the checks:
 * geometry: orthogonal projection of a point on a segment and arc length of a
   polyline (elementary Euclidean geometry, hand computation);
-* stitching: the definition in tem/section.py (the layer holding a depth;
+* stitching: the definition in tem/section/profile.py (the layer holding a depth;
   linear interpolation in log10 resistivity), checked against an independent
   loop over the layers written here;
 * two-way time through interval velocities: t(z) = 2 sum h_i / v_i (vertical
@@ -22,6 +22,9 @@ from tem.errors import TemInputError
 from tem.section import (check_velocity_table, depth_to_twt, layer_values, points_at_chainage,
                          polyline_chainage, pseudo_section_grid, station_line, stitch_grid,
                          stitch_models, twt_to_depth)
+
+# the section settings of the stitching tests (as the section stage passes them)
+PROFILE = {"order": "given", "lateral": "linear", "vertical": "depth"}
 
 
 
@@ -41,7 +44,7 @@ def test_chainage_on_bent_line():
 
 
 def test_points_at_chainage_inverts_projection():
-    lx, ly, _ = station_line(X, Y)
+    lx, ly, _ = station_line(X, Y, "given")
     s = np.array([0.0, 120.0, 500.0, 610.0, 999.0])
     px, py = points_at_chainage(lx, ly, s)
     s2, off = polyline_chainage(px, py, lx, ly)
@@ -60,7 +63,7 @@ def test_principal_order_sorts_shuffled_stations():
 
 def test_unknown_order_and_degenerate_line():
     with pytest.raises(TemInputError, match="order"):
-        station_line(X, Y, order="alphabetical")
+        station_line(X, Y, "alphabetical")
     with pytest.raises(TemInputError, match="line"):
         polyline_chainage(X, Y, [0.0, 0.0], [1.0, 1.0])
 
@@ -78,7 +81,7 @@ def test_layer_values_boundaries_padding_and_negative_depth():
 
 def test_stitch_at_stations_equals_models_and_masks_below_doi():
     m = synthetic_models()
-    g = stitch_models(m, depth_step=5.0, max_depth=450.0)
+    g = stitch_models(m, depth_step=5.0, max_depth=450.0, **PROFILE)
     depth = g["depth"].values
     assert g.sizes["distance"] == 5 and depth[-1] == 450.0
     full = g["log10_resistivity_full"].values
@@ -114,12 +117,12 @@ def test_linear_and_nearest_lateral_interpolation_and_gaps():
     v, _, _ = stitch_grid(s, top, lr, doi, pos, depth, "linear", max_gap=50.0)
     assert np.isnan(v[2]).all() and np.isfinite(v[1]).all() and np.isfinite(v[4]).all()
     with pytest.raises(TemInputError, match="chainage"):
-        stitch_grid(np.array([5.0, 5.0]), top, lr, doi, pos, depth)
+        stitch_grid(np.array([5.0, 5.0]), top, lr, doi, pos, depth, "linear")
 
 
 def test_elevation_section_drapes_models_below_surface():
     m = synthetic_models()
-    g = stitch_models(m, depth_step=2.5, max_depth=300.0, vertical="elevation")
+    g = stitch_models(m, depth_step=2.5, max_depth=300.0, **dict(PROFILE, vertical="elevation"))
     elev = g["elevation"].values
     assert elev[0] == Z.max()
     for i in range(5):
@@ -135,7 +138,7 @@ def test_pseudo_section_log_log_interpolation():
     t = np.logspace(-5, -2, 7)
     r = 100 * (t / 1e-4) ** 0.25
     axis = np.array([3e-6, 2e-5, 4e-4, 9e-3, 2e-2])
-    got = pseudo_section_grid([0.0, 100.0], [t, t], [r, 2 * r], [0.0, 50.0, 100.0], axis)
+    got = pseudo_section_grid([0.0, 100.0], [t, t], [r, 2 * r], [0.0, 50.0, 100.0], axis, "linear")
     want = np.log10(100 * (axis / 1e-4) ** 0.25)
     inside = (axis >= t[0]) & (axis <= t[-1])
     np.testing.assert_allclose(got[0, inside], want[inside], atol=1e-12)
@@ -168,10 +171,11 @@ def test_bad_velocity_tables(depth, vel, field):
 
 # ------------------------------------------------------------------ figures
 def test_section_figure_shows_doi_mask(tmp_path):
-    from tem.plot import save_figure, section_figure
+    from tem.io.figures import save_figure
+    from tem.section.plot import section_figure
 
     m = synthetic_models()
-    g = stitch_models(m, 5.0, positions=np.arange(0.0, 1001.0, 50.0))
+    g = stitch_models(m, 5.0, positions=np.arange(0.0, 1001.0, 50.0), **PROFILE)
     fig = section_figure(g, below_doi="hide")
     mesh = next(a for a in fig.axes[0].collections if a.get_gid() == "resistivity")
     arr = np.ma.asarray(mesh.get_array()).reshape(g.sizes["depth"], g.sizes["distance"])
@@ -181,7 +185,7 @@ def test_section_figure_shows_doi_mask(tmp_path):
     assert {"doi-veil", "doi-line"} <= gids
     assert fig.axes[1].get_ylabel() == "resistivity (ohm-m)"
     assert fig.axes[0].yaxis_inverted()  # depth grows downward
-    files = save_figure(section_figure(g), tmp_path / "sec", ("png", "pdf"))
+    files = save_figure(section_figure(g, below_doi="shade"), tmp_path / "sec", ("png", "pdf"))
     assert [f.suffix for f in files] == [".png", ".pdf"]
     assert files[0].read_bytes()[:8] == b"\x89PNG\r\n\x1a\n" and files[1].read_bytes()[:5] == b"%PDF-"
 
@@ -191,7 +195,7 @@ def test_model_figure_with_huge_std_does_not_overflow():
     # Emberline recording); 10**std overflowed with a RuntimeWarning
     import warnings
 
-    from tem.plot import model_figure
+    from tem.section.plot import model_figure
     m = synthetic_models()
     m["log10_res_std"].values[:, :3] = 565.0
     with warnings.catch_warnings():

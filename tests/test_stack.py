@@ -29,7 +29,7 @@ def tau(n):
 @pytest.mark.parametrize("est", ESTIMATORS)
 @pytest.mark.parametrize("detrend", [True, False])
 def test_offset_and_linear_drift_cancel_exactly(est, detrend):
-    # REFERENCE.md 6.2 (three-window combination kills c0 + c1 t exactly)
+    # three-window combination kills c0 + c1 t exactly (proof in docs/stacking.md section 3)
     n = 60
     d = record(n, 0.7 + 0.03 * tau(n))
     r = stack_windows(d, settings=StackSettings(estimator=est, detrend=detrend))
@@ -38,7 +38,7 @@ def test_offset_and_linear_drift_cancel_exactly(est, detrend):
 
 
 def test_plain_stack_leaves_half_drift():
-    # REFERENCE.md 6.1: plain bipolar stack leaves -c1/2 (c1 = drift per half-period)
+    # plain bipolar stack leaves -c1/2 (c1 = drift per half-period; docs/stacking.md section 3)
     n = 40
     c1 = 2e-5
     drift = c1 * np.repeat(np.arange(n)[:, None], M, axis=1)
@@ -48,9 +48,10 @@ def test_plain_stack_leaves_half_drift():
 
 def test_quadratic_drift_removed_by_detrend():
     # without the baseline each three-window estimate keeps 2 c2 (T/2)^2 / 4 of a quadratic
-    # drift c2 t^2, alternating in sign (REFERENCE.md 6.2); the period-mean baseline is exact
+    # drift c2 t^2, alternating in sign (docs/stacking.md section 3); the period-mean
+    # baseline is exact
     # for quadratic drift (docs/stacking.md), so every estimate is clean
-    from tem.stack import _detrend
+    from tem.stack.stacking import _detrend
     n = 60
     c2 = 1e-3
     d = record(n, c2 * tau(n) ** 2)
@@ -107,7 +108,8 @@ def test_robust_beats_mean_with_spikes():
 
 @pytest.mark.parametrize("mains", [50.0, 60.0])
 def test_mains_alone_rejected_40db(mains):
-    # REFERENCE.md 6.4: f_b = 5 Hz puts 50 and 60 Hz (and harmonics) on nulls; with slowly
+    # gain |sin(Nx)/(N sin x)| derived in docs/stacking.md section 6: f_b = 5 Hz puts 50 and
+    # 60 Hz (and harmonics) on nulls; with slowly
     # drifting amplitude (10 %/min) and phase (0.3 rad/min) the residual must be < -40 dB
     rng = np.random.default_rng(1)
     n = 600                                   # 60 s at f_b = 5 Hz
@@ -123,7 +125,8 @@ def test_mains_alone_rejected_40db(mains):
 
 
 def test_mains_rule_violated_passes_mains():
-    # REFERENCE.md 6.4: 50/f_b odd (f_b = 50/3 Hz, half-period 0.03 s) passes 50 Hz fully
+    # same gain (docs/stacking.md section 6): 50/f_b odd (f_b = 50/3 Hz, half-period 0.03 s)
+    # passes 50 Hz fully
     m = 120
     n = 200
     t = (np.arange(n)[:, None] * m + np.arange(m)[None, :]) / FS
@@ -187,7 +190,7 @@ def _reference_stack(src, s):
     Same method (docs/stacking.md): float64 windows, _detrend per chunk, combine_three,
     pooled median/MAD start, float32 residuals, per-batch psi sums. Only for comparison.
     """
-    from tem.stack import _MAD, _batches, _detrend
+    from tem.stack.stacking import _MAD, _batches, _detrend
 
     def estimates(k0, k1, t_frac):
         pol = src.polarity0 * (1 if k0 % 2 == 0 else -1)
@@ -207,7 +210,7 @@ def _reference_stack(src, s):
     n_est = src.n_windows - 2
     m = src.m
     t_frac = (np.arange(m) + 0.5) / m
-    edges = _batches(n_est, s.n_batches)
+    edges = _batches(n_est, s.batches)
     nb = len(edges) - 1
     per_chunk = max(1, int(s.chunk_bytes // (8 * m)) - 4)
     chunks = [(k0, min(z, k0 + per_chunk), b) for b, (a, z) in enumerate(zip(edges[:-1], edges[1:]))
@@ -353,7 +356,7 @@ def test_compiled_path_matches_numpy_reference_recording(est, tmp_path):
     rec = open_recording(path)
     for detrend in (True, False):
         for chunk in (7 * m * 4, 64 << 20):
-            s = StackSettings(estimator=est, detrend=detrend, chunk_bytes=chunk, n_batches=8,
+            s = StackSettings(estimator=est, detrend=detrend, chunk_bytes=chunk, batches=8,
                               bad_fraction=0.05)
             src = RecordingSource(rec, 37, m, n, polarity0=-1)
             fast = stack_source(src, s)
@@ -375,7 +378,7 @@ def test_compiled_path_matches_numpy_reference_arrays(est):
     clip[[3, 40, 95], [0, 17, 39]] = True
     for mask in (None, clip):
         for detrend in (True, False):
-            s = StackSettings(estimator=est, detrend=detrend, n_batches=5, chunk_bytes=3 * m * 8,
+            s = StackSettings(estimator=est, detrend=detrend, batches=5, chunk_bytes=3 * m * 8,
                               huber_k=1.345, trim=0.15)
             fast = stack_windows(x, polarity0=1, settings=s, clip_mask=mask)
             from tem.stack import ArraySource
@@ -400,8 +403,8 @@ def test_threads_give_identical_results():
     rng = np.random.default_rng(13)
     x = _nasty_counts(120, 32, rng).astype(np.float64)
     for est in ("mean", "huber"):
-        a = stack_windows(x, settings=StackSettings(estimator=est, n_batches=6))
-        b = stack_windows(x, settings=StackSettings(estimator=est, n_batches=6, threads=2))
+        a = stack_windows(x, settings=StackSettings(estimator=est, batches=6))
+        b = stack_windows(x, settings=StackSettings(estimator=est, batches=6, threads=2))
         np.testing.assert_array_equal(a.value, b.value)
         np.testing.assert_array_equal(a.influence, b.influence)
         assert a.counts == b.counts

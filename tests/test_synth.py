@@ -7,10 +7,10 @@ import numpy as np
 import pytest
 
 from tem.cli import main
-from tem.cli.synth import read_models_csv
+from tem.forward.files import read_model_csv
 from tem.errors import TemInputError
 from tem.forward import Simulation
-from tem.gates import gate_stacked
+from tem.gate.windows import gate_stacked
 from tem.io.raw import open_recording, sidecar_path
 from tem.io.stacked import read_product
 from tem.stack import StackSettings, stack_station
@@ -56,7 +56,7 @@ def test_gates_agree_with_engine_truth(day, tmp_path, shape):
     for st in sv.stations:
         chans, timing = stack_station(sv, st, StackSettings())
         ds = stacked_dataset(sv, st, chans, timing, StackSettings(), [])
-        g = gate_stacked(ds, per_decade=9, shape=shape)
+        g = gate_stacked(ds, 9.0, shape, None, None, 2.0)
         for c in range(g.sizes["channel"]):
             u = g["usable"].values[c]
             truth = engine_truth(sv, st, models[st.id], g, c)
@@ -128,10 +128,10 @@ def test_bad_input_one_station_fails_others_processed(day, tmp_path, capsys, kin
     shutil.copytree(d0, d)
     fname, field = _break(kind, d)
     rc = main(["stack", str(d / "survey.toml"), "--out", str(tmp_path / "out"),
-               "--estimator", "mean"])
+               "--estimator", "mean", "--no-figures"])
     err = capsys.readouterr().err
     assert rc == 1
-    lines = [ln for ln in err.splitlines() if "error" in ln]
+    lines = [ln for ln in err.splitlines() if "failed" in ln]
     assert any(fname in ln and field in ln for ln in lines), err
     if kind != "outside":
         assert (tmp_path / "out/stacked/EM08.nc").is_file()
@@ -139,13 +139,12 @@ def test_bad_input_one_station_fails_others_processed(day, tmp_path, capsys, kin
 
 
 def test_cli_chain_writes_contract(tmp_path, capsys):
-    rc = main(["synth", "--emberline", "--out", str(tmp_path), "--stations", "EM06",
+    day = tmp_path / "day"
+    rc = main(["synth", "--emberline", "--out", str(day), "--stations", "EM06",
                "--duration", "60", "--dead", "EM06:ex", "--seed", "2"])
     assert rc == 0
-    assert main(["stack", str(tmp_path / "survey.toml"), "--out", str(tmp_path / "p"),
-                 "--figures"]) == 0
-    assert main(["gate", str(tmp_path / "p/stacked"), "--out", str(tmp_path / "p/gated"),
-                 "--figures"]) == 0
+    assert main(["stack", str(day / "survey.toml"), "--out", str(tmp_path / "p")]) == 0
+    assert main(["gate", str(tmp_path / "p/stacked"), "--out", str(tmp_path / "p")]) == 0
     out = capsys.readouterr().out
     assert "DEAD" in out
     g = read_product(tmp_path / "p/gated/EM06.nc", "gated")
@@ -154,15 +153,17 @@ def test_cli_chain_writes_contract(tmp_path, capsys):
         assert v in g
     assert not g["usable"].values[0].any()          # dead Ex: nothing usable
     assert g.attrs["time_reference"] == "end of switch-off ramp"
-    assert (tmp_path / "p/qc/EM06_raw_vs_stacked.png").is_file()
-    assert (tmp_path / "p/gated/qc/EM06_decay.png").is_file()
-    sv = read_survey(tmp_path / "survey.toml")
+    assert (tmp_path / "p/figures/stations/EM06_raw.png").is_file()
+    assert (tmp_path / "p/figures/stations/EM06_decay.png").is_file()
+    sv = read_survey(day / "survey.toml")
     assert sv.stations[0].id == "EM06"
     # products never go into the survey's folder or a recording folder (raw data read-only)
-    for bad in (tmp_path, tmp_path / "raw" / "EM06" / "x"):
+    for bad in (day, day / "p", day / "raw" / "EM06" / "x"):
         capsys.readouterr()
-        assert main(["stack", str(tmp_path / "survey.toml"), "--out", str(bad)]) == 2
-        assert "out" in capsys.readouterr().err
+        assert main(["stack", str(day / "survey.toml"), "--out", str(bad)]) == 2
+        err = capsys.readouterr().err
+        assert "--out: is or lies inside the input folder" in err and err.count("\n") == 1
+        assert not bad.exists() or bad == day
 
 
 # ---------------------------------------------------------------- bad input to tem synth
@@ -184,28 +185,29 @@ def test_synth_refuses_ignored_or_failing_options_before_writing(tmp_path, kw, f
 
 @pytest.mark.parametrize("rows, field", [
     ("EM01,20,30\nEM01,abc,500\nEM01,,2000\n", "line 3"),       # was a ValueError traceback
-    ("EM01,20,30\nEM01,900,500\n", "line 3"),                   # half-space row missing: was dropped
+    ("EM01,20,30\nEM01,900,500\n", "thickness_m"),              # half-space row missing: was dropped
     ("EM01,20,30\nEM01,,500\nEM01,,2000\n", "thickness_m"),
-    ("EM01,20,nan\nEM01,,2000\n", "station EM01"),
+    ("EM01,20,nan\nEM01,,2000\n", "resistivity"),
 ])
 def test_synth_models_csv_errors_name_file_and_line(tmp_path, rows, field):
     p = tmp_path / "m.csv"
     p.write_text("station,thickness_m,resistivity_ohmm\n" + rows)
     with pytest.raises(TemInputError) as exc:
-        read_models_csv(p)
+        read_model_csv(p)
     assert str(exc.value).startswith(f"{p}: {field}") and "\n" not in str(exc.value)
 
 
 def test_synth_cli_never_writes_into_the_survey_folder(tmp_path, capsys):
-    sv, _ = emberline_survey(base_dir=tmp_path, stations=["EM01"])
-    survey = write_survey(sv, tmp_path / "survey.toml")
+    sdir = tmp_path / "s"
+    sv, _ = emberline_survey(base_dir=sdir, stations=["EM01"])
+    survey = write_survey(sv, sdir / "survey.toml")
     before = survey.read_bytes()
-    m = tmp_path / "m.csv"
+    m = sdir / "m.csv"
     m.write_text("station,thickness_m,resistivity_ohmm\nEM01,20,30\nEM01,,2000\n")
-    rc = main(["synth", str(survey), "--models", str(m), "--out", str(tmp_path),
-               "--duration", "8"])
-    assert rc == 2 and "--out: must not be the survey's folder" in capsys.readouterr().err
-    assert survey.read_bytes() == before and not (tmp_path / "raw").exists()
+    for bad in (sdir, sdir / "day2"):
+        rc = main(["synth", str(survey), "--models", str(m), "--out", str(bad), "--duration", "8"])
+        assert rc == 2 and "--out: is or lies inside the input folder" in capsys.readouterr().err
+    assert survey.read_bytes() == before and not (sdir / "raw").exists()
     # a missing model leaves no survey.toml behind in --out
     m.write_text("station,thickness_m,resistivity_ohmm\nEM09,20,30\nEM09,,2000\n")
     rc = main(["synth", str(survey), "--models", str(m), "--out", str(tmp_path / "o"),

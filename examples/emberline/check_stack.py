@@ -19,7 +19,7 @@ from pathlib import Path
 import numpy as np
 
 from tem.forward import Simulation
-from tem.gates import gate_stacked
+from tem.gate.windows import gate_stacked
 from tem.io.stacked import stacked_dataset
 from tem.stack import StackSettings, stack_station
 from tem.synth import (emberline_survey, forward_receiver, forward_source, survey_waveform,
@@ -53,7 +53,7 @@ def main():
                 if est != "huber":
                     continue
                 ds = stacked_dataset(sv, st, chans, timing, StackSettings(), [])
-                g = gate_stacked(ds, shape=args.shape)
+                g = gate_stacked(ds, 9.0, args.shape, None, None, 2.0)
                 for ci, c in enumerate(chans):
                     u = g["usable"].values[ci]
                     if not u.any():

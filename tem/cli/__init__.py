@@ -7,16 +7,20 @@ prints one line and exits with status 2.
 from __future__ import annotations
 
 import argparse
+import errno
 import importlib
 import pkgutil
+import signal
 import sys
+import threading
 
 from .. import SAFETY_NOTE, __version__
-from ..errors import TemInputError
+from ..errors import TemInputError, TemOutputError
 
 __all__ = ["main", "build_parser"]
 
-_ORDER = ["forward", "synth", "stack", "gate", "rhoa", "invert", "section", "export", "run", "demo"]
+_ORDER = ["forward", "synth", "stack", "gate", "rhoa", "invert", "section", "export", "report",
+          "run", "demo"]
 
 
 def _command_modules():
@@ -43,7 +47,21 @@ def build_parser() -> argparse.ArgumentParser:
     return parser
 
 
+def _terminated(signum, frame):
+    raise SystemExit(128 + signum)
+
+
+def _errno_name(exc: OSError) -> str:
+    return errno.errorcode.get(exc.errno or 0, type(exc).__name__)
+
+
 def main(argv=None) -> int:
+    # a file-size limit then fails a write (EFBIG, one error line) instead of killing the process
+    if hasattr(signal, "SIGXFSZ"):
+        signal.signal(signal.SIGXFSZ, signal.SIG_IGN)
+    # SIGTERM ends the command like Ctrl-C: locks released, temporaries removed, workers stopped
+    if threading.current_thread() is threading.main_thread():
+        signal.signal(signal.SIGTERM, _terminated)
     parser = build_parser()
     args = parser.parse_args(argv)
     if not getattr(args, "_run", None):
@@ -54,6 +72,17 @@ def main(argv=None) -> int:
     except TemInputError as exc:
         print(f"tem {args.command}: error: {exc}", file=sys.stderr)
         return 2
+    except TemOutputError as exc:
+        print(f"tem {args.command}: error: {exc.strerror}", file=sys.stderr)
+        return 1
+    except OSError as exc:
+        if exc.errno not in (errno.ENOSPC, errno.EFBIG, errno.EIO, errno.EDQUOT, errno.EROFS,
+                             errno.EACCES):
+            raise
+        where = f"{exc.filename}: " if exc.filename else ""
+        print(f"tem {args.command}: error: {where}cannot write: {exc.strerror or _errno_name(exc)}",
+              file=sys.stderr)
+        return 1
     except KeyboardInterrupt:  # pragma: no cover
         print("tem: interrupted", file=sys.stderr)
         return 130

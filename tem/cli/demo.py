@@ -4,6 +4,8 @@ from __future__ import annotations
 import time
 from pathlib import Path
 
+from . import common
+
 HELP = "synthesise the fictional Emberline Plateau survey and run the whole chain on it"
 
 #: Seconds recorded per station in the demo (the scenario records 15 min; shortened for speed).
@@ -59,9 +61,7 @@ def add_parser(sub):
                    help=f"seconds recorded per station (default {DEMO_DURATION:g}; the scenario "
                    "day has 900)")
     p.add_argument("--seed", type=int, default=2025, help="random seed (default 2025)")
-    p.add_argument("--jobs", type=int, default=None, metavar="N",
-                   help="worker processes (default: CPUs, at most 8)")
-    p.add_argument("--no-progress", action="store_true", help="do not draw progress bars")
+    common.add_run_options(p)
     return p
 
 
@@ -94,7 +94,7 @@ def run(args) -> int:
 
     from ..errors import input_error
     from ..pipeline import run_pipeline
-    from .run import default_jobs, print_summary
+    from .run import print_summary
 
     if not args.duration >= 20.0:
         raise input_error("--duration", f"needs at least 20 s of recording, got {args.duration:g}")
@@ -104,14 +104,13 @@ def run(args) -> int:
     err.print(f"Emberline Plateau (fictional): 12 stations, {args.duration:g} s of recording each "
               "(the scenario records 15 min per station; shortened so the demo runs in minutes), "
               "one noisy station (EM09) and one dead channel (EM04 ex).", highlight=False)
-    with Progress(console=err, disable=args.no_progress) as prog:
+    with Progress(console=err, disable=not args.progress) as prog:
         task = prog.add_task("synthesise raw day", total=12)
         survey_file = write_demo_survey(out / "raw", args.duration, args.seed,
                                         progress=lambda i, n: prog.update(task, completed=i))
     t_synth = time.perf_counter() - t0
-    jobs = default_jobs() if args.jobs is None else args.jobs
-    outcome = run_pipeline(survey_file, out / "project", jobs=jobs, console=err,
-                           progress=not args.no_progress)
+    outcome = run_pipeline(survey_file, out / "project", jobs=args.jobs or common.default_jobs(),
+                           console=err, progress=args.progress, figures=args.figures)
     console = Console()
     print_summary(outcome, console)
     p = outcome.project

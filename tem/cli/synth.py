@@ -1,7 +1,6 @@
 """tem synth: a realistic raw field day from a survey and layered models (seeded)."""
 from __future__ import annotations
 
-import csv
 from pathlib import Path
 
 from ..errors import input_error
@@ -17,8 +16,10 @@ def add_parser(sub):
     p.add_argument("--seed", type=int, default=0, help="random seed (default 0)")
     p.add_argument("--duration", type=float, default=900.0, metavar="S",
                    help="seconds recorded per station (default 900)")
-    p.add_argument("--models", metavar="CSV", help="models per station: CSV with columns "
-                   "station,thickness_m,resistivity_ohmm (half-space last, empty thickness)")
+    p.add_argument("--models", metavar="CSV", help="layered models: CSV with columns "
+                   "station,thickness_m,resistivity_ohmm (half-space last with an empty "
+                   "thickness; without a station column one model for every station), the "
+                   "format of 'tem forward'")
     p.add_argument("--emberline", action="store_true",
                    help="use the built-in Emberline Plateau scenario (survey and models); "
                    "the survey is written to DIR/survey.toml")
@@ -26,47 +27,6 @@ def add_parser(sub):
     p.add_argument("--dead", metavar="ID:COMPONENT", help="channel that records nothing")
     p.add_argument("--stations", metavar="IDS", help="comma-separated subset of stations")
     return p
-
-
-def read_models_csv(path):
-    """Layered models per station from ``station,thickness_m,resistivity_ohmm`` rows
-    (half-space last, with an empty thickness); errors name the file and the line."""
-    from ..forward import LayeredModel
-    path = Path(path)
-    if not path.is_file():
-        raise input_error("models", "file not found", path)
-    rows, last_line = {}, {}
-    try:
-        with open(path, newline="", encoding="utf-8") as fh:
-            for k, row in enumerate(csv.DictReader(ln for ln in fh if not ln.startswith("#")),
-                                    start=2):
-                try:
-                    sid = row["station"].strip()
-                    th = row["thickness_m"].strip()
-                    rows.setdefault(sid, []).append((float(th) if th else None,
-                                                     float(row["resistivity_ohmm"])))
-                except (KeyError, AttributeError, TypeError, ValueError):
-                    raise input_error(f"line {k}", "needs station,thickness_m,resistivity_ohmm "
-                                      "(numbers)", path) from None
-                last_line[sid] = k
-    except UnicodeDecodeError:
-        raise input_error("models", "not a UTF-8 text file", path) from None
-    if not rows:
-        raise input_error("models", "no layers", path)
-    out = {}
-    for sid, layers in rows.items():
-        if layers[-1][0] is not None:
-            raise input_error(f"line {last_line[sid]}", f"station {sid}: the last row (half-space) "
-                              "must have an empty thickness", path)
-        if any(t is None for t, _ in layers[:-1]):
-            raise input_error("thickness_m", f"station {sid}: only the last row (half-space) may "
-                              "have an empty thickness", path)
-        try:
-            out[sid] = LayeredModel(thickness=[t for t, _ in layers[:-1]],
-                                    resistivity=[r for _, r in layers])
-        except ValueError as exc:
-            raise input_error(f"station {sid}", str(exc), path) from None
-    return out
 
 
 def _dead_channel(text):
@@ -81,6 +41,8 @@ def _dead_channel(text):
 def run(args) -> int:
     from rich.progress import Progress
 
+    from ..forward.files import read_model_csv
+    from ..io.project import check_output
     from ..survey import read_survey, replace, write_survey
     from ..synth import emberline_survey, synth_survey
     out = Path(args.out)
@@ -92,9 +54,10 @@ def run(args) -> int:
         if not args.survey:
             raise input_error("survey", "give a survey TOML or --emberline")
         src = read_survey(args.survey)
-        if out.resolve() == Path(args.survey).resolve().parent:
-            raise input_error("--out", "must not be the survey's folder (its recordings would be "
-                              "overwritten)", out)
+        inputs = [Path(args.survey)] + ([Path(args.models)] if args.models else [])
+        planned = ["survey.toml"] + [f for st in src.stations for r in st.receivers for f in r.files]
+        check_output(out, ["synth"], inputs=inputs, read_only=[Path(args.survey).parent],
+                     planned=planned)
         if subset:
             unknown = [s for s in subset if s not in {st.id for st in src.stations}]
             if unknown:
@@ -105,8 +68,9 @@ def run(args) -> int:
             survey = replace(survey, stations=[s for s in survey.stations if s.id in subset])
         if not args.models:
             raise input_error("models", "give --models CSV (or use --emberline)")
-        models = read_models_csv(args.models)
-        missing = [st.id for st in survey.stations if st.id not in models]
+        given = read_model_csv(args.models)
+        models = {st.id: given.get(st.id, given.get("*")) for st in survey.stations}
+        missing = [sid for sid, m in models.items() if m is None]
         if missing:
             raise input_error("station", f"no rows for station {', '.join(missing)}", args.models)
     with Progress(transient=True) as prog:

@@ -1,8 +1,11 @@
-"""Build the forward simulation that matches a gated-sounding Dataset.
+"""The one converter from survey descriptions and gated soundings to forward objects.
 
-The gated file (docs/data-model.md) stores the transmitter, receivers,
+A gated file (docs/data-model.md) stores the transmitter, receivers,
 waveform, gate windows and receiver filter; the forward model must average
-and filter the same way, so it is rebuilt from exactly those attributes.
+and filter the same way, so it is rebuilt from exactly those attributes
+(:func:`simulation_from_sounding`). A survey (tem.survey) is converted by
+:func:`survey_source`, :func:`survey_receiver`, :func:`survey_waveform` and
+:func:`survey_lowpass`; both paths share the same builders.
 """
 from __future__ import annotations
 
@@ -11,7 +14,33 @@ import numpy as np
 from ..errors import TemInputError, input_error
 
 __all__ = ["source_from_attrs", "receivers_from_sounding", "waveform_from_attrs",
-           "simulation_from_sounding"]
+           "simulation_from_sounding", "survey_source", "survey_receiver", "survey_waveform",
+           "survey_lowpass"]
+
+
+def survey_source(tx, source=None):
+    """Forward source (Wire or PolygonLoop) of a survey's :class:`tem.survey.Transmitter`."""
+    return source_from_attrs({"tx_kind": tx.kind, "tx_points": np.ravel(tx.points).tolist()}, source)
+
+
+def survey_receiver(rx, station):
+    """Forward receiver of a survey channel: its E dipole, or the station point for a coil."""
+    from .geometry import Receiver
+
+    if rx.dipole is not None:
+        return Receiver(rx.component, dipole=rx.dipole)
+    return Receiver(rx.component, (station.x, station.y))
+
+
+def survey_waveform(tx, source=None):
+    """Periodic bipolar waveform of a survey's transmitter (base frequency, duty, ramps)."""
+    return waveform_from_attrs({"base_frequency": tx.base_frequency, "duty_cycle": tx.duty_cycle,
+                                "ramp_on": tx.ramp_on, "ramp_off": tx.ramp_off}, source)
+
+
+def survey_lowpass(survey):
+    """Receiver low-pass ``(order, cutoff Hz)`` of a survey, or None."""
+    return (survey.lowpass_order, survey.lowpass_cutoff) if survey.lowpass_order > 0 else None
 
 
 def source_from_attrs(attrs, source=None):

@@ -59,7 +59,7 @@ def lateral_roughness(n_stations: int, n_layers: int, positions=None) -> sparse.
     return sparse.csr_matrix((vals, (rows, cols)), shape=(r, S * M))
 
 
-def lci_operator(n_stations, n_layers, lateral_weight=1.0, positions=None):
+def lci_operator(n_stations, n_layers, lateral_weight, positions=None):
     """Stacked sparse regularisation operator ``[R_v; sqrt(lam) R_l]``."""
     Rv = sparse.block_diag([sparse.csr_matrix(roughness_matrix(n_layers))] * n_stations,
                            format="csr")
@@ -92,8 +92,8 @@ class LCIResult:
     history: list = field(default_factory=list)
 
 
-def lci(fwds, d_obs, std, m0, *, positions=None, lateral_weight=1.0, predicts=None,
-        target=1.0, max_iter=20, callback=None) -> LCIResult:
+def lci(fwds, d_obs, std, m0, *, lateral_weight, target, max_iter, positions=None, predicts=None,
+        callback=None) -> LCIResult:
     """Joint smooth inversion of all stations with lateral constraints.
 
     Parameters

@@ -1,30 +1,16 @@
 """Inversion figures: data and response with normalised residuals; model with
-DOI and uncertainty band; a profile section of 1D models.
+DOI and uncertainty band.
 
 Object API only (``matplotlib.figure.Figure`` + ``FigureCanvasAgg``); no
 pyplot state.
 """
 from __future__ import annotations
 
-from pathlib import Path
-
 import numpy as np
 
-__all__ = ["station_figure", "section_figure", "save_figure"]
+__all__ = ["station_figure"]
 
 _COLOURS = ("#1b6ca8", "#c0392b", "#2e8b57", "#8e44ad", "#d35400", "#34495e")
-
-
-def save_figure(fig, path, dpi=130):
-    """Render with the Agg canvas and write atomically (PNG by suffix)."""
-    from matplotlib.backends.backend_agg import FigureCanvasAgg
-
-    from ..io.atomic import atomic_path
-
-    FigureCanvasAgg(fig)
-    with atomic_path(path) as tmp:
-        fig.savefig(tmp, dpi=dpi, format=Path(path).suffix.lstrip(".") or "png")
-    return Path(path)
 
 
 def _steps(top, values, z_max):
@@ -36,7 +22,7 @@ def _steps(top, values, z_max):
     return v, z
 
 
-def station_figure(result, kind="smooth", true_model=None):
+def station_figure(result, kind, true_model=None):
     """Figure of one station's fit and model.
 
     Parameters
@@ -120,47 +106,4 @@ def station_figure(result, kind="smooth", true_model=None):
     ax_m.set_title(f"model, DOI = {result.doi:.0f} m")
     ax_m.legend(fontsize=7, loc="lower left")
     ax_m.grid(True, which="both", alpha=0.25)
-    return fig
-
-
-def section_figure(x, thickness, log_rho, doi, title="", true_depth=None, picks=None,
-                   z_max=None, cmap="RdYlBu"):
-    """Resistivity section of 1D models on a shared mesh.
-
-    Parameters
-    ----------
-    x : (S,) m; thickness : (M-1,) m; log_rho : (S, M) ln(ohm-m); doi : (S,) m
-    true_depth, picks : optional (S,) m, drawn as lines (true) and markers (picked).
-    cmap : str
-        Colour map; low resistivity in warm colours (``RdYlBu`` runs red to blue).
-    """
-    from matplotlib.colors import LogNorm
-    from matplotlib.figure import Figure
-
-    x = np.asarray(x, float)
-    top = np.concatenate([[0.0], np.cumsum(thickness)])
-    z_max = z_max or float(np.nanmax(doi)) * 1.3
-    bottom = np.append(top[1:], max(z_max, top[-1] * 1.1))
-    dx = np.median(np.diff(x)) if x.size > 1 else 1000.0
-    xe = np.concatenate([x - dx / 2, [x[-1] + dx / 2]])
-    ze = np.concatenate([top, [bottom[-1]]])
-    fig = Figure(figsize=(10, 4.8), layout="constrained")
-    ax = fig.add_subplot()
-    rho = np.exp(np.asarray(log_rho, float))
-    pc = ax.pcolormesh(xe, ze, rho.T, cmap=cmap, norm=LogNorm(vmin=max(rho.min(), 1e-2),
-                                                                vmax=min(rho.max(), 1e6)))
-    for i in range(x.size):   # shade below the DOI
-        ax.fill_between([xe[i], xe[i + 1]], doi[i], ze[-1], color="white", alpha=0.55, lw=0)
-    ax.plot(x, doi, "k:", lw=1.0, label="DOI")
-    if true_depth is not None:
-        ax.plot(x, true_depth, "k--", lw=1.2, label="true top of sediments")
-    if picks is not None:
-        ax.plot(x, picks, "kv", ms=5, label="picked top of sediments")
-    ax.set_ylim(min(z_max, ze[-1]), 0)
-    ax.set_xlabel("x (m, east)")
-    ax.set_ylabel("depth (m)")
-    ax.set_title(title)
-    ax.legend(fontsize=8, loc="lower left")
-    cb = fig.colorbar(pc, ax=ax)
-    cb.set_label("resistivity (ohm-m)")
     return fig

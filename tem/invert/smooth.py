@@ -70,7 +70,7 @@ def roughness_matrix(n: int, weights=None) -> np.ndarray:
 
 
 def diffusion_depth(rho, t):
-    """Diffusion depth ``sqrt(2 t rho / mu0)`` in m (REFERENCE.md section 3).
+    """Diffusion depth ``sqrt(2 t rho / mu0)`` in m (Ward & Hohmann 1988, from memory).
 
     Parameters
     ----------
@@ -112,7 +112,7 @@ def best_halfspace(predict_uniform, d_obs, std, rho_range=(0.1, 1e5)):
 
     ``predict_uniform(ln_rho) -> d`` predicts the data of a uniform earth.
     The grid (4 points a decade) guards against the two-branch ambiguity of
-    early-time E-field data (REFERENCE.md 2.3); the best grid point is then
+    early-time E-field data (Spies & Eggers 1986); the best grid point is then
     refined with a bounded scalar search.
     """
     from scipy.optimize import minimize_scalar
@@ -261,7 +261,7 @@ def _mu_search(chi2_true, chi2_lin, mu_grid, target, chi2_now):
 
 
 def occam(fwd, d_obs, std, m0, R=None, *, predict=None, m_ref=None, ref_weight=0.0,
-          target=1.0, max_iter=20, mu0=None, decades=3.0, per_decade=4.0,
+          target, max_iter, mu0=None, decades=3.0, per_decade=4.0,
           bounds=(LN_RHO_MIN, LN_RHO_MAX), tol=0.01, misfit_drop=0.3,
           callback=None) -> OccamResult:
     """Occam inversion (Constable, Parker & Constable 1987).

@@ -2,7 +2,7 @@
 optionally a few-layer model with linearised uncertainty.
 
 Pure computation on a :class:`tem.invert.data.StationData`; files and progress
-live in :mod:`tem.cli.invert` and :mod:`tem.invert.batch`.
+live in :mod:`tem.invert.stage`.
 """
 from __future__ import annotations
 
@@ -12,81 +12,11 @@ import numpy as np
 
 from .doi import cumulative_sensitivity_doi, two_reference_doi
 from .fewlayer import FewLayerResult, Prior, fewlayer_inversion, starting_models
+from .settings import InversionSettings
 from .smooth import best_halfspace, chi2_per_datum, diffusion_depth, log_mesh, occam, roughness_matrix
 
 __all__ = ["InversionSettings", "StationResult", "mesh_for", "smooth_station", "invert_station",
            "smooth_posterior_std"]
-
-
-@dataclass(frozen=True)
-class InversionSettings:
-    """Settings of a station inversion (all explicit; no module globals).
-
-    Parameters
-    ----------
-    n_layers : int
-        Layers of the smooth mesh including the half-space (>= 30 recommended).
-    depth_min_factor, depth_max_factor : float
-        First-layer thickness and top of the mesh half-space as fractions of
-        the diffusion depth (REFERENCE.md 3) of the best half-space at the
-        earliest and latest usable gate (0.02 and 0.3; chosen here so that
-        a 20 m top layer and a 5-10 km deep target fit one 30-layer mesh;
-        no source).
-    offset_factor : float
-        The mesh reaches at least this many transmitter-receiver offsets
-        (1.5; rule of thumb, no source).
-    depth_min, depth_max : float or None, m
-        Explicit mesh limits (override the factors).
-    target : float
-        Target chi-square per datum.
-    max_iter : int
-        Occam iterations.
-    ref_resistivity : float or None, ohm-m
-        Reference model (uniform); None = the best half-space.
-    ref_weight : float
-        Weight of ``||m - m_ref||^2`` relative to the roughness (0 = off).
-        Default 0.01: a weak pull towards the reference keeps layers the
-        data barely see from running away to extreme values (seen on
-        Emberline stations without it; common practice, no source).
-    doi_method : {"sensitivity", "two-reference"}
-    doi_threshold : float
-        Cumulative-sensitivity threshold (0.8, from memory) or the
-        two-reference cut-off (0.2, from memory).
-    few_layers : int or None
-        Number of layers (2-7, half-space included) of the few-layer model; None = none.
-    start_resistivity, start_thickness : sequences or None
-        User's few-layer starting model (else blocks of the smooth model).
-    priors : tuple of Prior
-        Priors / fixed values of the few-layer model.
-    """
-
-    n_layers: int = 30
-    depth_min_factor: float = 0.02
-    depth_max_factor: float = 0.3
-    offset_factor: float = 1.5
-    depth_min: float | None = None
-    depth_max: float | None = None
-    target: float = 1.0
-    max_iter: int = 20
-    ref_resistivity: float | None = None
-    ref_weight: float = 0.01
-    doi_method: str = "sensitivity"
-    doi_threshold: float | None = None
-    few_layers: int | None = None
-    start_resistivity: tuple | None = None
-    start_thickness: tuple | None = None
-    priors: tuple = ()
-    lm_max_iter: int = 50
-
-    def __post_init__(self):
-        if self.n_layers < 2:
-            raise ValueError("n_layers: need at least 2")
-        if self.doi_method not in ("sensitivity", "two-reference"):
-            raise ValueError("doi_method: valid: sensitivity, two-reference")
-        if self.few_layers is not None and not 2 <= self.few_layers <= 7:
-            raise ValueError("few_layers: must be 2..7 (half-space included)")
-        if self.target <= 0:
-            raise ValueError("target: chi-square target must be positive")
 
 
 @dataclass
@@ -145,14 +75,14 @@ def mesh_depths(rho_hs, t_min, t_max, offset, settings: InversionSettings):
     zmin = settings.depth_min or settings.depth_min_factor * diffusion_depth(rho_hs, t_min)
     zmax = settings.depth_max or max(settings.depth_max_factor * diffusion_depth(rho_hs, t_max),
                                      settings.offset_factor * offset)
-    return zmin, max(zmax, 3 * zmin * settings.n_layers)
+    return zmin, max(zmax, 3 * zmin * settings.layers)
 
 
 def mesh_for(sd, rho_hs, settings: InversionSettings):
     """Layer thicknesses (m) of the smooth mesh for this station's data."""
     t = sd.gate_centre[np.unique(np.nonzero(sd.mask)[1])]
     zmin, zmax = mesh_depths(rho_hs, t.min(), t.max(), source_offset(sd), settings)
-    return log_mesh(settings.n_layers, zmin, zmax)
+    return log_mesh(settings.layers, zmin, zmax)
 
 
 def _problem(sd, h):
@@ -305,7 +235,7 @@ def invert_station(sd, settings: InversionSettings = InversionSettings(), callba
         halfspace=rho_hs, d_obs=sd.d_obs, std=sd.std, d_pred=res.d_pred, component=sd.component,
         channel=sd.channel, times=sd.gate_centre[np.nonzero(sd.mask)[1]], mu=res.mu,
         converged=res.converged, message=res.message, history=res.history)
-    if settings.few_layers is not None or settings.start_resistivity is not None:
+    if settings.kind == "few-layer":
         out.few = fewlayer_station(sd, settings, res.m, h, doi)
     return out
 
@@ -357,10 +287,10 @@ def lci_mesh(sds, settings: InversionSettings = InversionSettings()):
     tmin = min(s.gate_centre[np.unique(np.nonzero(s.mask)[1])].min() for s in sds)
     tmax = max(s.gate_centre[np.unique(np.nonzero(s.mask)[1])].max() for s in sds)
     offset = float(np.median([source_offset(s) for s in sds]))
-    return log_mesh(settings.n_layers, *mesh_depths(rho_med, tmin, tmax, offset, settings)), rho_hs
+    return log_mesh(settings.layers, *mesh_depths(rho_med, tmin, tmax, offset, settings)), rho_hs
 
 
-def lci_profile(sds, settings: InversionSettings = InversionSettings(), lateral_weight=1.0,
+def lci_profile(sds, settings: InversionSettings = InversionSettings(),
                 callback=None, m0=None, mesh=None):
     """Laterally constrained smooth inversion of a profile of stations.
 
@@ -397,7 +327,7 @@ def lci_profile(sds, settings: InversionSettings = InversionSettings(), lateral_
     p_all = np.concatenate([p[1](m) for p, m in zip(problems, m0)])
     target = max(settings.target, chi2_per_datum(d_all, p_all, s_all))
     res = lci([p[0] for p in problems], [sd.d_obs for sd in sds], [sd.std for sd in sds], m0,
-              positions=pos, lateral_weight=lateral_weight, predicts=[p[1] for p in problems],
+              positions=pos, lateral_weight=settings.lateral_weight, predicts=[p[1] for p in problems],
               target=target, max_iter=settings.max_iter, callback=callback)
     thr = 0.8 if settings.doi_threshold is None else settings.doi_threshold
     R = roughness_matrix(M)

@@ -48,18 +48,18 @@ def emberline_gates(n_gates=31, t_first=1e-3, t_last=1.0):
     return edges[:-1], edges[1:]
 
 
-def emberline_simulation(x, components=("ex", "dbzdt"), gates=None, response="waveform"):
-    """Forward simulation of one station (per ampere)."""
+def emberline_simulation(x, components=("ex", "dbzdt"), gates=None, waveform=True):
+    """Forward simulation of one station (per ampere): the Emberline waveform, or a step-off."""
     from ..forward import Receiver, Simulation, Waveform, Wire
     e = EMBERLINE
     gates = emberline_gates() if gates is None else gates
     rx = [Receiver(c, (float(x), 0.0)) for c in components]
     src = Wire(a=e["wire"][0], b=e["wire"][1])
-    if response == "waveform":
+    if waveform:
         wf = Waveform.bipolar(base_frequency=e["base_frequency"], duty_cycle=e["duty_cycle"],
                               ramp_on=e["ramp_on"], ramp_off=e["ramp_off"])
         return Simulation(src, rx, gates=gates, gate_shape="boxcar", waveform=wf)
-    return Simulation(src, rx, gates=gates, gate_shape="boxcar", response=response)
+    return Simulation(src, rx, gates=gates, gate_shape="boxcar", response="step-off")
 
 
 def gated_dataset(station, x, y, value, error, components, gates, usable=None, waveform=True):
@@ -122,7 +122,7 @@ def emberline_station(x, noise=0.03, seed=0, components=("ex", "dbzdt"), gates=N
     return noisy, rel * np.abs(d), sim, model
 
 
-def lci_vs_stitched(xs=None, n_gates=31, noise=0.03, seed=100, lateral_weight=1.0, settings=None,
+def lci_vs_stitched(xs=None, n_gates=31, noise=0.03, seed=100, settings=None,
                     progress=None):
     """Laterally constrained vs stitched independent smooth inversions on the Emberline profile.
 
@@ -165,7 +165,7 @@ def lci_vs_stitched(xs=None, n_gates=31, noise=0.03, seed=100, lateral_weight=1.
             progress({"station": sd.station, "chi2": ind[-1].chi2})
     t_ind = time.perf_counter() - t0
     t0 = time.perf_counter()
-    lres = lci_profile(sds, settings, lateral_weight=lateral_weight, callback=progress,
+    lres = lci_profile(sds, settings, callback=progress,
                        m0=np.array([r.m for r in ind]), mesh=h)
     t_lci = time.perf_counter() - t0
     true = e["top"][0] + basalt_thickness(xs)

@@ -19,6 +19,7 @@ from .. import __version__
 from ..errors import input_error
 from ..provenance import records_from_json, records_to_json, stage_record
 from .atomic import atomic_path
+from .netcdf import write_netcdf
 
 __all__ = [
     "FORMAT",
@@ -194,8 +195,7 @@ def write_models(ds, path, record=None):
         records.append(record)
     out.attrs["provenance"] = records_to_json(records)
     out.attrs["tem_version"] = __version__
-    with atomic_path(path, suffix=".nc") as tmp:
-        out.to_netcdf(tmp, engine="h5netcdf")
+    write_netcdf(out, path)
     return Path(path)
 
 
@@ -259,7 +259,7 @@ def write_models_csv(ds, path):
     numbers with full float precision.
     """
     rows = layer_rows(ds)
-    with atomic_path(path, suffix=".csv") as tmp:
+    with atomic_path(path) as tmp:
         with open(tmp, "w", newline="", encoding="utf-8") as fh:
             w = csv.DictWriter(fh, fieldnames=CSV_COLUMNS)
             w.writeheader()

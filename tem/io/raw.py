@@ -238,7 +238,8 @@ def write_npy_recording(path, counts, header: RawHeader) -> Path:
         raise ValueError("counts: must be a 1-D int32 or float32 array")
     path = Path(path)
     with atomic_path(path) as tmp:
-        np.save(tmp, counts, allow_pickle=False)
+        with open(tmp, "wb") as fh:      # a file object: np.save would append .npy to a name
+            np.save(fh, counts, allow_pickle=False)
     _write_sidecar(sidecar_path(path), header)
     return path
 

@@ -13,7 +13,7 @@ from pathlib import Path
 from .. import __version__
 from ..errors import input_error
 from ..provenance import records_to_json
-from .atomic import atomic_path
+from .netcdf import write_netcdf
 
 __all__ = ["FORMAT", "FORMAT_VERSION", "write_section_grid", "read_section_grid"]
 
@@ -41,8 +41,7 @@ def write_section_grid(grid, path, records=()):
         "tem_version": __version__,
         "provenance": records_to_json(list(records)),
     })
-    with atomic_path(path, suffix=".nc") as tmp:
-        out.to_netcdf(tmp, engine="h5netcdf")
+    write_netcdf(out, path)
     return Path(path)
 
 

@@ -16,9 +16,9 @@ import xarray as xr
 from .. import __version__
 from ..errors import input_error
 from ..provenance import records_from_json, records_to_json
-from .atomic import atomic_path
+from .netcdf import write_netcdf
 
-__all__ = ["stacked_dataset", "write_dataset", "read_product", "gated_dataset", "result_from_dataset",
+__all__ = ["stacked_dataset", "write_dataset", "read_product", "gated_dataset",
            "COUNT_FIELDS"]
 
 COUNT_FIELDS = ("transients_total", "transients_used", "rejected_noisy", "rejected_bad_samples",
@@ -115,10 +115,7 @@ def gated_dataset(stacked: xr.Dataset, table, value, error, usable, noise_floor,
 
 def write_dataset(ds: xr.Dataset, path) -> Path:
     """Write a product Dataset atomically (netCDF4 via h5netcdf)."""
-    path = Path(path)
-    with atomic_path(path, suffix=".nc") as tmp:
-        ds.to_netcdf(tmp, engine="h5netcdf")
-    return path
+    return write_netcdf(ds, path)
 
 
 def read_product(path, fmt: str) -> xr.Dataset:
@@ -135,16 +132,6 @@ def read_product(path, fmt: str) -> xr.Dataset:
     if str(ds.attrs.get("format_version", "")).split(".")[0] != _MAJOR:
         raise input_error("format_version", f"{ds.attrs.get('format_version')!r} not supported", path)
     return ds
-
-
-def result_from_dataset(ds: xr.Dataset, channel: int):
-    """:class:`tem.stack.StackResult` of one channel of a stacked Dataset."""
-    from ..stack import StackResult
-    counts = {f: int(ds[f].values[channel]) for f in COUNT_FIELDS if f in ds}
-    return StackResult(value=ds["value"].values[channel], error=ds["error"].values[channel],
-                       influence=ds["influence"].values[channel],
-                       n_used=ds["n_used"].values[channel], scale=ds["scale"].values[channel],
-                       counts=counts)
 
 
 def provenance_of(ds) -> list:

@@ -1,11 +1,16 @@
 """The chain over a project folder: run stages in order, record them in ``run.json``.
 
-:func:`run_pipeline` reads the survey and its ``[processing]`` table, runs the
-stages from the first (or from ``from_stage``, reusing the earlier stages'
-files and records), writes ``run.json`` after every stage (atomically) and
-returns the run record and an exit status: 0 when every station passed every
-stage, 1 when a station or a profile step failed. Bad input raises
-:class:`tem.errors.TemInputError` (the CLI exits 2).
+:func:`run_pipeline` reads the survey and its ``[processing]`` table, takes the
+project's lock (one writer at a time; temporaries of an interrupted run are
+removed), and runs the stages through each stage's one door
+(``tem.<stage>.stage.run``) from the first or from ``from_stage``, on a local
+process pool or a dask.distributed cluster. A rerun reuses every product whose
+inputs and settings are unchanged (:mod:`tem.pipeline.resume`). ``run.json`` is
+written after every stage (atomically); products an earlier run left that this
+run did not make are removed. Returns the run record and an exit status: 0
+when every station passed every stage, 1 when a station or a profile step
+failed. Bad input raises :class:`tem.errors.TemInputError` (the CLI exits 2),
+a failed write :class:`tem.errors.TemOutputError` (exit 1).
 """
 from __future__ import annotations
 
@@ -19,24 +24,34 @@ from pathlib import Path
 
 from .. import __version__
 from ..errors import input_error
-from ..provenance import file_sha256, stage_record
-from .params import STAGES, read_processing, resolve_parameters
-from .products import stage_export, stage_report, stage_section
-from .project import Project, StageContext, process_pool
-from .stations import stage_gate, stage_invert, stage_rhoa, stage_stack
+from ..io.project import Project, ProjectLock, check_output
+from ..provenance import stage_record
+from ..runtime import StageContext, StationOutcome, process_pool
+from .resume import Checksums, changed_products, fingerprint, reusable, station_survey_text
+from .settings import STAGES, read_processing, resolve_settings
 
-__all__ = ["run_pipeline", "RunOutcome", "STAGE_FUNCTIONS", "STATION_STAGES", "read_run",
-           "summary_table", "FORMAT", "FORMAT_VERSION"]
+__all__ = ["run_pipeline", "RunOutcome", "STATION_STAGES", "read_run", "FORMAT", "FORMAT_VERSION",
+           "OWNED"]
 
 FORMAT = "run"
 FORMAT_VERSION = "1.0"
 
-STAGE_FUNCTIONS = {"stack": stage_stack, "gate": stage_gate, "rhoa": stage_rhoa,
-                   "invert": stage_invert, "section": stage_section, "export": stage_export,
-                   "report": stage_report}
-#: Station stages: the stage whose passing stations they process, their folder, figure kind.
-STATION_STAGES = {"stack": (None, "stacked", "raw"), "gate": ("stack", "gated", "decay"),
-                  "rhoa": ("gate", "rhoa", "rhoa"), "invert": ("gate", None, "fit")}
+#: Station stages: the stage whose passing stations they process.
+STATION_STAGES = {"stack": None, "gate": "stack", "rhoa": "gate", "invert": "gate"}
+#: Station stages whose products are reused station by station.
+_PER_STATION = {"stack": None, "gate": ("stack", "stacked"), "rhoa": ("gate", "gated")}
+
+#: Files each stage owns in a project (globs): what an earlier run left there and this
+#: run did not write is removed, so no stale product outlives a rerun.
+OWNED = {
+    "stack": ("stacked/*.nc", "figures/stations/*_raw.png"),
+    "gate": ("gated/*.nc", "figures/stations/*_decay.png"),
+    "rhoa": ("rhoa/*.nc", "rhoa/*.csv", "figures/stations/*_rhoa.png", "figures/pseudosection_*"),
+    "invert": ("models/*.nc", "models/*.csv", "figures/stations/*_fit.png"),
+    "section": ("sections/*.nc", "figures/section*.*", "figures/models.*"),
+    "export": ("exports/*.csv", "exports/*.sgy", "exports/*.json", "exports/las/*.las"),
+    "report": ("report.html",),
+}
 
 
 @dataclass
@@ -60,9 +75,11 @@ def read_run(project) -> dict:
                           "--from first", path)
     try:
         state = json.loads(path.read_text(encoding="utf-8"))
-    except (OSError, ValueError) as exc:
+    except (OSError, ValueError, UnicodeDecodeError) as exc:
         raise input_error("run.json", f"unreadable ({type(exc).__name__})", path) from None
-    if state.get("tem_format") != FORMAT or str(state.get("format_version", "")).split(".")[0] != "1":
+    if not isinstance(state, dict) or state.get("tem_format") != FORMAT \
+            or str(state.get("format_version", "")).split(".")[0] != "1" \
+            or not isinstance(state.get("stages"), dict):
         raise input_error("format_version", "not a tem run record of version 1.x", path)
     return state
 
@@ -92,15 +109,6 @@ def _ok(state, survey):
     return out
 
 
-def _stage_stations(stage, state, survey):
-    if stage not in STATION_STAGES:
-        return [s.id for s in survey.stations]
-    prev = STATION_STAGES[stage][0]
-    if prev is None:
-        return [s.id for s in survey.stations]
-    return _ok(state, survey).get(prev, [])
-
-
 def _station_summary(state, survey):
     """Per-station summary from the stage records: first failure, gates, chi2, DOI, QC."""
     out = {}
@@ -110,7 +118,8 @@ def _station_summary(state, survey):
             rec = state["stages"].get(stage, {}).get("stations", {}).get(st.id)
             if rec is None:
                 continue
-            s.update({k: v for k, v in rec.items() if k not in ("status", "message")})
+            s.update({k: v for k, v in rec.items() if k not in ("status", "message", "fingerprint",
+                                                                  "checksums", "reused")})
             if rec["status"] == "failed" and "failed_stage" not in s:
                 s["failed_stage"] = stage
                 s["message"] = rec.get("message", "")
@@ -118,46 +127,199 @@ def _station_summary(state, survey):
     return out
 
 
-def _prune_station_files(project, stage, ok, survey, figures):
-    """Remove a station stage's files of stations that did not pass it (earlier runs)."""
-    _, folder, kind = STATION_STAGES[stage]
-    keep = set(ok)
-    for st in survey.stations:
-        paths = []
-        if st.id not in keep and folder:
-            paths.append(project.station_file(folder, st.id))
-        if st.id not in keep or not figures:
-            paths.append(project.station_figure(st.id, kind))
-        for p in paths:
-            with contextlib.suppress(FileNotFoundError):
-                p.unlink()
+def _prune(project, stage, outputs):
+    """Remove files the stage owns that this run did not write (an earlier run's products)."""
+    keep = {Path(p).resolve() for p in outputs}
+    for pattern in OWNED[stage]:
+        for p in project.root.glob(pattern):
+            if p.is_file() and p.resolve() not in keep:
+                with contextlib.suppress(FileNotFoundError):
+                    p.unlink()
 
 
-def _record(stage, params, result, project, elapsed):
-    rec = stage_record(stage, params)
-    rec["inputs"] = result.inputs or [i for oc in result.stations.values() for i in oc.inputs]
-    outputs = list(result.outputs) + [o for oc in result.stations.values() for o in oc.outputs]
-    rec["outputs"] = [project.rel(p) for p in outputs]
-    rec["stations"] = {sid: {"status": oc.status, **({"message": oc.message} if oc.message else {}),
-                             **oc.info} for sid, oc in result.stations.items()}
-    rec["notes"] = list(result.notes)
-    rec["failed"] = result.failed
-    rec["elapsed_s"] = round(elapsed, 3)
-    return rec
+def _user_inputs(survey, survey_file, settings):
+    """Files the user gave (never written): survey, recordings, line and velocity tables."""
+    files = [Path(survey_file)] + [survey.path(f) for s in survey.stations for r in s.receivers
+                                   for f in r.files]
+    files += [Path(p) for p in (settings["section"].line, settings["export"].velocity) if p]
+    folders = {Path(survey_file).resolve().parent}
+    folders |= {survey.path(f).resolve().parent for s in survey.stations for r in s.receivers
+                for f in r.files}
+    return files, folders
 
 
-def _check_project(project, survey, survey_file):
-    root = project.root.resolve()
-    inputs = {Path(survey_file).resolve().parent}
-    inputs |= {survey.path(f).resolve().parent for s in survey.stations for r in s.receivers
-               for f in r.files}
-    if root in inputs:
-        raise input_error("--out", "the project folder holds input files (survey or recordings); "
-                          "choose another folder", project.root)
+# ----------------------------------------------------------------------------- one stage
+class _Run:
+    """State of one ``tem run``: survey, settings, project, previous record, checksums."""
+
+    def __init__(self, survey, survey_file, settings, project, state, previous, ctx_kw):
+        self.survey, self.survey_file, self.settings = survey, survey_file, settings
+        self.project, self.state, self.previous = project, state, previous
+        self.sums = Checksums(previous.get("checksums"))
+        self.ctx_kw = ctx_kw
+
+    def _station_inputs(self, stage):
+        """{station: (input files, extra)} of a per-station stage."""
+        ok = _ok(self.state, self.survey)
+        if stage == "stack":
+            return {st.id: ([self.survey.path(f) for r in st.receivers for f in r.files],
+                            station_survey_text(self.survey, st.id)) for st in self.survey.stations}
+        prev, folder = _PER_STATION[stage]
+        return {sid: ([self.project.station_file(folder, sid)], None) for sid in ok.get(prev, [])}
+
+    def _profile_inputs(self, stage):
+        ok = _ok(self.state, self.survey)
+        p = self.project
+        if stage == "invert":
+            return [p.station_file("gated", sid) for sid in ok.get("gate", [])]
+        if stage == "section":
+            files = [p.folder("models") / "models.nc"]
+            if self.settings["invert"].lci and (p.folder("models") / "models_lci.nc").is_file():
+                files.append(p.folder("models") / "models_lci.nc")
+            if not files[0].is_file():
+                raise input_error("file", "missing (run the invert stage first)", files[0])
+            return files + ([Path(self.settings["section"].line)] if self.settings["section"].line
+                            else [])
+        if stage == "export":
+            from ..export.stage import inputs_of
+            vel = self.settings["export"].velocity
+            return list(inputs_of(self.settings["export"], p)) + ([Path(vel)] if vel else [])
+        return []
+
+    def run_stage(self, stage, tick):
+        """Run (or reuse) one stage; returns (StageResult, record)."""
+        s = self.settings[stage]
+        prev_rec = self.previous.get("stages", {}).get(stage)
+        notes = []
+        reused = {}
+        fps = {}
+        if stage in _PER_STATION:
+            for sid, (files, extra) in self._station_inputs(stage).items():
+                fps[sid] = fingerprint(stage, s.as_dict(), [self.sums.of(f) for f in files], extra)
+                old = (prev_rec or {}).get("stations", {}).get(sid)
+                ok, note = reusable(self.project, old, fps[sid], self.sums)
+                if note:
+                    notes.append(f"{sid}: {note}")
+                if ok:
+                    reused[sid] = _outcome_from_record(sid, old, self.project)
+            stage_fp = None
+        elif stage != "report":
+            files = self._profile_inputs(stage)
+            stage_fp = fingerprint(stage, s.as_dict(), [self.sums.of(f) for f in files])
+            ok, note = reusable(self.project, prev_rec, stage_fp, self.sums)
+            if note:
+                notes.append(note)
+            if ok:
+                return None, dict(prev_rec, reused=True, notes=prev_rec.get("notes", []) + notes)
+        else:
+            stage_fp = None
+        ctx = StageContext(progress=tick, run_state=self.state, reused=reused, **self.ctx_kw)
+        t0 = time.perf_counter()
+        result = _stage_call(stage, self.settings, self.survey, self.survey_file, self.project,
+                             self.state, ctx)
+        result.notes = notes + result.notes
+        if reused:
+            result.notes.append(f"reused {len(reused)} of {len(result.stations)} stations' "
+                                "products (inputs and settings unchanged)")
+        rec = self._record(stage, s, result, time.perf_counter() - t0, fps, stage_fp, reused)
+        return result, rec
+
+    def _record(self, stage, settings, result, elapsed, fps, stage_fp, reused):
+        p = self.project
+        rec = stage_record(stage, settings.as_dict())
+        rec["inputs"] = result.inputs or [i for oc in result.stations.values() for i in oc.inputs]
+        rec["outputs"] = [p.rel(o) for o in result.all_outputs()]
+        rec["stations"] = {}
+        for sid, oc in result.stations.items():
+            r = {"status": oc.status, **({"message": oc.message} if oc.message else {}), **oc.info}
+            if sid in fps:
+                r["fingerprint"] = fps[sid]
+                r["checksums"] = {p.rel(o): self.sums.of(o) for o in oc.outputs if Path(o).is_file()}
+                r["reused"] = sid in reused
+            rec["stations"][sid] = r
+        if stage_fp is not None:
+            rec["fingerprint"] = stage_fp
+            rec["checksums"] = {p.rel(o): self.sums.of(o) for o in result.all_outputs()
+                                if Path(o).is_file()}
+        rec["notes"] = list(result.notes)
+        rec["failed"] = result.failed
+        rec["elapsed_s"] = round(elapsed, 3)
+        return rec
+
+
+def _outcome_from_record(sid, rec, project):
+    """A station outcome carried over from the run record (its products are on disk)."""
+    info = {k: v for k, v in rec.items() if k not in ("status", "message", "fingerprint",
+                                                       "checksums", "reused")}
+    return StationOutcome(sid, rec["status"], rec.get("message", ""),
+                          outputs=[str(project.root / r) for r in rec.get("checksums", {})],
+                          info=info)
+
+
+def _stage_call(stage, settings, survey, survey_file, project, state, ctx):
+    """Call the stage's one door with its inputs from the project."""
+    ok = _ok(state, survey)
+    s = settings[stage]
+    if stage == "stack":
+        from ..stack.stage import run
+        return run(s, survey, [st.id for st in survey.stations], project, ctx, survey_file)
+    if stage in ("gate", "rhoa", "invert"):
+        prev = {"gate": ("stack", "stacked"), "rhoa": ("gate", "gated"),
+                "invert": ("gate", "gated")}[stage]
+        files = [project.station_file(prev[1], sid) for sid in ok.get(prev[0], [])]
+        if stage == "gate":
+            from ..gate.stage import run
+        elif stage == "rhoa":
+            from ..rhoa.stage import run
+        else:
+            from ..invert.stage import run
+        return run(s, files, project, ctx)
+    if stage == "section":
+        from ..section.stage import run
+        files = [project.folder("models") / "models.nc"]
+        if settings["invert"].lci and (project.folder("models") / "models_lci.nc").is_file():
+            files.append(project.folder("models") / "models_lci.nc")
+        return run(s, files, project, ctx, title_prefix=f"{survey.name}: ")
+    if stage == "export":
+        from ..export.stage import run
+        return run(s, project, project, ctx)
+    from ..report.stage import run
+    return run(s, project, project, ctx)
+
+
+# ----------------------------------------------------------------------------- the run
+@contextlib.contextmanager
+def _executor(jobs, scheduler):
+    """A local process pool (``jobs`` > 1), a dask.distributed client, or None."""
+    if scheduler:
+        from .cluster import dask_client
+        with dask_client(scheduler, jobs) as client:
+            yield client
+        return
+    pool = process_pool(jobs)
+    if pool is None:
+        yield None
+        return
+    with pool:
+        yield pool
+
+
+def _kept_inputs_notes(project, state, stages, sums):
+    """Notes for products of kept stages that changed since they were written (``--from``)."""
+    notes = []
+    for stage in stages:
+        rec = state["stages"].get(stage, {})
+        recorded = dict(rec.get("checksums") or {})
+        for st in rec.get("stations", {}).values():
+            recorded.update(st.get("checksums") or {})
+        _, changed = changed_products(project, recorded, sums)
+        notes += [f"{rel} changed since the {stage} stage wrote it (edited by hand?); used as "
+                  "it is now" for rel in changed]
+    return notes
 
 
 def run_pipeline(survey_file, project_dir, from_stage=None, overrides=(), jobs=1, console=None,
-                 progress=True) -> RunOutcome:
+                 progress=True, figures=True, scheduler=None) -> RunOutcome:
     """Run the chain stack -> gate -> rhoa -> invert -> section -> export -> report.
 
     Parameters
@@ -169,37 +331,57 @@ def run_pipeline(survey_file, project_dir, from_stage=None, overrides=(), jobs=1
         Project folder (created); never an input folder.
     from_stage : str or None
         Rerun from this stage, reusing the files and records of the stages
-        before it (they must exist in ``run.json``).
+        before it (they must exist in ``run.json``). Without it, products whose
+        inputs and settings are unchanged are reused.
     overrides : sequence of (stage, key, value)
-        Parameters that win over the survey's table (command-line options).
+        ``--set`` values; they win over the survey's table.
     jobs : int
         Worker processes for the station stages (1: in this process).
     console : rich.console.Console or None
         Where progress is drawn (default: standard error).
     progress : bool
         Draw progress bars.
+    figures : bool
+        Write the per-station and profile figures.
+    scheduler : str or None
+        ``"local"`` (a dask LocalCluster of ``jobs`` workers) or the address of a
+        dask.distributed scheduler; None: a local process pool.
 
     Returns
     -------
     RunOutcome
     """
     from rich.console import Console
-    from rich.progress import (BarColumn, MofNCompleteColumn, Progress, TextColumn,
-                               TimeElapsedColumn)
 
     from ..survey import read_survey
 
     survey_file = Path(survey_file)
     survey = read_survey(survey_file)
-    params = resolve_parameters(read_processing(survey_file), overrides, survey_file)
+    settings = resolve_settings(read_processing(survey_file), overrides, survey_file)
     project = Project(project_dir)
-    _check_project(project, survey, survey_file)
+    files, folders = _user_inputs(survey, survey_file, settings)
+    check_output(project.root, STAGES, inputs=files, read_only=folders)
     if from_stage is not None and from_stage not in STAGES:
         raise input_error("--from", f"unknown stage {from_stage!r}; valid: {', '.join(STAGES)}")
     start = STAGES.index(from_stage) if from_stage else 0
+    console = console or Console(stderr=True)
+    with ProjectLock(project.root, "tem run") as lock:
+        return _run_locked(survey, survey_file, settings, project, start, jobs, console, progress,
+                           figures, scheduler, lock)
+
+
+def _run_locked(survey, survey_file, settings, project, start, jobs, console, progress, figures,
+                scheduler, lock):
+    from rich.progress import (BarColumn, MofNCompleteColumn, Progress, TextColumn,
+                               TimeElapsedColumn)
+
+    previous = {}
+    if project.run_json.is_file():
+        with contextlib.suppress(Exception):
+            previous = read_run(project.root)
     if start > 0:
         state = read_run(project.root)
-        missing = [s for s in STAGES[:start] if s not in state.get("stages", {})]
+        missing = [s for s in STAGES[:start] if s not in state["stages"]]
         if missing:
             raise input_error("--from", f"stage {missing[0]} has no record in run.json; rerun "
                               f"from {missing[0]} or earlier", project.run_json)
@@ -207,26 +389,36 @@ def run_pipeline(survey_file, project_dir, from_stage=None, overrides=(), jobs=1
             state["stages"].pop(s, None)
     else:
         state = {"tem_format": FORMAT, "format_version": FORMAT_VERSION, "stages": {}}
+    run = _Run(survey, survey_file, settings, project, state, previous,
+               {"figures": figures})
     t_run = time.perf_counter()
     state.update({"tem_version": __version__,
-                  "survey": {"file": str(survey_file.resolve()), "sha256": file_sha256(survey_file),
+                  "survey": {"file": str(survey_file.resolve()), "sha256": run.sums.of(survey_file),
                              "name": survey.name},
-                  "parameters": params,
+                  "parameters": {k: v.as_dict() for k, v in settings.items()},
                   "last_run": {"from": STAGES[start], "stages": list(STAGES[start:]),
-                               "started_utc": _now(), "jobs": int(jobs)}})
-    console = console or Console(stderr=True)
+                               "started_utc": _now(), "jobs": int(jobs), "figures": bool(figures),
+                               "scheduler": scheduler or "local processes"}})
+    housekeeping = [n for n in (lock.took_over,) if n]
+    if lock.cleaned:
+        housekeeping.append(f"removed {lock.cleaned} temporary files of an interrupted run")
+    housekeeping += _kept_inputs_notes(project, state, STAGES[:start], run.sums)
+    state["last_run"]["notes"] = housekeeping
+    for note in housekeeping:
+        console.print(f"[yellow]note[/]: {note}", highlight=False, soft_wrap=True)
     columns = (TextColumn("[bold]{task.fields[stage]:<8}"), BarColumn(), MofNCompleteColumn(),
                TextColumn("{task.description}"), TimeElapsedColumn())
     stop = ""
     with contextlib.ExitStack() as stack:
-        pool = process_pool(jobs)
-        if pool is not None:
-            stack.enter_context(pool)
-        prog = stack.enter_context(Progress(*columns, console=console, disable=not progress,
+        run.ctx_kw["executor"] = stack.enter_context(_executor(jobs, scheduler))
+        prog = stack.enter_context(Progress(*columns, console=console,
+                                            disable=not progress or not console.is_terminal,
                                             transient=False))
         for stage in STAGES[start:]:
-            stations = _stage_stations(stage, state, survey)
-            n = len(stations) if stage in STATION_STAGES else 1
+            ok = _ok(state, survey)
+            prev = STATION_STAGES.get(stage)
+            n = (len(survey.stations) if prev is None else len(ok.get(prev, []))) \
+                if stage in STATION_STAGES else 1
             task = prog.add_task("", total=max(n, 1), stage=stage)
             if stop:
                 prog.update(task, description=f"[yellow]not run[/]: {stop}")
@@ -236,30 +428,28 @@ def run_pipeline(survey_file, project_dir, from_stage=None, overrides=(), jobs=1
                 mark = "ok" if status == "ok" else "[red]FAILED[/]"
                 prog.update(task, advance=1, description=f"{sid} {mark}")
 
-            ctx = StageContext(survey_file=survey_file, stations=stations, ok=_ok(state, survey),
-                               params=params, executor=pool, progress=tick, state=state)
-            t0 = time.perf_counter()
             try:
-                result = STAGE_FUNCTIONS[stage](survey, project, params[stage], ctx)
+                result, rec = run.run_stage(stage, tick)
             finally:
                 _write_run(project, state)
-            for sid, oc in result.stations.items():
-                if oc.status != "ok":
-                    prog.console.print(f"[red]{stage}: station {sid} failed[/]: {oc.message}",
-                                       highlight=False, soft_wrap=True)
-            if stage in STATION_STAGES:
-                ok = [sid for sid, oc in result.stations.items() if oc.status == "ok"]
-                _prune_station_files(project, stage, ok, survey, params["report"]["station_figures"])
-            state["stages"][stage] = _record(stage, params[stage], result, project,
-                                             time.perf_counter() - t0)
+            if result is not None:
+                for sid, oc in result.stations.items():
+                    if oc.status != "ok":
+                        prog.console.print(f"[red]{stage}: station {sid} failed[/]: {oc.message}",
+                                           highlight=False, soft_wrap=True)
+                _prune(project, stage, result.all_outputs())
+            state["stages"][stage] = rec
             state["stations"] = _station_summary(state, survey)
+            state["checksums"] = run.sums.table
             _write_run(project, state)
-            prog.update(task, completed=max(n, 1),
-                        description="[red]" + result.failed if result.failed else "done")
-            if stage in STATION_STAGES and not ok:
+            desc = ("reused" if result is None else
+                    "[red]" + result.failed if result.failed else "done")
+            prog.update(task, completed=max(n, 1), description=desc)
+            passed = [sid for sid, r in rec.get("stations", {}).items() if r["status"] == "ok"]
+            if stage in STATION_STAGES and not passed:
                 stop = f"no station passed {stage}"
             elif stage == "invert" and not (project.folder("models") / "models.nc").is_file():
-                stop = result.failed or "no models"
+                stop = rec.get("failed") or "no models"
     state["last_run"]["elapsed_s"] = round(time.perf_counter() - t_run, 2)
     state["last_run"]["stopped"] = stop
     state["stations"] = _station_summary(state, survey)
@@ -267,36 +457,3 @@ def run_pipeline(survey_file, project_dir, from_stage=None, overrides=(), jobs=1
     failed = any("failed_stage" in s for s in state["stations"].values())
     failed |= any(rec.get("failed") for rec in state["stages"].values()) or bool(stop)
     return RunOutcome(state=state, exit_status=1 if failed else 0, project=project)
-
-
-def _finite(v):
-    return isinstance(v, (int, float)) and math.isfinite(v)
-
-
-def summary_table(state, title=None):
-    """A rich Table: per station the status of each station stage, usable gates, chi2, DOI."""
-    from rich.table import Table
-
-    t = Table(title=title or f"tem run: {state.get('survey', {}).get('name', '')}",
-              header_style="bold")
-    t.add_column("station")
-    for stage in STATION_STAGES:
-        t.add_column(stage)
-    for col in ("usable gates", "chi2", "DOI (m)", "QC / message"):
-        t.add_column(col, justify="right" if col != "QC / message" else "left")
-    for sid, s in state.get("stations", {}).items():
-        cells = []
-        for stage in STATION_STAGES:
-            rec = state["stages"].get(stage, {}).get("stations", {}).get(sid)
-            if rec is None:
-                cells.append("[dim]-[/]")
-            else:
-                cells.append("[green]ok[/]" if rec["status"] == "ok" else "[red]FAILED[/]")
-        gates = f"{s['usable_gates']}/{s.get('gates', '?')}" if "usable_gates" in s else "-"
-        chi2 = f"{s['chi2']:.2f}" if _finite(s.get("chi2")) else "-"
-        doi = f"{s['doi']:.0f}" if _finite(s.get("doi")) else "-"
-        note = s.get("message") or ("" if s.get("qc", "ok") == "ok" else f"QC {s['qc']}")
-        if not note and s.get("invert_message"):
-            note = s["invert_message"]
-        t.add_row(sid, *cells, gates, chi2, doi, note[:90])
-    return t

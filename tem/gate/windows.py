@@ -21,8 +21,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .errors import input_error
-from .forward.gatewindow import check_shape, weights
+from ..errors import input_error
+from ..forward.gatewindow import check_shape, weights
 
 __all__ = ["GateTable", "log_gates", "gate_matrix", "gate_values", "noise_floor", "usable_gates",
            "default_range", "gate_stacked"]
@@ -57,8 +57,8 @@ class GateTable:
         return self.open.size
 
 
-def log_gates(times, t_min: float, t_max: float, per_decade: float = 9.0,
-              shape: str = "boxcar", min_samples: int = 1) -> GateTable:
+def log_gates(times, t_min: float, t_max: float, per_decade: float, shape: str,
+              min_samples: int = 1) -> GateTable:
     """Log-spaced gates between ``t_min`` and ``t_max`` with edges between samples.
 
     times : (M,) sample times (s), uniformly spaced.
@@ -144,7 +144,7 @@ def noise_floor(stack, times, t_start: float, t_end: float) -> float:
     return float(np.median(stack.error[sel]))
 
 
-def usable_gates(value, error, t_open, t_close, t_limit: float, snr_min: float = 2.0):
+def usable_gates(value, error, t_open, t_close, t_limit: float, snr_min: float):
     """Gates usable for interpretation: inside [0, t_limit] and |value| >= snr_min * error.
 
     A gate below the noise (signal-to-noise under ``snr_min``) is flagged
@@ -171,15 +171,16 @@ def default_range(times, off_time: float, half_period: float):
     return t_min, min(t_max, t[-1] + 0.5 * h) - 0.5 * h
 
 
-def gate_stacked(stacked, per_decade: float = 9.0, shape: str = "boxcar", t_min=None,
-                 t_max=None, snr_min: float = 2.0, provenance=()):
+def gate_stacked(stacked, per_decade: float, shape: str, t_min, t_max, snr_min: float,
+                 provenance=()):
     """Gate every channel of a stacked Dataset; returns the gated-sounding Dataset.
 
     The gate table is shared by all channels of the station (docs/data-model.md).
     Dead channels are kept with every gate flagged unusable.
     """
-    from .io.stacked import gated_dataset, result_from_dataset
-    from .provenance import stage_record
+    from ..io.stacked import gated_dataset
+    from ..stack.stacking import StackResult
+    from ..provenance import stage_record
     if not (np.isfinite(snr_min) and snr_min >= 0):
         raise input_error("snr_min", f"must be zero or positive, got {snr_min}")
     times = stacked["time"].values
@@ -195,7 +196,7 @@ def gate_stacked(stacked, per_decade: float = 9.0, shape: str = "boxcar", t_min=
     usable = np.zeros_like(value, bool)
     floor = np.empty(nch)
     for c in range(nch):
-        res = result_from_dataset(stacked, c)
+        res = StackResult.from_dataset(stacked, c)
         value[c] = W @ res.value
         error[c] = res.linear_error(W)
         floor[c] = noise_floor(res, times, t_max / 3.0, t_max)
@@ -204,7 +205,7 @@ def gate_stacked(stacked, per_decade: float = 9.0, shape: str = "boxcar", t_min=
         if bool(stacked["dead"].values[c]):
             usable[c] = False
     prov = list(provenance) or []
-    from .io.stacked import provenance_of
+    from ..io.stacked import provenance_of
     prov = provenance_of(stacked) + prov + [stage_record("gate", {
         "per_decade": per_decade, "shape": shape, "t_min": t_min, "t_max": t_max,
         "snr_min": snr_min})]

@@ -1,35 +1,19 @@
-"""Many stations: read gated soundings, invert in a process pool, collect models.
-
-A station that fails (bad input, a failing forward set-up) is reported and the
-others are still inverted. Products follow docs/data-model.md ("Models
-file"); the fit table is a CSV of observed and predicted data.
+"""Inversion products: station results -> the models file (docs/data-model.md) and the fit table.
 """
 from __future__ import annotations
 
-import concurrent.futures as cf
 import csv
-from dataclasses import dataclass
 from pathlib import Path
 
 import numpy as np
 
-from ..errors import TemInputError, input_error
+from ..errors import input_error
 from .data import station_data
-from .station import InversionSettings, StationResult, invert_station
 
-__all__ = ["StationFailure", "load_station", "invert_file", "invert_files", "models_from_results",
-           "write_fit_csv", "FIT_COLUMNS"]
+__all__ = ["load_station", "models_from_results", "write_fit_csv", "FIT_COLUMNS"]
 
 FIT_COLUMNS = ("station", "channel", "component", "time_s", "observed", "std", "predicted",
                "normalised_residual", "model_kind")
-
-
-@dataclass
-class StationFailure:
-    """A station that could not be inverted: file and a one-line reason."""
-
-    file: str
-    message: str
 
 
 def load_station(path, floors=None):
@@ -43,58 +27,6 @@ def load_station(path, floors=None):
     return station_data(ds, floors=floors, file=str(path))
 
 
-def invert_file(path, settings: InversionSettings, floors=None):
-    """Invert one file; returns a :class:`StationResult` or a :class:`StationFailure`.
-
-    Runs in a worker process; every error becomes a one-line failure record.
-    """
-    try:
-        sd = load_station(path, floors)
-        return invert_station(sd, settings)
-    except TemInputError as exc:
-        return StationFailure(str(path), str(exc))
-    except (ValueError, np.linalg.LinAlgError, FloatingPointError) as exc:
-        return StationFailure(str(path), f"{path}: inversion failed: {exc}".splitlines()[0])
-
-
-def invert_files(paths, settings: InversionSettings, floors=None, workers=2, progress=None):
-    """Invert stations in a process pool (``workers`` processes; 1 = in-process).
-
-    Parameters
-    ----------
-    paths : sequence of path
-    progress : callable, optional
-        Called as ``progress(path, outcome)`` after each station finishes.
-
-    Returns
-    -------
-    results : list of StationResult, in input order of the successful stations
-    failures : list of StationFailure
-    """
-    paths = [str(p) for p in paths]
-    outcome = {}
-    if workers <= 1 or len(paths) <= 1:
-        for p in paths:
-            outcome[p] = invert_file(p, settings, floors)
-            if progress:
-                progress(p, outcome[p])
-    else:
-        with cf.ProcessPoolExecutor(max_workers=int(workers)) as pool:
-            futs = {pool.submit(invert_file, p, settings, floors): p for p in paths}
-            for fut in cf.as_completed(futs):
-                p = futs[fut]
-                try:
-                    outcome[p] = fut.result()
-                except Exception as exc:  # a crashed worker must not stop the batch
-                    outcome[p] = StationFailure(p, f"{p}: worker failed: {exc.__class__.__name__}: {exc}"
-                                                .splitlines()[0])
-                if progress:
-                    progress(p, outcome[p])
-    results = [outcome[p] for p in paths if isinstance(outcome[p], StationResult)]
-    failures = [outcome[p] for p in paths if isinstance(outcome[p], StationFailure)]
-    return results, failures
-
-
 def _pad(rows, width):
     out = np.full((len(rows), width), np.nan)
     for i, r in enumerate(rows):
@@ -102,7 +34,7 @@ def _pad(rows, width):
     return out
 
 
-def models_from_results(results, kind="smooth", provenance=(), epsg=0):
+def models_from_results(results, kind, provenance=(), epsg=0):
     """Models Dataset (docs/data-model.md) from station results.
 
     ``kind="smooth"`` uses the smooth models (std from the roughness prior),
@@ -144,11 +76,11 @@ def models_from_results(results, kind="smooth", provenance=(), epsg=0):
     return ds
 
 
-def write_fit_csv(results, path, kind="smooth"):
+def write_fit_csv(results, path, kind):
     """Observed and predicted data of every station (one row per datum), atomically."""
     from ..io.atomic import atomic_path
 
-    with atomic_path(path, suffix=".csv") as tmp:
+    with atomic_path(path) as tmp:
         with open(tmp, "w", newline="", encoding="utf-8") as fh:
             w = csv.writer(fh)
             w.writerow(FIT_COLUMNS)

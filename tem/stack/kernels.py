@@ -9,7 +9,7 @@ is read once, row by row, with no float64 copy of the chunk:
   mu_j)/2 between windows (quadratic extrapolation at the record ends) that
   is removed from each window as the line B_j + (B_{j+1} - B_j) t
   (docs/stacking.md section 2);
-* a three-window estimate (REFERENCE.md 6.2)
+* a three-window estimate (docs/stacking.md section 3)
   e_k = p_k (d_k - 2 d_{k+1} + d_{k+2}) / 4 is formed from the stored
   samples as p_k/4 [vpc w - (B_k - 2 B_{k+1} + B_{k+2})
   - t (S_k - 2 S_{k+1} + S_{k+2})], w = x_k - 2 x_{k+1} + x_{k+2} (exact
@@ -22,8 +22,8 @@ is read once, row by row, with no float64 copy of the chunk:
   median) -- two loops over one row held in cache.
 
 :func:`mean_pass` sums a chunk without forming the e_k: sum_k e_k =
-sum_j c_j d_j with c_j = p_j [1/4, 3/4, 1, ..., 1, 3/4, 1/4] (REFERENCE.md
-6.3), one multiply-add per stored sample, baseline again via scalars.
+sum_j c_j d_j with c_j = p_j [1/4, 3/4, 1, ..., 1, 3/4, 1/4] (docs/stacking.md
+section 3), one multiply-add per stored sample, baseline again via scalars.
 
 Thresholds and residuals are float32 and sums float64 as in the numpy
 formulation, so results agree with it to rounding. Pure kernels: arrays in,

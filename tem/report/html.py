@@ -20,9 +20,9 @@ from pathlib import Path
 
 import numpy as np
 
-from . import SAFETY_NOTE, __version__
-from .errors import input_error
-from .io.atomic import write_text_atomic
+from .. import SAFETY_NOTE, __version__
+from ..errors import input_error
+from ..io.atomic import write_text_atomic
 
 __all__ = ["station_table", "render_report", "write_report", "STATUS_OK", "STATUS_MISFIT",
            "STATUS_NONE"]
@@ -46,7 +46,7 @@ figcaption{font-size:.85em;color:#555}
 """
 
 
-def station_table(models, station_info=None, chi2_limit=2.0):
+def station_table(models, station_info, chi2_limit):
     """Rows of the station table.
 
     Parameters
@@ -114,9 +114,9 @@ def _figure_html(path, base, caption, embed):
             f"<figcaption>{cap}{links}</figcaption></figure>")
 
 
-def render_report(base, models, section_figures=(), model_figures=(), station_figures=None,
-                  station_info=None, title="TEM quality-control report", chi2_limit=2.0,
-                  embed=False, notes=()):
+def render_report(base, models, *, chi2_limit, embed, section_figures=(), model_figures=(),
+                  station_figures=None, station_info=None, title="TEM quality-control report",
+                  notes=()):
     """HTML text of the report, with figure links relative to folder ``base``.
 
     Parameters

@@ -5,21 +5,18 @@ resistivity) in warm colours: the ``Spectral`` map runs from red (low) to
 blue (high). Below the depth of investigation (DOI) the section is either
 veiled and hatched with the DOI drawn as a dashed line (``below_doi="shade"``)
 or left blank and hatched (``"hide"``). Every figure is returned as a
-:class:`matplotlib.figure.Figure`; :func:`save_figure` writes PNG and PDF.
+:class:`matplotlib.figure.Figure`; :func:`tem.io.figures.save_figure` writes them.
 """
 from __future__ import annotations
-
-from pathlib import Path
 
 import numpy as np
 from matplotlib.backends.backend_agg import FigureCanvasAgg
 from matplotlib.colors import LogNorm
 from matplotlib.figure import Figure
 
-from .errors import input_error
-from .io.atomic import atomic_path
+from ..errors import input_error
 
-__all__ = ["section_figure", "pseudo_section_figure", "model_figure", "save_figure",
+__all__ = ["section_figure", "pseudo_section_figure", "model_figure",
            "CMAP", "BELOW_DOI_STYLES"]
 
 CMAP = "Spectral"
@@ -68,8 +65,8 @@ def _station_labels(ax, station_d, labels, scale):
     return top
 
 
-def section_figure(grid, title=None, vmin=None, vmax=None, below_doi="shade",
-                   distance_unit="auto", cmap=CMAP, width=10.0, height=4.5):
+def section_figure(grid, *, below_doi, title=None, vmin=None, vmax=None, distance_unit="auto",
+                   cmap=CMAP, width=10.0, height=4.5):
     """Figure of a stitched resistivity section.
 
     Parameters
@@ -207,7 +204,7 @@ def model_figure(models, indices=None, max_depth=None, ncols=6, panel_width=1.8,
     max_depth : float or None
         Depth axis bottom, m; default 1.25 times the deepest DOI.
     """
-    from .section import default_max_depth
+    from .profile import default_max_depth
 
     idx = list(range(models.sizes["station"])) if indices is None else list(indices)
     if not idx:
@@ -252,31 +249,3 @@ def model_figure(models, indices=None, max_depth=None, ncols=6, panel_width=1.8,
     for n in range(len(idx), nrows * ncols):
         axes[n // ncols][n % ncols].set_visible(False)
     return fig
-
-
-def save_figure(fig, stem, formats=("png", "pdf"), dpi=150):
-    """Write a figure as ``<stem>.<format>`` for each format, atomically.
-
-    Parameters
-    ----------
-    fig : matplotlib.figure.Figure
-    stem : str or Path
-        Output path without suffix.
-    formats : sequence of {"png", "pdf", "svg"}
-    dpi : int
-        Resolution of raster formats.
-
-    Returns
-    -------
-    list of Path
-    """
-    stem = Path(stem)
-    out = []
-    for fmt in formats:
-        if fmt not in ("png", "pdf", "svg"):
-            raise input_error("format", f"unknown figure format {fmt!r}; valid: png, pdf, svg")
-        target = stem.with_name(f"{stem.name}.{fmt}")
-        with atomic_path(target, suffix=f".{fmt}") as tmp:
-            fig.savefig(tmp, format=fmt, dpi=dpi)
-        out.append(target)
-    return out

@@ -23,7 +23,7 @@ from pathlib import Path
 
 import numpy as np
 
-from .errors import input_error
+from ..errors import input_error
 
 __all__ = [
     "read_line_csv",
@@ -45,7 +45,7 @@ LATERAL = ("linear", "nearest")
 
 
 # ---------------------------------------------------------------- geometry
-def station_line(x, y, order="given"):
+def station_line(x, y, order):
     """A polyline through the stations and the station order along it.
 
     Parameters
@@ -221,8 +221,7 @@ def _lateral_weights(station_s, positions, lateral, max_gap):
     return left, right, np.clip(w, 0.0, 1.0), inside
 
 
-def stitch_grid(station_s, depth_top, log10_res, doi, positions, depth,
-                lateral="linear", max_gap=None):
+def stitch_grid(station_s, depth_top, log10_res, doi, positions, depth, lateral, max_gap=None):
     """Grid of log10 resistivity along a profile from per-station layered models.
 
     Parameters
@@ -288,8 +287,8 @@ def default_max_depth(doi, depth_top, factor=1.25):
     return float(1.1 * np.nanmax(np.asarray(depth_top, float)))
 
 
-def stitch_models(models, depth_step, max_depth=None, positions=None, line=None,
-                  order="given", lateral="linear", max_gap=None, vertical="depth", depth=None):
+def stitch_models(models, depth_step, *, order, lateral, vertical, max_depth=None, positions=None,
+                  line=None, max_gap=None, depth=None):
     """Section grid (chainage x depth) of log10 resistivity from a models Dataset.
 
     Parameters
@@ -408,8 +407,8 @@ def stitch_models(models, depth_step, max_depth=None, positions=None, line=None,
 
 
 # ---------------------------------------------------------------- pseudo-sections
-def pseudo_section_grid(station_s, abscissa, rhoa, positions, axis, log_axis=True,
-                        lateral="linear", max_gap=None):
+def pseudo_section_grid(station_s, abscissa, rhoa, positions, axis, lateral, log_axis=True,
+                        max_gap=None):
     """Grid apparent resistivity along a profile.
 
     Each station's curve is interpolated in log10(rho_a) against log10 of

@@ -9,10 +9,11 @@ from __future__ import annotations
 
 import numpy as np
 
-from . import __version__
-from . import rhoa as R
-from .errors import input_error
-from .provenance import records_from_json, records_to_json, stage_record
+from .. import __version__
+from . import all_time as _at
+from . import late_time as _lt
+from ..errors import input_error
+from ..provenance import records_from_json, records_to_json, stage_record
 
 __all__ = ["sounding_rhoa", "simulation_for_sounding", "table_rows", "TABLE_COLUMNS",
            "FORMAT_VERSION"]
@@ -44,25 +45,22 @@ def _check(ds, source):
 
 def simulation_for_sounding(ds, source=None):
     """The forward Simulation of a gated sounding (same geometry, waveform, gates, filter)."""
-    from .forward import Simulation
+    from ..forward import Simulation
 
     return Simulation.from_sounding(ds, source=source)
 
 
-def sounding_rhoa(ds, all_time=True, rho_min=0.1, rho_max=1e5, points_per_decade=12, sim=None,
-                  source=None, progress=None):
+def sounding_rhoa(ds, settings=None, sim=None, source=None, progress=None):
     """Late-time and all-time apparent resistivity of every channel of a sounding.
 
     Parameters
     ----------
     ds : xarray.Dataset
         Gated sounding (docs/data-model.md), values per ampere.
-    all_time : bool
-        Also compute the all-time rho_a (needs the forward model).
-    rho_min, rho_max : float
-        All-time search range, ohm-m.
-    points_per_decade : int
-        Density of the half-space table.
+    settings : tem.rhoa.settings.RhoaSettings, optional
+        ``all_time`` (also the all-time rho_a, which needs the forward model),
+        the search range ``rho_min``/``rho_max`` (ohm-m) and the table density
+        ``rho_per_decade``; default: the table's defaults.
     sim : tem.forward.Simulation, optional
         The data's simulation (default :func:`simulation_for_sounding`).
     source : str, optional
@@ -88,12 +86,17 @@ def sounding_rhoa(ds, all_time=True, rho_min=0.1, rho_max=1e5, points_per_decade
     t = ds["gate_centre"].values.astype(float)
     n_ch, n_g = value.shape
     nan = np.full(value.shape, np.nan)
+    if settings is None:
+        from .settings import RhoaSettings
+        settings = RhoaSettings()
+    all_time = settings.all_time
     if all_time:
         if sim is None:
             sim = simulation_for_sounding(ds, source)
-        at = R.all_time_rhoa(sim, value, error, rho_min, rho_max, points_per_decade, progress)
+        at = _at.all_time_rhoa(sim, value, error, rho_min=settings.rho_min, rho_max=settings.rho_max,
+                               points_per_decade=settings.rho_per_decade, progress=progress)
     else:
-        at = R.AllTimeResult(nan, nan.copy(), nan.copy(), np.zeros(value.shape, int), nan.copy(),
+        at = _at.AllTimeResult(nan, nan.copy(), nan.copy(), np.zeros(value.shape, int), nan.copy(),
                              nan.copy(), np.zeros(value.shape, np.int64))
     pts = np.asarray(ds.attrs["tx_points"], float)
     kind = str(ds.attrs["tx_kind"])
@@ -103,20 +106,19 @@ def sounding_rhoa(ds, all_time=True, rho_min=0.1, rho_max=1e5, points_per_decade
     for c in range(n_ch):
         rx = [float(ds[k].values[c]) for k in ("rx_x0", "rx_y0", "rx_x1", "rx_y1")]
         ref = at.rho[c] if all_time else None
-        lt = R.late_time_rhoa(str(ds["component"].values[c]), value[c], t, kind, pts, rx,
+        lt = _lt.late_time_rhoa(str(ds["component"].values[c]), value[c], t, kind, pts, rx,
                               error=error[c], rho_ref=ref)
         late["rho"][c], late["rel"][c], late["u"][c] = lt.rho, lt.rel_error, lt.u
         late_valid[c], late_flags[c] = lt.valid, lt.flags
     flags = at.flags.copy()
-    flags[~usable] |= R.FLAGS["unusable"]
-    late_flags[~usable] |= R.FLAGS["unusable"]
-    depth = R.diffusion_depth(at.rho, t[None, :])
+    flags[~usable] |= _lt.FLAGS["unusable"]
+    late_flags[~usable] |= _lt.FLAGS["unusable"]
+    depth = _lt.diffusion_depth(at.rho, t[None, :])
     dims = ("channel", "gate")
     keep_attrs = {k: v for k, v in ds.attrs.items() if k not in ("tem_format", "format_version",
                                                                  "tem_version", "provenance")}
     prov = records_from_json(ds.attrs.get("provenance")) + [stage_record("rhoa", {
-        "all_time": bool(all_time), "rho_min": rho_min, "rho_max": rho_max,
-        "points_per_decade": points_per_decade, "source": str(source or "")})]
+        **settings.as_dict(), "source": str(source or "")})]
     out = xr.Dataset(
         {
             "value": (dims, value, {"units": "per A (V/m, T or T/s)"}),
@@ -131,15 +133,15 @@ def sounding_rhoa(ds, all_time=True, rho_min=0.1, rho_max=1e5, points_per_decade
             "rhoa_high": (dims, at.rho_high, {"units": "ohm-m"}),
             "rhoa_n_roots": (dims, np.asarray(at.n_roots, np.int32)),
             "rhoa_rel_error": (dims, at.rel_error, {"units": "1"}),
-            "rhoa_flags": (dims, flags, {"flag_masks": list(R.FLAGS.values()),
-                                         "flag_meanings": " ".join(R.FLAGS)}),
+            "rhoa_flags": (dims, flags, {"flag_masks": list(_lt.FLAGS.values()),
+                                         "flag_meanings": " ".join(_lt.FLAGS)}),
             "pseudo_depth": (dims, depth, {"units": "m", "long_name": "diffusion depth of rhoa"}),
             "rhoa_late": (dims, late["rho"], {"units": "ohm-m"}),
             "rhoa_late_rel_error": (dims, late["rel"], {"units": "1"}),
             "rhoa_late_u": (dims, late["u"], {"units": "1"}),
             "rhoa_late_valid": (dims, late_valid),
-            "rhoa_late_flags": (dims, late_flags, {"flag_masks": list(R.FLAGS.values()),
-                                                   "flag_meanings": " ".join(R.FLAGS)}),
+            "rhoa_late_flags": (dims, late_flags, {"flag_masks": list(_lt.FLAGS.values()),
+                                                   "flag_meanings": " ".join(_lt.FLAGS)}),
         },
         attrs={**keep_attrs, "tem_format": "rhoa", "format_version": FORMAT_VERSION,
                "tem_version": __version__, "provenance": records_to_json(prov)},
@@ -168,8 +170,8 @@ def table_rows(out):
                 float(out["gate_centre"].values[g]), float(v("value")), float(v("error")),
                 int(bool(v("usable"))), float(v("rhoa")), float(v("rhoa_rel_error")),
                 float(v("rhoa_low")), float(v("rhoa_high")), int(v("rhoa_n_roots")),
-                float(v("pseudo_depth")), R.flag_text(v("rhoa_flags")), float(v("rhoa_late")),
+                float(v("pseudo_depth")), _lt.flag_text(v("rhoa_flags")), float(v("rhoa_late")),
                 float(v("rhoa_late_u")), int(bool(v("rhoa_late_valid"))),
-                R.flag_text(v("rhoa_late_flags")),
+                _lt.flag_text(v("rhoa_late_flags")),
             ))
     return rows

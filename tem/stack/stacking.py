@@ -1,6 +1,6 @@
 """Stacking: cut at switch times, polarity-reversal combination, robust stack, errors.
 
-Method (docs/stacking.md; weights from REFERENCE.md section 6):
+Method (docs/stacking.md, where the weights are derived):
 
 1. The record is cut into half-period windows d_k (M samples each) starting
    at successive switch-off ends; window k has polarity p_k = (-1)^k.
@@ -8,8 +8,9 @@ Method (docs/stacking.md; weights from REFERENCE.md section 6):
    (a bipolar response obeys s(t + T/2) = -s(t)), so the means of adjacent
    window pairs sample the drift; a line through them is removed from each
    window. This cancels quadratic drift exactly after step 3.
-3. Three-window combination (REFERENCE.md 6.2, cf. Macnae, Lamontagne & West
-   1984, Geophysics 49(7)): e_k = p_k (d_k - 2 d_{k+1} + d_{k+2}) / 4. Any
+3. Three-window combination (Macnae, Lamontagne & West 1984, Geophysics
+   49(7), 934-948, from memory; docs/stacking.md section 3):
+   e_k = p_k (d_k - 2 d_{k+1} + d_{k+2}) / 4. Any
    offset plus linear drift cancels exactly. The mean of all e_k is the
    sliding stack with window weights p_j [1, 3, 4, ..., 4, 3, 1] / (4 (n-2)).
 4. Robust location of the e_k per sample: one-step M-estimates from a robust
@@ -27,7 +28,7 @@ Method (docs/stacking.md; weights from REFERENCE.md section 6):
    (a gate) gets its error the same way.
 
 Steps 1-4 run in one compiled pass per chunk of windows
-(:mod:`tem.stack_kernels`; a chunk of an ``.npy`` recording is memory-mapped,
+(:mod:`tem.stack.kernels`; a chunk of an ``.npy`` recording is memory-mapped,
 not copied). The numpy helpers here (:func:`combine_three`, :func:`_detrend`)
 state the same steps plainly. Reading and headers are apart.
 """
@@ -39,70 +40,16 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from . import stack_kernels as _kern
-from .errors import input_error
+from . import kernels as _kern
+from ..errors import input_error
+from .settings import ESTIMATORS, StackSettings
 
 __all__ = ["ESTIMATORS", "StackSettings", "StackResult", "WindowSource", "ArraySource",
            "RecordingSource", "combine_three", "stack_windows", "stack_source",
            "window_layout", "detect_switch_times", "plain_bipolar_stack", "ChannelStack",
            "stack_station", "timing_for_station"]
 
-ESTIMATORS = ("huber", "mean", "median", "trimmed")
 _MAD = 1.482602218505602  # 1 / Phi^{-1}(3/4): MAD -> sigma for Gaussian data
-
-
-@dataclass(frozen=True)
-class StackSettings:
-    """Stacking parameters (all explicit, no globals).
-
-    estimator : one of ``huber`` (default), ``mean``, ``median``, ``trimmed``.
-    huber_k : Huber clipping constant in robust sigmas (1.5: 96 % efficiency).
-    trim : fraction trimmed at each end for ``trimmed`` (0.1).
-    reject_sigma : a sample estimate further than this many robust sigmas from
-        the start is rejected (weight 0); not used by ``mean``.
-    transient_rms : a transient whose rms normalised residual (residuals
-        clipped at reject_sigma) exceeds this is rejected as noisy.
-    bad_fraction : a transient with more than this fraction of rejected
-        samples is rejected whole.
-    n_batches : batches for the error estimate (B).
-    detrend : remove the period-mean baseline before combining.
-    chunk_bytes : target size (bytes, as stored) of one chunk of windows: a
-        chunk is mapped, stacked in one compiled pass and released.
-    start_estimates : how many estimates (spread over all batches, every third
-        one) feed the robust start.
-    threads : batches stacked concurrently (compiled kernels release the GIL);
-        results are the same for any number.
-    """
-
-    estimator: str = "huber"
-    huber_k: float = 1.5
-    trim: float = 0.1
-    reject_sigma: float = 6.0
-    transient_rms: float = 2.5
-    bad_fraction: float = 0.2
-    n_batches: int = 32
-    detrend: bool = True
-    chunk_bytes: int = 64 << 20
-    start_estimates: int = 256
-    threads: int = 1
-
-    def __post_init__(self):
-        if self.estimator not in ESTIMATORS:
-            raise input_error("estimator", f"unknown {self.estimator!r}; valid: {', '.join(ESTIMATORS)}")
-        if not 0 <= self.trim < 0.5:
-            raise input_error("trim", f"must be in [0, 0.5), got {self.trim}")
-        if not self.huber_k > 0:
-            raise input_error("huber_k", f"must be positive, got {self.huber_k}")
-        if not self.reject_sigma > self.huber_k:
-            raise input_error("reject_sigma", f"must exceed huber_k ({self.huber_k}), got "
-                              f"{self.reject_sigma}")
-        if self.n_batches < 4:
-            raise input_error("n_batches", "need at least 4 batches")
-        if int(self.threads) != self.threads or self.threads < 1:
-            raise input_error("threads", f"must be a whole number >= 1, got {self.threads!r}")
-
-    def as_dict(self) -> dict:
-        return {k: getattr(self, k) for k in self.__dataclass_fields__}
 
 
 @dataclass
@@ -126,6 +73,16 @@ class StackResult:
         f = float(factor)
         return StackResult(self.value * f, self.error * abs(f), self.influence * f,
                            self.n_used.copy(), self.scale * abs(f), dict(self.counts))
+
+    @classmethod
+    def from_dataset(cls, ds, channel: int) -> "StackResult":
+        """The result of one channel of a stacked-transient Dataset (``stacked/<station>.nc``)."""
+        from ..io.stacked import COUNT_FIELDS
+
+        counts = {f: int(ds[f].values[channel]) for f in COUNT_FIELDS if f in ds}
+        return cls(value=ds["value"].values[channel], error=ds["error"].values[channel],
+                   influence=ds["influence"].values[channel], n_used=ds["n_used"].values[channel],
+                   scale=ds["scale"].values[channel], counts=counts)
 
     def linear_error(self, weights) -> np.ndarray:
         """Standard error of ``weights @ value`` for weights (..., M), from the batches."""
@@ -291,7 +248,7 @@ class RecordingSource(WindowSource):
 
 # ---------------------------------------------------------------------------- kernels
 def combine_three(d, polarity0: int = 1):
-    """Three-window estimates e_k = p_k (d_k - 2 d_{k+1} + d_{k+2}) / 4 (REFERENCE.md 6.2).
+    """Three-window estimates e_k = p_k (d_k - 2 d_{k+1} + d_{k+2}) / 4 (docs/stacking.md).
 
     d : (n, M) consecutive half-period windows. Returns (n-2, M), a new array.
     """
@@ -303,7 +260,7 @@ def combine_three(d, polarity0: int = 1):
 
 
 def plain_bipolar_stack(d, polarity0: int = 1):
-    """Plain alternating stack (1/n) sum_k p_k d_k (REFERENCE.md 6.1), for comparison."""
+    """Plain alternating stack (1/n) sum_k p_k d_k (docs/stacking.md), for comparison."""
     d = np.asarray(d, float)
     p = polarity0 * (1.0 - 2.0 * (np.arange(d.shape[0]) % 2))
     return p @ d / d.shape[0]
@@ -395,7 +352,7 @@ def _run_kernel(src, k0, k1, step, detrend, t_frac, mode, acc=None, start=None, 
     Maps windows k0-1 .. last+3 (k0 .. last+2 without detrend: what the
     baseline of the estimates needs), then accumulates into ``acc`` =
     (spsi, cnt, sdpsi, tally) or writes ``emit`` = (e, bad). The mean of a
-    chunk without clipped samples goes through :func:`stack_kernels.mean_pass`.
+    chunk without clipped samples goes through :func:`tem.stack.kernels.mean_pass`.
     Raises the input error of a NaN or infinite sample.
     """
     n_est = len(range(k0, k1, step))
@@ -477,7 +434,7 @@ def stack_source(src: WindowSource, settings: StackSettings = StackSettings(), p
     """Stack all windows of a :class:`WindowSource` (streams chunk by chunk).
 
     Two passes: a small one for the robust start (not for ``mean``), then one
-    compiled pass over every chunk of windows (:mod:`tem.stack_kernels`) that
+    compiled pass over every chunk of windows (:mod:`tem.stack.kernels`) that
     reads each stored sample once and accumulates the psi sums per batch.
     Returns a :class:`StackResult` in the units of the source.
     """
@@ -487,7 +444,7 @@ def stack_source(src: WindowSource, settings: StackSettings = StackSettings(), p
         raise input_error("n_windows", f"need at least 4 half-periods, got {src.n_windows}")
     m = src.m
     t_frac = (np.arange(m) + 0.5) / m
-    edges = _batches(n_est, s.n_batches)
+    edges = _batches(n_est, s.batches)
     nb = len(edges) - 1
     chunks = _chunks(edges, max(1, int(s.chunk_bytes // (src.itemsize * m)) - 3))
     total_steps = len(chunks) + (0 if s.estimator == "mean" else nb)
@@ -637,7 +594,7 @@ def timing_for_station(survey, station, recordings: dict):
     timing came from ("survey" or "current"), residual_rms (s) is the rms of
     the detected switch times about a straight line (NaN for "survey").
     """
-    from .survey import seconds_between
+    from ..survey import seconds_between
     tx = survey.transmitter
     rec0 = recordings[station.data_receivers[0].component]
     t_first = seconds_between(rec0.header.start_time, tx.first_switch_off)
@@ -665,8 +622,8 @@ def stack_station(survey, station, settings: StackSettings = StackSettings(), pr
     dict ``{"source", "residual_rms", "t_first", "delay"}``. Raises
     :class:`tem.errors.TemInputError` naming file and field on bad input.
     """
-    from .io.raw import open_receiver
-    from .survey import seconds_between
+    from ..io.raw import open_receiver
+    from ..survey import seconds_between
     tx = survey.transmitter
     recs = {rx.component: open_receiver(rx, survey) for rx in station.receivers}
     if not station.data_receivers:

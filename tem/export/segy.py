@@ -33,8 +33,8 @@ import numpy as np
 
 from .. import __version__
 from ..errors import input_error
-from ..section import check_velocity_table, depth_to_twt, twt_to_depth
-from .atomic import atomic_path
+from ..section.profile import check_velocity_table, depth_to_twt, twt_to_depth
+from ..io.atomic import atomic_path
 
 __all__ = [
     "coordinate_scalar",
@@ -204,8 +204,8 @@ def _text_header(lines):
     return segyio.tools.create_text_header(cards)
 
 
-def write_segy(path, data, grid, interval_field, first, domain, description=(),
-               line_number=1, doi_twt=None):
+def write_segy(path, data, grid, interval_field, first, domain, description, line_number,
+               doi_twt=None):
     """Write traces and headers as SEG-Y rev 1 (IEEE float), atomically.
 
     Parameters
@@ -250,7 +250,7 @@ def write_segy(path, data, grid, interval_field, first, domain, description=(),
     spec.format = 5
     spec.sorting = None
     text = _text_header(list(description))
-    with atomic_path(path, suffix=".sgy") as tmp:
+    with atomic_path(path) as tmp:
         with segyio.create(str(tmp), spec) as f:
             f.text[0] = text
             f.bin.update({

@@ -22,8 +22,8 @@ import numpy as np
 
 from .. import __version__
 from ..errors import input_error
-from ..section import layer_values
-from .atomic import atomic_path
+from ..section.profile import layer_values
+from ..io.atomic import atomic_path
 
 __all__ = ["NULL", "station_log", "las_for_station", "write_las", "write_las_all", "safe_name"]
 
@@ -143,7 +143,7 @@ def las_for_station(models, i, step, bottom=None, mask_below_doi=False, source="
 
 def write_las(las, path):
     """Write a LAS file as LAS 2.0, unwrapped, atomically."""
-    with atomic_path(path, suffix=".las") as tmp:
+    with atomic_path(path) as tmp:
         with open(tmp, "w", encoding="ascii", errors="replace", newline="\n") as fh:
             las.write(fh, version=2.0, wrap=False, fmt="%.6g", STRT=None, STOP=None, STEP=None)
     return Path(path)

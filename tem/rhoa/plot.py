@@ -7,7 +7,7 @@ apparent resistivity below (all-time with error bars, the second branch as
 faint diamonds where the half-space response is not monotonic, late-time as
 a line, solid where its validity condition holds), all log-log. The
 pseudo-section reuses :func:`tem.section.pseudo_section_grid` and
-:func:`tem.plot.pseudo_section_figure` (log colour scale, conductive warm).
+:func:`tem.section.plot.pseudo_section_figure` (log colour scale, conductive warm).
 """
 from __future__ import annotations
 
@@ -15,7 +15,7 @@ import numpy as np
 from matplotlib.backends.backend_agg import FigureCanvasAgg
 from matplotlib.figure import Figure
 
-from .errors import input_error
+from ..errors import input_error
 
 __all__ = ["sounding_figure", "pseudo_section", "UNITS"]
 
@@ -140,8 +140,8 @@ def pseudo_section(stations, x, y, times, rhoa, depths=None, axis_kind="time", n
     -------
     matplotlib.figure.Figure
     """
-    from .plot import pseudo_section_figure
-    from .section import polyline_chainage, pseudo_section_grid, station_line
+    from ..section.plot import pseudo_section_figure
+    from ..section.profile import polyline_chainage, pseudo_section_grid, station_line
 
     if axis_kind not in ("time", "depth"):
         raise input_error("axis_kind", f"unknown axis {axis_kind!r}; valid: time, depth")
@@ -168,6 +168,7 @@ def pseudo_section(stations, x, y, times, rhoa, depths=None, axis_kind="time", n
     else:
         axis = np.linspace(allx.min(), allx.max(), 120)
     positions = np.linspace(s[0], s[-1], int(n_columns))
-    grid = pseudo_section_grid(s, absc, vals, positions, axis, log_axis=(axis_kind == "time"))
+    grid = pseudo_section_grid(s, absc, vals, positions, axis, "linear",
+                               log_axis=(axis_kind == "time"))
     labels = [str(stations[i]) for i in idx]
     return pseudo_section_figure(positions, axis, grid, s, labels, axis_kind=axis_kind, title=title)

@@ -1,0 +1,129 @@
+"""Options and helpers every command shares: one spelling and one meaning each.
+
+``--out`` (required, the output folder), ``--jobs`` (worker processes for the
+station work), ``--figures/--no-figures`` and ``--progress/--no-progress``;
+input lists that accept files or folders; the progress bar and the closing
+lines of a stage command.
+"""
+from __future__ import annotations
+
+import argparse
+import contextlib
+import os
+import sys
+from pathlib import Path
+
+from ..errors import input_error
+
+__all__ = ["add_out", "add_run_options", "input_files", "default_jobs", "stage_context",
+           "finish", "MAX_JOBS"]
+
+#: Upper bound of ``--jobs``: more processes than this only add memory.
+MAX_JOBS = 256
+
+
+def default_jobs() -> int:
+    """Worker processes when ``--jobs`` is not given: the CPUs, at most 8."""
+    return max(1, min(8, os.cpu_count() or 1))
+
+
+def add_out(p, what="output folder (created; products go into the layout of docs/pipeline.md)"):
+    p.add_argument("--out", required=True, metavar="DIR", help=what)
+
+
+def add_run_options(p, figures=True, jobs=True):
+    """``--jobs``, ``--figures/--no-figures`` and ``--progress/--no-progress``."""
+    if jobs:
+        p.add_argument("--jobs", type=_jobs, default=None, metavar="N",
+                       help="worker processes for the station work (default: the CPUs, at most 8)")
+    if figures:
+        p.add_argument("--figures", action=argparse.BooleanOptionalAction, default=True,
+                       help="write figures (default on)")
+    p.add_argument("--progress", action=argparse.BooleanOptionalAction, default=True,
+                   help="draw progress bars on standard error (default on)")
+
+
+def _jobs(text):
+    text = str(text).strip()
+    if not text.isdigit() or len(text) > 4 or not 1 <= int(text) <= MAX_JOBS:
+        raise argparse.ArgumentTypeError(f"a whole number in 1..{MAX_JOBS}, got {text[:20]!r}")
+    return int(text)
+
+
+def input_files(items, option, pattern="*.nc"):
+    """Files named on the command line; a folder stands for its ``pattern`` files (sorted).
+
+    Names must be unique (products are named after their inputs).
+    """
+    files = []
+    for item in items:
+        p = Path(item)
+        if p.is_dir():
+            found = sorted(p.glob(pattern))
+            if not found:
+                raise input_error(option, f"no {pattern} files in the folder", p)
+            files += found
+        elif p.is_file():
+            files.append(p)
+        else:
+            raise input_error(option, "no such file or folder", p)
+    seen = {}
+    for f in files:
+        if f.stem in seen and seen[f.stem].resolve() != f.resolve():
+            raise input_error(option, f"two inputs named {f.stem} ({seen[f.stem]} and {f}); "
+                              "products are named after their inputs", f)
+        seen[f.stem] = f
+    return list(dict.fromkeys(seen.values()))
+
+
+@contextlib.contextmanager
+def stage_context(args, stage: str, total: int):
+    """A :class:`tem.runtime.StageContext` with a pool and a progress bar on standard error.
+
+    Holds the output folder's lock (:class:`tem.io.project.ProjectLock`) while the stage runs.
+    """
+    from rich.console import Console
+    from rich.progress import BarColumn, MofNCompleteColumn, Progress, TextColumn, TimeElapsedColumn
+
+    from ..io.project import ProjectLock
+    from ..runtime import StageContext, process_pool
+
+    jobs = getattr(args, "jobs", None) or default_jobs()
+    console = Console(stderr=True)
+    with contextlib.ExitStack() as stack:
+        lock = stack.enter_context(ProjectLock(args.out, f"tem {stage}"))
+        if lock.took_over:
+            console.print(f"note: {lock.took_over}", highlight=False)
+        pool = process_pool(min(jobs, max(total, 1)))
+        if pool is not None:
+            stack.enter_context(pool)
+        prog = stack.enter_context(Progress(
+            TextColumn(f"[bold]{stage:<8}"), BarColumn(), MofNCompleteColumn(),
+            TextColumn("{task.description}"), TimeElapsedColumn(), console=console,
+            disable=not getattr(args, "progress", True) or not console.is_terminal,
+            transient=False))
+        task = prog.add_task("", total=max(total, 1))
+
+        def tick(sid, status):
+            mark = "ok" if status == "ok" else "[red]FAILED[/]"
+            prog.update(task, advance=1, description=f"{sid} {mark}")
+
+        yield StageContext(executor=pool, progress=tick, figures=getattr(args, "figures", True))
+        prog.update(task, completed=max(total, 1), description="done")
+
+
+def finish(stage: str, result, out) -> int:
+    """Closing lines of a stage command; exit status 1 when a station or the stage failed."""
+    for sid, oc in result.stations.items():
+        if oc.status != "ok":
+            print(f"tem {stage}: station {sid} failed: {oc.message}", file=sys.stderr)
+    for note in result.notes:
+        print(f"tem {stage}: {note}", file=sys.stderr)
+    if result.failed:
+        print(f"tem {stage}: {result.failed}", file=sys.stderr)
+    n = len(result.stations)
+    n_fail = sum(oc.status != "ok" for oc in result.stations.values())
+    written = len(result.all_outputs())
+    counts = f"{n} stations, {n_fail} failed; " if n else ""
+    print(f"tem {stage}: {counts}{written} files written under {out}")
+    return 1 if result.any_failed else 0

@@ -1,0 +1,100 @@
+"""The export stage's one door: models and section grid -> ``exports/`` (CSV, LAS, SEG-Y).
+
+``tem export`` and ``tem run`` both call :func:`run`. It reads
+``models/models.nc`` and ``sections/section.nc`` of a project (``_lci`` files
+with ``models = "lci"``) and writes ``exports/models.csv``, ``exports/las/*.las``,
+``exports/section_depth.sgy``, ``exports/section_twt.sgy`` and the manifest
+``exports/export.json``.
+"""
+from __future__ import annotations
+
+import json
+from pathlib import Path
+
+from ..errors import input_error
+from ..io.project import Project
+from ..provenance import records_from_json, stage_record
+from ..runtime import StageContext, StageResult
+from .settings import ExportSettings, kinds_of
+
+__all__ = ["run", "inputs_of"]
+
+
+def inputs_of(settings: ExportSettings, project_in) -> tuple:
+    """(models file, section grid file) of a project for ``settings.models``."""
+    p = project_in if isinstance(project_in, Project) else Project(project_in)
+    suffix = "_lci" if settings.models == "lci" else ""
+    files = (p.folder("models") / f"models{suffix}.nc", p.folder("sections") / f"section{suffix}.nc")
+    for f, stage in zip(files, ("invert", "section")):
+        if not f.is_file():
+            raise input_error("file", f"missing (run the {stage} stage first)", f)
+    return files
+
+
+def _dt_us(settings):
+    return int(round(settings.dt_ms * 1000.0))
+
+
+def run(settings: ExportSettings, project_in, out, ctx: StageContext = StageContext()) -> StageResult:
+    """Write the exports of the models and section grid of ``project_in`` into ``OUT/exports``."""
+    from ..io.atomic import write_text_atomic
+    from ..io.models import read_models, write_models_csv
+    from ..io.sections import read_section_grid
+    from ..section.profile import depth_to_twt
+    from ..section.stage import section_grid, settings_of_grid
+    from . import las as las_io
+    from . import segy
+
+    project = out if isinstance(out, Project) else Project(out)
+    mfile, sfile = inputs_of(settings, project_in)
+    what = kinds_of(settings)
+    dest = project.folder("exports")
+    models = read_models(mfile)
+    grid = read_section_grid(sfile)
+    epsg = int(models.attrs.get("epsg", 0) or 0)
+    sp = settings_of_grid(grid, sfile)
+    table = segy.read_velocity_table(settings.velocity) if "segy-twt" in what else None
+    if "segy-twt" in what and sp.vertical != "depth":
+        raise input_error("vertical", "the two-way-time SEG-Y is computed from depth below surface; "
+                          "make the section with vertical = depth", sfile)
+    written = []
+    if "csv" in what:
+        written.append(write_models_csv(models, dest / "models.csv"))
+    if "las" in what:
+        written += las_io.write_las_all(models, dest / "las", settings.las_step, settings.las_bottom,
+                                        settings.las_null_below_doi, source=str(mfile))
+    if "segy-depth" in what:
+        step_mm = round(float(grid.attrs["depth_step"]) * 1000.0)
+        if abs(float(grid.attrs["depth_step"]) * 1000.0 - step_mm) > 1e-6 or not 1 <= step_mm <= 65535:
+            raise input_error("depth_step", "the depth step must be a whole number of millimetres "
+                              "in 1..65535 for SEG-Y (bytes 3217-3218)", sfile)
+        data, first, step = segy.depth_section_traces(grid, settings.segy_value,
+                                                      settings.segy_below_doi)
+        text = segy.describe(grid, sp.vertical, step, settings.segy_value, settings.segy_below_doi,
+                             epsg, str(mfile))
+        written.append(segy.write_segy(dest / "section_depth.sgy", data, grid, step_mm, first,
+                                       sp.vertical, text, settings.line_number))
+    if "segy-twt" in what:
+        dt = _dt_us(settings) * 1e-6
+        if settings.max_twt_ms is not None:
+            max_twt = settings.max_twt_ms * 1e-3
+        else:
+            max_twt = float(depth_to_twt(float(grid["depth"].values[-1]), *table))
+        data, _, tgrid, doi_twt = segy.twt_section_traces(
+            lambda d: section_grid(models, sp, depth=d), table[0], table[1], dt, max_twt,
+            settings.segy_value, settings.segy_below_doi)
+        text = segy.describe(tgrid, "twt", dt, settings.segy_value, settings.segy_below_doi,
+                             epsg, str(mfile), settings.velocity)
+        written.append(segy.write_segy(dest / "section_twt.sgy", data, tgrid, _dt_us(settings), 0.0,
+                                       "twt", text, settings.line_number, doi_twt=doi_twt))
+    inputs = [mfile, sfile] + ([Path(settings.velocity)] if table is not None else [])
+    record = stage_record("export", settings.as_dict(), inputs=inputs)
+    manifest = {"tem_format": "export-manifest", "format_version": "1.0",
+                "files": [Path(p).relative_to(dest).as_posix() for p in written],
+                "provenance": records_from_json(models.attrs.get("provenance")) + [record]}
+    written.append(write_text_atomic(dest / "export.json",
+                                     json.dumps(manifest, indent=1, sort_keys=True) + "\n"))
+    n_las = sum(1 for p in written if Path(p).suffix == ".las")
+    others = ", ".join(k for k in what if k != "las")
+    return StageResult(outputs=[str(p) for p in written], inputs=record["inputs"],
+                       notes=[f"{len(written)} files in {dest} ({n_las} LAS; {others})"])

@@ -1,0 +1,182 @@
+"""Settings of the inversion stage: one table, the source of InversionSettings, ``tem invert``
+options and the ``[processing.invert]`` keys."""
+from __future__ import annotations
+
+from ..errors import input_error
+from ..settings import Setting, SettingsTable
+
+__all__ = ["INVERT", "InversionSettings", "parse_prior", "parse_floor"]
+
+#: Components a per-component error floor may name (data channels of a gated file).
+FLOOR_COMPONENTS = ("ex", "ey", "bz", "dbxdt", "dbydt", "dbzdt")
+
+
+def parse_floor(value):
+    """A relative error floor: one number in [0, 1) or ``{component: floor}``.
+
+    Text is ``"0.03"`` or ``"ex=0.05,dbzdt=0.03"`` (components not named keep
+    the default floor of :func:`tem.invert.data.parse_floors`).
+    """
+    if isinstance(value, str):
+        text = value.strip()
+        if "=" in text:
+            out = {}
+            for part in text.split(","):
+                k, _, v = part.partition("=")
+                out[k.strip()] = v.strip()
+            value = out
+        else:
+            value = float(text)
+    if isinstance(value, dict):
+        out = {}
+        for comp, v in value.items():
+            if comp not in FLOOR_COMPONENTS:
+                raise ValueError(f"unknown component {str(comp)[:20]!r}; valid: "
+                                 f"{', '.join(FLOOR_COMPONENTS)}")
+            out[str(comp)] = _floor_value(v, comp)
+        if not out:
+            raise ValueError("empty table")
+        return out
+    return _floor_value(value)
+
+
+def _floor_value(v, comp=None):
+    if isinstance(v, str):
+        v = float(v)
+    if isinstance(v, bool) or not isinstance(v, (int, float)) or not 0 <= float(v) < 1:
+        where = f"{comp}: " if comp else ""
+        raise ValueError(f"{where}relative floor must be in [0, 1), got {str(v)[:20]}")
+    return float(v)
+
+
+def parse_prior(value):
+    """Few-layer priors from ``KIND:LAYER=VALUE[/STD]`` texts (a list, or one text).
+
+    KIND is resistivity, thickness or depth; layers count from 0 at the top;
+    STD is relative (ln) for resistivity and thickness and in metres for
+    depth; no STD fixes the parameter. Returns a tuple of
+    :class:`tem.invert.fewlayer.Prior`.
+    """
+    from .fewlayer import Prior
+
+    if isinstance(value, str):
+        value = [value]
+    if isinstance(value, tuple) and all(isinstance(p, Prior) for p in value):
+        return value
+    if not isinstance(value, (list, tuple)):
+        raise ValueError("expected KIND:LAYER=VALUE[/STD] texts")
+    out = []
+    for spec in value:
+        if isinstance(spec, Prior):
+            out.append(spec)
+            continue
+        if not isinstance(spec, str):
+            raise ValueError(f"expected KIND:LAYER=VALUE[/STD], got {str(spec)[:30]!r}")
+        head, eq, val = spec.partition("=")
+        kind, colon, layer = head.partition(":")
+        number, _, std = val.partition("/")
+        if not eq or not colon:
+            raise ValueError(f"expected KIND:LAYER=VALUE[/STD], got {spec[:30]!r}")
+        try:
+            n = int(layer)
+            v, s = float(number), (float(std) if std.strip() else None)
+        except ValueError:
+            raise ValueError(f"{spec[:30]!r}: layer must be a whole number and value/std "
+                             "numbers") from None
+        if not 0 <= n <= 50:
+            raise ValueError(f"{spec[:30]!r}: layer must be 0..50")
+        out.append(Prior(kind.strip(), n, v, s))
+    return tuple(out)
+
+
+def _consistent(v):
+    rho, thk = v["start_resistivity"], v["start_thickness"]
+    if (rho is None) != (thk is None):
+        return ("start_thickness" if thk is None else "start_resistivity",
+                "give both start_resistivity and start_thickness")
+    if rho is not None:
+        if len(rho) != len(thk) + 1:
+            return "start_thickness", (f"needs one value fewer than start_resistivity "
+                                       f"({len(rho)}), got {len(thk)}")
+        if not 2 <= len(rho) <= 7:
+            return "start_resistivity", f"needs 2..7 layers (half-space included), got {len(rho)}"
+    n = len(rho) if rho is not None else v["few_layers"]
+    for p in v["priors"]:
+        if p.layer > n - (1 if p.kind == "resistivity" else 2) or (p.kind == "depth" and p.layer < 1):
+            return "priors", (f"{p.kind}:{p.layer}: no such layer in a {n}-layer model "
+                              "(layers count from 0 at the top; depth from layer 1)")
+    if v["depth_min"] is not None and v["depth_max"] is not None \
+            and not v["depth_min"] < v["depth_max"]:
+        return "depth_max", f"must exceed depth_min ({v['depth_min']:g} m)"
+    return None
+
+
+INVERT = SettingsTable("invert", [
+    Setting("kind", "smooth", "choice", choices=("smooth", "few-layer"),
+            help="model written to models.nc: the smooth (Occam) model or the few-layer model"),
+    Setting("layers", 30, "int", minimum=2, maximum=200,
+            help="smooth-mesh layers, half-space included"),
+    Setting("depth_min", None, "float", "m", minimum=0, exclusive=True, maximum=1e5,
+            help="first smooth layer thickness (unset: depth_min_factor x diffusion depth)"),
+    Setting("depth_max", None, "float", "m", minimum=0, exclusive=True, maximum=1e6,
+            help="top of the mesh half-space (unset: depth_max_factor x diffusion depth)"),
+    Setting("depth_min_factor", 0.02, "float", minimum=0, exclusive=True, maximum=1,
+            help="first layer thickness as a fraction of the diffusion depth at the earliest "
+            "usable gate", source="chosen so a 20 m top layer and a 5-10 km target fit one mesh; "
+            "no source"),
+    Setting("depth_max_factor", 0.3, "float", minimum=0, exclusive=True, maximum=10,
+            help="mesh half-space top as a fraction of the diffusion depth at the latest usable "
+            "gate", source="no source"),
+    Setting("offset_factor", 1.5, "float", minimum=0, maximum=100,
+            help="the mesh reaches at least this many transmitter-receiver offsets",
+            source="rule of thumb, no source"),
+    Setting("floor", 0.03, "custom", parse=parse_floor, metavar="FLOOR",
+            help="relative error floor: one number, or per component, e.g. ex=0.05,dbzdt=0.03",
+            source="common practice, no source"),
+    Setting("target", 1.0, "float", minimum=0, exclusive=True, maximum=1e6,
+            help="target chi-square per datum"),
+    Setting("max_iter", 20, "int", minimum=1, maximum=1000, help="Occam iterations"),
+    Setting("ref_resistivity", None, "float", "ohm-m", minimum=0, exclusive=True, maximum=1e9,
+            help="uniform reference model (unset: the best half-space)"),
+    Setting("ref_weight", 0.01, "float", minimum=0, maximum=1e6,
+            help="weight of the reference-model term relative to the roughness (0: off)",
+            source="keeps layers the data barely see from running away; common practice, no "
+            "source"),
+    Setting("doi_method", "sensitivity", "choice", choices=("sensitivity", "two-reference"),
+            help="depth of investigation from cumulative sensitivity or two reference models"),
+    Setting("doi_threshold", None, "float", minimum=0, exclusive=True, maximum=1,
+            exclusive_max=True,
+            help="cumulative-sensitivity threshold or two-reference cut-off (unset: the "
+            "method's default)"),
+    Setting("few_layers", 4, "int", minimum=2, maximum=7,
+            help="layers of the few-layer model, half-space included"),
+    Setting("start_resistivity", None, "floats", "ohm-m", minimum=0, exclusive=True, maximum=1e9,
+            help="few-layer starting resistivities, top to half-space (unset: from the smooth "
+            "model)"),
+    Setting("start_thickness", None, "floats", "m", minimum=0, exclusive=True, maximum=1e5,
+            help="few-layer starting thicknesses, top down"),
+    Setting("priors", (), "custom", parse=parse_prior, flag="--prior", repeat=True,
+            metavar="KIND:LAYER=VALUE[/STD]",
+            help="few-layer prior or fixed value (no /STD); KIND resistivity, thickness or depth; "
+            "layers count from 0 at the top; STD relative (ln) for resistivity and thickness, m "
+            "for depth; e.g. depth:2=1350/50; repeatable"),
+    Setting("lci", False, "bool",
+            help="also invert the whole profile jointly (laterally constrained, models_lci.nc)"),
+    Setting("lateral_weight", 1.0, "float", minimum=0, exclusive=True, maximum=1e6,
+            help="laterally constrained inversion: lateral against vertical roughness weight"),
+    Setting("lm_max_iter", 50, "int", minimum=1, maximum=1000, expose=False,
+            help="Levenberg-Marquardt iterations of the few-layer fit"),
+], "InversionSettings", doc="Settings of a station inversion (all explicit; no module globals).",
+    checks=[_consistent])
+
+InversionSettings = INVERT.cls
+
+
+def floors_of(settings) -> dict:
+    """Error floor per component from ``settings.floor``."""
+    from .data import parse_floors
+
+    try:
+        return parse_floors(settings.floor)
+    except ValueError as exc:  # pragma: no cover - checked by the table
+        raise input_error("floor", str(exc)) from None

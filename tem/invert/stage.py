@@ -1,0 +1,109 @@
+"""The inversion stage's one door: ``gated/<station>.nc`` -> ``models/`` (+ fit figures).
+
+``tem invert`` and ``tem run`` both call :func:`run`. Writes, under ``models/``:
+``models.nc`` (the chosen kind: smooth or few-layer), ``models.csv`` (layer
+table), ``fit.csv`` (observed and predicted data), ``models_smooth.nc`` when the
+few-layer model is chosen, and with ``lci`` ``models_lci.nc`` and
+``fit_lci.csv``.
+"""
+from __future__ import annotations
+
+from pathlib import Path
+
+import numpy as np
+
+from ..io.project import Project
+from ..provenance import file_sha256, stage_record
+from ..runtime import StageContext, StageResult, StationOutcome, map_stations
+from .settings import InversionSettings, floors_of
+
+__all__ = ["run", "invert_one"]
+
+
+def invert_one(sid, in_path, settings: InversionSettings, floors, fig_path):
+    """Invert one gated file (runs in a worker process); the result rides in ``payload``."""
+    from ..io.stacked import read_product
+    from .data import station_data
+    from .station import invert_station
+
+    ds = read_product(in_path, "gated")
+    sd = station_data(ds, floors=floors, file=str(in_path))
+    r = invert_station(sd, settings)
+    products = []
+    if fig_path:
+        from ..io.figures import figure_bytes
+        from .plot import station_figure
+        products.append((fig_path, figure_bytes(station_figure(r, kind=settings.kind))))
+    info = {"chi2": float(r.chi2), "doi": float(r.doi), "converged": bool(r.converged),
+            "invert_message": "" if r.converged else str(r.message),
+            "epsg": int(ds.attrs.get("epsg", 0) or 0)}
+    if r.few is not None:
+        info["few_layer_chi2"] = float(r.few["chi2"])
+    return StationOutcome(sid, "ok", inputs=[{"file": str(in_path), "sha256": file_sha256(in_path)}],
+                          info=info, payload=r, products=products)
+
+
+def _lci(results, files, settings, floors, folder, record, epsg, res):
+    """Laterally constrained inversion of the stations that have a smooth model."""
+    from ..errors import TemInputError
+    from ..io.models import write_models
+    from .product import load_station, models_from_results, write_fit_csv
+    from .station import lci_profile
+
+    if len(results) < 2:
+        res.failed = "laterally constrained inversion needs two or more inverted stations"
+        return []
+    try:
+        sds = [load_station(files[r.station], floors) for r in results]
+        lres = lci_profile(sds, settings)
+        ds = models_from_results(lres, kind="lci", epsg=epsg)
+    except (TemInputError, ValueError, np.linalg.LinAlgError, FloatingPointError) as exc:
+        res.failed = f"laterally constrained inversion failed: {exc}".splitlines()[0]
+        return []
+    chi2 = np.array([r.chi2 for r in lres])
+    res.notes.append(f"laterally constrained inversion: {len(lres)} stations, chi2 per station "
+                     f"{chi2.min():.2f}-{chi2.max():.2f}")
+    return [str(write_models(ds, folder / "models_lci.nc", record=dict(record, stage="invert-lci"))),
+            str(write_fit_csv(lres, folder / "fit_lci.csv", kind="lci"))]
+
+
+def run(settings: InversionSettings, gated_files, out, ctx: StageContext = StageContext()) -> StageResult:
+    """Invert each gated file; write the models of the stations that succeed into ``OUT/models``.
+
+    Returns
+    -------
+    StageResult
+        One outcome per file; ``failed`` says why no models file was written.
+    """
+    from ..io.models import write_models, write_models_csv
+    from .product import models_from_results, write_fit_csv
+
+    project = out if isinstance(out, Project) else Project(out)
+    floors = floors_of(settings)
+    files = {Path(f).stem: Path(f) for f in gated_files}
+    jobs = [(sid, (sid, f, settings, floors,
+                   project.station_figure(sid, "fit") if ctx.figures else None))
+            for sid, f in files.items()]
+    res = StageResult(stations=map_stations(invert_one, jobs, ctx))
+    results = [oc.payload for oc in res.stations.values() if oc.status == "ok"]
+    for oc in res.stations.values():
+        oc.payload = None
+    res.inputs = [i for oc in res.stations.values() for i in oc.inputs]
+    folder = project.folder("models")
+    if not results:
+        res.failed = "no station could be inverted"
+        return res
+    record = stage_record("invert", settings.as_dict())
+    record["inputs"] = res.inputs
+    epsgs = {oc.info.get("epsg", 0) for oc in res.stations.values() if oc.status == "ok"}
+    epsg = epsgs.pop() if len(epsgs) == 1 else 0
+    ds = models_from_results(results, kind=settings.kind, epsg=epsg)
+    res.outputs += [str(write_models(ds, folder / "models.nc", record=record)),
+                    str(write_models_csv(ds, folder / "models.csv")),
+                    str(write_fit_csv(results, folder / "fit.csv", kind=settings.kind))]
+    if settings.kind == "few-layer":
+        smooth = models_from_results(results, kind="smooth", epsg=epsg)
+        res.outputs.append(str(write_models(smooth, folder / "models_smooth.nc", record=record)))
+    if settings.lci:
+        res.outputs += _lci(results, files, settings, floors, folder, record, epsg, res)
+    return res

@@ -1,0 +1,24 @@
+"""netCDF products as bytes: serialised in memory (h5netcdf), written with one atomic write.
+
+Serialising first keeps the HDF5 library away from the disk: a full disk or a
+file-size limit meets a plain Python write (one error line), never a failure
+inside the C library, and a product can travel from a worker process to the
+writer as bytes.
+"""
+from __future__ import annotations
+
+from pathlib import Path
+
+from .atomic import write_bytes_atomic
+
+__all__ = ["netcdf_bytes", "write_netcdf"]
+
+
+def netcdf_bytes(ds) -> bytes:
+    """The netCDF-4 file of an xarray Dataset, as bytes."""
+    return bytes(ds.to_netcdf(engine="h5netcdf"))
+
+
+def write_netcdf(ds, path) -> Path:
+    """Write a Dataset to ``path`` atomically."""
+    return write_bytes_atomic(path, netcdf_bytes(ds))

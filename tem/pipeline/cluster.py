@@ -1,0 +1,38 @@
+"""The distributed back end: station work as tasks on a dask.distributed cluster.
+
+``tem run --scheduler local`` starts a LocalCluster of ``--jobs`` single-threaded
+worker processes on this machine; ``--scheduler tcp://HOST:8786`` connects to a
+running scheduler (docs/scaling.md shows how to start one, with workers by hand
+or through dask-jobqueue on SLURM/PBS). Workers read their inputs from the
+paths they are given (a file system shared with the client) and return
+products as bytes; only the client writes into the project.
+"""
+from __future__ import annotations
+
+import contextlib
+
+from ..errors import input_error
+
+__all__ = ["dask_client"]
+
+
+@contextlib.contextmanager
+def dask_client(scheduler: str, jobs: int):
+    """A dask.distributed Client for ``scheduler`` (``"local"`` or an address)."""
+    try:
+        from distributed import Client, LocalCluster
+    except ImportError:  # pragma: no cover - a run-time dependency
+        raise input_error("--scheduler", "dask.distributed is not installed") from None
+    if scheduler == "local":
+        with LocalCluster(n_workers=max(1, int(jobs)), threads_per_worker=1, processes=True,
+                          dashboard_address=None, silence_logs=50) as cluster, \
+                Client(cluster, set_as_default=False) as client:
+            yield client
+        return
+    try:
+        client = Client(scheduler, timeout="20s", set_as_default=False)
+    except (OSError, TimeoutError, ValueError) as exc:
+        raise input_error("--scheduler", f"cannot reach {scheduler} "
+                          f"({type(exc).__name__}: {str(exc).splitlines()[0][:80]})") from None
+    with client:
+        yield client

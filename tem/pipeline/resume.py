@@ -1,0 +1,92 @@
+"""Resume by content: fingerprints of what made each product, and what a rerun may reuse.
+
+Every product of ``tem run`` is recorded in ``run.json`` with the checksum
+(SHA-256) it had when written, and with the *fingerprint* of what made it: a
+hash of the stage, the tool version, the stage's settings and the checksums of
+its inputs (for a station's stack: its recordings and its part of the survey
+description; later stages: the products they read). A rerun without
+``--from`` reuses a product whose fingerprint is unchanged and whose file still
+has its recorded checksum, and redoes the stale ones; a product whose checksum
+changed since it was written (edited by hand, or damaged) is reported and
+redone. Checksums of large inputs are cached by size and modification time.
+"""
+from __future__ import annotations
+
+import hashlib
+import json
+from pathlib import Path
+
+from .. import __version__
+from ..provenance import file_sha256
+
+__all__ = ["Checksums", "fingerprint", "station_survey_text", "reusable", "changed_products"]
+
+
+class Checksums:
+    """SHA-256 of files, reusing a recorded value when size and modification time are unchanged."""
+
+    def __init__(self, previous: dict | None = None):
+        self.previous = dict(previous or {})
+        self.table = {}
+
+    def of(self, path) -> str:
+        p = Path(path)
+        key = str(p.resolve())
+        if key in self.table:
+            return self.table[key]["sha256"]
+        st = p.stat()
+        old = self.previous.get(key)
+        if old and old.get("size") == st.st_size and old.get("mtime_ns") == st.st_mtime_ns:
+            sha = old["sha256"]
+        else:
+            sha = file_sha256(p)
+        self.table[key] = {"size": st.st_size, "mtime_ns": st.st_mtime_ns, "sha256": sha}
+        return sha
+
+
+def fingerprint(stage: str, settings: dict, input_sums, extra=None) -> str:
+    """Hash of what makes a product: stage, tool version, settings, input checksums."""
+    payload = json.dumps({"stage": stage, "tem_version": __version__, "settings": settings,
+                          "inputs": sorted(input_sums), "extra": extra}, sort_keys=True,
+                         default=str)
+    return hashlib.sha256(payload.encode()).hexdigest()
+
+
+def station_survey_text(survey, station_id) -> str:
+    """The part of the survey description one station's stack depends on."""
+    from ..survey import replace, survey_to_dict
+
+    one = replace(survey, stations=[survey.station(station_id)])
+    doc = survey_to_dict(one)
+    doc["survey"].pop("name", None)
+    return json.dumps(doc, sort_keys=True)
+
+
+def changed_products(project, recorded: dict, sums: Checksums) -> tuple:
+    """(missing, changed) relative paths among ``recorded`` ``{relpath: sha256}``."""
+    missing, changed = [], []
+    for rel, sha in recorded.items():
+        p = project.root / rel
+        if not p.is_file():
+            missing.append(rel)
+        elif sums.of(p) != sha:
+            changed.append(rel)
+    return missing, changed
+
+
+def reusable(project, record: dict | None, fp: str, sums: Checksums):
+    """Whether a recorded product set (station or stage) can be reused.
+
+    Returns ``(reuse, note)``: ``note`` names products changed since they were
+    written (they are then redone).
+    """
+    if not record or record.get("fingerprint") != fp or record.get("status", "ok") != "ok":
+        return False, ""
+    recorded = record.get("checksums") or {}
+    if not recorded:
+        return False, ""
+    missing, changed = changed_products(project, recorded, sums)
+    if changed:
+        return False, (f"{', '.join(changed)} changed since written (edited by hand?); "
+                       "recomputed")
+    return not missing, ""

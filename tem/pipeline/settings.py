@@ -1,0 +1,91 @@
+"""Processing settings of ``tem run``: every stage's table, the survey's ``[processing]`` table and
+``--set`` overrides.
+
+Each stage declares its settings once (``tem/<stage>/settings.py``); this
+module only gathers them. A survey's ``[processing.<stage>]`` table sets keys
+of that stage (others keep their defaults); ``--set STAGE.KEY=VALUE`` wins over
+the table. Unknown stages or keys and values of the wrong type are refused with
+one line naming the file and the field (``processing.invert.layers``) or the
+option (``--set invert.layers``). Relative paths (``section.line``,
+``export.velocity``) are relative to the survey file.
+"""
+from __future__ import annotations
+
+from pathlib import Path
+
+from ..errors import input_error
+from ..export.settings import EXPORT
+from ..gate.settings import GATE
+from ..invert.settings import INVERT
+from ..io.tomlfile import read_toml
+from ..report.settings import REPORT
+from ..rhoa.settings import RHOA
+from ..section.settings import SECTION
+from ..settings import override_origin, survey_origin
+from ..stack.settings import STACK
+
+__all__ = ["TABLES", "STAGES", "read_processing", "resolve_settings", "defaults"]
+
+#: The settings table of every stage, in the order of the chain.
+TABLES = {t.stage: t for t in (STACK, GATE, RHOA, INVERT, SECTION, EXPORT, REPORT)}
+STAGES = tuple(TABLES)
+
+
+def read_processing(survey_file) -> dict:
+    """The ``[processing]`` table of a survey TOML file ({} when absent)."""
+    path = Path(survey_file)
+    doc = read_toml(path, "survey")
+    table = doc.get("processing", {})
+    if not isinstance(table, dict):
+        raise input_error("processing", "expected a table", path)
+    return table
+
+
+def defaults() -> dict:
+    """``{stage: settings object}`` with every default."""
+    return {stage: t.build() for stage, t in TABLES.items()}
+
+
+def resolve_settings(processing: dict | None = None, overrides=(), survey_file=None) -> dict:
+    """Defaults updated by the survey's ``[processing]`` table, then by ``--set`` overrides.
+
+    Parameters
+    ----------
+    processing : dict
+        The ``[processing]`` table (``{stage: {key: value}}``).
+    overrides : sequence of (stage, key, value)
+        ``--set`` values; they win over the table.
+    survey_file : path, optional
+        Named in errors; relative paths are resolved against its folder.
+
+    Returns
+    -------
+    dict
+        ``{stage: settings object}`` for every stage of :data:`STAGES`.
+    """
+    base = Path(survey_file).parent if survey_file else None
+    values = {stage: {} for stage in TABLES}
+    origins = {stage: {} for stage in TABLES}
+    for stage, table in (processing or {}).items():
+        if stage not in TABLES:
+            raise input_error(f"processing.{str(stage)[:40]}", "unknown stage; valid: "
+                              + ", ".join(STAGES), survey_file)
+        given = TABLES[stage].from_table(table, survey_file, base)
+        values[stage].update(given)
+        origins[stage].update({k: survey_origin(survey_file) for k in given})
+    for stage, key, value in overrides:
+        if stage not in TABLES:
+            raise input_error(f"--set {str(stage)[:40]}", "unknown stage; valid: " + ", ".join(STAGES))
+        t = TABLES[stage]
+        if key not in t.names or not t.item(key).expose:
+            raise input_error(f"--set {stage}.{str(key)[:40]}", "unknown key; valid: "
+                              + ", ".join(s.name for s in t.exposed))
+        values[stage][key] = value
+        origins[stage][key] = override_origin()
+    out = {}
+    for stage, t in TABLES.items():
+        out[stage] = t.build(values[stage], survey_origin(survey_file), origins[stage])
+    if out["export"].models == "lci" and not out["invert"].lci:
+        raise input_error("processing.export.models", "'lci' needs the laterally constrained "
+                          "inversion (invert.lci = true)", survey_file)
+    return out

@@ -1,0 +1,1 @@
+"""Report stage: the HTML quality-control report of a project."""

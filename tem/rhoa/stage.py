@@ -1,0 +1,137 @@
+"""The apparent-resistivity stage's one door: ``gated/<station>.nc`` -> ``rhoa/<station>.nc``,
+``rhoa/rhoa.csv``, sounding figures and pseudo-sections.
+
+``tem rhoa`` and ``tem run`` both call :func:`run`.
+"""
+from __future__ import annotations
+
+import csv
+import io
+from pathlib import Path
+
+import numpy as np
+
+from ..io.project import Project
+from ..provenance import file_sha256
+from ..runtime import StageContext, StageResult, StationOutcome, map_stations
+from .settings import RhoaSettings
+
+__all__ = ["run", "rhoa_one", "csv_text"]
+
+
+def rhoa_one(sid, in_path, settings: RhoaSettings, out_path, fig_path):
+    """Apparent resistivity of one gated file (runs in a worker); products ride back as bytes."""
+    from ..io.figures import figure_bytes
+    from ..io.netcdf import netcdf_bytes
+    from ..io.stacked import read_product
+    from .plot import sounding_figure
+    from .sounding import sounding_rhoa, table_rows
+
+    ds = read_product(in_path, "gated")
+    res = sounding_rhoa(ds, settings, source=str(in_path))
+    products = [(out_path, netcdf_bytes(res))]
+    if fig_path:
+        fig = sounding_figure(res, title=f"station {sid}: apparent resistivity")
+        products.append((fig_path, figure_bytes(fig)))
+    rho = res["rhoa" if settings.all_time else "rhoa_late"].values
+    info = {"rhoa_converted": int(np.isfinite(rho).sum())}
+    return StationOutcome(sid, "ok", inputs=[{"file": str(in_path), "sha256": file_sha256(in_path)}],
+                          info=info, payload=table_rows(res), products=products)
+
+
+def _rows_of(project, sid):
+    """Table rows of a station's apparent-resistivity file (a product kept from an earlier run)."""
+    from ..io.stacked import read_product
+    from .sounding import table_rows
+
+    return table_rows(read_product(project.station_file("rhoa", sid), "rhoa"))
+
+
+def _cell(v):
+    if isinstance(v, float):
+        return "" if not np.isfinite(v) else f"{v:.9g}"
+    return v
+
+
+def csv_text(rows) -> str:
+    """The ``rhoa.csv`` table (:data:`tem.rhoa.sounding.TABLE_COLUMNS`; 9 significant digits)."""
+    from .sounding import TABLE_COLUMNS
+
+    buf = io.StringIO()
+    w = csv.writer(buf, lineterminator="\n")
+    w.writerow(TABLE_COLUMNS)
+    for r in rows:
+        w.writerow([_cell(v) for v in r])
+    return buf.getvalue()
+
+
+def pseudo_sections(project: Project, stations, settings: RhoaSettings):
+    """One pseudo-section figure per component found at two or more stations.
+
+    Returns ``(written files, notes)``; a component that cannot be drawn is
+    named in a note with the reason.
+    """
+    from ..io.figures import save_figure
+    from ..io.stacked import read_product
+    from .late_time import diffusion_depth
+    from .plot import pseudo_section
+
+    key = "rhoa" if settings.all_time else "rhoa_late"
+    data = [(sid, read_product(project.station_file("rhoa", sid), "rhoa")) for sid in stations]
+    files, notes = [], []
+    for comp in sorted({str(c) for _, r in data for c in r["component"].values}):
+        st, x, y, tt, rr, dd = [], [], [], [], [], []
+        for sid, r in data:
+            ch = [i for i, c in enumerate(r["component"].values) if str(c) == comp]
+            if not ch:
+                continue
+            t = r["gate_centre"].values
+            rho = np.where(r["usable"].values[ch[0]], r[key].values[ch[0]], np.nan)
+            st.append(sid)
+            x.append(float(r.attrs["x"]))
+            y.append(float(r.attrs["y"]))
+            tt.append(t)
+            rr.append(rho)
+            dd.append(diffusion_depth(rho, t))
+        if len(st) < 2 or not any(np.isfinite(v).any() for v in rr):
+            notes.append(f"no pseudo-section for {comp}: needs usable apparent resistivity at two "
+                         f"or more stations ({len(st)} with the component)")
+            continue
+        kind = "all-time" if settings.all_time else "late-time"
+        fig = pseudo_section(st, x, y, tt, rr, dd, axis_kind=settings.section_axis,
+                             title=f"{comp}: {kind} apparent resistivity (usable gates)")
+        files += save_figure(fig, project.folder("figures") / f"pseudosection_{comp}")
+    return files, notes
+
+
+def run(settings: RhoaSettings, gated_files, out, ctx: StageContext = StageContext()) -> StageResult:
+    """Apparent resistivity of each gated file into ``OUT/rhoa/`` (+ table and figures).
+
+    Writes ``rhoa/<name>.nc`` per file, ``rhoa/rhoa.csv`` (one row per
+    station, channel and gate; not written when no station converts), the
+    sounding figures and, with figures on, a pseudo-section per component.
+    """
+    from ..io.atomic import write_text_atomic
+
+    project = out if isinstance(out, Project) else Project(out)
+    jobs = []
+    for f in map(Path, gated_files):
+        sid = f.stem
+        jobs.append((sid, (sid, f, settings, project.station_file("rhoa", sid),
+                           project.station_figure(sid, "rhoa") if ctx.figures else None)))
+    res = StageResult(stations=map_stations(rhoa_one, jobs, ctx))
+    rows = []
+    for sid, oc in res.stations.items():
+        if oc.status == "ok":
+            rows += oc.payload if oc.payload is not None else _rows_of(project, sid)
+    for oc in res.stations.values():
+        oc.payload = None
+    if not rows:
+        res.failed = "no station could be converted to apparent resistivity"
+        return res
+    res.outputs.append(str(write_text_atomic(project.folder("rhoa") / "rhoa.csv", csv_text(rows))))
+    if ctx.figures:
+        files, notes = pseudo_sections(project, res.ok, settings)
+        res.outputs += [str(p) for p in files]
+        res.notes += notes
+    return res

@@ -1,0 +1,190 @@
+"""What every stage shares: per-station outcomes, a stage's result, running stations in a pool.
+
+A stage's ``run`` processes stations with :func:`map_stations` (in a process
+pool when the context holds one), so that ``tem <stage>`` and ``tem run`` do
+the same work in the same way. A station that fails is reported with one line
+and the others go on.
+"""
+from __future__ import annotations
+
+import concurrent.futures as cf
+import multiprocessing as mp
+from dataclasses import dataclass, field
+
+from .errors import TemInputError, TemOutputError
+
+__all__ = ["StationOutcome", "StageResult", "StageContext", "map_stations", "process_pool",
+           "write_products"]
+
+
+@dataclass
+class StationOutcome:
+    """What one stage did for one station.
+
+    status is ``ok`` or ``failed``; ``info`` holds summary values (usable
+    gates, chi2, DOI, verdicts) that the run record and tables show;
+    ``payload`` carries data back to the parent process (table rows, results);
+    ``products`` are the files of the station as ``(path, bytes)``: a worker
+    (a local process or a cluster node) only computes, the parent writes them
+    (atomically) and lists them in ``outputs``.
+    """
+
+    station: str
+    status: str
+    message: str = ""
+    outputs: list = field(default_factory=list)
+    inputs: list = field(default_factory=list)   # [{"file", "sha256"}]
+    info: dict = field(default_factory=dict)
+    payload: object = None
+    products: list = field(default_factory=list)  # [(path, bytes)]: written by the parent
+
+
+@dataclass
+class StageResult:
+    """What a stage did: per-station outcomes, profile outputs, notes and input checksums."""
+
+    stations: dict = field(default_factory=dict)  # id -> StationOutcome
+    outputs: list = field(default_factory=list)
+    inputs: list = field(default_factory=list)
+    notes: list = field(default_factory=list)
+    failed: str = ""                              # profile-level failure (one line)
+
+    @property
+    def ok(self) -> list:
+        """Ids of the stations that passed."""
+        return [s for s, oc in self.stations.items() if oc.status == "ok"]
+
+    @property
+    def any_failed(self) -> bool:
+        return bool(self.failed) or any(oc.status != "ok" for oc in self.stations.values())
+
+    def all_outputs(self) -> list:
+        return list(self.outputs) + [o for oc in self.stations.values() for o in oc.outputs]
+
+
+@dataclass
+class StageContext:
+    """How a stage runs, apart from its settings and inputs.
+
+    executor : a process pool or None (in this process). progress : called as
+    ``progress(station, status)`` after each station (or None). figures :
+    write the per-station and profile figures. run_state : the run record of
+    ``tem run`` (None for a stage command). reused : station -> outcome carried
+    over from an earlier run (its products are on disk and up to date): those
+    stations are not computed again.
+    """
+
+    executor: object = None
+    progress: object = None
+    figures: bool = True
+    run_state: dict | None = None
+    reused: dict = field(default_factory=dict)
+
+
+def _guarded(task, station, args):
+    """Run a station task; any failure becomes a one-line failed outcome.
+
+    A failed write (:class:`TemOutputError`: disk full, file-size limit) is
+    not a station's fault: it stops the stage.
+    """
+    try:
+        return task(*args)
+    except TemOutputError:
+        raise
+    except TemInputError as exc:
+        return StationOutcome(station, "failed", str(exc).splitlines()[0])
+    except Exception as exc:  # noqa: BLE001 - one station must not stop the batch
+        text = f"{type(exc).__name__}: {exc}".splitlines()[0]
+        return StationOutcome(station, "failed", text)
+
+
+def write_products(oc: StationOutcome):
+    """Write a station's products (in this, the parent, process) and list them in outputs."""
+    from .io.atomic import write_bytes_atomic
+
+    for path, data in oc.products:
+        oc.outputs.append(str(write_bytes_atomic(path, data)))
+    oc.products = []
+
+
+def _completed(executor, futures):
+    """Futures as they finish, for a local pool or a dask.distributed client."""
+    if hasattr(executor, "scheduler_info"):          # dask.distributed.Client
+        from distributed import as_completed
+        return as_completed(list(futures))
+    return cf.as_completed(futures)
+
+
+def map_stations(task, jobs, ctx: StageContext) -> dict:
+    """Run ``task(*args)`` for each ``(station, args)`` in ``jobs``; returns id -> outcome.
+
+    Uses ``ctx.executor`` when given (a process pool or a dask.distributed
+    client; a crashed worker fails only its station), else runs in this
+    process. Each outcome's products are written here as it arrives, then
+    reported through ``ctx.progress``; the result keeps the order of ``jobs``.
+    A failed write (:class:`TemOutputError`) stops the stage.
+    """
+    out = {}
+
+    def done(oc):
+        write_products(oc)
+        out[oc.station] = oc
+        if ctx.progress:
+            ctx.progress(oc.station, oc.status)
+
+    for sid, _ in jobs:
+        if sid in ctx.reused:
+            done(ctx.reused[sid])
+    todo = [(sid, args) for sid, args in jobs if sid not in ctx.reused]
+    if ctx.executor is None or len(todo) <= 1:
+        for sid, args in todo:
+            done(_guarded(task, sid, args))
+        return {sid: out[sid] for sid, _ in jobs}
+    futs = {ctx.executor.submit(_guarded, task, sid, args): sid for sid, args in todo}
+    for fut in _completed(ctx.executor, futs):
+        sid = futs[fut]
+        try:
+            oc = fut.result()
+        except TemOutputError:
+            raise
+        except Exception as exc:  # noqa: BLE001 - e.g. a killed worker process
+            oc = StationOutcome(sid, "failed", f"worker failed: {type(exc).__name__}: {exc}"
+                                .splitlines()[0])
+        done(oc)
+    return {sid: out[sid] for sid, _ in jobs}
+
+
+def _watch_parent(pid: int, period: float = 0.5):
+    """Worker initializer: end this worker soon after the process ``pid`` ends (even kill -9)."""
+    import os
+    import threading
+    import time
+
+    def watch():
+        while True:
+            time.sleep(period)
+            try:
+                os.kill(pid, 0)
+            except ProcessLookupError:
+                os._exit(1)
+            except PermissionError:  # pragma: no cover - another user's process took the pid
+                os._exit(1)
+
+    threading.Thread(target=watch, name="tem-parent-watch", daemon=True).start()
+
+
+def process_pool(jobs: int):
+    """A process pool of ``jobs`` workers (forkserver start: safe beside progress threads).
+
+    Each worker ends within a second when this process ends, however it ends.
+    """
+    import os
+
+    if jobs <= 1:
+        return None
+    try:
+        ctx = mp.get_context("forkserver")
+    except ValueError:  # pragma: no cover - platforms without forkserver
+        ctx = mp.get_context("spawn")
+    return cf.ProcessPoolExecutor(max_workers=int(jobs), mp_context=ctx,
+                                  initializer=_watch_parent, initargs=(os.getpid(),))

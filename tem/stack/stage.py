@@ -1,0 +1,82 @@
+"""The stack stage's one door: survey + raw recordings -> ``stacked/<station>.nc`` (+ figures).
+
+``tem stack`` and ``tem run`` both call :func:`run`.
+"""
+from __future__ import annotations
+
+from pathlib import Path
+
+from ..io.project import Project
+from ..provenance import stage_record
+from ..runtime import StageContext, StageResult, StationOutcome, map_stations
+from .settings import StackSettings
+
+__all__ = ["run", "stack_one"]
+
+
+def stack_one(survey, sid, settings: StackSettings, survey_file, out_path, fig_path):
+    """Stack one station (runs in a worker); its product and figure ride back as bytes."""
+    from ..io.figures import figure_bytes
+    from ..io.netcdf import netcdf_bytes
+    from ..io.stacked import stacked_dataset
+    from ..qc import qc_rows, raw_vs_stacked_figure
+    from .stacking import stack_station
+
+    st = survey.station(sid)
+    chans, timing = stack_station(survey, st, settings)
+    inputs = ([survey_file] if survey_file else []) + [survey.path(f) for rx in st.receivers
+                                                        for f in rx.files]
+    rec = stage_record("stack", {"station": sid, **settings.as_dict(), "timing": timing["source"]},
+                       inputs=inputs)
+    ds = stacked_dataset(survey, st, chans, timing, settings, [rec])
+    products = [(out_path, netcdf_bytes(ds))]
+    if fig_path:
+        products.append((fig_path, figure_bytes(raw_vs_stacked_figure(ds))))
+    rows = qc_rows(ds)
+    used = sum(r["used"] for r in rows)
+    total = sum(r["total"] for r in rows)
+    info = {"transients": f"{used}/{total}",
+            "timing_source": timing["source"],
+            "timing_residual_us": float(timing["residual_rms"]) * 1e6}
+    return StationOutcome(sid, "ok", inputs=rec["inputs"], info=info, payload=rows,
+                          products=products)
+
+
+def run(settings: StackSettings, survey, stations, out, ctx: StageContext = StageContext(),
+        survey_file=None) -> StageResult:
+    """Stack the raw recordings of ``stations`` into ``OUT/stacked/<station>.nc``.
+
+    Parameters
+    ----------
+    settings : StackSettings
+    survey : tem.survey.Survey
+    stations : sequence of str
+        Station ids, in survey order.
+    out : path or Project
+        Output folder (docs/pipeline.md layout).
+    ctx : StageContext
+        Pool, progress and figures.
+    survey_file : path, optional
+        The survey TOML (its checksum goes into the provenance).
+
+    Returns
+    -------
+    StageResult
+        One outcome per station; ``payload`` holds its QC table rows.
+    """
+    from ..survey import replace
+
+    project = out if isinstance(out, Project) else Project(out)
+    if settings.timing:
+        survey = replace(survey, transmitter=replace(survey.transmitter, timing=settings.timing))
+    jobs = [(sid, (survey, sid, settings, Path(survey_file) if survey_file else None,
+                   project.station_file("stacked", sid),
+                   project.station_figure(sid, "raw") if ctx.figures else None))
+            for sid in stations]
+    res = StageResult(stations=map_stations(stack_one, jobs, ctx))
+    ok, _ = survey.mains_rule()
+    if not ok:
+        res.notes.append(f"mains {survey.mains_frequency:g} Hz / (2 x base "
+                         f"{survey.transmitter.base_frequency:g} Hz) is not a whole number: the "
+                         "stack does not null the mains (docs/stacking.md)")
+    return res

@@ -1,0 +1,219 @@
+"""One door per stage (issue 9): ``tem <stage>`` and ``tem run`` make the same products.
+
+A small synthetic day (two Emberline Plateau stations, fictional) goes once
+through ``tem run`` with a ``[processing]`` table and once through the stage
+commands with the same settings as options; every product must match: the
+same file names (figures included), CSV bytes, netCDF variables and
+attributes (time stamps and the project folder's path aside), LAS curves and
+SEG-Y traces. Also: commands never write into or over their inputs.
+"""
+from __future__ import annotations
+
+import json
+import re
+from pathlib import Path
+
+import numpy as np
+import pytest
+
+from tem.cli import main
+
+PROCESSING = """
+[processing.stack]
+estimator = "mean"
+batches = 8
+
+[processing.gate]
+per_decade = 4.0
+
+[processing.rhoa]
+rho_per_decade = 4
+
+[processing.invert]
+layers = 10
+max_iter = 3
+
+[processing.section]
+depth_step = 25.0
+formats = ["png"]
+
+[processing.export]
+las_step = 10.0
+"""
+
+COMMANDS = [
+    ["stack", "{day}/survey.toml", "--estimator", "mean", "--batches", "8"],
+    ["gate", "{out}/stacked", "--per-decade", "4"],
+    ["rhoa", "{out}/gated", "--rho-per-decade", "4"],
+    ["invert", "{out}/gated", "--layers", "10", "--max-iter", "3"],
+    ["section", "{out}/models/models.nc", "--depth-step", "25", "--formats", "png"],
+    ["export", "{out}", "--las-step", "10"],
+    ["report", "{out}"],
+]
+
+
+@pytest.fixture(scope="module")
+def two_doors(tmp_path_factory):
+    import tomli_w
+
+    from tem.survey import survey_to_dict
+    from tem.synth import emberline_survey, synth_survey
+
+    root = tmp_path_factory.mktemp("doors")
+    day = root / "day"
+    sv, models = emberline_survey(base_dir=day, sample_rate=1000.0, stations=["EM05", "EM06"],
+                                  current_channel=False)
+    day.mkdir(parents=True, exist_ok=True)
+    (day / "survey.toml").write_text(tomli_w.dumps(survey_to_dict(sv)) + PROCESSING)
+    synth_survey(sv, models, day, seed=3, duration=24.0)
+    a, b = root / "A", root / "B"
+    assert main(["run", str(day / "survey.toml"), "--out", str(a), "--jobs", "1",
+                 "--no-progress"]) == 0
+    for cmd in COMMANDS:
+        args = [c.format(day=day, out=b) for c in cmd]
+        jobs = ["--jobs", "1"] if cmd[0] in ("stack", "gate", "rhoa", "invert") else []
+        opts = ["--no-progress"] if cmd[0] != "report" else []
+        assert main(args[:2] + ["--out", str(b)] + jobs + opts + args[2:]) == 0, cmd
+    return a, b
+
+
+def _files(root):
+    return sorted(p.relative_to(root).as_posix() for p in root.rglob("*")
+                  if p.is_file() and p.name != "run.json")
+
+
+_STAMP = re.compile(r'"time_utc": "[^"]*"')
+
+
+def _normal(text, roots):
+    """Attribute text with project paths and time stamps taken out."""
+    for r in roots:
+        text = text.replace(str(r), "<project>")
+    text = _STAMP.sub('"time_utc": ""', text)
+    # checksums of products differ only through their own time stamps: keep those of raw inputs
+    return re.sub(r'("file": "<project>/[^"]*\.nc", "sha256": ")[0-9a-f]+', r"\1", text)
+
+
+def _attrs(attrs, roots):
+    return {k: _normal(str(np.asarray(v).tolist() if isinstance(v, np.ndarray) else v), roots)
+            for k, v in attrs.items()}
+
+
+def test_same_files(two_doors):
+    a, b = two_doors
+    assert _files(a) == _files(b)
+    names = _files(a)
+    for expected in ("stacked/EM05.nc", "gated/EM06.nc", "rhoa/rhoa.csv", "models/models.nc",
+                     "models/fit.csv", "sections/section.nc", "exports/las/EM05.las",
+                     "exports/section_depth.sgy", "figures/section.png",
+                     "figures/stations/EM05_raw.png", "figures/stations/EM06_fit.png",
+                     "figures/pseudosection_ex.png", "report.html"):
+        assert expected in names
+
+
+def test_same_csv_bytes(two_doors):
+    a, b = two_doors
+    for name in _files(a):
+        if name.endswith(".csv"):
+            assert (a / name).read_bytes() == (b / name).read_bytes(), name
+
+
+def test_same_netcdf_products(two_doors):
+    import xarray as xr
+
+    a, b = two_doors
+    for name in _files(a):
+        if not name.endswith(".nc"):
+            continue
+        with xr.open_dataset(a / name, engine="h5netcdf") as x, \
+                xr.open_dataset(b / name, engine="h5netcdf") as y:
+            x, y = x.load(), y.load()
+        assert set(x.variables) == set(y.variables), name
+        for v in x.variables:
+            np.testing.assert_array_equal(x[v].values, y[v].values, err_msg=f"{name}: {v}")
+            assert _attrs(x[v].attrs, (a, b)) == _attrs(y[v].attrs, (a, b)), (name, v)
+        ax, ay = _attrs(x.attrs, (a, b)), _attrs(y.attrs, (a, b))
+        assert ax == ay, name
+
+
+def test_same_las_and_segy(two_doors):
+    import lasio
+    import segyio
+
+    a, b = two_doors
+    for name in _files(a):
+        if name.endswith(".las"):
+            la, lb = lasio.read(a / name), lasio.read(b / name)
+            assert [c.mnemonic for c in la.curves] == [c.mnemonic for c in lb.curves]
+            for c in la.curves:
+                np.testing.assert_array_equal(la[c.mnemonic], lb[c.mnemonic])
+            for item in la.params:
+                assert item.value == lb.params[item.mnemonic].value, (name, item.mnemonic)
+        if name.endswith(".sgy"):
+            with segyio.open(a / name, ignore_geometry=True) as fa, \
+                    segyio.open(b / name, ignore_geometry=True) as fb:
+                assert fa.tracecount == fb.tracecount
+                np.testing.assert_array_equal(fa.trace.raw[:], fb.trace.raw[:])
+                for i in range(fa.tracecount):
+                    assert dict(fa.header[i]) == dict(fb.header[i])
+    ma = json.loads((a / "exports" / "export.json").read_text())
+    mb = json.loads((b / "exports" / "export.json").read_text())
+    assert ma["files"] == mb["files"]
+
+
+def test_stage_records_name_the_same_settings(two_doors):
+    a, _ = two_doors
+    state = json.loads((a / "run.json").read_text())
+    from tem.pipeline.settings import TABLES
+
+    for stage, table in TABLES.items():
+        assert set(state["stages"][stage]["parameters"]) == set(table.names)
+    assert state["parameters"]["invert"]["layers"] == 10
+
+
+# ---------------------------------------------------------------- never write into an input
+def test_commands_refuse_to_write_into_or_over_their_inputs(two_doors, tmp_path, capsys):
+    a, _ = two_doors
+    day = a.parent / "day"
+    survey = day / "survey.toml"
+    before = {p: p.stat().st_mtime_ns for p in day.rglob("*") if p.is_file()}
+    model = tmp_path / "model.csv"
+    model.write_text("thickness_m,resistivity_ohmm\n100,10\n,100\n")
+    response = tmp_path / "response.csv"
+    response.write_text("thickness_m,resistivity_ohmm\n100,10\n,100\n")
+    cases = [
+        (["run", str(survey), "--out", str(day)], "is or lies inside the input folder"),
+        (["run", str(survey), "--out", str(day / "raw" / "EM05" / "proj")], "inside the input"),
+        (["stack", str(survey), "--out", str(day / "raw" / "EM05")], "inside the input folder"),
+        (["synth", str(survey), "--models", str(model), "--out", str(day)], "inside the input"),
+        (["forward", str(response), str(survey), "--out", str(tmp_path)],
+         "would overwrite or remove the input"),
+        (["forward", str(model), str(survey), "--out", str(model)], "exists and is not a folder"),
+        (["gate", str(a / "gated"), "--out", str(a / "gated" / "EM05.nc")], "not a folder"),
+        (["run", str(survey), "--out", str(survey)], "not a folder"),
+    ]
+    for args, msg in cases:
+        capsys.readouterr()
+        assert main(args) == 2, args
+        err = capsys.readouterr().err
+        assert msg in err and err.count("\n") == 1, (args, err)
+    after = {p: p.stat().st_mtime_ns for p in day.rglob("*") if p.is_file()}
+    assert after == before
+    assert model.read_text().startswith("thickness_m") and response.read_text().startswith("thick")
+    # a project may sit beside the raw folder, and a stage may write into its own project
+    assert main(["gate", str(a / "stacked"), "--out", str(tmp_path / "p"), "--no-figures",
+                 "--no-progress", "--jobs", "1"]) == 0
+
+
+def test_input_products_are_never_overwritten(two_doors, tmp_path, capsys):
+    a, _ = two_doors
+    # the gated inputs would be replaced by the gate stage writing into their own folder
+    import shutil
+
+    p = tmp_path / "p"
+    shutil.copytree(a / "gated", p / "gated")
+    shutil.copytree(a / "stacked", p / "stacked")
+    before = {f: f.read_bytes() for f in (p / "gated").iterdir()}
+    assert main(["gate", str(p / "gated"), "--out", str(p)]) == 2
+    assert "would overwrite or remove the input" in capsys.readouterr().err
+    assert {f: f.read_bytes() for f in (p / "gated").iterdir()} == before
