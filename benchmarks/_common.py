@@ -26,7 +26,7 @@ def best_time(fn, repeat=5, min_total=0.5):
 
 
 def cpu_per_call(fn, min_block=0.02):
-    """CPU time of one call of ``fn`` [s], from a block of calls lasting at least ``min_block`` s."""
+    """CPU time of one call of ``fn`` [s], from a block of calls lasting ``min_block`` s or more."""
     n = 0
     t0 = time.process_time()
     while True:

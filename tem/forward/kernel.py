@@ -52,7 +52,7 @@ MU0 = 4e-7 * np.pi
 __all__ = ["MU0", "fused_spectra", "fused_spectra_many"]
 
 _ATT_MAX = 20.0
-LANES = 8           # SIMD width in doubles (AVX-512); callers pad the wavenumbers to it
+LANES = 8   # SIMD width in doubles (AVX-512, a multiple of narrower ones); callers pad to it
 _JIT = dict(cache=True, fastmath=True, error_model="numpy")
 
 

@@ -4,13 +4,16 @@ Everything between the layered-earth kernel and the output is linear, so it
 is assembled once into matrices when a :class:`Simulation` is built:
 
 1. Hankel transforms by lagged-convolution digital linear filters and a
-   cubic spline in log offset (``tem.forward.dlf``), integrated along the
+   degree-7 spline in log offset (``tem.forward.dlf``; the filter chosen by
+   :meth:`Simulation._choose_hankel`), integrated along the
    wire or loop with Gauss-Legendre (lines) or trapezoidal (circles) nodes;
    grounded-wire electrodes add the galvanic (TM) terms in closed form
    plus a decaying remainder.
 2. The frequency-to-time transform by a lagged sine/cosine DLF onto a log
    time grid, a cubic spline in log time, and the receiver low-pass filter
-   as a multiplication in the frequency domain.
+   as a multiplication in the frequency domain; the kernel itself is
+   evaluated at 8 frequencies per decade (2 outside the band the times
+   need) and carried to the filter's frequencies by a degree-7 spline.
 3. The waveform: ramps integrated by Gauss-Legendre quadrature in log time,
    the alternating tails of earlier half-cycles summed with an Euler-Boole
    tail correction, and gate averages by Gauss-Legendre quadrature with the
@@ -24,9 +27,8 @@ from __future__ import annotations
 import numpy as np
 from scipy import signal
 
-from . import dlf, gatewindow
+from . import dlf, gatewindow, kernel
 from .geometry import CircularLoop, PolygonLoop, Receiver, Wire
-from . import kernel
 from .kernel import MU0, fused_spectra, fused_spectra_many
 from .model import LayeredModel
 from .terms import log_gauss_many, receiver_terms
@@ -511,7 +513,7 @@ class Simulation:
 
 
 def _coarse_omega(wlo, whi, core_lo, core_hi, per_decade, outer_per_decade):
-    """Log-frequency grid: ``per_decade`` inside [core_lo, core_hi], ``outer_per_decade`` outside."""
+    """Log-frequency grid: ``per_decade`` in [core_lo, core_hi], ``outer_per_decade`` outside."""
     step = np.log(10.0) / per_decade
     lo, hi = np.log(max(core_lo, wlo)), np.log(min(core_hi, whi))
     core = np.arange(lo, hi + step, step)
