@@ -57,6 +57,11 @@ def run(settings: ExportSettings, project_in, out, ctx: StageContext = StageCont
     if "segy-twt" in what and sp.vertical != "depth":
         raise input_error("vertical", "the two-way-time SEG-Y is computed from depth below surface; "
                           "make the section with vertical = depth", sfile)
+    step_mm = round(float(grid.attrs["depth_step"]) * 1000.0)
+    if "segy-depth" in what and (abs(float(grid.attrs["depth_step"]) * 1000.0 - step_mm) > 1e-6
+                                 or not 1 <= step_mm <= 65535):
+        raise input_error("depth_step", "the depth step must be a whole number of millimetres "
+                          "in 1..65535 for SEG-Y (bytes 3217-3218)", sfile)
     written = []
     if "csv" in what:
         written.append(write_models_csv(models, dest / "models.csv"))
@@ -64,10 +69,6 @@ def run(settings: ExportSettings, project_in, out, ctx: StageContext = StageCont
         written += las_io.write_las_all(models, dest / "las", settings.las_step, settings.las_bottom,
                                         settings.las_null_below_doi, source=str(mfile))
     if "segy-depth" in what:
-        step_mm = round(float(grid.attrs["depth_step"]) * 1000.0)
-        if abs(float(grid.attrs["depth_step"]) * 1000.0 - step_mm) > 1e-6 or not 1 <= step_mm <= 65535:
-            raise input_error("depth_step", "the depth step must be a whole number of millimetres "
-                              "in 1..65535 for SEG-Y (bytes 3217-3218)", sfile)
         data, first, step = segy.depth_section_traces(grid, settings.segy_value,
                                                       settings.segy_below_doi)
         text = segy.describe(grid, sp.vertical, step, settings.segy_value, settings.segy_below_doi,

@@ -15,8 +15,16 @@ __all__ = ["netcdf_bytes", "write_netcdf"]
 
 
 def netcdf_bytes(ds) -> bytes:
-    """The netCDF-4 file of an xarray Dataset, as bytes."""
-    return bytes(ds.to_netcdf(engine="h5netcdf"))
+    """The netCDF-4 file of an xarray Dataset, as bytes.
+
+    Serialised with dask's synchronous scheduler: inside a dask.distributed
+    worker, xarray would otherwise ask the cluster for a write lock keyed on
+    the in-memory buffer.
+    """
+    import dask
+
+    with dask.config.set(scheduler="synchronous"):
+        return bytes(ds.to_netcdf(engine="h5netcdf"))
 
 
 def write_netcdf(ds, path) -> Path:

@@ -13,7 +13,20 @@ import contextlib
 
 from ..errors import input_error
 
-__all__ = ["dask_client"]
+__all__ = ["dask_client", "worker_peak_rss_mb"]
+
+
+def _peak_rss_mb() -> float:
+    import resource
+    return resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024.0
+
+
+def worker_peak_rss_mb(client) -> float:
+    """Largest peak resident memory (MB) of the cluster's worker processes so far."""
+    try:
+        return float(max(client.run(_peak_rss_mb).values()))
+    except (ValueError, OSError):  # pragma: no cover - no workers left
+        return float("nan")
 
 
 @contextlib.contextmanager
@@ -26,11 +39,11 @@ def dask_client(scheduler: str, jobs: int):
     if scheduler == "local":
         with LocalCluster(n_workers=max(1, int(jobs)), threads_per_worker=1, processes=True,
                           dashboard_address=None, silence_logs=50) as cluster, \
-                Client(cluster, set_as_default=False) as client:
+                Client(cluster) as client:
             yield client
         return
     try:
-        client = Client(scheduler, timeout="20s", set_as_default=False)
+        client = Client(scheduler, timeout="20s")
     except (OSError, TimeoutError, ValueError) as exc:
         raise input_error("--scheduler", f"cannot reach {scheduler} "
                           f"({type(exc).__name__}: {str(exc).splitlines()[0][:80]})") from None

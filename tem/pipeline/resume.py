@@ -32,16 +32,22 @@ class Checksums:
     def of(self, path) -> str:
         p = Path(path)
         key = str(p.resolve())
-        if key in self.table:
-            return self.table[key]["sha256"]
         st = p.stat()
-        old = self.previous.get(key)
-        if old and old.get("size") == st.st_size and old.get("mtime_ns") == st.st_mtime_ns:
-            sha = old["sha256"]
+        for known in (self.table.get(key), self.previous.get(key)):
+            if known and known.get("size") == st.st_size and known.get("mtime_ns") == st.st_mtime_ns:
+                sha = known["sha256"]
+                break
         else:
             sha = file_sha256(p)
         self.table[key] = {"size": st.st_size, "mtime_ns": st.st_mtime_ns, "sha256": sha}
         return sha
+
+
+    def forget(self, path):
+        """Drop what is known of ``path`` (it was just written)."""
+        key = str(Path(path).resolve())
+        self.table.pop(key, None)
+        self.previous.pop(key, None)
 
 
 def fingerprint(stage: str, settings: dict, input_sums, extra=None) -> str:

@@ -152,11 +152,13 @@ def _user_inputs(survey, survey_file, settings):
 class _Run:
     """State of one ``tem run``: survey, settings, project, previous record, checksums."""
 
-    def __init__(self, survey, survey_file, settings, project, state, previous, ctx_kw):
+    def __init__(self, survey, survey_file, settings, project, state, previous, ctx_kw,
+                 force=()):
         self.survey, self.survey_file, self.settings = survey, survey_file, settings
         self.project, self.state, self.previous = project, state, previous
         self.sums = Checksums(previous.get("checksums"))
         self.ctx_kw = ctx_kw
+        self.force = set(force)          # stages recomputed whatever their fingerprints say
 
     def _station_inputs(self, stage):
         """{station: (input files, extra)} of a per-station stage."""
@@ -189,7 +191,7 @@ class _Run:
     def run_stage(self, stage, tick):
         """Run (or reuse) one stage; returns (StageResult, record)."""
         s = self.settings[stage]
-        prev_rec = self.previous.get("stages", {}).get(stage)
+        prev_rec = None if stage in self.force else self.previous.get("stages", {}).get(stage)
         notes = []
         reused = {}
         fps = {}
@@ -218,6 +220,8 @@ class _Run:
         result = _stage_call(stage, self.settings, self.survey, self.survey_file, self.project,
                              self.state, ctx)
         result.notes = notes + result.notes
+        for o in result.all_outputs():       # written now: never trust an earlier checksum
+            self.sums.forget(o)
         if reused:
             result.notes.append(f"reused {len(reused)} of {len(result.stations)} stations' "
                                 "products (inputs and settings unchanged)")
@@ -389,8 +393,8 @@ def _run_locked(survey, survey_file, settings, project, start, jobs, console, pr
             state["stages"].pop(s, None)
     else:
         state = {"tem_format": FORMAT, "format_version": FORMAT_VERSION, "stages": {}}
-    run = _Run(survey, survey_file, settings, project, state, previous,
-               {"figures": figures})
+    run = _Run(survey, survey_file, settings, project, state, previous, {"figures": figures},
+               force=STAGES[start:] if start > 0 else ())
     t_run = time.perf_counter()
     state.update({"tem_version": __version__,
                   "survey": {"file": str(survey_file.resolve()), "sha256": run.sums.of(survey_file),
@@ -450,6 +454,10 @@ def _run_locked(survey, survey_file, settings, project, start, jobs, console, pr
                 stop = f"no station passed {stage}"
             elif stage == "invert" and not (project.folder("models") / "models.nc").is_file():
                 stop = rec.get("failed") or "no models"
+        ex = run.ctx_kw["executor"]
+        if ex is not None and hasattr(ex, "scheduler_info"):
+            from .cluster import worker_peak_rss_mb
+            state["last_run"]["worker_peak_rss_mb"] = round(worker_peak_rss_mb(ex), 1)
     state["last_run"]["elapsed_s"] = round(time.perf_counter() - t_run, 2)
     state["last_run"]["stopped"] = stop
     state["stations"] = _station_summary(state, survey)

@@ -1,0 +1,198 @@
+"""Survey-scale runs that lose nothing (issue 14): resume by content, interruption, locks,
+a full disk, the dask.distributed back end.
+
+A small synthetic day (three Emberline Plateau stations, fictional) runs
+uninterrupted once (the reference); every other run must end with the same
+products (tests/products_compare.py). Processes are real: ``tem run`` in a
+subprocess, killed with SIGKILL at a stage, then rerun.
+"""
+from __future__ import annotations
+
+import json
+import os
+import signal
+import subprocess
+import sys
+import time
+from pathlib import Path
+
+import pytest
+
+from products_compare import assert_same_products
+from tem.cli import main
+
+PROCESSING = """
+[processing.stack]
+estimator = "mean"
+batches = 8
+
+[processing.gate]
+per_decade = 4.0
+
+[processing.rhoa]
+all_time = false
+
+[processing.invert]
+layers = 8
+max_iter = 2
+
+[processing.section]
+depth_step = 50.0
+formats = ["png"]
+"""
+
+STATIONS = ["EM04", "EM06", "EM08"]
+
+
+@pytest.fixture(scope="module")
+def day(tmp_path_factory):
+    import tomli_w
+
+    from tem.survey import survey_to_dict
+    from tem.synth import emberline_survey, synth_survey
+
+    root = tmp_path_factory.mktemp("scale")
+    d = root / "day"
+    sv, models = emberline_survey(base_dir=d, sample_rate=1000.0, stations=STATIONS,
+                                  current_channel=False)
+    d.mkdir(parents=True, exist_ok=True)
+    (d / "survey.toml").write_text(tomli_w.dumps(survey_to_dict(sv)) + PROCESSING)
+    synth_survey(sv, models, d, seed=5, duration=24.0)
+    ref = root / "reference"
+    assert main(["run", str(d / "survey.toml"), "--out", str(ref), "--jobs", "2",
+                 "--no-progress"]) == 0
+    return d / "survey.toml", ref
+
+
+def _tem(*args, capture=True, **kw):
+    out = subprocess.PIPE if capture else subprocess.DEVNULL
+    return subprocess.Popen([sys.executable, "-m", "tem", *map(str, args)],
+                            stdout=out, stderr=out, text=True, **kw)
+
+
+def _wait_for(pred, proc, timeout=240.0):
+    t0 = time.monotonic()
+    while time.monotonic() - t0 < timeout:
+        if pred():
+            return True
+        if proc.poll() is not None:
+            return False
+        time.sleep(0.01)
+    return False
+
+
+def _descendants(pid):
+    import psutil
+
+    try:
+        return psutil.Process(pid).children(recursive=True)
+    except psutil.NoSuchProcess:
+        return []
+
+
+def _partials(root):
+    return [p for p in Path(root).rglob("*.tem-part")]
+
+
+@pytest.mark.parametrize("point", ["stack", "invert", "export"])
+def test_killed_run_resumes_to_identical_products(day, tmp_path, point):
+    import psutil
+
+    survey, ref = day
+    proj = tmp_path / "p"
+    probes = {"stack": lambda: len(list((proj / "stacked").glob("*.nc"))) >= 1,
+              "invert": lambda: len(list((proj / "figures" / "stations").glob("*_fit.png"))) >= 1,
+              "export": lambda: (proj / "exports").is_dir()}
+    proc = _tem("run", survey, "--out", proj, "--jobs", "2", "--no-progress", capture=False)
+    _wait_for(probes[point], proc)
+    children = _descendants(proc.pid)
+    proc.send_signal(signal.SIGKILL)
+    proc.wait()
+    time.sleep(5.0)            # no worker outlives its parent by more than 5 s
+    alive = [c for c in children if c.is_running() and c.status() != psutil.STATUS_ZOMBIE]
+    assert not alive, [c.cmdline() for c in alive]
+    rerun = _tem("run", survey, "--out", proj, "--jobs", "2", "--no-progress")
+    out, err = rerun.communicate(timeout=600)
+    assert rerun.returncode == 0, err
+    assert not _partials(proj)
+    assert_same_products(ref, proj)
+
+
+def test_rerun_reuses_unchanged_products_and_redoes_edited_ones(day, tmp_path, capsys):
+    import shutil
+
+    import xarray as xr
+
+    survey, ref = day
+    proj = tmp_path / "p"
+    shutil.copytree(ref, proj)
+    capsys.readouterr()
+    assert main(["run", str(survey), "--out", str(proj), "--jobs", "1", "--no-progress"]) == 0
+    out = capsys.readouterr().out
+    assert "stack: reused 3 of 3 stations' products" in out
+    state = json.loads((proj / "run.json").read_text())
+    assert state["stages"]["invert"]["reused"] is True
+    assert state["stages"]["section"]["reused"] is True
+    # a gated file edited by hand: reported by --from invert, redone by a full rerun
+    g = proj / "gated" / "EM06.nc"
+    ds = xr.load_dataset(g, engine="h5netcdf")
+    ds["value"][0, 3] = 2 * ds["value"][0, 3]
+    ds.to_netcdf(g, engine="h5netcdf")
+    assert main(["run", str(survey), "--out", str(proj), "--from", "invert", "--jobs", "1",
+                 "--no-progress"]) == 0
+    captured = capsys.readouterr()
+    assert "gated/EM06.nc changed since the gate stage wrote it" in captured.err
+    assert "gated/EM06.nc changed since the gate stage wrote it" in captured.out
+    assert main(["run", str(survey), "--out", str(proj), "--jobs", "1", "--no-progress"]) == 0
+    out = capsys.readouterr().out
+    assert "EM06: gated/EM06.nc changed since written (edited by hand?); recomputed" in out
+    assert_same_products(ref, proj)
+
+
+def test_second_run_into_the_same_project_is_refused(day, tmp_path, capsys):
+    survey, _ = day
+    proj = tmp_path / "p"
+    first = _tem("run", survey, "--out", proj, "--jobs", "1", "--no-progress", capture=False)
+    assert _wait_for(lambda: (proj / ".tem-lock").is_file() and
+                     (proj / ".tem-lock").read_text().strip(), first, 60)
+    capsys.readouterr()
+    assert main(["run", str(survey), "--out", str(proj), "--no-progress"]) == 2
+    err = capsys.readouterr().err
+    assert err.count("\n") == 1 and f"pid {first.pid}" in err and "started 20" in err
+    first.send_signal(signal.SIGKILL)
+    first.wait()
+    # the lock of a dead process is taken over, and the run completes
+    assert main(["run", str(survey), "--out", str(proj), "--jobs", "1", "--no-progress"]) == 0
+    captured = capsys.readouterr()
+    assert f"took over the lock of pid {first.pid}" in captured.err
+
+
+def test_full_disk_is_one_line_and_leaves_no_half_product(day, tmp_path):
+    import resource
+
+    import xarray as xr
+
+    survey, _ = day
+    proj = tmp_path / "p"
+
+    def limit():
+        resource.setrlimit(resource.RLIMIT_FSIZE, (200_000, 200_000))
+
+    proc = _tem("run", survey, "--out", proj, "--jobs", "2", "--no-progress", preexec_fn=limit)
+    out, err = proc.communicate(timeout=600)
+    lines = [ln for ln in err.splitlines() if ln.strip()]
+    assert proc.returncode == 1, err
+    assert len(lines) == 1 and "cannot write: File too large" in lines[0], err
+    assert not _partials(proj)
+    for f in proj.rglob("*.nc"):                        # whatever exists is whole
+        xr.load_dataset(f, engine="h5netcdf")
+
+
+def test_local_cluster_gives_the_same_products(day, tmp_path):
+    survey, ref = day
+    proj = tmp_path / "p"
+    assert main(["run", str(survey), "--out", str(proj), "--scheduler", "local", "--jobs", "2",
+                 "--no-progress"]) == 0
+    state = json.loads((proj / "run.json").read_text())
+    assert state["last_run"]["scheduler"] == "local"
+    assert_same_products(ref, proj)
