@@ -4,13 +4,16 @@ Everything between the layered-earth kernel and the output is linear, so it
 is assembled once into matrices when a :class:`Simulation` is built:
 
 1. Hankel transforms by lagged-convolution digital linear filters and a
-   cubic spline in log offset (``tem.forward.dlf``), integrated along the
+   degree-7 spline in log offset (``tem.forward.dlf``; the filter chosen by
+   :meth:`Simulation._choose_hankel`), integrated along the
    wire or loop with Gauss-Legendre (lines) or trapezoidal (circles) nodes;
    grounded-wire electrodes add the galvanic (TM) terms in closed form
    plus a decaying remainder.
 2. The frequency-to-time transform by a lagged sine/cosine DLF onto a log
    time grid, a cubic spline in log time, and the receiver low-pass filter
-   as a multiplication in the frequency domain.
+   as a multiplication in the frequency domain; the kernel itself is
+   evaluated at 8 frequencies per decade (2 outside the band the times
+   need) and carried to the filter's frequencies by a degree-7 spline.
 3. The waveform: ramps integrated by Gauss-Legendre quadrature in log time,
    the alternating tails of earlier half-cycles summed with an Euler-Boole
    tail correction, and gate averages by Gauss-Legendre quadrature with the
@@ -21,20 +24,27 @@ grid and a few matrix products; the Jacobian reuses the same matrices.
 """
 from __future__ import annotations
 
-from functools import lru_cache
-
 import numpy as np
 from scipy import signal
 
-from . import dlf, gatewindow
+from . import dlf, gatewindow, kernel
 from .geometry import CircularLoop, PolygonLoop, Receiver, Wire
-from .kernel import MU0, fused_spectra
+from .kernel import MU0, fused_spectra, fused_spectra_many
 from .model import LayeredModel
+from .terms import log_gauss_many, receiver_terms
 from .waveform import Waveform
 
 __all__ = ["Simulation", "RESPONSES"]
 
 RESPONSES = ("step-off", "step-on", "impulse", "waveform")
+# spectrum interpolation: a degree-7 spline in log omega, dense inside the band the
+# times need and sparse in the smooth tails (accuracy study in docs/forward.md)
+_SPLINE_DEGREE = 7
+_OUTER_PER_DECADE = 2
+# hankel="auto": the short filter where a half-space test passes, else the long one
+_HANKEL_CHOICE = ("key_101_2012", "key_201_2012")
+_CHECK_RHO = (1.0, 10.0, 100.0, 1000.0, 10000.0)
+_HANKEL_TOL = 1e-4
 _TWO_PI = 2.0 * np.pi
 
 
@@ -57,15 +67,22 @@ class Simulation:
         ``"step-off"``, ``"step-on"``, ``"impulse"`` or ``"waveform"``.
     lowpass : (order, cutoff_hz), optional
         Receiver Butterworth low-pass filter applied to the response.
-    hankel, fourier : str
-        Names of the libdlf filters. The defaults (key_201_2012 for both)
-        reach 1e-4 against empymod on layered models and against closed forms
-        down to u = theta r ~ 3e-3; at even later times the Fourier filter
-        loses accuracy (empymod shows the same limit; docs/forward.md).
+    hankel : str
+        libdlf Hankel filter, or ``"auto"`` (default): key_101_2012 where a
+        half-space accuracy test on these receivers and times passes, else
+        key_201_2012 (see ``_choose_hankel``; the measured deviation is kept in
+        ``hankel_check``).
+    fourier : str
+        libdlf Fourier filter (default key_201_2012). On the closed-form and
+        empymod checks of tests/test_forward_*.py the defaults reach 1e-4
+        typically, down to u = theta r ~ 3e-3; at even later times the Fourier
+        filter loses accuracy (docs/forward.md).
     freq_per_decade : float or None
         Density of the frequencies at which the layered kernel is evaluated
-        (spline interpolation to the filters' frequencies); None evaluates at
-        the filters' own frequencies (slower, reference-grade).
+        inside the band the times need (2 per decade outside it); a degree-7
+        spline in log frequency carries the spectrum to the filters'
+        frequencies. None evaluates at the filters' own frequencies (slower,
+        reference-grade).
     n_half_periods : int, optional
         Past half-cycles summed explicitly for a periodic waveform (an
         Euler-Boole correction accounts for the rest); default from the
@@ -73,8 +90,8 @@ class Simulation:
     """
 
     def __init__(self, source, receivers, times=None, gates=None, gate_shape="boxcar",
-                 waveform=None, response=None, lowpass=None, hankel="key_201_2012",
-                 fourier="key_201_2012", freq_per_decade=14, n_half_periods=None, gate_nodes=6):
+                 waveform=None, response=None, lowpass=None, hankel="auto",
+                 fourier="key_201_2012", freq_per_decade=8, n_half_periods=None, gate_nodes=6):
         if not isinstance(source, (Wire, PolygonLoop, CircularLoop)):
             raise ValueError("source: must be a Wire, PolygonLoop or CircularLoop")
         receivers = list(receivers)
@@ -97,8 +114,16 @@ class Simulation:
 
         self._setup_times(times, gates, gate_nodes, n_half_periods)
         self._check_geometry()
-        self._setup_space()
         self._setup_fourier()
+        self._setup_evaluate()
+        self._terms = [receiver_terms(source, rx) for rx in receivers]
+        # closed-form parts per receiver: coefficients of rho_1, i omega mu0, 1
+        self._analytic = np.array([an for _, an in self._terms])
+        self.hankel_check = None
+        if hankel == "auto":
+            self._choose_hankel()
+        else:
+            self._lam, self._G, self._need_tm = self._space_operators(hankel)
 
     # ------------------------------------------------------------------ set-up
     def _setup_times(self, times, gates, gate_nodes, n_half_periods):
@@ -187,7 +212,7 @@ class Simulation:
         coef = -signs[None, :, None] * m[None, None, :] * np.ones_like(hi)
         rows = np.broadcast_to(np.arange(t.size)[:, None, None], hi.shape)
         keep = hi > 0
-        u, wq, r = _log_gauss_many(lo[keep], hi[keep], rows[keep])
+        u, wq, r = log_gauss_many(lo[keep], hi[keep], rows[keep])
         cs = wq * np.repeat(coef[keep], np.diff(r[1]))
         return u, np.repeat(rows[keep], np.diff(r[1])), cs, dc
 
@@ -214,20 +239,12 @@ class Simulation:
                     raise ValueError(f"receivers: {rx.component} receiver at "
                                      f"({p[0]:.1f}, {p[1]:.1f}) m lies on the transmitter")
 
-    def _setup_space(self):
-        """Hankel-form coefficient matrices on a common lambda grid."""
-        src = self.source
-        rows = []  # per receiver: list of (form, R, coef) and analytic parts
-        allR = []
-        for rx in self.receivers:
-            terms, analytic = _receiver_terms(src, rx)
-            rows.append((terms, analytic))
-            for form, R, c in terms:
-                allR.append(R)
-        allR = np.concatenate(allR)
-        base, j0, j1 = dlf.hankel_filter(self.hankel_name)
-        rgrid, lam, _ = dlf.lagged_grid(base, allR.min(), allR.max())
-        self._lam = lam
+    def _space_operators(self, hankel):
+        """Hankel-form coefficient matrices on a common lambda grid: (lam, G, need_tm)."""
+        allR = np.concatenate([R for terms, _ in self._terms for _, R, _ in terms])
+        base, j0, j1 = dlf.hankel_filter(hankel)
+        # 4 extra offsets each side: the degree-7 spline needs 8 grid points
+        rgrid, lam, _ = dlf.lagged_grid(base, allR.min(), allR.max(), pad=4)
         nx = rgrid.size
         C0 = dlf.lagged_matrix(j0, nx)
         C1 = dlf.lagged_matrix(j1, nx)
@@ -237,17 +254,47 @@ class Simulation:
         nrx = len(self.receivers)
         G = {"a1": np.zeros((nrx, lam.size)), "r": np.zeros((nrx, lam.size)),
              "b": np.zeros((nrx, lam.size))}
-        self._analytic = np.zeros((nrx, 3))  # coefficients of rho_1, i omega mu0, 1
-        for i, (terms, analytic) in enumerate(rows):
+        for i, (terms, _) in enumerate(self._terms):
             for form, R, c in terms:
                 kern, C, p = forms[form]
                 # sum_i w_i f(b_i/r) at grid r, spline in log r, then divide by R
                 H = C * lam[None, :] ** p
-                S = dlf.spline_matrix(rgrid, R)
+                S = dlf.spline_matrix(rgrid, R, degree=_SPLINE_DEGREE)
                 G[kern][i] += (c / R) @ S @ H
-            self._analytic[i] = analytic
-        self._G = G
-        self._need_tm = np.any(G["b"] != 0)
+        # pad the wavenumbers to whole SIMD blocks (zero coefficients beyond the filter)
+        pad = (-lam.size) % kernel.LANES
+        if pad:
+            d = np.log(lam[1] / lam[0])
+            lam = np.r_[lam, lam[-1] * np.exp(d * np.arange(1, pad + 1))]
+            G = {k: np.pad(v, ((0, 0), (0, pad))) for k, v in G.items()}
+        G = {k: np.ascontiguousarray(v) for k, v in G.items()}
+        return lam, G, bool(np.any(G["b"] != 0))
+
+    def _choose_hankel(self):
+        """The short Hankel filter where it is accurate for these receivers and times.
+
+        Stated accuracy test: half-spaces of 1, 10, 100, 1000 and 10000 ohm-m
+        computed with key_101_2012 and with key_201_2012 must agree within
+        1e-4 of each value (floor: 1e-3 of the curve's peak) at every output;
+        otherwise key_201_2012 is used. The short filter fails first at very
+        early times of E fields and impulse responses (u = theta r >> 1), where
+        the response is a small remainder of the high-frequency spectrum.
+        """
+        ops = {name: self._space_operators(name) for name in _HANKEL_CHOICE}
+        out = {}
+        for name, (lam, G, need_tm) in ops.items():
+            self._lam, self._G, self._need_tm = lam, G, need_tm
+            out[name] = np.array([self.predict(LayeredModel.halfspace(r)) for r in _CHECK_RHO])
+        a, b = (out[n] for n in _HANKEL_CHOICE)
+        peak = np.max(np.abs(b), axis=-1, keepdims=True)
+        denom = np.maximum(np.abs(b), 1e-3 * peak)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            # a curve that vanishes by symmetry (peak 0) takes no part in the test
+            dev = float(np.max(np.where(denom > 0, np.abs(a - b) / denom, 0.0)))
+        self.hankel_check = dev
+        name = _HANKEL_CHOICE[0] if dev <= _HANKEL_TOL else _HANKEL_CHOICE[1]
+        self.hankel_name = name
+        self._lam, self._G, self._need_tm = ops[name]
 
     def _setup_fourier(self):
         """Time-domain operators per receiver on a common (coarse) frequency grid.
@@ -286,7 +333,8 @@ class Simulation:
         else:
             wlo = min(f[0][0] for f in fine.values())
             whi = max(f[0][-1] for f in fine.values())
-            omega_c = _coarse_omega(wlo, whi, 0.1 / umax, 100.0 / umin, self.freq_per_decade)
+            omega_c = _coarse_omega(wlo, whi, 0.1 / umax, 100.0 / umin, self.freq_per_decade,
+                                    _OUTER_PER_DECADE)
         self._omega = omega_c
         if self.lowpass is not None:
             b, a = signal.butter(self.lowpass[0], _TWO_PI * self.lowpass[1], analog=True)
@@ -299,7 +347,8 @@ class Simulation:
                 Q[:, offset:offset + omega.size] = np.eye(omega.size)
                 offset += omega.size
             else:
-                Q = omega[:, None] * dlf.spline_matrix(omega_c, omega) / omega_c[None, :]
+                Q = omega[:, None] * dlf.spline_matrix(omega_c, omega, degree=_SPLINE_DEGREE) \
+                    / omega_c[None, :]
             if self.lowpass is not None:
                 _, hlp = signal.freqs(b, a, worN=omega)
             else:
@@ -318,54 +367,100 @@ class Simulation:
                                 for rx in self.receivers])
 
     # ---------------------------------------------------------------- evaluate
-    def _spectra(self, model, jac=False, jac_thk=False):
-        res, thk = model.resistivity, model.thickness
-        G = self._G
-        F, dF = fused_spectra(self._lam, self._omega, res, thk, G["r"], G["a1"], G["b"],
-                              need_tm=self._need_tm, jac=jac, jac_thk=jac_thk)
-        iwm = 1j * self._omega * MU0
-        an = self._analytic
-        F = F + res[0] * an[:, 0][None, :] + iwm[:, None] * an[:, 1][None, :] + an[:, 2][None, :]
-        if jac:
-            dF[0] += res[0] * an[:, 0][None, :]
-        return F, dF
+    def _setup_evaluate(self):
+        """Stacked time operators and flags for the evaluation methods (set-up, once)."""
+        self._Dre = np.stack([d[0] for d in self._D])              # (nr, n_out, nw)
+        self._Dim = np.stack([d[1] for d in self._D])
+        self._use_re = self.lowpass is not None                    # Re F only through a filter
+        kinds = [rx.kind for rx in self.receivers]
+        dc_row = np.zeros((len(kinds), self._n_out))
+        for i, k in enumerate(kinds):
+            if k in ("e", "b"):
+                dc_row[i] = self._dc_coef
+            elif self._dc_rate is not None:
+                dc_row[i] = self._dc_rate
+        self._dc_row = dc_row * self._scale[:, None]
+        self._needs_dc = bool(np.any(dc_row != 0))
+        self._iwm = 1j * self._omega * MU0
 
-    def _dc(self, model, jac=False, jac_thk=False):
-        """DC (omega = 0) values per receiver (fields, not rates), and their derivatives."""
-        res, thk = model.resistivity, model.thickness
+    def _kernel(self, omega, res, thk, jac=False, jac_thk=False):
         G = self._G
-        F, dF = fused_spectra(self._lam, np.zeros(1), res, thk, G["r"], G["a1"], G["b"],
-                              need_tm=self._need_tm, jac=jac, jac_thk=jac_thk)
-        an = self._analytic
-        dc = F[0].real + res[0] * an[:, 0] + an[:, 2]
-        ddc = None
-        if jac:
-            ddc = dF[:, 0].real.copy()
-            ddc[0] += res[0] * an[:, 0]
-        return dc, ddc
+        return fused_spectra(self._lam, omega, res, thk, G["r"], G["a1"], G["b"],
+                             need_tm=self._need_tm, jac=jac, jac_thk=jac_thk)
 
-    def _assemble(self, F, dc):
-        out = np.empty((len(self.receivers), self._n_out))
-        for i, (Dre, Dim) in enumerate(self._D):
-            out[i] = Dre @ F[:, i].imag + Dim @ F[:, i].real
-            if dc is not None:
-                rx = self.receivers[i]
-                if rx.kind in ("e", "b"):
-                    out[i] += self._dc_coef * dc[i]
-                elif self._dc_rate is not None:
-                    out[i] += self._dc_rate * dc[i]
+    def _time_domain(self, F):
+        """Responses (..., nr, n_out) from spectra F (..., nw, nr), without the DC terms."""
+        out = (self._Dre @ np.swapaxes(F.imag, -1, -2)[..., None])[..., 0]
+        if self._use_re:
+            out += (self._Dim @ np.swapaxes(F.real, -1, -2)[..., None])[..., 0]
         return out * self._scale[:, None]
 
-    def _needs_dc(self):
-        return bool(np.any(self._dc_coef != 0) or (self._dc_rate is not None and np.any(self._dc_rate != 0)))
+    def _spectra(self, res, F):
+        """Add the closed-form parts (top-layer galvanic DC, free-space terms) in place."""
+        an = self._analytic
+        F += res[0] * an[:, 0] + self._iwm[:, None] * an[:, 1] + an[:, 2]
+        return F
+
+    def _dc_values(self, res, thk, jac=False, jac_thk=False):
+        """DC (omega = 0) values per receiver (fields, not rates), and their derivatives."""
+        F, dF = self._kernel(np.zeros(1), res, thk, jac, jac_thk)
+        an = self._analytic
+        dc = F[0].real + res[0] * an[:, 0] + an[:, 2]
+        if not jac:
+            return dc, None
+        ddc = dF[:, 0].real.copy()
+        ddc[0] += res[0] * an[:, 0]
+        return dc, ddc
 
     def predict(self, model: LayeredModel) -> np.ndarray:
         """Responses (n_receivers, n_times) per ampere: E [V/m], B [T], dB/dt [T/s]."""
         if not isinstance(model, LayeredModel):
             raise ValueError("model: must be a tem.forward.LayeredModel")
-        F, _ = self._spectra(model)
-        dc = self._dc(model)[0] if self._needs_dc() else None
-        return self._assemble(F, dc)
+        res, thk = model.resistivity, model.thickness
+        F, _ = self._kernel(self._omega, res, thk)
+        out = self._time_domain(self._spectra(res, F))
+        if self._needs_dc:
+            out += self._dc_values(res, thk)[0][:, None] * self._dc_row
+        return out
+
+    def predict_many(self, resistivity, thickness) -> np.ndarray:
+        """Responses of many models with the same number of layers, in one call.
+
+        Parameters
+        ----------
+        resistivity : array_like (n_models, n_layers)
+            Resistivities [ohm-m], half-space last.
+        thickness : array_like (n_models, n_layers - 1)
+            Layer thicknesses [m].
+
+        Returns
+        -------
+        ndarray (n_models, n_receivers, n_times): equal to ``predict`` model by model.
+        The models are spread over numba's threads; each model's arithmetic is the
+        same as in :meth:`predict`.
+        """
+        res = np.atleast_2d(np.asarray(resistivity, dtype=float))
+        thk = np.asarray(thickness, dtype=float).reshape(res.shape[0], -1)
+        if res.ndim != 2 or thk.shape != (res.shape[0], res.shape[1] - 1):
+            raise ValueError("resistivity/thickness: expected arrays (n_models, L) and "
+                             "(n_models, L - 1)")
+        if not np.all(np.isfinite(res)) or np.any(res <= 0):
+            raise ValueError("resistivity: every value must be positive and finite (ohm-m)")
+        if not np.all(np.isfinite(thk)) or np.any(thk <= 0):
+            raise ValueError("thickness: every layer thickness must be positive and finite (m)")
+        G = self._G
+        F = fused_spectra_many(self._lam, self._omega, res, thk, G["r"], G["a1"], G["b"],
+                               need_tm=self._need_tm)
+        an = self._analytic
+        F += res[:, :1, None] * an[:, 0][None, None, :]
+        F += self._iwm[:, None] * an[:, 1] + an[:, 2]
+        out = self._time_domain(F)
+        if self._needs_dc:
+            D = fused_spectra_many(self._lam, np.zeros(1), res, thk, G["r"], G["a1"], G["b"],
+                                   need_tm=self._need_tm)[:, 0]
+            dc = D.real + res[:, :1] * an[:, 0] + an[:, 2]
+            out += dc[:, :, None] * self._dc_row
+        return out
 
     def jacobian(self, model: LayeredModel, thickness: bool = False):
         """Responses and their derivatives.
@@ -379,29 +474,22 @@ class Simulation:
         """
         if not isinstance(model, LayeredModel):
             raise ValueError("model: must be a tem.forward.LayeredModel")
-        F, dF = self._spectra(model, jac=True, jac_thk=thickness)
-        needs = self._needs_dc()
-        dc, ddc = self._dc(model, jac=True, jac_thk=thickness) if needs else (None, None)
-        d = self._assemble(F, dc)
-        npar = dF.shape[0]
-        J = np.empty(d.shape + (npar,))
-        for i, (Dre, Dim) in enumerate(self._D):
-            # all parameters at once: (n_out, n_w) @ (n_w, npar)
-            J[i] = Dre @ dF[:, :, i].imag.T + Dim @ dF[:, :, i].real.T
-            if needs:
-                rx = self.receivers[i]
-                if rx.kind in ("e", "b"):
-                    J[i] += np.outer(self._dc_coef, ddc[:, i])
-                elif self._dc_rate is not None:
-                    J[i] += np.outer(self._dc_rate, ddc[:, i])
-            J[i] *= self._scale[i]
+        res, thk = model.resistivity, model.thickness
+        F, dF = self._kernel(self._omega, res, thk, jac=True, jac_thk=thickness)
+        dF[0] += res[0] * self._analytic[:, 0]
+        d = self._time_domain(self._spectra(res, F))
+        J = np.moveaxis(self._time_domain(dF), 0, -1)              # (nr, n_out, npar)
+        if self._needs_dc:
+            dc, ddc = self._dc_values(res, thk, jac=True, jac_thk=thickness)
+            d += dc[:, None] * self._dc_row
+            J += self._dc_row[:, :, None] * ddc.T[:, None, :]
         return d, J
 
     def dc(self, model: LayeredModel) -> np.ndarray:
         """Steady (DC) fields per receiver while 1 A flows: E [V/m] or B [T]; 0 for dB/dt."""
         if not isinstance(model, LayeredModel):
             raise ValueError("model: must be a tem.forward.LayeredModel")
-        dc = self._dc(model)[0]
+        dc = self._dc_values(model.resistivity, model.thickness)[0]
         kinds = np.array([rx.kind for rx in self.receivers])
         return np.where(kinds == "dbdt", 0.0, dc * self._scale)
 
@@ -424,12 +512,12 @@ class Simulation:
         return simulation_from_sounding(cls, ds, channels=channels, source=source, **kw)
 
 
-def _coarse_omega(wlo, whi, core_lo, core_hi, per_decade):
-    """Log-frequency grid: ``per_decade`` inside [core_lo, core_hi], half as dense outside."""
+def _coarse_omega(wlo, whi, core_lo, core_hi, per_decade, outer_per_decade):
+    """Log-frequency grid: ``per_decade`` in [core_lo, core_hi], ``outer_per_decade`` outside."""
     step = np.log(10.0) / per_decade
     lo, hi = np.log(max(core_lo, wlo)), np.log(min(core_hi, whi))
     core = np.arange(lo, hi + step, step)
-    out_step = 2 * step
+    out_step = np.log(10.0) / min(outer_per_decade, per_decade)
     left = np.arange(core[0] - out_step, np.log(wlo) - out_step, -out_step)[::-1]
     right = np.arange(core[-1] + out_step, np.log(whi) + out_step, out_step)
     return np.exp(np.concatenate([left, core, right]))
@@ -447,112 +535,3 @@ def _check_lowpass(lowpass):
     if not np.isfinite(fc) or fc <= 0:
         raise ValueError("lowpass: cut-off frequency must be positive (Hz)")
     return order, fc
-
-
-@lru_cache(maxsize=64)
-def _leggauss(n):
-    return np.polynomial.legendre.leggauss(n)
-
-
-def _log_gauss_many(lo, hi, tag):
-    """Gauss-Legendre nodes and weights for many integrals int_lo^hi f(u) du, in log u.
-
-    Returns (u, w, (tag, offsets)): the nodes of interval i are u[offsets[i]:offsets[i+1]].
-    An interval starting at 0 (a ramp still in progress) starts at min(hi 1e-6, 1e-8)
-    instead; the piece below is taken as f(start) * start (one extra node).
-    """
-    lo = np.asarray(lo, float)
-    hi = np.asarray(hi, float)
-    zero = lo <= 0
-    lo_eff = np.where(zero, np.minimum(hi * 1e-6, 1e-8), lo)
-    span = np.log(hi / lo_eff)
-    n = np.clip(np.ceil(8 * span / np.log(10.0)) + 3, 3, 40).astype(int)
-    counts = n + zero
-    offsets = np.r_[0, np.cumsum(counts)]
-    u = np.empty(offsets[-1])
-    w = np.empty(offsets[-1])
-    for nn in np.unique(n):
-        sel = np.flatnonzero(n == nn)
-        xg, wg = _leggauss(int(nn))
-        x = np.log(lo_eff[sel])[:, None] + 0.5 * (xg + 1.0)[None, :] * span[sel, None]
-        uu = np.exp(x)
-        ww = 0.5 * span[sel, None] * wg[None, :] * uu
-        start = offsets[sel] + zero[sel]
-        idx = start[:, None] + np.arange(nn)[None, :]
-        u[idx] = uu
-        w[idx] = ww
-    zi = np.flatnonzero(zero)
-    u[offsets[zi]] = lo_eff[zi]
-    w[offsets[zi]] = lo_eff[zi]
-    return u, w, (tag, offsets)
-
-
-def _receiver_terms(src, rx):
-    """Hankel terms (form, R array, coefficient array) and analytic coefficients.
-
-    Analytic coefficients: [rho_1 (galvanic DC of the top layer),
-    i omega mu0 (free-space induction), constant (free-space magnetic field)].
-    """
-    pts_r, w_r, e = rx.sample_points()
-    terms = []
-    an = np.zeros(3)
-    # Gauss nodes along the source, more where a receiver is close to it
-    if isinstance(src, CircularLoop):
-        dmin = max(src.distance_to(pts_r[0]), 1e-3 * src.radius)
-        n = int(np.clip(np.ceil(64 * src.radius / dmin), 64, 2048))
-    else:
-        seg = src.segments
-        dmin = min(seg.distance_to(p) for p in pts_r)
-        n = int(np.clip(np.ceil(8 + 12 * seg.length.max() / dmin), 12, 256))
-    nodes, tang, ws = src.nodes(n)
-    eq, sq = src.electrodes
-    for p, wr in zip(pts_r, w_r):
-        Rv = p[None, :] - nodes
-        R = np.hypot(Rv[:, 0], Rv[:, 1])
-        ux, uy = tang[:, 0], tang[:, 1]
-        if rx.kind == "e":
-            ue = tang @ e
-            # TE line integral: E.e = -(1/4pi) sum w (u.e) [i w mu0 F1(R)... + i w mu0 / R]
-            terms.append(("F1", R, -wr * ws * ue / (4 * np.pi)))
-            an[1] += -wr * np.sum(ws * ue / R) / (4 * np.pi)
-            for q, sgn in zip(eq, sq):
-                Rq = p - q
-                r = np.hypot(*Rq)
-                re_ = (Rq @ e) / r
-                an[0] += wr * sgn * re_ / (_TWO_PI * r * r)
-                terms.append(("F3", np.array([r]), np.array([wr * sgn * re_ / _TWO_PI])))
-                terms.append(("F2", np.array([r]), np.array([-wr * sgn * re_ / (4 * np.pi)])))
-        elif rx.component in ("bz", "dbzdt"):
-            cross = ux * Rv[:, 1] - uy * Rv[:, 0]
-            terms.append(("F4", R, wr * ws * cross / (4 * np.pi * R)))
-            an[2] += wr * _biot_savart_z(src, p)
-        else:
-            j = 0 if rx.component == "dbxdt" else 1
-            Rj = Rv[:, j]
-            dxj = 1.0 if j == 0 else 0.0
-            dyj = 1.0 - dxj
-            cA = ws / _TWO_PI * (uy * (dxj / R - 2 * Rj * Rv[:, 0] / R ** 3)
-                                 - ux * (dyj / R - 2 * Rj * Rv[:, 1] / R ** 3))
-            cB = ws / _TWO_PI * (uy * Rj * Rv[:, 0] / R ** 2 - ux * Rj * Rv[:, 1] / R ** 2)
-            terms.append(("F5", R, wr * cA / 2))
-            terms.append(("F6", R, wr * cB / 2))
-            an[2] += wr * np.sum(cA / (2 * R))
-    return terms, an
-
-
-def _biot_savart_z(src, p):
-    """Vertical free-space field [A/m per A] at surface point p of the source's straight pieces."""
-    seg = src.segments
-    d = seg.p1 - seg.p0
-    length = np.hypot(d[:, 0], d[:, 1])
-    u = d / length[:, None]
-    r0 = p - seg.p0
-    s0 = -(r0 @ np.eye(2) * u).sum(axis=1)      # along-segment coordinate of p relative to p0, negated
-    a = (r0 * u).sum(axis=1)                    # projection of p on the segment axis from p0
-    perp = u[:, 0] * r0[:, 1] - u[:, 1] * r0[:, 0]   # (u x r0)_z
-    s1 = a - length
-    del s0
-    # H_z = perp/(4 pi perp^2) [a/sqrt(a^2+perp^2) - s1/sqrt(s1^2+perp^2)]
-    with np.errstate(divide="ignore", invalid="ignore"):
-        h = (a / np.hypot(a, perp) - s1 / np.hypot(s1, perp)) / (4 * np.pi * perp)
-    return float(np.sum(np.where(perp != 0, h, 0.0)))

@@ -145,6 +145,7 @@ class ProjectLock:
         self.took_over = ""
         self.cleaned = 0
         self._fd = None
+        self._created = []
 
     def _holder(self) -> dict:
         with contextlib.suppress(OSError, ValueError, UnicodeDecodeError):
@@ -159,6 +160,7 @@ class ProjectLock:
         from .atomic import clean_partials
 
         try:
+            self._created = [p for p in [self.root, *self.root.parents] if not p.exists()]
             self.root.mkdir(parents=True, exist_ok=True)
             fd = os.open(self.path, os.O_RDWR | os.O_CREAT, 0o644)
         except OSError as exc:
@@ -195,4 +197,10 @@ class ProjectLock:
         fcntl.flock(self._fd, fcntl.LOCK_UN)
         os.close(self._fd)
         self._fd = None
+        # a command that wrote nothing leaves no folder behind
+        if self._created and [p.name for p in self.root.iterdir()] == [LOCK_NAME]:
+            with contextlib.suppress(OSError):
+                self.path.unlink()
+                for p in self._created:
+                    p.rmdir()
         return False

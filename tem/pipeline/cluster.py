@@ -13,7 +13,20 @@ import contextlib
 
 from ..errors import input_error
 
-__all__ = ["dask_client"]
+__all__ = ["dask_client", "worker_peak_rss_mb"]
+
+
+def _peak_rss_mb() -> float:
+    import resource
+    return resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024.0
+
+
+def worker_peak_rss_mb(client) -> float:
+    """Largest peak resident memory (MB) of the cluster's worker processes so far."""
+    try:
+        return float(max(client.run(_peak_rss_mb).values()))
+    except (ValueError, OSError):  # pragma: no cover - no workers left
+        return float("nan")
 
 
 @contextlib.contextmanager

@@ -454,6 +454,10 @@ def _run_locked(survey, survey_file, settings, project, start, jobs, console, pr
                 stop = f"no station passed {stage}"
             elif stage == "invert" and not (project.folder("models") / "models.nc").is_file():
                 stop = rec.get("failed") or "no models"
+        ex = run.ctx_kw["executor"]
+        if ex is not None and hasattr(ex, "scheduler_info"):
+            from .cluster import worker_peak_rss_mb
+            state["last_run"]["worker_peak_rss_mb"] = round(worker_peak_rss_mb(ex), 1)
     state["last_run"]["elapsed_s"] = round(time.perf_counter() - t_run, 2)
     state["last_run"]["stopped"] = stop
     state["stations"] = _station_summary(state, survey)
