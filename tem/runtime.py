@@ -8,13 +8,14 @@ and the others go on.
 from __future__ import annotations
 
 import concurrent.futures as cf
+import contextlib
 import multiprocessing as mp
 from dataclasses import dataclass, field
 
 from .errors import TemInputError, TemOutputError
 
 __all__ = ["StationOutcome", "StageResult", "StageContext", "map_stations", "process_pool",
-           "write_products"]
+           "write_products", "report_progress", "Tally"]
 
 
 @dataclass
@@ -67,7 +68,10 @@ class StageContext:
     """How a stage runs, apart from its settings and inputs.
 
     executor : a process pool or None (in this process). progress : called as
-    ``progress(station, status)`` after each station (or None). figures :
+    ``progress(station, status)`` after each station (or None). partial :
+    called as ``partial(station, fraction)`` while a station is worked on
+    (stages that can tell, e.g. stacking by chunks; local processes only) or
+    None. figures :
     write the per-station and profile figures. run_state : the run record of
     ``tem run`` (None for a stage command). reused : station -> outcome carried
     over from an earlier run (its products are on disk and up to date): those
@@ -76,17 +80,72 @@ class StageContext:
 
     executor: object = None
     progress: object = None
+    partial: object = None
     figures: bool = True
     run_state: dict | None = None
     reused: dict = field(default_factory=dict)
 
 
-def _guarded(task, station, args):
+_REPORT = None
+_QUEUE = None          # in a pool worker: the pool's progress queue
+
+
+def report_progress(fraction: float):
+    """Tell the parent how far the current station's work is (0..1); a no-op when nobody listens.
+
+    Station tasks call it (e.g. the stacker after every chunk); it reaches
+    :attr:`StageContext.partial` in the parent, throttled.
+    """
+    if _REPORT is not None:
+        _REPORT(float(fraction))
+
+
+class _QueueReporter:
+    """Sends ``(station, fraction)`` to the parent through the pool's queue, at most 5 per second."""
+
+    def __init__(self, queue, station):
+        self.queue, self.station, self.last = queue, station, 0.0
+
+    def __call__(self, fraction):
+        import time
+        now = time.monotonic()
+        if fraction >= 1.0 or now - self.last >= 0.2:
+            self.last = now
+            self.queue.put((self.station, fraction))
+
+
+class Tally:
+    """Stations done plus the fractions of those in progress, for a progress bar.
+
+    ``update(completed, text)`` is called with the number of stations done
+    (fractional while stations are worked on) and a short description.
+    """
+
+    def __init__(self, update):
+        self.update = update
+        self.done = 0
+        self.partial = {}
+
+    def station(self, sid, status):
+        self.partial.pop(sid, None)
+        self.done += 1
+        mark = "ok" if status == "ok" else "[red]FAILED[/]"
+        self.update(self.done + sum(self.partial.values()), f"{sid} {mark}")
+
+    def fraction(self, sid, fraction):
+        self.partial[sid] = min(max(float(fraction), 0.0), 0.999)
+        self.update(self.done + sum(self.partial.values()), f"{sid} {fraction:.0%}")
+
+
+def _guarded(task, station, args, reporter=None):
     """Run a station task; any failure becomes a one-line failed outcome.
 
     A failed write (:class:`TemOutputError`: disk full, file-size limit) is
     not a station's fault: it stops the stage.
     """
+    global _REPORT
+    _REPORT = _QueueReporter(_QUEUE, station) if reporter == "queue" and _QUEUE is not None \
+        else reporter if callable(reporter) else None
     try:
         return task(*args)
     except TemOutputError:
@@ -96,6 +155,8 @@ def _guarded(task, station, args):
     except Exception as exc:  # noqa: BLE001 - one station must not stop the batch
         text = f"{type(exc).__name__}: {exc}".splitlines()[0]
         return StationOutcome(station, "failed", text)
+    finally:
+        _REPORT = None
 
 
 def write_products(oc: StationOutcome):
@@ -138,9 +199,47 @@ def map_stations(task, jobs, ctx: StageContext) -> dict:
     todo = [(sid, args) for sid, args in jobs if sid not in ctx.reused]
     if ctx.executor is None or len(todo) <= 1:
         for sid, args in todo:
-            done(_guarded(task, sid, args))
+            rep = (lambda f, sid=sid: ctx.partial(sid, f)) if ctx.partial else None
+            done(_guarded(task, sid, args, rep))
         return {sid: out[sid] for sid, _ in jobs}
-    futs = {ctx.executor.submit(_guarded, task, sid, args): sid for sid, args in todo}
+    with _partial_listener(ctx) as listening:
+        futs = {ctx.executor.submit(_guarded, task, sid, args, "queue" if listening else None): sid
+                for sid, args in todo}
+        _collect(ctx, futs, done)
+    return {sid: out[sid] for sid, _ in jobs}
+
+
+@contextlib.contextmanager
+def _partial_listener(ctx):
+    """Pass the pool's ``(station, fraction)`` messages to ``ctx.partial`` while stations run."""
+    import threading
+
+    queue = getattr(ctx.executor, "progress_queue", None)
+    if ctx.partial is None or queue is None:
+        yield False
+        return
+    stop = threading.Event()
+
+    def listen():
+        import queue as q
+        while not stop.is_set():
+            try:
+                item = queue.get(timeout=0.2)
+            except (q.Empty, OSError, EOFError, ValueError):
+                continue
+            ctx.partial(*item)
+
+    t = threading.Thread(target=listen, name="tem-progress", daemon=True)
+    t.start()
+    try:
+        yield True
+    finally:
+        stop.set()
+        t.join(timeout=2)
+
+
+def _collect(ctx, futs, done):
+    """Outcomes of submitted station tasks as they finish."""
     for fut in _completed(ctx.executor, futs):
         sid = futs[fut]
         try:
@@ -151,11 +250,17 @@ def map_stations(task, jobs, ctx: StageContext) -> dict:
             oc = StationOutcome(sid, "failed", f"worker failed: {type(exc).__name__}: {exc}"
                                 .splitlines()[0])
         done(oc)
-    return {sid: out[sid] for sid, _ in jobs}
+
+
+def _worker_init(pid: int, queue=None):
+    """Pool worker initializer: watch the parent; keep the progress queue."""
+    global _QUEUE
+    _QUEUE = queue
+    _watch_parent(pid)
 
 
 def _watch_parent(pid: int, period: float = 0.5):
-    """Worker initializer: end this worker soon after the process ``pid`` ends (even kill -9)."""
+    """End this worker soon after the process ``pid`` ends (even kill -9)."""
     import os
     import threading
     import time
@@ -177,6 +282,8 @@ def process_pool(jobs: int):
     """A process pool of ``jobs`` workers (forkserver start: safe beside progress threads).
 
     Each worker ends within a second when this process ends, however it ends.
+    The pool's ``progress_queue`` carries :func:`report_progress` messages of
+    its workers to the parent.
     """
     import os
 
@@ -186,5 +293,8 @@ def process_pool(jobs: int):
         ctx = mp.get_context("forkserver")
     except ValueError:  # pragma: no cover - platforms without forkserver
         ctx = mp.get_context("spawn")
-    return cf.ProcessPoolExecutor(max_workers=int(jobs), mp_context=ctx,
-                                  initializer=_watch_parent, initargs=(os.getpid(),))
+    queue = ctx.Queue()
+    pool = cf.ProcessPoolExecutor(max_workers=int(jobs), mp_context=ctx, initializer=_worker_init,
+                                  initargs=(os.getpid(), queue))
+    pool.progress_queue = queue
+    return pool

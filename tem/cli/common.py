@@ -16,7 +16,7 @@ from pathlib import Path
 from ..errors import input_error
 
 __all__ = ["add_out", "add_run_options", "input_files", "default_jobs", "stage_context",
-           "finish", "MAX_JOBS"]
+           "finish", "verdict_table", "MAX_JOBS"]
 
 #: Upper bound of ``--jobs``: more processes than this only add memory.
 MAX_JOBS = 256
@@ -86,7 +86,7 @@ def stage_context(args, stage: str, total: int):
     from rich.progress import BarColumn, MofNCompleteColumn, Progress, TextColumn, TimeElapsedColumn
 
     from ..io.project import ProjectLock
-    from ..runtime import StageContext, process_pool
+    from ..runtime import StageContext, Tally, process_pool
 
     jobs = getattr(args, "jobs", None) or default_jobs()
     console = Console(stderr=True)
@@ -103,12 +103,9 @@ def stage_context(args, stage: str, total: int):
             disable=not getattr(args, "progress", True) or not console.is_terminal,
             transient=False))
         task = prog.add_task("", total=max(total, 1))
-
-        def tick(sid, status):
-            mark = "ok" if status == "ok" else "[red]FAILED[/]"
-            prog.update(task, advance=1, description=f"{sid} {mark}")
-
-        yield StageContext(executor=pool, progress=tick, figures=getattr(args, "figures", True))
+        tally = Tally(lambda n, text: prog.update(task, completed=n, description=text))
+        yield StageContext(executor=pool, progress=tally.station, partial=tally.fraction,
+                           figures=getattr(args, "figures", True))
         prog.update(task, completed=max(total, 1), description="done")
 
 
@@ -127,3 +124,30 @@ def finish(stage: str, result, out) -> int:
     counts = f"{n} stations, {n_fail} failed; " if n else ""
     print(f"tem {stage}: {counts}{written} files written under {out}")
     return 1 if result.any_failed else 0
+
+
+_VERDICT_COLOUR = {"good": "green", "check": "yellow", "reoccupy": "bold red"}
+
+
+def verdict_table(result, console):
+    """The evening answer: verdict, extra minutes and reasons per station (80 columns wide)."""
+    import math
+
+    from rich.table import Table
+
+    rows = [(sid, oc.info) for sid, oc in result.stations.items() if "qc_verdict" in oc.info]
+    if not rows:
+        return
+    t = Table(title="Evening QC: which stations to re-occupy (qc/stations.csv)",
+              header_style="bold")
+    t.add_column("station", no_wrap=True)
+    t.add_column("verdict", no_wrap=True)
+    t.add_column("extra min", justify="right", no_wrap=True)
+    t.add_column("reasons", overflow="fold")
+    for sid, info in rows:
+        v = info["qc_verdict"]
+        m = info.get("extra_minutes")
+        minutes = "" if m is None or not math.isfinite(m) or not m else f"{m:.0f}"
+        t.add_row(sid, f"[{_VERDICT_COLOUR.get(v, 'white')}]{v}[/]", minutes,
+                  info.get("qc_reasons", ""))
+    console.print(t)

@@ -22,7 +22,7 @@ def gate_one(sid, in_path, settings: GateSettings, out_path, fig_path):
     from ..io.figures import figure_bytes
     from ..io.netcdf import netcdf_bytes
     from ..io.stacked import read_product
-    from ..qc import decay_figure, qc_rows
+    from ..qc import channel_measures, decay_figure, qc_rows
     from .windows import gate_stacked
 
     st = read_product(in_path, "stacked")
@@ -37,14 +37,53 @@ def gate_one(sid, in_path, settings: GateSettings, out_path, fig_path):
     info = {"usable_gates": usable, "gates": int(g["usable"].size),
             "qc": ", ".join(bad) if bad else "ok"}
     inputs = [{"file": str(in_path), "sha256": file_sha256(in_path)}]
+    payload = {"rows": rows, "measures": channel_measures(st, g)}
     if not usable:
         return StationOutcome(sid, "failed", f"{out_path}: usable: no gate above the noise",
-                              inputs=inputs, info=info, payload=rows, products=products)
-    return StationOutcome(sid, "ok", inputs=inputs, info=info, payload=rows, products=products)
+                              inputs=inputs, info=info, payload=payload, products=products)
+    return StationOutcome(sid, "ok", inputs=inputs, info=info, payload=payload, products=products)
 
 
-def run(settings: GateSettings, stacked_files, out, ctx: StageContext = StageContext()) -> StageResult:
-    """Gate each stacked file into ``OUT/gated/<name>.nc``.
+def _measures_of(stacked_file, gated_file):
+    """QC measures of a station whose products are on disk (kept from an earlier run)."""
+    from ..io.stacked import read_product
+    from ..qc import channel_measures
+
+    g = read_product(gated_file, "gated") if Path(gated_file).is_file() else None
+    return channel_measures(read_product(stacked_file, "stacked"), g)
+
+
+def evening_verdicts(res, files, project, qc, failed=None):
+    """Verdicts of every station from the stage's QC measures; writes ``qc/stations.csv``.
+
+    ``failed`` maps stations that did not reach this stage (e.g. a corrupt
+    recording) to their one-line reason; they get a verdict too. Each
+    outcome's ``info`` gains ``qc_verdict``, ``qc_reasons`` and ``extra_minutes``.
+    """
+    from ..qc import station_verdicts, write_stations_csv
+
+    measures = []
+    for sid, oc in res.stations.items():
+        if isinstance(oc.payload, dict):
+            measures += oc.payload["measures"]
+        elif sid in files and (oc.status == "ok" or oc.outputs):
+            measures += _measures_of(files[sid], project.station_file("gated", sid))
+    broken = dict(failed or {})
+    broken.update({sid: oc.message for sid, oc in res.stations.items()
+                   if oc.status != "ok" and not oc.outputs and not isinstance(oc.payload, dict)})
+    verdicts = station_verdicts(measures, qc, broken)
+    for v in verdicts:
+        oc = res.stations.get(v.station)
+        if oc is not None:
+            oc.info.update(qc_verdict=v.verdict, qc_reasons="; ".join(v.reasons),
+                           extra_minutes=v.extra_minutes)
+    res.outputs.append(str(write_stations_csv(project.root, verdicts)))
+    return verdicts
+
+
+def run(settings: GateSettings, stacked_files, out, ctx: StageContext = StageContext(), qc=None,
+        failed=None) -> StageResult:
+    """Gate each stacked file into ``OUT/gated/<name>.nc``; the evening QC into ``OUT/qc``.
 
     Parameters
     ----------
@@ -54,12 +93,17 @@ def run(settings: GateSettings, stacked_files, out, ctx: StageContext = StageCon
         after its file.
     out : path or Project
     ctx : StageContext
+    qc : tem.qc.QCSettings, optional
+        Thresholds of the evening verdicts (default: the table's defaults).
+    failed : dict, optional
+        Stations that did not reach this stage -> one-line reason (they get a
+        verdict in ``qc/stations.csv`` too).
 
     Returns
     -------
     StageResult
-        One outcome per file (keyed by file name without suffix); ``payload``
-        holds the QC table rows.
+        One outcome per file (keyed by file name without suffix) with the
+        station's verdict in ``info``; ``payload`` holds the QC table rows.
     """
     project = out if isinstance(out, Project) else Project(out)
     jobs = []
@@ -67,4 +111,10 @@ def run(settings: GateSettings, stacked_files, out, ctx: StageContext = StageCon
         sid = f.stem
         jobs.append((sid, (sid, f, settings, project.station_file("gated", sid),
                            project.station_figure(sid, "decay") if ctx.figures else None)))
-    return StageResult(stations=map_stations(gate_one, jobs, ctx))
+    res = StageResult(stations=map_stations(gate_one, jobs, ctx))
+    if res.stations or failed:
+        evening_verdicts(res, {Path(f).stem: Path(f) for f in stacked_files}, project, qc, failed)
+    for oc in res.stations.values():
+        if isinstance(oc.payload, dict):
+            oc.payload = oc.payload["rows"]
+    return res

@@ -26,7 +26,7 @@ from .. import __version__
 from ..errors import input_error
 from ..io.project import Project, ProjectLock, check_output
 from ..provenance import stage_record
-from ..runtime import StageContext, StationOutcome, process_pool
+from ..runtime import StageContext, StationOutcome, Tally, process_pool
 from .resume import Checksums, changed_products, fingerprint, reusable, station_survey_text
 from .settings import STAGES, read_processing, resolve_settings
 
@@ -45,7 +45,7 @@ _PER_STATION = {"stack": None, "gate": ("stack", "stacked"), "rhoa": ("gate", "g
 #: run did not write is removed, so no stale product outlives a rerun.
 OWNED = {
     "stack": ("stacked/*.nc", "figures/stations/*_raw.png"),
-    "gate": ("gated/*.nc", "figures/stations/*_decay.png"),
+    "gate": ("gated/*.nc", "figures/stations/*_decay.png", "qc/stations.csv"),
     "rhoa": ("rhoa/*.nc", "rhoa/*.csv", "figures/stations/*_rhoa.png", "figures/pseudosection_*"),
     "invert": ("models/*.nc", "models/*.csv", "figures/stations/*_fit.png"),
     "section": ("sections/*.nc", "figures/section*.*", "figures/models.*"),
@@ -188,7 +188,7 @@ class _Run:
             return list(inputs_of(self.settings["export"], p)) + ([Path(vel)] if vel else [])
         return []
 
-    def run_stage(self, stage, tick):
+    def run_stage(self, stage, tally):
         """Run (or reuse) one stage; returns (StageResult, record)."""
         s = self.settings[stage]
         prev_rec = None if stage in self.force else self.previous.get("stages", {}).get(stage)
@@ -215,7 +215,8 @@ class _Run:
                 return None, dict(prev_rec, reused=True, notes=prev_rec.get("notes", []) + notes)
         else:
             stage_fp = None
-        ctx = StageContext(progress=tick, run_state=self.state, reused=reused, **self.ctx_kw)
+        ctx = StageContext(progress=tally.station, partial=tally.fraction, run_state=self.state,
+                           reused=reused, **self.ctx_kw)
         t0 = time.perf_counter()
         result = _stage_call(stage, self.settings, self.survey, self.survey_file, self.project,
                              self.state, ctx)
@@ -273,7 +274,11 @@ def _stage_call(stage, settings, survey, survey_file, project, state, ctx):
         files = [project.station_file(prev[1], sid) for sid in ok.get(prev[0], [])]
         if stage == "gate":
             from ..gate.stage import run
-        elif stage == "rhoa":
+            failed = {sid: r.get("message", "") for sid, r in
+                      state["stages"].get("stack", {}).get("stations", {}).items()
+                      if r["status"] != "ok"}
+            return run(s, files, project, ctx, qc=settings["qc"], failed=failed)
+        if stage == "rhoa":
             from ..rhoa.stage import run
         else:
             from ..invert.stage import run
@@ -428,12 +433,10 @@ def _run_locked(survey, survey_file, settings, project, start, jobs, console, pr
                 prog.update(task, description=f"[yellow]not run[/]: {stop}")
                 continue
 
-            def tick(sid, status, task=task):
-                mark = "ok" if status == "ok" else "[red]FAILED[/]"
-                prog.update(task, advance=1, description=f"{sid} {mark}")
-
+            tally = Tally(lambda k, text, task=task: prog.update(task, completed=k,
+                                                                   description=text))
             try:
-                result, rec = run.run_stage(stage, tick)
+                result, rec = run.run_stage(stage, tally)
             finally:
                 _write_run(project, state)
             if result is not None:

@@ -18,6 +18,7 @@ from ..export.settings import EXPORT
 from ..gate.settings import GATE
 from ..invert.settings import INVERT
 from ..io.tomlfile import read_toml
+from ..qc.verdict import QC_TABLE
 from ..report.settings import REPORT
 from ..rhoa.settings import RHOA
 from ..section.settings import SECTION
@@ -26,9 +27,10 @@ from ..stack.settings import STACK
 
 __all__ = ["TABLES", "STAGES", "read_processing", "resolve_settings", "defaults"]
 
-#: The settings table of every stage, in the order of the chain.
-TABLES = {t.stage: t for t in (STACK, GATE, RHOA, INVERT, SECTION, EXPORT, REPORT)}
-STAGES = tuple(TABLES)
+#: The stages of the chain, in order.
+STAGES = ("stack", "gate", "rhoa", "invert", "section", "export", "report")
+#: Every settings table: one per stage, and the evening QC thresholds (used by the gate stage).
+TABLES = {t.stage: t for t in (STACK, GATE, QC_TABLE, RHOA, INVERT, SECTION, EXPORT, REPORT)}
 
 
 def read_processing(survey_file) -> dict:
@@ -61,21 +63,21 @@ def resolve_settings(processing: dict | None = None, overrides=(), survey_file=N
     Returns
     -------
     dict
-        ``{stage: settings object}`` for every stage of :data:`STAGES`.
+        ``{table: settings object}`` for every table of :data:`TABLES`.
     """
     base = Path(survey_file).parent if survey_file else None
     values = {stage: {} for stage in TABLES}
     origins = {stage: {} for stage in TABLES}
     for stage, table in (processing or {}).items():
         if stage not in TABLES:
-            raise input_error(f"processing.{str(stage)[:40]}", "unknown stage; valid: "
-                              + ", ".join(STAGES), survey_file)
+            raise input_error(f"processing.{str(stage)[:40]}", "unknown table; valid: "
+                              + ", ".join(TABLES), survey_file)
         given = TABLES[stage].from_table(table, survey_file, base)
         values[stage].update(given)
         origins[stage].update({k: survey_origin(survey_file) for k in given})
     for stage, key, value in overrides:
         if stage not in TABLES:
-            raise input_error(f"--set {str(stage)[:40]}", "unknown stage; valid: " + ", ".join(STAGES))
+            raise input_error(f"--set {str(stage)[:40]}", "unknown table; valid: " + ", ".join(TABLES))
         t = TABLES[stage]
         if key not in t.names or not t.item(key).expose:
             raise input_error(f"--set {stage}.{str(key)[:40]}", "unknown key; valid: "

@@ -7,35 +7,48 @@ from .runner import STATION_STAGES
 
 __all__ = ["summary_table"]
 
+_VERDICT_COLOUR = {"good": "green", "check": "yellow", "reoccupy": "bold red",
+                   "fitted": "green"}
+
 
 def _finite(v):
     return isinstance(v, (int, float)) and math.isfinite(v)
 
 
+def _stages_cell(state, sid):
+    ran = [(stage, state["stages"][stage]["stations"].get(sid))
+           for stage in STATION_STAGES if stage in state["stages"]]
+    ran = [(stage, rec) for stage, rec in ran if rec is not None]
+    failed = [stage for stage, rec in ran if rec["status"] != "ok"]
+    if failed:
+        return f"[red]failed {failed[0]}[/]"
+    return f"[green]ok[/] {len(ran)}/{len(STATION_STAGES)}" if ran else "[dim]-[/]"
+
+
 def summary_table(state, title=None):
-    """A rich Table: per station the status of each station stage, usable gates, chi2, DOI."""
+    """A rich Table per station: stages passed, usable gates, evening verdict, fit, DOI, notes.
+
+    Numbers are never cut (columns do not wrap); only the note column folds.
+    """
+    from rich import box
     from rich.table import Table
 
     t = Table(title=title or f"tem run: {state.get('survey', {}).get('name', '')}",
-              header_style="bold")
-    t.add_column("station")
-    for stage in STATION_STAGES:
-        t.add_column(stage)
-    for col in ("usable gates", "chi2", "DOI (m)", "QC / message"):
-        t.add_column(col, justify="right" if col != "QC / message" else "left")
+              header_style="bold", box=box.SIMPLE_HEAD, pad_edge=False, padding=(0, 1),
+              collapse_padding=True)
+    for col, just in (("station", "left"), ("stages", "left"), ("gates", "right"),
+                      ("QC", "left"), ("min", "right"), ("chi2", "right"), ("DOI m", "right")):
+        t.add_column(col, justify=just, no_wrap=True)
+    t.add_column("notes", overflow="fold", ratio=1)
     for sid, s in state.get("stations", {}).items():
-        cells = []
-        for stage in STATION_STAGES:
-            rec = state["stages"].get(stage, {}).get("stations", {}).get(sid)
-            if rec is None:
-                cells.append("[dim]-[/]")
-            else:
-                cells.append("[green]ok[/]" if rec["status"] == "ok" else "[red]FAILED[/]")
         gates = f"{s['usable_gates']}/{s.get('gates', '?')}" if "usable_gates" in s else "-"
+        verdict = s.get("qc_verdict", "")
+        qc = f"[{_VERDICT_COLOUR.get(verdict, 'white')}]{verdict}[/]" if verdict else "-"
+        minutes = s.get("extra_minutes")
+        minutes = f"{minutes:.0f}" if _finite(minutes) and minutes > 0 else ""
         chi2 = f"{s['chi2']:.2f}" if _finite(s.get("chi2")) else "-"
         doi = f"{s['doi']:.0f}" if _finite(s.get("doi")) else "-"
-        note = s.get("message") or ("" if s.get("qc", "ok") == "ok" else f"QC {s['qc']}")
-        if not note and s.get("invert_message"):
-            note = s["invert_message"]
-        t.add_row(sid, *cells, gates, chi2, doi, note)
+        notes = [n for n in (s.get("message"), s.get("qc_reasons"), s.get("invert_message"))
+                 if n]
+        t.add_row(sid, _stages_cell(state, sid), gates, qc, minutes, chi2, doi, "; ".join(notes))
     return t

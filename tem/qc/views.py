@@ -68,30 +68,38 @@ def _status(r) -> str:
 
 
 def qc_table(rows, failed=(), title="Stack QC", console=None):
-    """Print the QC rows (and failed stations) as a rich table."""
+    """Print the QC rows (and failed stations) as a rich table that fits 80 columns.
+
+    Numbers are never cut: every column keeps its full width and the headers
+    are short, with their meaning in a caption.
+    """
+    from rich import box
     from rich.console import Console
     from rich.table import Table
     console = console or Console()
     if not console.is_terminal:
-        console = Console(file=console.file, width=150)
-    t = Table(title=title, header_style="bold")
-    for col, just in [("station", "left"), ("ch", "left"), ("transients", "right"),
-                      ("rej noisy/bad", "right"), ("clipped/outlier smp", "right"),
-                      ("noise (per A)", "right"), ("SNR 1st gate", "right"),
-                      ("usable time (s)", "right"), ("status", "left")]:
-        t.add_column(col, justify=just)
+        console = Console(file=console.file, width=100)
+    t = Table(title=title, header_style="bold", box=box.SIMPLE_HEAD, pad_edge=False,
+              padding=(0, 1), collapse_padding=True,
+              caption="used: transients stacked/recorded; rej: rejected whole (noisy+bad); "
+              "clip, spike: samples at a rail, outliers; noise: floor per A (V/m/A for E, "
+              "T/s/A for dB/dt); snr: first gate; usable: time range of usable gates (s)")
+    for col, just in [("station", "left"), ("ch", "left"), ("used", "right"), ("rej", "right"),
+                      ("clip", "right"), ("spike", "right"), ("noise", "right"),
+                      ("snr", "right"), ("usable", "right"), ("status", "left")]:
+        t.add_column(col, justify=just, no_wrap=True)
     for r in rows:
         rng = "-"
         if np.isfinite(r.get("t_end", np.nan)):
-            rng = f"{r['t_start']:.2g} - {r['t_end']:.2g}"
+            rng = f"{r['t_start']:.2g}-{r['t_end']:.2g}"
         status = {"ok": "[green]ok[/]", "POOR": "[yellow]POOR[/]", "DEAD": "[red]DEAD[/]"}.get(
             r["status"], r["status"])
         t.add_row(r["station"], r["channel"], f"{r['used']}/{r['total']}",
-                  f"{r['noisy']}/{r['bad']}", f"{r['clipped']}/{r['outliers']}",
-                  f"{r['noise']:.2e} {r['unit']}" if "noise" in r else "-",
+                  f"{r['noisy'] + r['bad']}", f"{r['clipped']}", f"{r['outliers']}",
+                  f"{r['noise']:.1e}" if "noise" in r else "-",
                   f"{r['snr']:.0f}" if np.isfinite(r.get("snr", np.nan)) else "-", rng, status)
     for sid, msg in failed:
-        t.add_row(sid, "-", "-", "-", "-", "-", "-", "-", "[red]FAILED[/] (error above)")
+        t.add_row(sid, "-", "-", "-", "-", "-", "-", "-", "-", "[red]FAILED[/]")
     console.print(t)
     return t
 

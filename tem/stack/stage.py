@@ -8,7 +8,7 @@ from pathlib import Path
 
 from ..io.project import Project
 from ..provenance import stage_record
-from ..runtime import StageContext, StageResult, StationOutcome, map_stations
+from ..runtime import StageContext, StageResult, StationOutcome, map_stations, report_progress
 from .settings import StackSettings
 
 __all__ = ["run", "stack_one"]
@@ -23,7 +23,7 @@ def stack_one(survey, sid, settings: StackSettings, survey_file, out_path, fig_p
     from .station import stack_station
 
     st = survey.station(sid)
-    chans, timing = stack_station(survey, st, settings)
+    chans, timing = stack_station(survey, st, settings, progress=report_progress)
     inputs = ([survey_file] if survey_file else []) + [survey.path(f) for rx in st.receivers
                                                         for f in rx.files]
     rec = stage_record("stack", {"station": sid, **settings.as_dict(), "timing": timing["source"]},
