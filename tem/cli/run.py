@@ -18,6 +18,8 @@ def add_parser(sub):
     p.add_argument("--from", dest="from_stage", choices=STAGES, metavar="STAGE",
                    help="rerun from this stage, reusing the files of the earlier stages "
                    f"({', '.join(STAGES)})")
+    p.add_argument("--until", dest="until", choices=STAGES, metavar="STAGE",
+                   help="stop after this stage (e.g. gate: stacks, gates and the evening QC only)")
     p.add_argument("--set", dest="settings", action="append", default=[], metavar="STAGE.KEY=VALUE",
                    help="override one processing setting, e.g. --set invert.layers=24 or "
                    "--set invert.lci=true (TOML value syntax; repeatable)")
@@ -37,7 +39,8 @@ def run(args) -> int:
     overrides = [parse_assignment(s) for s in args.settings]
     outcome = run_pipeline(args.survey, args.out, from_stage=args.from_stage, overrides=overrides,
                            jobs=args.jobs or common.default_jobs(), console=Console(stderr=True),
-                           progress=args.progress, figures=args.figures, scheduler=args.scheduler)
+                           progress=args.progress, figures=args.figures, scheduler=args.scheduler,
+                           until=args.until)
     print_summary(outcome, Console())
     return outcome.exit_status
 

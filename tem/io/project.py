@@ -45,7 +45,7 @@ STAGE_FOLDERS = {
     "invert": ("models", "figures/stations"),
     "section": ("sections", "figures"),
     "export": ("exports",),
-    "report": (),
+    "report": ("figures",),
     "forward": (),
     "synth": (),
 }

@@ -50,7 +50,7 @@ OWNED = {
     "invert": ("models/*.nc", "models/*.csv", "figures/stations/*_fit.png"),
     "section": ("sections/*.nc", "figures/section*.*", "figures/models.*"),
     "export": ("exports/*.csv", "exports/*.sgy", "exports/*.json", "exports/las/*.las"),
-    "report": ("report.html",),
+    "report": ("report.html", "figures/qc_*.png"),
 }
 
 
@@ -328,7 +328,7 @@ def _kept_inputs_notes(project, state, stages, sums):
 
 
 def run_pipeline(survey_file, project_dir, from_stage=None, overrides=(), jobs=1, console=None,
-                 progress=True, figures=True, scheduler=None) -> RunOutcome:
+                 progress=True, figures=True, scheduler=None, until=None) -> RunOutcome:
     """Run the chain stack -> gate -> rhoa -> invert -> section -> export -> report.
 
     Parameters
@@ -355,6 +355,8 @@ def run_pipeline(survey_file, project_dir, from_stage=None, overrides=(), jobs=1
     scheduler : str or None
         ``"local"`` (a dask LocalCluster of ``jobs`` workers) or the address of a
         dask.distributed scheduler; None: a local process pool.
+    until : str or None
+        Stop after this stage (``"gate"``: the evening check, stack + gate + QC).
 
     Returns
     -------
@@ -373,14 +375,19 @@ def run_pipeline(survey_file, project_dir, from_stage=None, overrides=(), jobs=1
     if from_stage is not None and from_stage not in STAGES:
         raise input_error("--from", f"unknown stage {from_stage!r}; valid: {', '.join(STAGES)}")
     start = STAGES.index(from_stage) if from_stage else 0
+    if until is not None and until not in STAGES:
+        raise input_error("--until", f"unknown stage {until!r}; valid: {', '.join(STAGES)}")
+    end = STAGES.index(until) + 1 if until else len(STAGES)
+    if end <= start:
+        raise input_error("--until", f"stage {until} comes before --from {from_stage}")
     console = console or Console(stderr=True)
     with ProjectLock(project.root, "tem run") as lock:
-        return _run_locked(survey, survey_file, settings, project, start, jobs, console, progress,
-                           figures, scheduler, lock)
+        return _run_locked(survey, survey_file, settings, project, start, end, jobs, console,
+                           progress, figures, scheduler, lock)
 
 
-def _run_locked(survey, survey_file, settings, project, start, jobs, console, progress, figures,
-                scheduler, lock):
+def _run_locked(survey, survey_file, settings, project, start, end, jobs, console, progress,
+                figures, scheduler, lock):
     from rich.progress import (BarColumn, MofNCompleteColumn, Progress, TextColumn,
                                TimeElapsedColumn)
 
@@ -405,7 +412,7 @@ def _run_locked(survey, survey_file, settings, project, start, jobs, console, pr
                   "survey": {"file": str(survey_file.resolve()), "sha256": run.sums.of(survey_file),
                              "name": survey.name},
                   "parameters": {k: v.as_dict() for k, v in settings.items()},
-                  "last_run": {"from": STAGES[start], "stages": list(STAGES[start:]),
+                  "last_run": {"from": STAGES[start], "stages": list(STAGES[start:end]),
                                "started_utc": _now(), "jobs": int(jobs), "figures": bool(figures),
                                "scheduler": scheduler or "local processes"}})
     housekeeping = [n for n in (lock.took_over,) if n]
@@ -423,7 +430,7 @@ def _run_locked(survey, survey_file, settings, project, start, jobs, console, pr
         prog = stack.enter_context(Progress(*columns, console=console,
                                             disable=not progress or not console.is_terminal,
                                             transient=False))
-        for stage in STAGES[start:]:
+        for stage in STAGES[start:end]:
             ok = _ok(state, survey)
             prev = STATION_STAGES.get(stage)
             n = (len(survey.stations) if prev is None else len(ok.get(prev, []))) \

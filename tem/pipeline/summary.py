@@ -22,7 +22,7 @@ def _stages_cell(state, sid):
     failed = [stage for stage, rec in ran if rec["status"] != "ok"]
     if failed:
         return f"[red]failed {failed[0]}[/]"
-    return f"[green]ok[/] {len(ran)}/{len(STATION_STAGES)}" if ran else "[dim]-[/]"
+    return f"[green]ok[/] to {ran[-1][0]}" if ran else "[dim]-[/]"
 
 
 def summary_table(state, title=None):

@@ -39,7 +39,8 @@ h2{font-size:1.15em;margin-top:1.8em;color:#7a2e1c}
 table{border-collapse:collapse;font-size:.9em}
 th,td{border:1px solid #c8ccd0;padding:.25em .6em;text-align:right}
 th{background:#eef0f2}td.id,td.status{text-align:left}
-tr.check td.status{color:#a4281b;font-weight:600}
+tr.check td.status{color:#8a6d00;font-weight:600}
+tr.reoccupy td.status{color:#a4281b;font-weight:700}
 figure{margin:1em 0}figure img{max-width:100%;border:1px solid #dde}
 figcaption{font-size:.85em;color:#555}
 .meta{font-size:.8em;color:#666}
@@ -114,17 +115,40 @@ def _figure_html(path, base, caption, embed):
             f"<figcaption>{cap}{links}</figcaption></figure>")
 
 
+def _verdict_section(qc_rows, qc_figures, base, embed):
+    """The evening answer: which stations to re-occupy and why, the map, noise against time."""
+    out = []
+    n = {v: sum(r["verdict"] == v for r in qc_rows) for v in ("reoccupy", "check", "good")}
+    out.append(f'<h2 id="verdicts">Evening verdict: {n["reoccupy"]} to re-occupy, {n["check"]} to '
+               f'check, {n["good"]} good</h2>')
+    out.append('<p class="meta">From qc/stations.csv (thresholds: [processing.qc], '
+               "docs/qc.md). Extra minutes: recording to add (noise) or to record anew.</p>")
+    out.append("<table><thead><tr><th>station</th><th>verdict</th><th>extra minutes</th>"
+               "<th>reasons</th></tr></thead><tbody>")
+    for r in qc_rows:
+        cls = {"reoccupy": ' class="reoccupy"', "check": ' class="check"'}.get(r["verdict"], "")
+        out.append(f"<tr{cls}><td class=\"id\">{html.escape(r['station'])}</td>"
+                   f"<td class=\"status\">{html.escape(r['verdict'])}</td>"
+                   f"<td>{html.escape(r['extra_minutes'])}</td>"
+                   f"<td class=\"id\">{html.escape(r['reasons'])}</td></tr>")
+    out.append("</tbody></table>")
+    for item in qc_figures:
+        path, caption = item if isinstance(item, (tuple, list)) else (item, None)
+        out.append(_figure_html(path, base, caption, embed))
+    return out
+
+
 def render_report(base, models, *, chi2_limit, embed, section_figures=(), model_figures=(),
                   station_figures=None, station_info=None, title="TEM quality-control report",
-                  notes=()):
+                  notes=(), qc_rows=(), qc_figures=()):
     """HTML text of the report, with figure links relative to folder ``base``.
 
     Parameters
     ----------
     base : Path
         Folder the HTML file will live in.
-    models : xarray.Dataset
-        Models file contents.
+    models : xarray.Dataset or None
+        Models file contents (None: the evening part only).
     section_figures, model_figures : sequence of path or (path, caption)
         PNG figures (a PDF with the same stem is linked when present).
     station_figures : dict or None
@@ -136,10 +160,13 @@ def render_report(base, models, *, chi2_limit, embed, section_figures=(), model_
         Embed PNGs as base64 instead of linking them.
     notes : sequence of str
         Extra paragraphs under the title (e.g. processing parameters).
+    qc_rows : sequence of dict
+        Rows of ``qc/stations.csv`` (station, verdict, reasons, extra_minutes):
+        the report opens with them.
+    qc_figures : sequence of path or (path, caption)
+        Station map and noise figures shown with the verdicts.
     """
     base = Path(base)
-    rows = station_table(models, station_info, chi2_limit)
-    epsg = int(models.attrs.get("epsg", 0) or 0)
     out = [
         "<!DOCTYPE html>",
         '<html lang="en"><head><meta charset="utf-8">',
@@ -149,6 +176,35 @@ def render_report(base, models, *, chi2_limit, embed, section_figures=(), model_
     ]
     for note in notes:
         out.append(f"<p>{html.escape(str(note))}</p>")
+    if qc_rows or qc_figures:
+        out += _verdict_section(qc_rows, qc_figures, base, embed)
+    if models is not None:
+        out += _model_section(models, station_info, chi2_limit, station_figures)
+    for heading, anchor, figs in (("Sections", "sections", section_figures),
+                                  ("Models", "models", model_figures)):
+        if figs:
+            out.append(f'<h2 id="{anchor}">{heading}</h2>')
+            for item in figs:
+                path, caption = item if isinstance(item, (tuple, list)) else (item, None)
+                out.append(_figure_html(path, base, caption, embed))
+    if station_figures:
+        out.append('<h2 id="decays">Decays and fits by station</h2>')
+        for sid, figs in station_figures.items():
+            out.append(f'<h3 id="st-{html.escape(str(sid))}">{html.escape(str(sid))}</h3>')
+            for item in figs:
+                path, caption = item if isinstance(item, (tuple, list)) else (item, None)
+                out.append(_figure_html(path, base, caption, embed))
+    stamp = _dt.datetime.now(_dt.timezone.utc).isoformat(timespec="seconds")
+    kind = html.escape(str(models.attrs.get("model_kind", ""))) if models is not None else "none"
+    out.append(f'<p class="meta">tem {__version__}; model kind {kind}; written {stamp}.</p>')
+    out.append("</body></html>")
+    return "\n".join(out) + "\n"
+
+
+def _model_section(models, station_info, chi2_limit, station_figures):
+    rows = station_table(models, station_info, chi2_limit)
+    epsg = int(models.attrs.get("epsg", 0) or 0)
+    out = []
     n_check = sum(r["status"] != STATUS_OK for r in rows)
     out.append(f'<h2 id="stations">Stations ({len(rows)}; {n_check} to check)</h2>')
     crs = f"EPSG:{epsg}" if epsg else "CRS not given"
@@ -166,25 +222,7 @@ def render_report(base, models, *, chi2_limit, embed, section_figures=(), model_
                    f"<td>{_fmt(r['chi2'], 2)}</td><td>{_fmt(r['doi'], 0)}</td>"
                    f"<td>{gates}</td><td class=\"status\">{html.escape(r['status'])}</td></tr>")
     out.append("</tbody></table>")
-    for heading, anchor, figs in (("Sections", "sections", section_figures),
-                                  ("Models", "models", model_figures)):
-        if figs:
-            out.append(f'<h2 id="{anchor}">{heading}</h2>')
-            for item in figs:
-                path, caption = item if isinstance(item, (tuple, list)) else (item, None)
-                out.append(_figure_html(path, base, caption, embed))
-    if station_figures:
-        out.append('<h2 id="decays">Decays and fits by station</h2>')
-        for sid, figs in station_figures.items():
-            out.append(f'<h3 id="st-{html.escape(str(sid))}">{html.escape(str(sid))}</h3>')
-            for item in figs:
-                path, caption = item if isinstance(item, (tuple, list)) else (item, None)
-                out.append(_figure_html(path, base, caption, embed))
-    stamp = _dt.datetime.now(_dt.timezone.utc).isoformat(timespec="seconds")
-    kind = html.escape(str(models.attrs.get("model_kind", "")))
-    out.append(f'<p class="meta">tem {__version__}; model kind {kind}; written {stamp}.</p>')
-    out.append("</body></html>")
-    return "\n".join(out) + "\n"
+    return out
 
 
 def write_report(path, models, **kwargs):

@@ -33,17 +33,81 @@ def _run_record(project: Project):
     return state if isinstance(state, dict) else {}
 
 
+def _qc_rows(src: Project):
+    """Rows of ``qc/stations.csv`` ([] when the project has none)."""
+    import csv
+
+    path = src.folder("qc") / "stations.csv"
+    if not path.is_file():
+        return []
+    try:
+        with open(path, newline="", encoding="utf-8") as fh:
+            rows = list(csv.DictReader(fh))
+    except (OSError, UnicodeDecodeError, csv.Error):
+        raise input_error("stations.csv", "unreadable", path) from None
+    need = {"station", "verdict", "reasons", "extra_minutes"}
+    if rows and not need <= set(rows[0]):
+        raise input_error("stations.csv", f"needs the columns {', '.join(sorted(need))}", path)
+    return [{k: (r.get(k) or "") for k in need} for r in rows]
+
+
+def qc_figures(src: Project, project: Project, qc_rows, ctx):
+    """The station map and the noise figure from the gated soundings; returns [(png, caption)]."""
+    import numpy as np
+
+    from ..io.figures import save_figure
+    from ..io.stacked import read_product
+    from .figures import noise_figure, station_map
+
+    verdicts = {r["station"]: r["verdict"] for r in qc_rows}
+    gated = sorted(src.folder("gated").glob("*.nc"))
+    if not gated or not ctx.figures:
+        return []
+    stations, series, tx, epsg = [], [], None, 0
+    for f in gated:
+        ds = read_product(f, "gated")
+        sid = f.stem
+        stations.append((sid, float(ds.attrs["x"]), float(ds.attrs["y"]), verdicts.get(sid, "")))
+        if tx is None:
+            tx = (str(ds.attrs["tx_kind"]), np.asarray(ds.attrs["tx_points"], float).reshape(-1, 2))
+            epsg = int(ds.attrs.get("epsg", 0) or 0)
+        t = ds["gate_centre"].values
+        for c, comp in enumerate(ds["component"].values):
+            series.append((sid, str(comp), t, ds["error"].values[c]))
+    stations += [(r["station"], np.nan, np.nan, r["verdict"]) for r in qc_rows
+                 if r["station"] not in {s[0] for s in stations}]
+    figs = project.folder("figures")
+    out = []
+    pts = [s for s in stations if np.isfinite(s[1])]
+    p = save_figure(station_map(pts, tx[0], tx[1], epsg, title="Stations by evening verdict"),
+                    figs / "qc_map", dpi=120)[0]
+    out.append((p, "Stations coloured by evening verdict, with the transmitter (survey "
+                "coordinates, m)"))
+    p = save_figure(noise_figure(series, verdicts, title="Noise in each gate, by station"),
+                    figs / "qc_noise", dpi=120)[0]
+    out.append((p, "Standard error of every gate against time, one line per station and "
+                "component, coloured by verdict; dashed: the survey median"))
+    return out
+
+
 def run(settings: ReportSettings, project_in, out, ctx: StageContext = StageContext()) -> StageResult:
-    """Write ``OUT/report.html`` for the products of ``project_in``."""
+    """Write ``OUT/report.html`` for the products of ``project_in``.
+
+    It opens with the evening verdicts (``qc/stations.csv``), a station map and
+    the noise figure, then the models, sections and per-station figures (the
+    models part is left out when the project has no models yet).
+    """
     from ..io.models import read_models
     from .html import STATUS_MISFIT, STATUS_NONE, STATUS_OK, write_report
 
     src = project_in if isinstance(project_in, Project) else Project(project_in)
     project = out if isinstance(out, Project) else Project(out)
     mfile = src.folder("models") / "models.nc"
-    if not mfile.is_file():
-        raise input_error("file", "missing (run the invert stage first)", mfile)
-    models = read_models(mfile)
+    qc_rows = _qc_rows(src)
+    if not mfile.is_file() and not qc_rows:
+        raise input_error("file", "missing (run the invert stage, or the evening check, first)",
+                          mfile)
+    models = read_models(mfile) if mfile.is_file() else None
     state = ctx.run_state if ctx.run_state is not None else _run_record(src)
     figs = src.folder("figures")
     sections = [(figs / "section.png", "Resistivity section (1D models stitched along the "
@@ -55,13 +119,14 @@ def run(settings: ReportSettings, project_in, out, ctx: StageContext = StageCont
     model_figs = [(p, "1D models with +-1 std band and DOI") for p in [figs / "models.png"]
                   if p.is_file()]
     stations = state.get("stations", {}) if isinstance(state.get("stations"), dict) else {}
-    ids = list(models["station"].values.astype(str))
+    modelled = list(models["station"].values.astype(str)) if models is not None else []
+    ids = list(modelled)
     ids += [s for s in stations if s not in ids]
     station_figs, info = {}, {}
     for sid in ids:
         items = [(src.station_figure(sid, k), f"{sid}: {c}") for k, c in _CAPTIONS.items()]
         items = [(p, c) for p, c in items if p.is_file()]
-        if items and sid in models["station"].values.astype(str):
+        if items and sid in modelled:
             station_figs[sid] = items
         s = stations.get(sid, {})
         entry = {}
@@ -70,7 +135,7 @@ def run(settings: ReportSettings, project_in, out, ctx: StageContext = StageCont
         chi2 = s.get("chi2")
         if chi2 is not None:
             status = STATUS_OK if chi2 <= settings.chi2_limit else STATUS_MISFIT
-        elif sid in models["station"].values.astype(str):
+        elif sid in modelled:
             status = None
         else:
             status = STATUS_NONE
@@ -89,8 +154,11 @@ def run(settings: ReportSettings, project_in, out, ctx: StageContext = StageCont
             notes.append(f"Station {sid} failed at stage {s['failed_stage']}: {s.get('message', '')}")
     title = settings.title or (f"{name}: TEM quality-control report" if name
                                else "TEM quality-control report")
+    qfigs = qc_figures(src, project, qc_rows, ctx)
     path = write_report(project.report, models, section_figures=sections, model_figures=model_figs,
                         station_figures=station_figs, station_info=info, title=title,
-                        chi2_limit=settings.chi2_limit, embed=settings.embed, notes=notes)
-    return StageResult(outputs=[str(path)],
-                       inputs=[{"file": str(mfile), "sha256": file_sha256(mfile)}])
+                        chi2_limit=settings.chi2_limit, embed=settings.embed, notes=notes,
+                        qc_rows=qc_rows, qc_figures=qfigs)
+    inputs = [{"file": str(f), "sha256": file_sha256(f)} for f in
+              (mfile, src.folder("qc") / "stations.csv") if f.is_file()]
+    return StageResult(outputs=[str(path)] + [str(p) for p, _ in qfigs], inputs=inputs)
