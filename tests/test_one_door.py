@@ -95,10 +95,11 @@ def test_same_products(two_doors):
 def test_stage_records_name_the_same_settings(two_doors):
     a, _ = two_doors
     state = json.loads((a / "run.json").read_text())
-    from tem.pipeline.settings import TABLES
+    from tem.pipeline.settings import STAGES, TABLES
 
-    for stage, table in TABLES.items():
-        assert set(state["stages"][stage]["parameters"]) == set(table.names)
+    for stage in STAGES:
+        assert set(state["stages"][stage]["parameters"]) == set(TABLES[stage].names)
+    assert set(state["parameters"]) == set(TABLES)            # the QC thresholds too
     assert state["parameters"]["invert"]["layers"] == 10
 
 

@@ -158,7 +158,10 @@ def _check_report(proj):
     for sid in STATIONS:
         if sid != CORRUPT:
             assert f"figures/stations/{sid}_fit.png" in parser.links
-    assert parser.rows == 1 + len(STATIONS) - 1                # header + stations with a model
+    # the evening verdicts (header + every station, the corrupt one too), then the model
+    # table (header + stations with a model)
+    assert parser.rows == (1 + len(STATIONS)) + (1 + len(STATIONS) - 1)
+    assert "figures/qc_map.png" in parser.links and "figures/qc_noise.png" in parser.links
     assert f"Station {CORRUPT} failed at stage stack" in text
 
 
@@ -183,7 +186,7 @@ def test_run_end_to_end(tmp_path, capsys):
         assert "failed_stage" not in st[sid], st[sid]
         assert np.isfinite(st[sid]["chi2"]) and st[sid]["doi"] > 0 and st[sid]["usable_gates"] > 5
     assert not (proj / "gated" / f"{CORRUPT}.nc").exists()
-    assert CORRUPT in out.out and "FAILED" in out.out           # closing summary table
+    assert CORRUPT in out.out and "failed stack" in out.out     # closing summary table
     # the failure line on stderr is one line, however long (rich wrapped it at 80 columns)
     line = [ln for ln in out.err.splitlines() if ln.startswith(f"stack: station {CORRUPT} failed")]
     assert len(line) == 1 and line[0].endswith(st[CORRUPT]["message"])

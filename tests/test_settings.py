@@ -21,7 +21,7 @@ from tem.settings import PYTHON, SettingsTable
 
 ALL = dict(TABLES, forward=FORWARD)
 #: command that exposes each table (the pipeline exposes them through [processing] and --set)
-COMMANDS = {"stack": "stack", "gate": "gate", "rhoa": "rhoa", "invert": "invert",
+COMMANDS = {"stack": "stack", "gate": "gate", "qc": "gate", "rhoa": "rhoa", "invert": "invert",
             "section": "section", "export": "export", "report": "report", "forward": "forward"}
 
 

@@ -103,7 +103,7 @@ class StationVerdict:
 
 
 # ---------------------------------------------------------------------------- survey context
-def offset_classes(measures, class_ratio: float = 2.0) -> dict:
+def offset_classes(measures, class_ratio: float) -> dict:
     """Offset class (0, 1, ...) of every (station, component): factor-``class_ratio`` bins.
 
     Bins start at the smallest positive offset of the component in the survey;
