@@ -19,14 +19,14 @@ import numpy as np
 from scipy.interpolate import PchipInterpolator
 
 from .errors import input_error
-from .forward import LayeredModel, PolygonLoop, Receiver as FwdReceiver, Simulation, Waveform, Wire
+from .forward import LayeredModel, Simulation
+from .forward.sounding import survey_lowpass, survey_receiver, survey_source, survey_waveform
 from .io.raw import RawHeader, write_npy_recording
 from .survey import (COIL_COMPONENTS, Receiver, Station, Survey, Transmitter, parse_time,
                      seconds_between)
 
-__all__ = ["NoiseSpec", "Faults", "forward_source", "forward_receiver", "survey_waveform",
-           "station_transient", "synth_channel", "synth_survey", "emberline_survey",
-           "emberline_models", "EMBERLINE_NOISE"]
+__all__ = ["NoiseSpec", "Faults", "station_transient", "synth_channel", "synth_survey",
+           "emberline_survey", "emberline_models", "EMBERLINE_NOISE"]
 
 
 @dataclass(frozen=True)
@@ -100,28 +100,6 @@ EMBERLINE_NOISE = {
 }
 
 
-# ---------------------------------------------------------------------------- forward glue
-def forward_source(tx: Transmitter):
-    if tx.kind == "wire":
-        return Wire(a=tx.points[0], b=tx.points[1])
-    return PolygonLoop(vertices=tx.points)
-
-
-def forward_receiver(rx: Receiver, station: Station) -> FwdReceiver:
-    if rx.dipole is not None:
-        return FwdReceiver(rx.component, dipole=rx.dipole)
-    return FwdReceiver(rx.component, (station.x, station.y))
-
-
-def survey_waveform(tx: Transmitter) -> Waveform:
-    return Waveform.bipolar(base_frequency=tx.base_frequency, duty_cycle=tx.duty_cycle,
-                            ramp_on=tx.ramp_on, ramp_off=tx.ramp_off)
-
-
-def _lowpass(survey):
-    return (survey.lowpass_order, survey.lowpass_cutoff) if survey.lowpass_order else None
-
-
 def station_transient(survey: Survey, station: Station, model: LayeredModel, times,
                       receivers=None, n_per_piece: int = 140):
     """Noise-free periodic response (per A) at ``times`` in [0, T/2) for the receivers.
@@ -153,9 +131,9 @@ def station_transient(survey: Survey, station: Station, model: LayeredModel, tim
         g = a + np.geomspace(dt_min, (b - a) - dt_min, n)
         grids.append(g)
     grid = np.unique(np.concatenate(grids))
-    sim = Simulation(forward_source(tx), [forward_receiver(r, station) for r in receivers],
+    sim = Simulation(survey_source(tx), [survey_receiver(r, station) for r in receivers],
                      times=grid, waveform=survey_waveform(tx), response="waveform",
-                     lowpass=_lowpass(survey))
+                     lowpass=survey_lowpass(survey))
     d = sim.predict(model)
     out = np.empty((len(receivers), t.size))
     for a, b, g in zip(corners, ends, grids):

@@ -15,8 +15,8 @@ from tem.io.raw import open_recording, sidecar_path
 from tem.io.stacked import read_product
 from tem.stack import StackSettings, stack_station
 from tem.survey import read_survey, write_survey
-from tem.synth import (emberline_survey, forward_receiver, forward_source, survey_waveform,
-                       synth_survey)
+from tem.forward.sounding import survey_receiver, survey_source, survey_waveform
+from tem.synth import emberline_survey, synth_survey
 
 
 @pytest.fixture(scope="module")
@@ -30,7 +30,7 @@ def day(tmp_path_factory):
 
 def engine_truth(sv, st, model, gated, c):
     rx = [r for r in st.data_receivers if r.component == str(gated["component"].values[c])][0]
-    sim = Simulation(forward_source(sv.transmitter), [forward_receiver(rx, st)],
+    sim = Simulation(survey_source(sv.transmitter), [survey_receiver(rx, st)],
                      gates=(gated["gate_open"].values, gated["gate_close"].values),
                      gate_shape=gated.attrs["gate_shape"], waveform=survey_waveform(sv.transmitter),
                      response="waveform")

@@ -32,8 +32,8 @@ from tem.gate.windows import GateTable, gate_matrix, gate_stacked
 from tem.io.stacked import stacked_dataset
 from tem.stack import StackSettings, stack_station
 from tem.stack.batchvar import linear_variance
-from tem.synth import (emberline_survey, forward_receiver, forward_source, survey_waveform,
-                       synth_survey)
+from tem.forward.sounding import survey_receiver, survey_source, survey_waveform
+from tem.synth import emberline_survey, synth_survey
 
 
 def score_day(out, seed, duration, shape, verbose):
@@ -54,7 +54,7 @@ def score_day(out, seed, duration, shape, verbose):
         for ci, c in enumerate(chans):
             if c.dead:
                 continue
-            sim = Simulation(forward_source(sv.transmitter), [forward_receiver(c.receiver, st)],
+            sim = Simulation(survey_source(sv.transmitter), [survey_receiver(c.receiver, st)],
                              gates=(table.open, table.close), gate_shape=shape,
                              waveform=survey_waveform(sv.transmitter), response="waveform")
             st_truth = sim.predict(models[st.id])[0]
