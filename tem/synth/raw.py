@@ -18,11 +18,11 @@ from pathlib import Path
 import numpy as np
 from scipy.interpolate import PchipInterpolator
 
-from .errors import input_error
-from .forward import LayeredModel, Simulation
-from .forward.sounding import survey_lowpass, survey_receiver, survey_source, survey_waveform
-from .io.raw import RawHeader, write_npy_recording
-from .survey import (COIL_COMPONENTS, Receiver, Station, Survey, Transmitter, parse_time,
+from ..errors import input_error
+from ..forward import LayeredModel, Simulation
+from ..forward.sounding import survey_lowpass, survey_receiver, survey_source, survey_waveform
+from ..io.raw import RawHeader, write_npy_recording
+from ..survey import (COIL_COMPONENTS, Receiver, Station, Survey, Transmitter, parse_time,
                      seconds_between)
 
 __all__ = ["NoiseSpec", "Faults", "station_transient", "synth_channel", "synth_survey",
