@@ -68,38 +68,48 @@ def csv_text(rows) -> str:
 def pseudo_sections(project: Project, stations, settings: RhoaSettings):
     """One pseudo-section figure per component found at two or more stations.
 
-    Returns ``(written files, notes)``; a component that cannot be drawn is
-    named in a note with the reason.
+    One rule for every station, stated in the title: where a gate has two
+    all-time roots (Spies & Eggers 1986, Geophysics 51(7)), the figure draws
+    the larger one, the branch that joins the late-time apparent resistivity.
+    A station's own choice (kept in its product) follows its decay in time and
+    can differ from its neighbours'; drawn side by side, such choices make
+    false contrasts. Returns ``(written files, notes)``; a component that
+    cannot be drawn is named in a note with the reason.
     """
     from ..io.figures import save_figure
     from ..io.stacked import read_product
     from .late_time import diffusion_depth
     from .plot import pseudo_section
 
-    key = "rhoa" if settings.all_time else "rhoa_late"
     data = [(sid, read_product(project.station_file("rhoa", sid), "rhoa")) for sid in stations]
     files, notes = [], []
     for comp in sorted({str(c) for _, r in data for c in r["component"].values}):
-        st, x, y, tt, rr, dd = [], [], [], [], [], []
+        rows = []
         for sid, r in data:
             ch = [i for i, c in enumerate(r["component"].values) if str(c) == comp]
-            if not ch:
-                continue
-            t = r["gate_centre"].values
-            rho = np.where(r["usable"].values[ch[0]], r[key].values[ch[0]], np.nan)
-            st.append(sid)
-            x.append(float(r.attrs["x"]))
-            y.append(float(r.attrs["y"]))
-            tt.append(t)
-            rr.append(rho)
-            dd.append(diffusion_depth(rho, t))
-        if len(st) < 2 or not any(np.isfinite(v).any() for v in rr):
+            if ch:
+                rows.append((sid, r, ch[0]))
+        rr = [np.where(r["usable"].values[c], r["rhoa" if settings.all_time else "rhoa_late"]
+                       .values[c], np.nan) for _, r, c in rows]
+        if len(rows) < 2 or not any(np.isfinite(v).any() for v in rr):
             notes.append(f"no pseudo-section for {comp}: needs usable apparent resistivity at two "
-                         f"or more stations ({len(st)} with the component)")
+                         f"or more stations ({len(rows)} with the component)")
             continue
+        x = np.array([float(r.attrs["x"]) for _, r, _ in rows])
+        y = np.array([float(r.attrs["y"]) for _, r, _ in rows])
+        tt = [r["gate_centre"].values for _, r, _ in rows]
+        rule = ""
+        if settings.all_time:
+            two = [np.asarray(r["rhoa_n_roots"].values[c]) > 1 for _, r, c in rows]
+            rr = [np.where(t & np.isfinite(v), r["rhoa_high"].values[c], v)
+                  for t, v, (_, r, c) in zip(two, rr, rows)]
+            n_two = int(sum((t & np.isfinite(v)).sum() for t, v in zip(two, rr)))
+            rule = f"; {n_two} two-root gates on the late-time branch"
+        dd = [diffusion_depth(v, t) for v, t in zip(rr, tt)]
         kind = "all-time" if settings.all_time else "late-time"
-        fig = pseudo_section(st, x, y, tt, rr, dd, axis_kind=settings.section_axis,
-                             title=f"{comp}: {kind} apparent resistivity (usable gates)")
+        fig = pseudo_section([sid for sid, _, _ in rows], x, y, tt, rr, dd,
+                             axis_kind=settings.section_axis,
+                             title=f"{comp}: {kind} apparent resistivity (usable gates{rule})")
         files += save_figure(fig, project.folder("figures") / f"pseudosection_{comp}")
     return files, notes
 
