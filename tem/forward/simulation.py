@@ -171,11 +171,13 @@ class Simulation:
         # the window-weighted sums of observation times (obs_w)
         self._u, self._urows, self._ucoef, self._obs_w = u, rows, cs, obs_w
         self._n_out = obs_w.shape[0]
-        self._dc_coef = obs_w @ dc           # (n_out,): coefficient of the DC value
-        self._dc_rate = None
-        if self.response == "waveform":
-            rate = self._waveform_rate(obs_t)
-            self._dc_rate = obs_w @ rate
+        # (n_out,): coefficient of the DC value in fields (E, B). dB/dt takes no DC
+        # term: by Leibniz's rule d/dt [DC I(t) - sum m int_0^(t-t0) s(u) du] =
+        # I'(t) (DC - s(0+)) - sum m int s'(u) du, and s(0+) = DC for magnetic fields
+        # (the currents just after a switch equal those just before; Ward & Hohmann
+        # 1988, superposition of step responses), so a ramp in progress contributes
+        # only -m int_0^(t-t0) s'(u) du, which the ramp integral already holds.
+        self._dc_coef = obs_w @ dc
 
     def _time_operator(self, t, n_half_periods):
         """Express the response at times t as sum coef * s(u) + dc * DC."""
@@ -215,17 +217,6 @@ class Simulation:
         u, wq, r = log_gauss_many(lo[keep], hi[keep], rows[keep])
         cs = wq * np.repeat(coef[keep], np.diff(r[1]))
         return u, np.repeat(rows[keep], np.diff(r[1])), cs, dc
-
-    def _waveform_rate(self, t):
-        """Coefficient of the DC field's rate term (dB/dt receivers): sum of I'(t)."""
-        wf = self.waveform
-        if wf.half_period is None:
-            return wf.slope_at(t)
-        hp = wf.half_period
-        out = np.zeros(t.size)
-        for k in range(-1, 2):
-            out += (-1.0) ** k * wf.slope_at(t + k * hp)
-        return out
 
     def _check_geometry(self):
         seg = self.source.segments
@@ -377,8 +368,6 @@ class Simulation:
         for i, k in enumerate(kinds):
             if k in ("e", "b"):
                 dc_row[i] = self._dc_coef
-            elif self._dc_rate is not None:
-                dc_row[i] = self._dc_rate
         self._dc_row = dc_row * self._scale[:, None]
         self._needs_dc = bool(np.any(dc_row != 0))
         self._iwm = 1j * self._omega * MU0
