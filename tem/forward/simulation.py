@@ -123,7 +123,7 @@ class Simulation:
         if hankel == "auto":
             self._choose_hankel()
         else:
-            self._lam, self._G, self._need_tm = self._space_operators(hankel)
+            self._bind(*self._space_operators(hankel))
 
     # ------------------------------------------------------------------ set-up
     def _setup_times(self, times, gates, gate_nodes, n_half_periods):
@@ -274,7 +274,7 @@ class Simulation:
         ops = {name: self._space_operators(name) for name in _HANKEL_CHOICE}
         out = {}
         for name, (lam, G, need_tm) in ops.items():
-            self._lam, self._G, self._need_tm = lam, G, need_tm
+            self._bind(lam, G, need_tm)
             out[name] = np.array([self.predict(LayeredModel.halfspace(r)) for r in _CHECK_RHO])
         a, b = (out[n] for n in _HANKEL_CHOICE)
         peak = np.max(np.abs(b), axis=-1, keepdims=True)
@@ -285,7 +285,7 @@ class Simulation:
         self.hankel_check = dev
         name = _HANKEL_CHOICE[0] if dev <= _HANKEL_TOL else _HANKEL_CHOICE[1]
         self.hankel_name = name
-        self._lam, self._G, self._need_tm = ops[name]
+        self._bind(*ops[name])
 
     def _setup_fourier(self):
         """Time-domain operators per receiver on a common (coarse) frequency grid.
@@ -372,10 +372,15 @@ class Simulation:
         self._needs_dc = bool(np.any(dc_row != 0))
         self._iwm = 1j * self._omega * MU0
 
+    def _bind(self, lam, G, need_tm):
+        """Fix the kernel's model-independent arguments (wavenumbers, coefficient matrices)."""
+        self._lam, self._G, self._need_tm = lam, G, need_tm
+        self._kargs = (lam, G["r"], G["a1"], G["b"], need_tm)
+
     def _kernel(self, omega, res, thk, jac=False, jac_thk=False):
-        G = self._G
-        return fused_spectra(self._lam, omega, res, thk, G["r"], G["a1"], G["b"],
-                             need_tm=self._need_tm, jac=jac, jac_thk=jac_thk)
+        lam, Gr, Ga, Gb, need_tm = self._kargs
+        return fused_spectra(lam, omega, res, thk, Gr, Ga, Gb, need_tm=need_tm, jac=jac,
+                             jac_thk=jac_thk)
 
     def _time_domain(self, F):
         """Responses (..., nr, n_out) from spectra F (..., nw, nr), without the DC terms."""
@@ -437,16 +442,14 @@ class Simulation:
             raise ValueError("resistivity: every value must be positive and finite (ohm-m)")
         if not np.all(np.isfinite(thk)) or np.any(thk <= 0):
             raise ValueError("thickness: every layer thickness must be positive and finite (m)")
-        G = self._G
-        F = fused_spectra_many(self._lam, self._omega, res, thk, G["r"], G["a1"], G["b"],
-                               need_tm=self._need_tm)
+        lam, Gr, Ga, Gb, need_tm = self._kargs
+        F = fused_spectra_many(lam, self._omega, res, thk, Gr, Ga, Gb, need_tm=need_tm)
         an = self._analytic
         F += res[:, :1, None] * an[:, 0][None, None, :]
         F += self._iwm[:, None] * an[:, 1] + an[:, 2]
         out = self._time_domain(F)
         if self._needs_dc:
-            D = fused_spectra_many(self._lam, np.zeros(1), res, thk, G["r"], G["a1"], G["b"],
-                                   need_tm=self._need_tm)[:, 0]
+            D = fused_spectra_many(lam, np.zeros(1), res, thk, Gr, Ga, Gb, need_tm=need_tm)[:, 0]
             dc = D.real + res[:, :1] * an[:, 0] + an[:, 2]
             out += dc[:, :, None] * self._dc_row
         return out
