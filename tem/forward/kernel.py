@@ -159,7 +159,7 @@ def _bottom_up(scale, gr, gi, er, ei, A, B, XR, XI):  # pragma: no cover - compi
 
 @nb.njit(**_JIT)
 def _bottom_up_jac(scale, tmf, wm, sig, thk, lam, gr, gi, er, ei, A, B, XR, XI, FR, FI, GR, GI,
-                   HR, HI):  # pragma: no cover - compiled
+                   jac_thk, HR, HI):  # pragma: no cover - compiled
     """:func:`_bottom_up` plus the per-layer partial derivatives the reverse sweep chains.
 
     X_n = K (P + e M)/(P - e M), P = X + K, M = X - K, X = X_{n+1}, K = c Gamma_n with
@@ -169,9 +169,9 @@ def _bottom_up_jac(scale, tmf, wm, sig, thk, lam, gr, gi, er, ei, A, B, XR, XI, 
     q = omega mu0 sigma, t = q/(2 (lambda^4 + q^2)) (as Gamma^2 = lambda^2 + i q), and
     de/dln rho = -2 h e Gamma d, de/dln h = -2 h e Gamma:
     G = dX_n/dln rho_n = d [X_n - X F - (h/c) F P M] + tmf (X_n - X F) (tmf = 1 for TM,
-    where c = rho_n varies too, else 0), H = dX_n/dln h_n = -(h/c) F P M. The bottom layer
-    of a wavenumber has X_n = K: G = K d + tmf K. Every row is written unconditionally
-    (H too), so the loops stay vectorised.
+    where c = rho_n varies too, else 0), H = dX_n/dln h_n = -(h/c) F P M (with ``jac_thk``,
+    in a loop of its own: loops that write few arrays stay vectorised). The bottom layer
+    of a wavenumber has X_n = K: G = K d + tmf K.
     """
     L = scale.size
     for n in range(L - 1, -1, -1):
@@ -191,8 +191,6 @@ def _bottom_up_jac(scale, tmf, wm, sig, thk, lam, gr, gi, er, ei, A, B, XR, XI, 
         fio = FI[n]
         gro = GR[n]
         gio = GI[n]
-        hro = HR[n]
-        hio = HI[n]
         for il in range(B[n], A[n]):
             l2 = lam[il] * lam[il]
             t = 0.5 * q / (l2 * l2 + q * q)
@@ -242,18 +240,28 @@ def _bottom_up_jac(scale, tmf, wm, sig, thk, lam, gr, gi, er, ei, A, B, XR, XI, 
             ai = x0i - (xr * fi + xi * fr)
             pmr = pr * mr - pi * mi
             pmi = pr * mi + pi * mr
-            hr = -hc * (fr * pmr - fi * pmi)           # H = -(h/c) F P M
-            hi = -hc * (fr * pmi + fi * pmr)
-            vr = ar + hr
-            vi = ai + hi
+            vr = ar - hc * (fr * pmr - fi * pmi)      # X_n - X F - (h/c) F P M
+            vi = ai - hc * (fr * pmi + fi * pmr)
             xro[il] = x0r
             xio[il] = x0i
             fro[il] = fr
             fio[il] = fi
             gro[il] = dr * vr - di * vi + tmf * ar
             gio[il] = dr * vi + di * vr + tmf * ai
-            hro[il] = hr
-            hio[il] = hi
+        if jac_thk:
+            hro = HR[n]
+            hio = HI[n]
+            for il in range(B[n]):
+                kr = c * grn[il]
+                ki = c * gin[il]
+                pr = xrb[il] + kr
+                pi = xib[il] + ki
+                mr = xrb[il] - kr
+                mi = xib[il] - ki
+                pmr = pr * mr - pi * mi
+                pmi = pr * mi + pi * mr
+                hro[il] = -hc * (fro[il] * pmr - fio[il] * pmi)   # H = -(h/c) F P M
+                hio[il] = -hc * (fro[il] * pmi + fio[il] * pmr)
 
 
 @nb.njit(**_JIT)
@@ -323,10 +331,10 @@ def _one_model(lam, omega, res, thk, need_tm, jac, jac_thk, Gr, Ga, Gb, F, dF): 
         _top_down(l2, wm, sig, thk, gr, gi, er, ei, att, A, B)
         if jac:
             _bottom_up_jac(ones, 0.0, wm, sig, thk, lam, gr, gi, er, ei, A, B, XR, XI,
-                           W[0], W[1], W[2], W[3], W[4], W[5])
+                           W[0], W[1], W[2], W[3], jac_thk, W[4], W[5])
             if need_tm:
                 _bottom_up_jac(res, 1.0, wm, sig, thk, lam, gr, gi, er, ei, A, B, ZR, ZI,
-                               W[6], W[7], W[8], W[9], W[10], W[11])
+                               W[6], W[7], W[8], W[9], jac_thk, W[10], W[11])
         else:
             _bottom_up(ones, gr, gi, er, ei, A, B, XR, XI)
             if need_tm:
