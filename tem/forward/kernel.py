@@ -158,7 +158,7 @@ def _bottom_up(scale, gr, gi, er, ei, A, B, XR, XI):  # pragma: no cover - compi
 
 
 @nb.njit(**_JIT)
-def _bottom_up_jac(scale, tmf, wm, sig, thk, lam, gr, gi, er, ei, A, B, XR, XI, FR, FI, GR, GI,
+def _bottom_up_jac(scale, tmf, wm, sig, thk, l2, gr, gi, er, ei, A, B, XR, XI, FR, FI, GR, GI,
                    jac_thk, HR, HI):  # pragma: no cover - compiled
     """:func:`_bottom_up` plus the per-layer partial derivatives the reverse sweep chains.
 
@@ -192,10 +192,10 @@ def _bottom_up_jac(scale, tmf, wm, sig, thk, lam, gr, gi, er, ei, A, B, XR, XI, 
         gro = GR[n]
         gio = GI[n]
         for il in range(B[n], A[n]):
-            l2 = lam[il] * lam[il]
-            t = 0.5 * q / (l2 * l2 + q * q)
+            x = l2[il]
+            t = 0.5 * q / (x * x + q * q)
             dr = -t * q + tmf
-            di = -t * l2
+            di = -t * x
             kr = c * grn[il]
             ki = c * gin[il]
             xro[il] = kr
@@ -203,10 +203,10 @@ def _bottom_up_jac(scale, tmf, wm, sig, thk, lam, gr, gi, er, ei, A, B, XR, XI, 
             gro[il] = dr * kr - di * ki
             gio[il] = dr * ki + di * kr
         for il in range(B[n]):
-            l2 = lam[il] * lam[il]
-            t = 0.5 * q / (l2 * l2 + q * q)
+            x = l2[il]
+            t = 0.5 * q / (x * x + q * q)
             dr = -t * q
-            di = -t * l2
+            di = -t * x
             kr = c * grn[il]
             ki = c * gin[il]
             e_r = ern[il]
@@ -293,6 +293,29 @@ def _reverse_sum(ar, ai, A, B, FR, FI, GR, GI, HR, HI, jac_thk, out):  # pragma:
 
 
 @nb.njit(**_JIT)
+def _reverse_sum2(ar, ai, br, bi, A, B, FR, FI, GR, GI, PR, PI, QR, QI, out):  # pragma: no cover
+    """:func:`_reverse_sum` of the TE (a; F, G) and TM (b; P, Q) chains in one sweep,
+    resistivity derivatives only."""
+    L = A.size
+    for n in range(L):
+        grn, gin, frn, fin = GR[n], GI[n], FR[n], FI[n]
+        qrn, qin, prn, pin = QR[n], QI[n], PR[n], PI[n]
+        s_r = 0.0
+        s_i = 0.0
+        for il in range(A[n]):
+            s_r += ar[il] * grn[il] - ai[il] * gin[il] + br[il] * qrn[il] - bi[il] * qin[il]
+            s_i += ar[il] * gin[il] + ai[il] * grn[il] + br[il] * qin[il] + bi[il] * qrn[il]
+        out[n] += complex(s_r, s_i)
+        for il in range(B[n]):
+            a_r = ar[il]
+            ar[il] = a_r * frn[il] - ai[il] * fin[il]
+            ai[il] = a_r * fin[il] + ai[il] * frn[il]
+            b_r = br[il]
+            br[il] = b_r * prn[il] - bi[il] * pin[il]
+            bi[il] = b_r * pin[il] + bi[il] * prn[il]
+
+
+@nb.njit(**_JIT)
 def _one_model(lam, omega, res, thk, need_tm, jac, jac_thk, Gr, Ga, Gb, F, dF):  # pragma: no cover
     """F[w, r] += sum_l rte (Gr + i w mu0 Ga) + btm Gb, and the same for derivatives."""
     nw = omega.size
@@ -314,13 +337,15 @@ def _one_model(lam, omega, res, thk, need_tm, jac, jac_thk, Gr, Ga, Gb, F, dF): 
     ZR = np.zeros((L, nl))
     ZI = np.zeros((L, nl))
     rows = L if jac else 1
-    W = np.zeros((12, rows, nl))           # F, G, H of TE, then of TM (jac only)
+    W = np.empty((12, rows, nl))           # F, G, H of TE, then of TM (jac only)
     rr = np.empty(nl)
     ri = np.empty(nl)
     sr = np.empty(nl)
     si = np.empty(nl)
     ar = np.empty(nl)
     ai = np.empty(nl)
+    br = np.empty(nl)
+    bi = np.empty(nl)
     out = np.zeros(2 * L, np.complex128)
     lgb = np.zeros(nr)                     # sum_l lambda Gb: d(-rho_1 lambda)/dln rho_1 term
     for ir in range(nr):
@@ -330,10 +355,10 @@ def _one_model(lam, omega, res, thk, need_tm, jac, jac_thk, Gr, Ga, Gb, F, dF): 
         wm = omega[iw] * MU0
         _top_down(l2, wm, sig, thk, gr, gi, er, ei, att, A, B)
         if jac:
-            _bottom_up_jac(ones, 0.0, wm, sig, thk, lam, gr, gi, er, ei, A, B, XR, XI,
+            _bottom_up_jac(ones, 0.0, wm, sig, thk, l2, gr, gi, er, ei, A, B, XR, XI,
                            W[0], W[1], W[2], W[3], jac_thk, W[4], W[5])
             if need_tm:
-                _bottom_up_jac(res, 1.0, wm, sig, thk, lam, gr, gi, er, ei, A, B, ZR, ZI,
+                _bottom_up_jac(res, 1.0, wm, sig, thk, l2, gr, gi, er, ei, A, B, ZR, ZI,
                                W[6], W[7], W[8], W[9], jac_thk, W[10], W[11])
         else:
             _bottom_up(ones, gr, gi, er, ei, A, B, XR, XI)
@@ -381,13 +406,19 @@ def _one_model(lam, omega, res, thk, need_tm, jac, jac_thk, Gr, Ga, Gb, F, dF): 
                 ar[il] = sr[il] * gri[il] - si[il] * ga
                 ai[il] = si[il] * gri[il] + sr[il] * ga
             out[:] = 0.0
-            _reverse_sum(ar, ai, A, B, W[0], W[1], W[2], W[3], W[4], W[5], jac_thk, out)
             if need_tm:
                 for il in range(nl):
-                    ar[il] = gbi[il]
-                    ai[il] = 0.0
-                _reverse_sum(ar, ai, A, B, W[6], W[7], W[8], W[9], W[10], W[11], jac_thk, out)
+                    br[il] = gbi[il]
+                    bi[il] = 0.0
                 out[0] -= res[0] * lgb[ir]
+            if need_tm and not jac_thk:
+                _reverse_sum2(ar, ai, br, bi, A, B, W[0], W[1], W[2], W[3], W[6], W[7], W[8], W[9],
+                              out)
+            else:
+                _reverse_sum(ar, ai, A, B, W[0], W[1], W[2], W[3], W[4], W[5], jac_thk, out)
+                if need_tm:
+                    _reverse_sum(br, bi, A, B, W[6], W[7], W[8], W[9], W[10], W[11], jac_thk,
+                                 out)
             for p in range(2 * L if jac_thk else L):
                 dF[p, iw, ir] += out[p]
 
