@@ -431,11 +431,6 @@ def _many_models(lam, omega, res, thk, need_tm, Gr, Ga, Gb, F):  # pragma: no co
         _one_model(lam, omega, res[m], thk[m], need_tm, False, False, Gr, Ga, Gb, F[m], dummy)
 
 
-def _param_index(L, jac_thk):
-    """Slots of the derivative vector: ln rho_0..L-1, then ln h_0..L-2."""
-    return np.r_[np.arange(L), L + np.arange(L - 1)] if jac_thk else np.arange(L)
-
-
 def fused_spectra(lam, omega, resistivity, thickness, Gr, Ga, Gb, need_tm=True, jac=False,
                   jac_thk=False):
     """Wavenumber integrals of the kernels against coefficient matrices, for every omega.
@@ -455,7 +450,8 @@ def fused_spectra(lam, omega, resistivity, thickness, Gr, Ga, Gb, need_tm=True, 
     _one_model(lam, omega, res, thk, bool(need_tm), bool(jac), bool(jac_thk), Gr, Ga, Gb, F, dF)
     if not jac:
         return F, None
-    return F, dF[_param_index(L, jac_thk)]
+    # slots: ln rho_0..L-1, then ln h_0..L-2 (slot 2L - 1, the half-space, is unused)
+    return F, dF[:2 * L - 1 if jac_thk else L]
 
 
 def fused_spectra_many(lam, omega, resistivity, thickness, Gr, Ga, Gb, need_tm=True):
