@@ -257,6 +257,8 @@ def fewlayer_station(sd, settings, m_smooth=None, h_smooth=None, doi=None):
     best = None
     for rho0, h0 in starts:
         fr = fewlayer_inversion(layer_fwd, sd.d_obs, sd.std, rho0, h0, priors=tuple(settings.priors),
+                                res_bounds=tuple(settings.few_resistivity_bounds),
+                                thk_bounds=tuple(settings.few_thickness_bounds),
                                 max_iter=settings.lm_max_iter)
         if best is None or fr.lm.objective < best[0].lm.objective:
             best = (fr, rho0, h0)
