@@ -350,13 +350,13 @@ def _not_fitted_line(grid) -> str:
     """Textual header line naming the stations whose model is not fitted (76 characters at most)."""
     if "station_verdict_code" not in grid:
         return "VERDICTS: NONE RECORDED"
-    names = str(grid["station_verdict_code"].attrs.get("flag_meanings", "")).split()
-    bad = [f"{sid} {names[c].split('_')[0].upper() if 0 <= c < len(names) else c}"
-           for sid, c in zip(grid["station"].values.astype(str),
-                             grid["station_verdict_code"].values.astype(int)) if c > 0]
+    short = {1: "MISFIT", 2: "STALLED", 3: "AT-BOUND", 4: "THIN-LAYER"}
+    bad = [f"{sid} {short.get(c, c)}" for sid, c in zip(
+        grid["station"].values.astype(str), grid["station_verdict_code"].values.astype(int))
+        if c > 0]
     if not bad:
         return "VERDICTS: ALL STATIONS FITTED"
-    text = "NOT FITTED: " + ", ".join(bad)
+    text = "VERDICTS: " + ", ".join(bad) + ", OTHERS FITTED"
     return text if len(text) <= 76 else text[:72] + " ..."
 
 

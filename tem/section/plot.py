@@ -240,7 +240,8 @@ def model_figure(models, indices=None, max_depth=None, ncols=6, panel_width=1.8,
 
     Each panel shows the layered model as steps, the band
     10**(log10 rho +- log10_res_std) when known, and the DOI as a dashed
-    line with the part below it greyed.
+    line with the part below it greyed. A panel whose model is not fitted
+    has its verdict under the station name (misfit and stalled on grey).
 
     Parameters
     ----------
@@ -251,6 +252,7 @@ def model_figure(models, indices=None, max_depth=None, ncols=6, panel_width=1.8,
     max_depth : float or None
         Depth axis bottom, m; default 1.25 times the deepest DOI.
     """
+    from ..io.models import model_verdicts
     from .profile import default_max_depth
 
     idx = list(range(models.sizes["station"])) if indices is None else list(indices)
@@ -260,6 +262,7 @@ def model_figure(models, indices=None, max_depth=None, ncols=6, panel_width=1.8,
     res = models["resistivity"].values.astype(float)
     std = models["log10_res_std"].values.astype(float)
     doi = models["doi"].values.astype(float)
+    verdicts = model_verdicts(models)
     zmax = max_depth or default_max_depth(doi[idx], top[idx])
     ncols = min(ncols, len(idx))
     nrows = int(np.ceil(len(idx) / ncols))
@@ -288,7 +291,16 @@ def model_figure(models, indices=None, max_depth=None, ncols=6, panel_width=1.8,
         ax.set_xscale("log")
         ax.set_xlim(lo, hi)
         ax.set_ylim(zmax, 0)
-        ax.set_title(str(models["station"].values[i]), fontsize=9)
+        v = verdicts[i]
+        if v is None or v["status"] == "fitted":
+            ax.set_title(str(models["station"].values[i]), fontsize=9)
+        else:   # a model that is not fitted says so over its panel
+            failure = v["status"] in ("misfit", "stalled")
+            ax.set_title(f"{models['station'].values[i]}\n{v['status']}", fontsize=8,
+                         color="#a4281b" if failure else "#8a6d00",
+                         fontweight="bold" if failure else "normal")
+            if failure:
+                ax.set_facecolor("0.88")
         if n % ncols == 0:
             ax.set_ylabel("depth (m)")
         if n // ncols == nrows - 1:
