@@ -7,6 +7,8 @@ below are from scipy.stats.chi2 and agree with printed chi-square tables
 """
 import math
 
+import numpy as np
+
 import pytest
 
 from tem.invert.settings import InversionSettings
@@ -97,3 +99,105 @@ def test_settings_carry_the_tolerances():
     s = InversionSettings(verdict_tolerance=3.0)
     assert verdict_of(s, 2.5, 31, True, [10]).status == "fitted"
     assert verdict_of(InversionSettings(), 2.5, 31, True, [10]).status == "misfit"
+
+
+# ----------------------------------------------------------------------------- through the CLI
+def gated_empymod(thickness, resistivity, x, gates, components=("ex", "dbzdt")):
+    """Gated Emberline data (per ampere) from empymod step-off responses (tests/empymod_ref.py).
+
+    The bipolar waveform (EMBERLINE: 0.25 Hz, duty 0.5, linear ramps) is the
+    alternating sum of its pulses; a pulse is the mean of step-off responses
+    over its switch-off ramp minus that over its switch-on ramp (the DC part
+    cancels; superposition, e.g. Ward & Hohmann 1988, from memory), 150
+    pulses back; boxcar gates are 8-point Gauss-Legendre means. The step-off
+    response is computed on 500 log-spaced times and interpolated (cubic
+    spline of asinh(s / (1e-4 max|s|)) in ln t).
+    """
+    from scipy.interpolate import CubicSpline
+
+    from empymod_ref import wire_response
+    from tem.invert.synthetic import EMBERLINE as E
+
+    hp = 0.5 / E["base_frequency"]
+    on = E["duty_cycle"] * hp
+    tq = np.geomspace(1e-5, 400.0, 500)
+    go, gc = gates
+    xg, wg = np.polynomial.legendre.leggauss(8)
+    out = []
+    for comp in components:
+        s = wire_response(thickness, resistivity, E["wire"][0], E["wire"][1], [(x, 0.0)], comp,
+                          tq)[0]
+        sc = 1e-4 * np.max(np.abs(s))
+        spl = CubicSpline(np.log(tq), np.arcsinh(s / sc))
+
+        def step(t, spl=spl, sc=sc):
+            return np.where(t < tq[-1], sc * np.sinh(spl(np.log(np.clip(t, tq[0], tq[-1])))), 0.0)
+
+        def mean_over(t, a, b, step=step):
+            u = 0.5 * (b - a) * xg + 0.5 * (a + b)
+            return (step(t[..., None] + u) * wg).sum(-1) / 2
+
+        def pulse(t, mean_over=mean_over):
+            return mean_over(t, 0.0, E["ramp_off"]) - mean_over(t, on - E["ramp_on"], on)
+
+        tt = 0.5 * (gc - go)[:, None] * xg[None, :] + 0.5 * (gc + go)[:, None]
+        wave = sum((-1) ** k * pulse(tt + k * hp) for k in range(150))
+        out.append((wave * wg).sum(-1) / 2)
+    return np.array(out)
+
+
+@pytest.fixture(scope="module")
+def three_layer_gated(tmp_path_factory):
+    """One station 1.5 km along the Emberline profile over a clearly 3-layer earth
+    (100 ohm-m, 300 m / 3 ohm-m, 200 m / 1000 ohm-m), noise-free, 3 % errors."""
+    pytest.importorskip("empymod")
+    from tem.invert.synthetic import emberline_gates, gated_dataset
+
+    folder = tmp_path_factory.mktemp("h3")
+    gates = emberline_gates(12, 1e-3, 1.0)
+    v = gated_empymod([300.0, 200.0], [100.0, 3.0, 1000.0], 1500.0, gates)
+    gated_dataset("H3", 1500.0, 0.0, v, 0.03 * np.abs(v), ["ex", "dbzdt"], gates).to_netcdf(
+        folder / "H3.nc", engine="h5netcdf")
+    return folder
+
+
+def _invert(folder, out, layers):
+    from tem.cli import main
+
+    return main(["invert", str(folder), "--out", str(out), "--kind", "few-layer",
+                 "--few-layers", str(layers), "--layers", "20", "--jobs", "1", "--no-figures",
+                 "--no-progress"])
+
+
+def test_a_failed_few_layer_fit_exits_1_with_the_verdict_misfit(three_layer_gated, tmp_path,
+                                                                 capsys):
+    import csv
+
+    from tem.io.models import read_models
+
+    rc = _invert(three_layer_gated, tmp_path / "two", 2)
+    out = capsys.readouterr()
+    assert rc == 1                         # as for a failed station
+    assert "chosen model not fitted at 1 station(s): H3 (misfit)" in " ".join(out.err.split())
+    row = [ln for ln in out.out.splitlines() if "H3" in ln][0]
+    assert "misfit" in row and " ok " not in row
+    ds = read_models(tmp_path / "two" / "models" / "models.nc")
+    # two layers cannot fit three: chi2 far above tolerance (common practice, no source)
+    assert ds["chi2"].values[0] > 10 * ds["verdict_tolerance"].values[0]
+    assert int(ds["verdict_code"].values[0]) == 1
+    assert str(ds["verdict"].values[0]).startswith("misfit: chi2 ")
+    assert ds["verdict_code"].attrs["flag_meanings"].split()[1] == "misfit"
+    assert int(ds["smooth_verdict_code"].values[0]) == 0    # the smooth model does fit
+    with open(tmp_path / "two" / "models" / "models.csv", encoding="utf-8") as fh:
+        rows = list(csv.DictReader(fh))
+    assert {r["verdict"] for r in rows} == {"misfit"} and {r["verdict_code"] for r in rows} == {"1"}
+
+
+def test_the_same_data_with_three_layers_are_fitted(three_layer_gated, tmp_path, capsys):
+    """Control: the reference data can be fitted, so the misfit above is the model's."""
+    from tem.io.models import read_models
+
+    assert _invert(three_layer_gated, tmp_path / "three", 3) == 0
+    ds = read_models(tmp_path / "three" / "models" / "models.nc")
+    assert ds["chi2"].values[0] < 1.0 and int(ds["verdict_code"].values[0]) == 0
+    assert "fitted" in capsys.readouterr().out
