@@ -15,7 +15,7 @@ from tem.invert.settings import InversionSettings
 from tem.invert.verdict import CODES, FAILURES, STATUSES, Verdict, flag_meanings, judge, tolerance
 
 KW = dict(target=1.0, tolerance_factor=1.5, quantile=0.95, bound_margin=0.01,
-          thin_fraction=0.05, stall_margin=0.1)
+          thin_fraction=0.05, stall_margin=0.2)
 RB, TB = (0.1, 1e5), (1.0, 2e4)
 
 
@@ -45,7 +45,7 @@ def test_stalled_only_when_unconverged_and_clearly_above_target():
     kw = dict(resistivity=[10, 100], thickness=[50], **KW)
     assert judge(1.3, 40, converged=False, **kw).status == "stalled"
     assert judge(1.3, 40, converged=True, **kw).status == "fitted"
-    assert judge(1.05, 40, converged=False, **kw).status == "fitted"   # within the 10 % margin
+    assert judge(1.15, 40, converged=False, **kw).status == "fitted"   # within the 20 % margin
     assert judge(0.9, 40, converged=False, **kw).status == "fitted"
 
 
@@ -201,3 +201,36 @@ def test_the_same_data_with_three_layers_are_fitted(three_layer_gated, tmp_path,
     ds = read_models(tmp_path / "three" / "models" / "models.nc")
     assert ds["chi2"].values[0] < 1.0 and int(ds["verdict_code"].values[0]) == 0
     assert "fitted" in capsys.readouterr().out
+
+
+def test_models_files_carry_verdicts_per_kind():
+    """Variable names and CF flags of docs/data-model.md, for a few-layer and an LCI file."""
+    from types import SimpleNamespace
+
+    from tem.invert.product import add_verdicts
+    from tem.io.models import model_verdicts, models_dataset
+
+    def verdict(chi2, kind):
+        return judge(chi2, 31, converged=True, resistivity=[10, 100], kind=kind, **KW)
+
+    def result(chi2_smooth, chi2_few):
+        v = {"smooth": verdict(chi2_smooth, "smooth"), "lci": verdict(chi2_smooth, "lci"),
+             "few-layer": verdict(chi2_few, "few-layer")}
+        return SimpleNamespace(few={"verdict": v["few-layer"]}, verdict_for=v.get)
+
+    results = [result(1.0, 9.0), result(1.2, 1.1)]
+    ds = models_dataset(station=["A", "B"], resistivity=[[10, 100], [10, 100]],
+                        thickness=[[50, np.nan], [50, np.nan]], x=[0, 1], y=[0, 0], z=[0, 0],
+                        doi=[100, 100], chi2=[9.0, 1.1], model_kind="few-layer")
+    add_verdicts(ds, results, "few-layer")
+    assert list(ds["verdict_code"].values) == [1, 0]
+    assert list(ds["smooth_verdict_code"].values) == [0, 0]
+    assert list(ds["few_layer_chi2"].values) == [9.0, 1.1]
+    assert ds["verdict_code"].attrs["flag_meanings"] == flag_meanings()
+    assert [v["status"] for v in model_verdicts(ds)] == ["misfit", "fitted"]
+    lci = models_dataset(station=["A", "B"], resistivity=[[10, 100], [10, 100]],
+                         thickness=[[50, np.nan], [50, np.nan]], x=[0, 1], y=[0, 0], z=[0, 0],
+                         doi=[100, 100], chi2=[1.0, 1.2], model_kind="lci")
+    add_verdicts(lci, results, "lci")
+    assert "lci_verdict_code" in lci and "smooth_verdict_code" not in lci
+    assert model_verdicts(lci)[1]["reasons"] == "chi2 1.2 within tolerance 1.50 (target 1, 31 data)"

@@ -172,16 +172,17 @@ INVERT = SettingsTable("invert", [
     Setting("few_thickness_bounds", (1.0, 2e4), "floats", "m", minimum=0, exclusive=True,
             maximum=1e6, metavar="LOWER,UPPER",
             help="few-layer fit: bounds of every layer thickness (a value at a bound is flagged)"),
-    Setting("verdict_tolerance", 1.5, "float", minimum=1, maximum=100,
+    Setting("verdict_tolerance", 1.5, "float", minimum=1, maximum=1e9,
             help="a model is fitted when chi2 <= target x max(this, chi-square quantile / N)",
             source="errors are rarely known to better than 50 % in variance; common practice, "
             "no source"),
     Setting("verdict_quantile", 0.95, "float", minimum=0.5, maximum=1, exclusive_max=True,
             help="quantile of the chi-square distribution with N degrees of freedom in the "
             "fitted tolerance", source="95 % quantile, common practice, no source"),
-    Setting("verdict_stall_margin", 0.1, "float", minimum=0, maximum=10,
+    Setting("verdict_stall_margin", 0.2, "float", minimum=0, maximum=1e9,
             help="an optimiser that stopped without converging is stalled when chi2 exceeds the "
-            "target by more than this fraction", source="common practice, no source"),
+            "target by more than this fraction", source="the smooth inversion's own 'target "
+            "missed' threshold (1.2 x target); no source"),
     Setting("verdict_bound_margin", 0.01, "float", minimum=0, maximum=1,
             help="a parameter within this relative distance of its bound is at the bound",
             source="common practice, no source"),

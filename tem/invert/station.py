@@ -55,11 +55,11 @@ class StationResult:
         return self.verdict
 
 
-def smooth_verdict(settings, chi2, n_data, converged, resistivity, kind="smooth") -> Verdict:
+def smooth_verdict(settings, chi2, n_data, converged, resistivity, model_kind) -> Verdict:
     """Verdict on a smooth-mesh model (the mesh is fixed: only resistivity bounds apply)."""
     return verdict_of(settings, chi2, n_data, converged, resistivity,
                       resistivity_bounds=(float(np.exp(LN_RHO_MIN)), float(np.exp(LN_RHO_MAX))),
-                      kind=kind)
+                      kind=model_kind)
 
 
 def few_verdict(settings, few: dict, n_data) -> Verdict:
@@ -263,9 +263,12 @@ def invert_station(sd, settings: InversionSettings = InversionSettings(), callba
         halfspace=rho_hs, d_obs=sd.d_obs, std=sd.std, d_pred=res.d_pred, component=sd.component,
         channel=sd.channel, times=sd.gate_centre[np.nonzero(sd.mask)[1]], mu=res.mu,
         converged=res.converged, message=res.message, history=res.history,
-        verdict=smooth_verdict(settings, res.chi2, sd.d_obs.size, res.converged, np.exp(res.m)))
+        verdict=smooth_verdict(settings, res.chi2, sd.d_obs.size, res.converged, np.exp(res.m),
+                               "smooth"))
     if settings.kind == "few-layer":
         out.few = fewlayer_station(sd, settings, res.m, h, doi)
+        # judged here, from the final few-layer fit, whichever search produced it
+        out.few["verdict"] = few_verdict(settings, out.few, sd.d_obs.size)
     return out
 
 
@@ -291,9 +294,7 @@ def fewlayer_station(sd, settings, m_smooth=None, h_smooth=None, doi=None):
                                 max_iter=settings.lm_max_iter)
         if best is None or fr.lm.objective < best[0].lm.objective:
             best = (fr, rho0, h0)
-    few = _few_dict(*best)
-    few["verdict"] = few_verdict(settings, few, sd.d_obs.size)
-    return few
+    return _few_dict(*best)
 
 
 __all__ += ["fewlayer_station", "Prior", "smooth_verdict", "few_verdict"]
@@ -375,7 +376,7 @@ def lci_profile(sds, settings: InversionSettings = InversionSettings(),
             times=sd.gate_centre[np.nonzero(sd.mask)[1]], mu=res.occam.mu,
             converged=res.occam.converged, message=res.occam.message, history=res.history,
             verdict=smooth_verdict(settings, float(res.chi2_station[s]), sd.d_obs.size,
-                                   res.occam.converged, np.exp(res.m[s]), kind="lci")))
+                                   res.occam.converged, np.exp(res.m[s]), "lci")))
     return out
 
 

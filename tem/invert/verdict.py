@@ -19,7 +19,7 @@ status; every finding is kept in ``reasons``):
     real errors are never known to better than that (common practice, no
     source).
 ``stalled`` (code 2)
-    chi2 within the tolerance but more than ``stall_margin`` (10 %) above
+    chi2 within the tolerance but more than ``stall_margin`` (20 %) above
     the target, and the optimiser stopped without converging (iteration limit, or no step reduced the
     misfit): the model is not the one the method promises (for Occam, the
     smoothest model at the target).
