@@ -130,7 +130,10 @@ def test_segy_twt_against_two_layer_closed_form(profile):
             want[z > DOI[i]] = 0.0
             np.testing.assert_allclose(f.trace[i], want, rtol=1e-6)
             doi_twt = 2 * (H1 / V1 + (DOI[i] - H1) / V2)
-            assert f.header[i][segyio.TraceField.UnassignedInt2] == round(doi_twt * 1e6)
+            # DOI on the file's sample axis: two-way time in us, bytes 233-236
+            assert f.header[i][segyio.TraceField.UnassignedInt1] == round(doi_twt * 1e6)
+            # no verdicts in this models file: code -1 and chi2 -1 (two int16 in 237-240)
+            assert f.header[i][segyio.TraceField.UnassignedInt2] == -1
 
 
 def test_segy_resampled_along_profile(profile):

@@ -105,6 +105,12 @@ def _consistent(v):
         if p.layer > n - (1 if p.kind == "resistivity" else 2) or (p.kind == "depth" and p.layer < 1):
             return "priors", (f"{p.kind}:{p.layer}: no such layer in a {n}-layer model "
                               "(layers count from 0 at the top; depth from layer 1)")
+    for name in ("few_resistivity_bounds", "few_thickness_bounds"):
+        b = v[name]
+        if len(b) != 2:
+            return name, f"needs two numbers (lower, upper), got {len(b)}"
+        if not b[0] < b[1]:
+            return name, f"lower {b[0]:g} must be below upper {b[1]:g}"
     if v["depth_min"] is not None and v["depth_max"] is not None \
             and not v["depth_min"] < v["depth_max"]:
         return "depth_max", f"must exceed depth_min ({v['depth_min']:g} m)"
@@ -160,6 +166,29 @@ INVERT = SettingsTable("invert", [
             help="few-layer prior or fixed value (no /STD); KIND resistivity, thickness or depth; "
             "layers count from 0 at the top; STD relative (ln) for resistivity and thickness, m "
             "for depth; e.g. depth:2=1350/50; repeatable"),
+    Setting("few_resistivity_bounds", (0.1, 1e5), "floats", "ohm-m", minimum=0, exclusive=True,
+            maximum=1e9, metavar="LOWER,UPPER",
+            help="few-layer fit: bounds of every layer resistivity (a value at a bound is flagged)"),
+    Setting("few_thickness_bounds", (1.0, 2e4), "floats", "m", minimum=0, exclusive=True,
+            maximum=1e6, metavar="LOWER,UPPER",
+            help="few-layer fit: bounds of every layer thickness (a value at a bound is flagged)"),
+    Setting("verdict_tolerance", 1.5, "float", minimum=1, maximum=1e9,
+            help="a model is fitted when chi2 <= target x max(this, chi-square quantile / N)",
+            source="errors are rarely known to better than 50 % in variance; common practice, "
+            "no source"),
+    Setting("verdict_quantile", 0.95, "float", minimum=0.5, maximum=1, exclusive_max=True,
+            help="quantile of the chi-square distribution with N degrees of freedom in the "
+            "fitted tolerance", source="95 % quantile, common practice, no source"),
+    Setting("verdict_stall_margin", 0.2, "float", minimum=0, maximum=1e9,
+            help="an optimiser that stopped without converging is stalled when chi2 exceeds the "
+            "target by more than this fraction", source="the smooth inversion's own 'target "
+            "missed' threshold (1.2 x target); no source"),
+    Setting("verdict_bound_margin", 0.01, "float", minimum=0, maximum=1,
+            help="a parameter within this relative distance of its bound is at the bound",
+            source="common practice, no source"),
+    Setting("verdict_thin_fraction", 0.05, "float", minimum=0, maximum=1,
+            help="a few-layer layer thinner than this fraction of the depth of its top is "
+            "degenerate (not resolvable)", source="common practice, no source"),
     Setting("lci", False, "bool",
             help="also invert the whole profile jointly (laterally constrained, models_lci.nc)"),
     Setting("lateral_weight", 1.0, "float", minimum=0, exclusive=True, maximum=1e6,

@@ -13,7 +13,9 @@ import numpy as np
 from .doi import cumulative_sensitivity_doi, two_reference_doi
 from .fewlayer import FewLayerResult, Prior, fewlayer_inversion, starting_models
 from .settings import InversionSettings
-from .smooth import best_halfspace, chi2_per_datum, diffusion_depth, log_mesh, occam, roughness_matrix
+from .smooth import (LN_RHO_MAX, LN_RHO_MIN, best_halfspace, chi2_per_datum, diffusion_depth,
+                     log_mesh, occam, roughness_matrix)
+from .verdict import Verdict, verdict_of
 
 __all__ = ["InversionSettings", "StationResult", "mesh_for", "smooth_station", "invert_station",
            "smooth_posterior_std"]
@@ -44,6 +46,32 @@ class StationResult:
     message: str
     few: dict | None = None          # few-layer model (see _few_dict)
     history: list = field(default_factory=list)
+    verdict: Verdict | None = None   # verdict on the smooth (or LCI) model
+
+    def verdict_for(self, kind) -> Verdict | None:
+        """Verdict on the model of ``kind`` (smooth, lci: this result; few-layer: ``few``)."""
+        if kind == "few-layer":
+            return None if self.few is None else self.few.get("verdict")
+        return self.verdict
+
+
+def smooth_verdict(settings, chi2, n_data, converged, resistivity, model_kind) -> Verdict:
+    """Verdict on a smooth-mesh model (the mesh is fixed: only resistivity bounds apply)."""
+    return verdict_of(settings, chi2, n_data, converged, resistivity,
+                      resistivity_bounds=(float(np.exp(LN_RHO_MIN)), float(np.exp(LN_RHO_MAX))),
+                      kind=model_kind)
+
+
+def few_verdict(settings, few: dict, n_data) -> Verdict:
+    """Verdict on a few-layer model from its final fit."""
+    n = len(few["thickness"])
+    fixed = [(p.kind, p.layer) for p in settings.priors
+             if p.std is None and p.kind in ("resistivity", "thickness")]
+    fixed = [(k, layer) for k, layer in fixed if layer <= (n if k == "resistivity" else n - 1)]
+    return verdict_of(settings, few["chi2"], n_data, few["converged"], few["resistivity"],
+                      few["thickness"], resistivity_bounds=tuple(settings.few_resistivity_bounds),
+                      thickness_bounds=tuple(settings.few_thickness_bounds), kind="few-layer",
+                      fixed=fixed)
 
 
 def source_offset(sd):
@@ -234,9 +262,13 @@ def invert_station(sd, settings: InversionSettings = InversionSettings(), callba
         log10_res_std=smooth_posterior_std(res.J, sd.std, R, res.mu, settings.ref_weight), chi2=res.chi2, doi=doi,
         halfspace=rho_hs, d_obs=sd.d_obs, std=sd.std, d_pred=res.d_pred, component=sd.component,
         channel=sd.channel, times=sd.gate_centre[np.nonzero(sd.mask)[1]], mu=res.mu,
-        converged=res.converged, message=res.message, history=res.history)
+        converged=res.converged, message=res.message, history=res.history,
+        verdict=smooth_verdict(settings, res.chi2, sd.d_obs.size, res.converged, np.exp(res.m),
+                               "smooth"))
     if settings.kind == "few-layer":
         out.few = fewlayer_station(sd, settings, res.m, h, doi)
+        # judged here, from the final few-layer fit, whichever search produced it
+        out.few["verdict"] = few_verdict(settings, out.few, sd.d_obs.size)
     return out
 
 
@@ -257,13 +289,15 @@ def fewlayer_station(sd, settings, m_smooth=None, h_smooth=None, doi=None):
     best = None
     for rho0, h0 in starts:
         fr = fewlayer_inversion(layer_fwd, sd.d_obs, sd.std, rho0, h0, priors=tuple(settings.priors),
+                                res_bounds=tuple(settings.few_resistivity_bounds),
+                                thk_bounds=tuple(settings.few_thickness_bounds),
                                 max_iter=settings.lm_max_iter)
         if best is None or fr.lm.objective < best[0].lm.objective:
             best = (fr, rho0, h0)
     return _few_dict(*best)
 
 
-__all__ += ["fewlayer_station", "Prior"]
+__all__ += ["fewlayer_station", "Prior", "smooth_verdict", "few_verdict"]
 
 
 def profile_positions(x, y):
@@ -340,7 +374,9 @@ def lci_profile(sds, settings: InversionSettings = InversionSettings(),
             chi2=float(res.chi2_station[s]), doi=doi, halfspace=rho_hs[s], d_obs=sd.d_obs,
             std=sd.std, d_pred=res.d_pred[s], component=sd.component, channel=sd.channel,
             times=sd.gate_centre[np.nonzero(sd.mask)[1]], mu=res.occam.mu,
-            converged=res.occam.converged, message=res.occam.message, history=res.history))
+            converged=res.occam.converged, message=res.occam.message, history=res.history,
+            verdict=smooth_verdict(settings, float(res.chi2_station[s]), sd.d_obs.size,
+                                   res.occam.converged, np.exp(res.m[s]), "lci")))
     return out
 
 

@@ -33,6 +33,7 @@ __all__ = [
     "write_models_csv",
     "layer_bottoms",
     "export_record",
+    "model_verdicts",
 ]
 
 FORMAT = "models"
@@ -54,6 +55,7 @@ _VARIABLES = {
 CSV_COLUMNS = (
     "station", "x", "y", "z", "layer", "depth_top_m", "depth_bottom_m", "thickness_m",
     "resistivity_ohmm", "log10_res_std", "below_doi", "doi_m", "chi2", "epsg",
+    "verdict", "verdict_code", "verdict_reasons",
 )
 
 
@@ -211,15 +213,39 @@ def layer_bottoms(ds):
     return np.where(np.isfinite(res), bottom, np.nan)
 
 
+def model_verdicts(ds):
+    """Per station: ``{"status", "code", "text", "reasons"}`` of the file's own model, or None.
+
+    Read from ``verdict_code`` (decoded with its CF ``flag_meanings``) and
+    ``verdict`` (one line: ``status: reason; reason``). A file without
+    verdicts (written before they existed) gives None for every station.
+    """
+    n = ds.sizes["station"]
+    if "verdict_code" not in ds.variables:
+        return [None] * n
+    names = str(ds["verdict_code"].attrs.get("flag_meanings", "")).split()
+    codes = ds["verdict_code"].values.astype(int)
+    texts = ds["verdict"].values.astype(str) if "verdict" in ds.variables else [""] * n
+    out = []
+    for code, text in zip(codes, texts):
+        status = names[code].replace("_", "-") if 0 <= code < len(names) else "unknown"
+        reasons = text.split(": ", 1)[1] if ": " in text else ""
+        out.append({"status": status, "code": int(code), "text": str(text), "reasons": reasons})
+    return out
+
+
 def layer_rows(ds):
     """One dict per present layer per station, in :data:`CSV_COLUMNS` order.
 
     ``below_doi`` is 1 when the layer top is at or below the DOI (the whole
-    layer is not resolved), else 0. Missing numbers are empty strings; the
+    layer is not resolved), else 0. ``verdict``, ``verdict_code`` and
+    ``verdict_reasons`` repeat the station's verdict on every layer row
+    (empty when the file has none). Missing numbers are empty strings; the
     half-space has an empty ``depth_bottom_m`` and ``thickness_m``.
     """
     bottom = layer_bottoms(ds)
     epsg = int(ds.attrs.get("epsg", 0) or 0)
+    verdicts = model_verdicts(ds)
     rows = []
     for i, sid in enumerate(ds["station"].values.astype(str)):
         doi = float(ds["doi"].values[i])
@@ -243,6 +269,9 @@ def layer_rows(ds):
                 "doi_m": _num(doi),
                 "chi2": _num(ds["chi2"].values[i]),
                 "epsg": epsg,
+                "verdict": verdicts[i]["status"] if verdicts[i] else "",
+                "verdict_code": verdicts[i]["code"] if verdicts[i] else "",
+                "verdict_reasons": verdicts[i]["reasons"] if verdicts[i] else "",
             })
     return rows
 

@@ -325,7 +325,10 @@ def stitch_models(models, depth_step, *, order, lateral, vertical, max_depth=Non
         dims ``distance`` (columns) and ``depth`` (or ``elevation``);
         ``log10_resistivity`` (NaN below the DOI), ``log10_resistivity_full``
         (not masked), ``below_doi``, ``doi``, ``x``, ``y``, ``surface``
-        per column, and per station ``station_distance``, ``station_offset``.
+        per column, and per station ``station_distance``, ``station_offset``;
+        with verdicts in ``models``, ``verdict_code`` and ``chi2`` per column
+        and ``station_verdict_code``, ``station_verdict``, ``station_chi2``
+        (:mod:`tem.section.verdicts`).
     """
     import xarray as xr
 
@@ -403,6 +406,8 @@ def stitch_models(models, depth_step, *, order, lateral, vertical, max_depth=Non
             "model_kind": str(models.attrs.get("model_kind", "")),
         },
     )
+    from .verdicts import add_section_verdicts
+    add_section_verdicts(ds, models, idx, *_lateral_weights(s_sorted, pos, lateral, max_gap)[:3])
     return ds
 
 
