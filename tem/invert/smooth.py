@@ -261,8 +261,8 @@ def _mu_search(chi2_true, chi2_lin, mu_grid, target, chi2_now):
 
 
 def occam(fwd, d_obs, std, m0, R=None, *, predict=None, m_ref=None, ref_weight=0.0,
-          target, max_iter, mu0=None, decades=3.0, per_decade=4.0,
-          bounds=(LN_RHO_MIN, LN_RHO_MAX), tol=0.01, misfit_drop=0.3,
+          target, max_iter, misfit_drop, mu0=None, decades=3.0, per_decade=4.0,
+          bounds=(LN_RHO_MIN, LN_RHO_MAX), tol=0.01, patience=3,
           callback=None) -> OccamResult:
     """Occam inversion (Constable, Parker & Constable 1987).
 
@@ -300,7 +300,19 @@ def occam(fwd, d_obs, std, m0, R=None, *, predict=None, m_ref=None, ref_weight=0
         the final target at once (the smoothest model reaching that
         intermediate misfit), which keeps early models smooth and the
         linearisation valid (common practice, no source); 0 = aim at the
-        target from the first step (plain Occam).
+        target from the first step (plain Occam). The factor is the most
+        aggressive one: where the true misfit falls by less than a quarter
+        of the linearised prediction the next step is more cautious
+        (``drop -> sqrt(drop)``, up to 0.95), where it falls by more than
+        three quarters bolder again (``drop -> drop^2``), a trust-region
+        rule (Nocedal & Wright 2006, Algorithm 4.1). Aiming at too large a
+        misfit drop on strongly nonlinear data (a thick resistor over a
+        conductor seen at kilometres of offset) jumps into a rough local
+        minimum the search then cannot leave.
+    patience : int
+        The search ends "stalled" after this many consecutive steps that
+        lower the misfit by less than ``tol`` (relative); one poor step
+        only makes the next one more cautious.
     callback : callable, optional
         Called with the history dict after each iteration.
     """
@@ -329,6 +341,9 @@ def occam(fwd, d_obs, std, m0, R=None, *, predict=None, m_ref=None, ref_weight=0
         mu0 = _sumsq(Jw) / rtr or 1.0
     mu = float(mu0)
     history = []
+    drop = misfit_drop if misfit_drop > 0 else 0.0
+    max_drop = max(drop, 0.95) if misfit_drop > 0 else 0.0
+    stalls = 0
     converged = False
     message = "maximum number of iterations reached"
     it = 0
@@ -356,8 +371,17 @@ def occam(fwd, d_obs, std, m0, R=None, *, predict=None, m_ref=None, ref_weight=0
 
         n = int(round(2 * decades * per_decade)) + 1
         grid = mu * np.logspace(-decades, decades, n)
-        step_target = max(target, misfit_drop * chi2)
+        step_target = max(target, drop * chi2)
         mu_new, chi2_new, m_new = _mu_search(chi2_of_mu, chi2_lin, grid, step_target, chi2)
+        # trust-region control of the step size (Nocedal & Wright 2006, Numerical
+        # Optimization, 2nd ed., Algorithm 4.1: shrink below a ratio of 1/4, grow above
+        # 3/4): the ratio of the true to the linearised misfit reduction
+        predicted = chi2 - chi2_lin(mu_new)
+        ratio = (chi2 - chi2_new) / predicted if predicted > 0 else 0.0
+        if ratio < 0.25:
+            drop = min(max_drop, np.sqrt(drop))
+        elif ratio > 0.75:
+            drop = max(misfit_drop, drop * drop)
 
         if chi2_new > chi2 * (1 - 1e-6) and chi2 > target:
             # No mu improves the misfit with a full or half step: line search along
@@ -396,7 +420,11 @@ def occam(fwd, d_obs, std, m0, R=None, *, predict=None, m_ref=None, ref_weight=0
             converged, message = True, "target misfit reached; model smoothest at target"
             break
         if not at_target and chi2 > chi2_old * (1 - tol) and it > 1:
-            message = "misfit stalled above target"
-            break
+            stalls += 1
+            if stalls >= patience:
+                message = "misfit stalled above target"
+                break
+        else:
+            stalls = 0
     return OccamResult(m=m, d_pred=d, J=J, chi2=chi2, mu=mu, roughness=float(np.sum((R @ m) ** 2)),
                        converged=converged, n_iter=it, history=history, message=message)

@@ -182,7 +182,7 @@ def smooth_station(sd, settings: InversionSettings, h=None, m_ref_value=None, re
     w_ref = settings.ref_weight if ref_weight is None else ref_weight
     m_ref = np.full(M, np.log(ref if ref is not None else rho_hs))
     kw = dict(m_ref=m_ref, ref_weight=w_ref, target=settings.target, max_iter=settings.max_iter,
-              callback=callback)
+              misfit_drop=settings.misfit_drop, callback=callback)
     lin_fwd, lin_predict = _problem(sd, h)
     # 1) asinh (log-like) data: usually converges in a few steps
     where = sign_consistent(sd)
@@ -328,7 +328,8 @@ def lci_profile(sds, settings: InversionSettings = InversionSettings(),
     target = max(settings.target, chi2_per_datum(d_all, p_all, s_all))
     res = lci([p[0] for p in problems], [sd.d_obs for sd in sds], [sd.std for sd in sds], m0,
               positions=pos, lateral_weight=settings.lateral_weight, predicts=[p[1] for p in problems],
-              target=target, max_iter=settings.max_iter, callback=callback)
+              target=target, max_iter=settings.max_iter, misfit_drop=settings.misfit_drop,
+              callback=callback)
     thr = 0.8 if settings.doi_threshold is None else settings.doi_threshold
     R = roughness_matrix(M)
     out = []
