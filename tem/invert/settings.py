@@ -142,6 +142,13 @@ INVERT = SettingsTable("invert", [
             source="0.3 let the Emberline demo's EM10/EM11 models roughen early into local minima "
             "at chi2 2-3.5; 0.7-0.85 fit them at chi2 <= 1.1 (docs/inversion.md); calibrated on "
             "the demo, no source"),
+    Setting("regularisation", "smooth", "choice", choices=("smooth", "focusing"),
+            help="smooth-mesh and LCI regularisation: smooth (first differences of log "
+            "resistivity) or focusing (minimum gradient support: sharp boundaries)"),
+    Setting("focusing_parameter", 0.2, "float", minimum=0, exclusive=True, maximum=10,
+            help="focusing: the ln-resistivity jump between neighbouring layers above which a "
+            "boundary costs little (smaller: sharper models)",
+            source="calibrated on the Emberline profile (docs/inversion.md), no source"),
     Setting("ref_resistivity", None, "float", "ohm-m", minimum=0, exclusive=True, maximum=1e9,
             help="uniform reference model (unset: the best half-space)"),
     Setting("ref_weight", 0.01, "float", minimum=0, maximum=1e6,
