@@ -141,7 +141,20 @@ INVERT = SettingsTable("invert", [
             source="common practice, no source"),
     Setting("target", 1.0, "float", minimum=0, exclusive=True, maximum=1e6,
             help="target chi-square per datum"),
-    Setting("max_iter", 20, "int", minimum=1, maximum=1000, help="Occam iterations"),
+    Setting("max_iter", 60, "int", minimum=1, maximum=1000, help="Occam iterations"),
+    Setting("misfit_drop", 0.8, "float", minimum=0, maximum=1, exclusive_max=True,
+            help="each Occam step aims at this fraction of the current misfit (the smoothest "
+            "model reaching it; 0: the target at once)",
+            source="0.3 let the Emberline demo's EM10/EM11 models roughen early into local minima "
+            "at chi2 2-3.5; 0.7-0.85 fit them at chi2 <= 1.1 (docs/inversion.md); calibrated on "
+            "the demo, no source"),
+    Setting("regularisation", "smooth", "choice", choices=("smooth", "focusing"),
+            help="smooth-mesh and LCI regularisation: smooth (first differences of log "
+            "resistivity) or focusing (minimum gradient support: sharp boundaries)"),
+    Setting("focusing_parameter", 0.2, "float", minimum=0, exclusive=True, maximum=10,
+            help="focusing: the ln-resistivity jump between neighbouring layers above which a "
+            "boundary costs little (smaller: sharper models)",
+            source="calibrated on the Emberline profile (docs/inversion.md), no source"),
     Setting("ref_resistivity", None, "float", "ohm-m", minimum=0, exclusive=True, maximum=1e9,
             help="uniform reference model (unset: the best half-space)"),
     Setting("ref_weight", 0.01, "float", minimum=0, maximum=1e6,
