@@ -99,6 +99,7 @@ def _fixed(priors, n):
 
 def global_fewlayer(predict_many, layer_fwd, d_obs, std, n_layers, starts, box, *, population,
                     evaluations, seed, lm_max_iter, extra=(), priors=(), n_starts=4, polish=3,
+                    screen_iter=10, finalists=2, layer_predict=None,
                     res_bounds=(0.1, 1e5), thk_bounds=(1.0, 2e4)):
     """Best few-layer model of ``n_layers`` layers: multi-start LM, differential evolution, LM polish.
 
@@ -125,6 +126,11 @@ def global_fewlayer(predict_many, layer_fwd, d_obs, std, n_layers, starts, box, 
     polish : int
         Distinct members of the final population (lowest objective first, at
         least 0.3 apart in some ln parameter) polished by Levenberg-Marquardt.
+    screen_iter, finalists : int
+        Every start first gets ``screen_iter`` Levenberg-Marquardt iterations;
+        the ``finalists`` best go on for up to ``lm_max_iter``.
+    layer_predict : callable, optional
+        ``layer_predict(rho, h) -> d`` (no Jacobian) for trial steps.
 
     Returns
     -------
@@ -161,11 +167,12 @@ def global_fewlayer(predict_many, layer_fwd, d_obs, std, n_layers, starts, box, 
         out = np.sum(r * r, axis=1) + _prior_penalty(priors, p, n)
         return np.where(np.isfinite(out), out, 1e300)
 
-    def lm_from(rho0, h0):
+    def lm_from(rho0, h0, iters=None):
         try:
             return fewlayer_inversion(layer_fwd, d_obs, s, rho0, h0, priors=tuple(priors),
                                       res_bounds=res_bounds, thk_bounds=thk_bounds,
-                                      max_iter=lm_max_iter)
+                                      max_iter=min(lm_max_iter, iters or screen_iter),
+                                      layer_predict=layer_predict)
         except (ValueError, FloatingPointError, np.linalg.LinAlgError):
             return None
 
@@ -218,6 +225,13 @@ def global_fewlayer(predict_many, layer_fwd, d_obs, std, n_layers, starts, box, 
                 results.append((fr, (rho0, h0), f"population {j}"))
     if not results:
         raise ValueError("few-layer search: no start could be evaluated")
+    # the best screened fits go on to convergence
+    results.sort(key=lambda r: r[0].lm.objective)
+    for k, (fr, start, label) in enumerate(results[:finalists]):
+        if fr.lm.n_iter >= min(lm_max_iter, screen_iter) and lm_max_iter > screen_iter:
+            fr2 = lm_from(fr.resistivity, fr.thickness, lm_max_iter)
+            if fr2 is not None and fr2.lm.objective <= fr.lm.objective:
+                results[k] = (fr2, start, label)
     best = min(results, key=lambda r: r[0].lm.objective)
     info = dict(winner=best[2], evaluations=int(n_eval[0]), n_layers=n, n_free=int(free.size),
                 **de_info)

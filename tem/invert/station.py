@@ -278,6 +278,7 @@ def fewlayer_station(sd, settings, m_smooth=None, h_smooth=None, doi=None, rho_h
         extra = [] if previous is None else split_starts(previous.resistivity, previous.thickness)
         return global_fewlayer(sd.predict_many, layer_fwd, sd.d_obs, sd.std, n, starts,
                                search_box(n, first, depth_max), extra=extra, priors=priors,
+                               layer_predict=sd.predict,
                                population=settings.few_population, evaluations=evaluations,
                                seed=settings.few_seed, lm_max_iter=settings.lm_max_iter)
 
