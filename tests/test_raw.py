@@ -5,7 +5,7 @@ import pytest
 from tem.errors import TemInputError
 from tem.io.raw import (FORMATS, RawHeader, open_receiver, open_recording, write_npy_recording,
                         write_text_recording)
-from tem.survey import Receiver, Station, Survey, replace
+from tem.survey import Receiver, replace
 from tem.synth import emberline_survey
 
 HDR = RawHeader(sample_rate=1000.0, volts_per_count=1e-6, start_time="2025-06-02T08:00:00Z",

@@ -9,7 +9,6 @@ subprocess, killed with SIGKILL at a stage, then rerun.
 from __future__ import annotations
 
 import json
-import os
 import signal
 import subprocess
 import sys

