@@ -10,6 +10,8 @@ from __future__ import annotations
 import dataclasses
 import datetime as _dt
 import math
+import re
+import warnings
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -63,9 +65,15 @@ def parse_time(value, field_name: str = "time") -> np.datetime64:
             sign = 1 if text[-6] == "+" else -1
             offset = sign * (int(hh) * 60 + int(mm))
             text = text[:-6]
+        m = _ISO.fullmatch(text)
+        if m is None or not 1900 <= int(m.group(1)) <= 2200:
+            raise input_error(field_name, f"not an ISO-8601 time from 1900 to 2200 (at most "
+                              f"nanoseconds): {_show(value)}")
         try:
-            t = np.datetime64(text)
-        except (ValueError, OverflowError):
+            with warnings.catch_warnings():
+                warnings.simplefilter("error")      # a zone numpy cannot represent
+                t = np.datetime64(text, "ns")
+        except (ValueError, OverflowError, UserWarning, DeprecationWarning):
             raise input_error(field_name, f"not an ISO-8601 time: {_show(value)}") from None
         t = _in_range(t, value, field_name)
         if offset:
@@ -74,8 +82,15 @@ def parse_time(value, field_name: str = "time") -> np.datetime64:
     raise input_error(field_name, f"expected an ISO-8601 time string, got {_show(value)}")
 
 
+_ISO = re.compile(r"(\d{4})-\d{2}-\d{2}(?:[T ]\d{2}(?::\d{2}(?::\d{2}(?:\.\d{1,9})?)?)?)?")
+
+
 def _in_range(t, value, field_name):
-    if np.isnat(t) or not (_T_MIN <= t <= _T_MAX):
+    try:
+        ok = not np.isnat(t) and _T_MIN <= t <= _T_MAX
+    except (OverflowError, ValueError, TypeError):
+        ok = False
+    if not ok:
         raise input_error(field_name, f"time out of range (1900 to 2200): {_show(value)}")
     return t.astype("datetime64[ns]")
 

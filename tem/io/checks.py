@@ -270,8 +270,7 @@ def npy_header(fh, path, max_header: int = 10_000):
         offset = fh.tell()
     except TemInputError:
         raise
-    except (ValueError, OSError, EOFError, SyntaxError, TypeError, KeyError, RecursionError,
-            MemoryError, AttributeError, OverflowError, UnicodeDecodeError) as exc:
+    except Exception as exc:  # noqa: BLE001 - numpy's header parser raises many kinds
         msg = str(exc).splitlines()[0][:80] if str(exc) else type(exc).__name__
         raise input_error("npy header", f"unreadable ({msg})", path) from None
     if dtype.hasobject:
@@ -304,7 +303,15 @@ def open_netcdf(path, field: str, max_elements: int = MAX_ELEMENTS):
             raise input_error(field, "file not found", path)
         if path.is_dir():
             raise input_error(field, "is a folder; give the file", path)
+    import h5py
+
     try:
+        # HDF5 first: a file h5py cannot open never reaches h5netcdf (whose half-built File
+        # would complain again when collected)
+        with h5py.File(path, "r"):
+            pass
+        if hasattr(path, "seek"):
+            path.seek(0)
         ds = xr.open_dataset(path, engine="h5netcdf")
     except Exception as exc:  # noqa: BLE001 - HDF5 raises many kinds on a corrupt file
         raise input_error(field, f"not readable as netCDF ({_why(exc)})", name) from None

@@ -86,9 +86,10 @@ class RawHeader:
         try:
             extra = set(d) - allowed
             if extra:
-                raise input_error(sorted(extra)[0], f"unknown key; valid: {', '.join(sorted(allowed))}")
+                raise input_error(checks.show(sorted(extra)[0]),
+                                  f"unknown key; valid: {', '.join(sorted(allowed))}")
             if checks.integer(d.get("format_version", 1), "format_version") != SIDECAR_VERSION:
-                raise input_error("format_version", f"unsupported {d['format_version']!r}")
+                raise input_error("format_version", f"unsupported {checks.show(d['format_version'])}")
             for key in ("sample_rate", "volts_per_count", "start_time"):
                 if key not in d:
                     raise input_error(key, "missing")
