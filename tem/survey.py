@@ -431,7 +431,7 @@ def survey_from_dict(doc: dict, base_dir=".") -> Survey:
                        "format_version"}, "survey")
     version = checks.integer(head.get("format_version", 1), "survey.format_version")
     if version != 1:
-        raise input_error("survey.format_version", f"unsupported {version}; this tem reads "
+        raise input_error("survey.format_version", f"unsupported {checks.show(version)}; this tem reads "
                           "version 1")
     if "transmitter" not in doc:
         raise input_error("transmitter", "missing table")

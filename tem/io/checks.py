@@ -308,8 +308,10 @@ def open_netcdf(path, field: str, max_elements: int = MAX_ELEMENTS):
     try:
         # HDF5 first: a file h5py cannot open never reaches h5netcdf (whose half-built File
         # would complain again when collected)
-        with h5py.File(path, "r"):
-            pass
+        with h5py.File(path, "r") as h5:
+            h5.attrs.get("_nc3_strict")
+            dict(h5.attrs)
+            h5.visititems(_touch)
         if hasattr(path, "seek"):
             path.seek(0)
         ds = xr.open_dataset(path, engine="h5netcdf")
@@ -329,6 +331,13 @@ def open_netcdf(path, field: str, max_elements: int = MAX_ELEMENTS):
         raise input_error(field, f"not readable as netCDF ({_why(exc)})", name) from None
     ds.close()
     return ds
+
+
+def _touch(name, obj):
+    """Read an HDF5 object's metadata (attributes, shape, type): a corrupt header fails here."""
+    dict(obj.attrs)
+    if hasattr(obj, "shape"):
+        obj.shape, obj.dtype, obj.chunks, obj.compression
 
 
 def _why(exc) -> str:

@@ -138,7 +138,7 @@ def check_models(ds, file=None):
     from .checks import show
 
     fmt = ds.attrs.get("tem_format")
-    if fmt != FORMAT:
+    if not isinstance(fmt, str) or fmt != FORMAT:
         raise input_error("tem_format", f"expected {FORMAT!r}, found {show(fmt)} (not a models "
                           "file?)", file)
     version = str(ds.attrs.get("format_version", ""))
@@ -185,7 +185,7 @@ def check_model_values(ds, file=None):
     Station ids: unique printable text; coordinates finite (|x|, |y| <= 1e8 m,
     |z| <= 1e5 m); resistivity 1e-6..1e12 ohm-m or NaN (padding), at least one
     per station; thickness in (0, 1e6] m or NaN; DOI and chi-square >= 0 or
-    NaN; at most 1000 layers.
+    NaN; posterior standard deviations >= 0 or NaN; at most 1000 layers.
     """
     from . import checks
 
@@ -208,7 +208,7 @@ def check_model_values(ds, file=None):
     checks.variable(ds, "thickness", sl, file, positive=True, maximum=lim["thickness"],
                     allow_nan=True)
     checks.variable(ds, "depth_top", sl, file, minimum=0.0, maximum=lim["depth"], allow_nan=True)
-    checks.variable(ds, "log10_res_std", sl, file, minimum=0.0, maximum=100.0, allow_nan=True)
+    checks.variable(ds, "log10_res_std", sl, file, minimum=0.0, maximum=1e30, allow_nan=True)
     checks.variable(ds, "doi", st, file, minimum=0.0, maximum=lim["depth"], allow_nan=True)
     checks.variable(ds, "chi2", st, file, minimum=0.0, maximum=1e30, allow_nan=True)
     epsg = ds.attrs.get("epsg", 0)

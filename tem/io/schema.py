@@ -112,8 +112,10 @@ def _stacked(ds, file):
     for f in COUNT_FIELDS:
         checks.variable(ds, f, _CH, file, minimum=0.0, maximum=1e15)
     nb = ds.sizes.get("batch", 0)
+    if nb < 2:
+        raise input_error("influence", f"{nb} batch(es); errors need two or more", file)
     if "n_batches" in ds.variables:
-        n = checks.variable(ds, "n_batches", _CH, file, minimum=1.0, maximum=nb)
+        n = checks.variable(ds, "n_batches", _CH, file, minimum=2.0, maximum=nb)
         if not np.all(n == np.round(n)):
             raise input_error("n_batches", "expected whole numbers", file)
     if "lag_corr" in ds.variables:
@@ -129,6 +131,10 @@ def _stacked(ds, file):
             checks.variable(ds, key, _CH, file, maximum=BIG, allow_nan=True)
     checks.attr_number(ds, "sample_rate", file, required=False, positive=True,
                        maximum=L["sample_rate"])
+    checks.attr_number(ds, "off_time", file, required=False, minimum=0.0, maximum=L["time"])
+    for name in ("cut_offset", "cut_residual", "timing_residual"):
+        if name in ds.attrs and not (isinstance(ds.attrs[name], float) and np.isnan(ds.attrs[name])):
+            checks.attr_number(ds, name, file, maximum=L["time"])
 
 
 def _gated(ds, file):
@@ -149,13 +155,30 @@ def _gated(ds, file):
             checks.variable(ds, str(name), _CH, file, maximum=BIG, allow_nan=True)
 
 
+def _provenance(ds, file):
+    import json
+
+    text = ds.attrs.get("provenance")
+    if text is None:
+        return
+    try:
+        records = json.loads(text) if isinstance(text, str) else None
+    except (ValueError, RecursionError):
+        records = None
+    if not isinstance(records, list) or not all(isinstance(r, dict) for r in records):
+        raise input_error("provenance", "not a JSON list of stage records", file)
+
+
 def check_product(ds, fmt: str, file=None):
     """Check a ``stacked`` or ``gated`` Dataset (other formats: attributes only); return it."""
     if fmt in ("stacked", "gated"):
         _attrs(ds, file)
+    _provenance(ds, file)
     for dim, n in ds.sizes.items():
         if n > checks.MAX_ELEMENTS:
             raise input_error(str(dim)[:40], f"dimension of {n}: too large", file)
+        if n == 0:
+            raise input_error(str(dim)[:40], "dimension is empty", file)
     if ds.sizes.get("channel", 1) > 64:
         raise input_error("channel", f"{ds.sizes['channel']} channels; at most 64", file)
     if fmt == "stacked":

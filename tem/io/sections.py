@@ -51,7 +51,7 @@ def read_section_grid(path):
 
     name = Path(path) if not hasattr(path, "read") else "netCDF"
     ds = checks.open_netcdf(path, "section")
-    if ds.attrs.get("tem_format") != FORMAT:
+    if not isinstance(ds.attrs.get("tem_format"), str) or ds.attrs["tem_format"] != FORMAT:
         raise input_error("tem_format", f"expected {FORMAT!r}, found "
                           f"{checks.show(ds.attrs.get('tem_format'))}", name)
     if str(ds.attrs.get("format_version", "")).split(".")[0] != FORMAT_VERSION.split(".")[0]:

@@ -193,7 +193,8 @@ def check_dataset(ds, fmt: str, file=None) -> xr.Dataset:
     from .checks import show
     from .schema import check_product
 
-    if ds.attrs.get("tem_format") != fmt:
+    found = ds.attrs.get("tem_format")
+    if not isinstance(found, str) or found != fmt:
         raise input_error("tem_format", f"expected {fmt!r}, found "
                           f"{show(ds.attrs.get('tem_format'))}", file)
     if str(ds.attrs.get("format_version", "")).split(".")[0] != _MAJOR:
