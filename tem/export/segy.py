@@ -99,26 +99,16 @@ def read_velocity_table(path):
     -------
     depth, velocity : ndarray
     """
-    import csv
+    from ..io import checks
 
     path = Path(path)
-    if not path.is_file():
-        raise input_error("velocity table", "file not found", path)
-    with open(path, newline="", encoding="utf-8") as fh:
-        lines = [ln for ln in fh if ln.strip() and not ln.lstrip().startswith("#")]
-    reader = csv.DictReader(lines)
-    fields = [f.strip() for f in (reader.fieldnames or [])]
-    for need in ("depth_m", "vp_m_per_s"):
-        if need not in fields:
-            raise input_error(need, f"column missing (header has: {', '.join(fields) or 'nothing'})", path)
-    z, v = [], []
-    for k, row in enumerate(reader, start=2):
-        row = {(key or "").strip(): val for key, val in row.items()}
-        for name, dest in (("depth_m", z), ("vp_m_per_s", v)):
-            try:
-                dest.append(float(row[name]))
-            except (TypeError, ValueError):
-                raise input_error(name, f"line {k}: not a number: {row[name]!r}", path) from None
+    rows = checks.csv_rows(checks.read_text(path, "velocity table"), path,
+                           ("depth_m", "vp_m_per_s"), field="velocity table", max_rows=100_000)
+    lim = checks.LIMITS
+    z = [checks.number(r["depth_m"], f"line {k}: depth_m", path, parse_text=True, minimum=0.0,
+                       maximum=lim["depth"]) for k, r in rows]
+    v = [checks.number(r["vp_m_per_s"], f"line {k}: vp_m_per_s", path, parse_text=True,
+                       minimum=lim["velocity_min"], maximum=lim["velocity_max"]) for k, r in rows]
     return check_velocity_table(np.array(z), np.array(v), path)
 
 

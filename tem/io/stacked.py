@@ -24,7 +24,7 @@ from ..errors import input_error
 from ..provenance import records_from_json, records_to_json
 from .netcdf import write_netcdf
 
-__all__ = ["stacked_dataset", "write_dataset", "read_product", "gated_dataset",
+__all__ = ["stacked_dataset", "write_dataset", "read_product", "check_dataset", "gated_dataset",
            "COUNT_FIELDS", "CHECK_FIELDS"]
 
 COUNT_FIELDS = ("transients_total", "transients_used", "rejected_noisy", "rejected_bad_samples",
@@ -178,19 +178,29 @@ def write_dataset(ds: xr.Dataset, path) -> Path:
 
 
 def read_product(path, fmt: str) -> xr.Dataset:
-    """Open a product file and check ``tem_format`` and the major ``format_version``."""
-    path = Path(path)
-    try:
-        ds = xr.load_dataset(path, engine="h5netcdf")
-    except FileNotFoundError:
-        raise input_error("file", "not found", path) from None
-    except (OSError, ValueError) as exc:
-        raise input_error("netcdf", f"unreadable ({type(exc).__name__})", path) from None
-    if ds.attrs.get("tem_format") != fmt:
-        raise input_error("tem_format", f"expected {fmt!r}, found {ds.attrs.get('tem_format')!r}", path)
+    """Open a product file and check it with :func:`check_dataset`. ``path`` may also be a
+    file object (bytes in memory)."""
+    from .checks import open_netcdf
+
+    return check_dataset(open_netcdf(path, "netcdf"), fmt,
+                         Path(path) if not hasattr(path, "read") else "netCDF")
+
+
+def check_dataset(ds, fmt: str, file=None) -> xr.Dataset:
+    """Check ``tem_format``, the major ``format_version`` and, for ``stacked`` and ``gated``
+    files, every variable and attribute a stage reads (:func:`tem.io.schema.check_product`).
+    """
+    from .checks import show
+    from .schema import check_product
+
+    found = ds.attrs.get("tem_format")
+    if not isinstance(found, str) or found != fmt:
+        raise input_error("tem_format", f"expected {fmt!r}, found "
+                          f"{show(ds.attrs.get('tem_format'))}", file)
     if str(ds.attrs.get("format_version", "")).split(".")[0] != _MAJOR:
-        raise input_error("format_version", f"{ds.attrs.get('format_version')!r} not supported", path)
-    return ds
+        raise input_error("format_version", f"{show(ds.attrs.get('format_version'))} not "
+                          "supported", file)
+    return check_product(ds, fmt, file)
 
 
 def provenance_of(ds) -> list:

@@ -18,7 +18,6 @@ same way, and every sample deeper than the local DOI is flagged.
 """
 from __future__ import annotations
 
-import csv
 from pathlib import Path
 
 import numpy as np
@@ -541,27 +540,22 @@ def twt_to_depth(twt, table_depth, table_velocity):
 
 
 def read_line_csv(path):
-    """Polyline vertices from a CSV with columns ``x``, ``y`` (m)."""
+    """Polyline vertices from a CSV with columns ``x``, ``y`` (m).
+
+    Refused with one line naming the file and the line: non-UTF-8 bytes, NUL
+    characters, a missing column, text where a number belongs, a coordinate
+    beyond 1e8 m, fewer than two or more than 100000 vertices.
+    """
+    from ..io import checks
+
     path = Path(path)
-    if not path.is_file():
-        raise input_error("line", "file not found", path)
-    with open(path, newline="", encoding="utf-8") as fh:
-        reader = csv.DictReader(ln for ln in fh if ln.strip() and not ln.startswith("#"))
-        fields = [f.strip() for f in reader.fieldnames or []]
-        for need in ("x", "y"):
-            if need not in fields:
-                raise input_error(need, "column missing", path)
-        xs, ys = [], []
-        for k, row in enumerate(reader, start=2):
-            row = {(key or "").strip(): v for key, v in row.items()}
-            try:
-                xs.append(float(row["x"]))
-                ys.append(float(row["y"]))
-            except (TypeError, ValueError):
-                raise input_error("x", f"line {k}: not a number", path) from None
-            if not (np.isfinite(xs[-1]) and np.isfinite(ys[-1])):
-                raise input_error("x" if not np.isfinite(xs[-1]) else "y",
-                                  f"line {k}: not a finite number", path)
+    rows = checks.csv_rows(checks.read_text(path, "line"), path, ("x", "y"), field="line",
+                           max_rows=100_000)
+    lim = checks.LIMITS["coordinate"]
+    xs = [checks.number(r["x"], f"line {k}: x", path, parse_text=True, maximum=lim)
+          for k, r in rows]
+    ys = [checks.number(r["y"], f"line {k}: y", path, parse_text=True, maximum=lim)
+          for k, r in rows]
     if len(xs) < 2:
         raise input_error("line", "a polyline needs at least two vertices", path)
     return np.array(xs), np.array(ys)
