@@ -43,6 +43,7 @@ class StationResult:
     converged: bool
     message: str
     few: dict | None = None          # few-layer model (see _few_dict)
+    posterior: object | None = None  # tem.invert.posterior.PosteriorResult (kind posterior)
     history: list = field(default_factory=list)
 
 
@@ -235,8 +236,11 @@ def invert_station(sd, settings: InversionSettings = InversionSettings(), callba
         halfspace=rho_hs, d_obs=sd.d_obs, std=sd.std, d_pred=res.d_pred, component=sd.component,
         channel=sd.channel, times=sd.gate_centre[np.nonzero(sd.mask)[1]], mu=res.mu,
         converged=res.converged, message=res.message, history=res.history)
-    if settings.kind == "few-layer":
+    if settings.kind in ("few-layer", "posterior"):
         out.few = fewlayer_station(sd, settings, res.m, h, doi)
+    if settings.kind == "posterior":
+        from .posterior import posterior_station
+        out.posterior = posterior_station(sd, settings, out.few)
     return out
 
 
