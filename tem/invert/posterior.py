@@ -24,9 +24,9 @@ same seed. Convergence: rank-normalised split R-hat and bulk / tail ESS per
 parameter (:mod:`tem.invert.diagnostics`).
 
 The *target* is the most conductive layer below ``cover_layers`` layers of
-cover (counted from the top, half-space included as a candidate); its top is
-evaluated draw by draw, so the target may be a different layer in different
-draws.
+cover (counted from the top, half-space included as a candidate) in the
+Levenberg-Marquardt fit; the posterior of its top is that layer's top in
+every draw (:func:`target_tops`).
 """
 from __future__ import annotations
 
@@ -39,7 +39,7 @@ from .diagnostics import summary
 from .mcmc import adaptive_metropolis, regularised_covariance
 
 __all__ = ["RES_BOUNDS", "THK_BOUNDS", "PosteriorResult", "LayeredPosterior", "sample_posterior",
-           "depth_tops", "target_tops", "posterior_station"]
+           "depth_tops", "target_layer", "target_tops", "posterior_station"]
 
 #: Box of the few-layer parameters (ohm-m, m): the bounds of the Levenberg-Marquardt fit.
 RES_BOUNDS = (0.1, 1e5)
@@ -181,14 +181,25 @@ class PosteriorResult:
         return float(v.min()) if v.size else float("nan")
 
 
-def _starts(post, q_hat, C, chains, rng, tries=200):
-    """Chain starts: draws of N(q_hat, C) inside the box with finite density (q_hat if none)."""
+def _starts(post, q_hat, C, chains, rng, tries=50):
+    """Chain starts: draws of N(q_hat, C) inside the box whose posterior density is within the
+    bulk of a Gaussian posterior of the best fit (``2 (ln pi_hat - ln pi) <`` the 99 % point of
+    chi-square with P degrees of freedom); the covariance is halved after every 10 misses (a
+    linearised covariance can be far too wide where the data do not constrain a parameter)."""
+    from scipy.stats import chi2
+
+    lp_hat = post(q_hat)
+    limit = float(chi2.ppf(0.99, q_hat.size))
     L = np.linalg.cholesky(C)
     out = []
     for _ in range(chains):
-        for _ in range(tries):
-            q = np.clip(q_hat + L @ rng.standard_normal(q_hat.size), post.lower, post.upper)
-            if np.isfinite(post(q)):
+        scale = 1.0
+        for i in range(tries):
+            if i and i % 10 == 0:
+                scale *= 0.5
+            q = np.clip(q_hat + scale * (L @ rng.standard_normal(q_hat.size)), post.lower, post.upper)
+            lq = post(q)
+            if np.isfinite(lq) and 2.0 * (lp_hat - lq) < limit:
                 break
         else:
             q = q_hat.copy()
@@ -261,19 +272,28 @@ def depth_tops(draws, n_layers):
     return np.cumsum(np.exp(d[..., n_layers:]), axis=-1)
 
 
-def target_tops(draws, n_layers, cover_layers):
-    """Depth (m) to the top of the most conductive layer below ``cover_layers`` layers, per draw.
+def target_layer(resistivity, cover_layers):
+    """Index of the most conductive layer below ``cover_layers`` layers (None if there is none)."""
+    rho = np.asarray(resistivity, float)
+    if cover_layers >= rho.size:
+        return None
+    return cover_layers + int(np.argmin(rho[cover_layers:]))
 
-    NaN when the model has no layer below the cover.
+
+def target_tops(draws, n_layers, layer):
+    """Depth (m) to the top of layer ``layer`` (the target, fixed for all draws), per draw.
+
+    NaN when ``layer`` is None. The target layer is chosen once, on the
+    few-layer fit (:func:`target_layer`): choosing it draw by draw would let a
+    layer the data do not see (e.g. a half-space under a thick conductor,
+    whose resistivity the data leave free) become the "most conductive" one.
     """
     d = np.asarray(draws, float)
-    shape = d.shape[:-1]
-    if cover_layers >= n_layers:
-        return np.full(shape, np.nan)
-    ln_rho = d[..., cover_layers:n_layers]
-    k = cover_layers + np.argmin(ln_rho, axis=-1)
-    tops = np.concatenate([np.zeros(shape + (1,)), depth_tops(d, n_layers)], axis=-1)
-    return np.take_along_axis(tops, k[..., None], axis=-1)[..., 0]
+    if layer is None:
+        return np.full(d.shape[:-1], np.nan)
+    if layer == 0:
+        return np.zeros(d.shape[:-1])
+    return depth_tops(d, n_layers)[..., layer - 1]
 
 
 def ln_covariance(few):

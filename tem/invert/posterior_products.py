@@ -19,6 +19,8 @@ posterior variables):
 * coordinate ``post_depth`` (cell centres, m) with attribute ``cell_m``;
   ``res_p10``, ``res_p50``, ``res_p90`` (station, post_depth), ohm-m;
   ``interface_density``, ``target_density`` (station, post_depth), 1/m;
+* ``target_layer`` (station,): the target, the most conductive layer below
+  ``cover_layers`` in the few-layer fit (0 = top layer);
 * ``target_top_p025`` .. ``target_top_p975`` (station,), m; ``target_top_linearised``
   and ``target_top_std_linearised`` (station,), m;
 * ``rhat_max``, ``ess_min``, ``posterior_seconds``, ``chi2_posterior`` (station,).
@@ -30,7 +32,7 @@ from pathlib import Path
 
 import numpy as np
 
-from .posterior import depth_tops, target_tops
+from .posterior import depth_tops, target_layer, target_tops
 
 __all__ = ["QUANTILES", "TARGET_QUANTILES", "depth_edges", "station_products",
            "add_posterior", "write_posterior_csv", "POSTERIOR_CSV_COLUMNS"]
@@ -56,12 +58,14 @@ def depth_edges(results, cells):
     return np.linspace(0.0, max(z_max, 1.0), int(cells) + 1)
 
 
-def station_products(post, edges, cover_layers, few=None):
+def station_products(post, edges, cover_layers, few):
     """Products of one station's draws on the cells ``edges`` (see the module docstring).
 
     Returns a dict of arrays: ``depth_q`` (3, N) of layer tops 1..N,
     ``res_q`` (3, cells), ``interface_density``, ``target_density`` (cells,),
-    ``target_q`` (5,), and with ``few`` ``target_lin`` (value, std).
+    ``target_q`` (5,), ``target_lin`` (value, std) and ``target_layer``. The
+    target layer is chosen on the few-layer fit ``few`` (dict with
+    ``resistivity``, ``depth_top``, ``depth_std``).
     """
     flat = post.flat
     n = post.n_layers
@@ -77,19 +81,16 @@ def station_products(post, edges, cover_layers, few=None):
     ln_rho_z = np.take_along_axis(flat[:, :n], idx, axis=1)
     out["res_q"] = np.exp(np.quantile(ln_rho_z, QUANTILES, axis=0))
     out["interface_density"] = np.histogram(tops.ravel(), edges)[0] / (S * dz)
-    tt = target_tops(flat, n, cover_layers)
+    k = target_layer(few["resistivity"], cover_layers)
+    out["target_layer"] = -1 if k is None else k
+    tt = target_tops(flat, n, k)
     ok = np.isfinite(tt)
     out["target_density"] = np.histogram(tt[ok], edges)[0] / (S * dz)
     out["target_q"] = (np.quantile(tt[ok], TARGET_QUANTILES) if ok.any()
                        else np.full(len(TARGET_QUANTILES), np.nan))
     out["target_draws"] = tt
-    if few is not None:
-        rho = np.asarray(few["resistivity"], float)
-        if cover_layers < rho.size:
-            k = cover_layers + int(np.argmin(rho[cover_layers:]))
-            out["target_lin"] = (float(few["depth_top"][k]), float(few["depth_std"][k]))
-        else:
-            out["target_lin"] = (np.nan, np.nan)
+    out["target_lin"] = ((np.nan, np.nan) if k is None else
+                         (float(few["depth_top"][k]), float(few["depth_std"][k])))
     return out
 
 
@@ -128,6 +129,8 @@ def add_posterior(ds, results, cells, cover_layers):
                                    {"units": "m", "long_name": "target top of the few-layer fit"})
     ds["target_top_std_linearised"] = ("station", np.array([p["target_lin"][1] for p in prods]),
                                        {"units": "m", "long_name": "linearised std of target top"})
+    ds["target_layer"] = ("station", np.array([p["target_layer"] for p in prods]),
+                          {"units": "1", "long_name": "target layer (0 = top; -1 none)"})
     ds["rhat_max"] = ("station", np.array([r.posterior.max_rhat for r in results]),
                       {"units": "1", "long_name": "largest split R-hat over the parameters"})
     ds["ess_min"] = ("station", np.array([r.posterior.min_ess for r in results]),
