@@ -60,7 +60,8 @@ def one(job):
     from tem.invert.posterior import target_layer, target_tops
     from tem.invert.station import InversionSettings, invert_station
 
-    z, i, seed, draws, burn = job
+    z, i, seed, draws, burn = job[:5]
+    anneal = job[5] if len(job) > 5 else 0.0
     k = int(z["model"][i])
     off = str(z["offset"][i])
     rx = tuple(z["receivers"][list(z["offsets"]).index(off)])
@@ -75,7 +76,8 @@ def one(job):
                                   gate_centre=z["times"], floors=0.0)
     truth, n = true_target(z["resistivity"][k], z["thickness"][k], 1)
     settings = InversionSettings(kind="posterior", few_layers=n, posterior_draws=draws,
-                                 posterior_burn=burn, posterior_seed=seed, floor=0.0)
+                                 posterior_burn=burn, posterior_seed=seed, floor=0.0,
+                                 posterior_anneal=anneal)
     t0 = time.perf_counter()
     r = invert_station(sd, settings)
     seconds = time.perf_counter() - t0
@@ -96,12 +98,15 @@ def main(argv=None):
     ap.add_argument("--repeats", type=int, default=3, help="noise draws per sounding")
     ap.add_argument("--draws", type=int, default=2000, help="kept draws per chain")
     ap.add_argument("--burn", type=int, default=2000, help="burn-in steps per chain")
+    ap.add_argument("--anneal", type=float, default=0.0, help="annealed fraction of the burn-in")
+    ap.add_argument("--only", type=int, nargs="*", help="sounding indices (first noise draw only)")
     ap.add_argument("--jobs", type=int, default=1, help="soundings in parallel")
     ap.add_argument("--seed", type=int, default=7000, help="first noise seed")
     a = ap.parse_args(argv)
     z = load()
-    jobs = [(z, i, a.seed + 100 * rep + i, a.draws, a.burn)
-            for rep in range(a.repeats) for i in range(len(z["model"]))]
+    jobs = [(z, i, a.seed + 100 * rep + i, a.draws, a.burn, a.anneal)
+            for rep in range(a.repeats) for i in range(len(z["model"]))
+            if not a.only or i in a.only]
     rows = []
     with ProcessPoolExecutor(a.jobs) as pool:
         for row in pool.map(one, jobs):
@@ -114,7 +119,7 @@ def main(argv=None):
 
     print(json.dumps({
         "case": f"empymod 8 earths x 2 offsets x {a.repeats} noise draws, layers known, "
-                f"{a.draws}+{a.burn} steps x 4 chains",
+                f"{a.draws}+{a.burn} steps x 4 chains, anneal {a.anneal:g}",
         "coverage_80": frac("in80"), "coverage_95": frac("in95"),
         "coverage_80_linearised": frac("in80_lin"), "coverage_95_linearised": frac("in95_lin"),
         "n_soundings": len(rows),

@@ -62,7 +62,7 @@ def regularised_covariance(C, lower, upper, floor=1e-8):
 
 
 def adaptive_metropolis(log_density, starts, cov0, *, n_draws, n_burn, seed, lower, upper,
-                        t0_fraction=0.1, eps=1e-10):
+                        t0_fraction=0.1, eps=1e-10, anneal=0.0, beta0=1e-2, log_parts=None):
     """Run ``len(starts)`` chains of adaptive Metropolis in step.
 
     Parameters
@@ -85,12 +85,30 @@ def adaptive_metropolis(log_density, starts, cov0, *, n_draws, n_burn, seed, low
         empirical covariance takes over.
     eps : float
         Ridge added to the empirical covariance (Haario et al.'s epsilon).
+    anneal : float
+        Fraction of the burn-in (at most 0.45) spent on a tempered density
+        ``beta ln L + ln prior`` with ``beta`` rising geometrically from
+        ``beta0`` to 1 (simulated annealing, Kirkpatrick, Gelatt & Vecchi 1983,
+        Science 220, 671-680), so chains can leave a local optimum of the
+        start; at its end every chain whose density is below the best chain's
+        by more than the 99 % point of chi-square(P)/2 restarts from the best
+        chain's state. Needs ``log_parts``. All of it happens in the burn-in.
+    log_parts : callable or None
+        ``log_parts(q) -> (ln L, ln prior)``, their sum being ``log_density(q)``.
     """
     rng = np.random.default_rng(seed)
     x = np.array(starts, float)
     C, P = x.shape
     lo, hi = np.asarray(lower, float), np.asarray(upper, float)
-    lp = np.array([log_density(xi) for xi in x])
+    K = int(min(max(anneal, 0.0), 0.45) * n_burn) if log_parts is not None else 0
+    if K:
+        parts = np.array([log_parts(xi) for xi in x])          # (C, 2): ln L, ln prior
+
+        def beta_at(t):
+            return beta0 ** (1.0 - t / K) if t < K else 1.0
+        lp = parts[:, 0] * beta_at(0) + parts[:, 1]
+    else:
+        lp = np.array([log_density(xi) for xi in x])
     if not np.all(np.isfinite(lp)):
         raise ValueError("starts: every chain needs a start with finite log-density")
     sd = 2.4 ** 2 / P
@@ -112,14 +130,31 @@ def adaptive_metropolis(log_density, starts, cov0, *, n_draws, n_burn, seed, low
         prop = x + np.sqrt(lam) * z @ L.T
         inside = np.all((prop >= lo) & (prop <= hi), axis=1)
         acc_step = np.zeros(C, bool)
+        if K and t < K:
+            beta = beta_at(t)
+            lp = beta * parts[:, 0] + parts[:, 1]
         for c in range(C):
             if not inside[c]:
                 continue
-            lq = log_density(prop[c])
+            if K and t < K:
+                pq = log_parts(prop[c])
+                lq = beta * pq[0] + pq[1]
+            else:
+                lq = log_density(prop[c])
             n_eval += 1
             if np.isfinite(lq) and u[c] < lq - lp[c]:
                 x[c], lp[c] = prop[c], lq
+                if K and t < K:
+                    parts[c] = pq
                 acc_step[c] = True
+        if K and t == K - 1:
+            # end of annealing: back to the full density; stragglers restart from the best chain
+            from scipy.stats import chi2
+            lp = parts[:, 0] + parts[:, 1]
+            best = int(np.argmax(lp))
+            lag = lp[best] - lp > 0.5 * chi2.ppf(0.99, P)
+            x[lag], lp[lag] = x[best], lp[best]
+            lam = 1.0
         if t < n_burn:
             # adaptation: pooled running covariance (Welford), scale by Robbins-Monro
             if t == restart:

@@ -117,19 +117,24 @@ class LayeredPosterior:
         r = (self.d_obs - d) * self.w
         return float(r @ r)
 
-    def __call__(self, q):
+    def parts(self, q):
+        """(ln likelihood, ln prior) of free parameters ``q`` (-inf outside the box)."""
         if np.any(q < self.lower) or np.any(q > self.upper):
-            return -np.inf
+            return -np.inf, 0.0
         p = self.full(q)
         self.n_eval += 1
         try:
             with np.errstate(all="ignore"):
                 chi = self.misfit(p)
         except (ValueError, FloatingPointError, np.linalg.LinAlgError):
-            return -np.inf
+            return -np.inf, 0.0
         if not np.isfinite(chi):
-            return -np.inf
-        return -0.5 * chi + self.prior_term(p)
+            return -np.inf, 0.0
+        return -0.5 * chi, self.prior_term(p)
+
+    def __call__(self, q):
+        a, b = self.parts(q)
+        return a + b
 
 
 @dataclass
@@ -208,7 +213,7 @@ def _starts(post, q_hat, C, chains, rng, tries=50):
 
 
 def sample_posterior(predict, d_obs, std, resistivity, thickness, ln_cov, *, priors, n_draws,
-                     n_burn, chains, seed):
+                     n_burn, chains, seed, anneal=0.0):
     """Sample the posterior of an N-layer model (see the module docstring).
 
     Parameters
@@ -224,6 +229,9 @@ def sample_posterior(predict, d_obs, std, resistivity, thickness, ln_cov, *, pri
     priors : sequence of Prior
     n_draws, n_burn, chains, seed : int
         Kept draws per chain, burn-in steps per chain, number of chains, seed.
+    anneal : float
+        Fraction of the burn-in spent annealing (see
+        :func:`tem.invert.mcmc.adaptive_metropolis`); 0 = none.
 
     Returns
     -------
@@ -245,7 +253,7 @@ def sample_posterior(predict, d_obs, std, resistivity, thickness, ln_cov, *, pri
     starts = _starts(post, q_hat, C, chains, rng_start)
     res = adaptive_metropolis(post, starts, C, n_draws=n_draws, n_burn=n_burn,
                               seed=int(rng_chain.integers(2 ** 63)), lower=post.lower,
-                              upper=post.upper)
+                              upper=post.upper, anneal=anneal, log_parts=post.parts)
     P = p_hat.size
     draws = np.broadcast_to(post.p_fixed, (chains, n_draws, P)).copy()
     draws[:, :, fi] = res.draws
@@ -307,4 +315,5 @@ def posterior_station(sd, settings, few):
     return sample_posterior(sd.predict, sd.d_obs, sd.std, few["resistivity"], few["thickness"],
                             ln_covariance(few), priors=tuple(settings.priors),
                             n_draws=settings.posterior_draws, n_burn=settings.posterior_burn,
-                            chains=settings.posterior_chains, seed=settings.posterior_seed)
+                            chains=settings.posterior_chains, seed=settings.posterior_seed,
+                            anneal=settings.posterior_anneal)

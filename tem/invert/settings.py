@@ -169,6 +169,9 @@ INVERT = SettingsTable("invert", [
             help="posterior sampling: independent chains (split R-hat needs two or more)"),
     Setting("posterior_seed", 0, "int", minimum=0, maximum=2 ** 63 - 1,
             help="posterior sampling: random seed (same seed, same draws)"),
+    Setting("posterior_anneal", 0.0, "float", minimum=0, maximum=0.45,
+            help="posterior sampling: fraction of the burn-in spent annealing from a tempered "
+            "likelihood, so chains can leave a poor few-layer fit (0: off)"),
     Setting("cover_layers", 1, "int", minimum=0, maximum=6,
             help="layers of cover from the top; the target is the most conductive layer below "
             "them (posterior products)"),
