@@ -22,7 +22,8 @@ Prints one JSON line per case: {"case", "coverage_80", "coverage_95",
 "coverage_80_linearised", "coverage_95_linearised", "n_soundings",
 "median_s_per_station", "max_rhat", "min_ess"} (median wall time of a whole
 station: smooth, few-layer and sampling; R-hat and ESS over all parameters of
-all soundings), and a second line for the soundings whose few-layer fit
+all soundings; also the median CPU time, which a loaded machine does not
+inflate), and a second line for the soundings whose few-layer fit
 reached chi2 <= 2 (where the sampler started in the right basin; a poor
 few-layer start is the robust-start problem, not a sampling one); one line
 per sounding goes to stderr.
@@ -82,9 +83,9 @@ def one(job):
     settings = InversionSettings(kind="posterior", few_layers=n, posterior_draws=draws,
                                  posterior_burn=burn, posterior_seed=seed, floor=0.0,
                                  posterior_anneal=anneal)
-    t0 = time.perf_counter()
+    t0, c0 = time.perf_counter(), time.process_time()
     r = invert_station(sd, settings)
-    seconds = time.perf_counter() - t0
+    seconds, cpu = time.perf_counter() - t0, time.process_time() - c0
     kl = target_layer(r.few["resistivity"], 1)
     tt = target_tops(r.posterior.flat, n, kl)
     q = np.quantile(tt, [0.025, 0.1, 0.9, 0.975])
@@ -92,7 +93,7 @@ def one(job):
     return dict(sounding=i, model=k, offset=off, seed=seed, truth=truth, layer=kl, p025=q[0], p10=q[1],
                 p90=q[2], p975=q[3], lin=zl, lin_std=sl, in80=bool(q[1] <= truth <= q[2]),
                 in95=bool(q[0] <= truth <= q[3]), in80_lin=bool(abs(truth - zl) <= Z80 * sl),
-                in95_lin=bool(abs(truth - zl) <= Z95 * sl), seconds=seconds,
+                in95_lin=bool(abs(truth - zl) <= Z95 * sl), seconds=seconds, cpu_s=cpu,
                 sampling_s=r.posterior.seconds, rhat=r.posterior.max_rhat,
                 ess=r.posterior.min_ess, chi2=r.few["chi2"], chi2_draws=r.posterior.chi2_median)
 
@@ -140,7 +141,9 @@ def summarise(rows, case):
             "n_soundings": len(sel),
             "median_s_per_station": float(np.median([r["seconds"] for r in sel])),
             "max_rhat": float(np.nanmax([r["rhat"] for r in sel])),
-            "min_ess": float(np.nanmin([r["ess"] for r in sel]))}), flush=True)
+            "min_ess": float(np.nanmin([r["ess"] for r in sel])),
+            "median_cpu_s_per_station": float(np.median([r.get("cpu_s", np.nan) for r in sel]))}),
+              flush=True)
 
 if __name__ == "__main__":
     main()
