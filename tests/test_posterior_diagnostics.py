@@ -94,3 +94,23 @@ def test_same_seed_same_draws():
     b = adaptive_metropolis(logp, np.zeros((2, 2)), np.eye(2), seed=4, **kw)
     c = adaptive_metropolis(logp, np.zeros((2, 2)), np.eye(2), seed=5, **kw)
     assert np.array_equal(a.draws, b.draws) and not np.array_equal(a.draws, c.draws)
+
+
+def test_annealed_burn_in_leaves_a_minor_mode():
+    """Two well separated narrow modes (weights 0.05 at -5 and 0.95 at +5, sd 0.1): chains
+    started in the minor one stay there without annealing and reach the major one with it
+    (at beta = 0.01 the modes have sd 1 and the barrier is exp(-12) instead of exp(-1250))."""
+    def parts(q):
+        x = float(q[0])
+        return (float(np.logaddexp(np.log(0.05) - 50 * (x + 5) ** 2,
+                                   np.log(0.95) - 50 * (x - 5) ** 2)), 0.0)
+
+    def logp(q):
+        return sum(parts(q))
+
+    kw = dict(n_draws=400, n_burn=1000, seed=2, lower=np.array([-20.0]), upper=np.array([20.0]))
+    starts = np.full((4, 1), -5.0)
+    stay = adaptive_metropolis(logp, starts, np.eye(1) * 0.01, **kw)
+    move = adaptive_metropolis(logp, starts, np.eye(1) * 0.01, anneal=0.4, log_parts=parts, **kw)
+    assert stay.draws.mean() < -4.5
+    assert move.draws.mean() > 4.5
