@@ -115,7 +115,7 @@ def test_killed_run_resumes_to_identical_products(day, tmp_path, point):
     out, err = rerun.communicate(timeout=600)
     assert rerun.returncode == 0, err
     assert not _partials(proj)
-    assert_same_products(ref, proj)
+    assert_same_products(ref, proj, rtol=1e-9)
 
 
 def test_rerun_reuses_unchanged_products_and_redoes_edited_ones(day, tmp_path, capsys):
@@ -146,7 +146,7 @@ def test_rerun_reuses_unchanged_products_and_redoes_edited_ones(day, tmp_path, c
     assert main(["run", str(survey), "--out", str(proj), "--jobs", "1", "--no-progress"]) == 0
     out = capsys.readouterr().out
     assert "EM06: gated/EM06.nc changed since written (edited by hand?); recomputed" in out
-    assert_same_products(ref, proj)
+    assert_same_products(ref, proj, rtol=1e-9)
 
 
 def test_second_run_into_the_same_project_is_refused(day, tmp_path, capsys):
@@ -195,4 +195,4 @@ def test_local_cluster_gives_the_same_products(day, tmp_path):
                  "--no-progress"]) == 0
     state = json.loads((proj / "run.json").read_text())
     assert state["last_run"]["scheduler"] == "local"
-    assert_same_products(ref, proj)
+    assert_same_products(ref, proj, rtol=1e-9)
