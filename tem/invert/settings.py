@@ -120,8 +120,9 @@ def _consistent(v):
 
 
 INVERT = SettingsTable("invert", [
-    Setting("kind", "smooth", "choice", choices=("smooth", "few-layer"),
-            help="model written to models.nc: the smooth (Occam) model or the few-layer model"),
+    Setting("kind", "smooth", "choice", choices=("smooth", "few-layer", "posterior"),
+            help="model written to models.nc: the smooth (Occam) model, the few-layer model, or "
+            "the few-layer model with posterior sampling (depth and resistivity intervals)"),
     Setting("layers", 30, "int", minimum=2, maximum=200,
             help="smooth-mesh layers, half-space included"),
     Setting("depth_min", None, "float", "m", minimum=0, exclusive=True, maximum=1e5,
@@ -224,6 +225,23 @@ INVERT = SettingsTable("invert", [
     Setting("verdict_thin_fraction", 0.05, "float", minimum=0, maximum=1,
             help="a few-layer layer thinner than this fraction of the depth of its top is "
             "degenerate (not resolvable)", source="common practice, no source"),
+    Setting("posterior_draws", 2000, "int", minimum=50, maximum=10 ** 6,
+            help="posterior sampling (kind posterior): kept draws per chain"),
+    Setting("posterior_burn", 2000, "int", minimum=50, maximum=10 ** 6,
+            help="posterior sampling: burn-in (adaptation) steps per chain, discarded"),
+    Setting("posterior_chains", 4, "int", minimum=2, maximum=64,
+            help="posterior sampling: independent chains (split R-hat needs two or more)"),
+    Setting("posterior_seed", 0, "int", minimum=0, maximum=2 ** 63 - 1,
+            help="posterior sampling: random seed (same seed, same draws)"),
+    Setting("posterior_anneal", 0.0, "float", minimum=0, maximum=0.45,
+            help="posterior sampling: fraction of the burn-in spent annealing from a tempered "
+            "likelihood, so chains can leave a poor few-layer fit (0: off)"),
+    Setting("cover_layers", 1, "int", minimum=0, maximum=6,
+            help="layers of cover from the top; the target is the most conductive layer below "
+            "them (posterior products)"),
+    Setting("posterior_cells", 200, "int", minimum=10, maximum=5000,
+            help="depth cells of the posterior products (resistivity percentiles and "
+            "interface probability versus depth)"),
     Setting("lci", False, "bool",
             help="also invert the whole profile jointly (laterally constrained, models_lci.nc)"),
     Setting("lateral_weight", 1.0, "float", minimum=0, exclusive=True, maximum=1e6,

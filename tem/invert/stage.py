@@ -33,9 +33,17 @@ def invert_one(sid, in_path, settings: InversionSettings, floors, fig_path):
     if fig_path:
         from ..io.figures import figure_bytes
         from .plot import station_figure
-        products.append((fig_path, figure_bytes(station_figure(r, kind=settings.kind))))
+        if settings.kind == "posterior":
+            from .posterior_plot import posterior_station_figure
+            fig = posterior_station_figure(r, settings.cover_layers)
+        else:
+            fig = station_figure(r, kind=settings.kind)
+        products.append((fig_path, figure_bytes(fig)))
     info = {"doi": float(r.doi), "epsg": int(ds.attrs.get("epsg", 0) or 0),
             **verdict_info(r, settings.kind)}
+    if r.posterior is not None:
+        info.update(rhat_max=r.posterior.max_rhat, ess_min=r.posterior.min_ess,
+                    posterior_s=round(r.posterior.seconds, 2))
     return StationOutcome(sid, "ok", inputs=[{"file": str(in_path), "sha256": file_sha256(in_path)}],
                           info=info, payload=r, products=products)
 
@@ -93,6 +101,13 @@ def _lci(results, files, settings, floors, folder, record, epsg, res):
             str(write_fit_csv(lres, folder / "fit_lci.csv", kind="lci"))]
 
 
+def _posterior_note(ds):
+    rhat, ess = ds["rhat_max"].values, ds["ess_min"].values
+    return (f"posterior sampling: largest split R-hat {np.nanmax(rhat):.3f}, smallest ESS "
+            f"{np.nanmin(ess):.0f}, {float(np.nanmedian(ds['posterior_seconds'].values)):.1f} s "
+            "per station (median)")
+
+
 def run(settings: InversionSettings, gated_files, out, ctx: StageContext = StageContext()) -> StageResult:
     """Invert each gated file; write the models of the stations that succeed into ``OUT/models``.
 
@@ -123,11 +138,19 @@ def run(settings: InversionSettings, gated_files, out, ctx: StageContext = Stage
     record["inputs"] = res.inputs
     epsgs = {oc.info.get("epsg", 0) for oc in res.stations.values() if oc.status == "ok"}
     epsg = epsgs.pop() if len(epsgs) == 1 else 0
-    ds = models_from_results(results, kind=settings.kind, epsg=epsg)
+    posterior = settings.kind == "posterior"
+    ds = models_from_results(results, kind="few-layer" if posterior else settings.kind, epsg=epsg)
+    if posterior:
+        from .posterior_products import add_posterior, write_posterior_csv
+        ds = add_posterior(ds, results, settings.posterior_cells, settings.cover_layers)
     res.outputs += [str(write_models(ds, folder / "models.nc", record=record)),
                     str(write_models_csv(ds, folder / "models.csv")),
-                    str(write_fit_csv(results, folder / "fit.csv", kind=settings.kind))]
-    if settings.kind == "few-layer":
+                    str(write_fit_csv(results, folder / "fit.csv",
+                                      kind="few-layer" if posterior else settings.kind))]
+    if posterior:
+        res.outputs.append(str(write_posterior_csv(ds, folder / "posterior.csv")))
+        res.notes.append(_posterior_note(ds))
+    if settings.kind in ("few-layer", "posterior"):
         smooth = models_from_results(results, kind="smooth", epsg=epsg)
         res.outputs.append(str(write_models(smooth, folder / "models_smooth.nc", record=record)))
     if settings.lci:

@@ -46,12 +46,14 @@ class StationResult:
     converged: bool
     message: str
     few: dict | None = None          # few-layer model (see _few_dict)
+    posterior: object | None = None  # tem.invert.posterior.PosteriorResult (kind posterior)
     history: list = field(default_factory=list)
     verdict: Verdict | None = None   # verdict on the smooth (or LCI) model
 
     def verdict_for(self, kind) -> Verdict | None:
-        """Verdict on the model of ``kind`` (smooth, lci: this result; few-layer: ``few``)."""
-        if kind == "few-layer":
+        """Verdict on the model of ``kind`` (smooth, lci: this result; few-layer and
+        posterior, whose best model is the few-layer fit: ``few``)."""
+        if kind in ("few-layer", "posterior"):
             return None if self.few is None else self.few.get("verdict")
         return self.verdict
 
@@ -299,10 +301,13 @@ def invert_station(sd, settings: InversionSettings = InversionSettings(), callba
         converged=res.converged, message=res.message, history=res.history,
         verdict=smooth_verdict(settings, res.chi2, sd.d_obs.size, res.converged, np.exp(res.m),
                                "smooth"))
-    if settings.kind == "few-layer":
+    if settings.kind in ("few-layer", "posterior"):
         out.few = fewlayer_station(sd, settings, res.m, h, doi, rho_hs)
         # judged here, from the final few-layer fit, whichever search produced it
         out.few["verdict"] = few_verdict(settings, out.few, sd.d_obs.size)
+    if settings.kind == "posterior":
+        from .posterior import posterior_station
+        out.posterior = posterior_station(sd, settings, out.few)
     return out
 
 

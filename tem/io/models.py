@@ -39,7 +39,7 @@ __all__ = [
 
 FORMAT = "models"
 FORMAT_VERSION = "1.0"
-MODEL_KINDS = ("smooth", "few-layer", "lci")
+MODEL_KINDS = ("smooth", "few-layer", "lci", "posterior")
 
 _VARIABLES = {
     "resistivity": ("station", "layer"),
@@ -58,6 +58,16 @@ CSV_COLUMNS = (
     "resistivity_ohmm", "log10_res_std", "below_doi", "doi_m", "chi2", "epsg",
     "verdict", "verdict_code", "verdict_reasons",
 )
+
+#: Extra columns of a models file with posterior products (model kind posterior):
+#: percentiles of the depth to the layer top, its linearised std, and the station's
+#: target-top percentiles (tem.invert.posterior_products).
+POSTERIOR_COLUMNS = (
+    "depth_top_p10_m", "depth_top_p50_m", "depth_top_p90_m", "depth_top_std_linearised_m",
+    "target_top_p10_m", "target_top_p50_m", "target_top_p90_m",
+)
+_POSTERIOR_VARS = ("depth_p10", "depth_p50", "depth_p90", "depth_std_linearised",
+                   "target_top_p10", "target_top_p50", "target_top_p90")
 
 
 def models_dataset(station, resistivity, thickness, x, y, z, doi, chi2,
@@ -319,6 +329,9 @@ def layer_rows(ds):
                 "verdict_code": verdicts[i]["code"] if verdicts[i] else "",
                 "verdict_reasons": verdicts[i]["reasons"] if verdicts[i] else "",
             })
+            if "depth_p50" in ds:
+                rows[-1].update({c: _num(ds[v].values[i] if ds[v].ndim == 1 else ds[v].values[i, k])
+                                 for c, v in zip(POSTERIOR_COLUMNS, _POSTERIOR_VARS)})
     return rows
 
 
@@ -336,7 +349,8 @@ def write_models_csv(ds, path):
     rows = layer_rows(ds)
     with atomic_path(path) as tmp:
         with open(tmp, "w", newline="", encoding="utf-8") as fh:
-            w = csv.DictWriter(fh, fieldnames=CSV_COLUMNS)
+            w = csv.DictWriter(fh, fieldnames=CSV_COLUMNS + (POSTERIOR_COLUMNS if "depth_p50" in ds
+                                                             else ()))
             w.writeheader()
             w.writerows(rows)
     return Path(path)

@@ -20,7 +20,8 @@ _CAPTIONS = {"raw": "first raw period against the stack",
              "decay": "gated decay (error bars; crosses below the noise)",
              "rhoa": "apparent resistivity",
              "fit": "data, model response, normalised residuals; model with DOI and uncertainty "
-                    "band"}
+                    "band (posterior models: P10-P90 band and, beside it, the depth probability "
+                    "of an interface and of the target top)"}
 
 
 def _run_record(project: Project):
@@ -112,7 +113,9 @@ def run(settings: ReportSettings, project_in, out, ctx: StageContext = StageCont
     figs = src.folder("figures")
     sections = [(figs / "section.png", "Resistivity section (1D models stitched along the "
                  "profile; veiled and hatched below the depth of investigation)"),
-                (figs / "section_lci.png", "Laterally constrained inversion section")]
+                (figs / "section_lci.png", "Laterally constrained inversion section"),
+                (figs / "section_posterior.png", "Posterior section: P50 resistivity and the "
+                 "P10-P90 width in decades, with the target-top percentiles per station")]
     sections += [(p, f"Apparent-resistivity pseudo-section, {p.stem.split('_', 1)[1]}")
                  for p in sorted(figs.glob("pseudosection_*.png"))]
     sections = [(p, c) for p, c in sections if p.is_file()]
