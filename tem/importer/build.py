@@ -36,7 +36,7 @@ def _scale(spec, comp, system, sid):
     return 1.0 / (spec.gain * spec.coil_area * system.current)
 
 
-def sounding_dataset(sid, decays, system, provenance, snr_min=0.0):
+def sounding_dataset(sid, decays, system, provenance, snr_min):
     """The gated-sounding Dataset of one station (raises TemInputError)."""
     import xarray as xr
 
@@ -121,7 +121,7 @@ def sounding_dataset(sid, decays, system, provenance, snr_min=0.0):
     }, attrs=attrs)
 
 
-def station_datasets(decays, system, provenance, snr_min=0.0):
+def station_datasets(decays, system, provenance, snr_min):
     """``{station: Dataset}`` for every station of the decays, in file order."""
     return {sid: sounding_dataset(sid, decays, system, provenance, snr_min)
             for sid in decays.stations}
