@@ -219,6 +219,9 @@ class Receiver:
         Recording format name; ``None`` sniffs from the file.
     column : int
         Column index for the text format.
+    channel : str or None
+        MiniSEED channel of this component: a SEED channel code (``HHZ``) or
+        a full id ``NET.STA.LOC.CHA``; needed when a file holds several.
     """
 
     component: str
@@ -229,8 +232,13 @@ class Receiver:
     coil_area: float | None = None
     format: str | None = None
     column: int = 0
+    channel: str | None = None
 
     def __post_init__(self):
+        if self.channel is not None and (not isinstance(self.channel, str) or not self.channel
+                                         or len(self.channel) > 40):
+            raise input_error("receiver.channel", f"expected a SEED channel code or id, got "
+                              f"{self.channel!r}")
         if self.component not in COMPONENTS:
             raise input_error("receiver.component",
                               f"unknown {self.component!r}; valid: {', '.join(COMPONENTS)}")
@@ -358,7 +366,8 @@ class Survey:
 # ---------------------------------------------------------------------------- TOML in/out
 _TX_KEYS = {"kind", "points", "current", "base_frequency", "duty_cycle", "ramp_on", "ramp_off",
             "first_switch_off", "timing"}
-_RX_KEYS = {"component", "files", "sample_rate", "gain", "dipole", "coil_area", "format", "column"}
+_RX_KEYS = {"component", "files", "sample_rate", "gain", "dipole", "coil_area", "format", "column",
+            "channel"}
 _ST_KEYS = {"id", "x", "y", "z", "epsg", "receiver"}
 # Top-level tables; [processing] is read by the pipeline (tem.pipeline.params).
 _TOP_KEYS = {"survey", "transmitter", "station", "processing"}
@@ -414,7 +423,8 @@ def survey_from_dict(doc: dict, base_dir=".") -> Survey:
                 rxs.append(Receiver(component=rx["component"], files=rx["files"],
                                     sample_rate=rx["sample_rate"], gain=rx.get("gain", 1.0),
                                     dipole=rx.get("dipole"), coil_area=rx.get("coil_area"),
-                                    format=rx.get("format"), column=int(rx.get("column", 0))))
+                                    format=rx.get("format"), column=int(rx.get("column", 0)),
+                                    channel=rx.get("channel")))
             except TemInputError as exc:
                 raise input_error(where, str(exc)) from None
         stations.append(Station(id=str(st["id"]), x=st.get("x", 0.0), y=st.get("y", 0.0),
@@ -467,6 +477,8 @@ def survey_to_dict(survey: Survey) -> dict:
                 r["format"] = rx.format
             if rx.column:
                 r["column"] = rx.column
+            if rx.channel:
+                r["channel"] = rx.channel
             s["receiver"].append(r)
         doc["station"].append(s)
     return doc
