@@ -382,6 +382,51 @@ def _check_keys(table, allowed, where):
                           f"unknown key; valid: {', '.join(sorted(allowed))}")
 
 
+def _projected(doc, head):
+    """Geographic input (``survey.epsg`` of a lat/lon CRS) projected to ``survey.projected_epsg``.
+
+    x is longitude and y latitude (degrees) of the stations, the transmitter
+    points and the dipole electrodes; they become metres of the stated
+    projected CRS (a UTM zone), which is the survey's ``epsg`` from then on.
+    """
+    import copy
+
+    from .io.crs import check_projected, is_geographic, project_to
+
+    epsg = head.get("epsg", 0)
+    target = head.get("projected_epsg")
+    if not epsg or not is_geographic(epsg, "survey.epsg"):
+        if target is not None and target != epsg:
+            raise input_error("survey.projected_epsg", "only for geographic input (survey.epsg "
+                              "of a latitude/longitude CRS); coordinates are already projected")
+        return doc, head
+    if target is None:
+        raise input_error("survey.epsg", f"EPSG:{epsg} is geographic (lat/lon): state the "
+                          "projected CRS to work in as survey.projected_epsg (e.g. a UTM zone)")
+    check_projected(target, "survey.projected_epsg")
+    doc = copy.deepcopy(doc)
+    head = doc["survey"]
+    tx = doc.get("transmitter", {})
+    if isinstance(tx, dict) and isinstance(tx.get("points"), list):
+        tx["points"] = project_to(tx["points"], epsg, target, "transmitter.points").tolist()
+    for i, st in enumerate(doc.get("station", [])):
+        if not isinstance(st, dict):
+            continue
+        if st.get("epsg", epsg) != epsg:
+            raise input_error(f"station[{i}].epsg", "differs from the geographic survey.epsg")
+        st.pop("epsg", None)
+        if "x" in st and "y" in st:
+            (st["x"], st["y"]), = project_to([[st["x"], st["y"]]], epsg, target,
+                                             f"station[{i}].x")
+        for j, rx in enumerate(st.get("receiver", [])):
+            if isinstance(rx, dict) and isinstance(rx.get("dipole"), list):
+                rx["dipole"] = project_to(rx["dipole"], epsg, target,
+                                          f"station[{i}].receiver[{j}].dipole").tolist()
+    head["epsg"] = int(target)
+    del head["projected_epsg"]
+    return doc, head
+
+
 def survey_from_dict(doc: dict, base_dir=".") -> Survey:
     """Build a :class:`Survey` from the parsed TOML document."""
     extra = set(doc) - _TOP_KEYS
@@ -390,7 +435,8 @@ def survey_from_dict(doc: dict, base_dir=".") -> Survey:
                           f"{', '.join(sorted(_TOP_KEYS))}")
     head = doc.get("survey", {})
     _check_keys(head, {"name", "mains_frequency", "epsg", "lowpass_order", "lowpass_cutoff",
-                       "format_version"}, "survey")
+                       "format_version", "projected_epsg"}, "survey")
+    doc, head = _projected(doc, head)
     if int(head.get("format_version", 1)) != 1:
         raise input_error("survey.format_version", f"unsupported {head.get('format_version')}; this "
                           "tem reads version 1")

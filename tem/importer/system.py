@@ -53,7 +53,8 @@ WAVEFORM_KINDS = ("bipolar", "table", "step-off", "step-on", "impulse")
 TIME_ZEROS = ("ramp-end", "ramp-start")
 _E = ("ex", "ey")
 _COILS = ("bz", "dbxdt", "dbydt", "dbzdt")
-_TOP = {"epsg", "transmitter", "waveform", "receiver", "station", "format", "name"}
+_TOP = {"epsg", "projected_epsg", "transmitter", "waveform", "receiver", "station", "format",
+        "name"}
 _TX = {"kind", "points", "current"}
 _WF = {"kind", "base_frequency", "duty_cycle", "ramp_on", "ramp_off", "time_zero", "times",
        "current", "half_period"}
@@ -252,11 +253,51 @@ def _station(s, i, normalised, file):
     return StationSpec(sid, x, y, z, out)
 
 
+def _projected(d, file):
+    """Geographic input (``epsg`` of a lat/lon CRS; x = lon, y = lat) -> ``projected_epsg``."""
+    import copy
+
+    from ..io.crs import check_projected, is_geographic, project_to
+
+    epsg, target = d.get("epsg", 0), d.get("projected_epsg")
+    if not epsg or not is_geographic(epsg, "epsg", file):
+        if target is not None and target != epsg:
+            raise input_error("projected_epsg", "only for geographic input (epsg of a "
+                              "latitude/longitude CRS)", file)
+        return d
+    if target is None:
+        raise input_error("epsg", f"EPSG:{epsg} is geographic (lat/lon): state the projected "
+                          "CRS to work in as projected_epsg (e.g. a UTM zone)", file)
+    check_projected(target, "projected_epsg", file)
+    d = copy.deepcopy(d)
+    tx = d["transmitter"]
+    if isinstance(tx, dict) and isinstance(tx.get("points"), list):
+        tx["points"] = project_to(tx["points"], epsg, target, "transmitter.points", file).tolist()
+    for i, st in enumerate(d["station"] if isinstance(d["station"], list) else []):
+        if not isinstance(st, dict):
+            continue
+        if "x" in st and "y" in st:
+            (st["x"], st["y"]), = project_to([[st["x"], st["y"]]], epsg, target,
+                                             f"station[{i}].x", file)
+        for comp in _E + _COILS:
+            c = st.get(comp)
+            if isinstance(c, dict) and isinstance(c.get("dipole"), list):
+                c["dipole"] = project_to(c["dipole"], epsg, target, f"station[{i}].{comp}.dipole",
+                                         file).tolist()
+            if isinstance(c, dict) and isinstance(c.get("position"), list):
+                c["position"] = project_to([c["position"]], epsg, target,
+                                           f"station[{i}].{comp}.position", file)[0].tolist()
+    d["epsg"] = int(target)
+    del d["projected_epsg"]
+    return d
+
+
 def read_system(path) -> System:
     """Read and check a system TOML (module docstring); raises TemInputError."""
     path = Path(path)
     d = read_toml(path, "system")
     _table(d, "", _TOP, path, ("transmitter", "waveform", "station"))
+    d = _projected(d, path)
     tx = _table(d["transmitter"], "transmitter", _TX, path, ("kind", "points", "current"))
     kind = tx["kind"]
     if kind not in ("wire", "loop"):
