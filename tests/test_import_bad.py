@@ -6,6 +6,7 @@ and the field. Common practice, no source.
 """
 from __future__ import annotations
 
+import numpy as np
 import pytest
 
 from tem.cli import main
@@ -192,3 +193,29 @@ def test_ramp_start_clock_shifts_the_gates(tmp_path, capsys):
     assert rc == 0, err
     ds = xr.load_dataset(tmp_path / "out" / "gated" / "EM01.nc", engine="h5netcdf")
     assert ds["gate_open"].values.tolist() == pytest.approx([0.5e-3, 1.5e-3])
+
+
+def test_a_measured_table_sets_the_time_zero_and_the_filter_is_kept(tmp_path, capsys):
+    """A table on the data's clock ending at 0.5 ms: gates move by -0.5 ms, the table ends at 0."""
+    import xarray as xr
+
+    from tem.forward import Simulation
+    from tem.forward.waveform import Waveform
+
+    toml = _toml('kind = "bipolar"\nbase_frequency = 0.25\nduty_cycle = 0.5\nramp_on = 1e-3\n'
+                 'ramp_off = 5e-4',
+                 'kind = "table"\ntimes = [-1.9995, -1.9985, -0.0005, 0.0004, 0.0005]\n'
+                 'current = [0.0, 38.0, 40.0, 4.0, 0.0]\nhalf_period = 2.0')
+    toml = toml.replace("[[station]]", "[receiver]\nlowpass_order = 2\nlowpass_cutoff = 2e4\n\n"
+                        "[[station]]", 1)
+    rc, err = _run(tmp_path, GOOD_CSV, toml, capsys)
+    assert rc == 0, err
+    ds = xr.load_dataset(tmp_path / "out" / "gated" / "EM01.nc", engine="h5netcdf")
+    assert ds["gate_open"].values.tolist() == pytest.approx([0.5e-3, 1.5e-3])
+    assert ds.attrs["waveform_times"][-1] == 0.0
+    assert ds.attrs["waveform_current"].max() == 1.0                 # normalised to the peak
+    sim = Simulation.from_sounding(ds)
+    assert sim.lowpass == (2, 2e4) and sim.response == "waveform"
+    assert isinstance(sim.waveform, Waveform) and sim.waveform.half_period == 2.0
+    np.testing.assert_allclose(sim.waveform.times, [-2.0, -1.999, -0.0010, -0.0001, 0.0],
+                               atol=1e-12)
