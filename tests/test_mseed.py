@@ -94,6 +94,33 @@ def test_a_wrong_channel_is_one_line_through_the_stack_command(two_days, tmp_pat
     rc = main(["stack", str(root / "mseed" / "wrong.toml"), "--out", str(tmp_path / "o"),
                "--jobs", "1", "--no-progress", "--no-figures"])
     err = capsys.readouterr().err
-    assert rc in (1, 2)
+    assert rc == 1                       # the station fails, the stage reports it
     assert "dbzdt.mseed: channel: no channel 'HHZ' in the records; found XX.EM05..HFZ" in err
     assert "Traceback" not in err
+    lines = [ln for ln in err.splitlines() if "HHZ" in ln]
+    assert len(lines) == 1, err
+
+
+def test_several_channels_need_a_name_and_the_calibration_is_required(tmp_path):
+    from obspy import Stream, read
+
+    from tem.errors import TemInputError
+    from tem.io.raw import open_recording
+
+    a, b = tmp_path / "a.mseed", tmp_path / "b.mseed"
+    _write(a, [(0.0, 1000)], cha="HFZ")
+    _write(b, [(0.0, 1000)], cha="HQX")
+    both = tmp_path / "both.mseed"
+    Stream(list(read(str(a))) + list(read(str(b)))).write(str(both), format="MSEED")
+    both.with_suffix(".toml").write_text("volts_per_count = 1e-6\n")
+    with pytest.raises(TemInputError, match=r"both.mseed: channel: the file holds "
+                                            r"XX.EM05..HFZ, XX.EM05..HQX; name one"):
+        open_recording(both)
+    rec = open_recording(both, channel="HQX")
+    np.testing.assert_array_equal(rec.counts(10, 20), np.arange(10, 20))
+    a.with_suffix(".toml").write_text("sample_rate = 1000.0\nvolts_per_count = 1e-6\n")
+    with pytest.raises(TemInputError, match=r"a.toml: sample_rate: unknown key"):
+        open_recording(a)
+    a.with_suffix(".toml").unlink()
+    with pytest.raises(TemInputError, match=r"a.mseed: sidecar: missing a.toml"):
+        open_recording(a)
