@@ -57,6 +57,14 @@ def test_mseed_reads_in_chunks_like_npy(two_days):
     assert ms.header.start_time == npy.header.start_time
     for a, b in ((0, 10), (4093, 9001), (23990, 24000)):
         np.testing.assert_array_equal(ms.read(a, b), npy.read(a, b))
+    # chunks read only their own records (a record index of the fixed-length headers)
+    from tem.io.mseed import _read_records, _record_index
+
+    path = root / "mseed" / "raw" / "EM05" / "dbzdt.mseed"
+    ix = _record_index(path, "XX.EM05..HFZ", 24000)
+    assert ix is not None and ix[1] == 4096
+    part = _read_records(path, ix, 5000, 5010)
+    assert len(part) == 1 and part[0].stats.npts < 24000 / 4
 
 
 def _write(path, pieces, fs=1000.0, cha="HFZ"):
