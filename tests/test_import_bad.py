@@ -219,3 +219,21 @@ def test_a_measured_table_sets_the_time_zero_and_the_filter_is_kept(tmp_path, ca
     assert isinstance(sim.waveform, Waveform) and sim.waveform.half_period == 2.0
     np.testing.assert_allclose(sim.waveform.times, [-2.0, -1.999, -0.0010, -0.0001, 0.0],
                                atol=1e-12)
+
+
+def test_decays_refuses_soundings_of_two_set_ups(tmp_path, capsys):
+    import xarray as xr
+
+    rc, err = _run(tmp_path, GOOD_CSV, GOOD_TOML, capsys)
+    assert rc == 0, err
+    g = tmp_path / "out" / "gated"
+    other = xr.load_dataset(g / "EM01.nc", engine="h5netcdf")
+    other.attrs["station"] = "EM02"
+    other.attrs["tx_current"] = 20.0
+    other.to_netcdf(g / "EM02.nc", engine="h5netcdf")
+    rc = main(["decays", str(g), "--csv", str(tmp_path / "x.csv"), "--system",
+               str(tmp_path / "x.toml")])
+    err = capsys.readouterr().err.strip()
+    assert rc == 2 and len(err.splitlines()) == 1
+    assert "EM02.nc: transmitter: differs from the first sounding's" in err
+    assert not (tmp_path / "x.csv").exists()
