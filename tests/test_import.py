@@ -154,15 +154,14 @@ def test_receiver_volts_are_normalised_like_the_stated_values(tmp_path):
     t = np.geomspace(1e-5, 1e-3, 8)
     d = -np.geomspace(1e-4, 1e-8, 8)
     _write_point_csv(tmp_path / "n.csv", t, d, 0.05)
-    # 2 A, coil 50 m^2, gain 10: volts = value * 2 * 50 * 10, written in uV
+    # 2 A, coil 50 m^2, gain 10: volts = value * 2 * 50 * 10 (docs/survey.md, "Normalisation"),
+    # written in uV
     _write_point_csv(tmp_path / "v.csv", t, d, 0.05, unit="uV", scale=2 * 50 * 10 * 1e6)
     (tmp_path / "n.toml").write_text(SYSTEM)
-    (tmp_path / "v.toml").write_text(SYSTEM.replace("current = 1.0", "current = 2.0")
-                                     .replace("coil_area = 1.0", "coil_area = 50.0\ngain = 10.0")
-                                     .replace("[receiver]", "") + "\n")
-    txt = (tmp_path / "v.toml").read_text().replace("[waveform]", "[receiver]\nnormalised = false\n"
-                                                    "\n[waveform]")
-    (tmp_path / "v.toml").write_text(txt)
+    volts = (SYSTEM.replace("current = 1.0", "current = 2.0")
+             .replace("coil_area = 1.0", "coil_area = 50.0\ngain = 10.0")
+             .replace("[waveform]", "[receiver]\nnormalised = false\n\n[waveform]"))
+    (tmp_path / "v.toml").write_text(volts)
     a = read_inputs(tmp_path / "n.csv", tmp_path / "n.toml", ImportSettings())["S1"]
     b = read_inputs(tmp_path / "v.csv", tmp_path / "v.toml", ImportSettings())["S1"]
     np.testing.assert_allclose(b["value"].values, a["value"].values, rtol=1e-12)
