@@ -241,6 +241,9 @@ class Receiver:
         Recording format name; ``None`` sniffs from the file.
     column : int
         Column index for the text format.
+    channel : str or None
+        MiniSEED channel of this component: a SEED channel code (``HHZ``) or
+        a full id ``NET.STA.LOC.CHA``; needed when a file holds several.
     """
 
     component: str
@@ -251,8 +254,13 @@ class Receiver:
     coil_area: float | None = None
     format: str | None = None
     column: int = 0
+    channel: str | None = None
 
     def __post_init__(self):
+        if self.channel is not None and (not isinstance(self.channel, str) or not self.channel
+                                         or len(self.channel) > 40):
+            raise input_error("receiver.channel", f"expected a SEED channel code or id, got "
+                              f"{self.channel!r}")
         if not isinstance(self.component, str) or self.component not in COMPONENTS:
             raise input_error("receiver.component",
                               f"unknown {_show(self.component)}; valid: {', '.join(COMPONENTS)}")
@@ -402,7 +410,8 @@ class Survey:
 # ---------------------------------------------------------------------------- TOML in/out
 _TX_KEYS = {"kind", "points", "current", "base_frequency", "duty_cycle", "ramp_on", "ramp_off",
             "first_switch_off", "timing"}
-_RX_KEYS = {"component", "files", "sample_rate", "gain", "dipole", "coil_area", "format", "column"}
+_RX_KEYS = {"component", "files", "sample_rate", "gain", "dipole", "coil_area", "format", "column",
+            "channel"}
 _ST_KEYS = {"id", "x", "y", "z", "epsg", "receiver"}
 # Top-level tables; [processing] is read by the pipeline (tem.pipeline.params).
 _TOP_KEYS = {"survey", "transmitter", "station", "processing"}
@@ -414,6 +423,51 @@ def _check_keys(table, allowed, where):
     if extra:
         raise input_error(f"{where}.{checks.show(sorted(extra)[0])}",
                           f"unknown key; valid: {', '.join(sorted(allowed))}")
+
+
+def _projected(doc, head):
+    """Geographic input (``survey.epsg`` of a lat/lon CRS) projected to ``survey.projected_epsg``.
+
+    x is longitude and y latitude (degrees) of the stations, the transmitter
+    points and the dipole electrodes; they become metres of the stated
+    projected CRS (a UTM zone), which is the survey's ``epsg`` from then on.
+    """
+    import copy
+
+    from .io.crs import check_projected, is_geographic, project_to
+
+    epsg = head.get("epsg", 0)
+    target = head.get("projected_epsg")
+    if not epsg or not is_geographic(epsg, "survey.epsg"):
+        if target is not None and target != epsg:
+            raise input_error("survey.projected_epsg", "only for geographic input (survey.epsg "
+                              "of a latitude/longitude CRS); coordinates are already projected")
+        return doc, head
+    if target is None:
+        raise input_error("survey.epsg", f"EPSG:{epsg} is geographic (lat/lon): state the "
+                          "projected CRS to work in as survey.projected_epsg (e.g. a UTM zone)")
+    check_projected(target, "survey.projected_epsg")
+    doc = copy.deepcopy(doc)
+    head = doc["survey"]
+    tx = doc.get("transmitter", {})
+    if isinstance(tx, dict) and isinstance(tx.get("points"), list):
+        tx["points"] = project_to(tx["points"], epsg, target, "transmitter.points").tolist()
+    for i, st in enumerate(doc.get("station", [])):
+        if not isinstance(st, dict):
+            continue
+        if st.get("epsg", epsg) != epsg:
+            raise input_error(f"station[{i}].epsg", "differs from the geographic survey.epsg")
+        st.pop("epsg", None)
+        if "x" in st and "y" in st:
+            (st["x"], st["y"]), = project_to([[st["x"], st["y"]]], epsg, target,
+                                             f"station[{i}].x")
+        for j, rx in enumerate(st.get("receiver", [])):
+            if isinstance(rx, dict) and isinstance(rx.get("dipole"), list):
+                rx["dipole"] = project_to(rx["dipole"], epsg, target,
+                                          f"station[{i}].receiver[{j}].dipole").tolist()
+    head["epsg"] = int(target)
+    del head["projected_epsg"]
+    return doc, head
 
 
 def survey_from_dict(doc: dict, base_dir=".") -> Survey:
@@ -428,7 +482,8 @@ def survey_from_dict(doc: dict, base_dir=".") -> Survey:
                           f"{', '.join(sorted(_TOP_KEYS))}")
     head = doc.get("survey", {})
     _check_keys(head, {"name", "mains_frequency", "epsg", "lowpass_order", "lowpass_cutoff",
-                       "format_version"}, "survey")
+                       "format_version", "projected_epsg"}, "survey")
+    doc, head = _projected(doc, head)
     version = checks.integer(head.get("format_version", 1), "survey.format_version")
     if version != 1:
         raise input_error("survey.format_version", f"unsupported {checks.show(version)}; this tem reads "
@@ -464,7 +519,8 @@ def survey_from_dict(doc: dict, base_dir=".") -> Survey:
                 rxs.append(Receiver(component=rx["component"], files=rx["files"],
                                     sample_rate=rx["sample_rate"], gain=rx.get("gain", 1.0),
                                     dipole=rx.get("dipole"), coil_area=rx.get("coil_area"),
-                                    format=rx.get("format"), column=rx.get("column", 0)))
+                                    format=rx.get("format"), column=rx.get("column", 0),
+                                    channel=rx.get("channel")))
             except TemInputError as exc:
                 raise input_error(where, str(exc)) from None
         try:
@@ -520,6 +576,8 @@ def survey_to_dict(survey: Survey) -> dict:
                 r["format"] = rx.format
             if rx.column:
                 r["column"] = rx.column
+            if rx.channel:
+                r["channel"] = rx.channel
             s["receiver"].append(r)
         doc["station"].append(s)
     return doc

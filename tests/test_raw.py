@@ -27,8 +27,8 @@ def test_text_reader_and_registry(tmp_path):
     write_text_recording(tmp_path / "r.txt", cols, HDR)
     rec = open_recording(tmp_path / "r.txt", column=1)
     np.testing.assert_allclose(rec.read(0, 50), -np.arange(50.0) * 1e-6)
-    assert set(FORMATS) == {"npy", "text"}
-    with pytest.raises(TemInputError, match="format: unknown 'seg2'; valid: npy, text"):
+    assert set(FORMATS) == {"npy", "mseed", "text"}
+    with pytest.raises(TemInputError, match="format: unknown 'seg2'; valid: npy, mseed, text"):
         open_recording(tmp_path / "r.txt", format="seg2")
 
 

@@ -9,6 +9,11 @@ Formats (``docs/recordings.md``):
     (ISO-8601 UTC). Samples are memory-mapped and read one chunk at a time;
     each chunk maps only its own byte range, so a day never has to fit in
     memory (and never stays resident).
+``mseed``
+    MiniSEED (FDSN) through ObsPy (tem.io.mseed): sample rate and start time
+    from the records, the channel chosen by the survey's ``channel``, gaps and
+    overlaps refused; ``volts_per_count`` (and ``full_scale``) in a sidecar
+    TOML of the same stem.
 ``text``
     Plain text: ``# key = value`` header lines (same keys as the sidecar),
     then whitespace- or comma-separated numeric columns, one row per sample.
@@ -35,7 +40,8 @@ from .atomic import atomic_path
 from .tomlfile import read_toml
 
 __all__ = ["RawHeader", "Recording", "MultiRecording", "FORMATS", "open_recording",
-           "open_receiver", "write_npy_recording", "write_text_recording", "sidecar_path"]
+           "open_receiver", "write_npy_recording", "write_text_recording",
+           "write_mseed_recording", "sidecar_path"]
 
 SIDECAR_VERSION = 1
 
@@ -190,7 +196,7 @@ def _npy_sniff(path) -> bool:
         return False
 
 
-def _npy_open(path, column: int = 0) -> Recording:
+def _npy_open(path, column: int = 0, channel=None) -> Recording:
     path = Path(path)
     header = _read_sidecar(path)
     try:
@@ -251,7 +257,7 @@ def _text_sniff(path) -> bool:
     return Path(path).suffix.lower() in (".txt", ".csv", ".dat", ".asc")
 
 
-def _text_open(path, column: int = 0) -> Recording:
+def _text_open(path, column: int = 0, channel=None) -> Recording:
     path = Path(path)
     meta = {}
     rows_start = 0
@@ -307,32 +313,54 @@ class Format:
     suffixes: tuple = field(default=())
 
 
+def _mseed_sniff(path) -> bool:
+    from .mseed import mseed_sniff
+    return mseed_sniff(path)
+
+
+def _mseed_open(path, column: int = 0, channel=None) -> Recording:
+    from .mseed import mseed_open
+    return mseed_open(path, channel)
+
+
+def write_mseed_recording(path, counts, header: RawHeader, channel=None) -> Path:
+    """Write counts as MiniSEED (Steim-2 int32 or float32) plus a calibration sidecar."""
+    from .mseed import mseed_write
+    return mseed_write(path, counts, header, channel)
+
+
 FORMATS = {
     "npy": Format("npy", _npy_sniff, _npy_open, write_npy_recording, (".npy",)),
+    "mseed": Format("mseed", _mseed_sniff, _mseed_open, write_mseed_recording,
+                    (".mseed", ".miniseed", ".ms")),
     "text": Format("text", _text_sniff, _text_open, write_text_recording,
                    (".txt", ".csv", ".dat", ".asc")),
 }
 
 
-def open_recording(path, format: str | None = None, column: int = 0) -> Recording:
-    """Open one recording; ``format`` wins, else sniff (npy magic, then suffix)."""
+def open_recording(path, format: str | None = None, column: int = 0,
+                   channel: str | None = None) -> Recording:
+    """Open one recording; ``format`` wins, else sniff (npy magic, MiniSEED suffix, text).
+
+    ``channel`` selects a MiniSEED channel (code or NET.STA.LOC.CHA id).
+    """
     path = Path(path)
     if format is not None:
         if format not in FORMATS:
             raise input_error("format", f"unknown {format!r}; valid: {', '.join(FORMATS)}", path)
-        return FORMATS[format].open(path, column)
+        return FORMATS[format].open(path, column, channel)
     if not path.exists():
         raise input_error("file", "not found", path)
     for fmt in FORMATS.values():
         if fmt.sniff(path):
-            return fmt.open(path, column)
+            return fmt.open(path, column, channel)
     raise input_error("format", f"cannot tell the format; valid: {', '.join(FORMATS)}", path)
 
 
 def open_receiver(receiver, survey) -> Recording:
     """Open the recording(s) of a survey receiver and check them against it."""
-    parts = [open_recording(survey.path(f), receiver.format, receiver.column)
-             for f in receiver.files]
+    parts = [open_recording(survey.path(f), receiver.format, receiver.column,
+                            getattr(receiver, "channel", None)) for f in receiver.files]
     if not parts:
         raise input_error("receiver.files", f"{receiver.component}: no recording listed")
     for p in parts:

@@ -9,7 +9,12 @@ asymmetry, mains, offset and drift; docs/qc.md).
 plus per-channel noise measures (docs/qc.md).
 
 Version 1.1 (both) adds variables to 1.0; 1.0 files still read (missing
-measures read as absent, errors as uncorrelated batches).
+measures read as absent, errors as uncorrelated batches). Gated version 1.2
+adds the optional attributes ``response`` (waveform, step-off, step-on,
+impulse), ``sampling`` (window, point) and a piecewise-linear waveform table
+(``waveform_times``, ``waveform_current``, ``waveform_half_period``); a file
+without them reads as before (waveform response, window averages, bipolar
+wave from ``base_frequency``).
 """
 from __future__ import annotations
 
@@ -25,7 +30,7 @@ from ..provenance import records_from_json, records_to_json
 from .netcdf import write_netcdf
 
 __all__ = ["stacked_dataset", "write_dataset", "read_product", "check_dataset", "gated_dataset",
-           "COUNT_FIELDS", "CHECK_FIELDS"]
+           "COUNT_FIELDS", "CHECK_FIELDS", "GATED_VERSION"]
 
 COUNT_FIELDS = ("transients_total", "transients_used", "rejected_noisy", "rejected_bad_samples",
                 "samples_clipped", "samples_outlier", "clipped_high", "clipped_low",
@@ -42,6 +47,8 @@ CHECK_FIELDS = (("offset", "V", "median baseline at the logger"),
                 ("duration", "s", "record length stacked"),
                 ("full_scale", "V", "digitiser full scale at the logger"))
 _VERSION = "1.1"
+#: Version of the gated files written (1.2: response, sampling, waveform table; docs/data-model.md)
+GATED_VERSION = "1.2"
 _MAJOR = "1"
 
 
@@ -154,7 +161,8 @@ def gated_dataset(stacked: xr.Dataset, table, value, error, usable, noise_floor,
             "tx_points", "tx_current", "base_frequency", "duty_cycle", "ramp_on", "ramp_off",
             "lowpass_order", "lowpass_cutoff", "mains_frequency")
     attrs = {k: stacked.attrs[k] for k in keep if k in stacked.attrs}
-    attrs.update(gate_shape=table.shape, tem_format="gated", format_version=_VERSION,
+    attrs.update(gate_shape=table.shape, tem_format="gated", format_version=GATED_VERSION,
+                 response="waveform", sampling="window",
                  tem_version=__version__, provenance=records_to_json(provenance))
     ch = {k: stacked[k] for k in ("component", "rx_x0", "rx_y0", "rx_x1", "rx_y1", "coil_area",
                                   "dead") if k in stacked}
