@@ -55,15 +55,19 @@ def native(tmp_path_factory):
     (day / "survey.toml").write_text(tomli_w.dumps(survey_to_dict(sv)))
     synth_survey(sv, models, day, seed=3, duration=24.0)
     a = root / "A"
+    codes = []
     for cmd in (["stack", str(day / "survey.toml")], ["gate", str(a / "stacked")],
                 ["invert", str(a / "gated"), "--layers", "12", "--max-iter", "4"]):
-        assert main(cmd[:2] + ["--out", str(a), "--jobs", "1", "--no-progress", "--no-figures"]
-                    + cmd[2:]) == 0
-    return root, a
+        codes.append(main(cmd[:2] + ["--out", str(a), "--jobs", "1", "--no-progress",
+                                     "--no-figures"] + cmd[2:]))
+    # four Occam iterations keep the test quick; a model they leave unfitted is reported
+    # as such (exit 1, verdict stalled or misfit), the same in both chains
+    assert codes[:2] == [0, 0] and codes[2] in (0, 1)
+    return root, a, codes[2]
 
 
 def test_round_trip_gives_the_same_models(native):
-    root, a = native
+    root, a, invert_code = native
     csv, toml = root / "decays.csv", root / "system.toml"
     assert main(["decays", str(a / "gated"), "--csv", str(csv), "--system", str(toml)]) == 0
     b = root / "B"
@@ -78,12 +82,13 @@ def test_round_trip_gives_the_same_models(native):
         prov = g1.attrs["provenance"]
         assert '"stage": "import"' in prov and "sha256" in prov
     assert main(["invert", str(b / "gated"), "--out", str(b), "--jobs", "1", "--no-progress",
-                 "--no-figures", "--layers", "12", "--max-iter", "4"]) == 0
+                 "--no-figures", "--layers", "12", "--max-iter", "4"]) == invert_code
     m0 = xr.load_dataset(a / "models" / "models.nc", engine="h5netcdf")
     m1 = xr.load_dataset(b / "models" / "models.nc", engine="h5netcdf")
     # same data, same forward problem: the same models to rounding (common practice, no source)
     for k in ("resistivity", "chi2", "doi"):
         np.testing.assert_allclose(m1[k].values, m0[k].values, rtol=1e-9, err_msg=k)
+    np.testing.assert_array_equal(m1["verdict_code"].values, m0["verdict_code"].values)
     # every later stage runs on the imported soundings
     for cmd in (["rhoa", str(b / "gated")], ["section", str(b / "models" / "models.nc")],
                 ["export", str(b)], ["report", str(b)]):

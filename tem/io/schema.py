@@ -46,8 +46,13 @@ def _attrs(ds, file):
         raise input_error("tx_points", "expected x0, y0, x1, y1, ... (m)", file)
     checks.finite_array(pts, "tx_points", file, maximum=L["coordinate"])
     checks.attr_number(ds, "tx_current", file, positive=True, maximum=L["current"])
-    checks.attr_number(ds, "base_frequency", file, minimum=1e-3, maximum=L["frequency"])
-    checks.attr_number(ds, "duty_cycle", file, required=False, positive=True, maximum=1.0)
+    # step-off, step-on and impulse soundings (gated format 1.2, tem import) have no
+    # repetition: base_frequency 0; a waveform response needs a positive one
+    stepped = a.get("response", "waveform") in ("step-off", "step-on", "impulse")
+    checks.attr_number(ds, "base_frequency", file, minimum=0.0 if stepped else 1e-3,
+                       maximum=L["frequency"])
+    checks.attr_number(ds, "duty_cycle", file, required=False, positive=not stepped,
+                       minimum=0.0, maximum=1.0)
     for name in ("ramp_on", "ramp_off"):
         checks.attr_number(ds, name, file, required=False, minimum=0.0, maximum=L["time"])
     checks.attr_number(ds, "mains_frequency", file, required=False, positive=True,
@@ -142,7 +147,10 @@ def _gated(ds, file):
     lo = checks.variable(ds, "gate_open", g, file, positive=True, maximum=L["time"])
     hi = checks.variable(ds, "gate_close", g, file, positive=True, maximum=L["time"])
     mid = checks.variable(ds, "gate_centre", g, file, positive=True, maximum=L["time"])
-    if lo.size == 0 or np.any(hi <= lo) or np.any(mid < lo) or np.any(mid > hi):
+    if ds.attrs.get("sampling", "window") == "point":      # point samples: open = centre = close
+        if lo.size == 0 or np.any(hi < lo) or np.any(mid < lo) or np.any(mid > hi):
+            raise input_error("gate_close", "every point sample needs open <= centre <= close", file)
+    elif lo.size == 0 or np.any(hi <= lo) or np.any(mid < lo) or np.any(mid > hi):
         raise input_error("gate_close", "every gate needs open < centre < close", file)
     _channels(ds, file, required_dead=False)
     cg = ("channel", "gate")
