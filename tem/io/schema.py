@@ -99,7 +99,9 @@ def _stacked(ds, file):
     from .stacked import CHECK_FIELDS, COUNT_FIELDS
 
     t = _times(ds, "time", file)
-    if t[0] < -L["time"] or t[-1] <= 0:
+    if t.size < 16:
+        raise input_error("time", f"{t.size} samples; a stacked transient has 16 or more", file)
+    if t[-1] <= 0:
         raise input_error("time", "no sample after switch-off", file)
     _times(ds, "excerpt_time", file)
     _channels(ds, file)
