@@ -72,7 +72,7 @@ def main():
     M = h.size + 1
     R = roughness_matrix(M)
     m0 = np.full(M, np.log(rho_hs))
-    settings = dict(target=1.0, max_iter=20)
+    settings = dict(target=1.0, max_iter=20, misfit_drop=0.3)
 
     def tem_fwd(m):
         d, J = sim.jacobian(LayeredModel(h, np.exp(m)))

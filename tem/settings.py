@@ -567,6 +567,7 @@ def markdown(tables) -> str:
 
 if __name__ == "__main__":  # pragma: no cover - writes the reference page
     from .forward.settings import FORWARD
+    from .importer.settings import IMPORT
     from .pipeline.settings import TABLES
 
-    sys.stdout.write(markdown(list(TABLES.values()) + [FORWARD]))
+    sys.stdout.write(markdown(list(TABLES.values()) + [FORWARD, IMPORT]))

@@ -5,7 +5,7 @@ import pytest
 from tem.errors import TemInputError
 from tem.io.raw import (FORMATS, RawHeader, open_receiver, open_recording, write_npy_recording,
                         write_text_recording)
-from tem.survey import Receiver, Station, Survey, replace
+from tem.survey import Receiver, replace
 from tem.synth import emberline_survey
 
 HDR = RawHeader(sample_rate=1000.0, volts_per_count=1e-6, start_time="2025-06-02T08:00:00Z",
@@ -27,8 +27,8 @@ def test_text_reader_and_registry(tmp_path):
     write_text_recording(tmp_path / "r.txt", cols, HDR)
     rec = open_recording(tmp_path / "r.txt", column=1)
     np.testing.assert_allclose(rec.read(0, 50), -np.arange(50.0) * 1e-6)
-    assert set(FORMATS) == {"npy", "text"}
-    with pytest.raises(TemInputError, match="format: unknown 'seg2'; valid: npy, text"):
+    assert set(FORMATS) == {"npy", "mseed", "text"}
+    with pytest.raises(TemInputError, match="format: unknown 'seg2'; valid: npy, mseed, text"):
         open_recording(tmp_path / "r.txt", format="seg2")
 
 

@@ -9,7 +9,6 @@ subprocess, killed with SIGKILL at a stage, then rerun.
 from __future__ import annotations
 
 import json
-import os
 import signal
 import subprocess
 import sys
@@ -35,6 +34,10 @@ all_time = false
 [processing.invert]
 layers = 8
 max_iter = 2
+# 2 Occam iterations do not fit these data (chi2 25-100); these tests are about processes
+# and products, not fits: tolerances no model misses keep the exit status about them
+verdict_tolerance = 1e6
+verdict_stall_margin = 1e6
 
 [processing.section]
 depth_step = 50.0
@@ -115,7 +118,7 @@ def test_killed_run_resumes_to_identical_products(day, tmp_path, point):
     out, err = rerun.communicate(timeout=600)
     assert rerun.returncode == 0, err
     assert not _partials(proj)
-    assert_same_products(ref, proj)
+    assert_same_products(ref, proj, rtol=1e-9)
 
 
 def test_rerun_reuses_unchanged_products_and_redoes_edited_ones(day, tmp_path, capsys):
@@ -146,7 +149,7 @@ def test_rerun_reuses_unchanged_products_and_redoes_edited_ones(day, tmp_path, c
     assert main(["run", str(survey), "--out", str(proj), "--jobs", "1", "--no-progress"]) == 0
     out = capsys.readouterr().out
     assert "EM06: gated/EM06.nc changed since written (edited by hand?); recomputed" in out
-    assert_same_products(ref, proj)
+    assert_same_products(ref, proj, rtol=1e-9)
 
 
 def test_second_run_into_the_same_project_is_refused(day, tmp_path, capsys):
@@ -195,4 +198,4 @@ def test_local_cluster_gives_the_same_products(day, tmp_path):
                  "--no-progress"]) == 0
     state = json.loads((proj / "run.json").read_text())
     assert state["last_run"]["scheduler"] == "local"
-    assert_same_products(ref, proj)
+    assert_same_products(ref, proj, rtol=1e-9)

@@ -30,6 +30,10 @@ all_time = true              # all-time apparent resistivity (forward model)
 layers = 30                  # smooth-model layers, half-space included
 floor = 0.03                 # relative error floor
 target = 1.0                 # target chi-square per datum
+kind = "posterior"           # four-layer models with posterior sampling (depth intervals)
+few_layers = 4
+posterior_draws = 1000       # kept draws per chain (capped so the demo stays quick)
+posterior_burn = 1000        # burn-in steps per chain
 
 [processing.section]
 trace_spacing = 100.0        # m: one section column (and SEG-Y trace) every 100 m
@@ -117,6 +121,7 @@ def run(args) -> int:
     lines = [("raw day and survey", survey_file),
              ("QC report", p.report),
              ("section figure", p.folder("figures") / "section.png"),
+             ("posterior section figure", p.folder("figures") / "section_posterior.png"),
              ("LAS pseudo-wells", p.folder("exports") / "las"),
              ("SEG-Y depth section", p.folder("exports") / "section_depth.sgy"),
              ("SEG-Y two-way-time section", p.folder("exports") / "section_twt.sgy"),

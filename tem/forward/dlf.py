@@ -16,6 +16,8 @@ import libdlf
 import numpy as np
 from scipy.interpolate import CubicSpline, make_interp_spline
 
+from ..errors import TemInputError
+
 __all__ = ["HANKEL_FILTERS", "FOURIER_FILTERS", "hankel_filter", "fourier_filter",
            "lagged_grid", "lagged_matrix", "spline_matrix", "spline_weighted_sum"]
 
@@ -29,7 +31,7 @@ FOURIER_FILTERS = ("wer_101_2020b", "wer_101_2020a", "key_81_2009", "key_101_201
 def hankel_filter(name: str):
     """(base, j0, j1) of a libdlf Hankel filter."""
     if name not in HANKEL_FILTERS:
-        raise ValueError(f"hankel_filter: unknown filter {name!r}; valid: {', '.join(HANKEL_FILTERS)}")
+        raise TemInputError(f"hankel_filter: unknown filter {name!r}; valid: {', '.join(HANKEL_FILTERS)}")
     base, j0, j1 = getattr(libdlf.hankel, name)()
     return np.array(base), np.array(j0), np.array(j1)
 
@@ -38,7 +40,7 @@ def hankel_filter(name: str):
 def fourier_filter(name: str):
     """(base, sin, cos) of a libdlf Fourier filter."""
     if name not in FOURIER_FILTERS:
-        raise ValueError(f"fourier_filter: unknown filter {name!r}; valid: {', '.join(FOURIER_FILTERS)}")
+        raise TemInputError(f"fourier_filter: unknown filter {name!r}; valid: {', '.join(FOURIER_FILTERS)}")
     base, fsin, fcos = getattr(libdlf.fourier, name)()
     return np.array(base), np.array(fsin), np.array(fcos)
 

@@ -8,6 +8,8 @@ from __future__ import annotations
 
 import numpy as np
 
+from ..errors import TemInputError
+
 __all__ = ["SHAPES", "weights", "check_shape"]
 
 SHAPES = ("boxcar", "taper")
@@ -15,7 +17,7 @@ SHAPES = ("boxcar", "taper")
 
 def check_shape(shape: str) -> str:
     if shape not in SHAPES:
-        raise ValueError(f"gate_shape: unknown window {shape!r}; valid: {', '.join(SHAPES)}")
+        raise TemInputError(f"gate_shape: unknown window {shape!r}; valid: {', '.join(SHAPES)}")
     return shape
 
 

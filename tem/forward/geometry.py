@@ -11,6 +11,8 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
+from ..errors import TemInputError
+
 __all__ = ["Wire", "PolygonLoop", "CircularLoop", "Receiver", "COMPONENTS",
            "E_COMPONENTS", "B_COMPONENTS", "DBDT_COMPONENTS"]
 
@@ -23,7 +25,7 @@ COMPONENTS = E_COMPONENTS + B_COMPONENTS + DBDT_COMPONENTS
 def _point(p, name):
     a = np.asarray(p, dtype=float).ravel()
     if a.size != 2 or not np.all(np.isfinite(a)):
-        raise ValueError(f"{name}: expected a finite (x, y) pair in metres, got {p!r}")
+        raise TemInputError(f"{name}: expected a finite (x, y) pair in metres, got {p!r}")
     return a
 
 
@@ -76,7 +78,7 @@ class Wire:
         via = np.array([_point(p, "transmitter.via") for p in self.via]).reshape(-1, 2)
         pts = np.vstack([a, via, b])
         if np.any(np.hypot(*np.diff(pts, axis=0).T) <= 0):
-            raise ValueError("transmitter: consecutive wire points coincide")
+            raise TemInputError("transmitter: consecutive wire points coincide")
         object.__setattr__(self, "a", a)
         object.__setattr__(self, "b", b)
         object.__setattr__(self, "via", via)
@@ -112,7 +114,7 @@ class PolygonLoop:
     def __post_init__(self):
         v = np.asarray(self.vertices, dtype=float)
         if v.ndim != 2 or v.shape[1] != 2 or v.shape[0] < 3 or not np.all(np.isfinite(v)):
-            raise ValueError("transmitter.vertices: need at least three finite (x, y) vertices")
+            raise TemInputError("transmitter.vertices: need at least three finite (x, y) vertices")
         object.__setattr__(self, "vertices", v)
 
     @property
@@ -148,7 +150,7 @@ class CircularLoop:
         c = _point(self.centre, "transmitter.centre")
         r = float(self.radius)
         if not np.isfinite(r) or r <= 0:
-            raise ValueError("transmitter.radius: must be positive and finite (m)")
+            raise TemInputError("transmitter.radius: must be positive and finite (m)")
         object.__setattr__(self, "centre", c)
         object.__setattr__(self, "radius", r)
 
@@ -207,15 +209,15 @@ class Receiver:
     def __post_init__(self):
         c = str(self.component).lower()
         if c not in COMPONENTS:
-            raise ValueError(f"component: unknown receiver component {self.component!r}; "
+            raise TemInputError(f"component: unknown receiver component {self.component!r}; "
                              f"valid: {', '.join(COMPONENTS)}")
         object.__setattr__(self, "component", c)
         if self.dipole is not None:
             if c not in E_COMPONENTS:
-                raise ValueError(f"dipole: only E components take dipole electrodes, not {c}")
+                raise TemInputError(f"dipole: only E components take dipole electrodes, not {c}")
             d = np.asarray(self.dipole, dtype=float)
             if d.shape != (2, 2) or not np.all(np.isfinite(d)) or np.hypot(*(d[1] - d[0])) <= 0:
-                raise ValueError("dipole: expected two distinct finite electrode positions ((x0,y0),(x1,y1))")
+                raise TemInputError("dipole: expected two distinct finite electrode positions ((x0,y0),(x1,y1))")
             object.__setattr__(self, "dipole", d)
             object.__setattr__(self, "position", d.mean(axis=0))
         else:

@@ -5,6 +5,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from ..errors import TemInputError
+
 __all__ = ["LayeredModel"]
 
 
@@ -27,13 +29,13 @@ class LayeredModel:
         thk = np.atleast_1d(np.asarray(self.thickness, dtype=float)).ravel()
         res = np.atleast_1d(np.asarray(self.resistivity, dtype=float)).ravel()
         if res.size != thk.size + 1:
-            raise ValueError(
+            raise TemInputError(
                 f"resistivity: expected {thk.size + 1} values (one per layer and the "
                 f"half-space), got {res.size}")
         if not np.all(np.isfinite(res)) or np.any(res <= 0):
-            raise ValueError("resistivity: every value must be positive and finite (ohm-m)")
+            raise TemInputError("resistivity: every value must be positive and finite (ohm-m)")
         if not np.all(np.isfinite(thk)) or np.any(thk <= 0):
-            raise ValueError("thickness: every layer thickness must be positive and finite (m)")
+            raise TemInputError("thickness: every layer thickness must be positive and finite (m)")
         thk.flags.writeable = False
         res.flags.writeable = False
         object.__setattr__(self, "thickness", thk)

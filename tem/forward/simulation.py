@@ -34,6 +34,8 @@ from .model import LayeredModel
 from .terms import log_gauss_many, receiver_terms
 from .waveform import Waveform
 
+from ..errors import TemInputError
+
 __all__ = ["Simulation", "RESPONSES"]
 
 RESPONSES = ("step-off", "step-on", "impulse", "waveform")
@@ -93,18 +95,18 @@ class Simulation:
                  waveform=None, response=None, lowpass=None, hankel="auto",
                  fourier="key_201_2012", freq_per_decade=8, n_half_periods=None, gate_nodes=6):
         if not isinstance(source, (Wire, PolygonLoop, CircularLoop)):
-            raise ValueError("source: must be a Wire, PolygonLoop or CircularLoop")
+            raise TemInputError("source: must be a Wire, PolygonLoop or CircularLoop")
         receivers = list(receivers)
         if not receivers or not all(isinstance(r, Receiver) for r in receivers):
-            raise ValueError("receivers: need at least one tem.forward.Receiver")
+            raise TemInputError("receivers: need at least one tem.forward.Receiver")
         if response is None:
             response = "waveform" if waveform is not None else "step-off"
         if response not in RESPONSES:
-            raise ValueError(f"response: unknown response {response!r}; valid: {', '.join(RESPONSES)}")
+            raise TemInputError(f"response: unknown response {response!r}; valid: {', '.join(RESPONSES)}")
         if response == "waveform" and waveform is None:
-            raise ValueError("waveform: response='waveform' needs a Waveform")
+            raise TemInputError("waveform: response='waveform' needs a Waveform")
         if waveform is not None and not isinstance(waveform, Waveform):
-            raise ValueError("waveform: must be a tem.forward.Waveform")
+            raise TemInputError("waveform: must be a tem.forward.Waveform")
         self.source, self.receivers, self.response = source, receivers, response
         self.waveform = waveform
         self.gate_shape = gatewindow.check_shape(gate_shape)
@@ -128,21 +130,21 @@ class Simulation:
     # ------------------------------------------------------------------ set-up
     def _setup_times(self, times, gates, gate_nodes, n_half_periods):
         if (times is None) == (gates is None):
-            raise ValueError("times/gates: give exactly one of point times or gate windows")
+            raise TemInputError("times/gates: give exactly one of point times or gate windows")
         if times is not None:
             t = np.atleast_1d(np.asarray(times, dtype=float))
             if t.ndim != 1 or t.size == 0 or not np.all(np.isfinite(t)) or np.any(t <= 0):
-                raise ValueError("times: must be positive and finite (s after switch-off)")
+                raise TemInputError("times: must be positive and finite (s after switch-off)")
             self.times = t
             self.gates = None
             obs_t, obs_w = t, np.eye(t.size)
         else:
             g0, g1 = (np.atleast_1d(np.asarray(g, dtype=float)) for g in gates)
             if g0.shape != g1.shape or g0.ndim != 1 or g0.size == 0:
-                raise ValueError("gates: open and close must be 1-D arrays of equal length")
+                raise TemInputError("gates: open and close must be 1-D arrays of equal length")
             if not (np.all(np.isfinite(g0)) and np.all(np.isfinite(g1))) or np.any(g0 <= 0) \
                     or np.any(g1 <= g0):
-                raise ValueError("gates: need 0 < open < close for every gate (s)")
+                raise TemInputError("gates: need 0 < open < close for every gate (s)")
             self.gates = (g0, g1)
             self.times = np.sqrt(g0 * g1)
             xg, wg = np.polynomial.legendre.leggauss(int(gate_nodes))
@@ -227,7 +229,7 @@ class Simulation:
                 d = self.source.distance_to(p) if isinstance(self.source, CircularLoop) \
                     else seg.distance_to(p)
                 if d < 1e-3 * scale:
-                    raise ValueError(f"receivers: {rx.component} receiver at "
+                    raise TemInputError(f"receivers: {rx.component} receiver at "
                                      f"({p[0]:.1f}, {p[1]:.1f}) m lies on the transmitter")
 
     def _space_operators(self, hankel):
@@ -409,7 +411,7 @@ class Simulation:
     def predict(self, model: LayeredModel) -> np.ndarray:
         """Responses (n_receivers, n_times) per ampere: E [V/m], B [T], dB/dt [T/s]."""
         if not isinstance(model, LayeredModel):
-            raise ValueError("model: must be a tem.forward.LayeredModel")
+            raise TemInputError("model: must be a tem.forward.LayeredModel")
         res, thk = model.resistivity, model.thickness
         F, _ = self._kernel(self._omega, res, thk)
         out = self._time_domain(self._spectra(res, F))
@@ -436,12 +438,12 @@ class Simulation:
         res = np.atleast_2d(np.asarray(resistivity, dtype=float))
         thk = np.asarray(thickness, dtype=float).reshape(res.shape[0], -1)
         if res.ndim != 2 or thk.shape != (res.shape[0], res.shape[1] - 1):
-            raise ValueError("resistivity/thickness: expected arrays (n_models, L) and "
+            raise TemInputError("resistivity/thickness: expected arrays (n_models, L) and "
                              "(n_models, L - 1)")
         if not np.all(np.isfinite(res)) or np.any(res <= 0):
-            raise ValueError("resistivity: every value must be positive and finite (ohm-m)")
+            raise TemInputError("resistivity: every value must be positive and finite (ohm-m)")
         if not np.all(np.isfinite(thk)) or np.any(thk <= 0):
-            raise ValueError("thickness: every layer thickness must be positive and finite (m)")
+            raise TemInputError("thickness: every layer thickness must be positive and finite (m)")
         lam, Gr, Ga, Gb, need_tm = self._kargs
         F = fused_spectra_many(lam, self._omega, res, thk, Gr, Ga, Gb, need_tm=need_tm)
         an = self._analytic
@@ -465,7 +467,7 @@ class Simulation:
             last) and, with ``thickness=True``, ln(thickness) of every layer.
         """
         if not isinstance(model, LayeredModel):
-            raise ValueError("model: must be a tem.forward.LayeredModel")
+            raise TemInputError("model: must be a tem.forward.LayeredModel")
         res, thk = model.resistivity, model.thickness
         F, dF = self._kernel(self._omega, res, thk, jac=True, jac_thk=thickness)
         dF[0] += res[0] * self._analytic[:, 0]
@@ -485,7 +487,7 @@ class Simulation:
     def dc(self, model: LayeredModel) -> np.ndarray:
         """Steady (DC) fields per receiver while 1 A flows: E [V/m] or B [T]; 0 for dB/dt."""
         if not isinstance(model, LayeredModel):
-            raise ValueError("model: must be a tem.forward.LayeredModel")
+            raise TemInputError("model: must be a tem.forward.LayeredModel")
         dc = self._dc_values(model.resistivity, model.thickness)[0]
         kinds = np.array([rx.kind for rx in self.receivers])
         return np.where(kinds == "dbdt", 0.0, dc * self._scale)
@@ -526,9 +528,9 @@ def _check_lowpass(lowpass):
     try:
         order, fc = int(lowpass[0]), float(lowpass[1])
     except (TypeError, ValueError, IndexError):
-        raise ValueError("lowpass: expected (order, cutoff_hz)") from None
+        raise TemInputError("lowpass: expected (order, cutoff_hz)") from None
     if order <= 0:
         return None
     if not np.isfinite(fc) or fc <= 0:
-        raise ValueError("lowpass: cut-off frequency must be positive (Hz)")
+        raise TemInputError("lowpass: cut-off frequency must be positive (Hz)")
     return order, fc

@@ -12,6 +12,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from ..errors import TemInputError
+
 __all__ = ["Waveform"]
 
 
@@ -36,19 +38,19 @@ class Waveform:
         t = np.asarray(self.times, dtype=float)
         c = np.asarray(self.current, dtype=float)
         if t.ndim != 1 or t.shape != c.shape or t.size < 2:
-            raise ValueError("waveform: times and current must be 1-D arrays of the same length >= 2")
+            raise TemInputError("waveform: times and current must be 1-D arrays of the same length >= 2")
         if not (np.all(np.isfinite(t)) and np.all(np.isfinite(c))):
-            raise ValueError("waveform: times and current must be finite")
+            raise TemInputError("waveform: times and current must be finite")
         if np.any(np.diff(t) <= 0):
-            raise ValueError("waveform.times: must increase strictly")
+            raise TemInputError("waveform.times: must increase strictly")
         if t[-1] != 0.0:
-            raise ValueError("waveform.times: the last time must be 0 (end of the switch-off ramp)")
+            raise TemInputError("waveform.times: the last time must be 0 (end of the switch-off ramp)")
         if c[0] != 0.0 or c[-1] != 0.0:
-            raise ValueError("waveform.current: the pulse must start and end at zero current")
+            raise TemInputError("waveform.current: the pulse must start and end at zero current")
         if self.half_period is not None:
             hp = float(self.half_period)
             if not np.isfinite(hp) or hp <= 0 or -t[0] > hp + 1e-12:
-                raise ValueError("waveform.half_period: must be positive and at least the pulse length")
+                raise TemInputError("waveform.half_period: must be positive and at least the pulse length")
             object.__setattr__(self, "half_period", hp)
         object.__setattr__(self, "times", t)
         object.__setattr__(self, "current", c)
@@ -69,13 +71,13 @@ class Waveform:
         """
         f = float(base_frequency)
         if not np.isfinite(f) or f <= 0:
-            raise ValueError("base_frequency: must be positive (Hz)")
+            raise TemInputError("base_frequency: must be positive (Hz)")
         if not 0 < duty_cycle <= 1:
-            raise ValueError("duty_cycle: must be in (0, 1]")
+            raise TemInputError("duty_cycle: must be in (0, 1]")
         hp = 0.5 / f
         on = duty_cycle * hp
         if ramp_on < 0 or ramp_off < 0 or ramp_on + ramp_off >= on:
-            raise ValueError("ramp_on/ramp_off: must be non-negative and shorter than the on-time")
+            raise TemInputError("ramp_on/ramp_off: must be non-negative and shorter than the on-time")
         t = [-on, -on + ramp_on, -ramp_off, 0.0]
         c = [0.0, 1.0, 1.0, 0.0]
         t, c = _drop_vertical(t, c)

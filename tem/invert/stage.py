@@ -17,7 +17,7 @@ from ..provenance import file_sha256, stage_record
 from ..runtime import StageContext, StageResult, StationOutcome, map_stations
 from .settings import InversionSettings, floors_of
 
-__all__ = ["run", "invert_one"]
+__all__ = ["run", "invert_one", "verdict_info", "not_fitted"]
 
 
 def invert_one(sid, in_path, settings: InversionSettings, floors, fig_path):
@@ -33,14 +33,44 @@ def invert_one(sid, in_path, settings: InversionSettings, floors, fig_path):
     if fig_path:
         from ..io.figures import figure_bytes
         from .plot import station_figure
-        products.append((fig_path, figure_bytes(station_figure(r, kind=settings.kind))))
-    info = {"chi2": float(r.chi2), "doi": float(r.doi), "converged": bool(r.converged),
-            "invert_message": "" if r.converged else str(r.message),
-            "epsg": int(ds.attrs.get("epsg", 0) or 0)}
-    if r.few is not None:
-        info["few_layer_chi2"] = float(r.few["chi2"])
+        if settings.kind == "posterior":
+            from .posterior_plot import posterior_station_figure
+            fig = posterior_station_figure(r, settings.cover_layers)
+        else:
+            fig = station_figure(r, kind=settings.kind)
+        products.append((fig_path, figure_bytes(fig)))
+    info = {"doi": float(r.doi), "epsg": int(ds.attrs.get("epsg", 0) or 0),
+            **verdict_info(r, settings.kind)}
+    if r.posterior is not None:
+        info.update(rhat_max=r.posterior.max_rhat, ess_min=r.posterior.min_ess,
+                    posterior_s=round(r.posterior.seconds, 2))
     return StationOutcome(sid, "ok", inputs=[{"file": str(in_path), "sha256": file_sha256(in_path)}],
                           info=info, payload=r, products=products)
+
+
+def verdict_info(r, kind) -> dict:
+    """Summary values of a station: the chosen model's chi2 and verdict, every model's verdict.
+
+    Keys: ``chi2`` and ``model_kind`` (the chosen model), ``verdict`` (status),
+    ``verdict_code``, ``verdict_text`` (one line), ``smooth_chi2``,
+    ``few_layer_chi2`` (when computed) and ``verdicts`` ({kind: verdict as a dict}).
+    """
+    chosen = r.verdict_for(kind)
+    info = {"model_kind": kind, "chi2": float(chosen.chi2), "verdict": chosen.status,
+            "verdict_code": chosen.code, "verdict_text": chosen.summary,
+            "smooth_chi2": float(r.chi2), "verdicts": {"smooth": r.verdict.as_dict()}}
+    if r.few is not None:
+        info["few_layer_chi2"] = float(r.few["chi2"])
+        info["verdicts"]["few-layer"] = r.few["verdict"].as_dict()
+    return info
+
+
+def not_fitted(result: StageResult) -> dict:
+    """{station: verdict status} of the stations whose chosen model is a failure (misfit, stalled)."""
+    from .verdict import FAILURES
+
+    return {sid: oc.info["verdict"] for sid, oc in result.stations.items()
+            if oc.status == "ok" and oc.info.get("verdict") in FAILURES}
 
 
 def _lci(results, files, settings, floors, folder, record, epsg, res):
@@ -61,10 +91,21 @@ def _lci(results, files, settings, floors, folder, record, epsg, res):
         res.failed = f"laterally constrained inversion failed: {exc}".splitlines()[0]
         return []
     chi2 = np.array([r.chi2 for r in lres])
+    for r in lres:
+        oc = res.stations.get(r.station)
+        if oc is not None:
+            oc.info.setdefault("verdicts", {})["lci"] = r.verdict.as_dict()
     res.notes.append(f"laterally constrained inversion: {len(lres)} stations, chi2 per station "
                      f"{chi2.min():.2f}-{chi2.max():.2f}")
     return [str(write_models(ds, folder / "models_lci.nc", record=dict(record, stage="invert-lci"))),
             str(write_fit_csv(lres, folder / "fit_lci.csv", kind="lci"))]
+
+
+def _posterior_note(ds):
+    rhat, ess = ds["rhat_max"].values, ds["ess_min"].values
+    return (f"posterior sampling: largest split R-hat {np.nanmax(rhat):.3f}, smallest ESS "
+            f"{np.nanmin(ess):.0f}, {float(np.nanmedian(ds['posterior_seconds'].values)):.1f} s "
+            "per station (median)")
 
 
 def run(settings: InversionSettings, gated_files, out, ctx: StageContext = StageContext()) -> StageResult:
@@ -97,11 +138,19 @@ def run(settings: InversionSettings, gated_files, out, ctx: StageContext = Stage
     record["inputs"] = res.inputs
     epsgs = {oc.info.get("epsg", 0) for oc in res.stations.values() if oc.status == "ok"}
     epsg = epsgs.pop() if len(epsgs) == 1 else 0
-    ds = models_from_results(results, kind=settings.kind, epsg=epsg)
+    posterior = settings.kind == "posterior"
+    ds = models_from_results(results, kind="few-layer" if posterior else settings.kind, epsg=epsg)
+    if posterior:
+        from .posterior_products import add_posterior, write_posterior_csv
+        ds = add_posterior(ds, results, settings.posterior_cells, settings.cover_layers)
     res.outputs += [str(write_models(ds, folder / "models.nc", record=record)),
                     str(write_models_csv(ds, folder / "models.csv")),
-                    str(write_fit_csv(results, folder / "fit.csv", kind=settings.kind))]
-    if settings.kind == "few-layer":
+                    str(write_fit_csv(results, folder / "fit.csv",
+                                      kind="few-layer" if posterior else settings.kind))]
+    if posterior:
+        res.outputs.append(str(write_posterior_csv(ds, folder / "posterior.csv")))
+        res.notes.append(_posterior_note(ds))
+    if settings.kind in ("few-layer", "posterior"):
         smooth = models_from_results(results, kind="smooth", epsg=epsg)
         res.outputs.append(str(write_models(smooth, folder / "models_smooth.nc", record=record)))
     if settings.lci:

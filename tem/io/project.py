@@ -41,6 +41,7 @@ LOCK_NAME = ".tem-lock"
 STAGE_FOLDERS = {
     "stack": ("stacked", "figures/stations"),
     "gate": ("gated", "figures/stations", "qc"),
+    "import": ("gated",),
     "rhoa": ("rhoa", "figures/stations", "figures"),
     "invert": ("models", "figures/stations"),
     "section": ("sections", "figures"),

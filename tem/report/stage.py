@@ -20,7 +20,8 @@ _CAPTIONS = {"raw": "first raw period against the stack",
              "decay": "gated decay (error bars; crosses below the noise)",
              "rhoa": "apparent resistivity",
              "fit": "data, model response, normalised residuals; model with DOI and uncertainty "
-                    "band"}
+                    "band (posterior models: P10-P90 band and, beside it, the depth probability "
+                    "of an interface and of the target top)"}
 
 
 def _run_record(project: Project):
@@ -97,7 +98,7 @@ def run(settings: ReportSettings, project_in, out, ctx: StageContext = StageCont
     the noise figure, then the models, sections and per-station figures (the
     models part is left out when the project has no models yet).
     """
-    from ..io.models import read_models
+    from ..io.models import model_verdicts, read_models
     from .html import STATUS_MISFIT, STATUS_NONE, STATUS_OK, write_report
 
     src = project_in if isinstance(project_in, Project) else Project(project_in)
@@ -112,7 +113,9 @@ def run(settings: ReportSettings, project_in, out, ctx: StageContext = StageCont
     figs = src.folder("figures")
     sections = [(figs / "section.png", "Resistivity section (1D models stitched along the "
                  "profile; veiled and hatched below the depth of investigation)"),
-                (figs / "section_lci.png", "Laterally constrained inversion section")]
+                (figs / "section_lci.png", "Laterally constrained inversion section"),
+                (figs / "section_posterior.png", "Posterior section: P50 resistivity and the "
+                 "P10-P90 width in decades, with the target-top percentiles per station")]
     sections += [(p, f"Apparent-resistivity pseudo-section, {p.stem.split('_', 1)[1]}")
                  for p in sorted(figs.glob("pseudosection_*.png"))]
     sections = [(p, c) for p, c in sections if p.is_file()]
@@ -123,6 +126,7 @@ def run(settings: ReportSettings, project_in, out, ctx: StageContext = StageCont
     ids = list(modelled)
     ids += [s for s in stations if s not in ids]
     station_figs, info = {}, {}
+    verdicts = dict(zip(modelled, model_verdicts(models))) if models is not None else {}
     for sid in ids:
         items = [(src.station_figure(sid, k), f"{sid}: {c}") for k, c in _CAPTIONS.items()]
         items = [(p, c) for p, c in items if p.is_file()]
@@ -133,7 +137,9 @@ def run(settings: ReportSettings, project_in, out, ctx: StageContext = StageCont
         if "usable_gates" in s:
             entry["usable_gates"] = s["usable_gates"]
         chi2 = s.get("chi2")
-        if chi2 is not None:
+        if verdicts.get(sid) is not None:
+            status = verdicts[sid]["status"]
+        elif chi2 is not None:
             status = STATUS_OK if chi2 <= settings.chi2_limit else STATUS_MISFIT
         elif sid in modelled:
             status = None

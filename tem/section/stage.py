@@ -99,6 +99,11 @@ def run(settings: SectionSettings, models_files, out, ctx: StageContext = StageC
         fig = section_figure(grid, title=title, vmin=settings.vmin, vmax=settings.vmax,
                              below_doi=settings.below_doi)
         res.outputs += [str(p) for p in save_figure(fig, figs / sname, formats, dpi=150)]
+        if "res_p50" in models:      # posterior products (model kind posterior)
+            from .posterior_plot import posterior_section_figure
+            res.outputs += [str(p) for p in save_figure(
+                posterior_section_figure(models, settings), figs / f"{sname}_posterior", formats,
+                dpi=150)]
         if k == 0:
             res.outputs += [str(p) for p in save_figure(
                 model_figure(models, max_depth=settings.max_depth), figs / "models", formats,

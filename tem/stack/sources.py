@@ -10,6 +10,8 @@ import mmap
 
 import numpy as np
 
+from ..errors import TemInputError
+
 __all__ = ["WindowSource", "ArraySource", "RecordingSource", "clip_level"]
 
 
@@ -60,7 +62,7 @@ class ArraySource(WindowSource):
     def __init__(self, windows, polarity0: int = 1, clip_mask=None):
         self._d = np.asarray(windows)
         if self._d.ndim != 2:
-            raise ValueError("windows: expected a 2-D (n_windows, samples) array")
+            raise TemInputError("windows: expected a 2-D (n_windows, samples) array")
         if not np.issubdtype(self._d.dtype, np.number) or np.iscomplexobj(self._d):
             self._d = self._d.astype(np.float64)
         self.n_windows, self.m = self._d.shape

@@ -1,0 +1,55 @@
+"""Posterior curves and parameters of a LAS pseudo-well (models with kind posterior).
+
+The models file holds the posterior products on regular depth cells
+(:mod:`tem.invert.posterior_products`); a LAS depth takes the value of the
+cell that holds it, and depths below the last cell are null. Curves (names
+our own):
+
+* ``RP10``, ``RP50``, ``RP90`` (ohm.m): posterior 10th, 50th and 90th
+  percentile of the resistivity at the depth;
+* ``PIFD`` (1/m): probability density of an interface at the depth (times a
+  depth interval: the probability of an interface within it);
+* ``PTGD`` (1/m): probability density of the target top at the depth.
+
+Parameters: ``TTP10``, ``TTP50``, ``TTP90`` (m) target-top percentiles,
+``TLAY`` the target layer, ``RHAT`` the largest split R-hat and ``ESS`` the
+smallest effective sample size of the station's chains.
+"""
+from __future__ import annotations
+
+import numpy as np
+
+__all__ = ["posterior_curves", "posterior_params"]
+
+CURVES = (("RP10", "res_p10", "ohm.m", "Posterior P10 resistivity"),
+          ("RP50", "res_p50", "ohm.m", "Posterior P50 resistivity"),
+          ("RP90", "res_p90", "ohm.m", "Posterior P90 resistivity"),
+          ("PIFD", "interface_density", "1/m", "Probability density of an interface"),
+          ("PTGD", "target_density", "1/m", "Probability density of the target top"))
+
+
+def posterior_curves(models, i, depth):
+    """(mnemonic, values, unit, description) of station ``i`` at the LAS depths (m)."""
+    z = np.asarray(models["post_depth"].values, float)
+    cell = float(models["post_depth"].attrs.get("cell_m", z[1] - z[0] if z.size > 1 else 1.0))
+    k = np.floor(np.asarray(depth, float) / cell + 1e-9).astype(int)
+    inside = (k >= 0) & (k < z.size)
+    kk = np.clip(k, 0, z.size - 1)
+    out = []
+    for mnem, var, unit, descr in CURVES:
+        v = np.asarray(models[var].values[i], float)[kk]
+        out.append((mnem, np.where(inside, v, np.nan), unit, descr))
+    return out
+
+
+def posterior_params(models, i, null):
+    """(mnemonic, unit, value, description) of station ``i`` for the ~Parameter section."""
+    def num(name, digits):
+        v = float(models[name].values[i])
+        return round(v, digits) if np.isfinite(v) else null
+    return [("TTP10", "m", num("target_top_p10", 2), "Target top, posterior P10 (below ground)"),
+            ("TTP50", "m", num("target_top_p50", 2), "Target top, posterior P50"),
+            ("TTP90", "m", num("target_top_p90", 2), "Target top, posterior P90"),
+            ("TLAY", "", int(models["target_layer"].values[i]), "Target layer (0 = top)"),
+            ("RHAT", "", num("rhat_max", 4), "Largest split R-hat of the chains"),
+            ("ESS", "", num("ess_min", 1), "Smallest effective sample size")]

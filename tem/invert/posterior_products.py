@@ -1,0 +1,168 @@
+"""Products of posterior sampling: percentiles of interface depths and of resistivity versus
+depth, interface and target-top probability versus depth, in the models file and as CSV.
+
+Everything is computed from the pooled kept draws of all chains
+(:class:`tem.invert.posterior.PosteriorResult`). Percentiles are the sample
+quantiles (numpy's default linear interpolation). Probability versus depth is
+a density (1/m) on a regular grid of cells from the surface: the fraction of
+draws with an interface (or the target top) in a cell, divided by the cell
+size; summed over cells and multiplied by the cell size it gives the expected
+number of interfaces above the grid bottom (1 for the target top when it is
+within the grid).
+
+Variables added to the models Dataset (docs/data-model.md, "Models file",
+posterior variables):
+
+* ``depth_p10``, ``depth_p50``, ``depth_p90`` (station, layer), m: depth to each
+  layer top (NaN for layer 0 and padding);
+* ``depth_std_linearised`` (station, layer), m: the Levenberg-Marquardt band;
+* coordinate ``post_depth`` (cell centres, m) with attribute ``cell_m``;
+  ``res_p10``, ``res_p50``, ``res_p90`` (station, post_depth), ohm-m;
+  ``interface_density``, ``target_density`` (station, post_depth), 1/m;
+* ``target_layer`` (station,): the target, the most conductive layer below
+  ``cover_layers`` in the few-layer fit (0 = top layer);
+* ``target_top_p025`` .. ``target_top_p975`` (station,), m; ``target_top_linearised``
+  and ``target_top_std_linearised`` (station,), m;
+* ``rhat_max``, ``ess_min``, ``posterior_seconds``, ``chi2_posterior`` (station,).
+"""
+from __future__ import annotations
+
+import csv
+from pathlib import Path
+
+import numpy as np
+
+from .posterior import depth_tops, target_layer, target_tops
+
+__all__ = ["QUANTILES", "TARGET_QUANTILES", "depth_edges", "station_products",
+           "add_posterior", "write_posterior_csv", "POSTERIOR_CSV_COLUMNS"]
+
+QUANTILES = (0.1, 0.5, 0.9)
+TARGET_QUANTILES = (0.025, 0.1, 0.5, 0.9, 0.975)
+_TQ_NAMES = ("p025", "p10", "p50", "p90", "p975")
+
+POSTERIOR_CSV_COLUMNS = ("station", "depth_m", "res_p10_ohmm", "res_p50_ohmm", "res_p90_ohmm",
+                         "interface_density_per_m", "target_density_per_m", "below_doi")
+
+
+def depth_edges(results, cells):
+    """Cell edges (m) shared by all stations: 0 to 1.5 times the deepest DOI (or the
+    deepest few-layer interface when no DOI is known), ``cells`` cells."""
+    z = []
+    for r in results:
+        if np.isfinite(r.doi) and r.doi > 0:
+            z.append(1.5 * r.doi)
+        elif r.few is not None:
+            z.append(1.5 * float(np.max(r.few["depth_top"])))
+    z_max = max(z) if z else 1000.0
+    return np.linspace(0.0, max(z_max, 1.0), int(cells) + 1)
+
+
+def station_products(post, edges, cover_layers, few):
+    """Products of one station's draws on the cells ``edges`` (see the module docstring).
+
+    Returns a dict of arrays: ``depth_q`` (3, N) of layer tops 1..N,
+    ``res_q`` (3, cells), ``interface_density``, ``target_density`` (cells,),
+    ``target_q`` (5,), ``target_lin`` (value, std) and ``target_layer``. The
+    target layer is chosen on the few-layer fit ``few`` (dict with
+    ``resistivity``, ``depth_top``, ``depth_std``).
+    """
+    flat = post.flat
+    n = post.n_layers
+    S = flat.shape[0]
+    edges = np.asarray(edges, float)
+    dz = np.diff(edges)
+    zc = 0.5 * (edges[1:] + edges[:-1])
+    tops = depth_tops(flat, n)                                   # (S, n-1)
+    out = {"depth_q": np.quantile(tops, QUANTILES, axis=0) if n > 1 else np.zeros((3, 0))}
+    idx = np.zeros((S, zc.size), int)
+    for k in range(n - 1):
+        idx += zc[None, :] >= tops[:, k:k + 1]
+    ln_rho_z = np.take_along_axis(flat[:, :n], idx, axis=1)
+    out["res_q"] = np.exp(np.quantile(ln_rho_z, QUANTILES, axis=0))
+    out["interface_density"] = np.histogram(tops.ravel(), edges)[0] / (S * dz)
+    k = target_layer(few["resistivity"], cover_layers)
+    out["target_layer"] = -1 if k is None else k
+    tt = target_tops(flat, n, k)
+    ok = np.isfinite(tt)
+    out["target_density"] = np.histogram(tt[ok], edges)[0] / (S * dz)
+    out["target_q"] = (np.quantile(tt[ok], TARGET_QUANTILES) if ok.any()
+                       else np.full(len(TARGET_QUANTILES), np.nan))
+    out["target_draws"] = tt
+    out["target_lin"] = ((np.nan, np.nan) if k is None else
+                         (float(few["depth_top"][k]), float(few["depth_std"][k])))
+    return out
+
+
+def _pad(rows, width):
+    out = np.full((len(rows), width), np.nan)
+    for i, r in enumerate(rows):
+        out[i, : len(r)] = r
+    return out
+
+
+def add_posterior(ds, results, cells, cover_layers):
+    """The models Dataset ``ds`` (few-layer models of ``results``, same station order) with the
+    posterior variables added and ``model_kind = "posterior"``."""
+    edges = depth_edges(results, cells)
+    zc = 0.5 * (edges[1:] + edges[:-1])
+    L = ds.sizes["layer"]
+    prods = [station_products(r.posterior, edges, cover_layers, r.few) for r in results]
+    sl, sz = ("station", "layer"), ("station", "post_depth")
+    ds = ds.assign_coords(post_depth=("post_depth", zc, {"units": "m", "cell_m": float(edges[1]),
+                                                         "long_name": "depth cell centre"}))
+    for j, q in enumerate(("p10", "p50", "p90")):
+        ds[f"depth_{q}"] = (sl, _pad([np.concatenate([[np.nan], p["depth_q"][j]]) for p in prods], L),
+                            {"units": "m", "long_name": f"posterior {q.upper()} of depth to layer top"})
+        ds[f"res_{q}"] = (sz, np.array([p["res_q"][j] for p in prods]),
+                          {"units": "ohm-m", "long_name": f"posterior {q.upper()} of resistivity"})
+    ds["depth_std_linearised"] = (sl, _pad([r.few["depth_std"] for r in results], L),
+                                  {"units": "m", "long_name": "linearised std of depth to layer top"})
+    ds["interface_density"] = (sz, np.array([p["interface_density"] for p in prods]),
+                               {"units": "1/m", "long_name": "probability density of an interface"})
+    ds["target_density"] = (sz, np.array([p["target_density"] for p in prods]),
+                            {"units": "1/m", "long_name": "probability density of the target top"})
+    for j, q in enumerate(_TQ_NAMES):
+        ds[f"target_top_{q}"] = ("station", np.array([p["target_q"][j] for p in prods]),
+                                 {"units": "m", "long_name": f"posterior {q.upper()} of target top"})
+    ds["target_top_linearised"] = ("station", np.array([p["target_lin"][0] for p in prods]),
+                                   {"units": "m", "long_name": "target top of the few-layer fit"})
+    ds["target_top_std_linearised"] = ("station", np.array([p["target_lin"][1] for p in prods]),
+                                       {"units": "m", "long_name": "linearised std of target top"})
+    ds["target_layer"] = ("station", np.array([p["target_layer"] for p in prods]),
+                          {"units": "1", "long_name": "target layer (0 = top; -1 none)"})
+    ds["rhat_max"] = ("station", np.array([r.posterior.max_rhat for r in results]),
+                      {"units": "1", "long_name": "largest split R-hat over the parameters"})
+    ds["ess_min"] = ("station", np.array([r.posterior.min_ess for r in results]),
+                     {"units": "1", "long_name": "smallest bulk or tail ESS over the parameters"})
+    ds["chi2_posterior"] = ("station", np.array([r.posterior.chi2_median for r in results]),
+                            {"units": "1", "long_name": "median chi-square per datum of the draws"})
+    ds["posterior_seconds"] = ("station", np.array([r.posterior.seconds for r in results]),
+                               {"units": "s", "long_name": "sampling wall time"})
+    # posterior spread replaces the linearised one in the standard variables
+    ds["log10_res_std"] = (sl, _pad([np.std(r.posterior.flat[:, :r.posterior.n_layers], axis=0)
+                                     / np.log(10) for r in results], L),
+                           {"units": "log10(ohm-m)", "long_name": "posterior std of log10 resistivity"})
+    ds.attrs["model_kind"] = "posterior"
+    ds.attrs["cover_layers"] = int(cover_layers)
+    return ds
+
+
+def write_posterior_csv(ds, path):
+    """Resistivity percentiles and probability densities versus depth, one row per station and
+    depth cell (:data:`POSTERIOR_CSV_COLUMNS`), atomically."""
+    from ..io.atomic import atomic_path
+
+    z = ds["post_depth"].values
+    with atomic_path(path) as tmp:
+        with open(tmp, "w", newline="", encoding="utf-8") as fh:
+            w = csv.writer(fh)
+            w.writerow(POSTERIOR_CSV_COLUMNS)
+            for i, sid in enumerate(ds["station"].values.astype(str)):
+                doi = float(ds["doi"].values[i])
+                for j, zj in enumerate(z):
+                    w.writerow([sid, repr(float(zj))] +
+                               [repr(float(ds[v].values[i, j])) for v in
+                                ("res_p10", "res_p50", "res_p90", "interface_density",
+                                 "target_density")] + [int(np.isfinite(doi) and zj >= doi)])
+    return Path(path)

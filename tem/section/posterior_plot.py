@@ -1,0 +1,86 @@
+"""Posterior section figure: a section coloured by the posterior P50 resistivity, and below it
+the P10-P90 width (log10(P90 / P10), decades) on the same grid, with the target-top
+percentiles of every station.
+
+Both panels are stitched like the resistivity section (:func:`tem.section.stage.section_grid`)
+from the models file's posterior products (:mod:`tem.invert.posterior_products`): each
+station's percentile profile on the posterior depth cells is read as a layered model with one
+layer per cell.
+"""
+from __future__ import annotations
+
+import numpy as np
+
+__all__ = ["posterior_grids", "posterior_section_figure"]
+
+
+def _cell_models(models, values):
+    from ..io.models import models_dataset
+
+    z = np.asarray(models["post_depth"].values, float)
+    cell = float(models["post_depth"].attrs.get("cell_m", z[1] - z[0] if z.size > 1 else 1.0))
+    thk = np.full(np.shape(values), cell)
+    thk[:, -1] = np.nan
+    return models_dataset(station=models["station"].values, resistivity=values, thickness=thk,
+                          x=models["x"].values, y=models["y"].values, z=models["z"].values,
+                          doi=models["doi"].values, chi2=models["chi2"].values,
+                          epsg=int(models.attrs.get("epsg", 0) or 0))
+
+
+def posterior_grids(models, settings):
+    """(P50 grid, width grid) of a models Dataset with posterior products; the width grid's
+    ``log10_resistivity`` holds log10(P90 / P10)."""
+    from .stage import section_grid
+
+    p10 = np.asarray(models["res_p10"].values, float)
+    p50 = np.asarray(models["res_p50"].values, float)
+    p90 = np.asarray(models["res_p90"].values, float)
+    g50 = section_grid(_cell_models(models, p50), settings)
+    gw = section_grid(_cell_models(models, np.maximum(p90 / p10, 1.0 + 1e-9)), settings)
+    return g50, gw
+
+
+def posterior_section_figure(models, settings, title=None):
+    """Two-panel figure (P50 section; P10-P90 width) of a models Dataset with posterior products."""
+    from matplotlib.colors import Normalize
+
+    from .plot import CMAP, _distance_scale, _edges, _new_figure, _norm
+
+    g50, gw = posterior_grids(models, settings)
+    vname = "depth" if "depth" in g50.dims else "elevation"
+    d = g50["distance"].values.astype(float)
+    scale, unit = _distance_scale(d, "auto")
+    xe, ye = _edges(d) * scale, _edges(g50[vname].values.astype(float))
+    fig = _new_figure(10.0, 7.5)
+    ax1, ax2 = fig.subplots(2, 1, sharex=True)
+    full = g50["log10_resistivity_full"].values
+    norm = _norm(full[np.isfinite(full)] if np.isfinite(full).any() else [0.0],
+                 settings.vmin, settings.vmax)
+    m1 = ax1.pcolormesh(xe, ye, (10.0 ** full).T, cmap=CMAP, norm=norm, shading="flat")
+    fig.colorbar(m1, ax=ax1, label="P50 resistivity (ohm-m)")
+    width = gw["log10_resistivity_full"].values
+    hi = float(np.nanpercentile(width, 99)) if np.isfinite(width).any() else 1.0
+    m2 = ax2.pcolormesh(xe, ye, width.T, cmap="magma_r", norm=Normalize(0.0, max(hi, 0.1)),
+                        shading="flat")
+    fig.colorbar(m2, ax=ax2, label="P10-P90 width (decades)")
+    order = np.argsort(g50["station_distance"].values)
+    sd = g50["station_distance"].values[order] * scale
+    sid = list(models["station"].values.astype(str))
+    idx = [sid.index(s) for s in g50["station"].values.astype(str)[order]]
+    t10, t50, t90 = (models[f"target_top_{q}"].values[idx] for q in ("p10", "p50", "p90"))
+    for ax in (ax1, ax2):
+        doi = g50["doi"].values.astype(float)
+        ax.plot(np.repeat(xe, 2)[1:-1], np.repeat(doi, 2), color="k", ls="--", lw=1.0,
+                label="depth of investigation")
+        ax.errorbar(sd, t50, yerr=[t50 - t10, t90 - t50], fmt="o", ms=3, color="k", mfc="w",
+                    capsize=2, lw=0.8, label="target top P50 (P10-P90)")
+        ax.set_ylim(ye[-1], ye[0])
+        ax.set_ylabel("depth below surface (m)")
+    ax1.legend(fontsize=7, loc="lower left")
+    ax1.set_title(title or "posterior P50 resistivity (few-layer models)")
+    ax2.set_title("posterior spread: log10(P90 / P10) of resistivity")
+    ax2.set_xlabel(f"distance along profile ({unit})")
+    for s, x in zip(g50["station"].values.astype(str)[order], sd):
+        ax1.annotate(s, (x, ye[0]), xytext=(0, 2), textcoords="offset points", ha="center",
+                     va="bottom", fontsize=6, annotation_clip=False)
+    return fig
