@@ -226,12 +226,10 @@ def _bottom_up_jac(scale, tmf, wm, sig, thk, l2, gr, gi, er, ei, A, B, XR, XI, F
             inv = 1.0 / (d_r * d_r + d_i * d_i)
             w_r = d_r * inv
             w_i = -d_i * inv
-            nwr = nr_ * w_r - ni_ * w_i
-            nwi = nr_ * w_i + ni_ * w_r
-            x0r = kr * nwr - ki * nwi                  # X_n = K N w
-            x0i = kr * nwi + ki * nwr
             kwr = kr * w_r - ki * w_i                  # K w
             kwi = kr * w_i + ki * w_r
+            x0r = kwr * nr_ - kwi * ni_                # X_n = K w N
+            x0i = kwr * ni_ + kwi * nr_
             k2r = kwr * kwr - kwi * kwi
             k2i = 2.0 * kwr * kwi
             fr = 4.0 * (e_r * k2r - e_i * k2i)         # F = 4 e (K w)^2
