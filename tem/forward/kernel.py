@@ -263,6 +263,83 @@ def _bottom_up_jac(scale, tmf, wm, sig, thk, l2, gr, gi, er, ei, A, B, XR, XI, F
 
 
 @nb.njit(**_JIT)
+def _bottom_up_jac_te(wm, sig, thk, l2, gr, gi, er, ei, A, B, XR, XI, FR, FI, GR,
+                      GI):  # pragma: no cover - compiled
+    """:func:`_bottom_up_jac` for TE (K = Gamma), resistivity derivatives only, written as
+    G = d [X_n - F (X + h P M)]: one complex product fewer per layer and wavenumber."""
+    L = sig.size
+    for n in range(L - 1, -1, -1):
+        q = wm * sig[n]
+        h = thk[n]
+        rb = n + 1 if n + 1 < L else n
+        grn = gr[n]
+        gin = gi[n]
+        ern = er[n]
+        ein = ei[n]
+        xro = XR[n]
+        xio = XI[n]
+        xrb = XR[rb]
+        xib = XI[rb]
+        fro = FR[n]
+        fio = FI[n]
+        gro = GR[n]
+        gio = GI[n]
+        for il in range(B[n], A[n]):
+            x = l2[il]
+            t = 0.5 * q / (x * x + q * q)
+            dr = -t * q
+            di = -t * x
+            kr = grn[il]
+            ki = gin[il]
+            xro[il] = kr
+            xio[il] = ki
+            gro[il] = dr * kr - di * ki
+            gio[il] = dr * ki + di * kr
+        for il in range(B[n]):
+            x = l2[il]
+            t = 0.5 * q / (x * x + q * q)
+            dr = -t * q
+            di = -t * x
+            kr = grn[il]
+            ki = gin[il]
+            e_r = ern[il]
+            e_i = ein[il]
+            xr = xrb[il]
+            xi = xib[il]
+            pr = xr + kr
+            pi = xi + ki
+            mr = xr - kr
+            mi = xi - ki
+            emr = e_r * mr - e_i * mi
+            emi = e_r * mi + e_i * mr
+            nr_ = pr + emr
+            ni_ = pi + emi
+            d_r = pr - emr
+            d_i = pi - emi
+            inv = 1.0 / (d_r * d_r + d_i * d_i)
+            w_r = d_r * inv
+            w_i = -d_i * inv
+            kwr = kr * w_r - ki * w_i                  # K w
+            kwi = kr * w_i + ki * w_r
+            x0r = kwr * nr_ - kwi * ni_                # X_n = K w N
+            x0i = kwr * ni_ + kwi * nr_
+            k2r = kwr * kwr - kwi * kwi
+            k2i = 2.0 * kwr * kwi
+            fr = 4.0 * (e_r * k2r - e_i * k2i)         # F = 4 e (K w)^2
+            fi = 4.0 * (e_r * k2i + e_i * k2r)
+            yr = xr + h * (pr * mr - pi * mi)          # X + h P M
+            yi = xi + h * (pr * mi + pi * mr)
+            vr = x0r - (fr * yr - fi * yi)             # X_n - F (X + h P M)
+            vi = x0i - (fr * yi + fi * yr)
+            xro[il] = x0r
+            xio[il] = x0i
+            fro[il] = fr
+            fio[il] = fi
+            gro[il] = dr * vr - di * vi
+            gio[il] = dr * vi + di * vr
+
+
+@nb.njit(**_JIT)
 def _reverse_sum(ar, ai, A, B, FR, FI, GR, GI, HR, HI, jac_thk, out):  # pragma: no cover
     """Chain rule from the surface down, summed over wavenumbers: out[n] += sum a_n G_n over
     the first A[n] wavenumbers, out[L + n] += sum a_n H_n over the first B[n]; a_0 = ar + i ai
@@ -353,8 +430,12 @@ def _one_model(lam, omega, res, thk, need_tm, jac, jac_thk, Gr, Ga, Gb, F, dF): 
         wm = omega[iw] * MU0
         _top_down(l2, wm, sig, thk, gr, gi, er, ei, att, A, B)
         if jac:
-            _bottom_up_jac(ones, 0.0, wm, sig, thk, l2, gr, gi, er, ei, A, B, XR, XI,
-                           W[0], W[1], W[2], W[3], jac_thk, W[4], W[5])
+            if jac_thk:
+                _bottom_up_jac(ones, 0.0, wm, sig, thk, l2, gr, gi, er, ei, A, B, XR, XI,
+                               W[0], W[1], W[2], W[3], jac_thk, W[4], W[5])
+            else:
+                _bottom_up_jac_te(wm, sig, thk, l2, gr, gi, er, ei, A, B, XR, XI, W[0], W[1],
+                                  W[2], W[3])
             if need_tm:
                 _bottom_up_jac(res, 1.0, wm, sig, thk, l2, gr, gi, er, ei, A, B, ZR, ZI,
                                W[6], W[7], W[8], W[9], jac_thk, W[10], W[11])
