@@ -11,7 +11,6 @@ import json
 import sys
 import time
 
-import numpy as np
 
 
 def main():

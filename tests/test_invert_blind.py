@@ -39,16 +39,13 @@ def judge(c, few):
     z = few["depth_top"]
     k = 1 + int(np.argmin(np.abs(z[1:] - z_true)))       # nearest fitted interface
     layer = k - 1 if c["target_is_base"] else k
-    rho, h = few["resistivity"], few["thickness"]
+    rho = few["resistivity"]
     t_thk = c["thickness"][c["target_layer"]] if c["target_layer"] < c["thickness"].size else np.inf
     t_top = float(np.r_[0.0, np.cumsum(c["thickness"])][c["target_layer"]])
     if t_thk < 0.3 * max(t_top, 1.0):
-        # thin target: conductance of the fitted layers inside the true target's depth range
-        # widened by 20 % (the thin conductor may be fitted by one layer or split)
-        zt = np.r_[z, np.inf]
-        lo, hi = t_top - 0.2 * t_thk, t_top + 1.2 * t_thk
-        over = np.clip(np.minimum(zt[1:], hi) - np.maximum(zt[:-1], lo), 0, None)
-        value, truth, kind = float(np.sum(over / rho)), t_thk / c["target_resistivity"], "S"
+        # thin target: conductance h/rho of the fitted target layer
+        h = few["thickness"][layer] if layer < few["thickness"].size else np.inf
+        value, truth, kind = float(h / rho[layer]), t_thk / c["target_resistivity"], "S"
     else:
         value, truth, kind = float(rho[layer]), c["target_resistivity"], "ohm-m"
     return float(few["chi2"]), float(z[k]), z_true, value, truth, kind
