@@ -25,8 +25,12 @@ Two more cases, one JSON line each:
   figures: {"case", "invert_s" (wall time of the invert stage from run.json),
   "jobs", "stations", "max_chi2"}. Target: invert_s <= 60 on 2 cores.
 
-``python benchmarks/invert.py [occam] [fewlayer] [demo]`` runs the named cases
-(all three without arguments; the occam case takes about 11 minutes).
+``demo-fewlayer`` is the same with ``--set invert.kind=few-layer`` (the
+few-layer search with the defaults on every station).
+
+``python benchmarks/invert.py [occam] [fewlayer] [demo] [demo-fewlayer]`` runs
+the named cases (the first three without arguments; the occam case takes
+about 11 minutes).
 """
 from __future__ import annotations
 
@@ -82,7 +86,7 @@ def fewlayer_case():
                       "evaluations": int(info["evaluations"])}), flush=True)
 
 
-def demo_case(jobs=2):
+def demo_case(jobs=2, kind="smooth"):
     import tempfile
     from pathlib import Path
 
@@ -93,10 +97,12 @@ def demo_case(jobs=2):
     with tempfile.TemporaryDirectory() as tmp:
         survey = write_demo_survey(Path(tmp) / "raw", 120.0, 2025)
         out = run_pipeline(survey, Path(tmp) / "project", jobs=jobs, progress=False,
-                           figures=False, until="invert")
+                           figures=False, until="invert", overrides=[("invert", "kind", kind)])
         rec = out.state["stages"]["invert"]
-        chi2 = [st.get("chi2") for st in rec["stations"].values() if st.get("chi2") is not None]
-        print(json.dumps({"case": "demo-invert-stage", "invert_s": rec["elapsed_s"], "jobs": jobs,
+        key = "chi2" if kind == "smooth" else "few_layer_chi2"
+        chi2 = [st.get(key) for st in rec["stations"].values() if st.get(key) is not None]
+        print(json.dumps({"case": f"demo-invert-stage-{kind}", "invert_s": rec["elapsed_s"],
+                          "jobs": jobs,
                           "stations": len(rec["stations"]),
                           "max_chi2": round(max(chi2), 2) if chi2 else None}), flush=True)
 
@@ -107,6 +113,8 @@ def main(argv=()):
         fewlayer_case()
     if "demo" in cases:
         demo_case()
+    if "demo-fewlayer" in cases:
+        demo_case(kind="few-layer")
     if "occam" in cases:
         return occam_case()
     return 0
