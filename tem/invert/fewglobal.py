@@ -244,10 +244,14 @@ def global_fewlayer(predict_many, layer_fwd, d_obs, std, n_layers, starts, box, 
     return best[0], best[1], info
 
 
-def choose_layer_count(search, counts, n_data, criterion, fixed=None):
+def choose_layer_count(search, counts, n_data, criterion, fixed=None, target=None):
     """Search every count in turn, ``search(n, previous) -> (FewLayerResult, start, info)``
     (``previous``: the result of the count before, None first); keep the lowest
     criterion, or the count ``fixed`` when given.
+
+    Without ``fixed``, the search stops early once a count fits to ``target``
+    (chi-square per datum) and the next count raises the criterion: more layers
+    would only fit noise.
 
     Returns (result, start, info) of the chosen count; ``info["criteria"]``
     lists ``(n_layers, chi2, criterion value)`` of every count searched.
@@ -259,6 +263,9 @@ def choose_layer_count(search, counts, n_data, criterion, fixed=None):
         ic = information_criterion(fr.chi2 * n_data, n_data, int(info["n_free"]), criterion)
         table.append((int(n), float(fr.chi2), ic))
         found[int(n)] = (fr, start, info, ic)
+        if fixed is None and target is not None and len(table) >= 2 \
+                and table[-2][1] <= target and table[-1][2] > table[-2][2]:
+            break
     n_best = fixed if fixed is not None else min(found, key=lambda k: found[k][3])
     fr, start, info, _ = found[n_best]
     info = dict(info, criterion=criterion if fixed is None else "fixed", criteria=table)
