@@ -77,3 +77,13 @@ def test_population_search_alone_finds_a_three_layer_model():
     assert fr.chi2 < 1e-3
     assert fr.resistivity == pytest.approx([50.0, 3.0, 500.0], rel=0.05)
     assert fr.thickness == pytest.approx([300.0, 500.0], rel=0.05)
+
+
+def test_priors_need_a_layer_count():
+    from tem.errors import TemInputError
+    from tem.invert.settings import InversionSettings
+
+    with pytest.raises(TemInputError, match="priors.*few_layers"):
+        InversionSettings(kind="few-layer", priors=("depth:2=1350/50",))
+    s = InversionSettings(kind="few-layer", few_layers=4, priors=("depth:2=1350/50",))
+    assert s.few_layers == 4
