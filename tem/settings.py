@@ -408,19 +408,6 @@ class SettingsTable:
                 raise input_error(o.label(self, field), problem, o.file)
         return out
 
-    def valid_names(self, key) -> str:
-        """``valid: a, b, ...`` for an error, or, when that list is long, the closest names and
-        where all are listed (an error stays one short line)."""
-        import difflib
-
-        names = [s.name for s in self.exposed]
-        text = ", ".join(names)
-        if len(text) <= 240:
-            return "valid: " + text
-        close = difflib.get_close_matches(str(key)[:60], names, n=3, cutoff=0.5)
-        hint = f"closest: {', '.join(close)}; " if close else ""
-        return f"{hint}all {len(names)} keys in docs/settings.md ({self.stage})"
-
     def build(self, values: dict | None = None, origin: Origin = PYTHON, origins=None):
         """A settings object from defaults updated by ``values`` (checked, labelled by origin)."""
         values = dict(values or {})
@@ -428,12 +415,24 @@ class SettingsTable:
         for k in values:
             if k not in self._by_name or not self._by_name[k].expose and origin.kind != "python":
                 o = origins.get(k, origin)
-                raise input_error(o.label(self, _show_key(k)), "unknown setting; "
-                                  + self.valid_names(k), o.file)
+                raise input_error(o.label(self, _show_key(k)), "unknown setting; valid: "
+                                  + ", ".join(s.name for s in self.exposed), o.file)
         merged = {**self.defaults(), **values}
         checked = self.check(merged, origin, origins)
         return _construct(self.cls, checked)
 
+
+    def _unknown(self, key) -> str:
+        """'unknown key' with the closest valid names (the whole list is in docs/settings.md)."""
+        import difflib
+
+        names = [x.name for x in self.exposed]
+        close = difflib.get_close_matches(str(key)[:60], names, n=3, cutoff=0.5)
+        if len(names) <= 12:
+            return "unknown key; valid: " + ", ".join(names)
+        hint = f"did you mean {' or '.join(close)}? " if close else ""
+        return (f"unknown key; {hint}{len(names)} keys are valid here, listed in docs/settings.md "
+                f"and by 'tem {self.stage} --help'")
     def from_table(self, table, file=None, base=None) -> dict:
         """Checked values of one ``[processing.<stage>]`` table (only the keys given).
 
@@ -447,8 +446,8 @@ class SettingsTable:
         for key, value in table.items():
             s = self._by_name.get(key)
             if s is None or not s.expose:
-                raise input_error(f"processing.{self.stage}.{_show_key(key)}", "unknown key; "
-                                  + self.valid_names(key), file)
+                raise input_error(f"processing.{self.stage}.{_show_key(key)}",
+                                  self._unknown(key), file)
             v = s.coerce(value, origin.label(self, key), file)
             if s.kind == "path" and v is not None and base is not None and not Path(v).is_absolute():
                 v = str(Path(base) / v)

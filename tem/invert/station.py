@@ -360,7 +360,7 @@ def fewlayer_station(sd, settings, m_smooth=None, h_smooth=None, doi=None, rho_h
     else:             # every count up to the one asked for, each starting from the one before
         counts = range(2, (settings.few_layers or settings.few_layers_max) + 1)
     fr, start, info = choose_layer_count(search, counts, sd.n_data, settings.few_criterion,
-                                         fixed=settings.few_layers)
+                                         fixed=settings.few_layers, target=settings.target)
     out = _few_dict(fr, *start)
     out["search"] = info
     return out

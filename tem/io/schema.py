@@ -48,7 +48,7 @@ def _attrs(ds, file):
     checks.attr_number(ds, "tx_current", file, positive=True, maximum=L["current"])
     # step-off, step-on and impulse soundings (gated format 1.2, tem import) have no
     # repetition: base_frequency 0; a waveform response needs a positive one
-    stepped = a.get("response", "waveform") in ("step-off", "step-on", "impulse")
+    stepped = _text(a, "response", "waveform") in ("step-off", "step-on", "impulse")
     checks.attr_number(ds, "base_frequency", file, minimum=0.0 if stepped else 1e-3,
                        maximum=L["frequency"])
     checks.attr_number(ds, "duty_cycle", file, required=False, positive=not stepped,
@@ -62,6 +62,12 @@ def _attrs(ds, file):
                        file, minimum=0, maximum=16)
     checks.attr_number(ds, "lowpass_cutoff", file, required=False, minimum=0.0,
                        maximum=L["sample_rate"])
+
+
+def _text(attrs, name, default):
+    """A text attribute, or ``default`` when absent; anything else (checked later) is None."""
+    v = attrs.get(name, default)
+    return v if isinstance(v, str) else None
 
 
 def _scalar(v, name, file):
@@ -99,7 +105,9 @@ def _stacked(ds, file):
     from .stacked import CHECK_FIELDS, COUNT_FIELDS
 
     t = _times(ds, "time", file)
-    if t[0] < -L["time"] or t[-1] <= 0:
+    if t.size < 16:
+        raise input_error("time", f"{t.size} samples; a stacked transient has 16 or more", file)
+    if t[-1] <= 0:
         raise input_error("time", "no sample after switch-off", file)
     _times(ds, "excerpt_time", file)
     _channels(ds, file)
@@ -147,7 +155,7 @@ def _gated(ds, file):
     lo = checks.variable(ds, "gate_open", g, file, positive=True, maximum=L["time"])
     hi = checks.variable(ds, "gate_close", g, file, positive=True, maximum=L["time"])
     mid = checks.variable(ds, "gate_centre", g, file, positive=True, maximum=L["time"])
-    if ds.attrs.get("sampling", "window") == "point":      # point samples: open = centre = close
+    if _text(ds.attrs, "sampling", "window") == "point":      # point samples: open = centre = close
         if lo.size == 0 or np.any(hi < lo) or np.any(mid < lo) or np.any(mid > hi):
             raise input_error("gate_close", "every point sample needs open <= centre <= close", file)
     elif lo.size == 0 or np.any(hi <= lo) or np.any(mid < lo) or np.any(mid > hi):
