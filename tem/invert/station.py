@@ -172,8 +172,12 @@ def focusing_of(settings):
 
 
 def smooth_station(sd, settings: InversionSettings, h=None, m_ref_value=None, ref_weight=None,
-                   callback=None):
-    """Occam smooth inversion of one station; returns (OccamResult, thickness, rho_hs)."""
+                   callback=None, start=None, rho_hs=None):
+    """Occam smooth inversion of one station; returns (OccamResult, thickness, rho_hs).
+
+    ``start`` (ln ohm-m on the mesh ``h``, with its ``mu``): a model to start from instead
+    of the best half-space (``rho_hs`` then skips the half-space search).
+    """
     hs_fwd_cache = {}
 
     def predict_uniform(x):
@@ -181,7 +185,8 @@ def smooth_station(sd, settings: InversionSettings, h=None, m_ref_value=None, re
             hs_fwd_cache[x] = sd.predict(np.array([np.exp(x)]), np.array([]))
         return hs_fwd_cache[x]
 
-    rho_hs, _ = best_halfspace(predict_uniform, sd.d_obs, sd.std)
+    if rho_hs is None:
+        rho_hs, _ = best_halfspace(predict_uniform, sd.d_obs, sd.std)
     if h is None:
         h = mesh_for(sd, rho_hs, settings)
     M = h.size + 1
@@ -194,7 +199,8 @@ def smooth_station(sd, settings: InversionSettings, h=None, m_ref_value=None, re
     # 1) asinh (log-like) data: usually converges in a few steps
     where = sign_consistent(sd)
     fwd, predict, d_t, s_t = asinh_problem(lin_fwd, lin_predict, sd.d_obs, sd.std, where)
-    res = occam(fwd, d_t, s_t, np.full(M, np.log(rho_hs)), roughness_matrix(M), predict=predict, **kw)
+    m0, mu0 = (np.full(M, np.log(rho_hs)), None) if start is None else start
+    res = occam(fwd, d_t, s_t, m0, roughness_matrix(M), predict=predict, mu0=mu0, **kw)
     res.d_pred, res.J = _to_linear(res.d_pred, res.J, sd.std, where)
     res.chi2 = chi2_per_datum(sd.d_obs, res.d_pred, sd.std)
     if res.chi2 > 1.2 * settings.target:
@@ -286,8 +292,15 @@ def station_doi(sd, settings, res, h, rho_hs):
     if settings.doi_method in ("two-reference", "shallower"):
         thr = 0.2 if settings.doi_threshold is None else settings.doi_threshold
         wr = max(settings.ref_weight, 0.3)   # the references must govern where data do not
-        ra, _, _ = smooth_station(sd, settings, h=h, m_ref_value=rho_hs * 10, ref_weight=wr)
-        rb, _, _ = smooth_station(sd, settings, h=h, m_ref_value=rho_hs / 10, ref_weight=wr)
+        # each starts from the station's model shifted by its reference's factor (10 or
+        # 1/10): where the data constrain the model they pull it back, where they do not it
+        # stays near its reference (from the half-space each took as long as the station's
+        # own inversion; from the unshifted model the references barely moved it)
+        kw = dict(h=h, ref_weight=wr, rho_hs=rho_hs)
+        ra, _, _ = smooth_station(sd, settings, m_ref_value=rho_hs * 10,
+                                  start=(res.m + np.log(10.0), res.mu), **kw)
+        rb, _, _ = smooth_station(sd, settings, m_ref_value=rho_hs / 10,
+                                  start=(res.m - np.log(10.0), res.mu), **kw)
         parts["two-reference"], _ = two_reference_doi(ra.m, rb.m, np.log(rho_hs * 10),
                                                       np.log(rho_hs / 10), h, cutoff=thr)
     return float(min(parts.values())), parts
