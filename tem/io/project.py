@@ -18,8 +18,10 @@ into the same layout under ``--out`` (docs/pipeline.md)::
 
 so a product has the same name whichever door made it. :func:`check_output`
 refuses, before anything is written, an output folder that is or lies inside
-the survey's folder or a recording folder, that is an input file, or whose
-stage folders hold an input that the stage could overwrite or prune.
+the survey's folder or a recording folder, that is an input file or the
+folder holding one (``tem gate stacked/EM01.nc --out stacked``, ``tem forward
+model.csv ... --out .``), or whose stage folders hold an input that the stage
+could overwrite or prune.
 """
 from __future__ import annotations
 
@@ -121,6 +123,9 @@ def check_output(out, stages, inputs=(), read_only=(), planned=(), option="--out
         f = Path(f).resolve()
         if f == o or _inside(o, f) and f.is_file():
             raise input_error(option, f"is the input {f}; choose a separate output folder", out)
+        if f.is_file() and o == f.parent:
+            raise input_error(option, f"is the folder of the input {f.name}; products never go "
+                              "beside their inputs: choose a separate output folder", out)
         if f in targets or any(_inside(f, d) for d in folders):
             raise input_error(option, f"would overwrite or remove the input {f}; choose a separate "
                               "output folder", out)
