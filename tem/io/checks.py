@@ -77,12 +77,15 @@ def number(value, field, file=None, *, minimum=None, maximum=None, positive=Fals
     if isinstance(value, str):
         if not parse_text:
             raise input_error(field, f"expected a number, got text {show(value)}", file)
-        if len(value) > 100:
-            raise input_error(field, f"not a number: {show(value)}", file)
+        t = value.strip()
         try:
-            value = float(value)
+            if len(t) > 10_000:
+                raise ValueError
+            value = float(t)
         except ValueError:
             raise input_error(field, f"not a number: {show(value)}", file) from None
+        if math.isinf(value) and "inf" not in t.lower():
+            raise input_error(field, f"out of range: {show(t)}", file)
     if not isinstance(value, (int, float, np.integer, np.floating)):
         raise input_error(field, f"expected a number, got {_kind(value)}", file)
     try:
