@@ -123,12 +123,12 @@ def check_output(out, stages, inputs=(), read_only=(), planned=(), option="--out
         f = Path(f).resolve()
         if f == o or _inside(o, f) and f.is_file():
             raise input_error(option, f"is the input {f}; choose a separate output folder", out)
-        if f.is_file() and o == f.parent:
-            raise input_error(option, f"is the folder of the input {f.name}; products never go "
-                              "beside their inputs: choose a separate output folder", out)
         if f in targets or any(_inside(f, d) for d in folders):
             raise input_error(option, f"would overwrite or remove the input {f}; choose a separate "
                               "output folder", out)
+        if f.is_file() and o == f.parent:
+            raise input_error(option, f"is the folder of the input {f.name}; products never go "
+                              "beside their inputs: choose a separate output folder", out)
 
 
 class ProjectLock:
