@@ -198,8 +198,8 @@ def models():
     from profile_fixture import synthetic_models
     from tem.io.netcdf import netcdf_bytes
 
-    ds = synthetic_models()
-    return Base(ds=ds, bytes=netcdf_bytes(ds))
+    ds = synthetic_models().isel(station=slice(0, 3), layer=slice(0, 8))   # small: fast checks
+    return Base(ds=ds, bytes=netcdf_bytes(synthetic_models()))
 
 
 def _check_models(ds, name):
@@ -277,9 +277,9 @@ MODEL_NAMED = [
     (_set("resistivity", -5.0), "resistivity: non-positive"),
     (_set("resistivity", 1e300), "resistivity: out of range"),
     (_set("thickness", np.inf), "thickness: holds infinite"),
-    (lambda ds: ds.assign_coords(station=("station", ["EP-01", "EP\x0002", "c", "d", "e"])),
+    (lambda ds: ds.assign_coords(station=("station", ["EP-01", "EP\x0002", "c"])),
      "station: holds a control or NUL"),
-    (lambda ds: ds.assign_coords(station=("station", ["a", "a", "c", "d", "e"])),
+    (lambda ds: ds.assign_coords(station=("station", ["a", "a", "c"])),
      "station: a station id is listed twice"),
     (lambda ds: ds.attrs.update(epsg=10**15), "epsg: must be >= 0 and <= 1000000"),
 ]
