@@ -175,8 +175,8 @@ def _provenance(ds, file):
     import json
 
     text = ds.attrs.get("provenance")
-    if text is None:
-        return
+    if text is None or (isinstance(text, str) and not text.strip()):
+        return                              # no records (tem.provenance.records_from_json)
     try:
         records = json.loads(text) if isinstance(text, str) else None
     except (ValueError, RecursionError):
@@ -186,9 +186,10 @@ def _provenance(ds, file):
 
 
 def check_product(ds, fmt: str, file=None):
-    """Check a ``stacked`` or ``gated`` Dataset (other formats: attributes only); return it."""
-    if fmt in ("stacked", "gated"):
-        _attrs(ds, file)
+    """Check a ``stacked`` or ``gated`` Dataset (other formats pass unchanged); return it."""
+    if fmt not in ("stacked", "gated"):
+        return ds
+    _attrs(ds, file)
     _provenance(ds, file)
     for dim, n in ds.sizes.items():
         if n > checks.MAX_ELEMENTS:
