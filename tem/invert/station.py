@@ -239,7 +239,8 @@ def invert_station(sd, settings: InversionSettings = InversionSettings(), callba
     if settings.kind in ("few-layer", "posterior"):
         out.few = fewlayer_station(sd, settings, res.m, h, doi)
     if settings.kind == "posterior":
-        from .posterior import posterior_station
+        from .posterior import posterior_station, restarted_fit
+        out.few = restarted_fit(sd, settings, out.few, res.m, h, doi)
         out.posterior = posterior_station(sd, settings, out.few)
     return out
 
