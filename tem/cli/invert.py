@@ -38,6 +38,8 @@ def run(args) -> int:
             continue
         i = oc.info
         extra = f", few-layer chi2 {i['few_layer_chi2']:.2f}" if "few_layer_chi2" in i else ""
+        if "rhat_max" in i:
+            extra += f", R-hat {i['rhat_max']:.3f}, ESS {i['ess_min']:.0f}"
         note = f" ({i['invert_message']})" if i.get("invert_message") else ""
         console.print(f"{sid}: chi2 {i['chi2']:.2f}, DOI {i['doi']:.0f} m{extra}{note}",
                       highlight=False)
