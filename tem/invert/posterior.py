@@ -324,13 +324,10 @@ def restarted_fit(sd, settings, few, m_smooth, h_smooth, doi):
 
     When the fit's chi2 per datum exceeds 1.5 (its target is 1), the
     Levenberg-Marquardt fit is repeated from ``settings.posterior_restarts``
-    starts, alternately: the fit itself or a smooth-model candidate
+    starts: the fit itself and the smooth-model candidates
     (:func:`tem.invert.fewlayer.starting_models`) with ln(rho) perturbed by
-    N(0, 1) and ln(thickness) by N(0, 0.5^2), and a random model
-    (resistivities log-uniform between half the smooth model's smallest and
-    twice its largest, interface depths log-uniform from 5 m to the DOI);
-    seeded from ``settings.posterior_seed``. The fit with the lowest
-    objective is kept.
+    N(0, 1) and ln(thickness) by N(0, 0.5^2) (seeded from
+    ``settings.posterior_seed``); the fit with the lowest objective is kept.
     The sampler explores around its start, so a start in a wrong basin would
     otherwise give a confident posterior of the wrong model. Returns the
     few-layer dict (the given one when it already fits).
@@ -350,22 +347,11 @@ def restarted_fit(sd, settings, few, m_smooth, h_smooth, doi):
         return sd.jacobian(rho, h, with_thickness=True)
 
     best, best_obj = few, None
-    if m_smooth is not None:
-        lo_r, hi_r = np.exp(np.min(m_smooth)) / 2, np.exp(np.max(m_smooth)) * 2
-    else:
-        lo_r, hi_r = np.min(few["resistivity"]) / 10, np.max(few["resistivity"]) * 10
-    z_hi = doi if (doi is not None and np.isfinite(doi) and doi > 0) else 2 * float(np.sum(few["thickness"]))
     for t in range(settings.posterior_restarts):
-        if t % 2 == 0:       # a perturbed candidate
-            rho0, h0 = bases[(t // 2) % len(bases)]
-            rho = rho0 * np.exp(rng.standard_normal(n))
-            h = h0 * np.exp(0.5 * rng.standard_normal(n - 1))
-        else:                # a random model: log-uniform resistivities and interface depths
-            rho = np.exp(rng.uniform(np.log(lo_r), np.log(hi_r), n))
-            z = np.sort(np.exp(rng.uniform(np.log(5.0), np.log(max(z_hi, 10.0)), n - 1)))
-            h = np.diff(np.concatenate([[0.0], z]))
-        rho = np.clip(rho, RES_BOUNDS[0] * 1.01, RES_BOUNDS[1] / 1.01)
-        h = np.clip(h, THK_BOUNDS[0] * 1.01, THK_BOUNDS[1] / 1.01)
+        rho0, h0 = bases[t % len(bases)]
+        rho = np.clip(rho0 * np.exp(rng.standard_normal(n)), RES_BOUNDS[0] * 1.01, RES_BOUNDS[1] / 1.01)
+        h = np.clip(h0 * np.exp(0.5 * rng.standard_normal(n - 1)), THK_BOUNDS[0] * 1.01,
+                    THK_BOUNDS[1] / 1.01)
         try:
             fr = fewlayer_inversion(layer_fwd, sd.d_obs, sd.std, rho, h, priors=tuple(settings.priors),
                                     max_iter=settings.lm_max_iter)
