@@ -242,6 +242,9 @@ INVERT = SettingsTable("invert", [
     Setting("posterior_anneal", 0.0, "float", minimum=0, maximum=0.45,
             help="posterior sampling: fraction of the burn-in spent annealing from a tempered "
             "likelihood, so chains can leave a poor few-layer fit (0: off)"),
+    Setting("posterior_restarts", 12, "int", minimum=0, maximum=1000,
+            help="posterior sampling: extra few-layer fits from perturbed starts when the fit's "
+            "chi2 per datum exceeds 1.5; the best starts the chains (0: off)"),
     Setting("cover_layers", 1, "int", minimum=0, maximum=6,
             help="layers of cover from the top; the target is the most conductive layer below "
             "them (posterior products)"),

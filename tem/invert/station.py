@@ -305,7 +305,8 @@ def invert_station(sd, settings: InversionSettings = InversionSettings(), callba
         # judged here, from the final few-layer fit, whichever search produced it
         out.few["verdict"] = few_verdict(settings, out.few, sd.d_obs.size)
     if settings.kind == "posterior":
-        from .posterior import posterior_station
+        from .posterior import posterior_station, restarted_fit
+        out.few = restarted_fit(sd, settings, out.few, res.m, h, doi)
         out.posterior = posterior_station(sd, settings, out.few)
     return out
 
