@@ -32,8 +32,12 @@ the first ones of the ascending grid, and every loop runs over a prefix.
 
 Derivatives with respect to ln(resistivity) of every layer and
 ln(thickness) come from one reverse sweep through the recursion (reverse-mode
-differentiation), so all derivatives together cost a small multiple of one
-kernel evaluation.
+differentiation): the upward pass stores each layer's partial derivatives,
+and one downward pass per receiver, seeded with that receiver's wavenumber
+coefficients, chains them and sums over wavenumbers as it goes (TE and TM
+chains together), so all derivatives cost 1.6-2x one kernel evaluation.
+e_n is floored at exp(-80) (``_E_ARG_MIN``) so that no product in these
+passes becomes a subnormal number.
 
 :func:`fused_spectra` evaluates the kernels and integrates them against the
 caller's wavenumber-coefficient matrices in one compiled pass;
@@ -158,7 +162,7 @@ def _bottom_up(scale, gr, gi, er, ei, A, B, XR, XI):  # pragma: no cover - compi
 
 
 @nb.njit(**_JIT)
-def _bottom_up_jac(scale, tmf, wm, sig, thk, lam, gr, gi, er, ei, A, B, XR, XI, FR, FI, GR, GI,
+def _bottom_up_jac(scale, tmf, wm, sig, thk, l2, gr, gi, er, ei, A, B, XR, XI, FR, FI, GR, GI,
                    jac_thk, HR, HI):  # pragma: no cover - compiled
     """:func:`_bottom_up` plus the per-layer partial derivatives the reverse sweep chains.
 
@@ -192,10 +196,10 @@ def _bottom_up_jac(scale, tmf, wm, sig, thk, lam, gr, gi, er, ei, A, B, XR, XI, 
         gro = GR[n]
         gio = GI[n]
         for il in range(B[n], A[n]):
-            l2 = lam[il] * lam[il]
-            t = 0.5 * q / (l2 * l2 + q * q)
+            x = l2[il]
+            t = 0.5 * q / (x * x + q * q)
             dr = -t * q + tmf
-            di = -t * l2
+            di = -t * x
             kr = c * grn[il]
             ki = c * gin[il]
             xro[il] = kr
@@ -203,10 +207,10 @@ def _bottom_up_jac(scale, tmf, wm, sig, thk, lam, gr, gi, er, ei, A, B, XR, XI, 
             gro[il] = dr * kr - di * ki
             gio[il] = dr * ki + di * kr
         for il in range(B[n]):
-            l2 = lam[il] * lam[il]
-            t = 0.5 * q / (l2 * l2 + q * q)
+            x = l2[il]
+            t = 0.5 * q / (x * x + q * q)
             dr = -t * q
-            di = -t * l2
+            di = -t * x
             kr = c * grn[il]
             ki = c * gin[il]
             e_r = ern[il]
@@ -226,12 +230,10 @@ def _bottom_up_jac(scale, tmf, wm, sig, thk, lam, gr, gi, er, ei, A, B, XR, XI, 
             inv = 1.0 / (d_r * d_r + d_i * d_i)
             w_r = d_r * inv
             w_i = -d_i * inv
-            nwr = nr_ * w_r - ni_ * w_i
-            nwi = nr_ * w_i + ni_ * w_r
-            x0r = kr * nwr - ki * nwi                  # X_n = K N w
-            x0i = kr * nwi + ki * nwr
             kwr = kr * w_r - ki * w_i                  # K w
             kwi = kr * w_i + ki * w_r
+            x0r = kwr * nr_ - kwi * ni_                # X_n = K w N
+            x0i = kwr * ni_ + kwi * nr_
             k2r = kwr * kwr - kwi * kwi
             k2i = 2.0 * kwr * kwi
             fr = 4.0 * (e_r * k2r - e_i * k2i)         # F = 4 e (K w)^2
@@ -265,6 +267,83 @@ def _bottom_up_jac(scale, tmf, wm, sig, thk, lam, gr, gi, er, ei, A, B, XR, XI, 
 
 
 @nb.njit(**_JIT)
+def _bottom_up_jac_te(wm, sig, thk, l2, gr, gi, er, ei, A, B, XR, XI, FR, FI, GR,
+                      GI):  # pragma: no cover - compiled
+    """:func:`_bottom_up_jac` for TE (K = Gamma), resistivity derivatives only, written as
+    G = d [X_n - F (X + h P M)]: one complex product fewer per layer and wavenumber."""
+    L = sig.size
+    for n in range(L - 1, -1, -1):
+        q = wm * sig[n]
+        h = thk[n]
+        rb = n + 1 if n + 1 < L else n
+        grn = gr[n]
+        gin = gi[n]
+        ern = er[n]
+        ein = ei[n]
+        xro = XR[n]
+        xio = XI[n]
+        xrb = XR[rb]
+        xib = XI[rb]
+        fro = FR[n]
+        fio = FI[n]
+        gro = GR[n]
+        gio = GI[n]
+        for il in range(B[n], A[n]):
+            x = l2[il]
+            t = 0.5 * q / (x * x + q * q)
+            dr = -t * q
+            di = -t * x
+            kr = grn[il]
+            ki = gin[il]
+            xro[il] = kr
+            xio[il] = ki
+            gro[il] = dr * kr - di * ki
+            gio[il] = dr * ki + di * kr
+        for il in range(B[n]):
+            x = l2[il]
+            t = 0.5 * q / (x * x + q * q)
+            dr = -t * q
+            di = -t * x
+            kr = grn[il]
+            ki = gin[il]
+            e_r = ern[il]
+            e_i = ein[il]
+            xr = xrb[il]
+            xi = xib[il]
+            pr = xr + kr
+            pi = xi + ki
+            mr = xr - kr
+            mi = xi - ki
+            emr = e_r * mr - e_i * mi
+            emi = e_r * mi + e_i * mr
+            nr_ = pr + emr
+            ni_ = pi + emi
+            d_r = pr - emr
+            d_i = pi - emi
+            inv = 1.0 / (d_r * d_r + d_i * d_i)
+            w_r = d_r * inv
+            w_i = -d_i * inv
+            kwr = kr * w_r - ki * w_i                  # K w
+            kwi = kr * w_i + ki * w_r
+            x0r = kwr * nr_ - kwi * ni_                # X_n = K w N
+            x0i = kwr * ni_ + kwi * nr_
+            k2r = kwr * kwr - kwi * kwi
+            k2i = 2.0 * kwr * kwi
+            fr = 4.0 * (e_r * k2r - e_i * k2i)         # F = 4 e (K w)^2
+            fi = 4.0 * (e_r * k2i + e_i * k2r)
+            yr = xr + h * (pr * mr - pi * mi)          # X + h P M
+            yi = xi + h * (pr * mi + pi * mr)
+            vr = x0r - (fr * yr - fi * yi)             # X_n - F (X + h P M)
+            vi = x0i - (fr * yi + fi * yr)
+            xro[il] = x0r
+            xio[il] = x0i
+            fro[il] = fr
+            fio[il] = fi
+            gro[il] = dr * vr - di * vi
+            gio[il] = dr * vi + di * vr
+
+
+@nb.njit(**_JIT)
 def _reverse_sum(ar, ai, A, B, FR, FI, GR, GI, HR, HI, jac_thk, out):  # pragma: no cover
     """Chain rule from the surface down, summed over wavenumbers: out[n] += sum a_n G_n over
     the first A[n] wavenumbers, out[L + n] += sum a_n H_n over the first B[n]; a_0 = ar + i ai
@@ -293,6 +372,29 @@ def _reverse_sum(ar, ai, A, B, FR, FI, GR, GI, HR, HI, jac_thk, out):  # pragma:
 
 
 @nb.njit(**_JIT)
+def _reverse_sum2(ar, ai, br, bi, A, B, FR, FI, GR, GI, PR, PI, QR, QI, out):  # pragma: no cover
+    """:func:`_reverse_sum` of the TE (a; F, G) and TM (b; P, Q) chains in one sweep,
+    resistivity derivatives only."""
+    L = A.size
+    for n in range(L):
+        grn, gin, frn, fin = GR[n], GI[n], FR[n], FI[n]
+        qrn, qin, prn, pin = QR[n], QI[n], PR[n], PI[n]
+        s_r = 0.0
+        s_i = 0.0
+        for il in range(A[n]):
+            s_r += ar[il] * grn[il] - ai[il] * gin[il] + br[il] * qrn[il] - bi[il] * qin[il]
+            s_i += ar[il] * gin[il] + ai[il] * grn[il] + br[il] * qin[il] + bi[il] * qrn[il]
+        out[n] += complex(s_r, s_i)
+        for il in range(B[n]):
+            a_r = ar[il]
+            ar[il] = a_r * frn[il] - ai[il] * fin[il]
+            ai[il] = a_r * fin[il] + ai[il] * frn[il]
+            b_r = br[il]
+            br[il] = b_r * prn[il] - bi[il] * pin[il]
+            bi[il] = b_r * pin[il] + bi[il] * prn[il]
+
+
+@nb.njit(**_JIT)
 def _one_model(lam, omega, res, thk, need_tm, jac, jac_thk, Gr, Ga, Gb, F, dF):  # pragma: no cover
     """F[w, r] += sum_l rte (Gr + i w mu0 Ga) + btm Gb, and the same for derivatives."""
     nw = omega.size
@@ -314,13 +416,15 @@ def _one_model(lam, omega, res, thk, need_tm, jac, jac_thk, Gr, Ga, Gb, F, dF): 
     ZR = np.zeros((L, nl))
     ZI = np.zeros((L, nl))
     rows = L if jac else 1
-    W = np.zeros((12, rows, nl))           # F, G, H of TE, then of TM (jac only)
+    W = np.empty((12, rows, nl))           # F, G, H of TE, then of TM (jac only)
     rr = np.empty(nl)
     ri = np.empty(nl)
     sr = np.empty(nl)
     si = np.empty(nl)
     ar = np.empty(nl)
     ai = np.empty(nl)
+    br = np.empty(nl)
+    bi = np.empty(nl)
     out = np.zeros(2 * L, np.complex128)
     lgb = np.zeros(nr)                     # sum_l lambda Gb: d(-rho_1 lambda)/dln rho_1 term
     for ir in range(nr):
@@ -330,10 +434,14 @@ def _one_model(lam, omega, res, thk, need_tm, jac, jac_thk, Gr, Ga, Gb, F, dF): 
         wm = omega[iw] * MU0
         _top_down(l2, wm, sig, thk, gr, gi, er, ei, att, A, B)
         if jac:
-            _bottom_up_jac(ones, 0.0, wm, sig, thk, lam, gr, gi, er, ei, A, B, XR, XI,
-                           W[0], W[1], W[2], W[3], jac_thk, W[4], W[5])
+            if jac_thk:
+                _bottom_up_jac(ones, 0.0, wm, sig, thk, l2, gr, gi, er, ei, A, B, XR, XI,
+                               W[0], W[1], W[2], W[3], jac_thk, W[4], W[5])
+            else:
+                _bottom_up_jac_te(wm, sig, thk, l2, gr, gi, er, ei, A, B, XR, XI, W[0], W[1],
+                                  W[2], W[3])
             if need_tm:
-                _bottom_up_jac(res, 1.0, wm, sig, thk, lam, gr, gi, er, ei, A, B, ZR, ZI,
+                _bottom_up_jac(res, 1.0, wm, sig, thk, l2, gr, gi, er, ei, A, B, ZR, ZI,
                                W[6], W[7], W[8], W[9], jac_thk, W[10], W[11])
         else:
             _bottom_up(ones, gr, gi, er, ei, A, B, XR, XI)
@@ -381,13 +489,19 @@ def _one_model(lam, omega, res, thk, need_tm, jac, jac_thk, Gr, Ga, Gb, F, dF): 
                 ar[il] = sr[il] * gri[il] - si[il] * ga
                 ai[il] = si[il] * gri[il] + sr[il] * ga
             out[:] = 0.0
-            _reverse_sum(ar, ai, A, B, W[0], W[1], W[2], W[3], W[4], W[5], jac_thk, out)
             if need_tm:
                 for il in range(nl):
-                    ar[il] = gbi[il]
-                    ai[il] = 0.0
-                _reverse_sum(ar, ai, A, B, W[6], W[7], W[8], W[9], W[10], W[11], jac_thk, out)
+                    br[il] = gbi[il]
+                    bi[il] = 0.0
                 out[0] -= res[0] * lgb[ir]
+            if need_tm and not jac_thk:
+                _reverse_sum2(ar, ai, br, bi, A, B, W[0], W[1], W[2], W[3], W[6], W[7], W[8], W[9],
+                              out)
+            else:
+                _reverse_sum(ar, ai, A, B, W[0], W[1], W[2], W[3], W[4], W[5], jac_thk, out)
+                if need_tm:
+                    _reverse_sum(br, bi, A, B, W[6], W[7], W[8], W[9], W[10], W[11], jac_thk,
+                                 out)
             for p in range(2 * L if jac_thk else L):
                 dF[p, iw, ir] += out[p]
 
@@ -398,11 +512,6 @@ def _many_models(lam, omega, res, thk, need_tm, Gr, Ga, Gb, F):  # pragma: no co
     dummy = np.zeros((0, omega.size, Gr.shape[0]), np.complex128)
     for m in nb.prange(res.shape[0]):
         _one_model(lam, omega, res[m], thk[m], need_tm, False, False, Gr, Ga, Gb, F[m], dummy)
-
-
-def _param_index(L, jac_thk):
-    """Slots of the derivative vector: ln rho_0..L-1, then ln h_0..L-2."""
-    return np.r_[np.arange(L), L + np.arange(L - 1)] if jac_thk else np.arange(L)
 
 
 def fused_spectra(lam, omega, resistivity, thickness, Gr, Ga, Gb, need_tm=True, jac=False,
@@ -424,7 +533,8 @@ def fused_spectra(lam, omega, resistivity, thickness, Gr, Ga, Gb, need_tm=True, 
     _one_model(lam, omega, res, thk, bool(need_tm), bool(jac), bool(jac_thk), Gr, Ga, Gb, F, dF)
     if not jac:
         return F, None
-    return F, dF[_param_index(L, jac_thk)]
+    # slots: ln rho_0..L-1, then ln h_0..L-2 (slot 2L - 1, the half-space, is unused)
+    return F, dF[:2 * L - 1 if jac_thk else L]
 
 
 def fused_spectra_many(lam, omega, resistivity, thickness, Gr, Ga, Gb, need_tm=True):

@@ -472,7 +472,12 @@ class Simulation:
         F, dF = self._kernel(self._omega, res, thk, jac=True, jac_thk=thickness)
         dF[0] += res[0] * self._analytic[:, 0]
         d = self._time_domain(self._spectra(res, F))
-        J = np.moveaxis(self._time_domain(dF), 0, -1)              # (nr, n_out, npar)
+        J = np.empty((len(self.receivers), self._n_out, dF.shape[0]))   # (nr, n_out, npar)
+        for r in range(J.shape[0]):
+            J[r] = self._Dre[r] @ dF[:, :, r].imag.T
+            if self._use_re:
+                J[r] += self._Dim[r] @ dF[:, :, r].real.T
+        J *= self._scale[:, None, None]
         if self._needs_dc:
             dc, ddc = self._dc_values(res, thk, jac=True, jac_thk=thickness)
             d += dc[:, None] * self._dc_row
