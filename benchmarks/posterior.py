@@ -90,7 +90,11 @@ def one(job):
     tt = target_tops(r.posterior.flat, n, kl)
     q = np.quantile(tt, [0.025, 0.1, 0.9, 0.975])
     zl, sl = float(r.few["depth_top"][kl]), float(r.few["depth_std"][kl])
-    return dict(sounding=i, model=k, offset=off, seed=seed, truth=truth, layer=kl, p025=q[0], p10=q[1],
+    from scipy.stats import norm
+    pit = float(np.mean(tt < truth))                 # probability integral transform of the truth
+    pit_lin = float(norm.cdf((truth - zl) / sl)) if sl > 0 else float(truth > zl)
+    return dict(sounding=i, model=k, offset=off, seed=seed, truth=truth, layer=kl, pit=pit,
+                pit_lin=pit_lin, p025=q[0], p10=q[1],
                 p90=q[2], p975=q[3], lin=zl, lin_std=sl, in80=bool(q[1] <= truth <= q[2]),
                 in95=bool(q[0] <= truth <= q[3]), in80_lin=bool(abs(truth - zl) <= Z80 * sl),
                 in95_lin=bool(abs(truth - zl) <= Z95 * sl), seconds=seconds, cpu_s=cpu,
@@ -105,6 +109,7 @@ def main(argv=None):
     ap.add_argument("--burn", type=int, default=2000, help="burn-in steps per chain")
     ap.add_argument("--anneal", type=float, default=0.0, help="annealed fraction of the burn-in")
     ap.add_argument("--only", type=int, nargs="*", help="sounding indices (first noise draw only)")
+    ap.add_argument("--plot", help="write a coverage figure (PNG) here")
     ap.add_argument("--jobs", type=int, default=1, help="soundings in parallel")
     ap.add_argument("--seed", type=int, default=7000, help="first noise seed")
     a = ap.parse_args(argv)
@@ -119,8 +124,39 @@ def main(argv=None):
             print(json.dumps({k: (round(v, 3) if isinstance(v, float) else v) for k, v in row.items()}),
                   file=sys.stderr, flush=True)
 
+    if a.plot:
+        coverage_figure(rows, a.plot)
     summarise(rows, f"empymod 8 earths x 2 offsets x {a.repeats} noise draws, layers known, "
               f"{a.draws}+{a.burn} steps x 4 chains, anneal {a.anneal:g}")
+
+
+def coverage_figure(rows, path):
+    """Empirical coverage of central intervals against their nominal level, posterior and
+    linearised: the fraction of soundings with |PIT - 1/2| <= level / 2."""
+    from matplotlib.backends.backend_agg import FigureCanvasAgg
+    from matplotlib.figure import Figure
+
+    level = np.linspace(0.0, 1.0, 101)
+    fig = Figure(figsize=(5.5, 5), layout="constrained")
+    FigureCanvasAgg(fig)
+    ax = fig.add_subplot()
+    n = len(rows)
+    band = 1.96 * np.sqrt(level * (1 - level) / n)
+    ax.fill_between(level, level - band, level + band, color="0.85", label="binomial 95 % band")
+    ax.plot(level, level, color="0.4", lw=0.8)
+    for key, lab, col in (("pit", "posterior", "#1b4f72"), ("pit_lin", "linearised", "#c0392b")):
+        p = np.array([r[key] for r in rows])
+        cov = [(np.abs(p - 0.5) <= lv / 2).mean() for lv in level]
+        ax.plot(level, cov, color=col, lw=1.8, label=f"{lab} intervals")
+    for lv in (0.8, 0.95):
+        ax.axvline(lv, color="0.6", ls=":", lw=0.8)
+    ax.set_xlabel("nominal level of the central interval")
+    ax.set_ylabel("fraction of soundings whose true target top is inside")
+    ax.set_title(f"target-top intervals on {n} empymod soundings")
+    ax.legend(loc="upper left", fontsize=8)
+    ax.set_xlim(0, 1)
+    ax.set_ylim(0, 1)
+    fig.savefig(path, dpi=130)
 
 
 def summarise(rows, case):

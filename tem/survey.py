@@ -21,7 +21,7 @@ from .errors import TemInputError, input_error
 from .io import checks
 from .io.tomlfile import read_toml
 
-__all__ = ["COMPONENTS", "E_COMPONENTS", "COIL_COMPONENTS", "Transmitter", "Receiver",
+__all__ = ["COMPONENTS", "E_COMPONENTS", "COIL_COMPONENTS", "Transmitter", "Channel",
            "Station", "Survey", "read_survey", "write_survey", "survey_to_dict",
            "parse_time", "format_time", "seconds_between"]
 
@@ -217,7 +217,7 @@ class Transmitter:
 
 # ---------------------------------------------------------------------------- receivers
 @dataclass(frozen=True)
-class Receiver:
+class Channel:
     """One recorded channel at a station.
 
     Parameters
@@ -516,7 +516,7 @@ def survey_from_dict(doc: dict, base_dir=".") -> Survey:
                 if key not in rx:
                     raise input_error(f"{where}.{key}", "missing")
             try:
-                rxs.append(Receiver(component=rx["component"], files=rx["files"],
+                rxs.append(Channel(component=rx["component"], files=rx["files"],
                                     sample_rate=rx["sample_rate"], gain=rx.get("gain", 1.0),
                                     dipole=rx.get("dipole"), coil_area=rx.get("coil_area"),
                                     format=rx.get("format"), column=rx.get("column", 0),

@@ -5,6 +5,9 @@ truncate, duplicate), tokens known to break readers inserted anywhere or in
 place of a number (integers of hundreds and thousands of digits, 1e300, NaN,
 NUL, invalid UTF-8, brackets, quotes), and field edits of a parsed TOML
 document (a value replaced by one of another type, a key removed or added).
+
+``TEM_FUZZ_EXAMPLES=200`` (environment) shortens a local run; CI and
+``make test`` use the default of 2000 examples per reader.
 """
 from __future__ import annotations
 

@@ -198,8 +198,8 @@ def models():
     from profile_fixture import synthetic_models
     from tem.io.netcdf import netcdf_bytes
 
-    ds = synthetic_models()
-    return Base(ds=ds, bytes=netcdf_bytes(ds))
+    ds = synthetic_models().isel(station=slice(0, 3), layer=slice(0, 8))   # small: fast checks
+    return Base(ds=ds, bytes=netcdf_bytes(synthetic_models()))
 
 
 def _check_models(ds, name):
@@ -225,3 +225,119 @@ def test_fuzz_models_bytes(models, data):
 
     raw = data.draw(byte_mutation(models["bytes"]))
     _one_line(read_models, io.BytesIO(raw), name="netCDF")
+
+
+# ---------------------------------------------------------------- named cases
+def _variant(ds, edit):
+    ds = ds.copy(deep=True)
+    return edit(ds) or ds
+
+
+def _set(name, value, index=0):
+    def edit(ds):
+        v = ds[name].values.astype(float)
+        v.flat[index] = value
+        return ds.assign({name: (ds[name].dims, v)}) if name not in ds.coords else \
+            ds.assign_coords({name: (ds[name].dims, v)})
+    return edit
+
+
+NAMED = [
+    ("stacked", lambda ds: ds.drop_vars("influence"), "influence: required variable missing"),
+    ("stacked", _set("time", 1e300, -1), "time: out of range"),
+    ("stacked", _set("value", np.inf, 3), "value: holds infinite or missing values"),
+    ("stacked", lambda ds: ds.attrs.update(x=1e300), "x: out of range"),
+    ("stacked", lambda ds: ds.attrs.update(tx_points="-750 800 750 800"), "tx_points: expected"),
+    ("stacked", lambda ds: ds.attrs.update(base_frequency="0.25"), "base_frequency: expected a "
+     "number, got text"),
+    ("stacked", lambda ds: ds.attrs.update(station="EM\x0005"), "station: holds a control"),
+    ("stacked", lambda ds: ds.attrs.update(provenance="{oops"), "provenance: not a JSON list"),
+    ("gated", _set("gate_open", 1e300), "gate_open: out of range"),
+    ("gated", _set("gate_close", -1.0), "gate_close: must be positive"),
+    ("gated", lambda ds: ds.drop_vars("usable"), "usable: required variable missing"),
+    ("gated", lambda ds: ds.assign(usable=ds["usable"].astype(str)), "usable: expected true/false"),
+    ("gated", lambda ds: ds.attrs.update(tem_format="stacked"), "tem_format: expected 'gated'"),
+    ("gated", lambda ds: ds.attrs.update(format_version="2.0"), "format_version: '2.0' not"),
+]
+
+
+@pytest.mark.parametrize("fmt, edit, field", NAMED)
+def test_named_product_cases(products, fmt, edit, field):
+    from tem.io.stacked import check_dataset
+
+    with pytest.raises(TemInputError) as exc:
+        check_dataset(_variant(products[fmt], edit), fmt, f"{fmt}/EM05.nc")
+    one_line_naming(exc.value, f"{fmt}/EM05.nc")
+    assert field in str(exc.value), str(exc.value)
+
+
+MODEL_NAMED = [
+    (lambda ds: ds.drop_vars("chi2"), "chi2: required variable missing"),
+    (_set("x", 1e300), "x: out of range"),
+    (_set("resistivity", -5.0), "resistivity: non-positive"),
+    (_set("resistivity", 1e300), "resistivity: out of range"),
+    (_set("thickness", np.inf), "thickness: holds infinite"),
+    (lambda ds: ds.assign_coords(station=("station", ["EP-01", "EP\x0002", "c"])),
+     "station: holds a control or NUL"),
+    (lambda ds: ds.assign_coords(station=("station", ["a", "a", "c"])),
+     "station: a station id is listed twice"),
+    (lambda ds: ds.attrs.update(epsg=10**15), "epsg: must be >= 0 and <= 1000000"),
+]
+
+
+@pytest.mark.parametrize("edit, field", MODEL_NAMED)
+def test_named_models_cases(models, edit, field):
+    with pytest.raises(TemInputError) as exc:
+        _check_models(_variant(models["ds"], edit), "models/models.nc")
+    one_line_naming(exc.value, "models/models.nc")
+    assert field in str(exc.value), str(exc.value)
+
+
+def test_corrupt_truncated_and_oversized_netcdf(tmp_path, products, models):
+    import h5netcdf
+
+    from tem.io.models import read_models
+    from tem.io.stacked import read_product
+
+    cases = {"garbage.nc": b"not a netCDF file\n" * 10,
+             "truncated.nc": products["stacked_bytes"][:5000],
+             "empty.nc": b"",
+             "zeroed.nc": b"\x00" * 4096 + products["gated_bytes"][4096:]}
+    for name, data in cases.items():
+        (tmp_path / name).write_bytes(data)
+        for read in (lambda p: read_product(p, "stacked"), read_models):
+            with pytest.raises(TemInputError) as exc:
+                read(tmp_path / name)
+            one_line_naming(exc.value, tmp_path / name)
+            assert "not readable as netCDF" in str(exc.value)
+    # a compressed file that promises 10^12 samples is refused before anything is loaded
+    big = tmp_path / "big.nc"
+    with h5netcdf.File(big, "w") as f:
+        f.dimensions = {"time": 10**12}
+        f.create_variable("time", ("time",), float, chunks=(4096,), compression="gzip")
+        f.attrs["tem_format"] = "stacked"
+    with pytest.raises(TemInputError) as exc:
+        read_product(big, "stacked")
+    one_line_naming(exc.value, big)
+    assert "time: 1000000000000 values" in str(exc.value)
+
+
+def test_bad_products_at_the_command_line(tmp_path, products, capsys):
+    from tem.cli import main
+
+    garbage = tmp_path / "in" / "models.nc"
+    garbage.parent.mkdir()
+    garbage.write_bytes(b"\x89HDF\r\n\x1a\n" + b"\xff" * 600)
+    assert main(["section", str(garbage), "--out", str(tmp_path / "o")]) == 2
+    err = capsys.readouterr().err
+    assert err.count("\n") == 1 and f"{garbage}: models: not readable as netCDF" in err, err
+    # a per-station product: that station fails with one line naming file and variable
+    st = tmp_path / "st"
+    st.mkdir()
+    bad = products["stacked"].drop_vars("value")
+    (st / "EM05.nc").write_bytes(__import__("tem.io.netcdf").io.netcdf.netcdf_bytes(bad))
+    rc = main(["gate", str(st), "--out", str(tmp_path / "g"), "--no-figures", "--no-progress",
+               "--jobs", "1"])
+    err = [ln for ln in capsys.readouterr().err.splitlines() if "EM05" in ln]
+    assert rc == 1 and len(err) == 1, err
+    assert f"{st / 'EM05.nc'}: value: required variable missing" in err[0], err

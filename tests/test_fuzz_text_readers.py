@@ -118,9 +118,9 @@ NPY_FIELDS = st.builds(
 @given(data=st.one_of(NPY_FIELDS, byte_mutation(_npy_bytes()[:200]).map(
     lambda b: b + np.arange(1000, dtype=np.int32).tobytes()), byte_mutation(_npy_bytes())))
 def test_fuzz_npy_header(npy_file, data):
-    npy_file.with_suffix(".toml").write_text(__import__("tomli_w").dumps(HDR))
     p = npy_file.with_name("hdr.npy")
-    p.with_suffix(".toml").write_text(__import__("tomli_w").dumps(HDR))
+    if not p.with_suffix(".toml").is_file():
+        p.with_suffix(".toml").write_text(__import__("tomli_w").dumps(HDR))
     p.write_bytes(data)
     _expect_input_error(_open_and_read, p, p.with_suffix(".toml"))
 

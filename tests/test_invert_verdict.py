@@ -6,10 +6,12 @@ below are from scipy.stats.chi2 and agree with printed chi-square tables
 124.342 for 100).
 """
 import math
+import struct
 
 import numpy as np
 
 import pytest
+from profile_fixture import synthetic_models
 
 from tem.invert.settings import InversionSettings
 from tem.invert.verdict import CODES, FAILURES, STATUSES, Verdict, flag_meanings, judge, tolerance
@@ -234,3 +236,65 @@ def test_models_files_carry_verdicts_per_kind():
     add_verdicts(lci, results, "lci")
     assert "lci_verdict_code" in lci and "smooth_verdict_code" not in lci
     assert model_verdicts(lci)[1]["reasons"] == "chi2 1.2 within tolerance 1.50 (target 1, 31 data)"
+
+
+# ----------------------------------------------------------------------------- section, LAS, SEG-Y
+def _models_with_verdicts(codes):
+    """The five-station profile of tests/profile_fixture.py with invented verdict codes."""
+    m = synthetic_models()
+    names = ["fitted", "misfit", "stalled", "parameter-at-bound", "degenerate-layer"]
+    m["verdict_code"] = ("station", np.array(codes, np.int8),
+                         {"flag_values": np.arange(5, dtype=np.int8),
+                          "flag_meanings": flag_meanings()})
+    m["verdict"] = ("station", np.array([f"{names[c]}: chi2 {x:.3g} (invented)" for c, x in
+                                         zip(codes, m["chi2"].values)]))
+    m["verdict_tolerance"] = ("station", np.full(5, 1.5))
+    return m
+
+
+def test_section_columns_take_the_more_severe_neighbour():
+    from tem.section.profile import stitch_models
+
+    m = _models_with_verdicts([0, 1, 0, 3, 0])
+    s = stitch_models(m, 10.0, order="given", lateral="linear", vertical="depth")
+    assert list(s["station_verdict_code"].values) == [0, 1, 0, 3, 0]
+    at = s["distance"].values
+    assert list(s["verdict_code"].values) == [0, 1, 0, 3, 0]        # one column per station
+    between = 0.5 * (at[:-1] + at[1:])
+    s = stitch_models(m, 10.0, order="given", lateral="linear", vertical="depth",
+                      positions=np.sort(np.r_[at, between]))
+    # columns: st0, 0|1, st1, 1|0, st2, 0|3, st3, 3|0, st4
+    assert list(s["verdict_code"].values) == [0, 1, 1, 1, 0, 3, 3, 3, 0]
+    assert s["chi2"].values[1] == pytest.approx(m["chi2"].values[1])
+    s = stitch_models(m, 10.0, order="given", lateral="nearest", vertical="depth",
+                      positions=np.sort(np.r_[at, between + 1.0]))    # just right of midpoints
+    assert list(s["verdict_code"].values) == [0, 1, 1, 0, 0, 3, 3, 0, 0]
+    plain = stitch_models(synthetic_models(), 10.0, order="given", lateral="linear",
+                          vertical="depth")
+    assert "verdict_code" not in plain and "station_verdict_code" not in plain
+
+
+def test_las_verdict_parameters():
+    from tem.export.las import las_for_station
+
+    m = _models_with_verdicts([0, 1, 0, 3, 0])
+    las = las_for_station(m, 1, 10.0)
+    assert las.params["FIT"].value == "MISFIT" and las.params["FITC"].value == 1
+    assert las.params["TOL"].value == 1.5 and "WARNING: verdict MISFIT" in las.other
+    las = las_for_station(m, 3, 10.0)
+    assert las.params["FIT"].value == "PARAMETER-AT-BOUND" and "a limit" in las.other
+    las = las_for_station(synthetic_models(), 0, 10.0)
+    assert las.params["FIT"].value == "UNKNOWN"
+
+
+def test_segy_verdict_word():
+    """Bytes 237-240: two big-endian int16 (code, chi2 x 100) read as one int32 by segyio."""
+    from tem.export.segy import verdict_field, verdict_of_field
+
+    w = verdict_field(1, 25.1)
+    assert struct.pack(">i", w) == struct.pack(">hh", 1, 2510)
+    assert verdict_of_field(w) == (1, 25.1)
+    assert verdict_of_field(verdict_field(0, 1e6)) == (0, 327.67)      # capped at 32767
+    code, chi = verdict_of_field(verdict_field(-1, float("nan")))
+    assert code == -1 and math.isnan(chi)
+    assert verdict_field(-1, float("nan")) == -1                       # 0xFFFFFFFF

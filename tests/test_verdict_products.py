@@ -114,9 +114,16 @@ def test_section_grid_and_figure(project):
     assert list(g["verdict_code"].values.astype(int)) == [0, 1]    # one column per station
     assert g["chi2"].values[1] > 1.5
     fig = section_figure(g, below_doi="shade")
-    gids = {a.get_gid() for a in fig.axes[0].get_children()}
-    assert f"verdict-{BAD}" in gids and f"verdict-label-{BAD}" in gids
-    assert f"verdict-{GOOD}" not in gids
+    ax = fig.axes[0]
+    gids = {a.get_gid() for a in ax.get_children()}
+    assert f"verdict-label-{BAD}" in gids and f"verdict-label-{GOOD}" not in gids
+    # the hatched columns cover EM06's share of the profile and not EM04's
+    d = g["distance"].values
+    mid = 0.5 * (d[0] + d[1])
+    patches = [a for a in ax.get_children() if a.get_gid() == "verdict-columns"]
+    assert len(patches) == 1
+    x = patches[0].get_paths()[0].vertices[:, 0]
+    assert x.min() == pytest.approx(mid) and x.max() >= d[1]
     label = [a for a in fig.axes[0].texts if a.get_gid() == f"verdict-label-{BAD}"][0]
     assert "misfit" in label.get_text()
     assert (out / "figures" / "section.png").stat().st_size > 10_000

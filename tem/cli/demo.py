@@ -32,8 +32,8 @@ floor = 0.03                 # relative error floor
 target = 1.0                 # target chi-square per datum
 kind = "posterior"           # four-layer models with posterior sampling (depth intervals)
 few_layers = 4
-posterior_draws = 1000       # kept draws per chain (capped so the demo stays quick)
-posterior_burn = 1000        # burn-in steps per chain
+posterior_draws = 500        # kept draws per chain (capped so the demo stays quick)
+posterior_burn = 500         # burn-in steps per chain
 
 [processing.section]
 trace_spacing = 100.0        # m: one section column (and SEG-Y trace) every 100 m

@@ -54,10 +54,13 @@ def fit_table(res, console):
         t.add_column(col, justify=just, no_wrap=True)
     t.add_column("reasons and other models", overflow="fold")
     for sid, i in rows:
-        v = i["verdicts"].get(i["model_kind"], {})
+        own = i.get("verdict_kind", i["model_kind"])
+        v = i["verdicts"].get(own, {})
         others = [f"{k} {o['status']} chi2 {o['chi2']:.2f}" for k, o in i["verdicts"].items()
-                  if k != i["model_kind"] and o.get("chi2") is not None]
+                  if k != own and o.get("chi2") is not None]
         reasons = v.get("reasons", [])[1:] + others
+        if "rhat_max" in i:
+            reasons.append(f"posterior R-hat {i['rhat_max']:.3f}, ESS {i['ess_min']:.0f}")
         t.add_row(sid, i["model_kind"], f"[{_COLOUR.get(i['verdict'], 'white')}]{i['verdict']}[/]",
                   f"{i['chi2']:.2f}", f"{v.get('tolerance', float('nan')):.2f}",
                   f"{i['doi']:.0f}", "; ".join(reasons))

@@ -169,7 +169,8 @@ def verdict_params(models, i):
     v = model_verdicts(models)[i]
     if v is None:
         return [("FIT", "", "UNKNOWN", "Verdict on the model: none recorded")]
-    tol = float(models["verdict_tolerance"].values[i]) if "verdict_tolerance" in models else NULL
+    tol = round(float(models["verdict_tolerance"].values[i]), 3) if "verdict_tolerance" in models \
+        else NULL
     reasons = v["reasons"].replace(":", " ")    # a colon ends the value of a LAS line
     return [
         ("FIT", "", v["status"].upper(), "Verdict: FITTED MISFIT STALLED PARAMETER-AT-BOUND "

@@ -124,8 +124,17 @@ def waveform_from_attrs(attrs, source=None):
 
 def response_of(attrs, source=None):
     """``(response, sampling)`` of a gated file; files before format 1.2: waveform, window."""
-    response = str(attrs.get("response", "waveform") or "waveform")
-    sampling = str(attrs.get("sampling", "window") or "window")
+    def text(name, default):
+        v = attrs.get(name, default)
+        if isinstance(v, np.ndarray) and v.size == 1:
+            v = v.reshape(-1)[0]
+        if isinstance(v, np.str_):
+            v = str(v)
+        if not isinstance(v, str):
+            raise input_error(name, f"expected text, got {type(v).__name__}", source)
+        return v or default
+
+    response, sampling = text("response", "waveform"), text("sampling", "window")
     if response not in FILE_RESPONSES:
         raise input_error("response", f"unknown {response!r}; valid: {', '.join(FILE_RESPONSES)}",
                           source)

@@ -98,7 +98,7 @@ def _fixed(priors, n):
 
 
 def global_fewlayer(predict_many, layer_fwd, d_obs, std, n_layers, starts, box, *, population,
-                    evaluations, seed, lm_max_iter, extra=(), priors=(), n_starts=4, polish=3,
+                    evaluations, seed, lm_max_iter, extra=(), priors=(), n_starts=None, polish=3,
                     screen_iter=10, finalists=2, layer_predict=None,
                     res_bounds=(0.1, 1e5), thk_bounds=(1.0, 2e4)):
     """Best few-layer model of ``n_layers`` layers: multi-start LM, differential evolution, LM polish.
@@ -112,23 +112,26 @@ def global_fewlayer(predict_many, layer_fwd, d_obs, std, n_layers, starts, box, 
     starts : list of (rho, h)
         Starts for Levenberg-Marquardt; they also seed the population.
     extra : list of (rho, h)
-        More candidate starts: ranked by the objective, the best ``n_starts``
-        go to Levenberg-Marquardt; all of them seed the population (the starts
-        and these fill at most half of it).
+        More candidate starts (e.g. :func:`split_starts` of the count before):
+        ranked by the objective, the best ``n_starts`` go to Levenberg-Marquardt;
+        all of them seed the population (the starts and these fill at most half
+        of it).
     box : (lower, upper)
         Bounds of the population search in ``[ln rho_0..ln rho_{n-1}, ln h_0..]``.
     population : int
         Population size per free parameter.
     evaluations : int
         Largest number of forward evaluations of the population search.
-    n_starts : int
-        Extra starts (ranked by the objective) from which Levenberg-Marquardt runs.
+    n_starts : int or None
+        Extra starts (ranked by the objective) from which Levenberg-Marquardt
+        runs (None: all of them).
     polish : int
         Distinct members of the final population (lowest objective first, at
         least 0.3 apart in some ln parameter) polished by Levenberg-Marquardt.
     screen_iter, finalists : int
         Every start first gets ``screen_iter`` Levenberg-Marquardt iterations;
-        the ``finalists`` best go on for up to ``lm_max_iter``.
+        the ``finalists`` best and the polished population members go on for up
+        to ``lm_max_iter``.
     layer_predict : callable, optional
         ``layer_predict(rho, h) -> d`` (no Jacobian) for trial steps.
 
@@ -187,7 +190,8 @@ def global_fewlayer(predict_many, layer_fwd, d_obs, std, n_layers, starts, box, 
         extra = [extra[k] for k in order]
     starts = starts + extra
     results = []
-    for k, (rho0, h0) in enumerate(starts[:len(starts) - len(extra) + n_starts]):
+    n_extra = len(extra) if n_starts is None else min(n_starts, len(extra))
+    for k, (rho0, h0) in enumerate(starts[:len(starts) - len(extra) + n_extra]):
         fr = lm_from(rho0, h0)
         if fr is not None:
             results.append((fr, (rho0, h0), f"start {k}"))
@@ -225,9 +229,11 @@ def global_fewlayer(predict_many, layer_fwd, d_obs, std, n_layers, starts, box, 
                 results.append((fr, (rho0, h0), f"population {j}"))
     if not results:
         raise ValueError("few-layer search: no start could be evaluated")
-    # the best screened fits go on to convergence
+    # the best screened fits and the population's polished members go on to convergence
     results.sort(key=lambda r: r[0].lm.objective)
-    for k, (fr, start, label) in enumerate(results[:finalists]):
+    for k, (fr, start, label) in enumerate(results):
+        if k >= finalists and not label.startswith("population"):
+            continue
         if fr.lm.n_iter >= min(lm_max_iter, screen_iter) and lm_max_iter > screen_iter:
             fr2 = lm_from(fr.resistivity, fr.thickness, lm_max_iter)
             if fr2 is not None and fr2.lm.objective <= fr.lm.objective:
@@ -238,10 +244,14 @@ def global_fewlayer(predict_many, layer_fwd, d_obs, std, n_layers, starts, box, 
     return best[0], best[1], info
 
 
-def choose_layer_count(search, counts, n_data, criterion, fixed=None):
+def choose_layer_count(search, counts, n_data, criterion, fixed=None, target=None):
     """Search every count in turn, ``search(n, previous) -> (FewLayerResult, start, info)``
     (``previous``: the result of the count before, None first); keep the lowest
     criterion, or the count ``fixed`` when given.
+
+    Without ``fixed``, the search stops early once a count fits to ``target``
+    (chi-square per datum) and the next count raises the criterion: more layers
+    would only fit noise.
 
     Returns (result, start, info) of the chosen count; ``info["criteria"]``
     lists ``(n_layers, chi2, criterion value)`` of every count searched.
@@ -253,6 +263,9 @@ def choose_layer_count(search, counts, n_data, criterion, fixed=None):
         ic = information_criterion(fr.chi2 * n_data, n_data, int(info["n_free"]), criterion)
         table.append((int(n), float(fr.chi2), ic))
         found[int(n)] = (fr, start, info, ic)
+        if fixed is None and target is not None and len(table) >= 2 \
+                and table[-2][1] <= target and table[-1][2] > table[-2][2]:
+            break
     n_best = fixed if fixed is not None else min(found, key=lambda k: found[k][3])
     fr, start, info, _ = found[n_best]
     info = dict(info, criterion=criterion if fixed is None else "fixed", criteria=table)

@@ -317,3 +317,49 @@ def posterior_station(sd, settings, few):
                             n_draws=settings.posterior_draws, n_burn=settings.posterior_burn,
                             chains=settings.posterior_chains, seed=settings.posterior_seed,
                             anneal=settings.posterior_anneal)
+
+
+def restarted_fit(sd, settings, few, m_smooth, h_smooth, doi):
+    """The few-layer fit, refitted from perturbed starts when it misses the data.
+
+    When the fit's chi2 per datum exceeds 1.5 (its target is 1), the
+    Levenberg-Marquardt fit is repeated from ``settings.posterior_restarts``
+    starts: the fit itself and the smooth-model candidates
+    (:func:`tem.invert.fewlayer.starting_models`) with ln(rho) perturbed by
+    N(0, 1) and ln(thickness) by N(0, 0.5^2) (seeded from
+    ``settings.posterior_seed``); the fit with the lowest objective is kept.
+    The sampler explores around its start, so a start in a wrong basin would
+    otherwise give a confident posterior of the wrong model. Returns the
+    few-layer dict (the given one when it already fits).
+    """
+    from .fewlayer import fewlayer_inversion, starting_models
+    from .station import _few_dict
+
+    if settings.posterior_restarts <= 0 or few["chi2"] <= 1.5:
+        return few
+    n = len(few["resistivity"])
+    bases = [(np.asarray(few["resistivity"]), np.asarray(few["thickness"]))]
+    if m_smooth is not None:
+        bases += starting_models(m_smooth, h_smooth, n, max_depth=doi)
+    rng = np.random.default_rng(np.random.SeedSequence([settings.posterior_seed, 1]))
+
+    def layer_fwd(rho, h):
+        return sd.jacobian(rho, h, with_thickness=True)
+
+    best, best_obj = few, None
+    for t in range(settings.posterior_restarts):
+        rho0, h0 = bases[t % len(bases)]
+        rho = np.clip(rho0 * np.exp(rng.standard_normal(n)), RES_BOUNDS[0] * 1.01, RES_BOUNDS[1] / 1.01)
+        h = np.clip(h0 * np.exp(0.5 * rng.standard_normal(n - 1)), THK_BOUNDS[0] * 1.01,
+                    THK_BOUNDS[1] / 1.01)
+        try:
+            fr = fewlayer_inversion(layer_fwd, sd.d_obs, sd.std, rho, h, priors=tuple(settings.priors),
+                                    max_iter=settings.lm_max_iter)
+        except (ValueError, FloatingPointError, np.linalg.LinAlgError):
+            continue
+        if fr.chi2 < best["chi2"] and (best_obj is None or fr.lm.objective < best_obj):
+            best, best_obj = _few_dict(fr, rho, h), fr.lm.objective
+    return best
+
+
+__all__ += ["restarted_fit"]

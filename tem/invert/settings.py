@@ -100,6 +100,8 @@ def _consistent(v):
                                        f"({len(rho)}), got {len(thk)}")
         if not 2 <= len(rho) <= 7:
             return "start_resistivity", f"needs 2..7 layers (half-space included), got {len(rho)}"
+    if v["doi_method"] == "shallower" and v["doi_threshold"] is not None:
+        return "doi_threshold", "set doi_method to sensitivity or two-reference to give a threshold"
     n = len(rho) if rho is not None else v["few_layers"]
     if v["priors"] and n is None:
         return "priors", "give few_layers too (the layer count the priors refer to)"
@@ -164,12 +166,16 @@ INVERT = SettingsTable("invert", [
             help="weight of the reference-model term relative to the roughness (0: off)",
             source="keeps layers the data barely see from running away; common practice, no "
             "source"),
-    Setting("doi_method", "sensitivity", "choice", choices=("sensitivity", "two-reference"),
-            help="depth of investigation from cumulative sensitivity or two reference models"),
+    Setting("doi_method", "shallower", "choice", choices=("sensitivity", "two-reference",
+                                                          "shallower"),
+            help="depth of investigation from cumulative sensitivity, two reference models, or "
+            "the shallower of the two",
+            source="the shallower of the two was the only choice honest on the empymod suite and "
+            "the demo day (docs/inversion.md); calibrated, no source"),
     Setting("doi_threshold", None, "float", minimum=0, exclusive=True, maximum=1,
             exclusive_max=True,
             help="cumulative-sensitivity threshold or two-reference cut-off (unset: the "
-            "method's default)"),
+            "method's default, 0.8 and 0.2; with shallower both defaults)"),
     Setting("few_layers", None, "int", minimum=2, maximum=7,
             help="layers of the few-layer model, half-space included (unset: the count up to "
             "few_layers_max with the lowest few_criterion)"),
@@ -236,6 +242,9 @@ INVERT = SettingsTable("invert", [
     Setting("posterior_anneal", 0.0, "float", minimum=0, maximum=0.45,
             help="posterior sampling: fraction of the burn-in spent annealing from a tempered "
             "likelihood, so chains can leave a poor few-layer fit (0: off)"),
+    Setting("posterior_restarts", 12, "int", minimum=0, maximum=1000,
+            help="posterior sampling: extra few-layer fits from perturbed starts when the fit's "
+            "chi2 per datum exceeds 1.5; the best starts the chains (0: off)"),
     Setting("cover_layers", 1, "int", minimum=0, maximum=6,
             help="layers of cover from the top; the target is the most conductive layer below "
             "them (posterior products)"),

@@ -52,12 +52,15 @@ def verdict_info(r, kind) -> dict:
     """Summary values of a station: the chosen model's chi2 and verdict, every model's verdict.
 
     Keys: ``chi2`` and ``model_kind`` (the chosen model), ``verdict`` (status),
-    ``verdict_code``, ``verdict_text`` (one line), ``smooth_chi2``,
-    ``few_layer_chi2`` (when computed) and ``verdicts`` ({kind: verdict as a dict}).
+    ``verdict_code``, ``verdict_text`` (one line), ``verdict_kind`` (the model
+    the verdict judged: the few-layer fit for kinds built on it),
+    ``smooth_chi2``, ``few_layer_chi2`` (when computed) and ``verdicts``
+    ({kind: verdict as a dict}).
     """
     chosen = r.verdict_for(kind)
     info = {"model_kind": kind, "chi2": float(chosen.chi2), "verdict": chosen.status,
             "verdict_code": chosen.code, "verdict_text": chosen.summary,
+            "verdict_kind": chosen.kind or kind,
             "smooth_chi2": float(r.chi2), "verdicts": {"smooth": r.verdict.as_dict()}}
     if r.few is not None:
         info["few_layer_chi2"] = float(r.few["chi2"])

@@ -77,12 +77,15 @@ def number(value, field, file=None, *, minimum=None, maximum=None, positive=Fals
     if isinstance(value, str):
         if not parse_text:
             raise input_error(field, f"expected a number, got text {show(value)}", file)
-        if len(value) > 100:
-            raise input_error(field, f"not a number: {show(value)}", file)
+        t = value.strip()
         try:
-            value = float(value)
+            if len(t) > 10_000:
+                raise ValueError
+            value = float(t)
         except ValueError:
             raise input_error(field, f"not a number: {show(value)}", file) from None
+        if math.isinf(value) and "inf" not in t.lower():
+            raise input_error(field, f"out of range: {show(t)}", file)
     if not isinstance(value, (int, float, np.integer, np.floating)):
         raise input_error(field, f"expected a number, got {_kind(value)}", file)
     try:
@@ -311,10 +314,15 @@ def open_netcdf(path, field: str, max_elements: int = MAX_ELEMENTS):
         with h5py.File(path, "r") as h5:
             h5.attrs.get("_nc3_strict")
             dict(h5.attrs)
-            h5.visititems(_touch)
+            big = []
+            h5.visititems(lambda n, o: _touch(n, o, max_elements, big))
+        if big:
+            raise input_error(big[0][0], f"{big[0][1]} values: larger than {max_elements}", name)
         if hasattr(path, "seek"):
             path.seek(0)
         ds = xr.open_dataset(path, engine="h5netcdf")
+    except TemInputError:
+        raise
     except Exception as exc:  # noqa: BLE001 - HDF5 raises many kinds on a corrupt file
         raise input_error(field, f"not readable as netCDF ({_why(exc)})", name) from None
     try:
@@ -333,11 +341,14 @@ def open_netcdf(path, field: str, max_elements: int = MAX_ELEMENTS):
     return ds
 
 
-def _touch(name, obj):
-    """Read an HDF5 object's metadata (attributes, shape, type): a corrupt header fails here."""
+def _touch(name, obj, max_elements, big):
+    """Read an HDF5 object's metadata (attributes, shape, type): a corrupt header fails here;
+    a dataset of more than ``max_elements`` values is noted in ``big``."""
     dict(obj.attrs)
     if hasattr(obj, "shape"):
-        obj.shape, obj.dtype, obj.chunks, obj.compression
+        obj.dtype, obj.chunks, obj.compression
+        if obj.size is not None and obj.size > max_elements and not big:
+            big.append((str(name)[:40], obj.size))
 
 
 def _why(exc) -> str:

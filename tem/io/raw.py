@@ -216,7 +216,8 @@ def _npy_open(path, column: int = 0, channel=None) -> Recording:
     need = offset + n * dtype.itemsize
     if size < need:
         have = (size - offset) // dtype.itemsize
-        raise input_error("data", f"truncated: header promises {n} samples, file holds {have}", path)
+        raise input_error("data", f"truncated: header promises {checks.show(n)} samples, file "
+                          f"holds {have}", path)
     if n == 0:
         raise input_error("data", "no samples", path)
 

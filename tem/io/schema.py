@@ -48,7 +48,7 @@ def _attrs(ds, file):
     checks.attr_number(ds, "tx_current", file, positive=True, maximum=L["current"])
     # step-off, step-on and impulse soundings (gated format 1.2, tem import) have no
     # repetition: base_frequency 0; a waveform response needs a positive one
-    stepped = a.get("response", "waveform") in ("step-off", "step-on", "impulse")
+    stepped = _text(a, "response", "waveform") in ("step-off", "step-on", "impulse")
     checks.attr_number(ds, "base_frequency", file, minimum=0.0 if stepped else 1e-3,
                        maximum=L["frequency"])
     checks.attr_number(ds, "duty_cycle", file, required=False, positive=not stepped,
@@ -62,6 +62,12 @@ def _attrs(ds, file):
                        file, minimum=0, maximum=16)
     checks.attr_number(ds, "lowpass_cutoff", file, required=False, minimum=0.0,
                        maximum=L["sample_rate"])
+
+
+def _text(attrs, name, default):
+    """A text attribute, or ``default`` when absent; anything else (checked later) is None."""
+    v = attrs.get(name, default)
+    return v if isinstance(v, str) else None
 
 
 def _scalar(v, name, file):
@@ -149,7 +155,7 @@ def _gated(ds, file):
     lo = checks.variable(ds, "gate_open", g, file, positive=True, maximum=L["time"])
     hi = checks.variable(ds, "gate_close", g, file, positive=True, maximum=L["time"])
     mid = checks.variable(ds, "gate_centre", g, file, positive=True, maximum=L["time"])
-    if ds.attrs.get("sampling", "window") == "point":      # point samples: open = centre = close
+    if _text(ds.attrs, "sampling", "window") == "point":      # point samples: open = centre = close
         if lo.size == 0 or np.any(hi < lo) or np.any(mid < lo) or np.any(mid > hi):
             raise input_error("gate_close", "every point sample needs open <= centre <= close", file)
     elif lo.size == 0 or np.any(hi <= lo) or np.any(mid < lo) or np.any(mid > hi):
@@ -169,8 +175,8 @@ def _provenance(ds, file):
     import json
 
     text = ds.attrs.get("provenance")
-    if text is None:
-        return
+    if text is None or (isinstance(text, str) and not text.strip()):
+        return                              # no records (tem.provenance.records_from_json)
     try:
         records = json.loads(text) if isinstance(text, str) else None
     except (ValueError, RecursionError):
@@ -180,9 +186,10 @@ def _provenance(ds, file):
 
 
 def check_product(ds, fmt: str, file=None):
-    """Check a ``stacked`` or ``gated`` Dataset (other formats: attributes only); return it."""
-    if fmt in ("stacked", "gated"):
-        _attrs(ds, file)
+    """Check a ``stacked`` or ``gated`` Dataset (other formats pass unchanged); return it."""
+    if fmt not in ("stacked", "gated"):
+        return ds
+    _attrs(ds, file)
     _provenance(ds, file)
     for dim, n in ds.sizes.items():
         if n > checks.MAX_ELEMENTS:

@@ -22,7 +22,7 @@ from ..errors import input_error
 from ..forward import LayeredModel, Simulation
 from ..forward.sounding import survey_lowpass, survey_receiver, survey_source, survey_waveform
 from ..io.raw import FORMATS, RawHeader, write_mseed_recording, write_npy_recording
-from ..survey import (COIL_COMPONENTS, Receiver, Station, Survey, Transmitter, parse_time,
+from ..survey import (COIL_COMPONENTS, Channel, Station, Survey, Transmitter, parse_time,
                      seconds_between)
 
 __all__ = ["NoiseSpec", "Faults", "station_transient", "synth_channel", "synth_survey",
@@ -420,12 +420,12 @@ def emberline_survey(base_dir=".", sample_rate: float = 4000.0, stations=None,
         sid = f"EM{i + 1:02d}"
         if stations is not None and sid not in stations:
             continue
-        rxs = [Receiver("ex", files=(f"raw/{sid}/ex.{ext}",), sample_rate=sample_rate, gain=1.0,
+        rxs = [Channel("ex", files=(f"raw/{sid}/ex.{ext}",), sample_rate=sample_rate, gain=1.0,
                         dipole=((x - 50.0, 0.0), (x + 50.0, 0.0)), channel=chan("ex")),
-               Receiver("dbzdt", files=(f"raw/{sid}/dbzdt.{ext}",), sample_rate=sample_rate,
+               Channel("dbzdt", files=(f"raw/{sid}/dbzdt.{ext}",), sample_rate=sample_rate,
                         gain=1.0, coil_area=1.0e4, channel=chan("dbzdt"))]
         if current_channel:
-            rxs.append(Receiver("current", files=(f"raw/{sid}/current.{ext}",),
+            rxs.append(Channel("current", files=(f"raw/{sid}/current.{ext}",),
                                 sample_rate=sample_rate, gain=0.01, channel=chan("current")))
         sts.append(Station(id=sid, x=float(x), y=0.0, z=1100.0, epsg=0, receivers=rxs))
     survey = Survey(name="Emberline Plateau (fictional)", transmitter=tx, stations=sts,
