@@ -6,7 +6,8 @@ Plateau transmitter, a 1.5 km wire, with stations south of it from 300 m to
 ``tem run --scheduler local --jobs W`` in a fresh subprocess for each case and
 takes the summed elapsed time of the stack, gate, rhoa and invert stages
 from run.json. Light settings keep the run in minutes (late-time apparent
-resistivity only, 8-layer smooth inversion, 2 Occam iterations, no figures,
+resistivity only, 8-layer smooth inversion, 2 Occam iterations, the
+sensitivity DOI (no reference inversions), no figures,
 CSV export only); the work per station is the same in every case, so the
 ratios measure the back end, not the physics.
 
@@ -41,6 +42,7 @@ all_time = false
 [processing.invert]
 layers = 8
 max_iter = 2
+doi_method = "sensitivity"
 
 [processing.export]
 what = ["csv"]
