@@ -21,11 +21,11 @@ def crs_of(code, field="epsg", file=None):
     from pyproj import CRS
     from pyproj.exceptions import CRSError
 
-    from .checks import LIMITS, integer, show
+    from .checks import integer, show
 
     if isinstance(code, bool) or not isinstance(code, (int, np.integer)) or code <= 0:
         raise input_error(field, f"expected a positive whole EPSG code, got {show(code)}", file)
-    code = integer(code, field, file, minimum=1, maximum=LIMITS["epsg"])
+    code = integer(code, field, file, minimum=1, maximum=2**31 - 1)   # before pyproj sees it
     try:
         return CRS.from_epsg(code)
     except CRSError:
