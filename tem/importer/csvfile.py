@@ -26,7 +26,7 @@ from pathlib import Path
 import numpy as np
 
 from ..errors import input_error
-from ..io.checks import show
+from ..io.checks import label, show
 
 __all__ = ["Decays", "read_decays", "TIME_UNITS", "VALUE_UNITS", "RAW_UNITS", "COMPONENTS"]
 
@@ -92,7 +92,8 @@ def _unit_of_column(name, header_unit, path):
         if name.startswith(base + "_"):
             u = name[len(base) + 1:]
             if u not in TIME_UNITS:
-                raise input_error(name, f"unknown time unit {show(u)}; valid: {', '.join(TIME_UNITS)}",
+                raise input_error(label(name), f"unknown time unit {show(u)}; valid: "
+                                  f"{', '.join(TIME_UNITS)}",
                                   path)
             return base, TIME_UNITS[u]
     return None, None
@@ -136,7 +137,7 @@ def read_decays(path) -> Decays:
         base, fac = _unit_of_column(n, time_unit, f"{path}:{first + 1}")
         key = base or n
         if key in cols:
-            raise input_error(n, f"column {show(key)} given twice", f"{path}:{first + 1}")
+            raise input_error(label(n), f"column {show(key)} given twice", f"{path}:{first + 1}")
         cols[key] = j
         if base:
             tfac[base] = fac
