@@ -11,6 +11,26 @@ half-space, use the same mesh, data, errors and Occam settings.
 
 Prints one JSON line: {"case", "tem_s", "empymod_s", "speedup", "chi2"}
 (chi2 = final chi-square per datum of the tem run); details go to stderr.
+
+Two more cases, one JSON line each:
+
+* ``fewlayer``: the few-layer global search with the tool's defaults
+  (``InversionSettings(kind="few-layer")``: counts 2-5 by BIC, differential
+  evolution, Levenberg-Marquardt polish) on the blind-suite sounding
+  basalt_thin_near at 0.6 km (tests/data/blind_suite.npz, computed with empymod;
+  Ex reverses sign): {"case", "cpu_s" (few-layer search only, after the smooth
+  model), "chi2", "n_layers", "evaluations"}.
+* ``demo``: the demo (``tem demo`` survey, 120 s per station, seed 2025) run
+  through ``tem run`` up to the invert stage with 2 worker processes, no
+  figures: {"case", "invert_s" (wall time of the invert stage from run.json),
+  "jobs", "stations", "max_chi2"}. Target: invert_s <= 60 on 2 cores.
+
+``demo-fewlayer`` is the same with ``--set invert.kind=few-layer`` (the
+few-layer search with the defaults on every station).
+
+``python benchmarks/invert.py [occam] [fewlayer] [demo] [demo-fewlayer]`` runs
+the named cases (the first three without arguments; the occam case takes
+about 11 minutes).
 """
 from __future__ import annotations
 
@@ -42,7 +62,65 @@ def empymod_forward(x, t, srcpts=5):
     return predict_model
 
 
-def main():
+def fewlayer_case():
+    sys.path[:0] = [".", "tests"]
+    from blind_data import load
+
+    from tem.invert.data import station_data
+    from tem.invert.station import InversionSettings, fewlayer_station, smooth_station
+
+    c = next(c for c in load() if c["name"] == "basalt_thin_near" and c["offset"] == 600.0)
+    sd = station_data(c["ds"])
+    settings = InversionSettings(kind="few-layer")
+    res, h, rho_hs = smooth_station(sd, settings)
+    from tem.invert.doi import cumulative_sensitivity_doi
+    doi = cumulative_sensitivity_doi(res.J, sd.std, h, threshold=0.8)
+    t0 = time.process_time()
+    few = fewlayer_station(sd, settings, res.m, h, doi, rho_hs)
+    cpu = time.process_time() - t0
+    info = few["search"]
+    print(f"few-layer search: counts {info['criteria']}, winner {info['winner']}", file=sys.stderr)
+    print(json.dumps({"case": "fewlayer-global-defaults-blind-basalt_thin_near-0.6km",
+                      "cpu_s": round(cpu, 2), "chi2": round(float(few["chi2"]), 3),
+                      "n_layers": int(few["resistivity"].size),
+                      "evaluations": int(info["evaluations"])}), flush=True)
+
+
+def demo_case(jobs=2, kind="smooth"):
+    import tempfile
+    from pathlib import Path
+
+    sys.path.insert(0, ".")
+    from tem.cli.demo import write_demo_survey
+    from tem.pipeline import run_pipeline
+
+    with tempfile.TemporaryDirectory() as tmp:
+        survey = write_demo_survey(Path(tmp) / "raw", 120.0, 2025)
+        out = run_pipeline(survey, Path(tmp) / "project", jobs=jobs, progress=False,
+                           figures=False, until="invert", overrides=[("invert", "kind", kind)])
+        rec = out.state["stages"]["invert"]
+        key = "chi2" if kind == "smooth" else "few_layer_chi2"
+        chi2 = [st.get(key) for st in rec["stations"].values() if st.get(key) is not None]
+        print(json.dumps({"case": f"demo-invert-stage-{kind}", "invert_s": rec["elapsed_s"],
+                          "jobs": jobs,
+                          "stations": len(rec["stations"]),
+                          "max_chi2": round(max(chi2), 2) if chi2 else None}), flush=True)
+
+
+def main(argv=()):
+    cases = list(argv) or ["occam", "fewlayer", "demo"]
+    if "fewlayer" in cases:
+        fewlayer_case()
+    if "demo" in cases:
+        demo_case()
+    if "demo-fewlayer" in cases:
+        demo_case(kind="few-layer")
+    if "occam" in cases:
+        return occam_case()
+    return 0
+
+
+def occam_case():
     sys.path.insert(0, ".")
     from tem.forward import Receiver, Simulation, Wire
     from tem.invert.smooth import best_halfspace, diffusion_depth, log_mesh, occam, roughness_matrix
@@ -72,7 +150,7 @@ def main():
     M = h.size + 1
     R = roughness_matrix(M)
     m0 = np.full(M, np.log(rho_hs))
-    settings = dict(target=1.0, max_iter=20)
+    settings = dict(target=1.0, max_iter=20, misfit_drop=0.3)
 
     def tem_fwd(m):
         d, J = sim.jacobian(LayeredModel(h, np.exp(m)))
@@ -112,4 +190,4 @@ def main():
 
 
 if __name__ == "__main__":
-    sys.exit(main())
+    sys.exit(main(sys.argv[1:]))

@@ -65,7 +65,7 @@ def grid_survey(folder: Path, n: int):
     import tomli_w
 
     from tem.forward import LayeredModel
-    from tem.survey import Receiver, Station, replace, survey_to_dict
+    from tem.survey import Channel, Station, replace, survey_to_dict
     from tem.synth import emberline_survey, synth_survey
 
     base, _ = emberline_survey(base_dir=folder, sample_rate=500.0, stations=["EM01"],
@@ -78,9 +78,9 @@ def grid_survey(folder: Path, n: int):
     for k in range(n):
         x, y = float(xs[k % nx]), float(ys[k // nx])
         sid = f"G{k:04d}"
-        rxs = (Receiver("ex", files=(f"raw/{sid}/ex.npy",), sample_rate=500.0,
+        rxs = (Channel("ex", files=(f"raw/{sid}/ex.npy",), sample_rate=500.0,
                         dipole=((x - 50.0, y), (x + 50.0, y))),
-               Receiver("dbzdt", files=(f"raw/{sid}/dbzdt.npy",), sample_rate=500.0,
+               Channel("dbzdt", files=(f"raw/{sid}/dbzdt.npy",), sample_rate=500.0,
                         coil_area=1.0e4))
         stations.append(Station(id=sid, x=x, y=y, z=1100.0, receivers=rxs))
         basalt = 900.0 + (x + 5500.0) / 11000.0 * 700.0

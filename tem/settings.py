@@ -421,6 +421,18 @@ class SettingsTable:
         checked = self.check(merged, origin, origins)
         return _construct(self.cls, checked)
 
+
+    def _unknown(self, key) -> str:
+        """'unknown key' with the closest valid names (the whole list is in docs/settings.md)."""
+        import difflib
+
+        names = [x.name for x in self.exposed]
+        close = difflib.get_close_matches(str(key)[:60], names, n=3, cutoff=0.5)
+        if len(names) <= 12:
+            return "unknown key; valid: " + ", ".join(names)
+        hint = f"did you mean {' or '.join(close)}? " if close else ""
+        return (f"unknown key; {hint}{len(names)} keys are valid here, listed in docs/settings.md "
+                f"and by 'tem {self.stage} --help'")
     def from_table(self, table, file=None, base=None) -> dict:
         """Checked values of one ``[processing.<stage>]`` table (only the keys given).
 
@@ -434,8 +446,8 @@ class SettingsTable:
         for key, value in table.items():
             s = self._by_name.get(key)
             if s is None or not s.expose:
-                raise input_error(f"processing.{self.stage}.{_show_key(key)}", "unknown key; valid: "
-                                  + ", ".join(x.name for x in self.exposed), file)
+                raise input_error(f"processing.{self.stage}.{_show_key(key)}",
+                                  self._unknown(key), file)
             v = s.coerce(value, origin.label(self, key), file)
             if s.kind == "path" and v is not None and base is not None and not Path(v).is_absolute():
                 v = str(Path(base) / v)
@@ -567,6 +579,7 @@ def markdown(tables) -> str:
 
 if __name__ == "__main__":  # pragma: no cover - writes the reference page
     from .forward.settings import FORWARD
+    from .importer.settings import IMPORT
     from .pipeline.settings import TABLES
 
-    sys.stdout.write(markdown(list(TABLES.values()) + [FORWARD]))
+    sys.stdout.write(markdown(list(TABLES.values()) + [FORWARD, IMPORT]))

@@ -10,15 +10,18 @@ from __future__ import annotations
 import dataclasses
 import datetime as _dt
 import math
+import re
+import warnings
 from dataclasses import dataclass, field
 from pathlib import Path
 
 import numpy as np
 
 from .errors import TemInputError, input_error
+from .io import checks
 from .io.tomlfile import read_toml
 
-__all__ = ["COMPONENTS", "E_COMPONENTS", "COIL_COMPONENTS", "Transmitter", "Receiver",
+__all__ = ["COMPONENTS", "E_COMPONENTS", "COIL_COMPONENTS", "Transmitter", "Channel",
            "Station", "Survey", "read_survey", "write_survey", "survey_to_dict",
            "parse_time", "format_time", "seconds_between"]
 
@@ -31,36 +34,65 @@ TIMING_SOURCES = ("survey", "current")
 
 
 # ---------------------------------------------------------------------------- time helpers
+_T_MIN, _T_MAX = np.datetime64("1900-01-01"), np.datetime64("2200-01-01")
+
+
 def parse_time(value, field_name: str = "time") -> np.datetime64:
     """UTC instant as ``numpy.datetime64[ns]``.
 
     Accepts an ISO-8601 string (``2025-06-02T08:00:00.000125Z``; a trailing
     ``Z`` or ``+00:00`` is allowed, other offsets are converted) or a
-    ``datetime.datetime`` (TOML date-times arrive as these).
+    ``datetime.datetime`` (TOML date-times arrive as these). Instants before
+    1900 or after 2200 are refused (they would wrap around at nanoseconds).
     """
     if isinstance(value, np.datetime64):
-        return value.astype("datetime64[ns]")
+        return _in_range(value, value, field_name)
     if isinstance(value, _dt.datetime):
         if value.tzinfo is not None:
             value = value.astimezone(_dt.timezone.utc).replace(tzinfo=None)
-        return np.datetime64(value.isoformat(), "ns")
+        return _in_range(np.datetime64(value.isoformat()), value, field_name)
     if isinstance(value, str):
         text = value.strip()
+        if len(text) > 64 or not text.isprintable():
+            raise input_error(field_name, f"not an ISO-8601 time: {_show(value)}")
         offset = None
         if text.endswith(("Z", "z")):
             text = text[:-1]
         elif len(text) > 6 and text[-6] in "+-" and text[-3] == ":":
+            hh, mm = text[-5:-3], text[-2:]
+            if not (hh.isdigit() and mm.isdigit() and int(hh) < 24 and int(mm) < 60):
+                raise input_error(field_name, f"not an ISO-8601 time: {_show(value)}")
             sign = 1 if text[-6] == "+" else -1
-            offset = sign * (int(text[-5:-3]) * 60 + int(text[-2:]))
+            offset = sign * (int(hh) * 60 + int(mm))
             text = text[:-6]
+        m = _ISO.fullmatch(text)
+        if m is None or not 1900 <= int(m.group(1)) <= 2200:
+            raise input_error(field_name, f"not an ISO-8601 time from 1900 to 2200 (at most "
+                              f"nanoseconds): {_show(value)}")
         try:
-            t = np.datetime64(text, "ns")
-        except ValueError:
-            raise input_error(field_name, f"not an ISO-8601 time: {value!r}") from None
+            with warnings.catch_warnings():
+                warnings.simplefilter("error")      # a zone numpy cannot represent
+                t = np.datetime64(text, "ns")
+        except (ValueError, OverflowError, UserWarning, DeprecationWarning):
+            raise input_error(field_name, f"not an ISO-8601 time: {_show(value)}") from None
+        t = _in_range(t, value, field_name)
         if offset:
             t = t - np.timedelta64(offset, "m")
         return t
-    raise input_error(field_name, f"expected an ISO-8601 time string, got {value!r}")
+    raise input_error(field_name, f"expected an ISO-8601 time string, got {_show(value)}")
+
+
+_ISO = re.compile(r"(\d{4})-\d{2}-\d{2}(?:[T ]\d{2}(?::\d{2}(?::\d{2}(?:\.\d{1,9})?)?)?)?")
+
+
+def _in_range(t, value, field_name):
+    try:
+        ok = not np.isnat(t) and _T_MIN <= t <= _T_MAX
+    except (OverflowError, ValueError, TypeError):
+        ok = False
+    if not ok:
+        raise input_error(field_name, f"time out of range (1900 to 2200): {_show(value)}")
+    return t.astype("datetime64[ns]")
 
 
 def format_time(t: np.datetime64) -> str:
@@ -73,32 +105,20 @@ def seconds_between(t0: np.datetime64, t1: np.datetime64) -> float:
     return float((np.datetime64(t1, "ns") - np.datetime64(t0, "ns")) / np.timedelta64(1, "ns")) * 1e-9
 
 
-def _pos_finite(x, name):
-    try:
-        v = float(x)
-    except (TypeError, ValueError):
-        raise input_error(name, f"expected a number, got {x!r}") from None
-    if not (math.isfinite(v) and v > 0):
-        raise input_error(name, f"must be positive and finite, got {x!r}")
-    return v
+def _pos_finite(x, name, limit=None):
+    return checks.number(x, name, positive=True, maximum=limit)
 
 
-def _finite(x, name):
-    try:
-        v = float(x)
-    except (TypeError, ValueError):
-        raise input_error(name, f"expected a number, got {x!r}") from None
-    if not math.isfinite(v):
-        raise input_error(name, f"must be finite, got {x!r}")
-    return v
+def _finite(x, name, limit=None):
+    return checks.number(x, name, maximum=limit)
 
 
 def _point(p, name):
-    try:
-        x, y = p
-    except (TypeError, ValueError):
-        raise input_error(name, f"expected [x, y] in metres, got {p!r}") from None
-    return (_finite(x, name), _finite(y, name))
+    return checks.point(p, name)
+
+
+def _show(value) -> str:
+    return checks.show(value)
 
 
 # ---------------------------------------------------------------------------- transmitter
@@ -140,9 +160,11 @@ class Transmitter:
     timing: str = "survey"
 
     def __post_init__(self):
-        if self.kind not in TX_KINDS:
-            raise input_error("transmitter.kind", f"unknown {self.kind!r}; valid: {', '.join(TX_KINDS)}")
-        pts = tuple(_point(p, "transmitter.points") for p in self.points)
+        if not isinstance(self.kind, str) or self.kind not in TX_KINDS:
+            raise input_error("transmitter.kind", f"unknown {_show(self.kind)}; valid: "
+                              f"{', '.join(TX_KINDS)}")
+        pts = tuple(_point(p, "transmitter.points")
+                    for p in checks.array(self.points, "transmitter.points", max_len=10_000))
         if self.kind == "wire" and len(pts) != 2:
             raise input_error("transmitter.points", f"a wire needs 2 endpoints, got {len(pts)}")
         if self.kind == "loop" and len(pts) < 3:
@@ -150,25 +172,25 @@ class Transmitter:
         if self.kind == "wire" and pts[0] == pts[1]:
             raise input_error("transmitter.points", "wire endpoints coincide")
         object.__setattr__(self, "points", pts)
-        object.__setattr__(self, "current", _pos_finite(self.current, "transmitter.current"))
-        object.__setattr__(self, "base_frequency",
-                           _pos_finite(self.base_frequency, "transmitter.base_frequency"))
+        object.__setattr__(self, "current", _pos_finite(self.current, "transmitter.current",
+                                                        checks.LIMITS["current"]))
+        f = checks.number(self.base_frequency, "transmitter.base_frequency", minimum=1e-3,
+                          maximum=checks.LIMITS["frequency"])
+        object.__setattr__(self, "base_frequency", f)
         d = _pos_finite(self.duty_cycle, "transmitter.duty_cycle")
         if d > 1.0:
             raise input_error("transmitter.duty_cycle", f"must be in (0, 1], got {d}")
         object.__setattr__(self, "duty_cycle", d)
         for name in ("ramp_on", "ramp_off"):
-            v = _finite(getattr(self, name), f"transmitter.{name}")
-            if v < 0:
-                raise input_error(f"transmitter.{name}", f"must be >= 0, got {v}")
+            v = checks.number(getattr(self, name), f"transmitter.{name}", minimum=0.0)
             object.__setattr__(self, name, v)
         if self.ramp_on + self.ramp_off >= self.duty_cycle * self.half_period:
             raise input_error("transmitter.ramp_off", "ramps longer than the on-time")
         object.__setattr__(self, "first_switch_off",
                            parse_time(self.first_switch_off, "transmitter.first_switch_off"))
-        if self.timing not in TIMING_SOURCES:
+        if not isinstance(self.timing, str) or self.timing not in TIMING_SOURCES:
             raise input_error("transmitter.timing",
-                              f"unknown {self.timing!r}; valid: {', '.join(TIMING_SOURCES)}")
+                              f"unknown {_show(self.timing)}; valid: {', '.join(TIMING_SOURCES)}")
 
     @property
     def period(self) -> float:
@@ -195,7 +217,7 @@ class Transmitter:
 
 # ---------------------------------------------------------------------------- receivers
 @dataclass(frozen=True)
-class Receiver:
+class Channel:
     """One recorded channel at a station.
 
     Parameters
@@ -219,6 +241,9 @@ class Receiver:
         Recording format name; ``None`` sniffs from the file.
     column : int
         Column index for the text format.
+    channel : str or None
+        MiniSEED channel of this component: a SEED channel code (``HHZ``) or
+        a full id ``NET.STA.LOC.CHA``; needed when a file holds several.
     """
 
     component: str
@@ -229,28 +254,44 @@ class Receiver:
     coil_area: float | None = None
     format: str | None = None
     column: int = 0
+    channel: str | None = None
 
     def __post_init__(self):
-        if self.component not in COMPONENTS:
+        if self.channel is not None and (not isinstance(self.channel, str) or not self.channel
+                                         or len(self.channel) > 40):
+            raise input_error("receiver.channel", f"expected a SEED channel code or id, got "
+                              f"{self.channel!r}")
+        if not isinstance(self.component, str) or self.component not in COMPONENTS:
             raise input_error("receiver.component",
-                              f"unknown {self.component!r}; valid: {', '.join(COMPONENTS)}")
-        object.__setattr__(self, "sample_rate", _pos_finite(self.sample_rate, "receiver.sample_rate"))
-        object.__setattr__(self, "gain", _pos_finite(self.gain, "receiver.gain"))
+                              f"unknown {_show(self.component)}; valid: {', '.join(COMPONENTS)}")
+        object.__setattr__(self, "sample_rate", _pos_finite(self.sample_rate, "receiver.sample_rate",
+                                                            checks.LIMITS["sample_rate"]))
+        object.__setattr__(self, "gain", _pos_finite(self.gain, "receiver.gain",
+                                                     checks.LIMITS["gain"]))
         files = self.files
         if isinstance(files, (str, Path)):
             files = (files,)
-        object.__setattr__(self, "files", tuple(Path(f) for f in files))
+        files = checks.array(files, "receiver.files", max_len=100_000)
+        object.__setattr__(self, "files", tuple(
+            f if isinstance(f, Path) else Path(checks.text(f, "receiver.files", max_len=4096))
+            for f in files))
+        if self.format is not None:
+            checks.text(self.format, "receiver.format")
+        object.__setattr__(self, "column", checks.integer(self.column, "receiver.column",
+                                                          minimum=0, maximum=10_000))
         if self.component in E_COMPONENTS:
             if self.dipole is None:
                 raise input_error("receiver.dipole", f"{self.component} needs dipole endpoints")
-            d = tuple(_point(p, "receiver.dipole") for p in self.dipole)
+            d = tuple(_point(p, "receiver.dipole")
+                      for p in checks.array(self.dipole, "receiver.dipole", max_len=2))
             if len(d) != 2 or d[0] == d[1]:
                 raise input_error("receiver.dipole", "needs two distinct endpoints")
             object.__setattr__(self, "dipole", d)
         if self.component in COIL_COMPONENTS:
             if self.coil_area is None:
                 raise input_error("receiver.coil_area", f"{self.component} needs coil_area (m^2)")
-            object.__setattr__(self, "coil_area", _pos_finite(self.coil_area, "receiver.coil_area"))
+            object.__setattr__(self, "coil_area", _pos_finite(self.coil_area, "receiver.coil_area",
+                                                              checks.LIMITS["coil_area"]))
 
     @property
     def dipole_length(self) -> float:
@@ -287,11 +328,15 @@ class Station:
     receivers: tuple = ()
 
     def __post_init__(self):
-        if not isinstance(self.id, str) or not self.id or "/" in self.id:
-            raise input_error("station.id", f"must be a non-empty name without '/', got {self.id!r}")
+        checks.text(self.id, "station.id")
+        if "/" in self.id or "\\" in self.id or self.id != self.id.strip() or self.id in (".", ".."):
+            raise input_error("station.id", f"must be a name without '/', '\\' or surrounding "
+                              f"spaces, got {_show(self.id)}")
         for n in ("x", "y", "z"):
-            object.__setattr__(self, n, _finite(getattr(self, n), f"station.{n}"))
-        object.__setattr__(self, "epsg", int(self.epsg or 0))
+            lim = checks.LIMITS["elevation" if n == "z" else "coordinate"]
+            object.__setattr__(self, n, _finite(getattr(self, n), f"station.{n}", lim))
+        object.__setattr__(self, "epsg", checks.integer(self.epsg or 0, "station.epsg", minimum=0,
+                                                        maximum=checks.LIMITS["epsg"]))
         object.__setattr__(self, "receivers", tuple(self.receivers))
         comps = [r.component for r in self.receivers]
         if len(set(comps)) != len(comps):
@@ -323,15 +368,22 @@ class Survey:
 
     def __post_init__(self):
         object.__setattr__(self, "stations", tuple(self.stations))
+        checks.text(self.name, "survey.name", empty=True)
         object.__setattr__(self, "mains_frequency",
-                           _pos_finite(self.mains_frequency, "survey.mains_frequency"))
+                           _pos_finite(self.mains_frequency, "survey.mains_frequency",
+                                       checks.LIMITS["frequency"]))
+        object.__setattr__(self, "epsg", checks.integer(self.epsg or 0, "survey.epsg", minimum=0,
+                                                        maximum=checks.LIMITS["epsg"]))
         ids = [s.id for s in self.stations]
         if len(set(ids)) != len(ids):
             raise input_error("stations.id", "station ids must be unique")
         if not self.stations:
             raise input_error("stations", "survey lists no station")
-        if int(self.lowpass_order) < 0 or float(self.lowpass_cutoff) < 0:
-            raise input_error("survey.lowpass_cutoff", "filter order and cutoff must be >= 0")
+        object.__setattr__(self, "lowpass_order", checks.integer(
+            self.lowpass_order, "survey.lowpass_order", minimum=0, maximum=16))
+        object.__setattr__(self, "lowpass_cutoff", checks.number(
+            self.lowpass_cutoff, "survey.lowpass_cutoff", minimum=0.0,
+            maximum=checks.LIMITS["sample_rate"]))
         object.__setattr__(self, "base_dir", Path(self.base_dir))
 
     def station(self, sid: str) -> Station:
@@ -358,33 +410,84 @@ class Survey:
 # ---------------------------------------------------------------------------- TOML in/out
 _TX_KEYS = {"kind", "points", "current", "base_frequency", "duty_cycle", "ramp_on", "ramp_off",
             "first_switch_off", "timing"}
-_RX_KEYS = {"component", "files", "sample_rate", "gain", "dipole", "coil_area", "format", "column"}
+_RX_KEYS = {"component", "files", "sample_rate", "gain", "dipole", "coil_area", "format", "column",
+            "channel"}
 _ST_KEYS = {"id", "x", "y", "z", "epsg", "receiver"}
 # Top-level tables; [processing] is read by the pipeline (tem.pipeline.params).
 _TOP_KEYS = {"survey", "transmitter", "station", "processing"}
 
 
 def _check_keys(table, allowed, where):
-    if not isinstance(table, dict):
-        raise input_error(where, "expected a table")
+    checks.table(table, where)
     extra = set(table) - allowed
     if extra:
-        raise input_error(f"{where}.{sorted(extra)[0]}",
+        raise input_error(f"{where}.{checks.show(sorted(extra)[0])}",
                           f"unknown key; valid: {', '.join(sorted(allowed))}")
 
 
+def _projected(doc, head):
+    """Geographic input (``survey.epsg`` of a lat/lon CRS) projected to ``survey.projected_epsg``.
+
+    x is longitude and y latitude (degrees) of the stations, the transmitter
+    points and the dipole electrodes; they become metres of the stated
+    projected CRS (a UTM zone), which is the survey's ``epsg`` from then on.
+    """
+    import copy
+
+    from .io.crs import check_projected, is_geographic, project_to
+
+    epsg = head.get("epsg", 0)
+    target = head.get("projected_epsg")
+    if not epsg or not is_geographic(epsg, "survey.epsg"):
+        if target is not None and target != epsg:
+            raise input_error("survey.projected_epsg", "only for geographic input (survey.epsg "
+                              "of a latitude/longitude CRS); coordinates are already projected")
+        return doc, head
+    if target is None:
+        raise input_error("survey.epsg", f"EPSG:{epsg} is geographic (lat/lon): state the "
+                          "projected CRS to work in as survey.projected_epsg (e.g. a UTM zone)")
+    check_projected(target, "survey.projected_epsg")
+    doc = copy.deepcopy(doc)
+    head = doc["survey"]
+    tx = doc.get("transmitter", {})
+    if isinstance(tx, dict) and isinstance(tx.get("points"), list):
+        tx["points"] = project_to(tx["points"], epsg, target, "transmitter.points").tolist()
+    for i, st in enumerate(doc.get("station", [])):
+        if not isinstance(st, dict):
+            continue
+        if st.get("epsg", epsg) != epsg:
+            raise input_error(f"station[{i}].epsg", "differs from the geographic survey.epsg")
+        st.pop("epsg", None)
+        if "x" in st and "y" in st:
+            (st["x"], st["y"]), = project_to([[st["x"], st["y"]]], epsg, target,
+                                             f"station[{i}].x")
+        for j, rx in enumerate(st.get("receiver", [])):
+            if isinstance(rx, dict) and isinstance(rx.get("dipole"), list):
+                rx["dipole"] = project_to(rx["dipole"], epsg, target,
+                                          f"station[{i}].receiver[{j}].dipole").tolist()
+    head["epsg"] = int(target)
+    del head["projected_epsg"]
+    return doc, head
+
+
 def survey_from_dict(doc: dict, base_dir=".") -> Survey:
-    """Build a :class:`Survey` from the parsed TOML document."""
+    """Build a :class:`Survey` from the parsed TOML document.
+
+    Every value is checked for its type (a table, a list, text or a number),
+    finiteness and physical range before use (tem.io.checks).
+    """
     extra = set(doc) - _TOP_KEYS
     if extra:
-        raise input_error(sorted(extra)[0], "unknown table or key; valid: "
+        raise input_error(checks.show(sorted(extra)[0]), "unknown table or key; valid: "
                           f"{', '.join(sorted(_TOP_KEYS))}")
     head = doc.get("survey", {})
     _check_keys(head, {"name", "mains_frequency", "epsg", "lowpass_order", "lowpass_cutoff",
-                       "format_version"}, "survey")
-    if int(head.get("format_version", 1)) != 1:
-        raise input_error("survey.format_version", f"unsupported {head.get('format_version')}; this "
-                          "tem reads version 1")
+                       "format_version", "projected_epsg"}, "survey")
+    doc, head = _projected(doc, head)
+    version = checks.integer(head.get("format_version", 1), "survey.format_version")
+    if version != 1:
+        raise input_error("survey.format_version", f"unsupported {checks.show(version)}; this tem reads "
+                          "version 1")
     if "transmitter" not in doc:
         raise input_error("transmitter", "missing table")
     tx = doc["transmitter"]
@@ -399,31 +502,37 @@ def survey_from_dict(doc: dict, base_dir=".") -> Survey:
                               first_switch_off=tx["first_switch_off"],
                               timing=tx.get("timing", "survey"))
     stations = []
-    for i, st in enumerate(doc.get("station", [])):
+    for i, st in enumerate(checks.array(doc.get("station", []), "station", max_len=100_000)):
         _check_keys(st, _ST_KEYS, f"station[{i}]")
         if "id" not in st:
             raise input_error(f"station[{i}].id", "missing")
+        sid = checks.text(st["id"], f"station[{i}].id")
         rxs = []
-        for j, rx in enumerate(st.get("receiver", [])):
-            where = f"station[{st['id']}].receiver[{j}]"
+        for j, rx in enumerate(checks.array(st.get("receiver", []), f"station[{sid}].receiver",
+                                            max_len=64)):
+            where = f"station[{sid}].receiver[{j}]"
             _check_keys(rx, _RX_KEYS, where)
             for key in ("component", "files", "sample_rate"):
                 if key not in rx:
                     raise input_error(f"{where}.{key}", "missing")
             try:
-                rxs.append(Receiver(component=rx["component"], files=rx["files"],
+                rxs.append(Channel(component=rx["component"], files=rx["files"],
                                     sample_rate=rx["sample_rate"], gain=rx.get("gain", 1.0),
                                     dipole=rx.get("dipole"), coil_area=rx.get("coil_area"),
-                                    format=rx.get("format"), column=int(rx.get("column", 0))))
+                                    format=rx.get("format"), column=rx.get("column", 0),
+                                    channel=rx.get("channel")))
             except TemInputError as exc:
                 raise input_error(where, str(exc)) from None
-        stations.append(Station(id=str(st["id"]), x=st.get("x", 0.0), y=st.get("y", 0.0),
-                                z=st.get("z", 0.0), epsg=st.get("epsg", head.get("epsg", 0)),
-                                receivers=rxs))
+        try:
+            stations.append(Station(id=sid, x=st.get("x", 0.0), y=st.get("y", 0.0),
+                                    z=st.get("z", 0.0), epsg=st.get("epsg", head.get("epsg", 0)),
+                                    receivers=rxs))
+        except TemInputError as exc:
+            raise input_error(f"station[{sid}]", str(exc)) from None
     return Survey(name=head.get("name", "unnamed"), transmitter=transmitter, stations=stations,
                   mains_frequency=head.get("mains_frequency", 50.0), epsg=head.get("epsg", 0),
-                  lowpass_order=int(head.get("lowpass_order", 0)),
-                  lowpass_cutoff=float(head.get("lowpass_cutoff", 0.0)), base_dir=Path(base_dir))
+                  lowpass_order=head.get("lowpass_order", 0),
+                  lowpass_cutoff=head.get("lowpass_cutoff", 0.0), base_dir=Path(base_dir))
 
 
 def read_survey(path) -> Survey:
@@ -467,6 +576,8 @@ def survey_to_dict(survey: Survey) -> dict:
                 r["format"] = rx.format
             if rx.column:
                 r["column"] = rx.column
+            if rx.channel:
+                r["channel"] = rx.channel
             s["receiver"].append(r)
         doc["station"].append(s)
     return doc

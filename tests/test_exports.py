@@ -130,7 +130,10 @@ def test_segy_twt_against_two_layer_closed_form(profile):
             want[z > DOI[i]] = 0.0
             np.testing.assert_allclose(f.trace[i], want, rtol=1e-6)
             doi_twt = 2 * (H1 / V1 + (DOI[i] - H1) / V2)
-            assert f.header[i][segyio.TraceField.UnassignedInt2] == round(doi_twt * 1e6)
+            # DOI on the file's sample axis: two-way time in us, bytes 233-236
+            assert f.header[i][segyio.TraceField.UnassignedInt1] == round(doi_twt * 1e6)
+            # no verdicts in this models file: code -1 and chi2 -1 (two int16 in 237-240)
+            assert f.header[i][segyio.TraceField.UnassignedInt2] == -1
 
 
 def test_segy_resampled_along_profile(profile):
@@ -239,7 +242,7 @@ def test_cli_bad_input_exits_2(tmp_path, capsys):
     err = capsys.readouterr().err
     assert "vel.csv: depth_m" in err and err.count("\n") == 1
     vel.write_text("depth_m,vp_m_per_s\n0,2000\n300,-5\n")
-    with pytest.raises(TemInputError, match=r"vel\.csv: vp_m_per_s"):
+    with pytest.raises(TemInputError, match=r"vel\.csv: line 3: vp_m_per_s"):
         read_velocity_table(vel)
     vel.write_text("depth,vp\n0,2000\n")
     with pytest.raises(TemInputError, match=r"vel\.csv: depth_m: column missing"):
@@ -269,7 +272,7 @@ def test_cli_bad_options_and_line_exit_2_before_writing(tmp_path, capsys):
     cases = [
         (["section", path, "--vmin", "-1"], "--vmin: must be positive"),        # was a traceback
         (["section", path, "--vmin", "100", "--vmax", "10"], "--vmax: must exceed"),  # accepted
-        (["section", path, "--line", str(line)], "line.csv: x: line 3: not a finite"),  # traceback
+        (["section", path, "--line", str(line)], "line.csv: line 3: x: must be finite"),  # traceback
         (["section", path, "--formats", "pdf"], "--formats: the report links PNG"),
         (["export", p, "--las-bottom", "-3"], "--las-bottom: must be positive"),  # empty LAS logs
         (["export", p, "--dt-ms", "0.0001", "--velocity", str(line)], "--dt-ms: must be a whole"),

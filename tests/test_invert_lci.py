@@ -37,7 +37,7 @@ def test_lci_constant_profile_returns_constant():
     m_true = np.full(M, np.log(30.0))
     d = toy_fwd(m_true)[0]
     res = lci([toy_fwd] * 4, [d] * 4, [0.01 * d] * 4, np.full(M, np.log(3.0)), lateral_weight=1.0,
-              target=1.0, max_iter=20)
+              target=1.0, max_iter=20, misfit_drop=0.3)
     assert np.allclose(res.m, m_true, atol=0.01)
     assert np.all(res.chi2_station <= 1.02)
 
@@ -55,9 +55,9 @@ def test_lci_beats_independent_inversions_on_smoothly_varying_truth():
         data.append(dt + sd * rng.standard_normal(dt.size))
         stds.append(sd)
     m0 = np.full(M, np.log(50.0))
-    indep = np.array([occam(toy_fwd, data[s], stds[s], m0, target=1.0, max_iter=20).m
+    indep = np.array([occam(toy_fwd, data[s], stds[s], m0, target=1.0, max_iter=20, misfit_drop=0.3).m
                       for s in range(S)])
-    joint = lci([toy_fwd] * S, data, stds, m0, lateral_weight=1.0, target=1.0, max_iter=20)
+    joint = lci([toy_fwd] * S, data, stds, m0, lateral_weight=1.0, target=1.0, max_iter=20, misfit_drop=0.3)
     err_i = np.sqrt(np.mean((indep - np.array(truths)) ** 2))
     err_j = np.sqrt(np.mean((joint.m - np.array(truths)) ** 2))
     assert joint.occam.chi2 <= 1.02

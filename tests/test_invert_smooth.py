@@ -51,7 +51,7 @@ def test_occam_constant_truth_returns_constant():
     m_true = np.full(M, np.log(50.0))
     d = toy_fwd(m_true)[0]
     std = 0.01 * np.abs(d)
-    res = occam(toy_fwd, d, std, np.full(M, np.log(5.0)), target=1.0, max_iter=20)
+    res = occam(toy_fwd, d, std, np.full(M, np.log(5.0)), target=1.0, max_iter=20, misfit_drop=0.3)
     assert np.allclose(res.m, m_true, atol=0.01)
     assert res.chi2 <= 1.0 + 0.01
 
@@ -62,7 +62,7 @@ def test_occam_reaches_target_and_is_smoothest_at_target():
     d_true = toy_fwd(m_true)[0]
     std = 0.01 * d_true
     d = d_true + std * rng.standard_normal(d_true.size)
-    res = occam(toy_fwd, d, std, np.full(M, np.log(10.0)), target=1.0, max_iter=20)
+    res = occam(toy_fwd, d, std, np.full(M, np.log(10.0)), target=1.0, max_iter=20, misfit_drop=0.3)
     assert res.converged, res.message
     # target chi2 = 1 reached within the stated convergence tolerance (1 %)
     assert 0.9 <= res.chi2 <= 1.01
@@ -84,7 +84,7 @@ def test_occam_unreachable_target_gives_least_misfit():
     std = 1e-6 * d
     m0 = np.full(M, np.log(10.0))
     c0 = chi2_per_datum(d, toy_fwd(m0)[0], std)
-    res = occam(toy_fwd, d, std, m0, target=1.0, max_iter=8)
+    res = occam(toy_fwd, d, std, m0, target=1.0, max_iter=8, misfit_drop=0.3)
     assert not res.converged
     assert res.chi2 < 0.01 * c0
 
@@ -93,7 +93,7 @@ def test_occam_rejects_bad_errors():
     d = np.ones(3)
     with pytest.raises(ValueError, match="error"):
         occam(lambda m: (np.ones(3), np.ones((3, 2))), d, np.zeros(3), np.zeros(2), target=1.0,
-              max_iter=20)
+              max_iter=20, misfit_drop=0.3)
 
 
 def test_best_halfspace_recovers_uniform_value():

@@ -35,8 +35,10 @@ def test_emberline_fewlayer_recovers_sediment_target(emberline_result):
     res, model = emberline_result
     f = res.few
     true_rho, true_top = 8.0, 20.0 + basalt_thickness(X)
-    # sediment = the most conductive layer of the few-layer model
-    k = int(np.argmin(f["resistivity"]))
+    # sediment = the most conductive layer below 100 m (the 20 m surface layer is resolved
+    # only by its conductance: 1 m of 1.6 ohm-m fits as well as 20 m of 30 ohm-m)
+    deep = f["depth_top"] > 100.0
+    k = int(np.flatnonzero(deep)[np.argmin(f["resistivity"][deep])])
     assert abs(f["resistivity"][k] / true_rho - 1) < 0.25
     assert abs(f["depth_top"][k] / true_top - 1) < 0.10
     assert f["chi2"] < 1.5
@@ -76,7 +78,7 @@ def test_noise_free_halfspace_recovered_within_one_percent():
     h = mesh_for(sd, rho, InversionSettings())
     fwd, pred = _problem(sd, h)
     r = occam(fwd, sd.d_obs, sd.std, np.full(h.size + 1, np.log(10.0)), predict=pred, target=1.0,
-              max_iter=20)
+              max_iter=20, misfit_drop=0.3)
     assert np.exp(r.m) == pytest.approx(np.full(h.size + 1, 100.0), rel=0.01)
 
 

@@ -18,7 +18,7 @@ from tem.io.stacked import stacked_dataset
 from tem.qc import (QCSettings, channel_measures, primary_bz, station_verdicts,
                     write_stations_csv)
 from tem.stack import StackSettings, stack_station
-from tem.survey import Receiver, Station, Survey, Transmitter, parse_time
+from tem.survey import Channel, Station, Survey, Transmitter, parse_time
 from tem.synth import Faults, synth_survey
 
 FS = 2000.0
@@ -46,11 +46,11 @@ def fault_survey(base):
     for i in range(20):
         sid = f"S{i + 1:02d}"
         x, y = SITES["ABCD"[i // 5]]
-        rxs = [Receiver("ex", files=(f"raw/{sid}/ex.npy",), sample_rate=FS, gain=1.0,
+        rxs = [Channel("ex", files=(f"raw/{sid}/ex.npy",), sample_rate=FS, gain=1.0,
                         dipole=((x - 50.0, y), (x + 50.0, y))),
-               Receiver("dbzdt", files=(f"raw/{sid}/dbzdt.npy",), sample_rate=FS, gain=1.0,
+               Channel("dbzdt", files=(f"raw/{sid}/dbzdt.npy",), sample_rate=FS, gain=1.0,
                         coil_area=1.0e4),
-               Receiver("current", files=(f"raw/{sid}/current.npy",), sample_rate=FS, gain=0.01)]
+               Channel("current", files=(f"raw/{sid}/current.npy",), sample_rate=FS, gain=0.01)]
         sts.append(Station(id=sid, x=x, y=y, z=0.0, epsg=0, receivers=rxs))
     survey = Survey(name="QC fault day (synthetic)", transmitter=tx, stations=sts,
                     mains_frequency=50.0, base_dir=base)

@@ -5,7 +5,7 @@ import pytest
 from tem.errors import TemInputError
 from tem.io.raw import (FORMATS, RawHeader, open_receiver, open_recording, write_npy_recording,
                         write_text_recording)
-from tem.survey import Receiver, Station, Survey, replace
+from tem.survey import Channel, replace
 from tem.synth import emberline_survey
 
 HDR = RawHeader(sample_rate=1000.0, volts_per_count=1e-6, start_time="2025-06-02T08:00:00Z",
@@ -27,8 +27,8 @@ def test_text_reader_and_registry(tmp_path):
     write_text_recording(tmp_path / "r.txt", cols, HDR)
     rec = open_recording(tmp_path / "r.txt", column=1)
     np.testing.assert_allclose(rec.read(0, 50), -np.arange(50.0) * 1e-6)
-    assert set(FORMATS) == {"npy", "text"}
-    with pytest.raises(TemInputError, match="format: unknown 'seg2'; valid: npy, text"):
+    assert set(FORMATS) == {"npy", "mseed", "text"}
+    with pytest.raises(TemInputError, match="format: unknown 'seg2'; valid: npy, mseed, text"):
         open_recording(tmp_path / "r.txt", format="seg2")
 
 
@@ -44,7 +44,7 @@ def test_truncated_npy_names_file(tmp_path):
 def test_sample_rate_disagreement(tmp_path):
     write_npy_recording(tmp_path / "ex.npy", np.zeros(1000, np.int32), HDR)
     sv, _ = emberline_survey(base_dir=tmp_path, stations=["EM01"])
-    rx = Receiver("ex", files=("ex.npy",), sample_rate=4000.0, dipole=((0, 0), (100, 0)))
+    rx = Channel("ex", files=("ex.npy",), sample_rate=4000.0, dipole=((0, 0), (100, 0)))
     with pytest.raises(TemInputError) as exc:
         open_receiver(rx, sv)
     assert "ex.toml" in str(exc.value) and "sample_rate" in str(exc.value)
@@ -56,7 +56,7 @@ def test_contiguous_parts(tmp_path):
     write_npy_recording(tmp_path / "b.npy", a[600:],
                         replace(HDR, start_time=np.datetime64("2025-06-02T08:00:00.600", "ns")))
     sv, _ = emberline_survey(base_dir=tmp_path, stations=["EM01"])
-    rx = Receiver("ex", files=("a.npy", "b.npy"), sample_rate=1000.0, dipole=((0, 0), (1, 0)))
+    rx = Channel("ex", files=("a.npy", "b.npy"), sample_rate=1000.0, dipole=((0, 0), (1, 0)))
     rec = open_receiver(rx, sv)
     np.testing.assert_array_equal(rec.counts(550, 650), a[550:650])
     assert rec.file_at(700).name == "b.npy"

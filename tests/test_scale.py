@@ -9,7 +9,6 @@ subprocess, killed with SIGKILL at a stage, then rerun.
 from __future__ import annotations
 
 import json
-import os
 import signal
 import subprocess
 import sys
@@ -35,6 +34,10 @@ all_time = false
 [processing.invert]
 layers = 8
 max_iter = 2
+# 2 Occam iterations do not fit these data (chi2 25-100); these tests are about processes
+# and products, not fits: tolerances no model misses keep the exit status about them
+verdict_tolerance = 1e6
+verdict_stall_margin = 1e6
 
 [processing.section]
 depth_step = 50.0

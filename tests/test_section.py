@@ -209,5 +209,5 @@ def test_line_csv_refuses_non_finite_vertex(tmp_path):
     from tem.section import read_line_csv
     p = tmp_path / "line.csv"
     p.write_text("x,y\n0,0\n1000,inf\n")
-    with pytest.raises(TemInputError, match=r"line\.csv: y: line 3: not a finite number"):
+    with pytest.raises(TemInputError, match=r"line\.csv: line 3: y: must be finite"):
         read_line_csv(p)

@@ -19,10 +19,13 @@ from tem.forward.settings import FORWARD
 from tem.pipeline.settings import TABLES, resolve_settings
 from tem.settings import PYTHON, SettingsTable
 
-ALL = dict(TABLES, forward=FORWARD)
+from tem.importer.settings import IMPORT
+
+ALL = dict(TABLES, forward=FORWARD, **{"import": IMPORT})
 #: command that exposes each table (the pipeline exposes them through [processing] and --set)
 COMMANDS = {"stack": "stack", "gate": "gate", "qc": "gate", "rhoa": "rhoa", "invert": "invert",
-            "section": "section", "export": "export", "report": "report", "forward": "forward"}
+            "section": "section", "export": "export", "report": "report", "forward": "forward",
+            "import": "import"}
 
 
 def _subparser(name):
@@ -129,5 +132,5 @@ def test_reference_page_is_generated_from_the_tables():
     from tem.settings import markdown
 
     page = Path(__file__).resolve().parents[1] / "docs" / "settings.md"
-    assert page.read_text(encoding="utf-8") == markdown(list(TABLES.values()) + [FORWARD]), \
+    assert page.read_text(encoding="utf-8") == markdown(list(TABLES.values()) + [FORWARD, IMPORT]), \
         "docs/settings.md is stale: python -m tem.settings > docs/settings.md"

@@ -187,7 +187,7 @@ def test_synth_refuses_ignored_or_failing_options_before_writing(tmp_path, kw, f
     ("EM01,20,30\nEM01,abc,500\nEM01,,2000\n", "line 3"),       # was a ValueError traceback
     ("EM01,20,30\nEM01,900,500\n", "thickness_m"),              # half-space row missing: was dropped
     ("EM01,20,30\nEM01,,500\nEM01,,2000\n", "thickness_m"),
-    ("EM01,20,nan\nEM01,,2000\n", "resistivity"),
+    ("EM01,20,nan\nEM01,,2000\n", "line 2: resistivity_ohmm"),
 ])
 def test_synth_models_csv_errors_name_file_and_line(tmp_path, rows, field):
     p = tmp_path / "m.csv"

@@ -19,7 +19,7 @@ from ..errors import TemInputError, TemOutputError
 
 __all__ = ["main", "build_parser"]
 
-_ORDER = ["forward", "synth", "stack", "gate", "rhoa", "invert", "section", "export", "report",
+_ORDER = ["forward", "synth", "stack", "gate", "import_", "decays", "rhoa", "invert", "section", "export", "report",
           "evening",
           "run", "demo"]
 

@@ -16,7 +16,7 @@ from pathlib import Path
 from ..errors import input_error
 
 __all__ = ["add_out", "add_run_options", "input_files", "default_jobs", "stage_context",
-           "finish", "verdict_table", "MAX_JOBS"]
+           "finish", "not_fitted_line", "verdict_table", "MAX_JOBS"]
 
 #: Upper bound of ``--jobs``: more processes than this only add memory.
 MAX_JOBS = 256
@@ -109,8 +109,12 @@ def stage_context(args, stage: str, total: int):
         prog.update(task, completed=max(total, 1), description="done")
 
 
-def finish(stage: str, result, out) -> int:
-    """Closing lines of a stage command; exit status 1 when a station or the stage failed."""
+def finish(stage: str, result, out, not_fitted=None) -> int:
+    """Closing lines of a stage command; exit status 1 when a station or the stage failed.
+
+    ``not_fitted`` ({station: status}) names stations whose chosen model is a
+    failure (misfit, stalled): one line names them and the exit status is 1.
+    """
     for sid, oc in result.stations.items():
         if oc.status != "ok":
             print(f"tem {stage}: station {sid} failed: {oc.message}", file=sys.stderr)
@@ -123,7 +127,15 @@ def finish(stage: str, result, out) -> int:
     written = len(result.all_outputs())
     counts = f"{n} stations, {n_fail} failed; " if n else ""
     print(f"tem {stage}: {counts}{written} files written under {out}")
-    return 1 if result.any_failed else 0
+    if not_fitted:
+        print(f"tem {stage}: {not_fitted_line(not_fitted)}", file=sys.stderr)
+    return 1 if result.any_failed or not_fitted else 0
+
+
+def not_fitted_line(not_fitted: dict) -> str:
+    """One line naming the stations whose chosen model is not fitted, e.g. ``EM03 (misfit)``."""
+    names = ", ".join(f"{sid} ({status})" for sid, status in not_fitted.items())
+    return f"chosen model not fitted at {len(not_fitted)} station(s): {names}"
 
 
 _VERDICT_COLOUR = {"good": "green", "check": "yellow", "reoccupy": "bold red"}

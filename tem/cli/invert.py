@@ -24,6 +24,7 @@ def run(args) -> int:
     from rich.console import Console
 
     from ..invert.settings import INVERT
+    from ..invert.stage import not_fitted
     from ..invert.stage import run as invert_run
     from ..io.project import check_output
 
@@ -32,15 +33,35 @@ def run(args) -> int:
     check_output(args.out, ["invert"], inputs=files)
     with common.stage_context(args, "invert", len(files)) as ctx:
         res = invert_run(settings, files, args.out, ctx)
-    console = Console()
-    for sid, oc in res.stations.items():
-        if oc.status != "ok":
-            continue
-        i = oc.info
-        extra = f", few-layer chi2 {i['few_layer_chi2']:.2f}" if "few_layer_chi2" in i else ""
+    fit_table(res, Console())
+    return common.finish("invert", res, args.out, not_fitted=not_fitted(res))
+
+
+_COLOUR = {"fitted": "green", "misfit": "bold red", "stalled": "bold red",
+           "parameter-at-bound": "yellow", "degenerate-layer": "yellow"}
+
+
+def fit_table(res, console):
+    """Per station: chosen model, verdict, final chi2 against its tolerance, DOI, reasons."""
+    from rich.table import Table
+
+    rows = [(sid, oc.info) for sid, oc in res.stations.items() if oc.status == "ok"]
+    if not rows:
+        return
+    t = Table(title="Inversion: verdict on each station's chosen model", header_style="bold")
+    for col, just in (("station", "left"), ("model", "left"), ("verdict", "left"),
+                      ("chi2", "right"), ("tol", "right"), ("DOI m", "right")):
+        t.add_column(col, justify=just, no_wrap=True)
+    t.add_column("reasons and other models", overflow="fold")
+    for sid, i in rows:
+        own = i.get("verdict_kind", i["model_kind"])
+        v = i["verdicts"].get(own, {})
+        others = [f"{k} {o['status']} chi2 {o['chi2']:.2f}" for k, o in i["verdicts"].items()
+                  if k != own and o.get("chi2") is not None]
+        reasons = v.get("reasons", [])[1:] + others
         if "rhat_max" in i:
-            extra += f", R-hat {i['rhat_max']:.3f}, ESS {i['ess_min']:.0f}"
-        note = f" ({i['invert_message']})" if i.get("invert_message") else ""
-        console.print(f"{sid}: chi2 {i['chi2']:.2f}, DOI {i['doi']:.0f} m{extra}{note}",
-                      highlight=False)
-    return common.finish("invert", res, args.out)
+            reasons.append(f"posterior R-hat {i['rhat_max']:.3f}, ESS {i['ess_min']:.0f}")
+        t.add_row(sid, i["model_kind"], f"[{_COLOUR.get(i['verdict'], 'white')}]{i['verdict']}[/]",
+                  f"{i['chi2']:.2f}", f"{v.get('tolerance', float('nan')):.2f}",
+                  f"{i['doi']:.0f}", "; ".join(reasons))
+    console.print(t)

@@ -68,6 +68,12 @@ def print_summary(outcome, console):
         console.print(f"note: {note}", highlight=False)
     if last.get("stopped"):
         console.print(f"[red]stopped: {last['stopped']}[/]", highlight=False)
+    from ..pipeline.runner import not_fitted
+    from .common import not_fitted_line
+
+    bad = not_fitted(state)
+    if bad:
+        console.print(f"[bold red]invert: {not_fitted_line(bad)}[/]", highlight=False)
     n_fail = sum("failed_stage" in s for s in state.get("stations", {}).values())
     root = outcome.project.root
     console.print(f"{len(state.get('stations', {}))} stations, {n_fail} failed; "

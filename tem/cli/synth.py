@@ -26,6 +26,9 @@ def add_parser(sub):
     p.add_argument("--noisy-station", metavar="ID", help="station with 8x random noise")
     p.add_argument("--dead", metavar="ID:COMPONENT", help="channel that records nothing")
     p.add_argument("--stations", metavar="IDS", help="comma-separated subset of stations")
+    p.add_argument("--raw-format", choices=("npy", "mseed"), default="npy",
+                   help="recording format with --emberline: npy + sidecar (default) or MiniSEED "
+                        "(with a survey, each receiver's format or file suffix decides)")
     return p
 
 
@@ -49,7 +52,8 @@ def run(args) -> int:
     subset = args.stations.split(",") if args.stations else None
     dead = _dead_channel(args.dead)
     if args.emberline:
-        survey, models = emberline_survey(base_dir=out, stations=subset)
+        survey, models = emberline_survey(base_dir=out, stations=subset,
+                                          raw_format=args.raw_format)
     else:
         if not args.survey:
             raise input_error("survey", "give a survey TOML or --emberline")

@@ -129,6 +129,7 @@ def las_for_station(models, i, step, bottom=None, mask_below_doi=False, source="
         ("DOI", "m", round(float(doi), 1) if np.isfinite(doi) else NULL, "Depth of investigation below ground"),
         ("CHI2", "", round(float(models["chi2"].values[i]), 3), "Chi-square per datum of the model"),
         ("MKIND", "", str(models.attrs.get("model_kind", "")), "Model kind (smooth, few-layer, lci, posterior)"),
+        *verdict_params(models, i),
         ("MASK", "", "YES" if mask_below_doi else "NO", "RES set to NULL below the DOI"),
         ("SRC", "", Path(source).name if source else "", "Models file"),
     ]
@@ -139,6 +140,9 @@ def las_for_station(models, i, step, bottom=None, mask_below_doi=False, source="
         las.params.append(lasio.HeaderItem(mnem, unit=unit, value=value, descr=descr))
     las.other = ("Pseudo-well from a 1D TEM resistivity model; an interpretation, not a "
                  "measured log. Depths are below ground level.")
+    fit = next((p[2] for p in params if p[0] == "FIT"), "UNKNOWN")
+    if fit not in ("FITTED", "UNKNOWN"):
+        las.other += f" WARNING: verdict {fit} (see FIT, FITR): {_WARNING[fit]}"
     las.append_curve("DEPT", depth, unit="m", descr="Depth below ground level")
     las.append_curve("RES", r, unit="ohm.m", descr="Model resistivity")
     las.append_curve("RSTD", s, unit="log10(ohm.m)", descr="Std of log10 resistivity")
@@ -148,6 +152,33 @@ def las_for_station(models, i, step, bottom=None, mask_below_doi=False, source="
         for mnem, values, unit, descr in posterior_curves(models, i, depth):
             las.append_curve(mnem, values, unit=unit, descr=descr)
     return las
+
+
+_WARNING = {
+    "MISFIT": "the model does not fit the data; do not read it as a fitted model.",
+    "STALLED": "the inversion stopped before it converged; the model is not final.",
+    "PARAMETER-AT-BOUND": "a parameter sits at its bound: a limit, not an estimate.",
+    "DEGENERATE-LAYER": "a layer is too thin for its depth to be resolved.",
+}
+
+
+def verdict_params(models, i):
+    """LAS parameter lines of the station's verdict (docs/exports.md): FIT, FITC, TOL, FITR."""
+    from ..io.models import model_verdicts
+
+    v = model_verdicts(models)[i]
+    if v is None:
+        return [("FIT", "", "UNKNOWN", "Verdict on the model: none recorded")]
+    tol = round(float(models["verdict_tolerance"].values[i]), 3) if "verdict_tolerance" in models \
+        else NULL
+    reasons = v["reasons"].replace(":", " ")    # a colon ends the value of a LAS line
+    return [
+        ("FIT", "", v["status"].upper(), "Verdict: FITTED MISFIT STALLED PARAMETER-AT-BOUND "
+         "DEGENERATE-LAYER"),
+        ("FITC", "", v["code"], "Verdict code 0 fitted 1 misfit 2 stalled 3 at bound 4 thin"),
+        ("TOL", "", tol, "Largest chi-square per datum counted as fitted"),
+        ("FITR", "", reasons, "Verdict reasons"),
+    ]
 
 
 def write_las(las, path):

@@ -22,8 +22,12 @@ group and source (top sample of elevation sections), 69-70 elevation scalar, 71-
 scalar, 73-76/77-80 source X/Y, 81-84/85-88 group X/Y, 89-90 coordinate
 units (1 = length), 109-110 delay (first sample, ms or m), 115-116 sample
 count, 117-118 sample interval, 181-184/185-188 CDP X/Y, 189-192 inline
-(line number), 193-196 crossline (= CDP), 233-236 DOI depth in cm (unassigned
-bytes, tem use), 237-240 DOI two-way time in microseconds (TWT files only).
+(line number), 193-196 crossline (= CDP); in the bytes rev 1 leaves unassigned
+(233-240, tem's use): 233-236 int32 DOI on the file's sample axis (depth
+files: cm below ground; two-way-time files: microseconds), 237-238 int16
+verdict code of the models the trace is made from (0 fitted, 1 misfit, 2
+stalled, 3 parameter at a bound, 4 degenerate layer, -1 none) and 239-240 int16
+their chi2 x 100 (capped at 32767, -1 unknown); docs/exports.md.
 """
 from __future__ import annotations
 
@@ -43,6 +47,8 @@ __all__ = [
     "depth_section_traces",
     "twt_section_traces",
     "write_segy",
+    "verdict_field",
+    "verdict_of_field",
     "BELOW_DOI",
     "VALUES",
 ]
@@ -93,26 +99,16 @@ def read_velocity_table(path):
     -------
     depth, velocity : ndarray
     """
-    import csv
+    from ..io import checks
 
     path = Path(path)
-    if not path.is_file():
-        raise input_error("velocity table", "file not found", path)
-    with open(path, newline="", encoding="utf-8") as fh:
-        lines = [ln for ln in fh if ln.strip() and not ln.lstrip().startswith("#")]
-    reader = csv.DictReader(lines)
-    fields = [f.strip() for f in (reader.fieldnames or [])]
-    for need in ("depth_m", "vp_m_per_s"):
-        if need not in fields:
-            raise input_error(need, f"column missing (header has: {', '.join(fields) or 'nothing'})", path)
-    z, v = [], []
-    for k, row in enumerate(reader, start=2):
-        row = {(key or "").strip(): val for key, val in row.items()}
-        for name, dest in (("depth_m", z), ("vp_m_per_s", v)):
-            try:
-                dest.append(float(row[name]))
-            except (TypeError, ValueError):
-                raise input_error(name, f"line {k}: not a number: {row[name]!r}", path) from None
+    rows = checks.csv_rows(checks.read_text(path, "velocity table"), path,
+                           ("depth_m", "vp_m_per_s"), field="velocity table", max_rows=100_000)
+    lim = checks.LIMITS
+    z = [checks.number(r["depth_m"], f"line {k}: depth_m", path, parse_text=True, minimum=0.0,
+                       maximum=lim["depth"]) for k, r in rows]
+    v = [checks.number(r["vp_m_per_s"], f"line {k}: vp_m_per_s", path, parse_text=True,
+                       minimum=lim["velocity_min"], maximum=lim["velocity_max"]) for k, r in rows]
     return check_velocity_table(np.array(z), np.array(v), path)
 
 
@@ -204,6 +200,31 @@ def _text_header(lines):
     return segyio.tools.create_text_header(cards)
 
 
+CHI2_MAX = 32767      # chi2 x 100 in an int16: 327.67 and above are stored as 32767
+
+
+def verdict_field(code, chi2) -> int:
+    """Bytes 237-240 as the int32 segyio writes: int16 verdict code, then int16 chi2 x 100.
+
+    Code -1 means no verdict; chi2 x 100 is rounded, capped at 32767 (chi2
+    327.67 or more) and -1 when unknown. Both halves are big-endian int16.
+    """
+    import struct
+
+    c = int(code) if code is not None and -1 <= int(code) <= 32767 else -1
+    x = float(chi2)
+    v = -1 if not np.isfinite(x) or x < 0 else min(int(round(x * 100)), CHI2_MAX)
+    return struct.unpack(">i", struct.pack(">hh", c, v))[0]
+
+
+def verdict_of_field(value) -> tuple:
+    """(verdict code, chi2 or NaN) from the int32 of bytes 237-240 (inverse of :func:`verdict_field`)."""
+    import struct
+
+    c, v = struct.unpack(">hh", struct.pack(">i", int(value)))
+    return c, (v / 100.0 if v >= 0 else float("nan"))
+
+
 def write_segy(path, data, grid, interval_field, first, domain, description, line_number,
                doi_twt=None):
     """Write traces and headers as SEG-Y rev 1 (IEEE float), atomically.
@@ -241,6 +262,13 @@ def write_segy(path, data, grid, interval_field, first, domain, description, lin
     y = grid["y"].values.astype(float)
     surf = grid["surface"].values.astype(float)
     doi = grid["doi"].values.astype(float)
+    if doi_twt is None:      # DOI on the file's sample axis: cm (depth) or us (two-way time)
+        doi_field = [int(round(v * 100)) if np.isfinite(v) else -1 for v in doi]
+    else:
+        doi_field = [int(round(v * 1e6)) if np.isfinite(v) else -1 for v in doi_twt]
+    code = grid["verdict_code"].values.astype(int) if "verdict_code" in grid \
+        else np.full(ntr, -1)
+    chi2 = grid["chi2"].values.astype(float) if "chi2" in grid else np.full(ntr, np.nan)
     cs = coordinate_scalar(x, y)
     datum = float(np.nanmax(grid["elevation"].values)) if domain == "elevation" else np.nan
     es = coordinate_scalar(surf, np.array([0.0 if np.isnan(datum) else datum]))
@@ -297,16 +325,29 @@ def write_segy(path, data, grid, interval_field, first, domain, description, lin
                     T.CDP_Y: _scaled(y[k], cs),
                     T.INLINE_3D: line_number,
                     T.CROSSLINE_3D: cdp,
-                    T.UnassignedInt1: int(round(doi[k] * 100)) if np.isfinite(doi[k]) else -1,
+                    T.UnassignedInt1: doi_field[k],
+                    T.UnassignedInt2: verdict_field(code[k], chi2[k]),
                 }
                 if domain == "elevation":
                     h[T.ReceiverDatumElevation] = _scaled(datum, es)
                     h[T.SourceDatumElevation] = _scaled(datum, es)
-                if doi_twt is not None:
-                    h[T.UnassignedInt2] = int(round(doi_twt[k] * 1e6)) if np.isfinite(doi_twt[k]) else -1
                 f.header[k] = h
                 f.trace[k] = np.ascontiguousarray(data[k], dtype=np.float32)
     return Path(path)
+
+
+def _not_fitted_line(grid) -> str:
+    """Textual header line naming the stations whose model is not fitted (76 characters at most)."""
+    if "station_verdict_code" not in grid:
+        return "VERDICTS: NONE RECORDED"
+    short = {1: "MISFIT", 2: "STALLED", 3: "AT-BOUND", 4: "THIN-LAYER"}
+    bad = [f"{sid} {short.get(c, c)}" for sid, c in zip(
+        grid["station"].values.astype(str), grid["station_verdict_code"].values.astype(int))
+        if c > 0]
+    if not bad:
+        return "VERDICTS: ALL STATIONS FITTED"
+    text = "VERDICTS: " + ", ".join(bad) + ", OTHERS FITTED"
+    return text if len(text) <= 76 else text[:72] + " ..."
 
 
 def describe(grid, domain, step, value, below_doi, epsg, source="", velocity_file=""):
@@ -329,13 +370,16 @@ def describe(grid, domain, step, value, below_doi, epsg, source="", velocity_fil
         "CDP X/Y 181-188, SOURCE X/Y 73-80, GROUP X/Y 81-88; SCALAR 71-72",
         "SURFACE ELEVATION 41-44 AND 45-48, SCALAR 69-70",
         "INLINE 189-192 = LINE NUMBER, CROSSLINE 193-196 = CDP",
-        "DOI DEPTH IN CM IN BYTES 233-236 (-1 UNKNOWN)",
+        ("DOI TWO-WAY TIME IN MICROSECONDS" if domain == "twt" else "DOI DEPTH IN CM")
+        + " IN BYTES 233-236 (-1 UNKNOWN)",
+        "VERDICT INT16 237-238: 0 FIT 1 MISFIT 2 STALLED 3 AT BOUND 4 THIN; -1 NONE",
+        "CHI2 X 100 INT16 239-240 (32767 = 327.67 OR MORE; -1 UNKNOWN)",
     ]
     if domain == "elevation":
         lines.append("DATUM ELEVATION (TOP SAMPLE) IN 53-56 AND 57-60, SCALAR 69-70")
     if domain == "twt":
-        lines.append("DOI TWO-WAY TIME IN MICROSECONDS IN BYTES 237-240")
         lines.append(f"TIME FROM INTERVAL VELOCITIES: {Path(velocity_file).name}"[:76])
+    lines.append(_not_fitted_line(grid))
     d = grid["distance"].values
     if d.size:
         lines.append(f"PROFILE DISTANCE {d[0]:.1f} TO {d[-1]:.1f} M")

@@ -59,6 +59,9 @@ EXPORT = SettingsTable("export", [
             help="two-way-time sample interval"),
     Setting("max_twt_ms", None, "float", "ms", minimum=0, exclusive=True, maximum=1e6,
             help="two-way-time section length (unset: the time of the section bottom)"),
+    Setting("epsg", None, "int", minimum=1, maximum=999999,
+            help="EPSG code of a projected CRS for the exported coordinates (unset: the models' "
+            "own; transformed with pyproj)"),
 ], "ExportSettings", doc="Export parameters.", checks=[_checks])
 
 ExportSettings = EXPORT.cls

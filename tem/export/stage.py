@@ -17,7 +17,7 @@ from ..provenance import records_from_json, stage_record
 from ..runtime import StageContext, StageResult
 from .settings import ExportSettings, kinds_of
 
-__all__ = ["run", "inputs_of"]
+__all__ = ["run", "inputs_of", "to_crs"]
 
 
 def inputs_of(settings: ExportSettings, project_in) -> tuple:
@@ -29,6 +29,20 @@ def inputs_of(settings: ExportSettings, project_in) -> tuple:
         if not f.is_file():
             raise input_error("file", f"missing (run the {stage} stage first)", f)
     return files
+
+
+def to_crs(ds, src, dst, file=None):
+    """Copy of a models or section Dataset with x, y (and line vertices) in EPSG ``dst``."""
+    from ..io.crs import transform_xy
+
+    out = ds.copy()
+    for cx, cy in (("x", "y"), ("line_x", "line_y")):
+        if cx in ds and cy in ds:
+            x, y = transform_xy(ds[cx].values, ds[cy].values, src, dst, "epsg", file)
+            out[cx] = (ds[cx].dims, x, ds[cx].attrs)
+            out[cy] = (ds[cy].dims, y, ds[cy].attrs)
+    out.attrs["epsg"] = int(dst)
+    return out
 
 
 def _dt_us(settings):
@@ -53,6 +67,16 @@ def run(settings: ExportSettings, project_in, out, ctx: StageContext = StageCont
     grid = read_section_grid(sfile)
     epsg = int(models.attrs.get("epsg", 0) or 0)
     sp = settings_of_grid(grid, sfile)
+    src_models, src_epsg = models, epsg
+    if settings.epsg is not None and settings.epsg != epsg:
+        from ..io.crs import check_projected
+        check_projected(settings.epsg, "epsg")
+        if not epsg:
+            raise input_error("epsg", "the models have no CRS (epsg 0): give the survey an epsg "
+                              "to export in another system", mfile)
+        models = to_crs(models, epsg, settings.epsg, mfile)
+        grid = to_crs(grid, epsg, settings.epsg, sfile)
+        epsg = int(settings.epsg)
     table = segy.read_velocity_table(settings.velocity) if "segy-twt" in what else None
     if "segy-twt" in what and sp.vertical != "depth":
         raise input_error("vertical", "the two-way-time SEG-Y is computed from depth below surface; "
@@ -82,7 +106,9 @@ def run(settings: ExportSettings, project_in, out, ctx: StageContext = StageCont
         else:
             max_twt = float(depth_to_twt(float(grid["depth"].values[-1]), *table))
         data, _, tgrid, doi_twt = segy.twt_section_traces(
-            lambda d: section_grid(models, sp, depth=d), table[0], table[1], dt, max_twt,
+            lambda d: to_crs(section_grid(src_models, sp, depth=d), src_epsg, epsg)
+            if epsg != src_epsg else section_grid(src_models, sp, depth=d),
+            table[0], table[1], dt, max_twt,
             settings.segy_value, settings.segy_below_doi)
         text = segy.describe(tgrid, "twt", dt, settings.segy_value, settings.segy_below_doi,
                              epsg, str(mfile), settings.velocity)

@@ -8,6 +8,7 @@ from pathlib import Path
 import numpy as np
 
 from ..errors import TemInputError, input_error
+from ..io import checks
 from .model import LayeredModel
 
 __all__ = ["read_model_csv", "response_csv_text", "response_figure", "UNITS"]
@@ -16,35 +17,42 @@ UNITS = {"ex": "V/m/A", "ey": "V/m/A", "bz": "T/A", "dbxdt": "T/s/A", "dbydt": "
          "dbzdt": "T/s/A"}
 
 
+#: Most layers of one model in a model CSV.
+MAX_LAYERS = 1000
+
+
 def read_model_csv(path) -> dict:
     """Layered model(s) from CSV: ``thickness_m,resistivity_ohmm`` per layer, half-space last
     with an empty thickness. An optional ``station`` column gives per-station models; the
     result maps station id (or ``"*"`` for all stations) to a :class:`LayeredModel`.
+
+    Refused with one line naming the file and the line or column: non-UTF-8
+    bytes or NUL characters, a missing column, a row with more fields than
+    the header, text where a number belongs, resistivity outside
+    1e-6..1e12 ohm-m, thickness not in (0, 1e6] m, more than 1000 layers in
+    one model, a station id with control characters.
     """
     path = Path(path)
-    try:
-        text = path.read_text(encoding="utf-8")
-    except (OSError, UnicodeDecodeError) as exc:
-        raise input_error("model", f"cannot read ({exc.__class__.__name__})", path) from None
-    rows = list(csv.DictReader(line for line in io.StringIO(text) if not line.startswith("#")))
+    text = checks.read_text(path, "model")
+    rows = checks.csv_rows(text, path, ("thickness_m", "resistivity_ohmm"), field="model")
     if not rows:
         raise input_error("model", "no layers", path)
-    for col in ("thickness_m", "resistivity_ohmm"):
-        if col not in rows[0]:
-            raise input_error(col, "missing column (need thickness_m,resistivity_ohmm)", path)
+    lim = checks.LIMITS
     groups: dict = {}
-    for i, r in enumerate(rows, start=2):
-        if None in r:  # csv.DictReader files surplus fields under the key None
-            raise input_error(f"line {i}", f"more fields than the header has ({len(r) - 1})", path)
-        key = (r.get("station") or "*").strip()
-        try:
-            rho = float(r["resistivity_ohmm"])
-            thk = r["thickness_m"].strip()
-            thk = float(thk) if thk else None
-        except (TypeError, ValueError):
-            raise input_error(f"line {i}", "thickness_m and resistivity_ohmm must be numbers",
-                              path) from None
-        groups.setdefault(key, []).append((thk, rho))
+    for i, r in rows:
+        key = r.get("station") or "*"
+        if key != "*":
+            checks.text(key, f"line {i}: station", path)
+        rho = checks.number(r["resistivity_ohmm"], f"line {i}: resistivity_ohmm", path,
+                            parse_text=True, minimum=lim["resistivity_min"],
+                            maximum=lim["resistivity_max"])
+        thk = r["thickness_m"]
+        thk = checks.number(thk, f"line {i}: thickness_m", path, parse_text=True, positive=True,
+                            maximum=lim["thickness"]) if thk else None
+        layers = groups.setdefault(key, [])
+        if len(layers) >= MAX_LAYERS:
+            raise input_error("model", f"model {key!r}: more than {MAX_LAYERS} layers", path)
+        layers.append((thk, rho))
     out = {}
     for key, layers in groups.items():
         if layers[-1][0] is not None:

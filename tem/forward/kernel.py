@@ -32,8 +32,12 @@ the first ones of the ascending grid, and every loop runs over a prefix.
 
 Derivatives with respect to ln(resistivity) of every layer and
 ln(thickness) come from one reverse sweep through the recursion (reverse-mode
-differentiation), so all derivatives together cost a small multiple of one
-kernel evaluation.
+differentiation): the upward pass stores each layer's partial derivatives,
+and one downward pass per receiver, seeded with that receiver's wavenumber
+coefficients, chains them and sums over wavenumbers as it goes (TE and TM
+chains together), so all derivatives cost 1.6-2x one kernel evaluation.
+e_n is floored at exp(-80) (``_E_ARG_MIN``) so that no product in these
+passes becomes a subnormal number.
 
 :func:`fused_spectra` evaluates the kernels and integrates them against the
 caller's wavenumber-coefficient matrices in one compiled pass;
@@ -52,6 +56,10 @@ MU0 = 4e-7 * np.pi
 __all__ = ["MU0", "fused_spectra", "fused_spectra_many"]
 
 _ATT_MAX = 20.0
+# e_n = exp(-2 Gamma_n h_n) is floored at exp(-80): below it e_n cannot change a value by
+# a rounding unit, but its products (e, F = 4 e (K w)^2, chained in the reverse sweep) would
+# reach subnormal numbers, which the processor handles ~100x slower
+_E_ARG_MIN = -80.0
 LANES = 8   # SIMD width in doubles (AVX-512, a multiple of narrower ones); callers pad to it
 _JIT = dict(cache=True, fastmath=True, error_model="numpy")
 
@@ -95,7 +103,7 @@ def _top_down(l2, wm, sig, thk, gr, gi, er, ei, att, A, B):  # pragma: no cover 
         ein = ei[n]
         for il in range(k):
             g = grn[il]
-            m = exp_neg(-h2 * g)
+            m = exp_neg(max(-h2 * g, _E_ARG_MIN))
             sn, cs = sincos(h2 * gin[il])
             ern[il] = m * cs
             ein[il] = -m * sn
@@ -154,55 +162,57 @@ def _bottom_up(scale, gr, gi, er, ei, A, B, XR, XI):  # pragma: no cover - compi
 
 
 @nb.njit(**_JIT)
-def _bottom_up_jac(scale, tm, wm, sig, thk, gr, gi, er, ei, A, B, XR, XI, jac_thk,
-                   FR, FI, GR, GI, HR, HI):  # pragma: no cover - compiled
+def _bottom_up_jac(scale, tmf, wm, sig, thk, l2, gr, gi, er, ei, A, B, XR, XI, FR, FI, GR, GI,
+                   jac_thk, HR, HI):  # pragma: no cover - compiled
     """:func:`_bottom_up` plus the per-layer partial derivatives the reverse sweep chains.
 
-    X_n = K (P + e M)/(P - e M), P = X + K, M = X - K, X = X_{n+1}, K = scale[n] Gamma_n,
-    e = e_n = exp(-2 Gamma_n h_n), N = P + e M, w = 1/(P - e M). Partial derivatives:
-    dX_n/dX = 4 e K^2 w^2 (F), dX_n/dK = N w - 4 e X K w^2, dX_n/de = 2 K M P w^2, with
-    de/dln rho = -2 h e dGamma, de/dln h = -2 h e Gamma, dGamma/dln rho = -i omega mu0
-    sigma/(2 Gamma) = -(Gamma^2 - lambda^2)/(2 Gamma), dK = scale dGamma, plus K for ``tm``
-    (scale = rho). Collected: G = dX_n/dln rho_n = dGamma [c N w - 4 e K w^2 (c X + h M P)]
-    (+ K (N w - 4 e X K w^2) for ``tm``), H = dX_n/dln h_n = -4 h e Gamma M P K w^2.
-    The bottom layer of a wavenumber has X_n = K_n: G = dK.
+    X_n = K (P + e M)/(P - e M), P = X + K, M = X - K, X = X_{n+1}, K = c Gamma_n with
+    c = scale[n] (1 for TE, rho_n for TM), e = exp(-2 Gamma_n h_n), w = 1/(P - e M):
+    F = dX_n/dX = 4 e (K w)^2; dX_n/dK = (X_n - X F)/K; dX_n/de = 2 K P M w^2. With
+    dGamma/dln rho = -i omega mu0 sigma/(2 Gamma) = Gamma d, d = -t (q + i lambda^2),
+    q = omega mu0 sigma, t = q/(2 (lambda^4 + q^2)) (as Gamma^2 = lambda^2 + i q), and
+    de/dln rho = -2 h e Gamma d, de/dln h = -2 h e Gamma:
+    G = dX_n/dln rho_n = d [X_n - X F - (h/c) F P M] + tmf (X_n - X F) (tmf = 1 for TM,
+    where c = rho_n varies too, else 0), H = dX_n/dln h_n = -(h/c) F P M (with ``jac_thk``,
+    in a loop of its own: loops that write few arrays stay vectorised). The bottom layer
+    of a wavenumber has X_n = K: G = K d + tmf K.
     """
     L = scale.size
     for n in range(L - 1, -1, -1):
         c = scale[n]
         q = wm * sig[n]
+        hc = thk[n] / c
         rb = n + 1 if n + 1 < L else n
+        grn = gr[n]
+        gin = gi[n]
+        ern = er[n]
+        ein = ei[n]
         xro = XR[n]
         xio = XI[n]
         xrb = XR[rb]
         xib = XI[rb]
-        grn = gr[n]
-        gin = gi[n]
-        grr = GR[n]
-        gri = GI[n]
+        fro = FR[n]
+        fio = FI[n]
+        gro = GR[n]
+        gio = GI[n]
         for il in range(B[n], A[n]):
-            g_r = grn[il]
-            g_i = gin[il]
-            xro[il] = c * g_r
-            xio[il] = c * g_i
-            inv = 0.5 * q / (g_r * g_r + g_i * g_i)
-            dkr = -c * g_i * inv
-            dki = -c * g_r * inv
-            if tm:
-                dkr += c * g_r
-                dki += c * g_i
-            grr[il] = dkr
-            gri[il] = dki
-        h = thk[n]
-        ern = er[n]
-        ein = ei[n]
-        frn = FR[n]
-        fin = FI[n]
+            x = l2[il]
+            t = 0.5 * q / (x * x + q * q)
+            dr = -t * q + tmf
+            di = -t * x
+            kr = c * grn[il]
+            ki = c * gin[il]
+            xro[il] = kr
+            xio[il] = ki
+            gro[il] = dr * kr - di * ki
+            gio[il] = dr * ki + di * kr
         for il in range(B[n]):
-            g_r = grn[il]
-            g_i = gin[il]
-            kr = c * g_r
-            ki = c * g_i
+            x = l2[il]
+            t = 0.5 * q / (x * x + q * q)
+            dr = -t * q
+            di = -t * x
+            kr = c * grn[il]
+            ki = c * gin[il]
             e_r = ern[il]
             e_i = ein[il]
             xr = xrb[il]
@@ -213,107 +223,175 @@ def _bottom_up_jac(scale, tm, wm, sig, thk, gr, gi, er, ei, A, B, XR, XI, jac_th
             mi = xi - ki
             emr = e_r * mr - e_i * mi
             emi = e_r * mi + e_i * mr
-            nr = pr + emr
-            ni = pi + emi
-            dr = pr - emr
-            di = pi - emi
-            inv = 1.0 / (dr * dr + di * di)
-            w_r = dr * inv
-            w_i = -di * inv
-            nwr = nr * w_r - ni * w_i                  # N w
-            nwi = nr * w_i + ni * w_r
-            xro[il] = kr * nwr - ki * nwi              # X_n = K N w
-            xio[il] = kr * nwi + ki * nwr
-            w2r = w_r * w_r - w_i * w_i
-            w2i = 2.0 * w_r * w_i
-            kwr = kr * w2r - ki * w2i                  # K w^2
-            kwi = kr * w2i + ki * w2r
-            ekr = 4.0 * (e_r * kwr - e_i * kwi)        # 4 e K w^2
-            eki = 4.0 * (e_r * kwi + e_i * kwr)
-            frn[il] = ekr * kr - eki * ki              # F = 4 e K w^2 K
-            fin[il] = ekr * ki + eki * kr
-            mpr = h * (mr * pr - mi * pi)              # h M P
-            mpi = h * (mr * pi + mi * pr)
-            ur = c * xr + mpr
-            ui = c * xi + mpi
-            vr = c * nwr - (ekr * ur - eki * ui)       # c N w - 4 e K w^2 (c X + h M P)
-            vi = c * nwi - (ekr * ui + eki * ur)
-            inv = 0.5 * q / (g_r * g_r + g_i * g_i)
-            dgr = -g_i * inv
-            dgi = -g_r * inv
-            ogr = dgr * vr - dgi * vi
-            ogi = dgr * vi + dgi * vr
-            if tm:
-                # + K (N w - 4 e X K w^2)
-                fkr = nwr - (ekr * xr - eki * xi)
-                fki = nwi - (ekr * xi + eki * xr)
-                ogr += kr * fkr - ki * fki
-                ogi += kr * fki + ki * fkr
-            grr[il] = ogr
-            gri[il] = ogi
+            nr_ = pr + emr
+            ni_ = pi + emi
+            d_r = pr - emr
+            d_i = pi - emi
+            inv = 1.0 / (d_r * d_r + d_i * d_i)
+            w_r = d_r * inv
+            w_i = -d_i * inv
+            kwr = kr * w_r - ki * w_i                  # K w
+            kwi = kr * w_i + ki * w_r
+            x0r = kwr * nr_ - kwi * ni_                # X_n = K w N
+            x0i = kwr * ni_ + kwi * nr_
+            k2r = kwr * kwr - kwi * kwi
+            k2i = 2.0 * kwr * kwi
+            fr = 4.0 * (e_r * k2r - e_i * k2i)         # F = 4 e (K w)^2
+            fi = 4.0 * (e_r * k2i + e_i * k2r)
+            ar = x0r - (xr * fr - xi * fi)             # X_n - X F
+            ai = x0i - (xr * fi + xi * fr)
+            pmr = pr * mr - pi * mi
+            pmi = pr * mi + pi * mr
+            vr = ar - hc * (fr * pmr - fi * pmi)      # X_n - X F - (h/c) F P M
+            vi = ai - hc * (fr * pmi + fi * pmr)
+            xro[il] = x0r
+            xio[il] = x0i
+            fro[il] = fr
+            fio[il] = fi
+            gro[il] = dr * vr - di * vi + tmf * ar
+            gio[il] = dr * vi + di * vr + tmf * ai
         if jac_thk:
-            hrn = HR[n]
-            hin = HI[n]
+            hro = HR[n]
+            hio = HI[n]
             for il in range(B[n]):
-                # a loop of its own: each loop writes few arrays and stays vectorised
-                g_r = grn[il]
-                g_i = gin[il]
-                kr = c * g_r
-                ki = c * g_i
-                e_r = ern[il]
-                e_i = ein[il]
+                kr = c * grn[il]
+                ki = c * gin[il]
                 pr = xrb[il] + kr
                 pi = xib[il] + ki
                 mr = xrb[il] - kr
                 mi = xib[il] - ki
-                dr = pr - (e_r * mr - e_i * mi)
-                di = pi - (e_r * mi + e_i * mr)
-                inv = 1.0 / (dr * dr + di * di)
-                w_r = dr * inv
-                w_i = -di * inv
-                w2r = w_r * w_r - w_i * w_i
-                w2i = 2.0 * w_r * w_i
-                kwr = kr * w2r - ki * w2i
-                kwi = kr * w2i + ki * w2r
-                mpr = -4.0 * h * (mr * pr - mi * pi)   # -4 h M P
-                mpi = -4.0 * h * (mr * pi + mi * pr)
-                ur = e_r * g_r - e_i * g_i             # e Gamma
-                ui = e_r * g_i + e_i * g_r
-                vr = mpr * ur - mpi * ui
-                vi = mpr * ui + mpi * ur
-                hrn[il] = vr * kwr - vi * kwi
-                hin[il] = vr * kwi + vi * kwr
+                pmr = pr * mr - pi * mi
+                pmi = pr * mi + pi * mr
+                hro[il] = -hc * (fro[il] * pmr - fio[il] * pmi)   # H = -(h/c) F P M
+                hio[il] = -hc * (fro[il] * pmi + fio[il] * pmr)
 
 
 @nb.njit(**_JIT)
-def _reverse(ar, ai, A, B, FR, FI, GR, GI, HR, HI, jac_thk, OR, OI):  # pragma: no cover
-    """Chain rule from the surface down: row n of (OR, OI) = a_n G_n for the first A[n]
-    wavenumbers, row L + n = a_n H_n for the first B[n] (other entries are not written:
-    the caller sums over those prefixes only); a_0 = ar + i ai on entry (derivative of
-    the output with respect to X_0; overwritten), a_{n+1} = a_n F_n."""
+def _bottom_up_jac_te(wm, sig, thk, l2, gr, gi, er, ei, A, B, XR, XI, FR, FI, GR,
+                      GI):  # pragma: no cover - compiled
+    """:func:`_bottom_up_jac` for TE (K = Gamma), resistivity derivatives only, written as
+    G = d [X_n - F (X + h P M)]: one complex product fewer per layer and wavenumber."""
+    L = sig.size
+    for n in range(L - 1, -1, -1):
+        q = wm * sig[n]
+        h = thk[n]
+        rb = n + 1 if n + 1 < L else n
+        grn = gr[n]
+        gin = gi[n]
+        ern = er[n]
+        ein = ei[n]
+        xro = XR[n]
+        xio = XI[n]
+        xrb = XR[rb]
+        xib = XI[rb]
+        fro = FR[n]
+        fio = FI[n]
+        gro = GR[n]
+        gio = GI[n]
+        for il in range(B[n], A[n]):
+            x = l2[il]
+            t = 0.5 * q / (x * x + q * q)
+            dr = -t * q
+            di = -t * x
+            kr = grn[il]
+            ki = gin[il]
+            xro[il] = kr
+            xio[il] = ki
+            gro[il] = dr * kr - di * ki
+            gio[il] = dr * ki + di * kr
+        for il in range(B[n]):
+            x = l2[il]
+            t = 0.5 * q / (x * x + q * q)
+            dr = -t * q
+            di = -t * x
+            kr = grn[il]
+            ki = gin[il]
+            e_r = ern[il]
+            e_i = ein[il]
+            xr = xrb[il]
+            xi = xib[il]
+            pr = xr + kr
+            pi = xi + ki
+            mr = xr - kr
+            mi = xi - ki
+            emr = e_r * mr - e_i * mi
+            emi = e_r * mi + e_i * mr
+            nr_ = pr + emr
+            ni_ = pi + emi
+            d_r = pr - emr
+            d_i = pi - emi
+            inv = 1.0 / (d_r * d_r + d_i * d_i)
+            w_r = d_r * inv
+            w_i = -d_i * inv
+            kwr = kr * w_r - ki * w_i                  # K w
+            kwi = kr * w_i + ki * w_r
+            x0r = kwr * nr_ - kwi * ni_                # X_n = K w N
+            x0i = kwr * ni_ + kwi * nr_
+            k2r = kwr * kwr - kwi * kwi
+            k2i = 2.0 * kwr * kwi
+            fr = 4.0 * (e_r * k2r - e_i * k2i)         # F = 4 e (K w)^2
+            fi = 4.0 * (e_r * k2i + e_i * k2r)
+            yr = xr + h * (pr * mr - pi * mi)          # X + h P M
+            yi = xi + h * (pr * mi + pi * mr)
+            vr = x0r - (fr * yr - fi * yi)             # X_n - F (X + h P M)
+            vi = x0i - (fr * yi + fi * yr)
+            xro[il] = x0r
+            xio[il] = x0i
+            fro[il] = fr
+            fio[il] = fi
+            gro[il] = dr * vr - di * vi
+            gio[il] = dr * vi + di * vr
+
+
+@nb.njit(**_JIT)
+def _reverse_sum(ar, ai, A, B, FR, FI, GR, GI, HR, HI, jac_thk, out):  # pragma: no cover
+    """Chain rule from the surface down, summed over wavenumbers: out[n] += sum a_n G_n over
+    the first A[n] wavenumbers, out[L + n] += sum a_n H_n over the first B[n]; a_0 = ar + i ai
+    on entry (the output's derivative with respect to X_0, per wavenumber; overwritten),
+    a_{n+1} = a_n F_n."""
     L = A.size
     for n in range(L):
-        orn = OR[n]
-        oin = OI[n]
-        grn = GR[n]
-        gin = GI[n]
+        grn, gin, hrn, hin, frn, fin = GR[n], GI[n], HR[n], HI[n], FR[n], FI[n]
+        s_r = 0.0
+        s_i = 0.0
         for il in range(A[n]):
-            orn[il] = ar[il] * grn[il] - ai[il] * gin[il]
-            oin[il] = ar[il] * gin[il] + ai[il] * grn[il]
+            s_r += ar[il] * grn[il] - ai[il] * gin[il]
+            s_i += ar[il] * gin[il] + ai[il] * grn[il]
+        out[n] += complex(s_r, s_i)
         if jac_thk:
-            ort = OR[L + n]
-            oit = OI[L + n]
-            hrn = HR[n]
-            hin = HI[n]
+            s_r = 0.0
+            s_i = 0.0
             for il in range(B[n]):
-                ort[il] = ar[il] * hrn[il] - ai[il] * hin[il]
-                oit[il] = ar[il] * hin[il] + ai[il] * hrn[il]
-        frn = FR[n]
-        fin = FI[n]
+                s_r += ar[il] * hrn[il] - ai[il] * hin[il]
+                s_i += ar[il] * hin[il] + ai[il] * hrn[il]
+            out[L + n] += complex(s_r, s_i)
         for il in range(B[n]):
             a_r = ar[il]
             ar[il] = a_r * frn[il] - ai[il] * fin[il]
             ai[il] = a_r * fin[il] + ai[il] * frn[il]
+
+
+@nb.njit(**_JIT)
+def _reverse_sum2(ar, ai, br, bi, A, B, FR, FI, GR, GI, PR, PI, QR, QI, out):  # pragma: no cover
+    """:func:`_reverse_sum` of the TE (a; F, G) and TM (b; P, Q) chains in one sweep,
+    resistivity derivatives only."""
+    L = A.size
+    for n in range(L):
+        grn, gin, frn, fin = GR[n], GI[n], FR[n], FI[n]
+        qrn, qin, prn, pin = QR[n], QI[n], PR[n], PI[n]
+        s_r = 0.0
+        s_i = 0.0
+        for il in range(A[n]):
+            s_r += ar[il] * grn[il] - ai[il] * gin[il] + br[il] * qrn[il] - bi[il] * qin[il]
+            s_i += ar[il] * gin[il] + ai[il] * grn[il] + br[il] * qin[il] + bi[il] * qrn[il]
+        out[n] += complex(s_r, s_i)
+        for il in range(B[n]):
+            a_r = ar[il]
+            ar[il] = a_r * frn[il] - ai[il] * fin[il]
+            ai[il] = a_r * fin[il] + ai[il] * frn[il]
+            b_r = br[il]
+            br[il] = b_r * prn[il] - bi[il] * pin[il]
+            bi[il] = b_r * pin[il] + bi[il] * prn[il]
 
 
 @nb.njit(**_JIT)
@@ -333,34 +411,42 @@ def _one_model(lam, omega, res, thk, need_tm, jac, jac_thk, Gr, Ga, Gb, F, dF): 
     att = np.empty(nl)
     A = np.zeros(L, np.int64)
     B = np.zeros(L, np.int64)
-    rows = L if jac else 1
     XR = np.zeros((L, nl))
     XI = np.zeros((L, nl))
     ZR = np.zeros((L, nl))
     ZI = np.zeros((L, nl))
-    FR = np.zeros((rows, nl))
-    FI = np.zeros((rows, nl))
-    GR = np.zeros((rows, nl))
-    GI = np.zeros((rows, nl))
-    HR = np.zeros((rows, nl))
-    HI = np.zeros((rows, nl))
+    rows = L if jac else 1
+    W = np.empty((12, rows, nl))           # F, G, H of TE, then of TM (jac only)
     rr = np.empty(nl)
     ri = np.empty(nl)
-    npar = 2 * L if jac else 0
-    DR = np.zeros((npar, nl))
-    DI = np.zeros((npar, nl))
-    BR = np.zeros((npar, nl))
-    BI = np.zeros((npar, nl))
     sr = np.empty(nl)
     si = np.empty(nl)
+    ar = np.empty(nl)
+    ai = np.empty(nl)
+    br = np.empty(nl)
+    bi = np.empty(nl)
+    out = np.zeros(2 * L, np.complex128)
+    lgb = np.zeros(nr)                     # sum_l lambda Gb: d(-rho_1 lambda)/dln rho_1 term
+    for ir in range(nr):
+        for il in range(nl):
+            lgb[ir] += lam[il] * Gb[ir, il]
     for iw in range(nw):
         wm = omega[iw] * MU0
         _top_down(l2, wm, sig, thk, gr, gi, er, ei, att, A, B)
         if jac:
-            _bottom_up_jac(ones, False, wm, sig, thk, gr, gi, er, ei, A, B, XR, XI, jac_thk,
-                           FR, FI, GR, GI, HR, HI)
+            if jac_thk:
+                _bottom_up_jac(ones, 0.0, wm, sig, thk, l2, gr, gi, er, ei, A, B, XR, XI,
+                               W[0], W[1], W[2], W[3], jac_thk, W[4], W[5])
+            else:
+                _bottom_up_jac_te(wm, sig, thk, l2, gr, gi, er, ei, A, B, XR, XI, W[0], W[1],
+                                  W[2], W[3])
+            if need_tm:
+                _bottom_up_jac(res, 1.0, wm, sig, thk, l2, gr, gi, er, ei, A, B, ZR, ZI,
+                               W[6], W[7], W[8], W[9], jac_thk, W[10], W[11])
         else:
             _bottom_up(ones, gr, gi, er, ei, A, B, XR, XI)
+            if need_tm:
+                _bottom_up(res, gr, gi, er, ei, A, B, ZR, ZI)
         xr0 = XR[0]
         xi0 = XI[0]
         for il in range(nl):
@@ -376,20 +462,6 @@ def _one_model(lam, omega, res, thk, need_tm, jac, jac_thk, Gr, Ga, Gb, F, dF): 
                 f = -2.0 * lm * inv * inv
                 sr[il] = f * (br_ * br_ - bi_ * bi_)
                 si[il] = -f * 2.0 * br_ * bi_
-        if jac:
-            _reverse(sr, si, A, B, FR, FI, GR, GI, HR, HI, jac_thk, DR, DI)
-        if need_tm:
-            if jac:
-                _bottom_up_jac(res, True, wm, sig, thk, gr, gi, er, ei, A, B, ZR, ZI, jac_thk,
-                               FR, FI, GR, GI, HR, HI)
-                for il in range(nl):
-                    sr[il] = 1.0
-                    si[il] = 0.0
-                _reverse(sr, si, A, B, FR, FI, GR, GI, HR, HI, jac_thk, BR, BI)
-                for il in range(nl):
-                    BR[0, il] -= res[0] * lam[il]
-            else:
-                _bottom_up(res, gr, gi, er, ei, A, B, ZR, ZI)
         for ir in range(nr):
             gri = Gr[ir]
             gai = Ga[ir]
@@ -409,26 +481,29 @@ def _one_model(lam, omega, res, thk, need_tm, jac, jac_thk, Gr, Ga, Gb, F, dF): 
                     s_r += (zr0[il] - r0 * lm) * gbi[il]
                     s_i += (zi0[il] - 0.5 * wm / lm) * gbi[il]
             F[iw, ir] += complex(s_r, s_i)
-            for p in range(npar):
-                if p >= L and not jac_thk:
-                    break
-                # layer p affects the first A[p] wavenumbers, its thickness the first B[p]
-                m = A[p] if p < L else B[p - L]
-                drp = DR[p]
-                dip = DI[p]
-                s_r = 0.0
-                s_i = 0.0
-                for il in range(m):
-                    ga = wm * gai[il]
-                    s_r += drp[il] * gri[il] - dip[il] * ga
-                    s_i += dip[il] * gri[il] + drp[il] * ga
+            if not jac:
+                continue
+            # reverse sweep seeded with d F[w, r]/d X_0 = dR/dY (Gr + i w mu0 Ga) per wavenumber
+            for il in range(nl):
+                ga = wm * gai[il]
+                ar[il] = sr[il] * gri[il] - si[il] * ga
+                ai[il] = si[il] * gri[il] + sr[il] * ga
+            out[:] = 0.0
+            if need_tm:
+                for il in range(nl):
+                    br[il] = gbi[il]
+                    bi[il] = 0.0
+                out[0] -= res[0] * lgb[ir]
+            if need_tm and not jac_thk:
+                _reverse_sum2(ar, ai, br, bi, A, B, W[0], W[1], W[2], W[3], W[6], W[7], W[8], W[9],
+                              out)
+            else:
+                _reverse_sum(ar, ai, A, B, W[0], W[1], W[2], W[3], W[4], W[5], jac_thk, out)
                 if need_tm:
-                    brp = BR[p]
-                    bip = BI[p]
-                    for il in range(m):
-                        s_r += brp[il] * gbi[il]
-                        s_i += bip[il] * gbi[il]
-                dF[p, iw, ir] += complex(s_r, s_i)
+                    _reverse_sum(br, bi, A, B, W[6], W[7], W[8], W[9], W[10], W[11], jac_thk,
+                                 out)
+            for p in range(2 * L if jac_thk else L):
+                dF[p, iw, ir] += out[p]
 
 
 @nb.njit(cache=True, parallel=True)
@@ -437,11 +512,6 @@ def _many_models(lam, omega, res, thk, need_tm, Gr, Ga, Gb, F):  # pragma: no co
     dummy = np.zeros((0, omega.size, Gr.shape[0]), np.complex128)
     for m in nb.prange(res.shape[0]):
         _one_model(lam, omega, res[m], thk[m], need_tm, False, False, Gr, Ga, Gb, F[m], dummy)
-
-
-def _param_index(L, jac_thk):
-    """Slots of the derivative vector: ln rho_0..L-1, then ln h_0..L-2."""
-    return np.r_[np.arange(L), L + np.arange(L - 1)] if jac_thk else np.arange(L)
 
 
 def fused_spectra(lam, omega, resistivity, thickness, Gr, Ga, Gb, need_tm=True, jac=False,
@@ -463,7 +533,8 @@ def fused_spectra(lam, omega, resistivity, thickness, Gr, Ga, Gb, need_tm=True, 
     _one_model(lam, omega, res, thk, bool(need_tm), bool(jac), bool(jac_thk), Gr, Ga, Gb, F, dF)
     if not jac:
         return F, None
-    return F, dF[_param_index(L, jac_thk)]
+    # slots: ln rho_0..L-1, then ln h_0..L-2 (slot 2L - 1, the half-space, is unused)
+    return F, dF[:2 * L - 1 if jac_thk else L]
 
 
 def fused_spectra_many(lam, omega, resistivity, thickness, Gr, Ga, Gb, need_tm=True):

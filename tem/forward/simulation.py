@@ -125,7 +125,7 @@ class Simulation:
         if hankel == "auto":
             self._choose_hankel()
         else:
-            self._lam, self._G, self._need_tm = self._space_operators(hankel)
+            self._bind(*self._space_operators(hankel))
 
     # ------------------------------------------------------------------ set-up
     def _setup_times(self, times, gates, gate_nodes, n_half_periods):
@@ -173,11 +173,13 @@ class Simulation:
         # the window-weighted sums of observation times (obs_w)
         self._u, self._urows, self._ucoef, self._obs_w = u, rows, cs, obs_w
         self._n_out = obs_w.shape[0]
-        self._dc_coef = obs_w @ dc           # (n_out,): coefficient of the DC value
-        self._dc_rate = None
-        if self.response == "waveform":
-            rate = self._waveform_rate(obs_t)
-            self._dc_rate = obs_w @ rate
+        # (n_out,): coefficient of the DC value in fields (E, B). dB/dt takes no DC
+        # term: by Leibniz's rule d/dt [DC I(t) - sum m int_0^(t-t0) s(u) du] =
+        # I'(t) (DC - s(0+)) - sum m int s'(u) du, and s(0+) = DC for magnetic fields
+        # (the currents just after a switch equal those just before; Ward & Hohmann
+        # 1988, superposition of step responses), so a ramp in progress contributes
+        # only -m int_0^(t-t0) s'(u) du, which the ramp integral already holds.
+        self._dc_coef = obs_w @ dc
 
     def _time_operator(self, t, n_half_periods):
         """Express the response at times t as sum coef * s(u) + dc * DC."""
@@ -217,17 +219,6 @@ class Simulation:
         u, wq, r = log_gauss_many(lo[keep], hi[keep], rows[keep])
         cs = wq * np.repeat(coef[keep], np.diff(r[1]))
         return u, np.repeat(rows[keep], np.diff(r[1])), cs, dc
-
-    def _waveform_rate(self, t):
-        """Coefficient of the DC field's rate term (dB/dt receivers): sum of I'(t)."""
-        wf = self.waveform
-        if wf.half_period is None:
-            return wf.slope_at(t)
-        hp = wf.half_period
-        out = np.zeros(t.size)
-        for k in range(-1, 2):
-            out += (-1.0) ** k * wf.slope_at(t + k * hp)
-        return out
 
     def _check_geometry(self):
         seg = self.source.segments
@@ -285,7 +276,7 @@ class Simulation:
         ops = {name: self._space_operators(name) for name in _HANKEL_CHOICE}
         out = {}
         for name, (lam, G, need_tm) in ops.items():
-            self._lam, self._G, self._need_tm = lam, G, need_tm
+            self._bind(lam, G, need_tm)
             out[name] = np.array([self.predict(LayeredModel.halfspace(r)) for r in _CHECK_RHO])
         a, b = (out[n] for n in _HANKEL_CHOICE)
         peak = np.max(np.abs(b), axis=-1, keepdims=True)
@@ -296,7 +287,7 @@ class Simulation:
         self.hankel_check = dev
         name = _HANKEL_CHOICE[0] if dev <= _HANKEL_TOL else _HANKEL_CHOICE[1]
         self.hankel_name = name
-        self._lam, self._G, self._need_tm = ops[name]
+        self._bind(*ops[name])
 
     def _setup_fourier(self):
         """Time-domain operators per receiver on a common (coarse) frequency grid.
@@ -379,16 +370,19 @@ class Simulation:
         for i, k in enumerate(kinds):
             if k in ("e", "b"):
                 dc_row[i] = self._dc_coef
-            elif self._dc_rate is not None:
-                dc_row[i] = self._dc_rate
         self._dc_row = dc_row * self._scale[:, None]
         self._needs_dc = bool(np.any(dc_row != 0))
         self._iwm = 1j * self._omega * MU0
 
+    def _bind(self, lam, G, need_tm):
+        """Fix the kernel's model-independent arguments (wavenumbers, coefficient matrices)."""
+        self._lam, self._G, self._need_tm = lam, G, need_tm
+        self._kargs = (lam, G["r"], G["a1"], G["b"], need_tm)
+
     def _kernel(self, omega, res, thk, jac=False, jac_thk=False):
-        G = self._G
-        return fused_spectra(self._lam, omega, res, thk, G["r"], G["a1"], G["b"],
-                             need_tm=self._need_tm, jac=jac, jac_thk=jac_thk)
+        lam, Gr, Ga, Gb, need_tm = self._kargs
+        return fused_spectra(lam, omega, res, thk, Gr, Ga, Gb, need_tm=need_tm, jac=jac,
+                             jac_thk=jac_thk)
 
     def _time_domain(self, F):
         """Responses (..., nr, n_out) from spectra F (..., nw, nr), without the DC terms."""
@@ -450,16 +444,14 @@ class Simulation:
             raise TemInputError("resistivity: every value must be positive and finite (ohm-m)")
         if not np.all(np.isfinite(thk)) or np.any(thk <= 0):
             raise TemInputError("thickness: every layer thickness must be positive and finite (m)")
-        G = self._G
-        F = fused_spectra_many(self._lam, self._omega, res, thk, G["r"], G["a1"], G["b"],
-                               need_tm=self._need_tm)
+        lam, Gr, Ga, Gb, need_tm = self._kargs
+        F = fused_spectra_many(lam, self._omega, res, thk, Gr, Ga, Gb, need_tm=need_tm)
         an = self._analytic
         F += res[:, :1, None] * an[:, 0][None, None, :]
         F += self._iwm[:, None] * an[:, 1] + an[:, 2]
         out = self._time_domain(F)
         if self._needs_dc:
-            D = fused_spectra_many(self._lam, np.zeros(1), res, thk, G["r"], G["a1"], G["b"],
-                                   need_tm=self._need_tm)[:, 0]
+            D = fused_spectra_many(lam, np.zeros(1), res, thk, Gr, Ga, Gb, need_tm=need_tm)[:, 0]
             dc = D.real + res[:, :1] * an[:, 0] + an[:, 2]
             out += dc[:, :, None] * self._dc_row
         return out
@@ -480,7 +472,12 @@ class Simulation:
         F, dF = self._kernel(self._omega, res, thk, jac=True, jac_thk=thickness)
         dF[0] += res[0] * self._analytic[:, 0]
         d = self._time_domain(self._spectra(res, F))
-        J = np.moveaxis(self._time_domain(dF), 0, -1)              # (nr, n_out, npar)
+        J = np.empty((len(self.receivers), self._n_out, dF.shape[0]))   # (nr, n_out, npar)
+        for r in range(J.shape[0]):
+            J[r] = self._Dre[r] @ dF[:, :, r].imag.T
+            if self._use_re:
+                J[r] += self._Dim[r] @ dF[:, :, r].real.T
+        J *= self._scale[:, None, None]
         if self._needs_dc:
             dc, ddc = self._dc_values(res, thk, jac=True, jac_thk=thickness)
             d += dc[:, None] * self._dc_row

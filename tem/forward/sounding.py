@@ -15,7 +15,7 @@ from ..errors import TemInputError, input_error
 
 __all__ = ["source_from_attrs", "receivers_from_sounding", "waveform_from_attrs",
            "simulation_from_sounding", "survey_source", "survey_receiver", "survey_waveform",
-           "survey_lowpass"]
+           "survey_lowpass", "response_of", "FILE_RESPONSES", "SAMPLINGS"]
 
 
 def survey_source(tx, source=None):
@@ -90,11 +90,28 @@ def receivers_from_sounding(ds, channels=None, source=None):
     return out
 
 
+#: Responses a gated file may declare in its ``response`` attribute (format 1.2; absent: waveform).
+FILE_RESPONSES = ("waveform", "step-off", "step-on", "impulse")
+#: Time sampling of a gated file's ``sampling`` attribute (format 1.2; absent: window).
+SAMPLINGS = ("window", "point")
+
+
 def waveform_from_attrs(attrs, source=None):
-    """Bipolar waveform from ``base_frequency``, ``duty_cycle``, ``ramp_on``, ``ramp_off``."""
+    """The file's waveform: its piecewise-linear table, else the bipolar square wave.
+
+    A table (``waveform_times`` [s, last 0 = end of switch-off ramp],
+    ``waveform_current`` [relative, peak 1], ``waveform_half_period`` [s, 0:
+    one pulse, else bipolar repetition]) takes precedence over
+    ``base_frequency``, ``duty_cycle``, ``ramp_on``, ``ramp_off``.
+    """
     from .waveform import Waveform
 
     try:
+        if "waveform_times" in attrs:
+            hp = float(attrs.get("waveform_half_period", 0.0) or 0.0)
+            return Waveform(np.asarray(attrs["waveform_times"], float).ravel(),
+                            np.asarray(attrs["waveform_current"], float).ravel(),
+                            half_period=hp if hp > 0 else None)
         return Waveform.bipolar(base_frequency=float(attrs["base_frequency"]),
                                 duty_cycle=float(attrs.get("duty_cycle", 0.5)),
                                 ramp_on=float(attrs.get("ramp_on", 0.0)),
@@ -105,21 +122,52 @@ def waveform_from_attrs(attrs, source=None):
         raise input_error("waveform", str(exc), source) from None
 
 
+def response_of(attrs, source=None):
+    """``(response, sampling)`` of a gated file; files before format 1.2: waveform, window."""
+    def text(name, default):
+        v = attrs.get(name, default)
+        if isinstance(v, np.ndarray) and v.size == 1:
+            v = v.reshape(-1)[0]
+        if isinstance(v, np.str_):
+            v = str(v)
+        if not isinstance(v, str):
+            raise input_error(name, f"expected text, got {type(v).__name__}", source)
+        return v or default
+
+    response, sampling = text("response", "waveform"), text("sampling", "window")
+    if response not in FILE_RESPONSES:
+        raise input_error("response", f"unknown {response!r}; valid: {', '.join(FILE_RESPONSES)}",
+                          source)
+    if sampling not in SAMPLINGS:
+        raise input_error("sampling", f"unknown {sampling!r}; valid: {', '.join(SAMPLINGS)}", source)
+    return response, sampling
+
+
 def simulation_from_sounding(cls, ds, channels=None, source=None, **kw):
-    """``cls(...)`` (a Simulation) with the sounding's geometry, waveform, gates and filter."""
+    """``cls(...)`` (a Simulation) with the sounding's geometry, waveform, gates and filter.
+
+    ``response`` other than ``waveform`` models the step or impulse response
+    itself (no waveform); ``sampling = "point"`` models the values at the
+    ``gate_centre`` times instead of window averages.
+    """
     a = ds.attrs
+    response, sampling = response_of(a, source)
     src = source_from_attrs(a, source)
     rxs = receivers_from_sounding(ds, channels, source)
-    wf = waveform_from_attrs(a, source)
+    wf = waveform_from_attrs(a, source) if response == "waveform" else None
     order = int(a.get("lowpass_order", 0) or 0)
     lowpass = (order, float(a.get("lowpass_cutoff", 0.0))) if order > 0 else None
     try:
-        gates = (np.asarray(ds["gate_open"].values, float), np.asarray(ds["gate_close"].values, float))
+        if sampling == "point":
+            where = {"times": np.asarray(ds["gate_centre"].values, float)}
+        else:
+            where = {"gates": (np.asarray(ds["gate_open"].values, float),
+                               np.asarray(ds["gate_close"].values, float)),
+                     "gate_shape": str(a.get("gate_shape", "boxcar"))}
     except KeyError as exc:
         raise input_error(str(exc.args[0]), "missing gate table", source) from None
     try:
-        return cls(src, rxs, gates=gates, gate_shape=str(a.get("gate_shape", "boxcar")),
-                   waveform=wf, lowpass=lowpass, **kw)
+        return cls(src, rxs, waveform=wf, response=response, lowpass=lowpass, **where, **kw)
     except TemInputError:
         raise
     except ValueError as exc:

@@ -109,6 +109,11 @@ class StationData:
         d = self.sim.predict(LayeredModel(thickness=thickness, resistivity=resistivity))
         return np.asarray(d)[self.mask]
 
+    def predict_many(self, resistivity, thickness):
+        """Predicted usable data (S, N) of S models with the same layer count (rows)."""
+        d = self.sim.predict_many(resistivity, thickness)
+        return np.asarray(d)[:, self.mask]
+
     def jacobian(self, resistivity, thickness, with_thickness=False):
         """Predicted data (N,) and Jacobian (N, P) with respect to ln rho (then ln h)."""
         from ..forward import LayeredModel
@@ -138,7 +143,16 @@ def check_sounding(ds, file=None):
     gc = np.asarray(ds["gate_close"].values, float)
     if go.shape != (ng,) or gc.shape != (ng,):
         raise input_error("gate_open", f"gate table length differs from {ng} gates", file)
-    if not (np.all(np.isfinite(go)) and np.all(np.isfinite(gc))) or np.any(go < 0) or np.any(gc <= go):
+    from ..forward.sounding import response_of
+
+    _, sampling = response_of(ds.attrs, file)
+    if not (np.all(np.isfinite(go)) and np.all(np.isfinite(gc))):
+        raise input_error("gate_close", "gate times must be finite (s)", file)
+    if sampling == "point":
+        t = np.asarray(ds["gate_centre"].values, float)
+        if np.any(t <= 0) or np.any(np.diff(t) <= 0):
+            raise input_error("gate_centre", "point times must be positive and increasing (s)", file)
+    elif np.any(go < 0) or np.any(gc <= go):
         raise input_error("gate_close", "every gate needs 0 <= open < close (s)", file)
     comps = [str(c) for c in np.asarray(ds["component"].values).ravel()]
     if len(comps) != nch:

@@ -12,18 +12,22 @@ Two measures:
   threshold. With this normalisation ``C(z)`` bounds the mean absolute data
   change, in standard errors per datum, caused by changing every layer below
   ``z`` by up to one unit of ln(rho) (a factor e); dividing by N keeps the
-  DOI from deepening merely because more gates were recorded. The published
-  thresholds (about 0.6 standard and 0.8 conservative) are quoted from memory
-  and UNVERIFIED, and their paper's normalisation may differ from ours (ours is
-  our own choice). Default here: 0.8. Valid only in the linearisation about
-  the final model.
+  DOI from deepening merely because more gates were recorded. Our
+  normalisation is our own (per layer, not the paper's), so the paper's
+  threshold is not quoted; 0.8 is calibrated against truth on the empymod
+  suite of tests/test_invert_doi.py and the demo day (docs/inversion.md).
+  Valid only in the linearisation about the final model: far from the wire it
+  claimed depth the model gets wrong.
 * ``two_reference_doi``: Oldenburg & Li (1999), "Estimating depth of
   investigation in DC resistivity and IP surveys", Geophysics 64(2),
   403-416. ``R(z) = (m_A(z) - m_B(z)) / (m_A^ref - m_B^ref)`` from two
   inversions with different reference models; the DOI is the top of the
   deepest run of layers (reaching the bottom of the model) where ``R``
-  exceeds a cut-off (about 0.1-0.2, from memory, UNVERIFIED; default 0.2), so
-  a poorly resolved thin surface layer does not end the search.
+  exceeds a cut-off (0.2, calibrated like the threshold above), so a poorly
+  resolved thin surface layer does not end the search.
+
+The station default takes the shallower of the two
+(:func:`tem.invert.station.station_doi`).
 """
 from __future__ import annotations
 

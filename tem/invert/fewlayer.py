@@ -88,7 +88,8 @@ class LMResult:
 
 
 def levenberg_marquardt(fwd, d_obs, std, q0, *, lower=None, upper=None, prior_rows=None,
-                        max_iter=50, lam0=1e-2, tol=1e-4, max_step=2.0, callback=None) -> LMResult:
+                        max_iter=50, lam0=1e-2, tol=1e-4, max_step=2.0, callback=None,
+                        predict=None) -> LMResult:
     """Levenberg-Marquardt with box bounds on a generic problem.
 
     Parameters
@@ -107,6 +108,9 @@ def levenberg_marquardt(fwd, d_obs, std, q0, *, lower=None, upper=None, prior_ro
     max_step : float
         Largest change of any log parameter in one step (2 = a factor e^2);
         trial models whose prediction fails or is not finite count as failed steps.
+    predict : callable, optional
+        ``predict(q) -> d`` without the Jacobian, for trial steps (the Jacobian
+        is then computed only at accepted models).
     """
     d_obs = np.asarray(d_obs, float)
     w = 1.0 / np.asarray(std, float)
@@ -117,7 +121,10 @@ def levenberg_marquardt(fwd, d_obs, std, q0, *, lower=None, upper=None, prior_ro
     q = np.clip(q, lower, upper)
 
     def evaluate(qq, jac=True):
-        d, J = fwd(qq)
+        if jac or predict is None:
+            d, J = fwd(qq)
+        else:
+            d, J = predict(qq), None
         rd = (d_obs - d) * w
         if prior_rows is not None:
             rp, G = prior_rows(qq)
@@ -152,7 +159,7 @@ def levenberg_marquardt(fwd, d_obs, std, q0, *, lower=None, upper=None, prior_ro
             try:
                 with warnings.catch_warnings():   # a wild trial model may overflow: judged below
                     warnings.simplefilter("ignore", RuntimeWarning)
-                    d_t, r_t, A_t, chi2_t = evaluate(q_try)
+                    d_t, r_t, A_t, chi2_t = evaluate(q_try, jac=predict is None)
                 obj_t = float(r_t @ r_t)
             except (FloatingPointError, ValueError, np.linalg.LinAlgError):
                 obj_t = np.inf
@@ -166,6 +173,8 @@ def levenberg_marquardt(fwd, d_obs, std, q0, *, lower=None, upper=None, prior_ro
             break
         rel = (obj - obj_t) / max(obj, 1e-300)
         step = float(np.max(np.abs(q_try - q)))
+        if A_t is None:
+            d_t, r_t, A_t, chi2_t = evaluate(q_try)
         q, d, r, A, chi2, obj = q_try, d_t, r_t, A_t, chi2_t, obj_t
         lam = max(lam / 10, 1e-9)
         rec = dict(iteration=it, chi2=chi2, objective=obj, lam=lam)
@@ -220,7 +229,7 @@ def _split(p, n):
 
 def fewlayer_inversion(layer_fwd, d_obs, std, resistivity0, thickness0, *, priors=(),
                        res_bounds=(0.1, 1e5), thk_bounds=(1.0, 2e4), max_iter=50,
-                       callback=None) -> FewLayerResult:
+                       callback=None, layer_predict=None) -> FewLayerResult:
     """Few-layer inversion of one station.
 
     Parameters
@@ -235,6 +244,9 @@ def fewlayer_inversion(layer_fwd, d_obs, std, resistivity0, thickness0, *, prior
         ``std=None`` fixes the parameter (a fixed depth becomes a stiff prior).
     res_bounds, thk_bounds : (float, float)
         Bounds on resistivity (ohm-m) and thickness (m).
+    layer_predict : callable, optional
+        ``layer_predict(resistivity, thickness) -> d`` without the Jacobian, for
+        trial steps.
     """
     rho0 = np.asarray(resistivity0, float)
     h0 = np.asarray(thickness0, float)
@@ -306,8 +318,12 @@ def fewlayer_inversion(layer_fwd, d_obs, std, resistivity0, thickness0, *, prior
 
     prior_rows = _prior_rows if soft else None
 
+    def predict(q):
+        return layer_predict(*_split(full(q), n))
+
     lm = levenberg_marquardt(fwd, d_obs, std, p0[fi], lower=lo[fi], upper=hi[fi],
-                             prior_rows=prior_rows, max_iter=max_iter, callback=callback)
+                             prior_rows=prior_rows, max_iter=max_iter, callback=callback,
+                             predict=None if layer_predict is None else predict)
     p = full(lm.q)
     rho, h = _split(p, n)
     # posterior covariance over the free parameters

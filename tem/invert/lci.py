@@ -92,8 +92,8 @@ class LCIResult:
     history: list = field(default_factory=list)
 
 
-def lci(fwds, d_obs, std, m0, *, lateral_weight, target, max_iter, positions=None, predicts=None,
-        callback=None) -> LCIResult:
+def lci(fwds, d_obs, std, m0, *, lateral_weight, target, max_iter, misfit_drop, positions=None,
+        predicts=None, focusing=None, callback=None) -> LCIResult:
     """Joint smooth inversion of all stations with lateral constraints.
 
     Parameters
@@ -110,6 +110,10 @@ def lci(fwds, d_obs, std, m0, *, lateral_weight, target, max_iter, positions=Non
         Weight of the lateral constraints relative to the vertical roughness.
     predicts : sequence of callables, optional
         Per station ``predict_s(m_s) -> d_s``.
+    focusing : float, optional
+        Focusing parameter: minimum-gradient-support regularisation on the
+        vertical and lateral differences alike (as in Vignoli et al. 2015;
+        :func:`tem.invert.smooth.focusing_operator`); None: smooth.
     """
     S = len(fwds)
     if not (len(d_obs) == len(std) == S):
@@ -140,7 +144,7 @@ def lci(fwds, d_obs, std, m0, *, lateral_weight, target, max_iter, positions=Non
     d_all = np.concatenate([np.asarray(d, float) for d in d_obs])
     s_all = np.concatenate([np.asarray(s, float) for s in std])
     res = occam(fwd, d_all, s_all, m0.ravel(), R, predict=predict, target=target,
-                max_iter=max_iter, callback=callback)
+                max_iter=max_iter, misfit_drop=misfit_drop, focusing=focusing, callback=callback)
     m = res.m.reshape(S, M)
     d_parts = np.split(res.d_pred, splits)
     J = res.J.tocsr()

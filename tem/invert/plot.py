@@ -60,8 +60,13 @@ def station_figure(result, kind, true_model=None):
     ax_d.set_yscale("log")
     present = sorted({units.get(str(c), "T/s/A") for c in np.unique(result.component)})
     ax_d.set_ylabel(f"|response| per ampere ({', '.join(present)})")
+    v = result.verdict_for(kind) if hasattr(result, "verdict_for") else None
+    status = f"; {v.status}" if v is not None else ""
+    failure = v is not None and v.failed
     ax_d.set_title(f"station {result.station}: data and {kind} response "
-                   f"(chi2/N = {(few['chi2'] if few else result.chi2):.2f})")
+                   f"(chi2/N = {(few['chi2'] if few else result.chi2):.2f}{status})",
+                   color="#a4281b" if failure else "k",
+                   fontweight="bold" if failure else "normal")
     ax_d.legend(fontsize=7, loc="lower left")
     ax_d.grid(True, which="both", alpha=0.25)
     ax_r.axhspan(-1, 1, color="0.85", zorder=0)

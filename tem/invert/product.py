@@ -10,7 +10,7 @@ import numpy as np
 from ..errors import input_error
 from .data import station_data
 
-__all__ = ["load_station", "models_from_results", "write_fit_csv", "FIT_COLUMNS"]
+__all__ = ["load_station", "models_from_results", "add_verdicts", "write_fit_csv", "FIT_COLUMNS"]
 
 FIT_COLUMNS = ("station", "channel", "component", "time_s", "observed", "std", "predicted",
                "normalised_residual", "model_kind")
@@ -73,6 +73,54 @@ def models_from_results(results, kind, provenance=(), epsg=0):
                            {"units": "m", "long_name": "posterior std of depth to layer top"})
     ds["halfspace_resistivity"] = ("station", np.array([r.halfspace for r in results]),
                                    {"units": "ohm-m", "long_name": "best-fitting half-space"})
+    add_verdicts(ds, results, kind)
+    return ds
+
+
+def _verdict_vars(verdicts, prefix, what):
+    from .verdict import STATUSES, flag_meanings
+
+    codes = np.array([v.code for v in verdicts], np.int8)
+    text = np.array([v.summary for v in verdicts], dtype=object).astype(str)
+    return {
+        f"{prefix}verdict_code": ("station", codes, {
+            "long_name": f"verdict on the {what}", "flag_values": np.arange(len(STATUSES),
+                                                                            dtype=np.int8),
+            "flag_meanings": flag_meanings(),
+            "comment": "0 fitted; 1 misfit and 2 stalled are failures; 3 parameter at a bound "
+                       "and 4 degenerate layer are warnings (docs/inversion.md, Verdicts)"}),
+        f"{prefix}verdict": ("station", text, {"long_name": f"verdict on the {what}, in words"}),
+        f"{prefix}chi2": ("station", np.array([v.chi2 for v in verdicts], float),
+                          {"units": "1", "long_name": f"final chi-square per datum of the {what}"}),
+    }
+
+
+def add_verdicts(ds, results, kind):
+    """Per-station verdict variables (in place).
+
+    ``verdict_code`` and ``verdict`` judge the file's own model (``kind``);
+    ``<kind>_verdict_code``, ``<kind>_verdict`` and ``<kind>_chi2`` (kind
+    ``smooth``, ``few_layer``, ``lci``) every model computed for the station,
+    so the chosen model's file also says how the others fared. Codes carry
+    CF ``flag_values`` and ``flag_meanings``.
+    """
+    own = [r.verdict_for(kind) for r in results]
+    if any(v is None for v in own):
+        return ds
+    for name, var in _verdict_vars(own, "", f"{kind} model").items():
+        if name != "chi2":
+            ds[name] = var
+    ds["verdict_tolerance"] = ("station", np.array([v.tolerance for v in own], float),
+                               {"units": "1", "long_name": "largest chi-square per datum "
+                                "counted as fitted"})
+    kinds = ["lci"] if kind == "lci" else ["smooth"] + (
+        ["few-layer"] if all(r.few is not None for r in results) else [])
+    for k in kinds:
+        vs = [r.verdict_for(k) for r in results]
+        if any(v is None for v in vs):
+            continue
+        for name, var in _verdict_vars(vs, k.replace("-", "_") + "_", f"{k} model").items():
+            ds[name] = var
     return ds
 
 

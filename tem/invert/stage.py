@@ -17,7 +17,7 @@ from ..provenance import file_sha256, stage_record
 from ..runtime import StageContext, StageResult, StationOutcome, map_stations
 from .settings import InversionSettings, floors_of
 
-__all__ = ["run", "invert_one"]
+__all__ = ["run", "invert_one", "verdict_info", "not_fitted"]
 
 
 def invert_one(sid, in_path, settings: InversionSettings, floors, fig_path):
@@ -39,16 +39,41 @@ def invert_one(sid, in_path, settings: InversionSettings, floors, fig_path):
         else:
             fig = station_figure(r, kind=settings.kind)
         products.append((fig_path, figure_bytes(fig)))
-    info = {"chi2": float(r.chi2), "doi": float(r.doi), "converged": bool(r.converged),
-            "invert_message": "" if r.converged else str(r.message),
-            "epsg": int(ds.attrs.get("epsg", 0) or 0)}
-    if r.few is not None:
-        info["few_layer_chi2"] = float(r.few["chi2"])
+    info = {"doi": float(r.doi), "epsg": int(ds.attrs.get("epsg", 0) or 0),
+            **verdict_info(r, settings.kind)}
     if r.posterior is not None:
         info.update(rhat_max=r.posterior.max_rhat, ess_min=r.posterior.min_ess,
                     posterior_s=round(r.posterior.seconds, 2))
     return StationOutcome(sid, "ok", inputs=[{"file": str(in_path), "sha256": file_sha256(in_path)}],
                           info=info, payload=r, products=products)
+
+
+def verdict_info(r, kind) -> dict:
+    """Summary values of a station: the chosen model's chi2 and verdict, every model's verdict.
+
+    Keys: ``chi2`` and ``model_kind`` (the chosen model), ``verdict`` (status),
+    ``verdict_code``, ``verdict_text`` (one line), ``verdict_kind`` (the model
+    the verdict judged: the few-layer fit for kinds built on it),
+    ``smooth_chi2``, ``few_layer_chi2`` (when computed) and ``verdicts``
+    ({kind: verdict as a dict}).
+    """
+    chosen = r.verdict_for(kind)
+    info = {"model_kind": kind, "chi2": float(chosen.chi2), "verdict": chosen.status,
+            "verdict_code": chosen.code, "verdict_text": chosen.summary,
+            "verdict_kind": chosen.kind or kind,
+            "smooth_chi2": float(r.chi2), "verdicts": {"smooth": r.verdict.as_dict()}}
+    if r.few is not None:
+        info["few_layer_chi2"] = float(r.few["chi2"])
+        info["verdicts"]["few-layer"] = r.few["verdict"].as_dict()
+    return info
+
+
+def not_fitted(result: StageResult) -> dict:
+    """{station: verdict status} of the stations whose chosen model is a failure (misfit, stalled)."""
+    from .verdict import FAILURES
+
+    return {sid: oc.info["verdict"] for sid, oc in result.stations.items()
+            if oc.status == "ok" and oc.info.get("verdict") in FAILURES}
 
 
 def _lci(results, files, settings, floors, folder, record, epsg, res):
@@ -69,6 +94,10 @@ def _lci(results, files, settings, floors, folder, record, epsg, res):
         res.failed = f"laterally constrained inversion failed: {exc}".splitlines()[0]
         return []
     chi2 = np.array([r.chi2 for r in lres])
+    for r in lres:
+        oc = res.stations.get(r.station)
+        if oc is not None:
+            oc.info.setdefault("verdicts", {})["lci"] = r.verdict.as_dict()
     res.notes.append(f"laterally constrained inversion: {len(lres)} stations, chi2 per station "
                      f"{chi2.min():.2f}-{chi2.max():.2f}")
     return [str(write_models(ds, folder / "models_lci.nc", record=dict(record, stage="invert-lci"))),

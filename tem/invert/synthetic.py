@@ -96,7 +96,8 @@ def gated_dataset(station, x, y, value, error, components, gates, usable=None, w
             duty_cycle=e["duty_cycle"] if waveform else 0.0,
             ramp_on=e["ramp_on"] if waveform else 0.0, ramp_off=e["ramp_off"] if waveform else 0.0,
             lowpass_order=0, lowpass_cutoff=0.0,
-            tem_format="gated", format_version="1.0", tem_version=__version__,
+            response="waveform" if waveform else "step-off", sampling="window",
+            tem_format="gated", format_version="1.2", tem_version=__version__,
             provenance=records_to_json([stage_record("synthetic", {"scenario": "Emberline Plateau"})]),
         ),
     )

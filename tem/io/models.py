@@ -28,11 +28,13 @@ __all__ = [
     "models_dataset",
     "check_models",
     "read_models",
+    "check_model_values",
     "write_models",
     "layer_rows",
     "write_models_csv",
     "layer_bottoms",
     "export_record",
+    "model_verdicts",
 ]
 
 FORMAT = "models"
@@ -54,6 +56,7 @@ _VARIABLES = {
 CSV_COLUMNS = (
     "station", "x", "y", "z", "layer", "depth_top_m", "depth_bottom_m", "thickness_m",
     "resistivity_ohmm", "log10_res_std", "below_doi", "doi_m", "chi2", "epsg",
+    "verdict", "verdict_code", "verdict_reasons",
 )
 
 #: Extra columns of a models file with posterior products (model kind posterior):
@@ -144,13 +147,16 @@ def check_models(ds, file=None):
     wrong ``tem_format``, a major ``format_version`` other than 1, a missing
     variable or one with the wrong dimensions.
     """
+    from .checks import show
+
     fmt = ds.attrs.get("tem_format")
-    if fmt != FORMAT:
-        raise input_error("tem_format", f"expected {FORMAT!r}, found {fmt!r} (not a models file?)", file)
+    if not isinstance(fmt, str) or fmt != FORMAT:
+        raise input_error("tem_format", f"expected {FORMAT!r}, found {show(fmt)} (not a models "
+                          "file?)", file)
     version = str(ds.attrs.get("format_version", ""))
     major = version.split(".")[0]
     if major != FORMAT_VERSION.split(".")[0]:
-        raise input_error("format_version", f"version {version!r} not supported; this tem "
+        raise input_error("format_version", f"version {show(version)} not supported; this tem "
                           f"{__version__} reads {FORMAT_VERSION.split('.')[0]}.x", file)
     for name, dims in _VARIABLES.items():
         if name not in ds.variables:
@@ -160,6 +166,8 @@ def check_models(ds, file=None):
     if "station" not in ds.coords:
         raise input_error("station", "coordinate of station identifiers missing", file)
     res = ds["resistivity"].values
+    if res.dtype.kind not in "iuf":
+        raise input_error("resistivity", f"expected numbers, got {res.dtype}", file)
     if np.any(res[np.isfinite(res)] <= 0):
         raise input_error("resistivity", "non-positive resistivity", file)
     return ds
@@ -168,22 +176,62 @@ def check_models(ds, file=None):
 def read_models(path):
     """Read and check a models file; returns an in-memory Dataset.
 
+    Beyond :func:`check_models`, every value is checked before use
+    (:func:`check_model_values`). ``path`` may also be a file object.
+
     Parameters
     ----------
     path : str or Path
         netCDF file written by :func:`write_models`.
     """
-    import xarray as xr
+    from .checks import open_netcdf
 
-    path = Path(path)
-    if not path.is_file():
-        raise input_error("models", "file not found", path)
-    try:
-        with xr.open_dataset(path, engine="h5netcdf") as ds:
-            ds = ds.load()
-    except (OSError, ValueError) as exc:
-        raise input_error("models", f"cannot be read as netCDF ({exc.__class__.__name__})", path) from None
-    return check_models(ds, path)
+    name = Path(path) if not hasattr(path, "read") else "netCDF"
+    ds = open_netcdf(path, "models")
+    return check_model_values(check_models(ds, name), name)
+
+
+def check_model_values(ds, file=None):
+    """Types, finiteness and physical ranges of a models Dataset read from a file.
+
+    Station ids: unique printable text; coordinates finite (|x|, |y| <= 1e8 m,
+    |z| <= 1e5 m); resistivity 1e-6..1e12 ohm-m or NaN (padding), at least one
+    per station; thickness in (0, 1e6] m or NaN; DOI and chi-square >= 0 or
+    NaN; posterior standard deviations >= 0 or NaN; at most 1000 layers.
+    """
+    from . import checks
+
+    lim = checks.LIMITS
+    if ds.sizes.get("layer", 0) > 1000 or ds.sizes.get("layer", 0) < 1:
+        raise input_error("layer", f"{ds.sizes.get('layer', 0)} layers; expected 1 to 1000", file)
+    sl, st = ("station", "layer"), ("station",)
+    ids = checks.variable(ds, "station", st, file, kind="U")
+    for sid in ids:
+        checks.text(str(sid), "station", file)
+    if len(set(ids)) != len(ids):
+        raise input_error("station", "a station id is listed twice", file)
+    for name, maximum in (("x", lim["coordinate"]), ("y", lim["coordinate"]),
+                          ("z", lim["elevation"])):
+        checks.variable(ds, name, st, file, maximum=maximum)
+    res = checks.variable(ds, "resistivity", sl, file, minimum=lim["resistivity_min"],
+                          maximum=lim["resistivity_max"], allow_nan=True)
+    if res.size and not np.all(np.isfinite(res).any(axis=1)):
+        raise input_error("resistivity", "a station has no layer", file)
+    checks.variable(ds, "thickness", sl, file, positive=True, maximum=lim["thickness"],
+                    allow_nan=True)
+    checks.variable(ds, "depth_top", sl, file, minimum=0.0, maximum=lim["depth"], allow_nan=True)
+    checks.variable(ds, "log10_res_std", sl, file, minimum=0.0, maximum=1e30, allow_nan=True)
+    checks.variable(ds, "doi", st, file, minimum=0.0, maximum=lim["depth"], allow_nan=True)
+    checks.variable(ds, "chi2", st, file, minimum=0.0, maximum=1e30, allow_nan=True)
+    epsg = ds.attrs.get("epsg", 0)
+    if isinstance(epsg, np.ndarray) and epsg.size == 1:
+        epsg = epsg.reshape(-1)[0]
+    checks.integer(epsg, "epsg", file, minimum=0, maximum=lim["epsg"])
+    kind = ds.attrs.get("model_kind", "smooth")
+    if not isinstance(kind, str) or kind not in MODEL_KINDS:
+        raise input_error("model_kind", f"unknown kind {checks.show(kind)}; valid: "
+                          f"{', '.join(MODEL_KINDS)}", file)
+    return ds
 
 
 def write_models(ds, path, record=None):
@@ -221,15 +269,39 @@ def layer_bottoms(ds):
     return np.where(np.isfinite(res), bottom, np.nan)
 
 
+def model_verdicts(ds):
+    """Per station: ``{"status", "code", "text", "reasons"}`` of the file's own model, or None.
+
+    Read from ``verdict_code`` (decoded with its CF ``flag_meanings``) and
+    ``verdict`` (one line: ``status: reason; reason``). A file without
+    verdicts (written before they existed) gives None for every station.
+    """
+    n = ds.sizes["station"]
+    if "verdict_code" not in ds.variables:
+        return [None] * n
+    names = str(ds["verdict_code"].attrs.get("flag_meanings", "")).split()
+    codes = ds["verdict_code"].values.astype(int)
+    texts = ds["verdict"].values.astype(str) if "verdict" in ds.variables else [""] * n
+    out = []
+    for code, text in zip(codes, texts):
+        status = names[code].replace("_", "-") if 0 <= code < len(names) else "unknown"
+        reasons = text.split(": ", 1)[1] if ": " in text else ""
+        out.append({"status": status, "code": int(code), "text": str(text), "reasons": reasons})
+    return out
+
+
 def layer_rows(ds):
     """One dict per present layer per station, in :data:`CSV_COLUMNS` order.
 
     ``below_doi`` is 1 when the layer top is at or below the DOI (the whole
-    layer is not resolved), else 0. Missing numbers are empty strings; the
+    layer is not resolved), else 0. ``verdict``, ``verdict_code`` and
+    ``verdict_reasons`` repeat the station's verdict on every layer row
+    (empty when the file has none). Missing numbers are empty strings; the
     half-space has an empty ``depth_bottom_m`` and ``thickness_m``.
     """
     bottom = layer_bottoms(ds)
     epsg = int(ds.attrs.get("epsg", 0) or 0)
+    verdicts = model_verdicts(ds)
     rows = []
     for i, sid in enumerate(ds["station"].values.astype(str)):
         doi = float(ds["doi"].values[i])
@@ -253,6 +325,9 @@ def layer_rows(ds):
                 "doi_m": _num(doi),
                 "chi2": _num(ds["chi2"].values[i]),
                 "epsg": epsg,
+                "verdict": verdicts[i]["status"] if verdicts[i] else "",
+                "verdict_code": verdicts[i]["code"] if verdicts[i] else "",
+                "verdict_reasons": verdicts[i]["reasons"] if verdicts[i] else "",
             })
             if "depth_p50" in ds:
                 rows[-1].update({c: _num(ds[v].values[i] if ds[v].ndim == 1 else ds[v].values[i, k])

@@ -18,8 +18,10 @@ into the same layout under ``--out`` (docs/pipeline.md)::
 
 so a product has the same name whichever door made it. :func:`check_output`
 refuses, before anything is written, an output folder that is or lies inside
-the survey's folder or a recording folder, that is an input file, or whose
-stage folders hold an input that the stage could overwrite or prune.
+the survey's folder or a recording folder, that is an input file or the
+folder holding one (``tem gate stacked/EM01.nc --out stacked``, ``tem forward
+model.csv ... --out .``), or whose stage folders hold an input that the stage
+could overwrite or prune.
 """
 from __future__ import annotations
 
@@ -41,6 +43,7 @@ LOCK_NAME = ".tem-lock"
 STAGE_FOLDERS = {
     "stack": ("stacked", "figures/stations"),
     "gate": ("gated", "figures/stations", "qc"),
+    "import": ("gated",),
     "rhoa": ("rhoa", "figures/stations", "figures"),
     "invert": ("models", "figures/stations"),
     "section": ("sections", "figures"),
@@ -124,6 +127,9 @@ def check_output(out, stages, inputs=(), read_only=(), planned=(), option="--out
         if f in targets or any(_inside(f, d) for d in folders):
             raise input_error(option, f"would overwrite or remove the input {f}; choose a separate "
                               "output folder", out)
+        if f.is_file() and o == f.parent:
+            raise input_error(option, f"is the folder of the input {f.name}; products never go "
+                              "beside their inputs: choose a separate output folder", out)
 
 
 class ProjectLock:

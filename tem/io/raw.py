@@ -9,6 +9,11 @@ Formats (``docs/recordings.md``):
     (ISO-8601 UTC). Samples are memory-mapped and read one chunk at a time;
     each chunk maps only its own byte range, so a day never has to fit in
     memory (and never stays resident).
+``mseed``
+    MiniSEED (FDSN) through ObsPy (tem.io.mseed): sample rate and start time
+    from the records, the channel chosen by the survey's ``channel``, gaps and
+    overlaps refused; ``volts_per_count`` (and ``full_scale``) in a sidecar
+    TOML of the same stem.
 ``text``
     Plain text: ``# key = value`` header lines (same keys as the sidecar),
     then whitespace- or comma-separated numeric columns, one row per sample.
@@ -21,7 +26,7 @@ one error listing the valid ones.
 """
 from __future__ import annotations
 
-import math
+import os
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Callable
@@ -30,11 +35,13 @@ import numpy as np
 
 from ..errors import TemInputError, input_error
 from ..survey import format_time, parse_time, seconds_between
+from . import checks
 from .atomic import atomic_path
 from .tomlfile import read_toml
 
 __all__ = ["RawHeader", "Recording", "MultiRecording", "FORMATS", "open_recording",
-           "open_receiver", "write_npy_recording", "write_text_recording", "sidecar_path"]
+           "open_receiver", "write_npy_recording", "write_text_recording",
+           "write_mseed_recording", "sidecar_path"]
 
 SIDECAR_VERSION = 1
 
@@ -57,15 +64,15 @@ class RawHeader:
 
     def __post_init__(self):
         for name in ("sample_rate", "volts_per_count"):
-            v = getattr(self, name)
-            if not (isinstance(v, (int, float, np.floating)) and math.isfinite(v) and v > 0):
-                raise input_error(name, f"must be a positive number, got {v!r}")
-            object.__setattr__(self, name, float(v))
+            v = checks.number(getattr(self, name), name, positive=True,
+                              maximum=checks.LIMITS[name])
+            object.__setattr__(self, name, v)
         object.__setattr__(self, "start_time", parse_time(self.start_time, "start_time"))
-        fs = float(self.full_scale or 0.0)
-        if not (math.isfinite(fs) and fs >= 0):
-            raise input_error("full_scale", f"must be >= 0, got {self.full_scale!r}")
+        fs = checks.number(self.full_scale or 0.0, "full_scale", minimum=0.0,
+                           maximum=checks.LIMITS["full_scale"])
         object.__setattr__(self, "full_scale", fs)
+        for name in ("component", "station"):
+            checks.text(getattr(self, name), name, empty=True)
 
     def to_dict(self) -> dict:
         d = {"format_version": SIDECAR_VERSION, "sample_rate": self.sample_rate,
@@ -85,15 +92,16 @@ class RawHeader:
         try:
             extra = set(d) - allowed
             if extra:
-                raise input_error(sorted(extra)[0], f"unknown key; valid: {', '.join(sorted(allowed))}")
-            if int(d.get("format_version", 1)) != SIDECAR_VERSION:
-                raise input_error("format_version", f"unsupported {d['format_version']!r}")
+                raise input_error(checks.show(sorted(extra)[0]),
+                                  f"unknown key; valid: {', '.join(sorted(allowed))}")
+            if checks.integer(d.get("format_version", 1), "format_version") != SIDECAR_VERSION:
+                raise input_error("format_version", f"unsupported {checks.show(d['format_version'])}")
             for key in ("sample_rate", "volts_per_count", "start_time"):
                 if key not in d:
                     raise input_error(key, "missing")
             return cls(sample_rate=d["sample_rate"], volts_per_count=d["volts_per_count"],
                        start_time=d["start_time"], full_scale=d.get("full_scale", 0.0),
-                       component=str(d.get("component", "")), station=str(d.get("station", "")))
+                       component=d.get("component", ""), station=d.get("station", ""))
         except TemInputError as exc:
             raise TemInputError(f"{file}: {exc}" if file else str(exc)) from None
 
@@ -188,34 +196,28 @@ def _npy_sniff(path) -> bool:
         return False
 
 
-def _npy_open(path, column: int = 0) -> Recording:
+def _npy_open(path, column: int = 0, channel=None) -> Recording:
     path = Path(path)
     header = _read_sidecar(path)
     try:
         with open(path, "rb") as fh:
-            version = np.lib.format.read_magic(fh)
-            if version == (1, 0):
-                shape, fortran, dtype = np.lib.format.read_array_header_1_0(fh)
-            else:
-                shape, fortran, dtype = np.lib.format.read_array_header_2_0(fh)
-            offset = fh.tell()
+            shape, dtype, offset = checks.npy_header(fh, path)
+            size = os.fstat(fh.fileno()).st_size
     except FileNotFoundError:
         raise input_error("file", "not found", path) from None
-    except (ValueError, OSError) as exc:
-        raise input_error("npy header", f"unreadable ({exc})", path) from None
-    if dtype.hasobject:
-        raise input_error("dtype", "object arrays are refused (no unpickling)", path)
-    if dtype.newbyteorder("=") not in (np.dtype(np.int32), np.dtype(np.float32),
-                                       np.dtype(np.int16), np.dtype(np.float64)):
-        raise input_error("dtype", f"{dtype} unsupported; use int32 or float32 counts", path)
+    except IsADirectoryError:
+        raise input_error("file", "is a folder; give the recording", path) from None
+    except OSError as exc:
+        raise input_error("file", f"cannot read ({exc.strerror or type(exc).__name__})",
+                          path) from None
     if len(shape) != 1:
         raise input_error("shape", f"expected one channel (1-D), got {shape}", path)
     n = int(shape[0])
-    size = path.stat().st_size
     need = offset + n * dtype.itemsize
     if size < need:
         have = (size - offset) // dtype.itemsize
-        raise input_error("data", f"truncated: header promises {n} samples, file holds {have}", path)
+        raise input_error("data", f"truncated: header promises {checks.show(n)} samples, file "
+                          f"holds {have}", path)
     if n == 0:
         raise input_error("data", "no samples", path)
 
@@ -256,17 +258,11 @@ def _text_sniff(path) -> bool:
     return Path(path).suffix.lower() in (".txt", ".csv", ".dat", ".asc")
 
 
-def _text_open(path, column: int = 0) -> Recording:
+def _text_open(path, column: int = 0, channel=None) -> Recording:
     path = Path(path)
     meta = {}
     rows_start = 0
-    try:
-        with open(path, encoding="utf-8") as fh:
-            lines = fh.readlines()
-    except FileNotFoundError:
-        raise input_error("file", "not found", path) from None
-    except UnicodeDecodeError:
-        raise input_error("text", "not UTF-8 text", path) from None
+    lines = checks.read_text(path, "text").splitlines()
     for rows_start, line in enumerate(lines):
         s = line.strip()
         if not s.startswith("#"):
@@ -276,7 +272,9 @@ def _text_open(path, column: int = 0) -> Recording:
             k, v = body.split("=", 1)
             v = v.strip().strip('"')
             k = k.strip()
-            meta[k] = v if k in ("start_time", "component", "station") else _num(v, k, path)
+            k = k if len(k) <= 40 and k.isprintable() else checks.show(k)
+            meta[k] = v if k in ("start_time", "component", "station") else checks.number(
+                v, k, path, parse_text=True)
     else:
         rows_start = len(lines)
     header = RawHeader.from_dict(meta, file=path)
@@ -286,23 +284,13 @@ def _text_open(path, column: int = 0) -> Recording:
         if not s or s.startswith("#"):
             continue
         parts = s.replace(",", " ").split()
-        if column >= len(parts):
+        if not 0 <= column < len(parts):
             raise input_error(f"line {i}", f"has no column {column}", path)
-        try:
-            values.append(float(parts[column]))
-        except ValueError:
-            raise input_error(f"line {i}", f"not a number: {parts[column]!r}", path) from None
+        values.append(checks.number(parts[column], f"line {i}", path, parse_text=True))
     if not values:
         raise input_error("data", "no samples", path)
     data = np.asarray(values, dtype=np.float64)
     return Recording(path, header, data.size, lambda a, b: data[a:b].copy())
-
-
-def _num(v, k, path):
-    try:
-        return float(v)
-    except ValueError:
-        raise input_error(k, f"not a number: {v!r}", path) from None
 
 
 def write_text_recording(path, columns, header: RawHeader, fmt="%.9g") -> Path:
@@ -326,32 +314,54 @@ class Format:
     suffixes: tuple = field(default=())
 
 
+def _mseed_sniff(path) -> bool:
+    from .mseed import mseed_sniff
+    return mseed_sniff(path)
+
+
+def _mseed_open(path, column: int = 0, channel=None) -> Recording:
+    from .mseed import mseed_open
+    return mseed_open(path, channel)
+
+
+def write_mseed_recording(path, counts, header: RawHeader, channel=None) -> Path:
+    """Write counts as MiniSEED (Steim-2 int32 or float32) plus a calibration sidecar."""
+    from .mseed import mseed_write
+    return mseed_write(path, counts, header, channel)
+
+
 FORMATS = {
     "npy": Format("npy", _npy_sniff, _npy_open, write_npy_recording, (".npy",)),
+    "mseed": Format("mseed", _mseed_sniff, _mseed_open, write_mseed_recording,
+                    (".mseed", ".miniseed", ".ms")),
     "text": Format("text", _text_sniff, _text_open, write_text_recording,
                    (".txt", ".csv", ".dat", ".asc")),
 }
 
 
-def open_recording(path, format: str | None = None, column: int = 0) -> Recording:
-    """Open one recording; ``format`` wins, else sniff (npy magic, then suffix)."""
+def open_recording(path, format: str | None = None, column: int = 0,
+                   channel: str | None = None) -> Recording:
+    """Open one recording; ``format`` wins, else sniff (npy magic, MiniSEED suffix, text).
+
+    ``channel`` selects a MiniSEED channel (code or NET.STA.LOC.CHA id).
+    """
     path = Path(path)
     if format is not None:
         if format not in FORMATS:
             raise input_error("format", f"unknown {format!r}; valid: {', '.join(FORMATS)}", path)
-        return FORMATS[format].open(path, column)
+        return FORMATS[format].open(path, column, channel)
     if not path.exists():
         raise input_error("file", "not found", path)
     for fmt in FORMATS.values():
         if fmt.sniff(path):
-            return fmt.open(path, column)
+            return fmt.open(path, column, channel)
     raise input_error("format", f"cannot tell the format; valid: {', '.join(FORMATS)}", path)
 
 
 def open_receiver(receiver, survey) -> Recording:
     """Open the recording(s) of a survey receiver and check them against it."""
-    parts = [open_recording(survey.path(f), receiver.format, receiver.column)
-             for f in receiver.files]
+    parts = [open_recording(survey.path(f), receiver.format, receiver.column,
+                            getattr(receiver, "channel", None)) for f in receiver.files]
     if not parts:
         raise input_error("receiver.files", f"{receiver.component}: no recording listed")
     for p in parts:

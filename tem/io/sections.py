@@ -46,18 +46,30 @@ def write_section_grid(grid, path, records=()):
 
 
 def read_section_grid(path):
-    """Read a section grid, checking format and major version."""
-    import xarray as xr
+    """Read a section grid, checking format, major version and the variables export reads."""
+    from . import checks
 
-    path = Path(path)
-    if not path.is_file():
-        raise input_error("section", "file not found", path)
-    with xr.open_dataset(path, engine="h5netcdf") as ds:
-        ds = ds.load()
-    if ds.attrs.get("tem_format") != FORMAT:
-        raise input_error("tem_format", f"expected {FORMAT!r}, found {ds.attrs.get('tem_format')!r}", path)
+    name = Path(path) if not hasattr(path, "read") else "netCDF"
+    ds = checks.open_netcdf(path, "section")
+    if not isinstance(ds.attrs.get("tem_format"), str) or ds.attrs["tem_format"] != FORMAT:
+        raise input_error("tem_format", f"expected {FORMAT!r}, found "
+                          f"{checks.show(ds.attrs.get('tem_format'))}", name)
     if str(ds.attrs.get("format_version", "")).split(".")[0] != FORMAT_VERSION.split(".")[0]:
-        raise input_error("format_version", f"version {ds.attrs.get('format_version')!r} not supported; "
-                          f"this tem reads {FORMAT_VERSION.split('.')[0]}.x", path)
+        raise input_error("format_version", f"version {checks.show(ds.attrs.get('format_version'))}"
+                          f" not supported; this tem reads {FORMAT_VERSION.split('.')[0]}.x", name)
+    for var in ("log10_resistivity_full", "below_doi", "distance"):
+        if var not in ds.variables:
+            raise input_error(var, "required variable missing", name)
+    if ds["log10_resistivity_full"].ndim != 2 or ds["below_doi"].dims != \
+            ds["log10_resistivity_full"].dims:
+        raise input_error("log10_resistivity_full", "expected a 2-D grid like below_doi", name)
+    checks.variable(ds, "log10_resistivity_full", ds["log10_resistivity_full"].dims, name,
+                    minimum=-6.0, maximum=12.0, allow_nan=True)
+    checks.variable(ds, "below_doi", ds["below_doi"].dims, name, kind="b")
+    checks.variable(ds, "distance", ("distance",), name, maximum=checks.LIMITS["coordinate"])
+    for var in ("x", "y", "surface", "doi", "depth", "elevation"):
+        if var in ds.variables:
+            checks.variable(ds, var, ds[var].dims, name, maximum=checks.LIMITS["coordinate"],
+                            allow_nan=True)
     ds["below_doi"] = ds["below_doi"].astype(bool)
     return ds

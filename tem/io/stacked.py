@@ -9,7 +9,12 @@ asymmetry, mains, offset and drift; docs/qc.md).
 plus per-channel noise measures (docs/qc.md).
 
 Version 1.1 (both) adds variables to 1.0; 1.0 files still read (missing
-measures read as absent, errors as uncorrelated batches).
+measures read as absent, errors as uncorrelated batches). Gated version 1.2
+adds the optional attributes ``response`` (waveform, step-off, step-on,
+impulse), ``sampling`` (window, point) and a piecewise-linear waveform table
+(``waveform_times``, ``waveform_current``, ``waveform_half_period``); a file
+without them reads as before (waveform response, window averages, bipolar
+wave from ``base_frequency``).
 """
 from __future__ import annotations
 
@@ -24,8 +29,8 @@ from ..errors import input_error
 from ..provenance import records_from_json, records_to_json
 from .netcdf import write_netcdf
 
-__all__ = ["stacked_dataset", "write_dataset", "read_product", "gated_dataset",
-           "COUNT_FIELDS", "CHECK_FIELDS"]
+__all__ = ["stacked_dataset", "write_dataset", "read_product", "check_dataset", "gated_dataset",
+           "COUNT_FIELDS", "CHECK_FIELDS", "GATED_VERSION"]
 
 COUNT_FIELDS = ("transients_total", "transients_used", "rejected_noisy", "rejected_bad_samples",
                 "samples_clipped", "samples_outlier", "clipped_high", "clipped_low",
@@ -42,6 +47,8 @@ CHECK_FIELDS = (("offset", "V", "median baseline at the logger"),
                 ("duration", "s", "record length stacked"),
                 ("full_scale", "V", "digitiser full scale at the logger"))
 _VERSION = "1.1"
+#: Version of the gated files written (1.2: response, sampling, waveform table; docs/data-model.md)
+GATED_VERSION = "1.2"
 _MAJOR = "1"
 
 
@@ -154,7 +161,8 @@ def gated_dataset(stacked: xr.Dataset, table, value, error, usable, noise_floor,
             "tx_points", "tx_current", "base_frequency", "duty_cycle", "ramp_on", "ramp_off",
             "lowpass_order", "lowpass_cutoff", "mains_frequency")
     attrs = {k: stacked.attrs[k] for k in keep if k in stacked.attrs}
-    attrs.update(gate_shape=table.shape, tem_format="gated", format_version=_VERSION,
+    attrs.update(gate_shape=table.shape, tem_format="gated", format_version=GATED_VERSION,
+                 response="waveform", sampling="window",
                  tem_version=__version__, provenance=records_to_json(provenance))
     ch = {k: stacked[k] for k in ("component", "rx_x0", "rx_y0", "rx_x1", "rx_y1", "coil_area",
                                   "dead") if k in stacked}
@@ -178,19 +186,29 @@ def write_dataset(ds: xr.Dataset, path) -> Path:
 
 
 def read_product(path, fmt: str) -> xr.Dataset:
-    """Open a product file and check ``tem_format`` and the major ``format_version``."""
-    path = Path(path)
-    try:
-        ds = xr.load_dataset(path, engine="h5netcdf")
-    except FileNotFoundError:
-        raise input_error("file", "not found", path) from None
-    except (OSError, ValueError) as exc:
-        raise input_error("netcdf", f"unreadable ({type(exc).__name__})", path) from None
-    if ds.attrs.get("tem_format") != fmt:
-        raise input_error("tem_format", f"expected {fmt!r}, found {ds.attrs.get('tem_format')!r}", path)
+    """Open a product file and check it with :func:`check_dataset`. ``path`` may also be a
+    file object (bytes in memory)."""
+    from .checks import open_netcdf
+
+    return check_dataset(open_netcdf(path, "netcdf"), fmt,
+                         Path(path) if not hasattr(path, "read") else "netCDF")
+
+
+def check_dataset(ds, fmt: str, file=None) -> xr.Dataset:
+    """Check ``tem_format``, the major ``format_version`` and, for ``stacked`` and ``gated``
+    files, every variable and attribute a stage reads (:func:`tem.io.schema.check_product`).
+    """
+    from .checks import show
+    from .schema import check_product
+
+    found = ds.attrs.get("tem_format")
+    if not isinstance(found, str) or found != fmt:
+        raise input_error("tem_format", f"expected {fmt!r}, found "
+                          f"{show(ds.attrs.get('tem_format'))}", file)
     if str(ds.attrs.get("format_version", "")).split(".")[0] != _MAJOR:
-        raise input_error("format_version", f"{ds.attrs.get('format_version')!r} not supported", path)
-    return ds
+        raise input_error("format_version", f"{show(ds.attrs.get('format_version'))} not "
+                          "supported", file)
+    return check_product(ds, fmt, file)
 
 
 def provenance_of(ds) -> list:

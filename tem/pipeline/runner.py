@@ -30,7 +30,8 @@ from ..runtime import StageContext, StationOutcome, Tally, process_pool
 from .resume import Checksums, changed_products, fingerprint, reusable, station_survey_text
 from .settings import STAGES, read_processing, resolve_settings
 
-__all__ = ["run_pipeline", "RunOutcome", "STATION_STAGES", "read_run", "FORMAT", "FORMAT_VERSION",
+__all__ = ["run_pipeline", "RunOutcome", "STATION_STAGES", "read_run", "not_fitted", "FORMAT",
+           "FORMAT_VERSION",
            "OWNED"]
 
 FORMAT = "run"
@@ -107,6 +108,12 @@ def _ok(state, survey):
         st = rec.get("stations", {})
         out[stage] = [s.id for s in survey.stations if st.get(s.id, {}).get("status") == "ok"]
     return out
+
+
+def not_fitted(state) -> dict:
+    """{station: verdict} of the stations whose chosen model is a failure (misfit, stalled)."""
+    return {sid: s["verdict"] for sid, s in state.get("stations", {}).items()
+            if "failed_stage" not in s and s.get("verdict") in ("misfit", "stalled")}
 
 
 def _station_summary(state, survey):
@@ -474,4 +481,5 @@ def _run_locked(survey, survey_file, settings, project, start, end, jobs, consol
     _write_run(project, state)
     failed = any("failed_stage" in s for s in state["stations"].values())
     failed |= any(rec.get("failed") for rec in state["stages"].values()) or bool(stop)
+    failed |= bool(not_fitted(state))
     return RunOutcome(state=state, exit_status=1 if failed else 0, project=project)

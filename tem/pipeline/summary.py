@@ -8,7 +8,10 @@ from .runner import STATION_STAGES
 __all__ = ["summary_table"]
 
 _VERDICT_COLOUR = {"good": "green", "check": "yellow", "reoccupy": "bold red",
-                   "fitted": "green"}
+                   "fitted": "green", "misfit": "bold red", "stalled": "bold red",
+                   "parameter-at-bound": "yellow", "degenerate-layer": "yellow"}
+#: Model verdicts that fail a station (docs/inversion.md, "Verdicts").
+_FAILURES = ("misfit", "stalled")
 
 
 def _finite(v):
@@ -22,11 +25,15 @@ def _stages_cell(state, sid):
     failed = [stage for stage, rec in ran if rec["status"] != "ok"]
     if failed:
         return f"[red]failed {failed[0]}[/]"
+    verdict = state.get("stations", {}).get(sid, {}).get("verdict")
+    if ran and verdict in _FAILURES:       # never "ok" for a model that does not fit
+        return f"[bold red]{verdict}[/] to {ran[-1][0]}"
     return f"[green]ok[/] to {ran[-1][0]}" if ran else "[dim]-[/]"
 
 
 def summary_table(state, title=None):
-    """A rich Table per station: stages passed, usable gates, evening verdict, fit, DOI, notes.
+    """A rich Table per station: stages passed, usable gates, evening verdict, the verdict on
+    the chosen model and its final chi2, DOI, notes.
 
     Numbers are never cut (columns do not wrap); only the note column folds.
     """
@@ -37,7 +44,8 @@ def summary_table(state, title=None):
               header_style="bold", box=box.SIMPLE_HEAD, pad_edge=False, padding=(0, 1),
               collapse_padding=True)
     for col, just in (("station", "left"), ("stages", "left"), ("gates", "right"),
-                      ("QC", "left"), ("min", "right"), ("chi2", "right"), ("DOI m", "right")):
+                      ("QC", "left"), ("min", "right"), ("fit", "left"), ("chi2", "right"),
+                      ("DOI m", "right")):
         t.add_column(col, justify=just, no_wrap=True)
     t.add_column("notes", overflow="fold", ratio=1)
     for sid, s in state.get("stations", {}).items():
@@ -48,7 +56,10 @@ def summary_table(state, title=None):
         minutes = f"{minutes:.0f}" if _finite(minutes) and minutes > 0 else ""
         chi2 = f"{s['chi2']:.2f}" if _finite(s.get("chi2")) else "-"
         doi = f"{s['doi']:.0f}" if _finite(s.get("doi")) else "-"
-        notes = [n for n in (s.get("message"), s.get("qc_reasons"), s.get("invert_message"))
-                 if n]
-        t.add_row(sid, _stages_cell(state, sid), gates, qc, minutes, chi2, doi, "; ".join(notes))
+        fit = s.get("verdict", "")
+        fit_cell = f"[{_VERDICT_COLOUR.get(fit, 'white')}]{fit}[/]" if fit else "-"
+        reasons = s.get("verdict_text", "").split(": ", 1)[-1] if fit and fit != "fitted" else ""
+        notes = [n for n in (s.get("message"), s.get("qc_reasons"), reasons) if n]
+        t.add_row(sid, _stages_cell(state, sid), gates, qc, minutes, fit_cell, chi2, doi,
+                  "; ".join(notes))
     return t

@@ -30,6 +30,8 @@ __all__ = ["station_table", "render_report", "write_report", "STATUS_OK", "STATU
 STATUS_OK = "ok"
 STATUS_MISFIT = "check fit"
 STATUS_NONE = "no model"
+#: Statuses counted as a good fit in the station table.
+FITTED = (STATUS_OK, "fitted")
 
 _CSS = """
 body{font-family:system-ui,sans-serif;margin:1.5em auto;max-width:1200px;color:#1d2327;padding:0 1em}
@@ -58,22 +60,32 @@ def station_table(models, station_info, chi2_limit):
         Per station id, optional ``usable_gates`` (int) and ``status`` (str)
         from earlier stages; a given status replaces the derived one.
     chi2_limit : float
-        Chi-square per datum above which the status is "check fit"
-        (common practice, no source; a fit at the target has chi2 near 1).
+        For a models file without verdicts only: chi-square per datum above
+        which the status is "check fit" (common practice, no source). With
+        verdicts (docs/inversion.md, "Verdicts") the status is the verdict
+        (fitted, misfit, stalled, parameter-at-bound, degenerate-layer).
 
     Returns
     -------
     list of dict
-        Keys: station, x, y, z, chi2, doi, usable_gates, status.
+        Keys: station, x, y, z, chi2, doi, usable_gates, status, reasons.
     """
+    from ..io.models import model_verdicts
+
     info = station_info or {}
+    verdicts = model_verdicts(models)
     rows = []
     for i, sid in enumerate(models["station"].values.astype(str)):
         chi2 = float(models["chi2"].values[i])
         extra = info.get(sid, {})
+        v = verdicts[i]
         if "status" in extra:
             status = str(extra["status"])
-        elif not np.isfinite(chi2) or not np.isfinite(models["resistivity"].values[i]).any():
+        elif not np.isfinite(models["resistivity"].values[i]).any():
+            status = STATUS_NONE
+        elif v is not None:
+            status = v["status"]
+        elif not np.isfinite(chi2):
             status = STATUS_NONE
         else:
             status = STATUS_OK if chi2 <= chi2_limit else STATUS_MISFIT
@@ -86,6 +98,7 @@ def station_table(models, station_info, chi2_limit):
             "doi": float(models["doi"].values[i]),
             "usable_gates": extra.get("usable_gates", ""),
             "status": status,
+            "reasons": v["reasons"] if v is not None else "",
         })
     return rows
 
@@ -115,22 +128,50 @@ def _figure_html(path, base, caption, embed):
             f"<figcaption>{cap}{links}</figcaption></figure>")
 
 
-def _verdict_section(qc_rows, qc_figures, base, embed):
-    """The evening answer: which stations to re-occupy and why, the map, noise against time."""
+def _fits(models):
+    """{station: (verdict status, chi2)} from a models file with verdicts, else {}."""
+    from ..io.models import model_verdicts
+
+    if models is None:
+        return {}
+    out = {}
+    for sid, v, c in zip(models["station"].values.astype(str), model_verdicts(models),
+                         models["chi2"].values.astype(float)):
+        if v is not None:
+            out[sid] = (v["status"], c)
+    return out
+
+
+def _verdict_section(qc_rows, qc_figures, base, embed, fits=None):
+    """The evening answer: which stations to re-occupy and why, the map, noise against time.
+
+    ``fits`` ({station: (verdict, chi2)}) adds the verdict on each station's
+    model, so the first table already says which models do not fit.
+    """
+    fits = fits or {}
     out = []
     n = {v: sum(r["verdict"] == v for r in qc_rows) for v in ("reoccupy", "check", "good")}
     out.append(f'<h2 id="verdicts">Evening verdict: {n["reoccupy"]} to re-occupy, {n["check"]} to '
                f'check, {n["good"]} good</h2>')
     out.append('<p class="meta">From qc/stations.csv (thresholds: [processing.qc], '
                "docs/qc.md). Extra minutes: recording to add (noise) or to record anew.</p>")
+    fit_head = "<th>model fit</th><th>chi2</th>" if fits else ""
     out.append("<table><thead><tr><th>station</th><th>verdict</th><th>extra minutes</th>"
-               "<th>reasons</th></tr></thead><tbody>")
+               f"<th>reasons</th>{fit_head}</tr></thead><tbody>")
     for r in qc_rows:
         cls = {"reoccupy": ' class="reoccupy"', "check": ' class="check"'}.get(r["verdict"], "")
+        fit = ""
+        if fits:
+            status, chi2 = fits.get(r["station"], ("no model", np.nan))
+            fcls = "" if status == "fitted" else (
+                ' style="color:#a4281b;font-weight:700"' if status in ("misfit", "stalled")
+                else ' style="color:#8a6d00;font-weight:600"')
+            fit = (f"<td class=\"status\"{fcls}>{html.escape(status)}</td>"
+                   f"<td>{_fmt(chi2, 2)}</td>")
         out.append(f"<tr{cls}><td class=\"id\">{html.escape(r['station'])}</td>"
                    f"<td class=\"status\">{html.escape(r['verdict'])}</td>"
                    f"<td>{html.escape(r['extra_minutes'])}</td>"
-                   f"<td class=\"id\">{html.escape(r['reasons'])}</td></tr>")
+                   f"<td class=\"id\">{html.escape(r['reasons'])}</td>{fit}</tr>")
     out.append("</tbody></table>")
     for item in qc_figures:
         path, caption = item if isinstance(item, (tuple, list)) else (item, None)
@@ -177,7 +218,7 @@ def render_report(base, models, *, chi2_limit, embed, section_figures=(), model_
     for note in notes:
         out.append(f"<p>{html.escape(str(note))}</p>")
     if qc_rows or qc_figures:
-        out += _verdict_section(qc_rows, qc_figures, base, embed)
+        out += _verdict_section(qc_rows, qc_figures, base, embed, _fits(models))
     if models is not None:
         out += _model_section(models, station_info, chi2_limit, station_figures)
     for heading, anchor, figs in (("Sections", "sections", section_figures),
@@ -205,22 +246,32 @@ def _model_section(models, station_info, chi2_limit, station_figures):
     rows = station_table(models, station_info, chi2_limit)
     epsg = int(models.attrs.get("epsg", 0) or 0)
     out = []
-    n_check = sum(r["status"] != STATUS_OK for r in rows)
+    n_check = sum(r["status"] not in FITTED for r in rows)
     out.append(f'<h2 id="stations">Stations ({len(rows)}; {n_check} to check)</h2>')
     crs = f"EPSG:{epsg}" if epsg else "CRS not given"
+    if any(r["reasons"] for r in rows):
+        rule = ("status: the verdict on the final fit (fitted within the chi2 tolerance; misfit "
+                "and stalled fail; parameter-at-bound and degenerate-layer warn; "
+                "docs/inversion.md)")
+    else:
+        rule = f"status 'check fit' above {chi2_limit:g}"
     out.append(f"<p class=\"meta\">Coordinates in m ({html.escape(crs)}); chi2 is chi-square "
-               f"per datum (target 1; status 'check fit' above {chi2_limit:g}).</p>")
+               f"per datum of the final fit (target 1; {rule}).</p>")
     out.append("<table><thead><tr><th>station</th><th>x (m)</th><th>y (m)</th><th>z (m)</th>"
-               "<th>chi2</th><th>DOI (m)</th><th>usable gates</th><th>status</th></tr></thead><tbody>")
+               "<th>chi2</th><th>DOI (m)</th><th>usable gates</th><th>status</th><th>reasons</th>"
+               "</tr></thead><tbody>")
     for r in rows:
-        cls = "" if r["status"] == STATUS_OK else ' class="check"'
+        cls = "" if r["status"] in FITTED else (
+            ' class="reoccupy"' if r["status"].split(";")[0] in ("misfit", "stalled")
+            else ' class="check"')
         sid = html.escape(r["station"])
         link = f'<a href="#st-{sid}">{sid}</a>' if station_figures and r["station"] in station_figures else sid
         gates = html.escape(str(r["usable_gates"]))
         out.append(f"<tr{cls}><td class=\"id\">{link}</td><td>{_fmt(r['x'], 1)}</td>"
                    f"<td>{_fmt(r['y'], 1)}</td><td>{_fmt(r['z'], 1)}</td>"
                    f"<td>{_fmt(r['chi2'], 2)}</td><td>{_fmt(r['doi'], 0)}</td>"
-                   f"<td>{gates}</td><td class=\"status\">{html.escape(r['status'])}</td></tr>")
+                   f"<td>{gates}</td><td class=\"status\">{html.escape(r['status'])}</td>"
+                   f"<td class=\"id\">{html.escape(r['reasons'])}</td></tr>")
     out.append("</tbody></table>")
     return out
 

@@ -98,7 +98,7 @@ def run(settings: ReportSettings, project_in, out, ctx: StageContext = StageCont
     the noise figure, then the models, sections and per-station figures (the
     models part is left out when the project has no models yet).
     """
-    from ..io.models import read_models
+    from ..io.models import model_verdicts, read_models
     from .html import STATUS_MISFIT, STATUS_NONE, STATUS_OK, write_report
 
     src = project_in if isinstance(project_in, Project) else Project(project_in)
@@ -126,6 +126,7 @@ def run(settings: ReportSettings, project_in, out, ctx: StageContext = StageCont
     ids = list(modelled)
     ids += [s for s in stations if s not in ids]
     station_figs, info = {}, {}
+    verdicts = dict(zip(modelled, model_verdicts(models))) if models is not None else {}
     for sid in ids:
         items = [(src.station_figure(sid, k), f"{sid}: {c}") for k, c in _CAPTIONS.items()]
         items = [(p, c) for p, c in items if p.is_file()]
@@ -136,7 +137,9 @@ def run(settings: ReportSettings, project_in, out, ctx: StageContext = StageCont
         if "usable_gates" in s:
             entry["usable_gates"] = s["usable_gates"]
         chi2 = s.get("chi2")
-        if chi2 is not None:
+        if verdicts.get(sid) is not None:
+            status = verdicts[sid]["status"]
+        elif chi2 is not None:
             status = STATUS_OK if chi2 <= settings.chi2_limit else STATUS_MISFIT
         elif sid in modelled:
             status = None

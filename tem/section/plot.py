@@ -16,7 +16,7 @@ from matplotlib.figure import Figure
 
 from ..errors import input_error
 
-__all__ = ["section_figure", "pseudo_section_figure", "model_figure",
+__all__ = ["section_figure", "pseudo_section_figure", "model_figure", "mark_verdicts",
            "CMAP", "BELOW_DOI_STYLES"]
 
 CMAP = "Spectral"
@@ -65,6 +65,66 @@ def _station_labels(ax, station_d, labels, scale):
     return top
 
 
+def _runs(flags):
+    """(first, last) index of every run of equal non-zero values in ``flags``."""
+    out, k, n = [], 0, len(flags)
+    while k < n:
+        j = k
+        while j + 1 < n and flags[j + 1] == flags[k]:
+            j += 1
+        if flags[k]:
+            out.append((k, j))
+        k = j + 1
+    return out
+
+
+def mark_verdicts(ax, grid, scale, yrange, column_edges=None):
+    """Grey and hatch the columns made from a model that is not fitted; label those stations.
+
+    The columns are those whose ``verdict_code`` is not 0 (a column between
+    two stations carries the more severe verdict of the two, as its SEG-Y
+    trace does; docs/sections.md), or, in a grid without column verdicts,
+    each such station's share of the profile (midpoints to its neighbours).
+    Failures (misfit, stalled) are greyed and cross-hatched, warnings
+    (parameter at a bound, degenerate layer) dotted. Every station that is
+    not fitted is labelled with its verdict and chi2. Patches have gid
+    ``verdict-columns``, labels ``verdict-label-<station>``.
+    """
+    names = str(grid["station_verdict_code"].attrs.get("flag_meanings", "")).split()
+    codes = grid["station_verdict_code"].values.astype(int)
+    chi2 = grid["station_chi2"].values.astype(float) if "station_chi2" in grid else \
+        np.full(codes.size, np.nan)
+    sd = grid["station_distance"].values.astype(float)
+    if "verdict_code" in grid and column_edges is not None:
+        cls = [0 if c <= 0 else (1 if c in (1, 2) else 2) for c in grid["verdict_code"].values]
+        edges = np.asarray(column_edges, float)
+    else:
+        cls = [0 if c <= 0 else (1 if c in (1, 2) else 2) for c in codes]
+        edges = (_edges(sd) if sd.size > 1 else np.array([sd[0] - 0.5, sd[0] + 0.5])) * scale
+    top, bottom = yrange
+    labelled = set()
+    for i0, i1 in _runs(cls):
+        failure = cls[i0] == 1
+        kind = "model not fitted (misfit, stalled)" if failure else "model flagged (bound, thin layer)"
+        patch = ax.fill_between(
+            [edges[i0], edges[i1 + 1]], [top, top], [bottom, bottom],
+            facecolor=(0.45, 0.45, 0.45, 0.55) if failure else (1, 1, 1, 0.0),
+            edgecolor="0.15" if failure else "0.3", hatch="xx" if failure else "..", lw=0.0,
+            label=None if kind in labelled else kind, zorder=3)
+        labelled.add(kind)
+        patch.set_gid("verdict-columns")
+    for k, sid in enumerate(grid["station"].values.astype(str)):
+        code = codes[k]
+        if code <= 0:
+            continue
+        status = names[code].replace("_", "-") if code < len(names) else f"code {code}"
+        label = f"{sid}\n{status}" + (f"\nchi2 {chi2[k]:.1f}" if np.isfinite(chi2[k]) else "")
+        txt = ax.text(sd[k] * scale, top + 0.04 * (bottom - top), label,
+                      ha="center", va="top", fontsize=7, zorder=4, color="k",
+                      bbox=dict(boxstyle="round,pad=0.2", fc="white", ec="0.3", alpha=0.85))
+        txt.set_gid(f"verdict-label-{sid}")
+
+
 def section_figure(grid, *, below_doi, title=None, vmin=None, vmax=None, distance_unit="auto",
                    cmap=CMAP, width=10.0, height=4.5):
     """Figure of a stitched resistivity section.
@@ -87,7 +147,8 @@ def section_figure(grid, *, below_doi, title=None, vmin=None, vmax=None, distanc
     -------
     matplotlib.figure.Figure
         The image has gid ``"resistivity"``; the DOI veil ``"doi-veil"`` and
-        the DOI line ``"doi-line"``.
+        the DOI line ``"doi-line"``; columns made from a model that is not
+        fitted ``"verdict-columns"`` (see :func:`mark_verdicts`).
     """
     if below_doi not in BELOW_DOI_STYLES:
         raise input_error("below_doi", f"unknown style {below_doi!r}; valid: {', '.join(BELOW_DOI_STYLES)}")
@@ -132,6 +193,8 @@ def section_figure(grid, *, below_doi, title=None, vmin=None, vmax=None, distanc
     ax.set_xlabel(f"distance along profile ({unit})")
     if "station_distance" in grid:
         _station_labels(ax, grid["station_distance"].values, grid["station"].values, scale)
+    if "station_verdict_code" in grid:
+        mark_verdicts(ax, grid, scale, (ye[0], ye[-1]), column_edges=xe)
     cb = fig.colorbar(mesh, ax=ax, pad=0.01)
     cb.set_label("resistivity (ohm-m)")
     ax.legend(loc="lower right", fontsize=8, framealpha=0.8)
@@ -193,7 +256,8 @@ def model_figure(models, indices=None, max_depth=None, ncols=6, panel_width=1.8,
 
     Each panel shows the layered model as steps, the band
     10**(log10 rho +- log10_res_std) when known, and the DOI as a dashed
-    line with the part below it greyed.
+    line with the part below it greyed. A panel whose model is not fitted
+    has its verdict under the station name (misfit and stalled on grey).
 
     Parameters
     ----------
@@ -204,6 +268,7 @@ def model_figure(models, indices=None, max_depth=None, ncols=6, panel_width=1.8,
     max_depth : float or None
         Depth axis bottom, m; default 1.25 times the deepest DOI.
     """
+    from ..io.models import model_verdicts
     from .profile import default_max_depth
 
     idx = list(range(models.sizes["station"])) if indices is None else list(indices)
@@ -213,6 +278,7 @@ def model_figure(models, indices=None, max_depth=None, ncols=6, panel_width=1.8,
     res = models["resistivity"].values.astype(float)
     std = models["log10_res_std"].values.astype(float)
     doi = models["doi"].values.astype(float)
+    verdicts = model_verdicts(models)
     zmax = max_depth or default_max_depth(doi[idx], top[idx])
     ncols = min(ncols, len(idx))
     nrows = int(np.ceil(len(idx) / ncols))
@@ -241,7 +307,16 @@ def model_figure(models, indices=None, max_depth=None, ncols=6, panel_width=1.8,
         ax.set_xscale("log")
         ax.set_xlim(lo, hi)
         ax.set_ylim(zmax, 0)
-        ax.set_title(str(models["station"].values[i]), fontsize=9)
+        v = verdicts[i]
+        if v is None or v["status"] == "fitted":
+            ax.set_title(str(models["station"].values[i]), fontsize=9)
+        else:   # a model that is not fitted says so over its panel
+            failure = v["status"] in ("misfit", "stalled")
+            ax.set_title(f"{models['station'].values[i]}\n{v['status']}", fontsize=8,
+                         color="#a4281b" if failure else "#8a6d00",
+                         fontweight="bold" if failure else "normal")
+            if failure:
+                ax.set_facecolor("0.88")
         if n % ncols == 0:
             ax.set_ylabel("depth (m)")
         if n // ncols == nrows - 1:

@@ -18,7 +18,6 @@ same way, and every sample deeper than the local DOI is flagged.
 """
 from __future__ import annotations
 
-import csv
 from pathlib import Path
 
 import numpy as np
@@ -325,7 +324,10 @@ def stitch_models(models, depth_step, *, order, lateral, vertical, max_depth=Non
         dims ``distance`` (columns) and ``depth`` (or ``elevation``);
         ``log10_resistivity`` (NaN below the DOI), ``log10_resistivity_full``
         (not masked), ``below_doi``, ``doi``, ``x``, ``y``, ``surface``
-        per column, and per station ``station_distance``, ``station_offset``.
+        per column, and per station ``station_distance``, ``station_offset``;
+        with verdicts in ``models``, ``verdict_code`` and ``chi2`` per column
+        and ``station_verdict_code``, ``station_verdict``, ``station_chi2``
+        (:mod:`tem.section.verdicts`).
     """
     import xarray as xr
 
@@ -403,6 +405,8 @@ def stitch_models(models, depth_step, *, order, lateral, vertical, max_depth=Non
             "model_kind": str(models.attrs.get("model_kind", "")),
         },
     )
+    from .verdicts import add_section_verdicts
+    add_section_verdicts(ds, models, idx, *_lateral_weights(s_sorted, pos, lateral, max_gap)[:3])
     return ds
 
 
@@ -536,27 +540,22 @@ def twt_to_depth(twt, table_depth, table_velocity):
 
 
 def read_line_csv(path):
-    """Polyline vertices from a CSV with columns ``x``, ``y`` (m)."""
+    """Polyline vertices from a CSV with columns ``x``, ``y`` (m).
+
+    Refused with one line naming the file and the line: non-UTF-8 bytes, NUL
+    characters, a missing column, text where a number belongs, a coordinate
+    beyond 1e8 m, fewer than two or more than 100000 vertices.
+    """
+    from ..io import checks
+
     path = Path(path)
-    if not path.is_file():
-        raise input_error("line", "file not found", path)
-    with open(path, newline="", encoding="utf-8") as fh:
-        reader = csv.DictReader(ln for ln in fh if ln.strip() and not ln.startswith("#"))
-        fields = [f.strip() for f in reader.fieldnames or []]
-        for need in ("x", "y"):
-            if need not in fields:
-                raise input_error(need, "column missing", path)
-        xs, ys = [], []
-        for k, row in enumerate(reader, start=2):
-            row = {(key or "").strip(): v for key, v in row.items()}
-            try:
-                xs.append(float(row["x"]))
-                ys.append(float(row["y"]))
-            except (TypeError, ValueError):
-                raise input_error("x", f"line {k}: not a number", path) from None
-            if not (np.isfinite(xs[-1]) and np.isfinite(ys[-1])):
-                raise input_error("x" if not np.isfinite(xs[-1]) else "y",
-                                  f"line {k}: not a finite number", path)
+    rows = checks.csv_rows(checks.read_text(path, "line"), path, ("x", "y"), field="line",
+                           max_rows=100_000)
+    lim = checks.LIMITS["coordinate"]
+    xs = [checks.number(r["x"], f"line {k}: x", path, parse_text=True, maximum=lim)
+          for k, r in rows]
+    ys = [checks.number(r["y"], f"line {k}: y", path, parse_text=True, maximum=lim)
+          for k, r in rows]
     if len(xs) < 2:
         raise input_error("line", "a polyline needs at least two vertices", path)
     return np.array(xs), np.array(ys)

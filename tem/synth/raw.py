@@ -21,8 +21,8 @@ from scipy.interpolate import PchipInterpolator
 from ..errors import input_error
 from ..forward import LayeredModel, Simulation
 from ..forward.sounding import survey_lowpass, survey_receiver, survey_source, survey_waveform
-from ..io.raw import RawHeader, write_npy_recording
-from ..survey import (COIL_COMPONENTS, Receiver, Station, Survey, Transmitter, parse_time,
+from ..io.raw import FORMATS, RawHeader, write_mseed_recording, write_npy_recording
+from ..survey import (COIL_COMPONENTS, Channel, Station, Survey, Transmitter, parse_time,
                      seconds_between)
 
 __all__ = ["NoiseSpec", "Faults", "station_transient", "synth_channel", "synth_survey",
@@ -363,7 +363,11 @@ def synth_survey(survey: Survey, models: dict, out_dir, seed: int = 0, duration:
                                full_scale=fsc, component=rx.component, station=st.id)
             path = survey.path(rx.files[0])
             path.parent.mkdir(parents=True, exist_ok=True)
-            write_npy_recording(path, counts, header)
+            if rx.format == "mseed" or (rx.format is None
+                                        and path.suffix.lower() in FORMATS["mseed"].suffixes):
+                write_mseed_recording(path, counts, header, rx.channel)
+            else:
+                write_npy_recording(path, counts, header)
         if progress is not None:
             progress(si + 1, len(survey.stations))
     return truth
@@ -390,15 +394,23 @@ def emberline_models(x=None) -> dict:
 
 
 def emberline_survey(base_dir=".", sample_rate: float = 4000.0, stations=None,
-                     current_channel: bool = True):
+                     current_channel: bool = True, raw_format: str = "npy"):
     """The Emberline Plateau survey (fictional) and its layered models.
 
     11 km east-west profile of 12 stations (EM01 west .. EM12 east) at 1 km
     spacing; a 1.5 km east-west grounded wire 800 m north of the profile
     midpoint, 40 A, bipolar with off-time (duty 0.5), 0.25 Hz; 50 Hz mains;
     Ex (100 m dipole) and dBz/dt (10 000 m^2 coil) at every station, 4 kHz.
+    ``raw_format``: ``npy`` (+ sidecar) or ``mseed`` (MiniSEED, one file per
+    channel with the channel codes of :data:`tem.io.mseed.DEFAULT_CHANNELS`).
     Returns ``(survey, models)``.
     """
+    if raw_format not in ("npy", "mseed"):
+        raise input_error("raw_format", f"unknown {raw_format!r}; valid: npy, mseed")
+    from ..io.mseed import DEFAULT_CHANNELS
+
+    ext = raw_format
+    chan = (lambda c: DEFAULT_CHANNELS[c]) if raw_format == "mseed" else (lambda c: None)
     xs = np.arange(-5500.0, 5501.0, 1000.0)
     tx = Transmitter(kind="wire", points=((-750.0, 800.0), (750.0, 800.0)), current=40.0,
                      base_frequency=0.25, duty_cycle=0.5, ramp_on=1e-3, ramp_off=5e-4,
@@ -408,13 +420,13 @@ def emberline_survey(base_dir=".", sample_rate: float = 4000.0, stations=None,
         sid = f"EM{i + 1:02d}"
         if stations is not None and sid not in stations:
             continue
-        rxs = [Receiver("ex", files=(f"raw/{sid}/ex.npy",), sample_rate=sample_rate, gain=1.0,
-                        dipole=((x - 50.0, 0.0), (x + 50.0, 0.0))),
-               Receiver("dbzdt", files=(f"raw/{sid}/dbzdt.npy",), sample_rate=sample_rate,
-                        gain=1.0, coil_area=1.0e4)]
+        rxs = [Channel("ex", files=(f"raw/{sid}/ex.{ext}",), sample_rate=sample_rate, gain=1.0,
+                        dipole=((x - 50.0, 0.0), (x + 50.0, 0.0)), channel=chan("ex")),
+               Channel("dbzdt", files=(f"raw/{sid}/dbzdt.{ext}",), sample_rate=sample_rate,
+                        gain=1.0, coil_area=1.0e4, channel=chan("dbzdt"))]
         if current_channel:
-            rxs.append(Receiver("current", files=(f"raw/{sid}/current.npy",),
-                                sample_rate=sample_rate, gain=0.01))
+            rxs.append(Channel("current", files=(f"raw/{sid}/current.{ext}",),
+                                sample_rate=sample_rate, gain=0.01, channel=chan("current")))
         sts.append(Station(id=sid, x=float(x), y=0.0, z=1100.0, epsg=0, receivers=rxs))
     survey = Survey(name="Emberline Plateau (fictional)", transmitter=tx, stations=sts,
                     mains_frequency=50.0, base_dir=Path(base_dir))

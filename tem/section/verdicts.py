@@ -1,0 +1,58 @@
+"""Verdicts on the section: per station, and per column from the stations that make it.
+
+A models file carries a verdict per station (``verdict_code``, CF flags;
+docs/inversion.md, "Verdicts"). The section grid repeats it per station
+(``station_verdict_code``, ``station_verdict``, ``station_chi2``) and gives
+every column the verdict of the stations it is interpolated from: the more
+severe of the two when a column lies between two stations with weight on
+both (misfit > stalled > parameter at a bound > degenerate layer > fitted),
+with that station's chi2. A column outside every station's reach gets the
+nearest station's verdict (its values are empty anyway).
+"""
+from __future__ import annotations
+
+import numpy as np
+
+__all__ = ["add_section_verdicts", "SEVERITY_RANK", "NOT_FITTED_CODES", "FAILURE_CODES"]
+
+#: Severity rank of each verdict code (0 fitted, 1 misfit, 2 stalled, 3 at bound,
+#: 4 degenerate layer; -1 none): higher is worse.
+SEVERITY_RANK = {-1: -1, 0: 0, 4: 1, 3: 2, 2: 3, 1: 4}
+#: Codes of models that are not fitted (anything but 0), and of failures (misfit, stalled).
+NOT_FITTED_CODES = (1, 2, 3, 4)
+FAILURE_CODES = (1, 2)
+
+
+def add_section_verdicts(ds, models, order, left, right, w):
+    """Add the verdict variables to a section grid ``ds`` (in place; a no-op without verdicts).
+
+    ``order`` sorts the models' stations by chainage; ``left``, ``right``
+    and ``w`` are the lateral interpolation of each column (indices into the
+    sorted stations and the weight of the right one).
+    """
+    if "verdict_code" not in models.variables:
+        return ds
+    attrs = {k: v for k, v in models["verdict_code"].attrs.items()
+             if k in ("flag_values", "flag_meanings", "comment")}
+    code = models["verdict_code"].values.astype(np.int8)[order]
+    text = models["verdict"].values.astype(str)[order] if "verdict" in models.variables \
+        else np.array([""] * code.size)
+    chi2 = models["chi2"].values.astype(float)[order]
+    ds["station_verdict_code"] = ("station", code, dict(attrs, long_name="verdict on the "
+                                                        "station's model"))
+    ds["station_verdict"] = ("station", text, {"long_name": "verdict on the station's model, "
+                                                "in words"})
+    ds["station_chi2"] = ("station", chi2, {"units": "1", "long_name": "final chi-square per "
+                                            "datum of the station's model"})
+    rank = np.array([SEVERITY_RANK.get(int(c), -1) for c in code])
+    use_left = (w < 0.5) if np.size(w) else np.zeros(0, bool)
+    near = np.where(use_left, left, right)
+    both = (w > 0) & (w < 1)
+    worse_right = rank[right] > rank[left]
+    worse_left = rank[left] > rank[right]
+    pick = np.where(both & worse_right, right, np.where(both & worse_left, left, near))
+    ds["verdict_code"] = ("distance", code[pick], dict(attrs, long_name="verdict on the models "
+                          "the column is made from (the more severe of two)"))
+    ds["chi2"] = ("distance", chi2[pick], {"units": "1", "long_name": "final chi-square per "
+                                           "datum of the station whose verdict the column has"})
+    return ds
