@@ -18,6 +18,17 @@ import re
 from hypothesis import settings
 from hypothesis import strategies as st
 
+# Hypothesis (6.13x) also draws numbers and strings it finds in the local modules imported so
+# far, so with derandomize=True the examples still depended on which test files a run (or an
+# xdist worker) had imported. An empty pool makes every run draw the same examples.
+try:
+    from hypothesis.internal.conjecture import providers as _providers
+
+    _NO_LOCAL_CONSTANTS = _providers.Constants()
+    _providers._get_local_constants = lambda: _NO_LOCAL_CONSTANTS
+except (ImportError, AttributeError, TypeError):      # another hypothesis version: no pool
+    pass
+
 #: Deterministic, 2000 examples per reader (issue 9); no deadline (the machine is shared).
 FUZZ = settings(max_examples=int(__import__("os").environ.get("TEM_FUZZ_EXAMPLES", 2000)), deadline=None, derandomize=True, database=None,
                 suppress_health_check=list(__import__("hypothesis").HealthCheck))
