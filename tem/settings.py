@@ -500,7 +500,8 @@ def _metavar(s: Setting) -> str:
     if s.kind == "list":
         return "LIST"
     if s.kind in ("float", "floats"):
-        return s.unit.upper().replace("-", "").replace(" ", "").replace("/", "_") or "X"
+        word = s.unit.upper().replace("-", "").replace(" ", "")
+        return word if word.isalpha() else "X"   # a unit such as 1/decade reads as X
     if s.kind == "int":
         return "N"
     if s.kind == "path":

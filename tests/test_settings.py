@@ -48,6 +48,20 @@ def test_options_are_generated_from_the_table(stage):
         assert (s.unit in a.help) or not s.unit or s.default is None or isinstance(s.default, bool)
 
 
+@pytest.mark.parametrize("stage", sorted(ALL))
+def test_option_placeholders_are_words(stage):
+    # a unit such as "1/decade" once showed as "--per-decade 1_DECADE" in --help: a placeholder
+    # is a choice list or upper-case words without an underscore (common practice, no source)
+    p = _subparser(COMMANDS[stage])
+    for a in p._actions:
+        if a.dest.startswith(f"_set_{stage}_") and a.metavar:
+            mv = a.metavar
+            assert mv.startswith("{") or ("_" not in mv and mv == mv.upper()), (a.dest, mv)
+    gate = {a.option_strings[0]: a.metavar for a in _subparser("gate")._actions
+            if a.option_strings}
+    assert gate["--per-decade"] == "X"
+
+
 @pytest.mark.parametrize("stage", sorted(TABLES))
 def test_processing_keys_are_the_table(stage):
     table = TABLES[stage]
