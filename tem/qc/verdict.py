@@ -194,8 +194,9 @@ def _channel_rules(m, med, s):
     nw = max(m.windows, 1)
     fc = m.windows_clipped / nw
     if fc >= s.clipped_check:
-        text = (f"{c} {_pct(fc)} of half-periods clipped ({m.clipped_high} samples at the "
-                f"positive rail, {m.clipped_low} at the negative)")
+        plural = "" if m.clipped_high == 1 else "s"
+        text = (f"{c} {_pct(fc)} of half-periods clipped ({m.clipped_high} sample{plural} at "
+                f"the positive rail, {m.clipped_low} at the negative)")
         if fc >= s.clipped_reoccupy:
             re.append(text + ": lower the gain")
             extra = max(extra, full) if np.isfinite(extra) else extra
