@@ -148,3 +148,17 @@ def test_reference_page_is_generated_from_the_tables():
     page = Path(__file__).resolve().parents[1] / "docs" / "settings.md"
     assert page.read_text(encoding="utf-8") == markdown(list(TABLES.values()) + [FORWARD, IMPORT]), \
         "docs/settings.md is stale: python -m tem.settings > docs/settings.md"
+
+
+def test_reference_page_rows_have_six_cells():
+    # a bare "|" in a help text (|value|) once split a row of docs/settings.md into more cells;
+    # Markdown tables end a cell at every unescaped "|" (GitHub Flavored Markdown spec, tables)
+    import re
+
+    from tem.settings import markdown
+
+    page = markdown(list(TABLES.values()) + [FORWARD, IMPORT])
+    rows = [line for line in page.splitlines() if line.startswith("| `")]
+    assert len(rows) > 50
+    for line in rows:
+        assert len(re.split(r"(?<!\\)\|", line)) == 8, line    # 6 cells between 7 bars
