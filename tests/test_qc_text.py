@@ -28,3 +28,18 @@ def test_clipping_reason_counts_samples_in_words():
                            "2 at the negative)",)
     assert two.reasons == ("ex 21 % of half-periods clipped (2 samples at the positive rail, "
                            "1 at the negative)",)
+
+
+def test_a_dead_channel_on_a_short_record_asks_for_whole_minutes():
+    # a dead Ex on a 30 s record: re-occupy with the full recording time (docs/qc.md), 0.5 min;
+    # the table once wrote "0" (rounded half to even), so a station to re-occupy read as
+    # needing nothing. Whole minutes are rounded up (common practice, no source).
+    from dataclasses import replace
+
+    from tem.qc.verdict import stations_csv_text, whole_minutes
+
+    dead = replace(_channel("EM04", 0, 0, 0), dead=True)
+    (v,) = station_verdicts([dead])
+    assert v.verdict == "reoccupy" and abs(v.extra_minutes - 0.5) < 1e-12
+    assert stations_csv_text([v]).splitlines()[1].endswith(",1")
+    assert [whole_minutes(x) for x in (0.0, 0.5, 2.0, 146.2, math.nan)] == ["0", "1", "2", "147", ""]

@@ -147,6 +147,8 @@ def verdict_table(result, console):
 
     from rich.table import Table
 
+    from ..qc.verdict import whole_minutes
+
     rows = [(sid, oc.info) for sid, oc in result.stations.items() if "qc_verdict" in oc.info]
     if not rows:
         return
@@ -159,7 +161,7 @@ def verdict_table(result, console):
     for sid, info in rows:
         v = info["qc_verdict"]
         m = info.get("extra_minutes")
-        minutes = "" if m is None or not math.isfinite(m) or not m else f"{m:.0f}"
+        minutes = "" if m is None or not math.isfinite(m) or not m else whole_minutes(m)
         t.add_row(sid, f"[{_VERDICT_COLOUR.get(v, 'white')}]{v}[/]", minutes,
                   info.get("qc_reasons", ""))
     console.print(t)
