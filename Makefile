@@ -18,7 +18,7 @@ demo: $(STAMP)
 	$(BIN)/tem demo --out demo-output
 
 test: $(STAMP)
-	MPLBACKEND=Agg $(BIN)/python -m pytest -q -n 2 -p no:cacheprovider
+	MPLBACKEND=Agg $(BIN)/python -m pytest -q -n 2 -p no:cacheprovider --durations=12
 
 bench: $(STAMP)
 	@for b in benchmarks/*.py; do MPLBACKEND=Agg $(BIN)/python $$b || exit 1; done

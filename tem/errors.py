@@ -19,10 +19,21 @@ class TemOutputError(OSError):
     """
 
 
+def _short(text: str, limit: int) -> str:
+    """One line of at most ``limit`` characters (control characters escaped)."""
+    text = "".join(c if c.isprintable() else repr(c)[1:-1] for c in str(text))
+    return text if len(text) <= limit else text[:limit - 3] + "..."
+
+
 def input_error(field: str, problem: str, file=None) -> TemInputError:
-    """Build a one-line :class:`TemInputError` naming file and field."""
+    """Build a one-line :class:`TemInputError` naming file and field.
+
+    However a field name or a problem was built from the input (a key of
+    thousands of characters, a NUL, a newline), the message stays one short
+    line: the field is cut at 80 characters and the problem at 400.
+    """
     where = f"{file}: " if file else ""
-    return TemInputError(f"{where}{field}: {problem}")
+    return TemInputError(f"{where}{_short(field, 80)}: {_short(problem, 400)}")
 
 
 def output_error(path, exc: OSError) -> TemOutputError:

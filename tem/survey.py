@@ -452,7 +452,8 @@ def _projected(doc, head):
     tx = doc.get("transmitter", {})
     if isinstance(tx, dict) and isinstance(tx.get("points"), list):
         tx["points"] = project_to(tx["points"], epsg, target, "transmitter.points").tolist()
-    for i, st in enumerate(doc.get("station", [])):
+    stations = doc.get("station", [])
+    for i, st in enumerate(stations if isinstance(stations, list) else []):
         if not isinstance(st, dict):
             continue
         if st.get("epsg", epsg) != epsg:
@@ -461,7 +462,8 @@ def _projected(doc, head):
         if "x" in st and "y" in st:
             (st["x"], st["y"]), = project_to([[st["x"], st["y"]]], epsg, target,
                                              f"station[{i}].x")
-        for j, rx in enumerate(st.get("receiver", [])):
+        receivers = st.get("receiver", [])
+        for j, rx in enumerate(receivers if isinstance(receivers, list) else []):
             if isinstance(rx, dict) and isinstance(rx.get("dipole"), list):
                 rx["dipole"] = project_to(rx["dipole"], epsg, target,
                                           f"station[{i}].receiver[{j}].dipole").tolist()

@@ -54,7 +54,7 @@ SURVEY_CASES = [
     # integers of hundreds and thousands of digits
     ('current = 40.0', f'current = {BIG}', "transmitter.current: out of range"),
     ('x = -5500.0', f'x = {HUGE}', "toml: unreadable value"),
-    ('epsg = 0', f'epsg = {BIG}', "epsg: must be >= 0 and <= 1000000"),
+    ('epsg = 0', f'epsg = {BIG}', "epsg: must be >= 1 and <= 2147483647"),
     ('format_version = 1', f'format_version = {BIG}', "survey.format_version: unsupported"),
     # NUL and control characters in ids
     ('id = "EM01"', 'id = "EM\\u000001"', "station[0].id: holds a control or NUL character"),
@@ -75,6 +75,24 @@ def test_survey_refuses(tmp_path, survey_text, old, new, field):
     assert old in survey_text, old
     p = tmp_path / "survey.toml"
     p.write_text(survey_text.replace(old, new, 1))
+    with pytest.raises(TemInputError) as exc:
+        read_survey(p)
+    _one_line(exc, p, field)
+
+
+@pytest.mark.parametrize("edit, field", [
+    (("-750.0", BIG), "transmitter.points: expected [longitude, latitude]"),
+    (("epsg = 4326", f"epsg = {BIG}"), "survey.epsg: must be >= 1 and <= 2147483647"),
+    (("projected_epsg = 32735", "projected_epsg = 4326"), "is not a projected CRS"),
+    (("[[station]]", "station = 5\n[[station_]]"), "toml"),
+])
+def test_geographic_survey_refuses(tmp_path, survey_text, edit, field):
+    pytest.importorskip("pyproj")
+    from tem.survey import read_survey
+
+    text = survey_text.replace("epsg = 0", "epsg = 4326\nprojected_epsg = 32735", 1)
+    p = tmp_path / "survey.toml"
+    p.write_text(text.replace(*edit, 1))
     with pytest.raises(TemInputError) as exc:
         read_survey(p)
     _one_line(exc, p, field)

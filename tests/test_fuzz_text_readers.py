@@ -197,3 +197,34 @@ def test_fuzz_velocity_csv(folder, data):
         assert z[0] == 0 and np.all(np.diff(z) > 0) and np.all(v > 0)
 
     _expect_input_error(read, p)
+
+
+# ---------------------------------------------------------------- tem import: decay CSV and system TOML
+def _import_files():
+    import tomllib
+
+    from test_import_bad import GOOD_CSV, GOOD_TOML
+    return GOOD_CSV.encode(), tomllib.loads(GOOD_TOML), GOOD_TOML.encode()
+
+
+IMPORT_CSV, IMPORT_DOC, IMPORT_TOML = _import_files()
+
+
+@FUZZ
+@given(data=byte_mutation(IMPORT_CSV))
+def test_fuzz_import_decay_csv(folder, data):
+    from tem.importer.csvfile import read_decays
+
+    p = folder / "decays.csv"
+    p.write_bytes(data)
+    _expect_input_error(read_decays, p)
+
+
+@FUZZ
+@given(data=st.one_of(toml_mutation(IMPORT_DOC), byte_mutation(IMPORT_TOML)))
+def test_fuzz_import_system_toml(folder, data):
+    from tem.importer.system import read_system
+
+    p = folder / "system.toml"
+    p.write_bytes(data)
+    _expect_input_error(read_system, p)

@@ -113,7 +113,7 @@ def finish(stage: str, result, out, not_fitted=None) -> int:
     """Closing lines of a stage command; exit status 1 when a station or the stage failed.
 
     ``not_fitted`` ({station: status}) names stations whose chosen model is a
-    failure (misfit, stalled): one line names them and the exit status is 1.
+    failure (misfit): one line names them and the exit status is 1.
     """
     for sid, oc in result.stations.items():
         if oc.status != "ok":

@@ -26,6 +26,7 @@ from pathlib import Path
 import numpy as np
 
 from ..errors import input_error
+from ..io.checks import label, show
 
 __all__ = ["Decays", "read_decays", "TIME_UNITS", "VALUE_UNITS", "RAW_UNITS", "COMPONENTS"]
 
@@ -74,9 +75,9 @@ def _number(text, field, where):
     try:
         v = float(text)
     except (TypeError, ValueError):
-        raise input_error(field, f"not a number: {str(text)[:30]!r}", where) from None
+        raise input_error(field, f"not a number: {show(str(text)[:30])}", where) from None
     if not math.isfinite(v):
-        raise input_error(field, f"not a finite number: {text!r}", where)
+        raise input_error(field, f"not a finite number: {show(text)}", where)
     return v
 
 
@@ -91,7 +92,8 @@ def _unit_of_column(name, header_unit, path):
         if name.startswith(base + "_"):
             u = name[len(base) + 1:]
             if u not in TIME_UNITS:
-                raise input_error(name, f"unknown time unit {u!r}; valid: {', '.join(TIME_UNITS)}",
+                raise input_error(label(name), f"unknown time unit {show(u)}; valid: "
+                                  f"{', '.join(TIME_UNITS)}",
                                   path)
             return base, TIME_UNITS[u]
     return None, None
@@ -125,7 +127,7 @@ def read_decays(path) -> Decays:
         raise input_error("columns", "no header row (station,component,...)", path)
     time_unit = header.get("time_unit")
     if time_unit is not None and time_unit not in TIME_UNITS:
-        raise input_error("time_unit", f"unknown {time_unit!r}; valid: {', '.join(TIME_UNITS)}",
+        raise input_error("time_unit", f"unknown {show(time_unit)}; valid: {', '.join(TIME_UNITS)}",
                           f"{path}:header")
     names = [c.strip().lower() for c in next(csv.reader([lines[first]]))]
     if len(set(names)) != len(names):
@@ -135,7 +137,7 @@ def read_decays(path) -> Decays:
         base, fac = _unit_of_column(n, time_unit, f"{path}:{first + 1}")
         key = base or n
         if key in cols:
-            raise input_error(n, f"column {key!r} given twice", f"{path}:{first + 1}")
+            raise input_error(label(n), f"column {show(key)} given twice", f"{path}:{first + 1}")
         cols[key] = j
         if base:
             tfac[base] = fac
@@ -167,10 +169,10 @@ def read_decays(path) -> Decays:
 
         sid, comp = cell("station"), cell("component").lower()
         if not sid or "/" in sid:
-            raise input_error("station", f"must be a non-empty name without '/', got {sid!r}",
+            raise input_error("station", f"must be a non-empty name without '/', got {show(sid)}",
                               where)
         if comp not in COMPONENTS:
-            raise input_error("component", f"unknown {comp!r}; valid: {', '.join(COMPONENTS)}",
+            raise input_error("component", f"unknown {show(comp)}; valid: {', '.join(COMPONENTS)}",
                               where)
         ustr = cell("unit") if "unit" in cols else header.get(f"unit.{comp}", header.get("unit"))
         if not ustr:
@@ -179,12 +181,12 @@ def read_decays(path) -> Decays:
         if ustr in VALUE_UNITS:
             ufac, kind = VALUE_UNITS[ustr]
             if kind != _KIND[comp]:
-                raise input_error("unit", f"{ustr!r} is not a unit of {comp}", where)
+                raise input_error("unit", f"{show(ustr)} is not a unit of {comp}", where)
             is_raw = False
         elif ustr in RAW_UNITS:
             ufac, is_raw = RAW_UNITS[ustr], True
         else:
-            raise input_error("unit", f"unknown {ustr!r}; valid: V/m/A, T/s/A, V/A/m2, T/A "
+            raise input_error("unit", f"unknown {show(ustr)}; valid: V/m/A, T/s/A, V/A/m2, T/A "
                               "(prefixes m u n p) or V (receiver volts)", where)
         if raw is not None and is_raw != raw:
             raise input_error("unit", "mixes normalised units and receiver volts", where)
@@ -208,7 +210,7 @@ def read_decays(path) -> Decays:
         if "usable" in cols:
             u = cell("usable").lower()
             if u not in _TRUE | _FALSE:
-                raise input_error("usable", f"expected 1/0, true/false or yes/no, got {u!r}", where)
+                raise input_error("usable", f"expected 1/0, true/false or yes/no, got {show(u)}", where)
             usable = u in _TRUE
         key = (sid, comp)
         tfield = "time" if sampling == "point" else "gate_open"

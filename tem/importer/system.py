@@ -44,6 +44,7 @@ from pathlib import Path
 import numpy as np
 
 from ..errors import input_error
+from ..io.checks import label, show
 from ..forward.gatewindow import SHAPES
 from ..io.tomlfile import read_toml
 
@@ -131,10 +132,13 @@ class System:
 
 def _num(v, name, file, positive=False, nonneg=False):
     if isinstance(v, bool) or not isinstance(v, (int, float)):
-        raise input_error(name, f"expected a number, got {v!r}", file)
-    v = float(v)
+        raise input_error(name, f"expected a number, got {show(v)}", file)
+    try:
+        v = float(v)
+    except OverflowError:
+        raise input_error(name, f"out of range: {show(v)}", file) from None
     if not math.isfinite(v):
-        raise input_error(name, f"must be finite, got {v!r}", file)
+        raise input_error(name, f"must be finite, got {show(v)}", file)
     if positive and v <= 0:
         raise input_error(name, f"must be positive, got {v:g}", file)
     if nonneg and v < 0:
@@ -144,7 +148,7 @@ def _num(v, name, file, positive=False, nonneg=False):
 
 def _point(p, name, file):
     if not isinstance(p, list) or len(p) != 2:
-        raise input_error(name, f"expected [x, y] in metres, got {p!r}", file)
+        raise input_error(name, f"expected [x, y] in metres, got {show(p)}", file)
     return (_num(p[0], name, file), _num(p[1], name, file))
 
 
@@ -153,11 +157,11 @@ def _table(d, name, allowed, file, required=()):
         raise input_error(name, "expected a table", file)
     for k in d:
         if k not in allowed:
-            raise input_error(f"{name}.{k}" if name else k,
+            raise input_error(f"{name}.{label(k)}" if name else label(k),
                               f"unknown key; valid: {', '.join(sorted(allowed))}", file)
     for k in required:
         if k not in d:
-            raise input_error(f"{name}.{k}" if name else k, "missing", file)
+            raise input_error(f"{name}.{label(k)}" if name else label(k), "missing", file)
     return d
 
 
@@ -165,11 +169,11 @@ def _waveform(w, file):
     _table(w, "waveform", _WF, file, ("kind",))
     kind = w["kind"]
     if kind not in WAVEFORM_KINDS:
-        raise input_error("waveform.kind", f"unknown {kind!r}; valid: {', '.join(WAVEFORM_KINDS)}",
+        raise input_error("waveform.kind", f"unknown {show(kind)}; valid: {', '.join(WAVEFORM_KINDS)}",
                           file)
     tz = w.get("time_zero", "ramp-end")
     if tz not in TIME_ZEROS:
-        raise input_error("waveform.time_zero", f"unknown {tz!r}; valid: {', '.join(TIME_ZEROS)}",
+        raise input_error("waveform.time_zero", f"unknown {show(tz)}; valid: {', '.join(TIME_ZEROS)}",
                           file)
     own = {"bipolar": {"base_frequency", "duty_cycle", "ramp_on", "ramp_off", "time_zero"},
            "table": {"times", "current", "half_period"}}.get(kind, {"time_zero"})
@@ -223,7 +227,7 @@ def _station(s, i, normalised, file):
            ("id", "x", "y"))
     sid = s["id"]
     if not isinstance(sid, str) or not sid or "/" in sid:
-        raise input_error(f"{name}.id", f"must be a non-empty name without '/', got {sid!r}", file)
+        raise input_error(f"{name}.id", f"must be a non-empty name without '/', got {show(sid)}", file)
     x, y = (_num(s[k], f"{name}.{k}", file) for k in ("x", "y"))
     z = _num(s.get("z", 0.0), f"{name}.z", file)
     out = {}
@@ -301,7 +305,7 @@ def read_system(path) -> System:
     tx = _table(d["transmitter"], "transmitter", _TX, path, ("kind", "points", "current"))
     kind = tx["kind"]
     if kind not in ("wire", "loop"):
-        raise input_error("transmitter.kind", f"unknown {kind!r}; valid: wire, loop", path)
+        raise input_error("transmitter.kind", f"unknown {show(kind)}; valid: wire, loop", path)
     if not isinstance(tx["points"], list):
         raise input_error("transmitter.points", "expected a list of [x, y] (m)", path)
     pts = tuple(_point(p, "transmitter.points", path) for p in tx["points"])
@@ -314,11 +318,11 @@ def read_system(path) -> System:
     rx = _table(d.get("receiver", {}), "receiver", _RX, path)
     normalised = rx.get("normalised", True)
     if not isinstance(normalised, bool):
-        raise input_error("receiver.normalised", f"expected true or false, got {normalised!r}",
+        raise input_error("receiver.normalised", f"expected true or false, got {show(normalised)}",
                           path)
     order = rx.get("lowpass_order", 0)
     if isinstance(order, bool) or not isinstance(order, int) or not 0 <= order <= 8:
-        raise input_error("receiver.lowpass_order", f"expected a whole number 0..8, got {order!r}",
+        raise input_error("receiver.lowpass_order", f"expected a whole number 0..8, got {show(order)}",
                           path)
     cutoff = _num(rx.get("lowpass_cutoff", 0.0), "receiver.lowpass_cutoff", path, nonneg=True)
     if order > 0 and cutoff <= 0:
@@ -326,11 +330,11 @@ def read_system(path) -> System:
                           path)
     shape = rx.get("gate_shape", "boxcar")
     if shape not in SHAPES:
-        raise input_error("receiver.gate_shape", f"unknown {shape!r}; valid: {', '.join(SHAPES)}",
+        raise input_error("receiver.gate_shape", f"unknown {show(shape)}; valid: {', '.join(SHAPES)}",
                           path)
     epsg = d.get("epsg", 0)
     if isinstance(epsg, bool) or not isinstance(epsg, int) or epsg < 0:
-        raise input_error("epsg", f"expected a whole EPSG code, got {epsg!r}", path)
+        raise input_error("epsg", f"expected a whole EPSG code, got {show(epsg)}", path)
     if not isinstance(d["station"], list) or not d["station"]:
         raise input_error("station", "expected one or more [[station]] tables", path)
     stations = {}

@@ -29,7 +29,10 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
+from ..errors import TemInputError
+
 __all__ = [
+    "prior_terms",
     "Prior",
     "LMResult",
     "FewLayerResult",
@@ -227,6 +230,35 @@ def _split(p, n):
     return np.exp(p[: n + 1]), np.exp(p[n + 1:])
 
 
+def prior_terms(priors, n, p0):
+    """Fixed parameters and soft terms of ``priors`` for a model of ``n`` thicknesses.
+
+    ``p0`` is the ln parameter vector (ln rho_0..n, ln h_0..n-1); a prior
+    without ``std`` fixes its parameter there (in place). Returns ``(free,
+    soft)``: the mask of free parameters and the soft terms ``(kind, index or
+    layer, ln value or depth, sigma)``.
+    """
+    free = np.ones(p0.size, bool)
+    soft = []
+    for pr in priors:
+        if pr.kind == "depth":
+            if not 1 <= pr.layer <= n:
+                raise TemInputError(f"prior depth: layer must be 1..{n}, got {pr.layer}")
+            sig = pr.std if pr.std is not None else 1e-3 * pr.value
+            soft.append(("depth", pr.layer, pr.value, sig))
+            continue
+        k = pr.layer if pr.kind == "resistivity" else n + 1 + pr.layer
+        top = n if pr.kind == "resistivity" else n - 1
+        if not 0 <= pr.layer <= top:
+            raise TemInputError(f"prior {pr.kind}: layer must be 0..{top}, got {pr.layer}")
+        if pr.std is None:
+            free[k] = False
+            p0[k] = np.log(pr.value)
+        else:
+            soft.append((pr.kind, k, np.log(pr.value), pr.std))
+    return free, soft
+
+
 def fewlayer_inversion(layer_fwd, d_obs, std, resistivity0, thickness0, *, priors=(),
                        res_bounds=(0.1, 1e5), thk_bounds=(1.0, 2e4), max_iter=50,
                        callback=None, layer_predict=None) -> FewLayerResult:
@@ -260,24 +292,7 @@ def fewlayer_inversion(layer_fwd, d_obs, std, resistivity0, thickness0, *, prior
     lo = np.concatenate([np.full(n + 1, np.log(res_bounds[0])), np.full(n, np.log(thk_bounds[0]))])
     hi = np.concatenate([np.full(n + 1, np.log(res_bounds[1])), np.full(n, np.log(thk_bounds[1]))])
 
-    free = np.ones(P, bool)
-    soft = []   # (kind, layer, ln value or depth, sigma)
-    for pr in priors:
-        if pr.kind == "depth":
-            if not 1 <= pr.layer <= n:
-                raise ValueError(f"prior depth: layer must be 1..{n}, got {pr.layer}")
-            sig = pr.std if pr.std is not None else 1e-3 * pr.value
-            soft.append(("depth", pr.layer, pr.value, sig))
-            continue
-        k = pr.layer if pr.kind == "resistivity" else n + 1 + pr.layer
-        top = n if pr.kind == "resistivity" else n - 1
-        if not 0 <= pr.layer <= top:
-            raise ValueError(f"prior {pr.kind}: layer must be 0..{top}, got {pr.layer}")
-        if pr.std is None:
-            free[k] = False
-            p0[k] = np.log(pr.value)
-        else:
-            soft.append((pr.kind, k, np.log(pr.value), pr.std))
+    free, soft = prior_terms(priors, n, p0)
     # start consistent with depth priors: rescale thicknesses above each prior depth
     for kind, layer, val, _ in soft:
         if kind == "depth":

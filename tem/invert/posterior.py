@@ -36,6 +36,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from .diagnostics import summary
+from .fewlayer import prior_terms
 from .mcmc import adaptive_metropolis, regularised_covariance
 
 __all__ = ["RES_BOUNDS", "THK_BOUNDS", "PosteriorResult", "LayeredPosterior", "sample_posterior",
@@ -67,26 +68,8 @@ class LayeredPosterior:
         self.w = 1.0 / np.asarray(std, float)
         n = n_layers - 1
         self.n = n
-        P = 2 * n + 1
-        self.free = np.ones(P, bool)
-        self.soft = []
         p0 = np.array(p_fixed, float)
-        for pr in priors:
-            if pr.kind == "depth":
-                if not 1 <= pr.layer <= n:
-                    raise ValueError(f"prior depth: layer must be 1..{n}, got {pr.layer}")
-                self.soft.append(("depth", pr.layer, pr.value,
-                                  pr.std if pr.std is not None else 1e-3 * pr.value))
-                continue
-            k = pr.layer if pr.kind == "resistivity" else n + 1 + pr.layer
-            top = n if pr.kind == "resistivity" else n - 1
-            if not 0 <= pr.layer <= top:
-                raise ValueError(f"prior {pr.kind}: layer must be 0..{top}, got {pr.layer}")
-            if pr.std is None:
-                self.free[k] = False
-                p0[k] = np.log(pr.value)
-            else:
-                self.soft.append((pr.kind, k, np.log(pr.value), pr.std))
+        self.free, self.soft = prior_terms(priors, n, p0)
         self.p_fixed = p0
         self.fi = np.flatnonzero(self.free)
         lo = np.concatenate([np.full(n + 1, np.log(RES_BOUNDS[0])), np.full(n, np.log(THK_BOUNDS[0]))])

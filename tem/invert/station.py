@@ -306,7 +306,10 @@ def invert_station(sd, settings: InversionSettings = InversionSettings(), callba
         out.few["verdict"] = few_verdict(settings, out.few, sd.d_obs.size)
     if settings.kind == "posterior":
         from .posterior import posterior_station, restarted_fit
-        out.few = restarted_fit(sd, settings, out.few, res.m, h, doi)
+        refit = restarted_fit(sd, settings, out.few, res.m, h, doi)
+        if refit is not out.few:
+            refit["verdict"] = few_verdict(settings, refit, sd.d_obs.size)
+            out.few = refit
         out.posterior = posterior_station(sd, settings, out.few)
     return out
 

@@ -54,10 +54,12 @@ __all__ = ["Verdict", "STATUSES", "CODES", "FAILURES", "WARNINGS", "judge", "tol
 #: Status names in code order (code = index): the flag values of the products.
 STATUSES = ("fitted", "misfit", "stalled", "parameter-at-bound", "degenerate-layer")
 CODES = {s: i for i, s in enumerate(STATUSES)}
-#: Statuses that fail a station (exit status 1).
-FAILURES = ("misfit", "stalled")
-#: Statuses that mark a model but leave the exit status alone.
-WARNINGS = ("parameter-at-bound", "degenerate-layer")
+#: Statuses that fail a station (exit status 1): the model does not explain the data.
+FAILURES = ("misfit",)
+#: Statuses that mark a model but leave the exit status alone: the data are fitted
+#: within the tolerance, but the optimiser stopped early (stalled), a value is a limit
+#: (at a bound) or a layer is not individually resolved (degenerate).
+WARNINGS = ("stalled", "parameter-at-bound", "degenerate-layer")
 #: Severity order when several statuses apply (first wins).
 SEVERITY = ("misfit", "stalled", "parameter-at-bound", "degenerate-layer")
 

@@ -19,7 +19,7 @@ import numpy as np
 
 from ..errors import TemInputError, input_error
 
-__all__ = ["LIMITS", "show", "number", "integer", "text", "table", "array", "point",
+__all__ = ["LIMITS", "show", "label", "number", "integer", "text", "table", "array", "point",
            "read_text", "csv_rows", "finite_array", "npy_header", "open_netcdf", "variable",
            "attr_number", "MAX_TEXT_BYTES", "MAX_ELEMENTS"]
 
@@ -61,6 +61,11 @@ def show(value, n: int = 40) -> str:
         r = f"<{type(value).__name__}>"
     r = r.replace("\n", "\\n").replace("\r", "\\r")
     return r if len(r) <= n else r[:n - 3] + "..."
+
+
+def label(key) -> str:
+    """A key as typed when it is short printable text, else :func:`show` of it."""
+    return key if isinstance(key, str) and len(key) <= 40 and key.isprintable() else show(key)
 
 
 def _kind(value) -> str:

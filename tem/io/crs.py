@@ -21,10 +21,13 @@ def crs_of(code, field="epsg", file=None):
     from pyproj import CRS
     from pyproj.exceptions import CRSError
 
+    from .checks import integer, show
+
     if isinstance(code, bool) or not isinstance(code, (int, np.integer)) or code <= 0:
-        raise input_error(field, f"expected a positive whole EPSG code, got {code!r}", file)
+        raise input_error(field, f"expected a positive whole EPSG code, got {show(code)}", file)
+    code = integer(code, field, file, minimum=1, maximum=2**31 - 1)   # before pyproj sees it
     try:
-        return CRS.from_epsg(int(code))
+        return CRS.from_epsg(code)
     except CRSError:
         raise input_error(field, f"unknown EPSG code {code}", file) from None
 
@@ -66,7 +69,7 @@ def project_to(lonlat, src, dst, what="coordinates", file=None):
     """
     try:
         pts = np.asarray(lonlat, float).reshape(-1, 2)
-    except (TypeError, ValueError):
+    except (TypeError, ValueError, OverflowError):
         raise input_error(what, "expected [longitude, latitude] numbers (degrees)", file) from None
     lon, lat = pts[:, 0], pts[:, 1]
     if np.any(np.abs(lat) > 90) or np.any(np.abs(lon) > 180):

@@ -9,9 +9,10 @@ from .runner import STATION_STAGES
 __all__ = ["summary_table"]
 
 _VERDICT_COLOUR = {"good": "green", "check": "yellow", "reoccupy": "bold red",
-                   "fitted": "green", "misfit": "bold red", "stalled": "bold red",
+                   "fitted": "green", "misfit": "bold red", "stalled": "yellow",
                    "parameter-at-bound": "yellow", "degenerate-layer": "yellow"}
-#: Model verdicts that fail a station (docs/inversion.md, "Verdicts").
+#: Model verdicts never shown as "ok" in the stages column (docs/inversion.md,
+#: "Verdicts"): misfit fails the station; stalled is a warning, but not an ok.
 _FAILURES = ("misfit", "stalled")
 
 
@@ -28,7 +29,8 @@ def _stages_cell(state, sid):
         return f"[red]failed {failed[0]}[/]"
     verdict = state.get("stations", {}).get(sid, {}).get("verdict")
     if ran and verdict in _FAILURES:       # never "ok" for a model that does not fit
-        return f"[bold red]{verdict}[/] to {ran[-1][0]}"
+        colour = "bold red" if verdict == "misfit" else "yellow"
+        return f"[{colour}]{verdict}[/] to {ran[-1][0]}"
     return f"[green]ok[/] to {ran[-1][0]}" if ran else "[dim]-[/]"
 
 

@@ -77,7 +77,7 @@ def posterior_section_figure(models, settings, title=None):
         ax.set_ylim(ye[-1], ye[0])
         ax.set_ylabel("depth below surface (m)")
     ax1.legend(fontsize=7, loc="lower left")
-    ax1.set_title(title or "posterior P50 resistivity (few-layer models)")
+    ax1.set_title(title or "posterior P50 resistivity (few-layer models)", pad=14)
     ax2.set_title("posterior spread: log10(P90 / P10) of resistivity")
     ax2.set_xlabel(f"distance along profile ({unit})")
     for s, x in zip(g50["station"].values.astype(str)[order], sd):
