@@ -500,7 +500,8 @@ def _metavar(s: Setting) -> str:
     if s.kind == "list":
         return "LIST"
     if s.kind in ("float", "floats"):
-        return s.unit.upper().replace("-", "").replace(" ", "").replace("/", "_") or "X"
+        word = s.unit.upper().replace("-", "").replace(" ", "")
+        return word if word.isalpha() else "X"   # a unit such as 1/decade reads as X
     if s.kind == "int":
         return "N"
     if s.kind == "path":
@@ -551,8 +552,10 @@ def markdown(tables) -> str:
              "Generated from the settings tables (`tem/<stage>/settings.py`) by",
              "`python -m tem.settings > docs/settings.md`; a test keeps this page in step with",
              "the code. Each setting is a key of the survey's `[processing.<stage>]` table",
-             "(`tem run`), an option of the stage's command (`--name-with-dashes`) and a field",
-             "of the stage's settings class in the library.", ""]
+             "(`tem run`, `tem evening`; `--set STAGE.KEY=VALUE`), an option of the stage's",
+             "command (`--name-with-dashes`) and a field of the stage's settings class in the",
+             "library. The `qc` settings are options of `tem gate`; `forward` and `import`",
+             "are commands only (`tem forward`, `tem import`), not `[processing]` tables.", ""]
     for t in tables:
         lines += [f"## `{t.stage}` ({t.cls.__name__})", "",
                   "| key | option | default | unit | meaning | source of the default |",
@@ -571,8 +574,9 @@ def markdown(tables) -> str:
                 meaning = f"{s.help} (one of: {', '.join(map(str, s.choices))})"
             else:
                 meaning = s.help
-            lines.append(f"| `{s.name}` | `{s.flag}` | {dtext} | {s.unit} | {meaning} | "
-                         f"{s.source} |")
+            cells = (f"`{s.name}`", f"`{s.flag}`", dtext, s.unit, meaning, s.source)
+            # a "|" inside a cell (e.g. |value|) would end the cell: escape it
+            lines.append("| " + " | ".join(str(c).replace("|", "\\|") for c in cells) + " |")
         lines.append("")
     return "\n".join(lines)
 

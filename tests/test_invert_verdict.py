@@ -298,3 +298,14 @@ def test_segy_verdict_word():
     code, chi = verdict_of_field(verdict_field(-1, float("nan")))
     assert code == -1 and math.isnan(chi)
     assert verdict_field(-1, float("nan")) == -1                       # 0xFFFFFFFF
+
+
+def test_run_exit_status_counts_only_failures():
+    # tem run's closing line and exit status (tem.pipeline.runner.not_fitted) once still
+    # counted "stalled" after it became a warning (docs/pipeline.md, "Exit status")
+    from tem.pipeline.runner import not_fitted
+
+    state = {"stations": {"EM01": {"verdict": "fitted"}, "EM02": {"verdict": "stalled"},
+                          "EM03": {"verdict": "misfit"}, "EM04": {"verdict": "degenerate-layer"},
+                          "EM05": {"verdict": "misfit", "failed_stage": "invert"}}}
+    assert not_fitted(state) == {"EM03": "misfit"}

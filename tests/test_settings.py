@@ -48,6 +48,20 @@ def test_options_are_generated_from_the_table(stage):
         assert (s.unit in a.help) or not s.unit or s.default is None or isinstance(s.default, bool)
 
 
+@pytest.mark.parametrize("stage", sorted(ALL))
+def test_option_placeholders_are_words(stage):
+    # a unit such as "1/decade" once showed as "--per-decade 1_DECADE" in --help: a placeholder
+    # is a choice list or upper-case words without an underscore (common practice, no source)
+    p = _subparser(COMMANDS[stage])
+    for a in p._actions:
+        if a.dest.startswith(f"_set_{stage}_") and a.metavar:
+            mv = a.metavar
+            assert mv.startswith("{") or ("_" not in mv and mv == mv.upper()), (a.dest, mv)
+    gate = {a.option_strings[0]: a.metavar for a in _subparser("gate")._actions
+            if a.option_strings}
+    assert gate["--per-decade"] == "X"
+
+
 @pytest.mark.parametrize("stage", sorted(TABLES))
 def test_processing_keys_are_the_table(stage):
     table = TABLES[stage]
@@ -134,3 +148,17 @@ def test_reference_page_is_generated_from_the_tables():
     page = Path(__file__).resolve().parents[1] / "docs" / "settings.md"
     assert page.read_text(encoding="utf-8") == markdown(list(TABLES.values()) + [FORWARD, IMPORT]), \
         "docs/settings.md is stale: python -m tem.settings > docs/settings.md"
+
+
+def test_reference_page_rows_have_six_cells():
+    # a bare "|" in a help text (|value|) once split a row of docs/settings.md into more cells;
+    # Markdown tables end a cell at every unescaped "|" (GitHub Flavored Markdown spec, tables)
+    import re
+
+    from tem.settings import markdown
+
+    page = markdown(list(TABLES.values()) + [FORWARD, IMPORT])
+    rows = [line for line in page.splitlines() if line.startswith("| `")]
+    assert len(rows) > 50
+    for line in rows:
+        assert len(re.split(r"(?<!\\)\|", line)) == 8, line    # 6 cells between 7 bars

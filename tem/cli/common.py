@@ -113,7 +113,7 @@ def finish(stage: str, result, out, not_fitted=None) -> int:
     """Closing lines of a stage command; exit status 1 when a station or the stage failed.
 
     ``not_fitted`` ({station: status}) names stations whose chosen model is a
-    failure (misfit, stalled): one line names them and the exit status is 1.
+    failure (misfit): one line names them and the exit status is 1.
     """
     for sid, oc in result.stations.items():
         if oc.status != "ok":
@@ -147,6 +147,8 @@ def verdict_table(result, console):
 
     from rich.table import Table
 
+    from ..qc.verdict import whole_minutes
+
     rows = [(sid, oc.info) for sid, oc in result.stations.items() if "qc_verdict" in oc.info]
     if not rows:
         return
@@ -159,7 +161,7 @@ def verdict_table(result, console):
     for sid, info in rows:
         v = info["qc_verdict"]
         m = info.get("extra_minutes")
-        minutes = "" if m is None or not math.isfinite(m) or not m else f"{m:.0f}"
+        minutes = "" if m is None or not math.isfinite(m) or not m else whole_minutes(m)
         t.add_row(sid, f"[{_VERDICT_COLOUR.get(v, 'white')}]{v}[/]", minutes,
                   info.get("qc_reasons", ""))
     console.print(t)

@@ -12,7 +12,9 @@ def add_parser(sub):
     p = sub.add_parser("invert", help=HELP, description="Invert gated soundings (one netCDF per "
                        "station) into layered resistivity models with depth of investigation "
                        "and uncertainty. Writes OUT/models/models.nc, models.csv, fit.csv and "
-                       "OUT/figures/stations/<station>_fit.png.")
+                       "OUT/figures/stations/<station>_fit.png. Exit status 1 if a station failed or "
+                       "its chosen model is not fitted (misfit; every product is "
+                       "still written), 2 on bad input.")
     p.add_argument("gated", nargs="+", help="gated-sounding files, or folders of them")
     common.add_out(p)
     common.add_run_options(p)

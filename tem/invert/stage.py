@@ -69,7 +69,7 @@ def verdict_info(r, kind) -> dict:
 
 
 def not_fitted(result: StageResult) -> dict:
-    """{station: verdict status} of the stations whose chosen model is a failure (misfit, stalled)."""
+    """{station: verdict status} of the stations whose chosen model is a failure (misfit)."""
     from .verdict import FAILURES
 
     return {sid: oc.info["verdict"] for sid, oc in result.stations.items()

@@ -111,9 +111,12 @@ def _ok(state, survey):
 
 
 def not_fitted(state) -> dict:
-    """{station: verdict} of the stations whose chosen model is a failure (misfit, stalled)."""
+    """{station: verdict} of the stations whose chosen model is a failure (docs/inversion.md,
+    "Verdicts": a misfit; a stalled model is a warning and leaves the exit status at 0)."""
+    from ..invert.verdict import FAILURES
+
     return {sid: s["verdict"] for sid, s in state.get("stations", {}).items()
-            if "failed_stage" not in s and s.get("verdict") in ("misfit", "stalled")}
+            if "failed_stage" not in s and s.get("verdict") in FAILURES}
 
 
 def _station_summary(state, survey):

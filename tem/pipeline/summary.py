@@ -3,6 +3,7 @@ from __future__ import annotations
 
 import math
 
+from ..qc.verdict import whole_minutes
 from .runner import STATION_STAGES
 
 __all__ = ["summary_table"]
@@ -55,7 +56,7 @@ def summary_table(state, title=None):
         verdict = s.get("qc_verdict", "")
         qc = f"[{_VERDICT_COLOUR.get(verdict, 'white')}]{verdict}[/]" if verdict else "-"
         minutes = s.get("extra_minutes")
-        minutes = f"{minutes:.0f}" if _finite(minutes) and minutes > 0 else ""
+        minutes = whole_minutes(minutes) if _finite(minutes) and minutes > 0 else ""
         chi2 = f"{s['chi2']:.2f}" if _finite(s.get("chi2")) else "-"
         doi = f"{s['doi']:.0f}" if _finite(s.get("doi")) else "-"
         fit = s.get("verdict", "")

@@ -155,6 +155,14 @@ def _pct(x):
     return f"{100.0 * x:.0f} %" if x >= 0.1 else f"{100.0 * x:.1f} %"
 
 
+def whole_minutes(minutes) -> str:
+    """Extra recording time as text in whole minutes, rounded up (a station to re-occupy
+    never reads 0; 0.5 min is "1"); "" when not finite, "0" when nothing is needed."""
+    if minutes is None or not np.isfinite(minutes):
+        return ""
+    return str(math.ceil(round(float(minutes), 6))) if minutes > 0 else "0"
+
+
 def _extra_for_noise(m, ratio, s):
     """(minutes to add, slope used, how) for a noise ratio ``ratio`` > 1."""
     slope = m.noise_slope
@@ -181,7 +189,8 @@ def _channel_rules(m, med, s):
         r = m.noise_floor / noise_med
         if r >= s.noise_ratio:
             minutes, how = _extra_for_noise(m, r, s)
-            tail = f"{minutes:.0f} min more to reach the median" if np.isfinite(minutes) else ""
+            tail = f"{whole_minutes(minutes)} min more to reach the median" \
+                if np.isfinite(minutes) else ""
             re.append(f"{c} noise floor {r:.1f}x the {label} median ({m.noise_floor:.2g} against "
                       f"{noise_med:.2g} {m.unit}); {how}" + (f": {tail}" if tail else ""))
             extra = max(extra, minutes) if np.isfinite(minutes) else float("nan")
@@ -194,8 +203,9 @@ def _channel_rules(m, med, s):
     nw = max(m.windows, 1)
     fc = m.windows_clipped / nw
     if fc >= s.clipped_check:
-        text = (f"{c} {_pct(fc)} of half-periods clipped ({m.clipped_high} samples at the "
-                f"positive rail, {m.clipped_low} at the negative)")
+        plural = "" if m.clipped_high == 1 else "s"
+        text = (f"{c} {_pct(fc)} of half-periods clipped ({m.clipped_high} sample{plural} at "
+                f"the positive rail, {m.clipped_low} at the negative)")
         if fc >= s.clipped_reoccupy:
             re.append(text + ": lower the gain")
             extra = max(extra, full) if np.isfinite(extra) else extra
@@ -275,7 +285,7 @@ def stations_csv_text(verdicts) -> str:
     w = csv.writer(buf, lineterminator="\n")
     w.writerow(["station", "verdict", "reasons", "extra_minutes"])
     for v in verdicts:
-        minutes = "" if not np.isfinite(v.extra_minutes) else f"{v.extra_minutes:.0f}"
+        minutes = whole_minutes(v.extra_minutes)
         w.writerow([v.station, v.verdict, "; ".join(v.reasons), minutes])
     return buf.getvalue()
 
