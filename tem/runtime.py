@@ -38,6 +38,7 @@ class StationOutcome:
     info: dict = field(default_factory=dict)
     payload: object = None
     products: list = field(default_factory=list)  # [(path, bytes)]: written by the parent
+    bad_input: bool = False     # failed on an input the user gave (a TemInputError): exit 2
 
 
 @dataclass
@@ -54,6 +55,11 @@ class StageResult:
     def ok(self) -> list:
         """Ids of the stations that passed."""
         return [s for s, oc in self.stations.items() if oc.status == "ok"]
+
+    @property
+    def bad_input(self) -> bool:
+        """A station failed on an input the user gave (one line, exit status 2)."""
+        return any(oc.bad_input for oc in self.stations.values())
 
     @property
     def any_failed(self) -> bool:
@@ -151,7 +157,7 @@ def _guarded(task, station, args, reporter=None):
     except TemOutputError:
         raise
     except TemInputError as exc:
-        return StationOutcome(station, "failed", str(exc).splitlines()[0])
+        return StationOutcome(station, "failed", str(exc).splitlines()[0], bad_input=True)
     except Exception as exc:  # noqa: BLE001 - one station must not stop the batch
         text = f"{type(exc).__name__}: {exc}".splitlines()[0]
         return StationOutcome(station, "failed", text)

@@ -241,7 +241,7 @@ def test_bad_recording_fails_its_station_in_one_line(tmp_path, capsys):
     rc = main(["stack", str(survey), "--out", str(tmp_path / "o"), "--no-figures",
                "--no-progress", "--jobs", "1"])
     err = [ln for ln in capsys.readouterr().err.splitlines() if ln.strip()]
-    assert rc == 1 and (tmp_path / "o" / "stacked" / "EM05.nc").is_file(), err
+    assert rc == 2 and (tmp_path / "o" / "stacked" / "EM05.nc").is_file(), err  # bad input: 2
     line = [ln for ln in err if "EM06" in ln]
     assert len(line) == 1 and f"{bad}: npy header: unreadable" in line[0], err
 

@@ -33,7 +33,7 @@ def test_invert_command_few_layer_with_a_bad_station(gated_folder, tmp_path, cap
     rc = main(["invert", str(gated_folder), "--out", str(out), "--kind", "few-layer",
                "--few-layers", "4", "--layers", "30", "--jobs", "2"])
     err = " ".join(capsys.readouterr().err.split())
-    assert rc == 1                                    # one station failed
+    assert rc == 2                                    # one station's file refused (bad input)
     assert "station BAD failed" in err and "BAD.nc: error: all standard errors of usable gates " \
         "are zero" in err
     ds = read_models(out / "models" / "models.nc")
@@ -69,7 +69,7 @@ def test_invert_command_lci(gated_folder, tmp_path, capsys):
     out = tmp_path / "lci"
     rc = main(["invert", str(gated_folder), "--out", str(out), "--lci", "--no-figures"])
     err = " ".join(capsys.readouterr().err.split())
-    assert rc == 1 and "BAD.nc" in err                # reported, the rest inverted jointly
+    assert rc == 2 and "BAD.nc" in err                # refused, the rest inverted jointly
     ds = read_models(out / "models" / "models_lci.nc")
     assert ds.attrs["model_kind"] == "lci"
     assert list(ds["station"].values) == ["E0", "E1"]     # profile order (west to east)

@@ -102,7 +102,7 @@ def test_a_wrong_channel_is_one_line_through_the_stack_command(two_days, tmp_pat
     rc = main(["stack", str(root / "mseed" / "wrong.toml"), "--out", str(tmp_path / "o"),
                "--jobs", "1", "--no-progress", "--no-figures"])
     err = capsys.readouterr().err
-    assert rc == 1                       # the station fails, the stage reports it
+    assert rc == 2                       # the station fails on bad input, the stage reports it
     assert "dbzdt.mseed: channel: no channel 'HHZ' in the records; found XX.EM05..HFZ" in err
     assert "Traceback" not in err
     lines = [ln for ln in err.splitlines() if "HHZ" in ln]

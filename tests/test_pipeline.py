@@ -177,7 +177,7 @@ def test_run_end_to_end(tmp_path, capsys):
     proj = tmp_path / "project"
     status = main(["run", str(survey), "--out", str(proj), "--jobs", "2", "--no-progress"])
     out = capsys.readouterr()
-    assert status == 1, out.err                 # one station failed, the others completed
+    assert status == 2, out.err                 # one station's recording refused, the others completed
     state = json.loads((proj / "run.json").read_text())
     st = state["stations"]
     assert st[CORRUPT]["failed_stage"] == "stack" and "dbzdt.npy" in st[CORRUPT]["message"]
@@ -209,7 +209,7 @@ def test_run_end_to_end(tmp_path, capsys):
     status = main(["run", str(survey), "--out", str(proj), "--from", "invert", "--jobs", "1",
                    "--no-progress", "--set", "invert.lci=true", "--set", "invert.layers=10",
                    "--set", "export.models=lci"])
-    assert status == 1                          # the corrupt station still has no model
+    assert status == 2                          # the corrupt station still has no model
     assert _mtimes(proj, ["stacked", "gated", "rhoa"]) == early
     assert all(p.stat().st_mtime_ns > t for p, t in late.items())
     state2 = json.loads((proj / "run.json").read_text())

@@ -483,7 +483,7 @@ def test_cli_rhoa_writes_table_files_and_figures(tmp_path, capsys):
     out = tmp_path / "rhoa"
     code = main(["rhoa", str(gated), "--out", str(out), "--rho-per-decade", "8",
                  "--section-axis", "depth"])
-    assert code == 1  # one station failed, the others processed
+    assert code == 2  # one station's file refused (bad input), the others processed
     with open(out / "rhoa" / "rhoa.csv", newline="") as fh:
         rows = list(csv.DictReader(fh))
     assert len(rows) == 3 * 2 * 16
@@ -500,7 +500,7 @@ def test_cli_rhoa_writes_table_files_and_figures(tmp_path, capsys):
     long.write_text("not a netCDF file")
     capsys.readouterr()
     assert main(["rhoa", str(long), "--out", str(tmp_path / "r2"), "--no-all-time",
-                 "--no-figures"]) == 1
+                 "--no-figures"]) == 2
     err = [ln for ln in capsys.readouterr().err.splitlines() if ln.strip()]
     assert err[0].startswith("tem rhoa: station a_station") and len(err[0]) > 120
     assert err[1] == "tem rhoa: no station could be converted to apparent resistivity"
@@ -584,6 +584,6 @@ def test_cli_rhoa_all_stations_failing_writes_no_table(tmp_path, capsys):
         src / "EM01.nc", engine="h5netcdf")
     rc = main(["rhoa", str(src), "--out", str(tmp_path / "out"), "--no-all-time", "--no-figures"])
     err = capsys.readouterr().err
-    assert rc == 1
+    assert rc == 2
     assert "tem_format" in err
     assert not (tmp_path / "out" / "rhoa" / "rhoa.csv").exists()

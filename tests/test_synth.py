@@ -130,7 +130,7 @@ def test_bad_input_one_station_fails_others_processed(day, tmp_path, capsys, kin
     rc = main(["stack", str(d / "survey.toml"), "--out", str(tmp_path / "out"),
                "--estimator", "mean", "--no-figures"])
     err = capsys.readouterr().err
-    assert rc == 1
+    assert rc == 2
     lines = [ln for ln in err.splitlines() if "failed" in ln]
     assert any(fname in ln and field in ln for ln in lines), err
     if kind != "outside":

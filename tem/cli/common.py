@@ -112,6 +112,9 @@ def stage_context(args, stage: str, total: int):
 def finish(stage: str, result, out, not_fitted=None) -> int:
     """Closing lines of a stage command; exit status 1 when a station or the stage failed.
 
+    Exit status 2 when a station failed on a bad input file (the other stations
+    are still done and written).
+
     ``not_fitted`` ({station: status}) names stations whose chosen model is a
     failure (misfit): one line names them and the exit status is 1.
     """
@@ -129,6 +132,8 @@ def finish(stage: str, result, out, not_fitted=None) -> int:
     print(f"tem {stage}: {counts}{written} files written under {out}")
     if not_fitted:
         print(f"tem {stage}: {not_fitted_line(not_fitted)}", file=sys.stderr)
+    if result.bad_input:
+        return 2
     return 1 if result.any_failed or not_fitted else 0
 
 

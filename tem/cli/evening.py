@@ -40,4 +40,4 @@ def run(args) -> int:
     csv = outcome.project.root / "qc" / "stations.csv"
     console.print(f"re-occupy: {', '.join(to_go) or 'none'}; check: {', '.join(check) or 'none'}; "
                   f"table: {csv}", highlight=False)
-    return 1 if outcome.exit_status or to_go else 0
+    return outcome.exit_status or (1 if to_go else 0)

@@ -246,7 +246,8 @@ class _Run:
         rec["outputs"] = [p.rel(o) for o in result.all_outputs()]
         rec["stations"] = {}
         for sid, oc in result.stations.items():
-            r = {"status": oc.status, **({"message": oc.message} if oc.message else {}), **oc.info}
+            r = {"status": oc.status, **({"message": oc.message} if oc.message else {}),
+                 **({"bad_input": True} if oc.bad_input else {}), **oc.info}
             if sid in fps:
                 r["fingerprint"] = fps[sid]
                 r["checksums"] = {p.rel(o): self.sums.of(o) for o in oc.outputs if Path(o).is_file()}
@@ -485,4 +486,6 @@ def _run_locked(survey, survey_file, settings, project, start, end, jobs, consol
     failed = any("failed_stage" in s for s in state["stations"].values())
     failed |= any(rec.get("failed") for rec in state["stages"].values()) or bool(stop)
     failed |= bool(not_fitted(state))
-    return RunOutcome(state=state, exit_status=1 if failed else 0, project=project)
+    bad = any(r.get("bad_input") for rec in state["stages"].values()
+              for r in rec.get("stations", {}).values())
+    return RunOutcome(state=state, exit_status=2 if bad else 1 if failed else 0, project=project)
