@@ -69,7 +69,11 @@ def run(settings: StackSettings, survey, stations, out, ctx: StageContext = Stag
     project = out if isinstance(out, Project) else Project(out)
     if settings.timing:
         survey = replace(survey, transmitter=replace(survey.transmitter, timing=settings.timing))
-    jobs = [(sid, (survey, sid, settings, Path(survey_file) if survey_file else None,
+    # each task carries a survey of its own station only: with the whole survey every
+    # task's arguments grow with the station count (quadratic memory on a cluster,
+    # where each task is serialised on its own)
+    jobs = [(sid, (replace(survey, stations=[survey.station(sid)]), sid, settings,
+                   Path(survey_file) if survey_file else None,
                    project.station_file("stacked", sid),
                    project.station_figure(sid, "raw") if ctx.figures else None))
             for sid in stations]
