@@ -339,5 +339,5 @@ def test_bad_products_at_the_command_line(tmp_path, products, capsys):
     rc = main(["gate", str(st), "--out", str(tmp_path / "g"), "--no-figures", "--no-progress",
                "--jobs", "1"])
     err = [ln for ln in capsys.readouterr().err.splitlines() if "EM05" in ln]
-    assert rc == 1 and len(err) == 1, err
+    assert rc == 2 and len(err) == 1, err             # a refused input: exit 2
     assert f"{st / 'EM05.nc'}: value: required variable missing" in err[0], err
