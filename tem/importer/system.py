@@ -37,14 +37,13 @@ Every refusal is one line naming the file and the dotted field.
 """
 from __future__ import annotations
 
-import math
 from dataclasses import dataclass, field
 from pathlib import Path
 
 import numpy as np
 
 from ..errors import input_error
-from ..io.checks import label, show
+from ..io.checks import label, number, show
 from ..forward.gatewindow import SHAPES
 from ..io.tomlfile import read_toml
 
@@ -131,19 +130,8 @@ class System:
 
 
 def _num(v, name, file, positive=False, nonneg=False):
-    if isinstance(v, bool) or not isinstance(v, (int, float)):
-        raise input_error(name, f"expected a number, got {show(v)}", file)
-    try:
-        v = float(v)
-    except OverflowError:
-        raise input_error(name, f"out of range: {show(v)}", file) from None
-    if not math.isfinite(v):
-        raise input_error(name, f"must be finite, got {show(v)}", file)
-    if positive and v <= 0:
-        raise input_error(name, f"must be positive, got {v:g}", file)
-    if nonneg and v < 0:
-        raise input_error(name, f"must be >= 0, got {v:g}", file)
-    return v
+    """A finite number (the shared reader check; ``nonneg``: at least 0)."""
+    return number(v, name, file, positive=positive, minimum=0.0 if nonneg else None)
 
 
 def _point(p, name, file):
