@@ -11,18 +11,16 @@ import numpy as np
 import pytest
 
 from tem.cli import main
-from tem.invert.synthetic import emberline_gates, emberline_station, gated_dataset
+from tem.invert.synthetic import gated_dataset
 from tem.io.models import read_models
+
+from gated_fixture import write_two_stations
 
 
 @pytest.fixture(scope="module")
 def gated_folder(tmp_path_factory):
     folder = tmp_path_factory.mktemp("gated")
-    gates = emberline_gates(10, 2e-3, 0.8)
-    for i, x in enumerate([500.0, 2500.0]):
-        v, e, _, _ = emberline_station(x, noise=0.03, seed=10 + i, gates=gates)
-        gated_dataset(f"E{i}", x, 0.0, v, e, ["ex", "dbzdt"], gates).to_netcdf(
-            folder / f"E{i}.nc", engine="h5netcdf")
+    gates, v, e = write_two_stations(folder)
     bad = gated_dataset("BAD", 3500.0, 0.0, v, np.zeros_like(e), ["ex", "dbzdt"], gates)
     bad.to_netcdf(folder / "BAD.nc", engine="h5netcdf")
     return folder

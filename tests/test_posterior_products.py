@@ -12,8 +12,9 @@ import numpy as np
 import pytest
 
 from tem.cli import main
-from tem.invert.synthetic import emberline_gates, emberline_station, gated_dataset
 from tem.io.models import POSTERIOR_COLUMNS, read_models
+
+from gated_fixture import write_two_stations
 
 SHORT = ["--posterior-draws", "150", "--posterior-burn", "150", "--posterior-chains", "2"]
 
@@ -21,11 +22,7 @@ SHORT = ["--posterior-draws", "150", "--posterior-burn", "150", "--posterior-cha
 @pytest.fixture(scope="module")
 def project(tmp_path_factory):
     folder = tmp_path_factory.mktemp("gated")
-    gates = emberline_gates(10, 2e-3, 0.8)
-    for i, x in enumerate([500.0, 2500.0]):
-        v, e, _, _ = emberline_station(x, noise=0.03, seed=10 + i, gates=gates)
-        gated_dataset(f"E{i}", x, 0.0, v, e, ["ex", "dbzdt"], gates).to_netcdf(
-            folder / f"E{i}.nc", engine="h5netcdf")
+    write_two_stations(folder)
     out = tmp_path_factory.mktemp("proj")
     rc = main(["invert", str(folder), "--out", str(out), "--kind", "posterior", "--few-layers", "4",
                "--jobs", "1", *SHORT])
