@@ -247,7 +247,7 @@ def _partial_listener(ctx):
 def _collect(ctx, futs, done):
     """Outcomes of submitted station tasks as they finish."""
     for fut in _completed(ctx.executor, futs):
-        sid = futs[fut]
+        sid = futs.pop(fut)
         try:
             oc = fut.result()
         except TemOutputError:
@@ -255,6 +255,9 @@ def _collect(ctx, futs, done):
         except Exception as exc:  # noqa: BLE001 - e.g. a killed worker process
             oc = StationOutcome(sid, "failed", f"worker failed: {type(exc).__name__}: {exc}"
                                 .splitlines()[0])
+        if hasattr(fut, "release"):     # a cluster keeps a result until its future is let go
+            fut.release()
+        del fut
         done(oc)
 
 
