@@ -39,12 +39,10 @@ from .diagnostics import summary
 from .fewlayer import prior_terms
 from .mcmc import adaptive_metropolis, regularised_covariance
 
-__all__ = ["RES_BOUNDS", "THK_BOUNDS", "PosteriorResult", "LayeredPosterior", "sample_posterior",
+__all__ = ["PosteriorResult", "LayeredPosterior", "sample_posterior",
            "depth_tops", "target_layer", "target_tops", "posterior_station"]
 
 #: Box of the few-layer parameters (ohm-m, m): the bounds of the Levenberg-Marquardt fit.
-RES_BOUNDS = (0.1, 1e5)
-THK_BOUNDS = (1.0, 2e4)
 
 
 class LayeredPosterior:
@@ -62,7 +60,7 @@ class LayeredPosterior:
         Full ln parameter vector supplying the values of fixed parameters.
     """
 
-    def __init__(self, predict, d_obs, std, n_layers, priors, p_fixed):
+    def __init__(self, predict, d_obs, std, n_layers, priors, p_fixed, res_bounds, thk_bounds):
         self.predict = predict
         self.d_obs = np.asarray(d_obs, float)
         self.w = 1.0 / np.asarray(std, float)
@@ -72,8 +70,8 @@ class LayeredPosterior:
         self.free, self.soft = prior_terms(priors, n, p0)
         self.p_fixed = p0
         self.fi = np.flatnonzero(self.free)
-        lo = np.concatenate([np.full(n + 1, np.log(RES_BOUNDS[0])), np.full(n, np.log(THK_BOUNDS[0]))])
-        hi = np.concatenate([np.full(n + 1, np.log(RES_BOUNDS[1])), np.full(n, np.log(THK_BOUNDS[1]))])
+        lo = np.concatenate([np.full(n + 1, np.log(res_bounds[0])), np.full(n, np.log(thk_bounds[0]))])
+        hi = np.concatenate([np.full(n + 1, np.log(res_bounds[1])), np.full(n, np.log(thk_bounds[1]))])
         self.lower, self.upper = lo[self.fi], hi[self.fi]
         self.n_eval = 0
 
@@ -196,7 +194,7 @@ def _starts(post, q_hat, C, chains, rng, tries=50):
 
 
 def sample_posterior(predict, d_obs, std, resistivity, thickness, ln_cov, *, priors, n_draws,
-                     n_burn, chains, seed, anneal=0.0):
+                     n_burn, chains, seed, anneal=0.0, res_bounds=None, thk_bounds=None):
     """Sample the posterior of an N-layer model (see the module docstring).
 
     Parameters
@@ -215,6 +213,9 @@ def sample_posterior(predict, d_obs, std, resistivity, thickness, ln_cov, *, pri
     anneal : float
         Fraction of the burn-in spent annealing (see
         :func:`tem.invert.mcmc.adaptive_metropolis`); 0 = none.
+    res_bounds, thk_bounds : (float, float), optional
+        Bounds of resistivity (ohm-m) and thickness (m); unset: those of the
+        few-layer fit in the invert settings table.
 
     Returns
     -------
@@ -225,7 +226,12 @@ def sample_posterior(predict, d_obs, std, resistivity, thickness, ln_cov, *, pri
     h = np.asarray(thickness, float)
     n_layers = rho.size
     p_hat = np.log(np.concatenate([rho, h]))
-    post = LayeredPosterior(predict, d_obs, std, n_layers, priors, p_hat)
+    if res_bounds is None or thk_bounds is None:
+        from .settings import InversionSettings
+        table = InversionSettings()
+        res_bounds = table.few_resistivity_bounds if res_bounds is None else res_bounds
+        thk_bounds = table.few_thickness_bounds if thk_bounds is None else thk_bounds
+    post = LayeredPosterior(predict, d_obs, std, n_layers, priors, p_hat, res_bounds, thk_bounds)
     fi = post.fi
     q_hat = np.clip(post.p_fixed[fi], post.lower, post.upper)
     C = regularised_covariance(np.asarray(ln_cov, float)[np.ix_(fi, fi)], post.lower, post.upper)
@@ -299,7 +305,9 @@ def posterior_station(sd, settings, few):
                             ln_covariance(few), priors=tuple(settings.priors),
                             n_draws=settings.posterior_draws, n_burn=settings.posterior_burn,
                             chains=settings.posterior_chains, seed=settings.posterior_seed,
-                            anneal=settings.posterior_anneal)
+                            anneal=settings.posterior_anneal,
+                            res_bounds=tuple(settings.few_resistivity_bounds),
+                            thk_bounds=tuple(settings.few_thickness_bounds))
 
 
 def restarted_fit(sd, settings, few, m_smooth, h_smooth, doi):
@@ -329,14 +337,15 @@ def restarted_fit(sd, settings, few, m_smooth, h_smooth, doi):
     def layer_fwd(rho, h):
         return sd.jacobian(rho, h, with_thickness=True)
 
+    (r_lo, r_hi), (h_lo, h_hi) = settings.few_resistivity_bounds, settings.few_thickness_bounds
     best, best_obj = few, None
     for t in range(settings.posterior_restarts):
         rho0, h0 = bases[t % len(bases)]
-        rho = np.clip(rho0 * np.exp(rng.standard_normal(n)), RES_BOUNDS[0] * 1.01, RES_BOUNDS[1] / 1.01)
-        h = np.clip(h0 * np.exp(0.5 * rng.standard_normal(n - 1)), THK_BOUNDS[0] * 1.01,
-                    THK_BOUNDS[1] / 1.01)
+        rho = np.clip(rho0 * np.exp(rng.standard_normal(n)), r_lo * 1.01, r_hi / 1.01)
+        h = np.clip(h0 * np.exp(0.5 * rng.standard_normal(n - 1)), h_lo * 1.01, h_hi / 1.01)
         try:
             fr = fewlayer_inversion(layer_fwd, sd.d_obs, sd.std, rho, h, priors=tuple(settings.priors),
+                                    res_bounds=(r_lo, r_hi), thk_bounds=(h_lo, h_hi),
                                     max_iter=settings.lm_max_iter)
         except (ValueError, FloatingPointError, np.linalg.LinAlgError):
             continue
