@@ -21,6 +21,7 @@ test: $(STAMP)
 	MPLBACKEND=Agg $(BIN)/python -m pytest -q -n 2 -p no:cacheprovider --durations=12
 
 bench: $(STAMP)
+	$(BIN)/python -m pip install -q -e '.[test,bench]'   # SimPEG, the forward benchmark's peer
 	@for b in benchmarks/*.py; do MPLBACKEND=Agg $(BIN)/python $$b || exit 1; done
 
 clean:
