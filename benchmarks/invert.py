@@ -25,10 +25,11 @@ Two more cases, one JSON line each:
   figures: {"case", "invert_s" (wall time of the invert stage from run.json),
   "jobs", "stations", "max_chi2"}. Target: invert_s <= 60 on 2 cores.
 
-``demo-fewlayer`` is the same with ``--set invert.kind=few-layer`` (the
+``demo-fewlayer`` and ``demo-posterior`` are the same with ``--set invert.kind=few-layer``
+(or ``posterior``, the kind the demo ships with; the
 few-layer search with the defaults on every station).
 
-``python benchmarks/invert.py [occam] [fewlayer] [demo] [demo-fewlayer]`` runs
+``python benchmarks/invert.py [occam] [fewlayer] [demo] [demo-fewlayer] [demo-posterior]`` runs
 the named cases (the first three without arguments; the occam case takes
 about 11 minutes).
 """
@@ -115,6 +116,8 @@ def main(argv=()):
         demo_case()
     if "demo-fewlayer" in cases:
         demo_case(kind="few-layer")
+    if "demo-posterior" in cases:
+        demo_case(kind="posterior")
     if "occam" in cases:
         return occam_case()
     return 0

@@ -89,8 +89,10 @@ def lag_correlations(influence, lags: int) -> np.ndarray:
     about equally, and a weight hardly depends on its own sample (a mean of
     ratios c_l/c_0 would be biased by a few per cent). The pooled ratios are
     set equal to the ratios of the exact expectations of the centred sums
-    (:func:`_moments`), a linear system in rho. Returns (L,) floats; zeros if
-    nothing is known.
+    (:func:`_moments`), a linear system in rho. With few batches the moment
+    solution can leave [-1, 1] (seen with 4 batches of a 40 s record); a
+    correlation cannot, so the estimate is clipped to it. Returns (L,) floats;
+    zeros if nothing is known.
     """
     u = np.asarray(influence, float)
     nb = u.shape[0]
@@ -113,7 +115,7 @@ def lag_correlations(influence, lags: int) -> np.ndarray:
         rho = np.linalg.solve(lhs, rhs)
     except np.linalg.LinAlgError:
         return np.zeros(lags)
-    return rho if np.all(np.isfinite(rho)) else np.zeros(lags)
+    return np.clip(rho, -1.0, 1.0) if np.all(np.isfinite(rho)) else np.zeros(lags)
 
 
 def variance_factor(rho, nb: int) -> float:
