@@ -313,6 +313,9 @@ def invert_station(sd, settings: InversionSettings = InversionSettings(), callba
             refit["verdict"] = few_verdict(settings, refit, sd.d_obs.size)
             out.few = refit
         out.posterior = posterior_station(sd, settings, out.few)
+    if out.few is not None:
+        from .equivalence import equivalence_ranges
+        out.few["resistivity_range"] = equivalence_ranges(sd, settings, out.few)
     return out
 
 
