@@ -23,8 +23,8 @@ from .fewlayer import Prior, fewlayer_inversion
 __all__ = ["resistivity_profile", "equivalence_ranges"]
 
 
-def resistivity_profile(sd, few, layer, delta, *, priors=(), res_bounds=(0.1, 1e5),
-                        thk_bounds=(1.0, 2e4), max_iter=50, step=1.5, max_steps=12, refine=3):
+def resistivity_profile(sd, few, layer, delta, *, res_bounds, thk_bounds, max_iter, priors=(),
+                        step=1.5, max_steps=12, refine=3):
     """Range of ``layer``'s resistivity within ``delta`` of the fit's total chi2.
 
     Parameters
@@ -37,6 +37,9 @@ def resistivity_profile(sd, few, layer, delta, *, priors=(), res_bounds=(0.1, 1e
         Layer index (the half-space included: its resistivity alone is fixed).
     delta : float
         Allowed rise of the total misfit ``N chi2``.
+    res_bounds, thk_bounds, max_iter, priors
+        As for the few-layer fit (the invert settings' ``few_resistivity_bounds``,
+        ``few_thickness_bounds``, ``lm_max_iter``, ``priors``).
     step : float
         Factor between profile points; ``max_steps`` per direction. A crossing
         is refined by ``refine`` bisections in ln(rho), then interpolated with
