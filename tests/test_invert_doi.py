@@ -106,8 +106,8 @@ def truth_range(thickness, resistivity, z):
     return np.array(lo), np.array(hi)
 
 
-@pytest.fixture(scope="module")
-def suite():
+def invert_case(name, seed):
+    """Invert the noisy empymod sounding of ``CASES[name]`` (noise seed ``seed``)."""
     pytest.importorskip("empymod")
     from empymod_ref import wire_response
 
@@ -117,31 +117,33 @@ def suite():
     from tem.invert.smooth import roughness_matrix
     from tem.invert.station import InversionSettings, invert_station
 
-    out = {}
-    for i, (name, (th, rho, rx)) in enumerate(CASES.items()):
-        comps = ["ex", "dbzdt"]
-        d = np.array([wire_response(th, rho, *WIRE, [rx], c, TIMES)[0] for c in comps])
-        noisy = d + 0.03 * np.abs(d) * np.random.default_rng(10 + i).standard_normal(d.shape)
-        sim = Simulation(Wire(a=WIRE[0], b=WIRE[1]), [Receiver(c, rx) for c in comps], times=TIMES,
-                         response="step-off")
-        sd = station_data_from_arrays(sim, noisy, 0.03 * np.abs(d), comps, gate_centre=TIMES)
-        r = invert_station(sd, InversionSettings())          # defaults: the shallower DOI
-        top = np.concatenate([[0.0], np.cumsum(r.thickness)])
-        zc = top[:-1] + 0.5 * r.thickness
-        lo, hi = truth_range(th, rho, zc)
-        m = np.log10(r.resistivity[:-1])
-        miss = np.where(m < lo, m - lo, np.where(m > hi, m - hi, 0.0))
-        # the truth seen through the resolution matrix at the final model (linearised:
-        # m_est = R m_true + (I - R) m_ref; Aster, Borchers & Thurber 2013, sec. 4.4)
-        M = r.resistivity.size
-        Rm = model_resolution(sd.jacobian(r.resistivity, r.thickness)[1], sd.std,
-                              roughness_matrix(M), r.mu, InversionSettings().ref_weight)
-        mt = truth_on_mesh(th, rho, r.thickness)
-        seen = Rm @ mt + (np.eye(M) - Rm) @ np.full(M, np.log10(r.halfspace))
-        out[name] = dict(chi2=r.chi2, doi=r.doi, z=zc, miss=miss, parts=r.doi_parts,
-                         res=r.resolution[:-1], res_check=np.diag(Rm)[:-1],
-                         miss_seen=(m - seen[:-1]))
-    return out
+    th, rho, rx = CASES[name]
+    comps = ["ex", "dbzdt"]
+    d = np.array([wire_response(th, rho, *WIRE, [rx], c, TIMES)[0] for c in comps])
+    noisy = d + 0.03 * np.abs(d) * np.random.default_rng(seed).standard_normal(d.shape)
+    sim = Simulation(Wire(a=WIRE[0], b=WIRE[1]), [Receiver(c, rx) for c in comps], times=TIMES,
+                     response="step-off")
+    sd = station_data_from_arrays(sim, noisy, 0.03 * np.abs(d), comps, gate_centre=TIMES)
+    r = invert_station(sd, InversionSettings())          # defaults: the shallower DOI
+    top = np.concatenate([[0.0], np.cumsum(r.thickness)])
+    zc = top[:-1] + 0.5 * r.thickness
+    lo, hi = truth_range(th, rho, zc)
+    m = np.log10(r.resistivity[:-1])
+    miss = np.where(m < lo, m - lo, np.where(m > hi, m - hi, 0.0))
+    # the truth seen through the resolution matrix at the final model (linearised:
+    # m_est = R m_true + (I - R) m_ref; Aster, Borchers & Thurber 2013, sec. 4.4)
+    M = r.resistivity.size
+    Rm = model_resolution(sd.jacobian(r.resistivity, r.thickness)[1], sd.std,
+                          roughness_matrix(M), r.mu, InversionSettings().ref_weight)
+    mt = truth_on_mesh(th, rho, r.thickness)
+    seen = Rm @ mt + (np.eye(M) - Rm) @ np.full(M, np.log10(r.halfspace))
+    return dict(chi2=r.chi2, doi=r.doi, z=zc, miss=miss, parts=r.doi_parts,
+                res=r.resolution[:-1], res_check=np.diag(Rm)[:-1], miss_seen=(m - seen[:-1]))
+
+
+@pytest.fixture(scope="module")
+def suite():
+    return {name: invert_case(name, 10 + i) for i, name in enumerate(CASES)}
 
 
 def judged(c, doi):
@@ -172,6 +174,23 @@ def test_subsalt_smear_is_reported_unresolved(suite):
     # ... while the conductor itself (1.5-1.9 km) is resolved and followed
     k = int(np.argmin(np.abs(c["z"] - 1750.0)))
     assert c["res"][k] > 0.5 and abs(c["miss"][k]) <= TOL
+
+
+ROBUST = pytest.mark.xfail(strict=True, reason=(
+    "the smeared layer at 1.06 km comes out at 130 ohm-m (truth 2000) with a resolution of 0.53: "
+    "the linearisation about a wrongly conductive value sees a sensitivity the true resistor "
+    "does not have, so the flag misses it (docs/inversion.md)"))
+
+
+@pytest.mark.slow
+@pytest.mark.parametrize("seed", [101, pytest.param(102, marks=ROBUST), 103])
+def test_subsalt_on_other_noise(seed):
+    # the same criterion on other noise realisations of the sub-salt sounding: the flag is
+    # a linearised measure and does not catch the smear every time
+    c = invert_case("sub-salt conductor", seed)
+    sel = judged(c, c["doi"])
+    assert c["chi2"] <= 1.5 and sel.sum() >= 3
+    assert np.abs(c["miss"][sel]).max() <= TOL
 
 
 @pytest.mark.slow
