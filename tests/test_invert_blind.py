@@ -10,10 +10,14 @@ Acceptance (the inversion issue's criteria; common practice, no source):
 * chi-square per datum <= 1.5;
 * depth of the target's top (or a cap's base) within 10 % of the truth, the target
   being the layer below (above) the fitted interface nearest that depth;
-* target resistivity within a factor 1.5; for a thin target (thickness under 0.3 of
-  its depth) its conductance h/rho instead: the resistivity and thickness of a thin
-  conductor are not resolved separately, only their ratio (the equivalence of thin
-  layers, e.g. Kaufman & Keller 1983, "Frequency and transient soundings", from memory).
+* target resistivity within a factor 1.5, with a resistivity range (chi2 profile,
+  tem/invert/equivalence.py) narrower than a factor 1.5**2; for a thin target (thickness under 0.3 of its
+  depth) its conductance h/rho within a factor 1.5 instead: the resistivity and thickness
+  of a thin conductor are not resolved separately, only their ratio (the equivalence of
+  thin layers, e.g. Kaufman & Keller 1983, "Frequency and transient soundings", from
+  memory). Measured: the 95 % range of a thin target's resistivity spans more than a
+  factor 1.5**2, and holds the truth in 4 of the 5 thin soundings (not at
+  basalt_thin_doi at 2.5 km: the truth's profile misfit is about 5.4 above the fit's).
 
 The normal run inverts two representative soundings (a short offset where Ex reverses
 sign, and a far one); the whole suite runs under -m slow (table in docs/inversion.md).
@@ -34,7 +38,9 @@ def case_id(c):
 
 
 def judge(c, few):
-    """(chi2, fitted depth, true depth, fitted value, true value, value kind) of a case."""
+    """The numbers of a case: ``chi2``, fitted and true depth ``z``, ``z_true``; the target
+    layer's fitted and true ``rho``, ``h`` (inf for a half-space) and conductance ``S`` (h/rho),
+    its resistivity range ``lo``-``hi`` (chi2 profile) and whether the true target is ``thin``."""
     z_true = c["target_depth"]
     z = few["depth_top"]
     k = 1 + int(np.argmin(np.abs(z[1:] - z_true)))       # nearest fitted interface
@@ -42,21 +48,36 @@ def judge(c, few):
     rho = few["resistivity"]
     t_thk = c["thickness"][c["target_layer"]] if c["target_layer"] < c["thickness"].size else np.inf
     t_top = float(np.r_[0.0, np.cumsum(c["thickness"])][c["target_layer"]])
-    if t_thk < 0.3 * max(t_top, 1.0):
-        # thin target: conductance h/rho of the fitted target layer
-        h = few["thickness"][layer] if layer < few["thickness"].size else np.inf
-        value, truth, kind = float(h / rho[layer]), t_thk / c["target_resistivity"], "S"
-    else:
-        value, truth, kind = float(rho[layer]), c["target_resistivity"], "ohm-m"
-    return float(few["chi2"]), float(z[k]), z_true, value, truth, kind
+    h = few["thickness"][layer] if layer < few["thickness"].size else np.inf
+    lo, hi = few["resistivity_range"][layer]
+    return dict(chi2=float(few["chi2"]), z=float(z[k]), z_true=z_true, rho=float(rho[layer]),
+                rho_true=c["target_resistivity"], h=float(h), h_true=float(t_thk),
+                S=float(h / rho[layer]), S_true=float(t_thk / c["target_resistivity"]),
+                lo=float(lo), hi=float(hi), thin=bool(t_thk < 0.3 * max(t_top, 1.0)))
+
+
+def within(v, v_true, factor=1.5):
+    return 1 / factor <= v / v_true <= factor
+
+
+# thin targets whose true resistivity lies outside the 95 % range (measured; docs/inversion.md)
+OUTSIDE = {"basalt_thin_doi@2500"}
 
 
 def check(c):
     res = invert_station(station_data(c["ds"]), InversionSettings(kind="few-layer"))
-    chi2, z, z_true, v, v_true, kind = judge(c, res.few)
-    assert chi2 <= 1.5, f"chi2 {chi2:.2f}"
-    assert abs(z / z_true - 1) <= 0.10, f"depth {z:.0f} m against {z_true:.0f} m"
-    assert 1 / 1.5 <= v / v_true <= 1.5, f"{kind} {v:.3g} against {v_true:.3g}"
+    j = judge(c, res.few)
+    assert j["chi2"] <= 1.5, f"chi2 {j['chi2']:.2f}"
+    assert abs(j["z"] / j["z_true"] - 1) <= 0.10, f"depth {j['z']:.0f} m against {j['z_true']:.0f} m"
+    if not j["thin"]:
+        assert within(j["rho"], j["rho_true"]), f"{j['rho']:.3g} against {j['rho_true']:.3g} ohm-m"
+        # a thick target's resistivity is determined: its range is narrower than 1.5**2
+        assert j["lo"] <= j["rho"] <= j["hi"] and j["hi"] / j["lo"] < 1.5 ** 2
+        return res
+    # thin: the conductance is resolved, the resistivity is not; the range says so
+    assert within(j["S"], j["S_true"]), f"{j['S']:.3g} against {j['S_true']:.3g} S"
+    assert j["hi"] / j["lo"] > 1.5 ** 2, f"range {j['lo']:.3g}-{j['hi']:.3g} ohm-m"
+    assert (j["lo"] <= j["rho_true"] <= j["hi"]) == (case_id(c) not in OUTSIDE)
     return res
 
 

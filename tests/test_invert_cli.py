@@ -40,8 +40,13 @@ def test_invert_command_few_layer_with_a_bad_station(gated_folder, tmp_path, cap
     assert np.all(np.isfinite(ds["doi"].values))
     assert np.all(ds["chi2"].values < 2.0)            # near the target of 1 for 3 % noise
     assert np.all(np.isfinite(ds["log10_res_std"].values[:, :4]))
+    rho = ds["resistivity"].values[:, :4]                       # each fit inside its range
+    assert np.all((ds["resistivity_low"].values[:, :4] <= rho * (1 + 1e-9))
+                  & (rho <= ds["resistivity_high"].values[:, :4] * (1 + 1e-9)))
     smooth = read_models(out / "models" / "models_smooth.nc")
     assert smooth.sizes["layer"] == 30
+    res = smooth["resolution"].values                           # a diagonal of R: in [0, 1]
+    assert np.all((res > -0.05) & (res < 1.05)) and np.nanmax(res) > 0.5
     assert (out / "figures" / "stations" / "E0_fit.png").stat().st_size > 10_000
     with open(out / "models" / "fit.csv", encoding="utf-8") as fh:
         rows = list(csv.DictReader(fh))

@@ -50,6 +50,13 @@ def test_emberline_fewlayer_recovers_sediment_target(emberline_result):
     assert well[k] and well[4 + k - 1]          # sediment resistivity and basalt thickness
     assert np.all(np.abs(est_p[well] - true_p[well]) <= 2 * f["ln_std"][well])
     assert abs(f["depth_top"][k] - true_top) <= 2 * f["depth_std"][k]
+    # resistivity ranges (chi2 profile, 95 % profile interval for one parameter; Press et al.
+    # 2007, Numerical Recipes 3rd ed., sec. 15.6): every true resistivity inside its layer's
+    # range; the thin surface layer's spans more than a factor 10 (only its conductance is
+    # seen), the sediment's less than a factor 1.5
+    lo, hi = f["resistivity_range"].T
+    assert np.all((lo <= model.resistivity) & (model.resistivity <= hi))
+    assert hi[0] / lo[0] > 10 and hi[k] / lo[k] < 1.5
 
 
 def test_emberline_smooth_reaches_target_and_sees_conductor(emberline_result):

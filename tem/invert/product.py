@@ -71,6 +71,18 @@ def models_from_results(results, kind, provenance=(), epsg=0):
                                {"units": "m", "long_name": "posterior std of layer thickness"})
         ds["depth_std"] = (("station", "layer"), _pad([r.few["depth_std"] for r in results], L),
                            {"units": "m", "long_name": "posterior std of depth to layer top"})
+        if all("resistivity_range" in r.few for r in results):
+            for j, name in enumerate(("resistivity_low", "resistivity_high")):
+                ds[name] = (("station", "layer"),
+                            _pad([r.few["resistivity_range"][:, j] for r in results], L),
+                            {"units": "ohm-m", "long_name": f"{name[12:]} end of the resistivity "
+                             "range the data allow (chi2 profile)",
+                             "comment": "chi2 profile, docs/inversion.md (Few-layer inversion)"})
+    if kind != "few-layer" and all(getattr(r, "resolution", None) is not None for r in results):
+        ds["resolution"] = (("station", "layer"), _pad([r.resolution for r in results], L), {
+            "units": "1", "long_name": "diagonal of the smooth model's resolution matrix",
+            "comment": "1: decided by the data; below 0.1 filled by the regularisation even "
+                       "above the DOI (docs/inversion.md, Depth of investigation)"})
     ds["halfspace_resistivity"] = ("station", np.array([r.halfspace for r in results]),
                                    {"units": "ohm-m", "long_name": "best-fitting half-space"})
     add_verdicts(ds, results, kind)

@@ -214,6 +214,12 @@ INVERT = SettingsTable("invert", [
     Setting("few_thickness_bounds", (1.0, 2e4), "floats", "m", minimum=0, exclusive=True,
             maximum=1e6, metavar="LOWER,UPPER",
             help="few-layer fit: bounds of every layer thickness (a value at a bound is flagged)"),
+    Setting("few_equivalence_delta", 3.84, "float", minimum=0, maximum=1e6,
+            help="few-layer fit: each layer's resistivity range is where a chi2 profile (the "
+            "other parameters re-fitted) stays within this rise of the total misfit N x chi2 "
+            "(0: no ranges)",
+            source="95 % profile-likelihood interval of one parameter (Press et al. 2007, "
+            "Numerical Recipes, 3rd ed., sec. 15.6), from memory"),
     Setting("verdict_tolerance", 1.5, "float", minimum=1, maximum=1e9,
             help="a model is fitted when chi2 <= target x max(this, chi-square quantile / N)",
             source="errors are rarely known to better than 50 % in variance; common practice, "

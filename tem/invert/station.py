@@ -11,7 +11,7 @@ from dataclasses import dataclass, field
 import numpy as np
 from scipy import sparse
 
-from .doi import cumulative_sensitivity_doi, two_reference_doi
+from .doi import cumulative_sensitivity_doi, model_resolution, two_reference_doi
 from .fewlayer import FewLayerResult, Prior, fewlayer_inversion
 from .settings import InversionSettings
 from .smooth import (LN_RHO_MAX, LN_RHO_MIN, best_halfspace, chi2_per_datum, diffusion_depth,
@@ -50,6 +50,7 @@ class StationResult:
     history: list = field(default_factory=list)
     verdict: Verdict | None = None   # verdict on the smooth (or LCI) model
     doi_parts: dict | None = None    # DOI of each method computed, m
+    resolution: np.ndarray | None = None  # diagonal of the smooth model's resolution matrix
 
     def verdict_for(self, kind) -> Verdict | None:
         """Verdict on the model of ``kind`` (smooth, lci: this result; few-layer and
@@ -299,7 +300,8 @@ def invert_station(sd, settings: InversionSettings = InversionSettings(), callba
         channel=sd.channel, times=sd.gate_centre[np.nonzero(sd.mask)[1]], mu=res.mu,
         converged=res.converged, message=res.message, history=res.history, doi_parts=doi_parts,
         verdict=smooth_verdict(settings, res.chi2, sd.d_obs.size, res.converged, np.exp(res.m),
-                               "smooth"))
+                               "smooth"),
+        resolution=np.diag(model_resolution(res.J, sd.std, R, res.mu, settings.ref_weight)).copy())
     if settings.kind in ("few-layer", "posterior"):
         out.few = fewlayer_station(sd, settings, res.m, h, doi, rho_hs)
         # judged here, from the final few-layer fit, whichever search produced it
@@ -311,6 +313,9 @@ def invert_station(sd, settings: InversionSettings = InversionSettings(), callba
             refit["verdict"] = few_verdict(settings, refit, sd.d_obs.size)
             out.few = refit
         out.posterior = posterior_station(sd, settings, out.few)
+    if out.few is not None:
+        from .equivalence import equivalence_ranges
+        out.few["resistivity_range"] = equivalence_ranges(sd, settings, out.few)
     return out
 
 
