@@ -7,9 +7,13 @@ Plateau transmitter, a 1.5 km wire, with stations south of it from 300 m to
 takes the summed elapsed time of the stack, gate, rhoa and invert stages
 from run.json. Light settings keep the run in minutes (late-time apparent
 resistivity only, 8-layer smooth inversion, 2 Occam iterations, the
-sensitivity DOI (no reference inversions), no figures,
-CSV export only); the work per station is the same in every case, so the
-ratios measure the back end, not the physics.
+sensitivity DOI (no reference inversions), no figures); the work per
+station is the same in every case, so the ratios measure the back end, not
+the physics. Two Occam iterations do not reach the target misfit, so the
+stations are judged ``misfit`` and the run's exit status is 1, as it should
+be. The run stops after the invert stage: a section or export through every
+station of a grid is one column per station, a product whose size grows with
+the survey by nature, so it is not part of the memory measure.
 
 Prints one JSON line per case: ``{"case", "stations", "workers",
 "stations_per_s", "speedup_over_1_worker", "peak_rss_mb_client",
@@ -44,8 +48,6 @@ layers = 8
 max_iter = 2
 doi_method = "sensitivity"
 
-[processing.export]
-what = ["csv"]
 """
 
 RUN = """
@@ -53,7 +55,8 @@ import json, resource, sys
 from rich.console import Console
 from tem.pipeline import run_pipeline
 out = run_pipeline(sys.argv[1], sys.argv[2], jobs=int(sys.argv[3]), scheduler="local",
-                   progress=False, figures=False, console=Console(stderr=True, quiet=True))
+                   progress=False, figures=False, console=Console(stderr=True, quiet=True),
+                   until="invert")
 st = out.state
 print(json.dumps({"exit": out.exit_status,
                   "elapsed": sum(st["stages"][s]["elapsed_s"] for s in ("stack", "gate", "rhoa", "invert")),
@@ -98,7 +101,7 @@ def grid_survey(folder: Path, n: int):
 def run_case(survey, project, workers):
     r = subprocess.run([sys.executable, "-c", RUN, str(survey), str(project), str(workers)],
                        capture_output=True, text=True, check=False)
-    if r.returncode != 0:
+    if r.returncode not in (0, 1):
         raise SystemExit(f"benchmark run failed: {r.stderr[-2000:]}")
     return json.loads(r.stdout.strip().splitlines()[-1])
 

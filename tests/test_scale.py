@@ -199,3 +199,22 @@ def test_local_cluster_gives_the_same_products(day, tmp_path):
     state = json.loads((proj / "run.json").read_text())
     assert state["last_run"]["scheduler"] == "local"
     assert_same_products(ref, proj, rtol=1e-9)
+
+
+def test_two_local_clusters_side_by_side_and_no_worker_profiler():
+    # two runs with --scheduler local at once (or beside a user's own dask cluster) must not
+    # fight over a fixed HTTP port (a warning, i.e. an error under this suite's settings), and
+    # the workers' statistical profiler is off: it kept about 115 kB of call-site trees per
+    # station task (measured with gc on a worker), so worker memory grew with the survey
+    # (docs/scaling.md)
+    import dask
+
+    from tem.pipeline.cluster import dask_client
+
+    def profiling():
+        return dask.config.get("distributed.worker.profile.enabled")
+
+    with dask_client("local", 1) as a, dask_client("local", 1) as b:
+        assert a.scheduler_info()["address"] != b.scheduler_info()["address"]
+        assert list(a.run(profiling).values()) == [False]
+        assert a.submit(sum, [1, 2]).result() == 3 and b.submit(sum, [3, 4]).result() == 7

@@ -33,12 +33,20 @@ def worker_peak_rss_mb(client) -> float:
 def dask_client(scheduler: str, jobs: int):
     """A dask.distributed Client for ``scheduler`` (``"local"`` or an address)."""
     try:
+        import dask
         from distributed import Client, LocalCluster
     except ImportError:  # pragma: no cover - a run-time dependency
         raise input_error("--scheduler", "dask.distributed is not installed") from None
     if scheduler == "local":
-        with LocalCluster(n_workers=max(1, int(jobs)), threads_per_worker=1, processes=True,
-                          dashboard_address=None, silence_logs=50) as cluster, \
+        # the workers' statistical profiler keeps a tree of call sites per second for an hour
+        # (about 115 kB per station task here): off, so worker memory does not grow with the
+        # survey; workers of a cluster started by hand: docs/scaling.md
+        with dask.config.set({"distributed.worker.profile.enabled": False}), \
+                LocalCluster(n_workers=max(1, int(jobs)), threads_per_worker=1, processes=True,
+                             dashboard_address=None, silence_logs=50,
+                             # no dashboard, and its small HTTP server on any free port (the
+                             # default 8787 clashes with a second run or another cluster)
+                             scheduler_kwargs={"dashboard_address": ":0"}) as cluster, \
                 Client(cluster) as client:
             yield client
         return
