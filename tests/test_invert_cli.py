@@ -51,7 +51,28 @@ def test_invert_command_few_layer_with_a_bad_station(gated_folder, tmp_path, cap
     with open(out / "models" / "fit.csv", encoding="utf-8") as fh:
         rows = list(csv.DictReader(fh))
     assert {r["station"] for r in rows} == {"E0", "E1"} and len(rows) == 40
-    assert (out / "models" / "models.csv").is_file()
+    with open(out / "models" / "models.csv", encoding="utf-8") as fh:
+        layers = list(csv.DictReader(fh))                       # the ranges reach the CSV
+    assert len(layers) == 8
+    for r, lo, hi in zip(layers, ds["resistivity_low"].values[:, :4].ravel(),
+                         ds["resistivity_high"].values[:, :4].ravel()):
+        assert float(r["resistivity_low_ohmm"]) == pytest.approx(lo, rel=1e-12)
+        assert float(r["resistivity_high_ohmm"]) == pytest.approx(hi, rel=1e-12)
+    import lasio                                                # and the LAS pseudo-wells
+    las = lasio.read(_las_text(ds))
+    d = las["DEPT"]
+    k = np.searchsorted(ds["depth_top"].values[0], d, side="right") - 1
+    assert np.allclose(las["RLOW"], ds["resistivity_low"].values[0][k], rtol=1e-6)
+    assert np.allclose(las["RHIG"], ds["resistivity_high"].values[0][k], rtol=1e-6)
+
+
+def _las_text(ds):
+    import io
+
+    from tem.export.las import las_for_station
+    buf = io.StringIO()
+    las_for_station(ds, 0, 5.0).write(buf, version=2.0)
+    return buf.getvalue()
 
 
 def test_invert_command_rejects_missing_input(tmp_path, capsys):

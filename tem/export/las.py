@@ -7,6 +7,9 @@ Each station's layered model becomes a log sampled on a regular depth axis
 * ``RES`` (ohm.m): resistivity of the layer holding the depth.
 * ``RSTD`` (log10(ohm.m)): posterior standard deviation of log10 resistivity.
 * ``BDOI`` (flag): 1 where the depth is below the depth of investigation, else 0.
+* with resistivity ranges (few-layer and posterior models): ``RLOW``, ``RHIG``
+  (ohm.m), the low and high ends of the layer's resistivity range the data
+  allow (chi2 profile, :mod:`tem.invert.equivalence`).
 * with posterior products (model kind posterior): ``RP10``, ``RP50``, ``RP90``,
   ``PIFD``, ``PTGD`` (:mod:`tem.export.las_posterior`).
 
@@ -147,6 +150,11 @@ def las_for_station(models, i, step, bottom=None, mask_below_doi=False, source="
     las.append_curve("RES", r, unit="ohm.m", descr="Model resistivity")
     las.append_curve("RSTD", s, unit="log10(ohm.m)", descr="Std of log10 resistivity")
     las.append_curve("BDOI", flag, unit="", descr="1 below depth of investigation")
+    if "resistivity_low" in models:     # few-layer resistivity ranges (chi2 profile)
+        for mnem, var, end in (("RLOW", "resistivity_low", "Low"), ("RHIG", "resistivity_high", "High")):
+            v = station_log(top, models[var].values[i].astype(float), std, doi, step, bottom)[1]
+            las.append_curve(mnem, np.where(flag > 0, np.nan, v) if mask_below_doi else v,
+                             unit="ohm.m", descr=f"{end} end of the resistivity range the data allow")
     if "res_p50" in models:
         from .las_posterior import posterior_curves
         for mnem, values, unit, descr in posterior_curves(models, i, depth):

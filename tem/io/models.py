@@ -66,6 +66,10 @@ POSTERIOR_COLUMNS = (
     "depth_top_p10_m", "depth_top_p50_m", "depth_top_p90_m", "depth_top_std_linearised_m",
     "target_top_p10_m", "target_top_p50_m", "target_top_p90_m",
 )
+#: Extra columns of a few-layer models file with resistivity ranges (the range of each
+#: layer's resistivity the data allow, from a chi2 profile: tem.invert.equivalence).
+RANGE_COLUMNS = {"resistivity_low_ohmm": "resistivity_low",
+                 "resistivity_high_ohmm": "resistivity_high"}
 _POSTERIOR_VARS = ("depth_p10", "depth_p50", "depth_p90", "depth_std_linearised",
                    "target_top_p10", "target_top_p50", "target_top_p90")
 
@@ -329,6 +333,8 @@ def layer_rows(ds):
                 "verdict_code": verdicts[i]["code"] if verdicts[i] else "",
                 "verdict_reasons": verdicts[i]["reasons"] if verdicts[i] else "",
             })
+            if "resistivity_low" in ds:
+                rows[-1].update({c: _num(ds[v].values[i, k]) for c, v in RANGE_COLUMNS.items()})
             if "depth_p50" in ds:
                 rows[-1].update({c: _num(ds[v].values[i] if ds[v].ndim == 1 else ds[v].values[i, k])
                                  for c, v in zip(POSTERIOR_COLUMNS, _POSTERIOR_VARS)})
@@ -349,8 +355,9 @@ def write_models_csv(ds, path):
     rows = layer_rows(ds)
     with atomic_path(path) as tmp:
         with open(tmp, "w", newline="", encoding="utf-8") as fh:
-            w = csv.DictWriter(fh, fieldnames=CSV_COLUMNS + (POSTERIOR_COLUMNS if "depth_p50" in ds
-                                                             else ()))
+            w = csv.DictWriter(fh, fieldnames=CSV_COLUMNS
+                               + (tuple(RANGE_COLUMNS) if "resistivity_low" in ds else ())
+                               + (POSTERIOR_COLUMNS if "depth_p50" in ds else ()))
             w.writeheader()
             w.writerows(rows)
     return Path(path)
