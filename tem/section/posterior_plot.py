@@ -79,7 +79,7 @@ def posterior_section_figure(models, settings, title=None):
                     capsize=2, lw=0.8, label="target top P50 (P10-P90)")
         ax.set_ylim(ye[-1], ye[0])
         ax.set_ylabel("depth below surface (m)")
-    _mark_unconverged((ax1, ax2), models, idx, sd, scale, (ye[0], ye[-1]))
+    _mark_unconverged((ax1, ax2), models, idx, sd, scale, (ye[0], ye[-1]), (xe[0], xe[-1]))
     ax1.legend(fontsize=7, loc="lower left")
     ax1.set_title(title or "posterior P50 resistivity (few-layer models)", pad=14)
     ax2.set_title("posterior spread: log10(P90 / P10) of resistivity")
@@ -90,9 +90,10 @@ def posterior_section_figure(models, settings, title=None):
     return fig
 
 
-def _mark_unconverged(axes, models, idx, sd, scale, yrange):
+def _mark_unconverged(axes, models, idx, sd, scale, yrange, xrange):
     """Hatch and label the columns of stations with unconverged intervals (``idx``: models
-    rows in profile order, ``sd`` their distances, already scaled)."""
+    rows in profile order, ``sd`` their distances, already scaled; ``xrange`` the section's
+    extent, which the marks do not leave)."""
     from ..io.models import interval_words
     from .plot import label_stations, mark_columns, station_edges
 
@@ -100,7 +101,7 @@ def _mark_unconverged(axes, models, idx, sd, scale, yrange):
     if "unconverged" not in words:
         return
     cls = [3 if w == "unconverged" else 0 for w in words]
-    edges = station_edges(np.asarray(sd) / scale, scale)
+    edges = np.clip(station_edges(np.asarray(sd) / scale, scale), *xrange)
     sid = models["station"].values.astype(str)[idx]
     rhat = models["rhat_max"].values.astype(float)[idx]
     ess = models["ess_min"].values.astype(float)[idx]
@@ -108,5 +109,6 @@ def _mark_unconverged(axes, models, idx, sd, scale, yrange):
               for s, r, e, c in zip(sid, rhat, ess, cls)]
     for k, ax in enumerate(axes):
         mark_columns(ax, edges, cls, yrange, "interval-columns")
+        ax.set_xlim(*xrange)
         if k == 0:
             label_stations(ax, sd, labels, yrange, "interval-label-", color="#a4281b")
