@@ -10,17 +10,15 @@ defaults are looser on purpose (a field check, docs/inversion.md, "Interval verd
 """
 from __future__ import annotations
 
+import contextlib
 import csv
 import io
 import json
 import math
 
-import numpy as np
 import pytest
 
 from tem.invert.interval import judge_interval
-
-from gated_fixture import write_two_stations
 
 DEFAULTS = dict(rhat_max=1.1, ess_min=100)
 
@@ -50,121 +48,159 @@ def test_verdict_from_numbers():
     assert not judge_interval(1.05, 300, rhat_max=1.01, ess_min=400).converged
 
 
-# 2 chains of 50 draws after 50 burn-in steps: far too short for a 4-layer posterior, so the
-# split R-hat is large and the ESS small (deterministic: fixed seed)
-TINY = ["--posterior-draws", "50", "--posterior-burn", "50", "--posterior-chains", "2"]
+# 2 chains of 50 draws after 50 burn-in steps: far too short for a 3-layer posterior, so the
+# split R-hat is large and the ESS small (deterministic: fixed seeds). Two Emberline stations
+# (fictional survey), 60 s of data each, through the whole chain of tem run.
+PROCESSING = """
+[processing.gate]
+per_decade = 4.0
+
+[processing.invert]
+layers = 12
+kind = "posterior"
+few_layers = 3
+few_search = "local"
+posterior_draws = 50
+posterior_burn = 50
+posterior_chains = 2
+posterior_restarts = 0
+
+[processing.section]
+depth_step = 25.0
+formats = ["png"]
+
+[processing.export]
+las_step = 10.0
+"""
+STATIONS = ["EM04", "EM06"]
 
 
 @pytest.fixture(scope="module")
-def tiny(tmp_path_factory):
+def run(tmp_path_factory):
+    import tomli_w
+
+    from tem.cli import main
+    from tem.survey import survey_to_dict
+    from tem.synth import emberline_survey, synth_survey
+
+    root = tmp_path_factory.mktemp("interval")
+    day = root / "day"
+    sv, models = emberline_survey(base_dir=day, sample_rate=1000.0, stations=STATIONS,
+                                  current_channel=False)
+    day.mkdir(parents=True, exist_ok=True)
+    synth_survey(sv, models, day, seed=3, duration=60.0)
+    (day / "survey.toml").write_text(tomli_w.dumps(survey_to_dict(sv)) + PROCESSING)
+    out = root / "P"
+    buf_out, buf_err = io.StringIO(), io.StringIO()
+    with contextlib.redirect_stdout(buf_out), contextlib.redirect_stderr(buf_err):
+        rc = main(["run", str(day / "survey.toml"), "--out", str(out), "--jobs", "1",
+                   "--no-progress"])
+    return out, rc, buf_out.getvalue(), buf_err.getvalue()
+
+
+def test_run_json_summary_and_exit_status(run):
+    out, rc, stdout, _ = run
+    state = json.loads((out / "run.json").read_text())
+    for sid in STATIONS:
+        s = state["stations"][sid]
+        assert s["interval_verdict"] == "unconverged" and s["interval_code"] == 1, s
+        # the verdict agrees with the stored numbers: R-hat > 1.1 or ESS < 100
+        assert s["rhat_max"] > 1.1 or s["ess_min"] < 100
+        assert s["interval_text"].startswith("intervals unconverged: split R-hat ")
+        assert f"R-hat {s['rhat_max']:.2f}" in s["interval_text"]
+        assert state["stages"]["invert"]["stations"][sid]["interval_verdict"] == "unconverged"
+        # the closing summary says it in the notes; the fit column keeps the fit verdict
+        row = _summary_row(stdout, sid)
+        assert "intervals unconverged: split R-hat" in row and s["verdict"] in row.split()[:8]
+    assert "intervals unconverged at 2 of 2 station(s): EM04, EM06" in " ".join(stdout.split())
+    # exit status: an unconverged interval is a warning; only a misfit fit or a failed
+    # station makes it 1 (docs/inversion.md, "Verdicts")
+    misfit = [sid for sid in STATIONS if state["stations"][sid]["verdict"] == "misfit"]
+    assert rc == (1 if misfit else 0), (rc, misfit)
+
+
+def _summary_row(stdout, sid):
+    """The summary row of ``sid`` with the continuation lines of its folded notes, as one line."""
+    out, inside = [], False
+    for ln in stdout.splitlines():
+        first = ln.split()[0] if ln.split() else ""
+        if first.startswith("EM") or not ln.strip():
+            inside = first == sid
+        if inside:
+            out.append(ln.strip())
+    return " ".join(" ".join(out).split())
+
+
+def test_invert_table(run):
     from rich.console import Console
 
     from tem.cli.invert import fit_table
-    from tem.invert.settings import INVERT
-    from tem.invert.stage import run
-    from tem.runtime import StageContext
+    from tem.runtime import StageResult, StationOutcome
 
-    folder = tmp_path_factory.mktemp("gated")
-    write_two_stations(folder)
-    out = tmp_path_factory.mktemp("proj")
-    settings = INVERT.cls(kind="posterior", few_layers=3, few_search="local", posterior_draws=50,
-                          posterior_burn=50, posterior_chains=2, posterior_restarts=0)
-    res = run(settings, sorted(folder.glob("*.nc")), out, StageContext(figures=True))
-    console = Console(record=True, width=200, file=io.StringIO())
+    out = run[0]
+    recs = json.loads((out / "run.json").read_text())["stages"]["invert"]["stations"]
+    res = StageResult(stations={sid: StationOutcome(sid, "ok", info=r) for sid, r in recs.items()})
+    console = Console(record=True, width=250, file=io.StringIO())
     fit_table(res, console)
-    return folder, out, res, console.export_text()
+    assert console.export_text().count("intervals unconverged: split R-hat") == 2
 
 
-def test_unconverged_station_is_marked_everywhere(tiny):
-    from tem.export.las import las_for_station, write_las
+def test_models_csv_and_las(run):
+    import lasio
+
     from tem.io.models import read_models
-    from tem.pipeline.summary import summary_table
-    from rich.console import Console
 
-    folder, out, res, console_text = tiny
-    infos = {sid: oc.info for sid, oc in res.stations.items()}
-    assert set(infos) == {"E0", "E1"}
-    for sid, info in infos.items():
-        assert info["interval_verdict"] == "unconverged", info
-        assert info["interval_code"] == 1
-        assert info["interval_text"].startswith("intervals unconverged: split R-hat ")
-        assert f"R-hat {info['rhat_max']:.2f}" in info["interval_text"]
-        assert info["verdict"] != "unconverged"           # the fit verdict stays its own
-    # run.json: the station info goes in as plain JSON (stages.invert.stations.*, stations.*)
-    state = json.loads(json.dumps({
-        "survey": {"name": "Emberline"},
-        "stages": {"invert": {"stations": {s: {"status": "ok", **i} for s, i in infos.items()}}},
-        "stations": infos}))
-    assert state["stations"]["E0"]["interval_verdict"] == "unconverged"
-    # the closing summary of tem run says it in the notes column, with the numbers
-    rc = Console(record=True, width=300, file=io.StringIO())
-    rc.print(summary_table(state))
-    text = rc.export_text()
-    for sid, info in infos.items():
-        row = next(ln for ln in text.splitlines() if ln.strip().startswith(sid))
-        assert "intervals unconverged: split R-hat" in row and info["verdict"] in row
-    # tem invert's table
-    assert console_text.count("intervals unconverged") == 2
-    # models.nc: CF flags like the fit verdict
+    out = run[0]
     ds = read_models(out / "models" / "models.nc")
     assert list(ds["interval_verdict_code"].values) == [1, 1]
     assert list(ds["interval_verdict_code"].attrs["flag_values"]) == [0, 1]
     assert ds["interval_verdict_code"].attrs["flag_meanings"] == "converged unconverged"
     assert all(str(t).startswith("intervals unconverged") for t in ds["interval_verdict"].values)
-    # the verdict is consistent with the stored numbers (R-hat > 1.1 or ESS < 100)
-    assert np.all((ds["rhat_max"].values > 1.1) | (ds["ess_min"].values < 100))
-    # posterior.csv and models.csv: a column with the word on every row
-    for name in ("posterior.csv", "models.csv"):
-        with open(out / "models" / name, encoding="utf-8") as fh:
+    for f in (out / "models" / "posterior.csv", out / "models" / "models.csv",
+              out / "exports" / "models.csv"):
+        with open(f, encoding="utf-8") as fh:
             rows = list(csv.DictReader(fh))
-        assert rows and {r["interval_verdict"] for r in rows} == {"unconverged"}, name
-    # LAS: INTV parameter and a warning in ~Other
-    import lasio
-    las = lasio.read(write_las(las_for_station(ds, 0, 10.0), out / "E0.las"))
-    assert las.params["INTV"].value == "UNCONVERGED"
-    assert "split R-hat" in str(las.params["INTVR"].value)
-    assert "intervals UNCONVERGED" in las.other
-    # the stage note names the stations; the exit status stays 0 (a warning)
-    assert any("intervals unconverged at 2 of 2 station(s): E0, E1" in n for n in res.notes)
-    from tem.cli.common import finish
-    from tem.invert.stage import not_fitted
-    # exit status: decided by failed stations and misfit fits only, never by the intervals
-    assert finish("invert", res, out, not_fitted=not_fitted(res)) == (1 if not_fitted(res) else 0)
-    assert all(v == "misfit" for v in not_fitted(res).values())
+        assert rows and {r["interval_verdict"] for r in rows} == {"unconverged"}, f
+    for sid in STATIONS:
+        las = lasio.read(out / "exports" / "las" / f"{sid}.las")
+        assert las.params["INTV"].value == "UNCONVERGED"
+        assert "split R-hat" in str(las.params["INTVR"].value)
+        assert "intervals UNCONVERGED" in las.other
 
 
-def test_figures_mark_unconverged_stations(tiny):
+def test_figures_mark_unconverged_stations(run):
     from tem.io.models import read_models
     from tem.section.posterior_plot import posterior_section_figure
     from tem.section.settings import SectionSettings
 
-    folder, out, res, _ = tiny
+    out = run[0]
+    assert (out / "figures" / "section_posterior.png").stat().st_size > 10_000
     ds = read_models(out / "models" / "models.nc")
     fig = posterior_section_figure(ds, SectionSettings())
     ax1, ax2 = fig.axes[:2]                  # the two panels; then the two colour bars
     for ax in (ax1, ax2):
-        marked = [c for c in ax.collections if c.get_gid() == "interval-columns"]
-        assert marked, "unconverged columns not hatched"
+        assert [c for c in ax.collections if c.get_gid() == "interval-columns"], "not hatched"
     labels = [t.get_text() for t in ax1.get_legend().get_texts()]
     assert "intervals unconverged (R-hat, ESS)" in labels
-    assert {t.get_gid() for t in ax1.texts} >= {"interval-label-E0", "interval-label-E1"}
+    assert {t.get_gid() for t in ax1.texts} >= {f"interval-label-{s}" for s in STATIONS}
     # a models file whose intervals converged has no marks
     ok = ds.copy()
     ok["interval_verdict_code"] = ok["interval_verdict_code"] * 0
     fig = posterior_section_figure(ok, SectionSettings())
     assert not [c for ax in fig.axes for c in ax.collections if c.get_gid() == "interval-columns"]
-    # the per-station figure was written (its title carries the verdict; checked by eye)
-    assert (out / "figures" / "stations" / "E0_fit.png").stat().st_size > 20_000
 
 
-def test_report_station_table_marks_unconverged(tiny):
+def test_report_station_table(run):
     from tem.io.models import read_models
-    from tem.report.html import render_report, station_table
+    from tem.report.html import station_table
 
-    _, out, _, _ = tiny
-    ds = read_models(out / "models" / "models.nc")
-    rows = station_table(ds, None, 2.0)
+    out = run[0]
+    rows = station_table(read_models(out / "models" / "models.nc"), None, 2.0)
     assert [r["interval"] for r in rows] == ["unconverged", "unconverged"]
-    text = render_report(out, ds, chi2_limit=2.0, embed=False)
+    text = (out / "report.html").read_text()
     assert "<th>intervals</th>" in text and "intervals unconverged at 2" in text
-    assert text.count("intervals unconverged: split R-hat") == 2
+    stations = text[text.index('id="stations"'):]
+    table = stations[:stations.index("</table>")]
+    for sid in STATIONS:
+        row = [r for r in table.split("<tr") if f">{sid}<" in r][0]
+        assert ">unconverged<" in row and "intervals unconverged: split R-hat" in row
