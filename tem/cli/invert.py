@@ -14,7 +14,9 @@ def add_parser(sub):
                        "and uncertainty. Writes OUT/models/models.nc, models.csv, fit.csv and "
                        "OUT/figures/stations/<station>_fit.png. Exit status 1 if a station failed or "
                        "its chosen model is not fitted (misfit; every product is "
-                       "still written), 2 on bad input.")
+                       "still written), 2 on bad input. With --kind posterior, stations whose "
+                       "chains did not converge have their intervals marked unconverged (a "
+                       "warning: exit status unchanged).")
     p.add_argument("gated", nargs="+", help="gated-sounding files, or folders of them")
     common.add_out(p)
     common.add_run_options(p)
@@ -61,7 +63,10 @@ def fit_table(res, console):
         others = [f"{k} {o['status']} chi2 {o['chi2']:.2f}" for k, o in i["verdicts"].items()
                   if k != own and o.get("chi2") is not None]
         reasons = v.get("reasons", [])[1:] + others
-        if "rhat_max" in i:
+        if "interval_text" in i:         # the verdict on the posterior intervals, with numbers
+            colour = "yellow" if i.get("interval_verdict") == "unconverged" else "green"
+            reasons.append(f"[{colour}]{i['interval_text']}[/]")
+        elif "rhat_max" in i:
             reasons.append(f"posterior R-hat {i['rhat_max']:.3f}, ESS {i['ess_min']:.0f}")
         t.add_row(sid, i["model_kind"], f"[{_COLOUR.get(i['verdict'], 'white')}]{i['verdict']}[/]",
                   f"{i['chi2']:.2f}", f"{v.get('tolerance', float('nan')):.2f}",

@@ -146,6 +146,9 @@ def las_for_station(models, i, step, bottom=None, mask_below_doi=False, source="
     fit = next((p[2] for p in params if p[0] == "FIT"), "UNKNOWN")
     if fit not in ("FITTED", "UNKNOWN"):
         las.other += f" WARNING: verdict {fit} (see FIT, FITR): {_WARNING[fit]}"
+    if "res_p50" in models:
+        from .las_posterior import interval_warning
+        las.other += interval_warning(params)
     las.append_curve("DEPT", depth, unit="m", descr="Depth below ground level")
     las.append_curve("RES", r, unit="ohm.m", descr="Model resistivity")
     las.append_curve("RSTD", s, unit="log10(ohm.m)", descr="Std of log10 resistivity")

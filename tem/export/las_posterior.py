@@ -13,13 +13,17 @@ our own):
 
 Parameters: ``TTP10``, ``TTP50``, ``TTP90`` (m) target-top percentiles,
 ``TLAY`` the target layer, ``RHAT`` the largest split R-hat and ``ESS`` the
-smallest effective sample size of the station's chains.
+smallest effective sample size of the station's chains, ``INTV`` the verdict
+on the intervals (``CONVERGED``, ``UNCONVERGED``; ``UNKNOWN`` for a models
+file without one; :mod:`tem.invert.interval`) and ``INTVR`` that verdict in
+words and numbers. An unconverged interval adds a warning to ``~Other``
+(:func:`interval_warning`).
 """
 from __future__ import annotations
 
 import numpy as np
 
-__all__ = ["posterior_curves", "posterior_params"]
+__all__ = ["posterior_curves", "posterior_params", "interval_warning"]
 
 CURVES = (("RP10", "res_p10", "ohm.m", "Posterior P10 resistivity"),
           ("RP50", "res_p50", "ohm.m", "Posterior P50 resistivity"),
@@ -52,4 +56,27 @@ def posterior_params(models, i, null):
             ("TTP90", "m", num("target_top_p90", 2), "Target top, posterior P90"),
             ("TLAY", "", int(models["target_layer"].values[i]), "Target layer (0 = top)"),
             ("RHAT", "", num("rhat_max", 4), "Largest split R-hat of the chains"),
-            ("ESS", "", num("ess_min", 1), "Smallest effective sample size")]
+            ("ESS", "", num("ess_min", 1), "Smallest effective sample size"),
+            *interval_params(models, i)]
+
+
+def interval_params(models, i):
+    """``INTV`` (verdict word in capitals) and ``INTVR`` (its text) of station ``i``."""
+    from ..io.models import interval_words
+
+    word = interval_words(models)[i]
+    if not word:
+        return [("INTV", "", "UNKNOWN", "Verdict on the intervals: none recorded")]
+    text = str(models["interval_verdict"].values[i]) if "interval_verdict" in models else ""
+    return [("INTV", "", word.upper(), "Verdict on the posterior intervals: CONVERGED "
+             "UNCONVERGED"),
+            ("INTVR", "", text.replace(":", " "), "Interval verdict in words and numbers")]
+
+
+def interval_warning(params):
+    """Sentence for ``~Other`` when the parameters say the intervals are unconverged, else ""."""
+    word = next((p[2] for p in params if p[0] == "INTV"), "")
+    if word != "UNCONVERGED":
+        return ""
+    return (" WARNING: intervals UNCONVERGED (see INTV, INTVR, RHAT, ESS): the chains did not mix; "
+            "the RP10/RP50/RP90 and TTP percentiles are not yet the posterior's.")

@@ -73,7 +73,16 @@ def posterior_station_figure(result, cover_layers, true_model=None):
     ax_m.set_ylim(z_max, 0)
     ax_m.set_xlabel("resistivity (ohm-m)")
     ax_m.set_ylabel("depth (m)")
-    ax_m.set_title(f"posterior: R-hat {post.max_rhat:.3f}, ESS {post.min_ess:.0f}")
+    iv = getattr(result, "interval", None)
+    if iv is None:
+        ax_m.set_title(f"posterior: R-hat {post.max_rhat:.3f}, ESS {post.min_ess:.0f}")
+    else:   # the verdict on the intervals, in words and numbers (tem.invert.interval)
+        bad = not iv.converged
+        ax_m.set_title(f"intervals {iv.status.upper() if bad else iv.status}:\n"
+                       f"R-hat {iv.rhat:.2f}, ESS {iv.ess:.0f}", color="#a4281b" if bad else "k",
+                       fontweight="bold" if bad else "normal")
+        if bad:
+            fig.suptitle(f"station {result.station}: {iv.text}", color="#a4281b", fontsize=10)
     cell = edges[1]
     p_if = pr["interface_density"] * cell
     p_tt = pr["target_density"] * cell

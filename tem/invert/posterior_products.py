@@ -24,6 +24,10 @@ posterior variables):
 * ``target_top_p025`` .. ``target_top_p975`` (station,), m; ``target_top_linearised``
   and ``target_top_std_linearised`` (station,), m;
 * ``rhat_max``, ``ess_min``, ``posterior_seconds``, ``chi2_posterior`` (station,).
+* ``interval_verdict_code`` (station,), CF flags 0 converged, 1 unconverged, and
+  ``interval_verdict`` (station,), the verdict in words and numbers
+  (:mod:`tem.invert.interval`): whether the chains mixed well enough for the
+  percentiles to be read as the posterior's.
 """
 from __future__ import annotations
 
@@ -35,14 +39,16 @@ import numpy as np
 from .posterior import depth_tops, target_layer, target_tops
 
 __all__ = ["QUANTILES", "TARGET_QUANTILES", "depth_edges", "station_products",
-           "add_posterior", "write_posterior_csv", "POSTERIOR_CSV_COLUMNS"]
+           "add_posterior", "write_posterior_csv", "POSTERIOR_CSV_COLUMNS",
+           "add_interval_verdicts"]
 
 QUANTILES = (0.1, 0.5, 0.9)
 TARGET_QUANTILES = (0.025, 0.1, 0.5, 0.9, 0.975)
 _TQ_NAMES = ("p025", "p10", "p50", "p90", "p975")
 
 POSTERIOR_CSV_COLUMNS = ("station", "depth_m", "res_p10_ohmm", "res_p50_ohmm", "res_p90_ohmm",
-                         "interface_density_per_m", "target_density_per_m", "below_doi")
+                         "interface_density_per_m", "target_density_per_m", "below_doi",
+                         "interval_verdict")
 
 
 def depth_edges(results, cells):
@@ -135,6 +141,7 @@ def add_posterior(ds, results, cells, cover_layers):
                       {"units": "1", "long_name": "largest split R-hat over the parameters"})
     ds["ess_min"] = ("station", np.array([r.posterior.min_ess for r in results]),
                      {"units": "1", "long_name": "smallest bulk or tail ESS over the parameters"})
+    add_interval_verdicts(ds, [r.interval for r in results])
     ds["chi2_posterior"] = ("station", np.array([r.posterior.chi2_median for r in results]),
                             {"units": "1", "long_name": "median chi-square per datum of the draws"})
     ds["posterior_seconds"] = ("station", np.array([r.posterior.seconds for r in results]),
@@ -148,12 +155,36 @@ def add_posterior(ds, results, cells, cover_layers):
     return ds
 
 
+def add_interval_verdicts(ds, verdicts):
+    """``interval_verdict_code`` (CF flags) and ``interval_verdict`` (text) per station, in place
+    (a no-op when a station has no verdict)."""
+    from .interval import INTERVAL_STATUSES, interval_flag_meanings
+
+    if not verdicts or any(v is None for v in verdicts):
+        return ds
+    ds["interval_verdict_code"] = ("station", np.array([v.code for v in verdicts], np.int8), {
+        "long_name": "verdict on the posterior intervals",
+        "flag_values": np.arange(len(INTERVAL_STATUSES), dtype=np.int8),
+        "flag_meanings": interval_flag_meanings(),
+        "comment": "0 converged (largest split R-hat and smallest ESS within the thresholds); "
+                   "1 unconverged: the percentiles are not yet the posterior's, a warning "
+                   "(docs/inversion.md, Interval verdict)"})
+    ds["interval_verdict"] = ("station", np.array([v.text for v in verdicts], dtype=object)
+                              .astype(str), {"long_name": "verdict on the posterior intervals, "
+                                             "in words"})
+    return ds
+
+
 def write_posterior_csv(ds, path):
     """Resistivity percentiles and probability densities versus depth, one row per station and
-    depth cell (:data:`POSTERIOR_CSV_COLUMNS`), atomically."""
+    depth cell (:data:`POSTERIOR_CSV_COLUMNS`; ``interval_verdict`` repeats the station's
+    interval verdict word on every row), atomically."""
     from ..io.atomic import atomic_path
 
+    from ..io.models import interval_words
+
     z = ds["post_depth"].values
+    words = interval_words(ds)
     with atomic_path(path) as tmp:
         with open(tmp, "w", newline="", encoding="utf-8") as fh:
             w = csv.writer(fh)
@@ -164,5 +195,6 @@ def write_posterior_csv(ds, path):
                     w.writerow([sid, repr(float(zj))] +
                                [repr(float(ds[v].values[i, j])) for v in
                                 ("res_p10", "res_p50", "res_p90", "interface_density",
-                                 "target_density")] + [int(np.isfinite(doi) and zj >= doi)])
+                                 "target_density")] + [int(np.isfinite(doi) and zj >= doi),
+                                                       words[i]])
     return Path(path)

@@ -251,6 +251,16 @@ INVERT = SettingsTable("invert", [
     Setting("posterior_restarts", 12, "int", minimum=0, maximum=1000,
             help="posterior sampling: extra few-layer fits from perturbed starts when the fit's "
             "chi2 per datum exceeds 1.5; the best starts the chains (0: off)"),
+    Setting("interval_rhat_max", 1.1, "float", minimum=1, maximum=1e9,
+            help="posterior intervals are converged when the largest split R-hat is at most "
+            "this (and the ESS at least interval_ess_min); otherwise marked unconverged",
+            source="Gelman et al. 2013, Bayesian Data Analysis, 3rd ed., sec. 11.4; looser than "
+            "the 1.01 of Vehtari et al. 2021 (a field check, not a publication criterion)"),
+    Setting("interval_ess_min", 100.0, "float", minimum=0, maximum=1e9,
+            help="posterior intervals are converged when the smallest bulk or tail effective "
+            "sample size (draws of all chains) is at least this",
+            source="looser than the 400 of Vehtari et al. 2021, Bayesian Analysis 16(2) (a field "
+            "check, not a publication criterion)"),
     Setting("cover_layers", 1, "int", minimum=0, maximum=6,
             help="layers of cover from the top; the target is the most conductive layer below "
             "them (posterior products)"),

@@ -44,6 +44,8 @@ def invert_one(sid, in_path, settings: InversionSettings, floors, fig_path):
     if r.posterior is not None:
         info.update(rhat_max=r.posterior.max_rhat, ess_min=r.posterior.min_ess,
                     posterior_s=round(r.posterior.seconds, 2))
+    if r.interval is not None:
+        info.update(r.interval.as_dict())
     return StationOutcome(sid, "ok", inputs=[{"file": str(in_path), "sha256": file_sha256(in_path)}],
                           info=info, payload=r, products=products)
 
@@ -105,10 +107,16 @@ def _lci(results, files, settings, floors, folder, record, epsg, res):
 
 
 def _posterior_note(ds):
+    from ..io.models import interval_words
+
     rhat, ess = ds["rhat_max"].values, ds["ess_min"].values
+    bad = [sid for sid, w in zip(ds["station"].values.astype(str), interval_words(ds))
+           if w == "unconverged"]
+    verdict = (f"; intervals unconverged at {len(bad)} of {ds.sizes['station']} station(s): "
+               f"{', '.join(bad)} (a warning; run longer chains)" if bad else "")
     return (f"posterior sampling: largest split R-hat {np.nanmax(rhat):.3f}, smallest ESS "
             f"{np.nanmin(ess):.0f}, {float(np.nanmedian(ds['posterior_seconds'].values)):.1f} s "
-            "per station (median)")
+            f"per station (median){verdict}")
 
 
 def run(settings: InversionSettings, gated_files, out, ctx: StageContext = StageContext()) -> StageResult:

@@ -16,6 +16,7 @@ from .fewlayer import FewLayerResult, Prior, fewlayer_inversion
 from .settings import InversionSettings
 from .smooth import (LN_RHO_MAX, LN_RHO_MIN, best_halfspace, chi2_per_datum, diffusion_depth,
                      log_mesh, occam, roughness_matrix)
+from .interval import interval_verdict_of
 from .verdict import Verdict, verdict_of
 
 __all__ = ["InversionSettings", "StationResult", "mesh_for", "smooth_station", "invert_station",
@@ -51,6 +52,7 @@ class StationResult:
     verdict: Verdict | None = None   # verdict on the smooth (or LCI) model
     doi_parts: dict | None = None    # DOI of each method computed, m
     resolution: np.ndarray | None = None  # diagonal of the smooth model's resolution matrix
+    interval: object | None = None   # tem.invert.interval.IntervalVerdict (kind posterior)
 
     def verdict_for(self, kind) -> Verdict | None:
         """Verdict on the model of ``kind`` (smooth, lci: this result; few-layer and
@@ -313,6 +315,8 @@ def invert_station(sd, settings: InversionSettings = InversionSettings(), callba
             refit["verdict"] = few_verdict(settings, refit, sd.d_obs.size)
             out.few = refit
         out.posterior = posterior_station(sd, settings, out.few)
+        # judged from the final diagnostics of the kept draws
+        out.interval = interval_verdict_of(settings, out.posterior)
     if out.few is not None:
         from .equivalence import equivalence_ranges
         out.few["resistivity_range"] = equivalence_ranges(sd, settings, out.few)

@@ -35,6 +35,7 @@ __all__ = [
     "layer_bottoms",
     "export_record",
     "model_verdicts",
+    "interval_words",
 ]
 
 FORMAT = "models"
@@ -64,7 +65,7 @@ CSV_COLUMNS = (
 #: target-top percentiles (tem.invert.posterior_products).
 POSTERIOR_COLUMNS = (
     "depth_top_p10_m", "depth_top_p50_m", "depth_top_p90_m", "depth_top_std_linearised_m",
-    "target_top_p10_m", "target_top_p50_m", "target_top_p90_m",
+    "target_top_p10_m", "target_top_p50_m", "target_top_p90_m", "interval_verdict",
 )
 #: Extra columns of a few-layer models file with resistivity ranges (the range of each
 #: layer's resistivity the data allow, from a chi2 profile: tem.invert.equivalence).
@@ -294,6 +295,17 @@ def model_verdicts(ds):
     return out
 
 
+def interval_words(ds):
+    """Per station: the verdict on its posterior intervals, ``converged`` or ``unconverged``
+    (decoded from ``interval_verdict_code`` with its CF ``flag_meanings``), or "" without one."""
+    n = ds.sizes["station"]
+    if "interval_verdict_code" not in ds.variables:
+        return [""] * n
+    names = str(ds["interval_verdict_code"].attrs.get("flag_meanings", "")).split()
+    return [names[c] if 0 <= c < len(names) else "unknown"
+            for c in ds["interval_verdict_code"].values.astype(int)]
+
+
 def layer_rows(ds):
     """One dict per present layer per station, in :data:`CSV_COLUMNS` order.
 
@@ -306,6 +318,7 @@ def layer_rows(ds):
     bottom = layer_bottoms(ds)
     epsg = int(ds.attrs.get("epsg", 0) or 0)
     verdicts = model_verdicts(ds)
+    intervals = interval_words(ds)
     rows = []
     for i, sid in enumerate(ds["station"].values.astype(str)):
         doi = float(ds["doi"].values[i])
@@ -338,6 +351,7 @@ def layer_rows(ds):
             if "depth_p50" in ds:
                 rows[-1].update({c: _num(ds[v].values[i] if ds[v].ndim == 1 else ds[v].values[i, k])
                                  for c, v in zip(POSTERIOR_COLUMNS, _POSTERIOR_VARS)})
+                rows[-1]["interval_verdict"] = intervals[i]
     return rows
 
 

@@ -62,7 +62,11 @@ def summary_table(state, title=None):
         fit = s.get("verdict", "")
         fit_cell = f"[{_VERDICT_COLOUR.get(fit, 'white')}]{fit}[/]" if fit else "-"
         reasons = s.get("verdict_text", "").split(": ", 1)[-1] if fit and fit != "fitted" else ""
-        notes = [n for n in (s.get("message"), s.get("qc_reasons"), reasons) if n]
+        # an unconverged posterior interval is a warning on the intervals, not on the fit
+        # (docs/inversion.md, "Interval verdict"): said in the notes, the fit column unchanged
+        interval = (f"[yellow]{s.get('interval_text', 'intervals unconverged')}[/]"
+                    if s.get("interval_verdict") == "unconverged" else "")
+        notes = [n for n in (s.get("message"), s.get("qc_reasons"), reasons, interval) if n]
         t.add_row(sid, _stages_cell(state, sid), gates, qc, minutes, fit_cell, chi2, doi,
                   "; ".join(notes))
     return t

@@ -68,12 +68,17 @@ def station_table(models, station_info, chi2_limit):
     Returns
     -------
     list of dict
-        Keys: station, x, y, z, chi2, doi, usable_gates, status, reasons.
+        Keys: station, x, y, z, chi2, doi, usable_gates, status, reasons, interval (the
+        verdict on the posterior intervals, ``converged`` or ``unconverged``; "" for models
+        without posterior sampling) and interval_text.
     """
-    from ..io.models import model_verdicts
+    from ..io.models import interval_words, model_verdicts
 
     info = station_info or {}
     verdicts = model_verdicts(models)
+    intervals = interval_words(models)
+    interval_text = (models["interval_verdict"].values.astype(str)
+                     if "interval_verdict" in models.variables else [""] * len(intervals))
     rows = []
     for i, sid in enumerate(models["station"].values.astype(str)):
         chi2 = float(models["chi2"].values[i])
@@ -99,6 +104,8 @@ def station_table(models, station_info, chi2_limit):
             "usable_gates": extra.get("usable_gates", ""),
             "status": status,
             "reasons": v["reasons"] if v is not None else "",
+            "interval": intervals[i],
+            "interval_text": str(interval_text[i]),
         })
     return rows
 
@@ -246,8 +253,15 @@ def _model_section(models, station_info, chi2_limit, station_figures):
     rows = station_table(models, station_info, chi2_limit)
     epsg = int(models.attrs.get("epsg", 0) or 0)
     out = []
-    n_check = sum(r["status"] not in FITTED for r in rows)
-    out.append(f'<h2 id="stations">Stations ({len(rows)}; {n_check} to check)</h2>')
+    # counted in words of the fit verdicts, not the evening verdict's ("to check" there)
+    from ..invert.verdict import FAILURES
+    n_fail = sum(r["status"].split(";")[0] in FAILURES + (STATUS_MISFIT,) for r in rows)
+    n_warn = sum(r["status"] not in FITTED for r in rows) - n_fail
+    sampled = any(r["interval"] for r in rows)
+    n_unconv = sum(r["interval"] == "unconverged" for r in rows)
+    unconv = f"; intervals unconverged at {n_unconv}" if n_unconv else ""
+    out.append(f'<h2 id="stations">Models by station ({len(rows)}: {len(rows) - n_fail - n_warn} '
+               f'fitted, {n_warn} with a warning, {n_fail} not fitted{unconv})</h2>')
     crs = f"EPSG:{epsg}" if epsg else "CRS not given"
     if any(r["reasons"] for r in rows):
         rule = ("status: the verdict on the final fit (fitted within the chi2 tolerance; misfit "
@@ -255,11 +269,16 @@ def _model_section(models, station_info, chi2_limit, station_figures):
                 "docs/inversion.md)")
     else:
         rule = f"status 'check fit' above {chi2_limit:g}"
+    if sampled:
+        rule += ("; intervals: converged when the chains' largest split R-hat and smallest "
+                 "ESS are within the thresholds, else unconverged, a warning: the P10/P50/P90 "
+                 "are not yet the posterior's (docs/inversion.md, Interval verdict)")
     out.append(f"<p class=\"meta\">Coordinates in m ({html.escape(crs)}); chi2 is chi-square "
                f"per datum of the final fit (target 1; {rule}).</p>")
+    iv_head = "<th>intervals</th>" if sampled else ""
     out.append("<table><thead><tr><th>station</th><th>x (m)</th><th>y (m)</th><th>z (m)</th>"
-               "<th>chi2</th><th>DOI (m)</th><th>usable gates</th><th>status</th><th>reasons</th>"
-               "</tr></thead><tbody>")
+               "<th>chi2</th><th>DOI (m)</th><th>usable gates</th><th>status</th>"
+               f"{iv_head}<th>reasons</th></tr></thead><tbody>")
     for r in rows:
         cls = "" if r["status"] in FITTED else (
             ' class="reoccupy"' if r["status"].split(";")[0] in ("misfit", "stalled")
@@ -267,11 +286,18 @@ def _model_section(models, station_info, chi2_limit, station_figures):
         sid = html.escape(r["station"])
         link = f'<a href="#st-{sid}">{sid}</a>' if station_figures and r["station"] in station_figures else sid
         gates = html.escape(str(r["usable_gates"]))
+        iv, reasons = "", r["reasons"]
+        if sampled:
+            style = (' style="color:#8a6d00;font-weight:600"' if r["interval"] == "unconverged"
+                     else "")
+            iv = f"<td class=\"status\"{style}>{html.escape(r['interval'])}</td>"
+            if r["interval"] == "unconverged":
+                reasons = "; ".join(x for x in (reasons, r["interval_text"]) if x)
         out.append(f"<tr{cls}><td class=\"id\">{link}</td><td>{_fmt(r['x'], 1)}</td>"
                    f"<td>{_fmt(r['y'], 1)}</td><td>{_fmt(r['z'], 1)}</td>"
                    f"<td>{_fmt(r['chi2'], 2)}</td><td>{_fmt(r['doi'], 0)}</td>"
                    f"<td>{gates}</td><td class=\"status\">{html.escape(r['status'])}</td>"
-                   f"<td class=\"id\">{html.escape(r['reasons'])}</td></tr>")
+                   f"{iv}<td class=\"id\">{html.escape(reasons)}</td></tr>")
     out.append("</tbody></table>")
     return out
 

@@ -17,6 +17,7 @@ from matplotlib.figure import Figure
 from ..errors import input_error
 
 __all__ = ["section_figure", "pseudo_section_figure", "model_figure", "mark_verdicts",
+           "mark_columns", "label_stations", "station_edges", "COLUMN_MARKS",
            "CMAP", "BELOW_DOI_STYLES"]
 
 CMAP = "Spectral"
@@ -78,6 +79,50 @@ def _runs(flags):
     return out
 
 
+#: Column marks of :func:`mark_columns`: class -> (legend label, face colour, edge colour,
+#: hatch). 1: failed fit (misfit, stalled); 2: flagged fit (bound, thin layer); 3: posterior
+#: intervals unconverged (tem.invert.interval).
+COLUMN_MARKS = {
+    1: ("model not fitted (misfit, stalled)", (0.45, 0.45, 0.45, 0.55), "0.15", "xx"),
+    2: ("model flagged (bound, thin layer)", (1, 1, 1, 0.0), "0.3", ".."),
+    3: ("intervals unconverged (R-hat, ESS)", (1, 1, 1, 0.0), "#a4281b", "\\\\"),
+}
+
+
+def station_edges(station_d, scale):
+    """Column edges of each station's share of the profile (midpoints to its neighbours)."""
+    sd = np.asarray(station_d, float)
+    return (_edges(sd) if sd.size > 1 else np.array([sd[0] - 0.5, sd[0] + 0.5])) * scale
+
+
+def mark_columns(ax, edges, classes, yrange, gid):
+    """Hatch every run of columns of equal non-zero class (:data:`COLUMN_MARKS`) between
+    ``edges``; one legend entry per class. Patches have gid ``gid``."""
+    top, bottom = yrange
+    labelled = set()
+    for i0, i1 in _runs(classes):
+        kind, face, edge, hatch = COLUMN_MARKS[classes[i0]]
+        patch = ax.fill_between(
+            [edges[i0], edges[i1 + 1]], [top, top], [bottom, bottom], facecolor=face,
+            edgecolor=edge, hatch=hatch, lw=0.0, label=None if kind in labelled else kind,
+            zorder=3)
+        labelled.add(kind)
+        patch.set_gid(gid)
+
+
+def label_stations(ax, xs, labels, yrange, gid_prefix, color="k"):
+    """A boxed label at the top of the section above each station with a non-empty label;
+    gid ``<gid_prefix><station>``. ``labels``: (station, text) per station."""
+    top, bottom = yrange
+    for x, (sid, label) in zip(xs, labels):
+        if not label:
+            continue
+        txt = ax.text(x, top + 0.04 * (bottom - top), f"{sid}\n{label}", ha="center", va="top",
+                      fontsize=7, zorder=4, color=color,
+                      bbox=dict(boxstyle="round,pad=0.2", fc="white", ec="0.3", alpha=0.85))
+        txt.set_gid(f"{gid_prefix}{sid}")
+
+
 def mark_verdicts(ax, grid, scale, yrange, column_edges=None):
     """Grey and hatch the columns made from a model that is not fitted; label those stations.
 
@@ -100,29 +145,16 @@ def mark_verdicts(ax, grid, scale, yrange, column_edges=None):
         edges = np.asarray(column_edges, float)
     else:
         cls = [0 if c <= 0 else (1 if c in (1, 2) else 2) for c in codes]
-        edges = (_edges(sd) if sd.size > 1 else np.array([sd[0] - 0.5, sd[0] + 0.5])) * scale
-    top, bottom = yrange
-    labelled = set()
-    for i0, i1 in _runs(cls):
-        failure = cls[i0] == 1
-        kind = "model not fitted (misfit, stalled)" if failure else "model flagged (bound, thin layer)"
-        patch = ax.fill_between(
-            [edges[i0], edges[i1 + 1]], [top, top], [bottom, bottom],
-            facecolor=(0.45, 0.45, 0.45, 0.55) if failure else (1, 1, 1, 0.0),
-            edgecolor="0.15" if failure else "0.3", hatch="xx" if failure else "..", lw=0.0,
-            label=None if kind in labelled else kind, zorder=3)
-        labelled.add(kind)
-        patch.set_gid("verdict-columns")
+        edges = station_edges(sd, scale)
+    mark_columns(ax, edges, cls, yrange, "verdict-columns")
+    labels = []
     for k, sid in enumerate(grid["station"].values.astype(str)):
         code = codes[k]
-        if code <= 0:
-            continue
-        status = names[code].replace("_", "-") if code < len(names) else f"code {code}"
-        label = f"{sid}\n{status}" + (f"\nchi2 {chi2[k]:.1f}" if np.isfinite(chi2[k]) else "")
-        txt = ax.text(sd[k] * scale, top + 0.04 * (bottom - top), label,
-                      ha="center", va="top", fontsize=7, zorder=4, color="k",
-                      bbox=dict(boxstyle="round,pad=0.2", fc="white", ec="0.3", alpha=0.85))
-        txt.set_gid(f"verdict-label-{sid}")
+        status = "" if code <= 0 else (names[code].replace("_", "-") if code < len(names)
+                                       else f"code {code}")
+        chi = f"\nchi2 {chi2[k]:.1f}" if status and np.isfinite(chi2[k]) else ""
+        labels.append((sid, status + chi))
+    label_stations(ax, sd * scale, labels, yrange, "verdict-label-")
 
 
 def section_figure(grid, *, below_doi, title=None, vmin=None, vmax=None, distance_unit="auto",

@@ -1,6 +1,9 @@
 """Posterior section figure: a section coloured by the posterior P50 resistivity, and below it
 the P10-P90 width (log10(P90 / P10), decades) on the same grid, with the target-top
-percentiles of every station.
+percentiles of every station. Columns of stations whose posterior intervals are unconverged
+(``interval_verdict_code`` 1; :mod:`tem.invert.interval`) are hatched in both panels, with a
+legend entry, and labelled with their R-hat and ESS (:func:`tem.section.plot.mark_columns`):
+their percentiles are not yet the posterior's.
 
 Both panels are stitched like the resistivity section (:func:`tem.section.stage.section_grid`)
 from the models file's posterior products (:mod:`tem.invert.posterior_products`): each
@@ -76,6 +79,7 @@ def posterior_section_figure(models, settings, title=None):
                     capsize=2, lw=0.8, label="target top P50 (P10-P90)")
         ax.set_ylim(ye[-1], ye[0])
         ax.set_ylabel("depth below surface (m)")
+    _mark_unconverged((ax1, ax2), models, idx, sd, scale, (ye[0], ye[-1]), (xe[0], xe[-1]))
     ax1.legend(fontsize=7, loc="lower left")
     ax1.set_title(title or "posterior P50 resistivity (few-layer models)", pad=14)
     ax2.set_title("posterior spread: log10(P90 / P10) of resistivity")
@@ -84,3 +88,27 @@ def posterior_section_figure(models, settings, title=None):
         ax1.annotate(s, (x, ye[0]), xytext=(0, 2), textcoords="offset points", ha="center",
                      va="bottom", fontsize=6, annotation_clip=False)
     return fig
+
+
+def _mark_unconverged(axes, models, idx, sd, scale, yrange, xrange):
+    """Hatch and label the columns of stations with unconverged intervals (``idx``: models
+    rows in profile order, ``sd`` their distances, already scaled; ``xrange`` the section's
+    extent, which the marks do not leave)."""
+    from ..io.models import interval_words
+    from .plot import label_stations, mark_columns, station_edges
+
+    words = [interval_words(models)[i] for i in idx]
+    if "unconverged" not in words:
+        return
+    cls = [3 if w == "unconverged" else 0 for w in words]
+    edges = np.clip(station_edges(np.asarray(sd) / scale, scale), *xrange)
+    sid = models["station"].values.astype(str)[idx]
+    rhat = models["rhat_max"].values.astype(float)[idx]
+    ess = models["ess_min"].values.astype(float)[idx]
+    labels = [(s, f"R-hat {r:.2f}\nESS {e:.0f}" if c else "")
+              for s, r, e, c in zip(sid, rhat, ess, cls)]
+    for k, ax in enumerate(axes):
+        mark_columns(ax, edges, cls, yrange, "interval-columns")
+        ax.set_xlim(*xrange)
+        if k == 0:
+            label_stations(ax, sd, labels, yrange, "interval-label-", color="#a4281b")
