@@ -209,7 +209,7 @@ def test_two_local_clusters_side_by_side_and_no_worker_profiler():
     # (docs/scaling.md)
     import dask
 
-    from tem.pipeline.cluster import dask_client
+    from tem.pipeline.cluster import dask_client, profiling_note
 
     def profiling():
         return dask.config.get("distributed.worker.profile.enabled")
@@ -217,4 +217,19 @@ def test_two_local_clusters_side_by_side_and_no_worker_profiler():
     with dask_client("local", 1) as a, dask_client("local", 1) as b:
         assert a.scheduler_info()["address"] != b.scheduler_info()["address"]
         assert list(a.run(profiling).values()) == [False]
+        assert profiling_note(a) == ""
         assert a.submit(sum, [1, 2]).result() == 3 and b.submit(sum, [3, 4]).result() == 7
+
+
+def test_workers_with_the_profiler_are_named_in_a_note():
+    # a cluster started by hand keeps dask's default (profiler on): tem run says so
+    from distributed import Client, LocalCluster
+
+    from tem.pipeline.cluster import profiling_note
+
+    with LocalCluster(n_workers=1, threads_per_worker=1, processes=True, dashboard_address=None,
+                      scheduler_kwargs={"dashboard_address": ":0"}) as cluster, \
+            Client(cluster) as client:
+        note = profiling_note(client)
+    assert note.startswith("1 dask worker(s) run the statistical profiler")
+    assert "DASK_DISTRIBUTED__WORKER__PROFILE__ENABLED=False" in note

@@ -13,7 +13,7 @@ import contextlib
 
 from ..errors import input_error
 
-__all__ = ["dask_client", "worker_peak_rss_mb"]
+__all__ = ["dask_client", "worker_peak_rss_mb", "profiling_note"]
 
 
 def _peak_rss_mb() -> float:
@@ -27,6 +27,28 @@ def worker_peak_rss_mb(client) -> float:
         return float(max(client.run(_peak_rss_mb).values()))
     except (ValueError, OSError):  # pragma: no cover - no workers left
         return float("nan")
+
+
+def _profiling() -> bool:
+    import dask
+    return bool(dask.config.get("distributed.worker.profile.enabled", True))
+
+
+def profiling_note(client) -> str:
+    """A one-line note when workers of the cluster run dask's statistical profiler, else "".
+
+    The profiler keeps a tree of call sites per second for an hour (about 0.1 MB
+    per station task measured here), so a worker's memory grows with the survey.
+    """
+    try:
+        n = sum(client.run(_profiling).values())
+    except (OSError, TimeoutError, ValueError):  # pragma: no cover - workers went away
+        return ""
+    if not n:
+        return ""
+    return (f"{n} dask worker(s) run the statistical profiler: their memory grows by about "
+            "0.1 MB per station; start workers with DASK_DISTRIBUTED__WORKER__PROFILE__ENABLED="
+            "False (docs/scaling.md)")
 
 
 @contextlib.contextmanager

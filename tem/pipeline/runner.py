@@ -438,6 +438,12 @@ def _run_locked(survey, survey_file, settings, project, start, end, jobs, consol
     stop = ""
     with contextlib.ExitStack() as stack:
         run.ctx_kw["executor"] = stack.enter_context(_executor(jobs, scheduler))
+        if scheduler not in (None, "local") and run.ctx_kw["executor"] is not None:
+            from .cluster import profiling_note
+            note = profiling_note(run.ctx_kw["executor"])
+            if note:
+                state["last_run"]["notes"].append(note)
+                console.print(f"[yellow]note[/]: {note}", highlight=False, soft_wrap=True)
         prog = stack.enter_context(Progress(*columns, console=console,
                                             disable=not progress or not console.is_terminal,
                                             transient=False))
