@@ -79,7 +79,9 @@ def models_from_results(results, kind, provenance=(), epsg=0):
                              "range the data allow (chi2 profile)",
                              "comment": "chi2 profile, docs/inversion.md (Few-layer inversion)"})
     if kind != "few-layer" and all(getattr(r, "resolution", None) is not None for r in results):
-        ds["resolution"] = (("station", "layer"), _pad([r.resolution for r in results], L), {
+        # six decimals: the diagonal is a fraction in [0, 1]; digits beyond are round-off
+        # (values of 1e-15 below the DOI differed by 2e-9 relative between two processes)
+        ds["resolution"] = (("station", "layer"), np.round(_pad([r.resolution for r in results], L), 6), {
             "units": "1", "long_name": "diagonal of the smooth model's resolution matrix",
             "comment": "1: decided by the data; below 0.1 filled by the regularisation even "
                        "above the DOI (docs/inversion.md, Depth of investigation)"})
