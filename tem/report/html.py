@@ -256,7 +256,7 @@ def _model_section(models, station_info, chi2_limit, station_figures):
     # counted in words of the fit verdicts, not the evening verdict's ("to check" there)
     from ..invert.verdict import FAILURES
     n_fail = sum(r["status"].split(";")[0] in FAILURES + (STATUS_MISFIT,) for r in rows)
-    n_warn = sum(r["status"] not in FITTED for r in rows) - n_fail
+    n_warn = sum(r["status"].split(";")[0] not in FITTED for r in rows) - n_fail
     sampled = any(r["interval"] for r in rows)
     n_unconv = sum(r["interval"] == "unconverged" for r in rows)
     unconv = f"; intervals unconverged at {n_unconv}" if n_unconv else ""
