@@ -172,6 +172,8 @@ def test_report_first_table(project):
     row = [r for r in first.split("<tr") if f">{BAD}<" in r][0]
     assert "misfit" in row
     stations = html[html.index('id="stations"'):]
+    heading = stations[:stations.index("</h2>")]            # counted in fit verdicts' words
+    assert "Models by station (2: 1 fitted, 0 with a warning, 1 not fitted)" in heading, heading
     row = [r for r in stations[:stations.index("</table>")].split("<tr") if f">{BAD}<" in r][0]
     assert "misfit" in row and "above tolerance" in row and ">ok<" not in row
     assert np.isfinite(float(row.split("<td>")[4].split("<")[0]))    # the chi2 cell
