@@ -29,8 +29,7 @@ def _stages_cell(state, sid):
         return f"[red]failed {failed[0]}[/]"
     verdict = state.get("stations", {}).get(sid, {}).get("verdict")
     if ran and verdict in _FAILURES:       # never "ok" for a model that does not fit
-        colour = "bold red" if verdict == "misfit" else "yellow"
-        return f"[{colour}]{verdict}[/] to {ran[-1][0]}"
+        return f"[{_VERDICT_COLOUR[verdict]}]{verdict}[/] to {ran[-1][0]}"
     return f"[green]ok[/] to {ran[-1][0]}" if ran else "[dim]-[/]"
 
 
