@@ -422,7 +422,7 @@ class SettingsTable:
         return _construct(self.cls, checked)
 
 
-    def _unknown(self, key) -> str:
+    def unknown_message(self, key) -> str:
         """'unknown key' with the closest valid names (the whole list is in docs/settings.md)."""
         import difflib
 
@@ -447,7 +447,7 @@ class SettingsTable:
             s = self._by_name.get(key)
             if s is None or not s.expose:
                 raise input_error(f"processing.{self.stage}.{_show_key(key)}",
-                                  self._unknown(key), file)
+                                  self.unknown_message(key), file)
             v = s.coerce(value, origin.label(self, key), file)
             if s.kind == "path" and v is not None and base is not None and not Path(v).is_absolute():
                 v = str(Path(base) / v)

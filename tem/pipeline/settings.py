@@ -80,7 +80,7 @@ def resolve_settings(processing: dict | None = None, overrides=(), survey_file=N
             raise input_error(f"--set {str(stage)[:40]}", "unknown table; valid: " + ", ".join(TABLES))
         t = TABLES[stage]
         if key not in t.names or not t.item(key).expose:
-            raise input_error(f"--set {stage}.{str(key)[:40]}", t._unknown(key))
+            raise input_error(f"--set {stage}.{str(key)[:40]}", t.unknown_message(key))
         values[stage][key] = value
         origins[stage][key] = override_origin()
     out = {}
