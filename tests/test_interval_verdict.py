@@ -10,7 +10,6 @@ defaults are looser on purpose (a field check, docs/inversion.md, "Interval verd
 """
 from __future__ import annotations
 
-import contextlib
 import csv
 import io
 import json
@@ -18,6 +17,7 @@ import math
 
 import pytest
 
+from day_fixture import run_captured, write_day
 from tem.invert.interval import judge_interval
 
 DEFAULTS = dict(rhat_max=1.1, ess_min=100)
@@ -77,25 +77,12 @@ STATIONS = ["EM04", "EM06"]
 
 @pytest.fixture(scope="module")
 def run(tmp_path_factory):
-    import tomli_w
-
-    from tem.cli import main
-    from tem.survey import survey_to_dict
-    from tem.synth import emberline_survey, synth_survey
-
     root = tmp_path_factory.mktemp("interval")
-    day = root / "day"
-    sv, models = emberline_survey(base_dir=day, sample_rate=1000.0, stations=STATIONS,
-                                  current_channel=False)
-    day.mkdir(parents=True, exist_ok=True)
-    synth_survey(sv, models, day, seed=3, duration=60.0)
-    (day / "survey.toml").write_text(tomli_w.dumps(survey_to_dict(sv)) + PROCESSING)
+    survey = write_day(root / "day", STATIONS, PROCESSING, seed=3, duration=60.0)
     out = root / "P"
-    buf_out, buf_err = io.StringIO(), io.StringIO()
-    with contextlib.redirect_stdout(buf_out), contextlib.redirect_stderr(buf_err):
-        rc = main(["run", str(day / "survey.toml"), "--out", str(out), "--jobs", "1",
-                   "--no-progress"])
-    return out, rc, buf_out.getvalue(), buf_err.getvalue()
+    rc, stdout, stderr = run_captured(["run", str(survey), "--out", str(out), "--jobs", "1",
+                                       "--no-progress"])
+    return out, rc, stdout, stderr
 
 
 def test_run_json_summary_and_exit_status(run):

@@ -13,6 +13,7 @@ import json
 
 import pytest
 
+from day_fixture import write_day
 from products_compare import assert_same_products, files_of
 from tem.cli import main
 
@@ -55,18 +56,9 @@ COMMANDS = [
 
 @pytest.fixture(scope="module")
 def two_doors(tmp_path_factory):
-    import tomli_w
-
-    from tem.survey import survey_to_dict
-    from tem.synth import emberline_survey, synth_survey
-
     root = tmp_path_factory.mktemp("doors")
     day = root / "day"
-    sv, models = emberline_survey(base_dir=day, sample_rate=1000.0, stations=["EM05", "EM06"],
-                                  current_channel=False)
-    day.mkdir(parents=True, exist_ok=True)
-    (day / "survey.toml").write_text(tomli_w.dumps(survey_to_dict(sv)) + PROCESSING)
-    synth_survey(sv, models, day, seed=3, duration=24.0)
+    write_day(day, ["EM05", "EM06"], PROCESSING, seed=3, duration=24.0)
     a, b = root / "A", root / "B"
     # 3 Occam iterations on 24 s of data do not fit (chi2 2.7-8 against a tolerance of
     # 1.7-1.8): both doors must say so with exit status 1 (the verdict, docs/inversion.md)

@@ -17,6 +17,7 @@ from pathlib import Path
 
 import pytest
 
+from day_fixture import write_day
 from products_compare import assert_same_products
 from tem.cli import main
 
@@ -49,22 +50,12 @@ STATIONS = ["EM04", "EM06", "EM08"]
 
 @pytest.fixture(scope="module")
 def day(tmp_path_factory):
-    import tomli_w
-
-    from tem.survey import survey_to_dict
-    from tem.synth import emberline_survey, synth_survey
-
     root = tmp_path_factory.mktemp("scale")
-    d = root / "day"
-    sv, models = emberline_survey(base_dir=d, sample_rate=1000.0, stations=STATIONS,
-                                  current_channel=False)
-    d.mkdir(parents=True, exist_ok=True)
-    (d / "survey.toml").write_text(tomli_w.dumps(survey_to_dict(sv)) + PROCESSING)
-    synth_survey(sv, models, d, seed=5, duration=24.0)
+    survey = write_day(root / "day", STATIONS, PROCESSING, seed=5, duration=24.0)
     ref = root / "reference"
-    assert main(["run", str(d / "survey.toml"), "--out", str(ref), "--jobs", "2",
+    assert main(["run", str(survey), "--out", str(ref), "--jobs", "2",
                  "--no-progress"]) == 0
-    return d / "survey.toml", ref
+    return survey, ref
 
 
 def _tem(*args, capture=True, **kw):

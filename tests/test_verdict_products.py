@@ -18,7 +18,7 @@ import struct
 import numpy as np
 import pytest
 
-from tem.cli import main
+from day_fixture import run_captured, write_day
 
 GOOD, BAD = "EM04", "EM06"
 
@@ -40,32 +40,19 @@ las_step = 10.0
 
 @pytest.fixture(scope="module")
 def project(tmp_path_factory):
-    import tomli_w
-
-    from tem.survey import survey_to_dict
-    from tem.synth import emberline_survey, synth_survey
+    def wrong_gain(d):
+        for st in d["station"]:
+            for rx in st["receiver"]:
+                if st["id"] == BAD and rx["component"] == "ex":
+                    rx["gain"] = 0.2           # recorded at gain 1: Ex five times too large
 
     root = tmp_path_factory.mktemp("verdicts")
-    day = root / "day"
-    sv, models = emberline_survey(base_dir=day, sample_rate=1000.0, stations=[GOOD, BAD],
-                                  current_channel=False)
-    day.mkdir(parents=True, exist_ok=True)
-    synth_survey(sv, models, day, seed=3, duration=60.0)
-    d = survey_to_dict(sv)
-    for st in d["station"]:
-        for rx in st["receiver"]:
-            if st["id"] == BAD and rx["component"] == "ex":
-                rx["gain"] = 0.2           # recorded at gain 1: Ex five times too large
-    (day / "survey.toml").write_text(tomli_w.dumps(d) + PROCESSING)
+    survey = write_day(root / "day", [GOOD, BAD], PROCESSING, seed=3, duration=60.0,
+                       edit=wrong_gain)
     out = root / "P"
-    import contextlib
-    import io
-
-    buf_out, buf_err = io.StringIO(), io.StringIO()
-    with contextlib.redirect_stdout(buf_out), contextlib.redirect_stderr(buf_err):
-        rc = main(["run", str(day / "survey.toml"), "--out", str(out), "--jobs", "1",
-                   "--no-progress"])
-    return out, rc, buf_out.getvalue(), buf_err.getvalue()
+    rc, stdout, stderr = run_captured(["run", str(survey), "--out", str(out), "--jobs", "1",
+                                       "--no-progress"])
+    return out, rc, stdout, stderr
 
 
 def test_exit_status_and_summary(project):
