@@ -148,6 +148,15 @@ def sounding(thickness, resistivity, offset):
     return np.array(out)
 
 
+def add_noise(d, rng):
+    """The suite's noise on noise-free gate values d (n_component, n_gate): returns the noisy
+    values, the stated errors ``sqrt((0.03 |d|)^2 + floor^2)`` and the usable mask (|d| > floor)."""
+    floor = np.array([FLOOR[c] for c in COMPONENTS])[:, None]
+    err = np.sqrt((REL_NOISE * np.abs(d)) ** 2 + floor ** 2)
+    noisy = d + err * rng.standard_normal(d.shape)
+    return noisy, err, np.abs(d) > floor
+
+
 def main(path="tests/data/blind_suite.npz"):
     rng = np.random.default_rng(SEED)
     go, gc = gates()
@@ -158,15 +167,13 @@ def main(path="tests/data/blind_suite.npz"):
     for name, off in CASES:
         thk, rho, layer, kind = MODELS[name]
         d = sounding(thk, rho, off)
-        floor = np.array([FLOOR[c] for c in COMPONENTS])[:, None]
-        err = np.sqrt((REL_NOISE * np.abs(d)) ** 2 + floor ** 2)
-        noisy = d + err * rng.standard_normal(d.shape)
+        noisy, err, use = add_noise(d, rng)
         names.append(name)
         offsets.append(off)
         rx_xy.append(receiver(off))
         values.append(noisy)
         errors.append(err)
-        usable.append(np.abs(d) > floor)
+        usable.append(use)
         truth.append(d)
         res_arr.append(np.pad(np.asarray(rho, float), (0, maxl - len(rho)), constant_values=np.nan))
         thk_arr.append(np.pad(np.asarray(thk, float), (0, maxl - len(rho)), constant_values=np.nan))
