@@ -3,6 +3,7 @@
 Run from the repository root::
 
     nice -n 10 python tests/create_data/thin_sweep.py     # markdown table on stdout
+    nice -n 10 python tests/create_data/thin_sweep.py 300 375 450 --realisations 3
 
 The model is basalt_thin_near of the blind suite (tests/create_data/blind_suite.py):
 100 m of 10 ohm-m cover, 800 m of 500 ohm-m basalt, a 5 ohm-m conductor with its top
@@ -11,7 +12,8 @@ at 900 m and a 1000 ohm-m basement; only the conductor's thickness changes
 Ex and dBz/dt, the suite's waveform, 32 gates and noise model) is computed with the
 suite's empymod machinery (``blind_suite.sounding`` and ``blind_suite.add_noise``;
 empymod: Werthmueller 2017, Geophysics 82(6), WB9-WB19), with its own fixed seed
-``(SEED, thickness, offset)`` so that any one case can be remade alone (the slow test
+``(SEED, thickness, offset)`` (further noise realisations r: ``(SEED, thickness, offset, r)``)
+so that any one case can be remade alone (the slow test
 in tests/test_invert_blind.py does). Each is read as a gated file
 (``blind_data.gated_dataset`` -> ``tem.invert.data.station_data``) and inverted with the
 tool's defaults, ``InversionSettings(kind="few-layer")``, exactly as
