@@ -174,14 +174,6 @@ def write_products(oc: StationOutcome):
     oc.products = []
 
 
-def _completed(executor, futures):
-    """Futures as they finish, for a local pool or a dask.distributed client."""
-    if hasattr(executor, "scheduler_info"):          # dask.distributed.Client
-        from distributed import as_completed
-        return as_completed(list(futures))
-    return cf.as_completed(futures)
-
-
 def map_stations(task, jobs, ctx: StageContext) -> dict:
     """Run ``task(*args)`` for each ``(station, args)`` in ``jobs``; returns id -> outcome.
 
@@ -209,10 +201,22 @@ def map_stations(task, jobs, ctx: StageContext) -> dict:
             done(_guarded(task, sid, args, rep))
         return {sid: out[sid] for sid, _ in jobs}
     with _partial_listener(ctx) as listening:
-        futs = {ctx.executor.submit(_guarded, task, sid, args, "queue" if listening else None): sid
-                for sid, args in todo}
-        _collect(ctx, futs, done)
+        _run_windowed(ctx.executor, task, todo, "queue" if listening else None, done)
     return {sid: out[sid] for sid, _ in jobs}
+
+
+def in_flight(executor) -> int:
+    """How many station tasks :func:`map_stations` keeps submitted at once: four per worker
+    thread (at least 8), so every worker has the next station queued while the client holds
+    the task state and results of a bounded number of stations, whatever the survey's size."""
+    try:
+        if hasattr(executor, "nthreads"):                  # dask.distributed.Client
+            n = sum(executor.nthreads().values())
+        else:
+            n = int(getattr(executor, "_max_workers", 2))
+    except Exception:  # noqa: BLE001 - a cluster that does not answer: the floor
+        n = 2
+    return max(8, 4 * n)
 
 
 @contextlib.contextmanager
@@ -244,21 +248,56 @@ def _partial_listener(ctx):
         t.join(timeout=2)
 
 
-def _collect(ctx, futs, done):
-    """Outcomes of submitted station tasks as they finish."""
-    for fut in _completed(ctx.executor, futs):
-        sid = futs.pop(fut)
-        try:
-            oc = fut.result()
-        except TemOutputError:
-            raise
-        except Exception as exc:  # noqa: BLE001 - e.g. a killed worker process
-            oc = StationOutcome(sid, "failed", f"worker failed: {type(exc).__name__}: {exc}"
-                                .splitlines()[0])
-        if hasattr(fut, "release"):     # a cluster keeps a result until its future is let go
-            fut.release()
-        del fut
-        done(oc)
+def _run_windowed(executor, task, todo, reporter, done):
+    """Submit ``todo`` to ``executor`` with at most :func:`in_flight` tasks pending; pass
+    each outcome to ``done`` as it finishes (a failed task fails its station only)."""
+    pending = {}
+    queue = iter(todo)
+    window = in_flight(executor)
+
+    def submit_next():
+        for sid, args in queue:
+            fut = executor.submit(_guarded, task, sid, args, reporter)
+            pending[fut] = sid
+            return fut
+        return None
+
+    for _ in range(window):
+        if submit_next() is None:
+            break
+    try:
+        if hasattr(executor, "scheduler_info"):            # dask.distributed.Client
+            from distributed import as_completed
+            finished = as_completed(list(pending))
+            for fut in finished:
+                _take(fut, pending.pop(fut), done)
+                new = submit_next()
+                if new is not None:
+                    finished.add(new)
+        else:
+            while pending:
+                ready, _ = cf.wait(list(pending), return_when=cf.FIRST_COMPLETED)
+                for fut in ready:
+                    _take(fut, pending.pop(fut), done)
+                    submit_next()
+    finally:
+        for fut in pending:                               # a failed write stopped the stage
+            fut.cancel()
+
+
+def _take(fut, sid, done):
+    """The outcome of one finished station task."""
+    try:
+        oc = fut.result()
+    except TemOutputError:
+        raise
+    except Exception as exc:  # noqa: BLE001 - e.g. a killed worker process
+        oc = StationOutcome(sid, "failed", f"worker failed: {type(exc).__name__}: {exc}"
+                            .splitlines()[0])
+    if hasattr(fut, "release"):     # a cluster keeps a result until its future is let go
+        fut.release()
+    del fut
+    done(oc)
 
 
 def _worker_init(pid: int, queue=None):

@@ -59,11 +59,16 @@ def dask_client(scheduler: str, jobs: int):
         from distributed import Client, LocalCluster
     except ImportError:  # pragma: no cover - a run-time dependency
         raise input_error("--scheduler", "dask.distributed is not installed") from None
+    # dask keeps its most recent low-level messages for debugging (1000 by default, per
+    # stream): each holds a serialised station task (2-7 kB), so the client's memory grew
+    # with the first few hundred stations of a run (measured: 1.1 MB per 400 stations in
+    # the client's send log alone); 50 is plenty for a traceback
+    logs = {"distributed.admin.low-level-log-length": 50}
     if scheduler == "local":
         # the workers' statistical profiler keeps a tree of call sites per second for an hour
         # (about 115 kB per station task here): off, so worker memory does not grow with the
         # survey; workers of a cluster started by hand: docs/scaling.md
-        with dask.config.set({"distributed.worker.profile.enabled": False}), \
+        with dask.config.set({"distributed.worker.profile.enabled": False, **logs}), \
                 LocalCluster(n_workers=max(1, int(jobs)), threads_per_worker=1, processes=True,
                              dashboard_address=None, silence_logs=50,
                              # no dashboard, and its small HTTP server on any free port (the
@@ -73,7 +78,8 @@ def dask_client(scheduler: str, jobs: int):
             yield client
         return
     try:
-        client = Client(scheduler, timeout="20s")
+        with dask.config.set(logs):
+            client = Client(scheduler, timeout="20s")
     except (OSError, TimeoutError, ValueError) as exc:
         raise input_error("--scheduler", f"cannot reach {scheduler} "
                           f"({type(exc).__name__}: {str(exc).splitlines()[0][:80]})") from None

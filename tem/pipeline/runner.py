@@ -85,21 +85,52 @@ def read_run(project) -> dict:
     return state
 
 
-def _plain(obj):
-    """JSON-safe copy: non-finite floats become null (strict JSON has no NaN)."""
-    if isinstance(obj, dict):
-        return {str(k): _plain(v) for k, v in obj.items()}
-    if isinstance(obj, (list, tuple)):
-        return [_plain(v) for v in obj]
-    if isinstance(obj, float) and not math.isfinite(obj):
-        return None
-    return obj
+def _json_chunks(obj, level=0):
+    """Strict JSON text of ``obj`` in pieces, as ``json.dumps(obj, indent=1)`` writes it but
+    with non-finite floats as null (strict JSON has no NaN); nothing is copied, so writing
+    the run record of a survey of thousands of stations needs no second record in memory."""
+    if isinstance(obj, (dict, list, tuple)) and _flat(obj):
+        yield json.dumps(obj, indent=1, allow_nan=False).replace("\n", "\n" + " " * level)
+    elif isinstance(obj, dict):
+        pad = "\n" + " " * (level + 1)
+        yield "{"
+        for i, (key, value) in enumerate(obj.items()):
+            yield ("," if i else "") + pad + json.dumps(str(key)) + ": "
+            yield from _json_chunks(value, level + 1)
+        yield "\n" + " " * level + "}"
+    elif isinstance(obj, (list, tuple)):
+        pad = "\n" + " " * (level + 1)
+        yield "["
+        for i, value in enumerate(obj):
+            yield ("," if i else "") + pad
+            yield from _json_chunks(value, level + 1)
+        yield "\n" + " " * level + "]"
+    elif isinstance(obj, float) and not math.isfinite(obj):
+        yield "null"
+    else:
+        yield json.dumps(obj, allow_nan=False)
+
+
+def _flat(obj) -> bool:
+    """A container of finite scalars only (string keys): one ``json.dumps`` writes it."""
+    values = obj.values() if isinstance(obj, dict) else obj
+    if isinstance(obj, dict) and not all(isinstance(k, str) for k in obj):
+        return False
+    return not any(isinstance(v, (dict, list, tuple))
+                   or (isinstance(v, float) and not math.isfinite(v)) for v in values)
 
 
 def _write_run(project, state):
-    from ..io.atomic import write_text_atomic
-    text = json.dumps(_plain(state), indent=1, sort_keys=False, allow_nan=False)
-    write_text_atomic(project.run_json, text + "\n")
+    """Write ``run.json`` atomically, streamed to the file (synced before the rename)."""
+    import os
+
+    from ..io.atomic import atomic_path
+    with atomic_path(project.run_json) as tmp:
+        with open(tmp, "w", encoding="utf-8") as fh:
+            fh.writelines(_json_chunks(state))
+            fh.write("\n")
+            fh.flush()
+            os.fsync(fh.fileno())
 
 
 def _ok(state, survey):
