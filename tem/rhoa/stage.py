@@ -7,6 +7,7 @@ from __future__ import annotations
 
 import csv
 import io
+import os
 from pathlib import Path
 
 import numpy as np
@@ -16,7 +17,7 @@ from ..provenance import file_sha256
 from ..runtime import StageContext, StageResult, StationOutcome, map_stations
 from .settings import RhoaSettings
 
-__all__ = ["run", "rhoa_one", "csv_text"]
+__all__ = ["run", "rhoa_one", "csv_text", "csv_rows"]
 
 
 def rhoa_one(sid, in_path, settings: RhoaSettings, out_path, fig_path):
@@ -35,16 +36,18 @@ def rhoa_one(sid, in_path, settings: RhoaSettings, out_path, fig_path):
         products.append((fig_path, figure_bytes(fig)))
     rho = res["rhoa" if settings.all_time else "rhoa_late"].values
     info = {"rhoa_converted": int(np.isfinite(rho).sum())}
+    # the station's rows of rhoa.csv ride back as text: a survey's table is held as
+    # its text (about 7 kB per station), not as Python tuples of floats (three times that)
     return StationOutcome(sid, "ok", inputs=[{"file": str(in_path), "sha256": file_sha256(in_path)}],
-                          info=info, payload=table_rows(res), products=products)
+                          info=info, payload=csv_rows(table_rows(res)), products=products)
 
 
 def _rows_of(project, sid):
-    """Table rows of a station's apparent-resistivity file (a product kept from an earlier run)."""
+    """CSV rows of a station's apparent-resistivity file (a product kept from an earlier run)."""
     from ..io.stacked import read_product
     from .sounding import table_rows
 
-    return table_rows(read_product(project.station_file("rhoa", sid), "rhoa"))
+    return csv_rows(table_rows(read_product(project.station_file("rhoa", sid), "rhoa")))
 
 
 def _cell(v):
@@ -53,16 +56,24 @@ def _cell(v):
     return v
 
 
-def csv_text(rows) -> str:
-    """The ``rhoa.csv`` table (:data:`tem.rhoa.sounding.TABLE_COLUMNS`; 9 significant digits)."""
-    from .sounding import TABLE_COLUMNS
-
+def csv_rows(rows) -> str:
+    """Rows of the ``rhoa.csv`` table as CSV text without the header (9 significant digits)."""
     buf = io.StringIO()
     w = csv.writer(buf, lineterminator="\n")
-    w.writerow(TABLE_COLUMNS)
     for r in rows:
         w.writerow([_cell(v) for v in r])
     return buf.getvalue()
+
+
+def csv_text(rows) -> str:
+    """The ``rhoa.csv`` table (:data:`tem.rhoa.sounding.TABLE_COLUMNS`; 9 significant digits)."""
+    return _header() + csv_rows(rows)
+
+
+def _header() -> str:
+    from .sounding import TABLE_COLUMNS
+
+    return ",".join(TABLE_COLUMNS) + "\n"
 
 
 def pseudo_sections(project: Project, stations, settings: RhoaSettings):
@@ -121,7 +132,7 @@ def run(settings: RhoaSettings, gated_files, out, ctx: StageContext = StageConte
     station, channel and gate; not written when no station converts), the
     sounding figures and, with figures on, a pseudo-section per component.
     """
-    from ..io.atomic import write_text_atomic
+    from ..io.atomic import atomic_path
 
     project = out if isinstance(out, Project) else Project(out)
     jobs = []
@@ -130,16 +141,19 @@ def run(settings: RhoaSettings, gated_files, out, ctx: StageContext = StageConte
         jobs.append((sid, (sid, f, settings, project.station_file("rhoa", sid),
                            project.station_figure(sid, "rhoa") if ctx.figures else None)))
     res = StageResult(stations=map_stations(rhoa_one, jobs, ctx))
-    rows = []
-    for sid, oc in res.stations.items():
-        if oc.status == "ok":
-            rows += oc.payload if oc.payload is not None else _rows_of(project, sid)
-    for oc in res.stations.values():
-        oc.payload = None
-    if not rows:
+    if not res.ok:
         res.failed = "no station could be converted to apparent resistivity"
         return res
-    res.outputs.append(str(write_text_atomic(project.folder("rhoa") / "rhoa.csv", csv_text(rows))))
+    with atomic_path(project.folder("rhoa") / "rhoa.csv") as tmp:
+        with open(tmp, "w", encoding="utf-8", newline="") as fh:
+            fh.write(_header())
+            for sid, oc in res.stations.items():
+                if oc.status == "ok":
+                    fh.write(oc.payload if oc.payload is not None else _rows_of(project, sid))
+                oc.payload = None
+            fh.flush()
+            os.fsync(fh.fileno())
+    res.outputs.append(str(project.folder("rhoa") / "rhoa.csv"))
     if ctx.figures:
         files, notes = pseudo_sections(project, res.ok, settings)
         res.outputs += [str(p) for p in files]
