@@ -10,11 +10,12 @@ import contextlib
 import io
 
 
-def write_day(folder, stations, processing, seed, duration, edit=None):
+def write_day(folder, stations, processing, seed, duration, edit=None, faults=None):
     """Synthesise the day of ``stations`` into ``folder``; return its survey file.
 
     ``edit(survey_dict)`` may change the survey before it is written (e.g. a
-    wrong gain); the recordings are those of the true survey.
+    wrong gain); the recordings are those of the true survey. ``faults``:
+    station -> :class:`tem.synth.Faults` built into its recording.
     """
     import tomli_w
 
@@ -24,7 +25,7 @@ def write_day(folder, stations, processing, seed, duration, edit=None):
     sv, models = emberline_survey(base_dir=folder, sample_rate=1000.0, stations=stations,
                                   current_channel=False)
     folder.mkdir(parents=True, exist_ok=True)
-    synth_survey(sv, models, folder, seed=seed, duration=duration)
+    synth_survey(sv, models, folder, seed=seed, duration=duration, faults=faults)
     d = survey_to_dict(sv)
     if edit is not None:
         edit(d)

@@ -10,6 +10,11 @@ HELP = "synthesise the fictional Emberline Plateau survey and run the whole chai
 
 #: Seconds recorded per station in the demo (the scenario records 15 min; shortened for speed).
 DEMO_DURATION = 120.0
+#: Faults the demo day is built with: one noisy station, one dead channel. The evening QC
+#: must call both stations reoccupy; ``tem demo`` checks that it does.
+NOISY_STATION = "EM09"
+DEAD_CHANNEL = ("EM04", "ex")
+PLANTED = (NOISY_STATION, DEAD_CHANNEL[0])
 
 # Processing table written into the demo survey: an example of docs/pipeline.md.
 PROCESSING = """
@@ -87,8 +92,8 @@ def write_demo_survey(out_raw, duration, seed, progress=None):
     path = write_text_atomic(out_raw / "survey.toml",
                              head + tomli_w.dumps(survey_to_dict(survey)) + PROCESSING)
     write_text_atomic(out_raw / "velocity.csv", VELOCITY)
-    synth_survey(survey, models, out_raw, seed=seed, duration=duration, noisy_station="EM09",
-                 dead_channel=("EM04", "ex"), progress=progress)
+    synth_survey(survey, models, out_raw, seed=seed, duration=duration,
+                 noisy_station=NOISY_STATION, dead_channel=DEAD_CHANNEL, progress=progress)
     return path
 
 
@@ -107,7 +112,8 @@ def run(args) -> int:
     t0 = time.perf_counter()
     err.print(f"Emberline Plateau (fictional): 12 stations, {args.duration:g} s of recording each "
               "(the scenario records 15 min per station; shortened so the demo runs in minutes), "
-              "one noisy station (EM09) and one dead channel (EM04 ex).", highlight=False)
+              f"one noisy station ({NOISY_STATION}) and one dead channel "
+              f"({' '.join(DEAD_CHANNEL)}).", highlight=False)
     with Progress(console=err, disable=not args.progress) as prog:
         task = prog.add_task("synthesise raw day", total=12)
         survey_file = write_demo_survey(out / "raw", args.duration, args.seed,
@@ -132,4 +138,33 @@ def run(args) -> int:
         console.print(f"  {label:<28} {path}{mark}", highlight=False)
     console.print(f"demo: synthesis {t_synth:.0f} s, chain {outcome.state['last_run']['elapsed_s']:.0f} s, "
                   f"total {time.perf_counter() - t0:.0f} s", highlight=False)
-    return outcome.exit_status
+    return demo_status(outcome, console)
+
+
+def demo_status(outcome, console) -> int:
+    """Exit status of the demo: the run's, except that the stations built with a fault
+    (:data:`PLANTED`) are meant to fail the evening QC. 0 when they, and only they, are to be
+    re-occupied and nothing else failed; 1 when the QC missed a planted fault or anything
+    else failed (2 for bad input, as the run)."""
+    import copy
+
+    from ..pipeline.runner import exit_status_of, to_reoccupy
+
+    if outcome.exit_status == 2:
+        return 2
+    flagged = set(to_reoccupy(outcome.state))
+    missed = [sid for sid in PLANTED if sid not in flagged]
+    if missed:
+        console.print(f"[bold red]demo: the evening QC did not call {', '.join(missed)} "
+                      "reoccupy, though the demo day was built with a fault there[/]",
+                      highlight=False)
+        return 1
+    # the run's status without the planted stations' QC verdicts: 1 only for another failure
+    state = copy.deepcopy(outcome.state)
+    for sid in PLANTED:
+        state["stations"][sid].pop("qc_verdict", None)
+    status = exit_status_of(state)
+    console.print(f"demo: {', '.join(sorted(flagged))} to re-occupy, as the demo day was built "
+                  f"(faults planted there); the run's exit status is {outcome.exit_status}, "
+                  f"the demo's {status}", highlight=False)
+    return status

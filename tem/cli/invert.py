@@ -18,6 +18,11 @@ def add_parser(sub):
                        "chains did not converge have their intervals marked unconverged (a "
                        "warning: exit status unchanged).")
     p.add_argument("gated", nargs="+", help="gated-sounding files, or folders of them")
+    p.add_argument("--qc", metavar="FILE", default=None,
+                   help="evening QC table (qc/stations.csv of 'tem gate'): every models file "
+                        "then carries each station's QC verdict. Default: the qc/stations.csv "
+                        "of the project the gated files are in (PROJECT/gated -> "
+                        "PROJECT/qc/stations.csv) when it exists; 'none' for no QC verdicts")
     common.add_out(p)
     common.add_run_options(p)
     INVERT.add_options(p, group_title="inversion")
@@ -34,11 +39,36 @@ def run(args) -> int:
 
     settings = INVERT.from_command_line(args)
     files = common.input_files(args.gated, "gated")
-    check_output(args.out, ["invert"], inputs=files)
+    qc = qc_table(args.qc, files)
+    check_output(args.out, ["invert"], inputs=files + ([qc] if qc else []))
     with common.stage_context(args, "invert", len(files)) as ctx:
-        res = invert_run(settings, files, args.out, ctx)
+        res = invert_run(settings, files, args.out, ctx, qc=qc)
+    if qc is not None:
+        res.notes.append(f"evening QC verdicts from {qc}")
     fit_table(res, Console())
     return common.finish("invert", res, args.out, not_fitted=not_fitted(res))
+
+
+def qc_table(option, files):
+    """The QC table to carry into the models: ``--qc FILE``, ``none``, or found next to the
+    gated files (all in one ``PROJECT/gated`` folder, and ``PROJECT/qc/stations.csv`` exists)."""
+    from pathlib import Path
+
+    from ..errors import input_error
+
+    if option is not None:
+        if option.lower() == "none":
+            return None
+        path = Path(option)
+        if not path.is_file():
+            raise input_error("--qc", "not found", path)
+        return path
+    folders = {Path(f).resolve().parent for f in files}
+    if len(folders) != 1:
+        return None
+    folder = folders.pop()
+    found = folder.parent / "qc" / "stations.csv"
+    return found if folder.name == "gated" and found.is_file() else None
 
 
 _COLOUR = {"fitted": "green", "misfit": "bold red", "stalled": "bold red",

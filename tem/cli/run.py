@@ -68,12 +68,17 @@ def print_summary(outcome, console):
         console.print(f"note: {note}", highlight=False)
     if last.get("stopped"):
         console.print(f"[red]stopped: {last['stopped']}[/]", highlight=False)
-    from ..pipeline.runner import not_fitted
+    from ..pipeline.runner import not_fitted, to_reoccupy
     from .common import not_fitted_line
 
     bad = not_fitted(state)
     if bad:
         console.print(f"[bold red]invert: {not_fitted_line(bad)}[/]", highlight=False)
+    again = to_reoccupy(state)
+    if again:
+        console.print(f"[bold red]qc: recording failed the evening QC at {len(again)} station(s): "
+                      f"{', '.join(again)} (re-occupy; their models are marked in every "
+                      "product)[/]", highlight=False)
     n_fail = sum("failed_stage" in s for s in state.get("stations", {}).values())
     root = outcome.project.root
     console.print(f"{len(state.get('stations', {}))} stations, {n_fail} failed; "

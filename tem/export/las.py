@@ -133,6 +133,7 @@ def las_for_station(models, i, step, bottom=None, mask_below_doi=False, source="
         ("CHI2", "", round(float(models["chi2"].values[i]), 3), "Chi-square per datum of the model"),
         ("MKIND", "", str(models.attrs.get("model_kind", "")), "Model kind (smooth, few-layer, lci, posterior)"),
         *verdict_params(models, i),
+        *qc_params(models, i),
         ("MASK", "", "YES" if mask_below_doi else "NO", "RES set to NULL below the DOI"),
         ("SRC", "", Path(source).name if source else "", "Models file"),
     ]
@@ -146,6 +147,9 @@ def las_for_station(models, i, step, bottom=None, mask_below_doi=False, source="
     fit = next((p[2] for p in params if p[0] == "FIT"), "UNKNOWN")
     if fit not in ("FITTED", "UNKNOWN"):
         las.other += f" WARNING: verdict {fit} (see FIT, FITR): {_WARNING[fit]}"
+    qc = next((p[2] for p in params if p[0] == "QC"), "UNKNOWN")
+    if qc in _QC_WARNING:
+        las.other += f" WARNING: evening QC {qc} (see QC, QCR): {_QC_WARNING[qc]}"
     if "res_p50" in models:
         from .las_posterior import interval_warning
         las.other += interval_warning(params)
@@ -171,6 +175,25 @@ _WARNING = {
     "PARAMETER-AT-BOUND": "a parameter sits at its bound: a limit, not an estimate.",
     "DEGENERATE-LAYER": "a layer is too thin for its depth to be resolved.",
 }
+
+
+_QC_WARNING = {
+    "REOCCUPY": "the recording failed quality control and is to be repeated; the model rests "
+                "on it.",
+    "CHECK": "the recording has a quality warning; read QCR before using the model.",
+}
+
+
+def qc_params(models, i):
+    """LAS parameter lines of the station's evening QC verdict (docs/exports.md): QC, QCR."""
+    from ..io.models import qc_verdicts
+
+    q = qc_verdicts(models)[i]
+    if q is None:
+        return [("QC", "", "UNKNOWN", "Evening QC verdict on the recording: none recorded")]
+    return [("QC", "", q["verdict"].upper(), "Evening QC verdict on the recording: GOOD CHECK "
+             "REOCCUPY"),
+            ("QCR", "", q["reasons"].replace(":", " "), "Evening QC reasons")]
 
 
 def verdict_params(models, i):

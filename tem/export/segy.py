@@ -16,7 +16,9 @@ states the depth step in plain words.
 Trace header bytes used (1-based, as in the standard): 1-4 trace sequence in
 line, 5-8 trace sequence in file, 9-12 field record (= CDP), 13-16 trace in
 record (1), 21-24 CDP, 25-28 trace in CDP (1), 29-30 trace identification
-(1), 41-44 receiver group elevation and 45-48 surface elevation at source
+(1), 35-36 data use (1 production; 2 for a trace made from a station whose
+recording failed the evening QC, verdict reoccupy: its model rests on data to
+be repeated), 41-44 receiver group elevation and 45-48 surface elevation at source
 (surface at the trace, scaled by 69-70), 53-56 and 57-60 datum elevation at
 group and source (top sample of elevation sections), 69-70 elevation scalar, 71-72 coordinate
 scalar, 73-76/77-80 source X/Y, 81-84/85-88 group X/Y, 89-90 coordinate
@@ -38,6 +40,7 @@ import numpy as np
 from .. import __version__
 from ..errors import input_error
 from ..section.profile import check_velocity_table, depth_to_twt, twt_to_depth
+from ..section.verdicts import QC_REOCCUPY
 from ..io.atomic import atomic_path
 
 __all__ = [
@@ -269,6 +272,8 @@ def write_segy(path, data, grid, interval_field, first, domain, description, lin
     code = grid["verdict_code"].values.astype(int) if "verdict_code" in grid \
         else np.full(ntr, -1)
     chi2 = grid["chi2"].values.astype(float) if "chi2" in grid else np.full(ntr, np.nan)
+    data_use = np.where(grid["qc_verdict_code"].values.astype(int) >= QC_REOCCUPY, 2, 1) \
+        if "qc_verdict_code" in grid else np.ones(ntr, int)
     cs = coordinate_scalar(x, y)
     datum = float(np.nanmax(grid["elevation"].values)) if domain == "elevation" else np.nan
     es = coordinate_scalar(surf, np.array([0.0 if np.isnan(datum) else datum]))
@@ -309,6 +314,7 @@ def write_segy(path, data, grid, interval_field, first, domain, description, lin
                     T.CDP: cdp,
                     T.CDP_TRACE: 1,
                     T.TraceIdentificationCode: 1,
+                    T.DataUse: int(data_use[k]),
                     T.ElevationScalar: es,
                     T.ReceiverGroupElevation: _scaled(surf[k], es),
                     T.SourceSurfaceElevation: _scaled(surf[k], es),
@@ -350,6 +356,19 @@ def _not_fitted_line(grid) -> str:
     return text if len(text) <= 76 else text[:72] + " ..."
 
 
+def _qc_line(grid) -> str:
+    """Textual header line naming the stations whose recording failed the evening QC."""
+    if "station_qc_verdict_code" not in grid:
+        return "EVENING QC: NONE RECORDED"
+    bad = [sid for sid, c in zip(grid["station"].values.astype(str),
+                                 grid["station_qc_verdict_code"].values.astype(int))
+           if c >= QC_REOCCUPY]
+    if not bad:
+        return "EVENING QC: NO STATION TO RE-OCCUPY"
+    text = "EVENING QC REOCCUPY (DATA USE 2): " + ", ".join(bad)
+    return text if len(text) <= 76 else text[:72] + " ..."
+
+
 def describe(grid, domain, step, value, below_doi, epsg, source="", velocity_file=""):
     """Textual header lines (without the fixed END line) for a section file."""
     vname = {"depth": "DEPTH BELOW GROUND", "elevation": "DEPTH BELOW DATUM", "twt": "TWO-WAY TIME"}[domain]
@@ -374,12 +393,14 @@ def describe(grid, domain, step, value, below_doi, epsg, source="", velocity_fil
         + " IN BYTES 233-236 (-1 UNKNOWN)",
         "VERDICT INT16 237-238: 0 FIT 1 MISFIT 2 STALLED 3 AT BOUND 4 THIN; -1 NONE",
         "CHI2 X 100 INT16 239-240 (32767 = 327.67 OR MORE; -1 UNKNOWN)",
+        "DATA USE 35-36: 1 PRODUCTION, 2 RECORDING FAILED QC (RE-OCCUPY)",
     ]
     if domain == "elevation":
         lines.append("DATUM ELEVATION (TOP SAMPLE) IN 53-56 AND 57-60, SCALAR 69-70")
     if domain == "twt":
         lines.append(f"TIME FROM INTERVAL VELOCITIES: {Path(velocity_file).name}"[:76])
     lines.append(_not_fitted_line(grid))
+    lines.append(_qc_line(grid))
     d = grid["distance"].values
     if d.size:
         lines.append(f"PROFILE DISTANCE {d[0]:.1f} TO {d[-1]:.1f} M")

@@ -78,7 +78,7 @@ def not_fitted(result: StageResult) -> dict:
             if oc.status == "ok" and oc.info.get("verdict") in FAILURES}
 
 
-def _lci(results, files, settings, floors, folder, record, epsg, res):
+def _lci(results, files, settings, floors, folder, record, epsg, res, mark):
     """Laterally constrained inversion of the stations that have a smooth model."""
     from ..errors import TemInputError
     from ..io.models import write_models
@@ -91,7 +91,7 @@ def _lci(results, files, settings, floors, folder, record, epsg, res):
     try:
         sds = [load_station(files[r.station], floors) for r in results]
         lres = lci_profile(sds, settings)
-        ds = models_from_results(lres, kind="lci", epsg=epsg)
+        ds = mark(models_from_results(lres, kind="lci", epsg=epsg))
     except (TemInputError, ValueError, np.linalg.LinAlgError, FloatingPointError) as exc:
         res.failed = f"laterally constrained inversion failed: {exc}".splitlines()[0]
         return []
@@ -119,8 +119,21 @@ def _posterior_note(ds):
             f"per station (median){verdict}")
 
 
-def run(settings: InversionSettings, gated_files, out, ctx: StageContext = StageContext()) -> StageResult:
+def run(settings: InversionSettings, gated_files, out, ctx: StageContext = StageContext(),
+        qc=None) -> StageResult:
     """Invert each gated file; write the models of the stations that succeed into ``OUT/models``.
+
+    Parameters
+    ----------
+    settings : InversionSettings
+    gated_files : sequence of path
+    out : path or Project
+    ctx : StageContext
+    qc : path or None
+        The evening QC table (``qc/stations.csv`` of the gate stage): every
+        models file then carries each station's QC verdict (``qc_verdict_code``,
+        ``qc_verdict``), so a model built on a recording that failed QC is
+        marked wherever it goes (section, LAS, SEG-Y, CSV).
 
     Returns
     -------
@@ -130,7 +143,11 @@ def run(settings: InversionSettings, gated_files, out, ctx: StageContext = Stage
     from ..io.models import write_models, write_models_csv
     from .product import models_from_results, write_fit_csv
 
+    from ..io.models import add_qc_verdicts
+    from ..qc import read_stations_csv
+
     project = out if isinstance(out, Project) else Project(out)
+    qc_rows = read_stations_csv(qc) if qc is not None else None
     floors = floors_of(settings)
     files = {Path(f).stem: Path(f) for f in gated_files}
     jobs = [(sid, (sid, f, settings, floors,
@@ -145,6 +162,11 @@ def run(settings: InversionSettings, gated_files, out, ctx: StageContext = Stage
     if not results:
         res.failed = "no station could be inverted"
         return res
+    if qc_rows is not None:
+        res.inputs.append({"file": str(qc), "sha256": file_sha256(qc)})
+        mark = (lambda d: add_qc_verdicts(d, qc_rows))
+    else:
+        mark = (lambda d: d)
     record = stage_record("invert", settings.as_dict())
     record["inputs"] = res.inputs
     epsgs = {oc.info.get("epsg", 0) for oc in res.stations.values() if oc.status == "ok"}
@@ -154,6 +176,7 @@ def run(settings: InversionSettings, gated_files, out, ctx: StageContext = Stage
     if posterior:
         from .posterior_products import add_posterior, write_posterior_csv
         ds = add_posterior(ds, results, settings.posterior_cells, settings.cover_layers)
+    mark(ds)
     res.outputs += [str(write_models(ds, folder / "models.nc", record=record)),
                     str(write_models_csv(ds, folder / "models.csv")),
                     str(write_fit_csv(results, folder / "fit.csv",
@@ -162,8 +185,8 @@ def run(settings: InversionSettings, gated_files, out, ctx: StageContext = Stage
         res.outputs.append(str(write_posterior_csv(ds, folder / "posterior.csv")))
         res.notes.append(_posterior_note(ds))
     if settings.kind in ("few-layer", "posterior"):
-        smooth = models_from_results(results, kind="smooth", epsg=epsg)
+        smooth = mark(models_from_results(results, kind="smooth", epsg=epsg))
         res.outputs.append(str(write_models(smooth, folder / "models_smooth.nc", record=record)))
     if settings.lci:
-        res.outputs += _lci(results, files, settings, floors, folder, record, epsg, res)
+        res.outputs += _lci(results, files, settings, floors, folder, record, epsg, res, mark)
     return res

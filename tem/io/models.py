@@ -36,6 +36,9 @@ __all__ = [
     "export_record",
     "model_verdicts",
     "interval_words",
+    "QC_FLAGS",
+    "add_qc_verdicts",
+    "qc_verdicts",
 ]
 
 FORMAT = "models"
@@ -57,7 +60,7 @@ _VARIABLES = {
 CSV_COLUMNS = (
     "station", "x", "y", "z", "layer", "depth_top_m", "depth_bottom_m", "thickness_m",
     "resistivity_ohmm", "log10_res_std", "below_doi", "doi_m", "chi2", "epsg",
-    "verdict", "verdict_code", "verdict_reasons",
+    "verdict", "verdict_code", "verdict_reasons", "qc_verdict", "qc_reasons",
 )
 
 #: Extra columns of a models file with posterior products (model kind posterior):
@@ -295,6 +298,71 @@ def model_verdicts(ds):
     return out
 
 
+#: Codes of the evening QC verdict in a models file (``qc_verdict_code``; CF flags):
+#: -1 none recorded, 0 good, 1 check, 2 reoccupy (docs/qc.md).
+QC_FLAGS = ("none", "good", "check", "reoccupy")
+
+
+def add_qc_verdicts(ds, rows):
+    """Add each station's evening QC verdict to a models Dataset (in place); returns ``ds``.
+
+    ``rows`` are those of ``qc/stations.csv`` (:func:`tem.qc.read_stations_csv`);
+    a station without a row gets code -1 ("none"). Variables: ``qc_verdict_code``
+    (int8, CF ``flag_values`` -1..2 and ``flag_meanings``), ``qc_verdict`` (one
+    line: ``verdict: reason; reason``) and ``qc_extra_minutes`` (recording time
+    the verdict asks for, minutes; NaN when none is stated).
+    """
+    by = {r["station"]: r for r in rows}
+    stations = ds["station"].values.astype(str)
+    codes, texts, minutes = [], [], []
+    for sid in stations:
+        r = by.get(sid)
+        if r is None:
+            codes.append(-1)
+            texts.append("")
+            minutes.append(np.nan)
+            continue
+        codes.append(QC_FLAGS.index(r["verdict"]) - 1)
+        texts.append(r["verdict"] + (f": {r['reasons']}" if r["reasons"] else ""))
+        try:
+            minutes.append(float(r["extra_minutes"]) if r["extra_minutes"] else np.nan)
+        except ValueError:
+            minutes.append(np.nan)
+    ds["qc_verdict_code"] = ("station", np.array(codes, np.int8), {
+        "long_name": "evening QC verdict on the station's recording",
+        "flag_values": np.arange(-1, len(QC_FLAGS) - 1, dtype=np.int8),
+        "flag_meanings": " ".join(QC_FLAGS),
+        "comment": "2 reoccupy: the recording failed QC and is to be repeated; the model rests "
+                   "on it. 1 check: a warning. -1: no verdict recorded (docs/qc.md)"})
+    ds["qc_verdict"] = ("station", np.array(texts, dtype=object).astype(str),
+                        {"long_name": "evening QC verdict with its reasons, in words"})
+    ds["qc_extra_minutes"] = ("station", np.array(minutes, float),
+                              {"units": "min", "long_name": "recording time the QC verdict asks "
+                               "for (more, or anew)"})
+    return ds
+
+
+def qc_verdicts(ds):
+    """Per station: ``{"verdict", "code", "reasons"}`` of its evening QC, or None when the
+    file records none for it (no ``qc_verdict_code``, or code -1)."""
+    n = ds.sizes["station"]
+    if "qc_verdict_code" not in ds.variables:
+        return [None] * n
+    names = str(ds["qc_verdict_code"].attrs.get("flag_meanings", "")).split()
+    values = [int(v) for v in np.asarray(ds["qc_verdict_code"].attrs.get("flag_values", []))]
+    texts = ds["qc_verdict"].values.astype(str) if "qc_verdict" in ds.variables else [""] * n
+    out = []
+    for code, text in zip(ds["qc_verdict_code"].values.astype(int), texts):
+        name = names[values.index(code)] if code in values and len(names) == len(values) \
+            else "unknown"
+        if name == "none":
+            out.append(None)
+            continue
+        reasons = str(text).split(": ", 1)[1] if ": " in str(text) else ""
+        out.append({"verdict": name, "code": int(code), "reasons": reasons})
+    return out
+
+
 def interval_words(ds):
     """Per station: the verdict on its posterior intervals, ``converged`` or ``unconverged``
     (decoded from ``interval_verdict_code`` with its CF ``flag_meanings``), or "" without one."""
@@ -312,12 +380,14 @@ def layer_rows(ds):
     ``below_doi`` is 1 when the layer top is at or below the DOI (the whole
     layer is not resolved), else 0. ``verdict``, ``verdict_code`` and
     ``verdict_reasons`` repeat the station's verdict on every layer row
-    (empty when the file has none). Missing numbers are empty strings; the
+    (empty when the file has none), ``qc_verdict`` and ``qc_reasons`` its
+    evening QC verdict (empty when none is recorded). Missing numbers are empty strings; the
     half-space has an empty ``depth_bottom_m`` and ``thickness_m``.
     """
     bottom = layer_bottoms(ds)
     epsg = int(ds.attrs.get("epsg", 0) or 0)
     verdicts = model_verdicts(ds)
+    qcs = qc_verdicts(ds)
     intervals = interval_words(ds)
     rows = []
     for i, sid in enumerate(ds["station"].values.astype(str)):
@@ -345,6 +415,8 @@ def layer_rows(ds):
                 "verdict": verdicts[i]["status"] if verdicts[i] else "",
                 "verdict_code": verdicts[i]["code"] if verdicts[i] else "",
                 "verdict_reasons": verdicts[i]["reasons"] if verdicts[i] else "",
+                "qc_verdict": qcs[i]["verdict"] if qcs[i] else "",
+                "qc_reasons": qcs[i]["reasons"] if qcs[i] else "",
             })
             if "resistivity_low" in ds:
                 rows[-1].update({c: _num(ds[v].values[i, k]) for c, v in RANGE_COLUMNS.items()})

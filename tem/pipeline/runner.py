@@ -9,7 +9,8 @@ inputs and settings are unchanged (:mod:`tem.pipeline.resume`). ``run.json`` is
 written after every stage (atomically); products an earlier run left that this
 run did not make are removed. Returns the run record and an exit status: 0
 when every station passed every stage, 1 when a station or a profile step
-failed. Bad input raises :class:`tem.errors.TemInputError` (the CLI exits 2),
+failed, a station's chosen model is a misfit, or a station's recording is to
+be re-occupied (evening QC verdict reoccupy). Bad input raises :class:`tem.errors.TemInputError` (the CLI exits 2),
 a failed write :class:`tem.errors.TemOutputError` (exit 1).
 """
 from __future__ import annotations
@@ -30,7 +31,9 @@ from ..runtime import StageContext, StationOutcome, Tally, process_pool
 from .resume import Checksums, changed_products, fingerprint, reusable, station_survey_text
 from .settings import STAGES, read_processing, resolve_settings
 
-__all__ = ["run_pipeline", "RunOutcome", "STATION_STAGES", "read_run", "not_fitted", "FORMAT",
+__all__ = ["run_pipeline", "RunOutcome", "STATION_STAGES", "read_run", "not_fitted", "to_reoccupy",
+           "exit_status_of",
+           "FORMAT",
            "FORMAT_VERSION",
            "OWNED"]
 
@@ -150,6 +153,13 @@ def not_fitted(state) -> dict:
             if "failed_stage" not in s and s.get("verdict") in FAILURES}
 
 
+def to_reoccupy(state) -> list:
+    """Stations whose evening QC verdict is reoccupy (their recording failed QC; docs/qc.md):
+    the run's exit status is 1, as for ``tem evening``, whatever their models."""
+    return [sid for sid, s in state.get("stations", {}).items()
+            if s.get("qc_verdict") == "reoccupy"]
+
+
 def _station_summary(state, survey):
     """Per-station summary from the stage records: first failure, gates, chi2, DOI, QC."""
     out = {}
@@ -214,7 +224,9 @@ class _Run:
         ok = _ok(self.state, self.survey)
         p = self.project
         if stage == "invert":
-            return [p.station_file("gated", sid) for sid in ok.get("gate", [])]
+            qc = _qc_table(p)
+            return [p.station_file("gated", sid) for sid in ok.get("gate", [])] + \
+                ([qc] if qc else [])
         if stage == "section":
             files = [p.folder("models") / "models.nc"]
             if self.settings["invert"].lci and (p.folder("models") / "models_lci.nc").is_file():
@@ -303,6 +315,12 @@ def _outcome_from_record(sid, rec, project):
                           info=info)
 
 
+def _qc_table(project):
+    """The gate stage's evening QC table ``qc/stations.csv``, or None when there is none."""
+    path = project.folder("qc") / "stations.csv"
+    return path if path.is_file() else None
+
+
 def _stage_call(stage, settings, survey, survey_file, project, state, ctx):
     """Call the stage's one door with its inputs from the project."""
     ok = _ok(state, survey)
@@ -322,9 +340,9 @@ def _stage_call(stage, settings, survey, survey_file, project, state, ctx):
             return run(s, files, project, ctx, qc=settings["qc"], failed=failed)
         if stage == "rhoa":
             from ..rhoa.stage import run
-        else:
-            from ..invert.stage import run
-        return run(s, files, project, ctx)
+            return run(s, files, project, ctx)
+        from ..invert.stage import run
+        return run(s, files, project, ctx, qc=_qc_table(project))
     if stage == "section":
         from ..section.stage import run
         files = [project.folder("models") / "models.nc"]
@@ -520,9 +538,17 @@ def _run_locked(survey, survey_file, settings, project, start, end, jobs, consol
     state["last_run"]["stopped"] = stop
     state["stations"] = _station_summary(state, survey)
     _write_run(project, state)
+    return RunOutcome(state=state, exit_status=exit_status_of(state), project=project)
+
+
+def exit_status_of(state) -> int:
+    """Exit status of a run from its record: 2 when a station failed on bad input; 1 when a
+    station or a profile step failed, the run stopped, a chosen model is a misfit or a
+    recording is to be re-occupied; else 0."""
     failed = any("failed_stage" in s for s in state["stations"].values())
-    failed |= any(rec.get("failed") for rec in state["stages"].values()) or bool(stop)
-    failed |= bool(not_fitted(state))
+    failed |= any(rec.get("failed") for rec in state["stages"].values())
+    failed |= bool(state.get("last_run", {}).get("stopped"))
+    failed |= bool(not_fitted(state)) or bool(to_reoccupy(state))
     bad = any(r.get("bad_input") for rec in state["stages"].values()
               for r in rec.get("stations", {}).values())
-    return RunOutcome(state=state, exit_status=2 if bad else 1 if failed else 0, project=project)
+    return 2 if bad else 1 if failed else 0

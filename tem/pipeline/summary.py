@@ -27,9 +27,12 @@ def _stages_cell(state, sid):
     failed = [stage for stage, rec in ran if rec["status"] != "ok"]
     if failed:
         return f"[red]failed {failed[0]}[/]"
-    verdict = state.get("stations", {}).get(sid, {}).get("verdict")
+    summary = state.get("stations", {}).get(sid, {})
+    verdict = summary.get("verdict")
     if ran and verdict in _FAILURES:       # never "ok" for a model that does not fit
         return f"[{_VERDICT_COLOUR[verdict]}]{verdict}[/] to {ran[-1][0]}"
+    if ran and summary.get("qc_verdict") == "reoccupy":   # nor for a recording that failed QC
+        return f"[bold red]QC failed[/] to {ran[-1][0]}"
     return f"[green]ok[/] to {ran[-1][0]}" if ran else "[dim]-[/]"
 
 

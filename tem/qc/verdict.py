@@ -37,7 +37,7 @@ from ..settings import Setting, SettingsTable
 
 __all__ = ["QC_TABLE", "QCSettings", "StationVerdict", "offset_classes", "class_medians",
            "station_verdicts", "stations_csv_text", "write_stations_csv", "VERDICTS",
-           "project_measures", "evening_qc"]
+           "read_stations_csv", "project_measures", "evening_qc"]
 
 VERDICTS = ("good", "check", "reoccupy")
 _NS = "common practice, no source"
@@ -288,6 +288,38 @@ def stations_csv_text(verdicts) -> str:
         minutes = whole_minutes(v.extra_minutes)
         w.writerow([v.station, v.verdict, "; ".join(v.reasons), minutes])
     return buf.getvalue()
+
+
+def read_stations_csv(path) -> list:
+    """Rows of a ``qc/stations.csv`` table as dicts of strings (station, verdict, reasons,
+    extra_minutes), checked: one row per station, each verdict one of :data:`VERDICTS`.
+
+    A table that cannot be read, lacks a column, repeats a station or has an unknown
+    verdict raises :class:`tem.errors.TemInputError` naming the file and field.
+    """
+    from ..errors import input_error
+
+    need = ("station", "verdict", "reasons", "extra_minutes")
+    try:
+        with open(path, newline="", encoding="utf-8") as fh:
+            reader = csv.DictReader(fh)
+            missing = [c for c in need if c not in (reader.fieldnames or [])]
+            if missing:
+                raise input_error(missing[0], "column missing from the evening QC table", path)
+            rows = [{k: (r.get(k) or "").strip() for k in need} for r in reader]
+    except (OSError, UnicodeDecodeError, csv.Error) as exc:
+        raise input_error("stations.csv", f"unreadable ({type(exc).__name__})", path) from None
+    seen = set()
+    for n, r in enumerate(rows, start=2):
+        if not r["station"]:
+            raise input_error("station", f"empty on line {n}", path)
+        if r["station"] in seen:
+            raise input_error("station", f"{r['station']} listed twice (line {n})", path)
+        seen.add(r["station"])
+        if r["verdict"] not in VERDICTS:
+            raise input_error("verdict", f"{r['verdict']!r} on line {n} ({r['station']}); valid: "
+                              f"{', '.join(VERDICTS)}", path)
+    return rows
 
 
 def write_stations_csv(project, verdicts):

@@ -36,20 +36,10 @@ def _run_record(project: Project):
 
 def _qc_rows(src: Project):
     """Rows of ``qc/stations.csv`` ([] when the project has none)."""
-    import csv
+    from ..qc import read_stations_csv
 
     path = src.folder("qc") / "stations.csv"
-    if not path.is_file():
-        return []
-    try:
-        with open(path, newline="", encoding="utf-8") as fh:
-            rows = list(csv.DictReader(fh))
-    except (OSError, UnicodeDecodeError, csv.Error):
-        raise input_error("stations.csv", "unreadable", path) from None
-    need = {"station", "verdict", "reasons", "extra_minutes"}
-    if rows and not need <= set(rows[0]):
-        raise input_error("stations.csv", f"needs the columns {', '.join(sorted(need))}", path)
-    return [{k: (r.get(k) or "") for k in need} for r in rows]
+    return read_stations_csv(path) if path.is_file() else []
 
 
 def qc_figures(src: Project, project: Project, qc_rows, ctx):

@@ -81,11 +81,13 @@ def _runs(flags):
 
 #: Column marks of :func:`mark_columns`: class -> (legend label, face colour, edge colour,
 #: hatch). 1: failed fit (misfit, stalled); 2: flagged fit (bound, thin layer); 3: posterior
-#: intervals unconverged (tem.invert.interval).
+#: intervals unconverged (tem.invert.interval); 4: the recording failed the evening QC
+#: (verdict reoccupy; tem.qc).
 COLUMN_MARKS = {
     1: ("model not fitted (misfit, stalled)", (0.45, 0.45, 0.45, 0.55), "0.15", "xx"),
     2: ("model flagged (bound, thin layer)", (1, 1, 1, 0.0), "0.3", ".."),
     3: ("intervals unconverged (R-hat, ESS)", (1, 1, 1, 0.0), "#a4281b", "\\\\"),
+    4: ("recording failed QC: re-occupy", (0.36, 0.16, 0.52, 0.28), "#5b2a86", "+"),
 }
 
 
@@ -124,37 +126,61 @@ def label_stations(ax, xs, labels, yrange, gid_prefix, color="k"):
 
 
 def mark_verdicts(ax, grid, scale, yrange, column_edges=None):
-    """Grey and hatch the columns made from a model that is not fitted; label those stations.
+    """Mark the columns made from a model that is not fitted or from a recording that failed
+    the evening QC; label those stations.
 
     The columns are those whose ``verdict_code`` is not 0 (a column between
     two stations carries the more severe verdict of the two, as its SEG-Y
     trace does; docs/sections.md), or, in a grid without column verdicts,
     each such station's share of the profile (midpoints to its neighbours).
     Failures (misfit, stalled) are greyed and cross-hatched, warnings
-    (parameter at a bound, degenerate layer) dotted. Every station that is
-    not fitted is labelled with its verdict and chi2. Patches have gid
-    ``verdict-columns``, labels ``verdict-label-<station>``.
+    (parameter at a bound, degenerate layer) dotted; columns whose
+    ``qc_verdict_code`` is reoccupy are tinted and hatched with crosses.
+    Every station that is not fitted is labelled with its verdict and chi2,
+    and every station whose QC verdict is not good with that verdict. Patches
+    have gid ``verdict-columns`` and ``qc-columns``, labels
+    ``verdict-label-<station>``.
     """
-    names = str(grid["station_verdict_code"].attrs.get("flag_meanings", "")).split()
-    codes = grid["station_verdict_code"].values.astype(int)
-    chi2 = grid["station_chi2"].values.astype(float) if "station_chi2" in grid else \
-        np.full(codes.size, np.nan)
+    from .verdicts import QC_REOCCUPY
+
+    n = grid.sizes["station"]
     sd = grid["station_distance"].values.astype(float)
-    if "verdict_code" in grid and column_edges is not None:
-        cls = [0 if c <= 0 else (1 if c in (1, 2) else 2) for c in grid["verdict_code"].values]
-        edges = np.asarray(column_edges, float)
-    else:
-        cls = [0 if c <= 0 else (1 if c in (1, 2) else 2) for c in codes]
-        edges = station_edges(sd, scale)
-    mark_columns(ax, edges, cls, yrange, "verdict-columns")
-    labels = []
-    for k, sid in enumerate(grid["station"].values.astype(str)):
-        code = codes[k]
-        status = "" if code <= 0 else (names[code].replace("_", "-") if code < len(names)
-                                       else f"code {code}")
-        chi = f"\nchi2 {chi2[k]:.1f}" if status and np.isfinite(chi2[k]) else ""
-        labels.append((sid, status + chi))
-    label_stations(ax, sd * scale, labels, yrange, "verdict-label-")
+    edges = np.asarray(column_edges, float) if column_edges is not None else None
+    statuses = [""] * n
+    if "station_verdict_code" in grid:
+        names = str(grid["station_verdict_code"].attrs.get("flag_meanings", "")).split()
+        codes = grid["station_verdict_code"].values.astype(int)
+        chi2 = grid["station_chi2"].values.astype(float) if "station_chi2" in grid else \
+            np.full(codes.size, np.nan)
+        if "verdict_code" in grid and edges is not None:
+            cls = [0 if c <= 0 else (1 if c in (1, 2) else 2) for c in grid["verdict_code"].values]
+            mark_columns(ax, edges, cls, yrange, "verdict-columns")
+        else:
+            cls = [0 if c <= 0 else (1 if c in (1, 2) else 2) for c in codes]
+            mark_columns(ax, station_edges(sd, scale), cls, yrange, "verdict-columns")
+        for k, code in enumerate(codes):
+            status = "" if code <= 0 else (names[code].replace("_", "-") if code < len(names)
+                                           else f"code {code}")
+            statuses[k] = status + (f"\nchi2 {chi2[k]:.1f}" if status and np.isfinite(chi2[k])
+                                    else "")
+    if "station_qc_verdict_code" in grid:
+        names = str(grid["station_qc_verdict_code"].attrs.get("flag_meanings", "")).split()
+        values = [int(v) for v in np.asarray(
+            grid["station_qc_verdict_code"].attrs.get("flag_values", []))]
+        codes = grid["station_qc_verdict_code"].values.astype(int)
+        if "qc_verdict_code" in grid and edges is not None:
+            cls = [4 if c >= QC_REOCCUPY else 0 for c in grid["qc_verdict_code"].values]
+            mark_columns(ax, edges, cls, yrange, "qc-columns")
+        else:
+            cls = [4 if c >= QC_REOCCUPY else 0 for c in codes]
+            mark_columns(ax, station_edges(sd, scale), cls, yrange, "qc-columns")
+        for k, code in enumerate(codes):
+            word = names[values.index(code)] if code in values and len(names) == len(values) \
+                else "unknown"
+            if code > 0:
+                statuses[k] = "\n".join(t for t in (statuses[k], f"QC {word}") if t)
+    label_stations(ax, sd * scale, list(zip(grid["station"].values.astype(str), statuses)),
+                   yrange, "verdict-label-")
 
 
 def section_figure(grid, *, below_doi, title=None, vmin=None, vmax=None, distance_unit="auto",
@@ -180,7 +206,8 @@ def section_figure(grid, *, below_doi, title=None, vmin=None, vmax=None, distanc
     matplotlib.figure.Figure
         The image has gid ``"resistivity"``; the DOI veil ``"doi-veil"`` and
         the DOI line ``"doi-line"``; columns made from a model that is not
-        fitted ``"verdict-columns"`` (see :func:`mark_verdicts`).
+        fitted ``"verdict-columns"``, columns made from a recording that
+        failed the evening QC ``"qc-columns"`` (see :func:`mark_verdicts`).
     """
     if below_doi not in BELOW_DOI_STYLES:
         raise input_error("below_doi", f"unknown style {below_doi!r}; valid: {', '.join(BELOW_DOI_STYLES)}")
@@ -225,7 +252,7 @@ def section_figure(grid, *, below_doi, title=None, vmin=None, vmax=None, distanc
     ax.set_xlabel(f"distance along profile ({unit})")
     if "station_distance" in grid:
         _station_labels(ax, grid["station_distance"].values, grid["station"].values, scale)
-    if "station_verdict_code" in grid:
+    if "station_verdict_code" in grid or "station_qc_verdict_code" in grid:
         mark_verdicts(ax, grid, scale, (ye[0], ye[-1]), column_edges=xe)
     cb = fig.colorbar(mesh, ax=ax, pad=0.01)
     cb.set_label("resistivity (ohm-m)")
@@ -289,7 +316,8 @@ def model_figure(models, indices=None, max_depth=None, ncols=6, panel_width=1.8,
     Each panel shows the layered model as steps, the band
     10**(log10 rho +- log10_res_std) when known, and the DOI as a dashed
     line with the part below it greyed. A panel whose model is not fitted
-    has its verdict under the station name (misfit and stalled on grey).
+    has its verdict under the station name (misfit and stalled on grey), and
+    one whose recording failed the evening QC says "QC reoccupy" (tinted).
 
     Parameters
     ----------
@@ -300,7 +328,7 @@ def model_figure(models, indices=None, max_depth=None, ncols=6, panel_width=1.8,
     max_depth : float or None
         Depth axis bottom, m; default 1.25 times the deepest DOI.
     """
-    from ..io.models import model_verdicts
+    from ..io.models import model_verdicts, qc_verdicts
     from .profile import default_max_depth
 
     idx = list(range(models.sizes["station"])) if indices is None else list(indices)
@@ -311,6 +339,7 @@ def model_figure(models, indices=None, max_depth=None, ncols=6, panel_width=1.8,
     std = models["log10_res_std"].values.astype(float)
     doi = models["doi"].values.astype(float)
     verdicts = model_verdicts(models)
+    qcs = qc_verdicts(models)
     zmax = max_depth or default_max_depth(doi[idx], top[idx])
     ncols = min(ncols, len(idx))
     nrows = int(np.ceil(len(idx) / ncols))
@@ -339,16 +368,22 @@ def model_figure(models, indices=None, max_depth=None, ncols=6, panel_width=1.8,
         ax.set_xscale("log")
         ax.set_xlim(lo, hi)
         ax.set_ylim(zmax, 0)
-        v = verdicts[i]
-        if v is None or v["status"] == "fitted":
-            ax.set_title(str(models["station"].values[i]), fontsize=9)
-        else:   # a model that is not fitted says so over its panel
-            failure = v["status"] in ("misfit", "stalled")
-            ax.set_title(f"{models['station'].values[i]}\n{v['status']}", fontsize=8,
-                         color="#a4281b" if failure else "#8a6d00",
-                         fontweight="bold" if failure else "normal")
-            if failure:
-                ax.set_facecolor("0.88")
+        v, q = verdicts[i], qcs[i]
+        lines = [str(models["station"].values[i])]
+        failure = v is not None and v["status"] in ("misfit", "stalled")
+        if v is not None and v["status"] != "fitted":   # a model not fitted says so
+            lines.append(v["status"])
+        if q is not None and q["verdict"] != "good":    # so does a recording that failed QC
+            lines.append(f"QC {q['verdict']}")
+        reoccupy = q is not None and q["verdict"] == "reoccupy"
+        colour = "#a4281b" if failure else "#5b2a86" if reoccupy else \
+            "#8a6d00" if len(lines) > 1 else "k"
+        ax.set_title("\n".join(lines), fontsize=9 if len(lines) == 1 else 8, color=colour,
+                     fontweight="bold" if failure or reoccupy else "normal")
+        if failure:
+            ax.set_facecolor("0.88")
+        elif reoccupy:
+            ax.set_facecolor("#efe6f5")
         if n % ncols == 0:
             ax.set_ylabel("depth (m)")
         if n // ncols == nrows - 1:

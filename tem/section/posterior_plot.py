@@ -3,7 +3,9 @@ the P10-P90 width (log10(P90 / P10), decades) on the same grid, with the target-
 percentiles of every station. Columns of stations whose posterior intervals are unconverged
 (``interval_verdict_code`` 1; :mod:`tem.invert.interval`) are hatched in both panels, with a
 legend entry, and labelled with their R-hat and ESS (:func:`tem.section.plot.mark_columns`):
-their percentiles are not yet the posterior's.
+their percentiles are not yet the posterior's. Columns of stations whose recording failed the
+evening QC (verdict reoccupy) are tinted and hatched with crosses, and the station's name says
+so.
 
 Both panels are stitched like the resistivity section (:func:`tem.section.stage.section_grid`)
 from the models file's posterior products (:mod:`tem.invert.posterior_products`): each
@@ -80,14 +82,36 @@ def posterior_section_figure(models, settings, title=None):
         ax.set_ylim(ye[-1], ye[0])
         ax.set_ylabel("depth below surface (m)")
     _mark_unconverged((ax1, ax2), models, idx, sd, scale, (ye[0], ye[-1]), (xe[0], xe[-1]))
+    qc = _mark_failed_qc((ax1, ax2), models, idx, sd, scale, (ye[0], ye[-1]), (xe[0], xe[-1]))
     ax1.legend(fontsize=7, loc="lower left")
-    ax1.set_title(title or "posterior P50 resistivity (few-layer models)", pad=14)
+    ax1.set_title(title or "posterior P50 resistivity (few-layer models)",
+                  pad=24 if any(qc) else 14)        # room for two-line station names
     ax2.set_title("posterior spread: log10(P90 / P10) of resistivity")
     ax2.set_xlabel(f"distance along profile ({unit})")
-    for s, x in zip(g50["station"].values.astype(str)[order], sd):
-        ax1.annotate(s, (x, ye[0]), xytext=(0, 2), textcoords="offset points", ha="center",
-                     va="bottom", fontsize=6, annotation_clip=False)
+    for s, x, q in zip(g50["station"].values.astype(str)[order], sd, qc):
+        ax1.annotate(s + (f"\nQC {q}" if q else ""), (x, ye[0]), xytext=(0, 2),
+                     textcoords="offset points", ha="center", va="bottom", fontsize=6,
+                     annotation_clip=False, color="#5b2a86" if q == "reoccupy" else "k",
+                     fontweight="bold" if q == "reoccupy" else "normal")
     return fig
+
+
+def _mark_failed_qc(axes, models, idx, sd, scale, yrange, xrange):
+    """Tint and hatch the columns of stations whose recording failed the evening QC
+    (reoccupy; gid ``qc-columns``); returns each station's QC word ("" when good or none),
+    in profile order, for its name above the section."""
+    from ..io.models import qc_verdicts
+    from .plot import mark_columns, station_edges
+
+    qcs = [qc_verdicts(models)[i] for i in idx]
+    words = ["" if q is None or q["verdict"] == "good" else q["verdict"] for q in qcs]
+    cls = [4 if w == "reoccupy" else 0 for w in words]
+    if any(cls):
+        edges = np.clip(station_edges(np.asarray(sd) / scale, scale), *xrange)
+        for ax in axes:
+            mark_columns(ax, edges, cls, yrange, "qc-columns")
+            ax.set_xlim(*xrange)
+    return words
 
 
 def _mark_unconverged(axes, models, idx, sd, scale, yrange, xrange):

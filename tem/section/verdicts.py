@@ -13,7 +13,8 @@ from __future__ import annotations
 
 import numpy as np
 
-__all__ = ["add_section_verdicts", "SEVERITY_RANK", "NOT_FITTED_CODES", "FAILURE_CODES"]
+__all__ = ["add_section_verdicts", "add_section_qc", "SEVERITY_RANK", "NOT_FITTED_CODES",
+           "FAILURE_CODES", "QC_REOCCUPY"]
 
 #: Severity rank of each verdict code (0 fitted, 1 misfit, 2 stalled, 3 at bound,
 #: 4 degenerate layer; -1 none): higher is worse.
@@ -21,6 +22,9 @@ SEVERITY_RANK = {-1: -1, 0: 0, 4: 1, 3: 2, 2: 3, 1: 4}
 #: Codes of models that are not fitted (anything but 0), and of failures (misfit, stalled).
 NOT_FITTED_CODES = (1, 2, 3, 4)
 FAILURE_CODES = (1, 2)
+#: Evening QC verdict code of a recording to be repeated (``qc_verdict_code``; -1 none,
+#: 0 good, 1 check, 2 reoccupy): higher is worse.
+QC_REOCCUPY = 2
 
 
 def add_section_verdicts(ds, models, order, left, right, w):
@@ -55,4 +59,33 @@ def add_section_verdicts(ds, models, order, left, right, w):
                           "the column is made from (the more severe of two)"))
     ds["chi2"] = ("distance", chi2[pick], {"units": "1", "long_name": "final chi-square per "
                                            "datum of the station whose verdict the column has"})
+    return ds
+
+
+def add_section_qc(ds, models, order, left, right, w):
+    """Add the evening QC verdicts to a section grid ``ds`` (in place; a no-op without them).
+
+    Per station ``station_qc_verdict_code`` and ``station_qc_verdict``; per
+    column ``qc_verdict_code``, the worse verdict of the two stations a
+    column is interpolated from (reoccupy > check > good > none), else the
+    nearest station's (as for the model verdicts).
+    """
+    if "qc_verdict_code" not in models.variables:
+        return ds
+    attrs = {k: v for k, v in models["qc_verdict_code"].attrs.items()
+             if k in ("flag_values", "flag_meanings", "comment")}
+    code = models["qc_verdict_code"].values.astype(np.int8)[order]
+    text = models["qc_verdict"].values.astype(str)[order] if "qc_verdict" in models.variables \
+        else np.array([""] * code.size)
+    ds["station_qc_verdict_code"] = ("station", code, dict(
+        attrs, long_name="evening QC verdict on the station's recording"))
+    ds["station_qc_verdict"] = ("station", text, {"long_name": "evening QC verdict with its "
+                                                  "reasons, in words"})
+    near = np.where(w < 0.5, left, right) if np.size(w) else np.zeros(0, int)
+    both = (w > 0) & (w < 1)
+    worse = np.where(code[right] > code[left], right, left)
+    pick = np.where(both, worse, near)
+    ds["qc_verdict_code"] = ("distance", code[pick], dict(
+        attrs, long_name="evening QC verdict on the recordings the column is made from (the "
+        "worse of two)"))
     return ds
