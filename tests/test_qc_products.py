@@ -210,3 +210,13 @@ def test_demo_status_checks_the_planted_faults():
     assert demo_status(outcome({"EM01": "reoccupy", **planted}), console) == 1
     assert demo_status(outcome({"EM01": "good", **planted}, fit={"EM01": "misfit"}),
                        console) == 1
+
+
+def test_report_models_table(project):
+    out = project[0]
+    html = (out / "report.html").read_text()
+    stations = html[html.index('id="stations"'):]
+    table = stations[:stations.index("</table>")]
+    assert "<th>QC</th>" in table
+    row = [r for r in table.split("<tr") if f">{DEAD}<" in r][0]
+    assert 'class="reoccupy"' in row and '<td class="status">reoccupy</td>' in row

@@ -70,13 +70,16 @@ def station_table(models, station_info, chi2_limit):
     list of dict
         Keys: station, x, y, z, chi2, doi, usable_gates, status, reasons, interval (the
         verdict on the posterior intervals, ``converged`` or ``unconverged``; "" for models
-        without posterior sampling) and interval_text.
+        without posterior sampling), interval_text and qc (the evening QC verdict the
+        models file carries for the station, ``good``, ``check`` or ``reoccupy``; "" when
+        it records none).
     """
-    from ..io.models import interval_words, model_verdicts
+    from ..io.models import interval_words, model_verdicts, qc_verdicts
 
     info = station_info or {}
     verdicts = model_verdicts(models)
     intervals = interval_words(models)
+    qcs = qc_verdicts(models)
     interval_text = (models["interval_verdict"].values.astype(str)
                      if "interval_verdict" in models.variables else [""] * len(intervals))
     rows = []
@@ -106,6 +109,7 @@ def station_table(models, station_info, chi2_limit):
             "reasons": v["reasons"] if v is not None else "",
             "interval": intervals[i],
             "interval_text": str(interval_text[i]),
+            "qc": qcs[i]["verdict"] if qcs[i] else "",
         })
     return rows
 
@@ -275,14 +279,19 @@ def _model_section(models, station_info, chi2_limit, station_figures):
                  "are not yet the posterior's (docs/inversion.md, Interval verdict)")
     out.append(f"<p class=\"meta\">Coordinates in m ({html.escape(crs)}); chi2 is chi-square "
                f"per datum of the final fit (target 1; {rule}).</p>")
+    with_qc = any(r["qc"] for r in rows)
+    if with_qc:
+        rule += ("; QC: the evening verdict on the station's recording, which the model rests "
+                 "on (reoccupy: the recording is to be repeated; docs/qc.md)")
     iv_head = "<th>intervals</th>" if sampled else ""
+    qc_head = "<th>QC</th>" if with_qc else ""
     out.append("<table><thead><tr><th>station</th><th>x (m)</th><th>y (m)</th><th>z (m)</th>"
                "<th>chi2</th><th>DOI (m)</th><th>usable gates</th><th>status</th>"
-               f"{iv_head}<th>reasons</th></tr></thead><tbody>")
+               f"{iv_head}{qc_head}<th>reasons</th></tr></thead><tbody>")
     for r in rows:
-        cls = "" if r["status"] in FITTED else (
+        cls = "" if r["status"] in FITTED and r["qc"] != "reoccupy" else (
             ' class="reoccupy"' if r["status"].split(";")[0] in ("misfit", "stalled")
-            else ' class="check"')
+            or r["qc"] == "reoccupy" else ' class="check"')
         sid = html.escape(r["station"])
         link = f'<a href="#st-{sid}">{sid}</a>' if station_figures and r["station"] in station_figures else sid
         gates = html.escape(str(r["usable_gates"]))
@@ -293,11 +302,12 @@ def _model_section(models, station_info, chi2_limit, station_figures):
             iv = f"<td class=\"status\"{style}>{html.escape(r['interval'])}</td>"
             if r["interval"] == "unconverged":
                 reasons = "; ".join(x for x in (reasons, r["interval_text"]) if x)
+        qc = f"<td class=\"status\">{html.escape(r['qc'])}</td>" if with_qc else ""
         out.append(f"<tr{cls}><td class=\"id\">{link}</td><td>{_fmt(r['x'], 1)}</td>"
                    f"<td>{_fmt(r['y'], 1)}</td><td>{_fmt(r['z'], 1)}</td>"
                    f"<td>{_fmt(r['chi2'], 2)}</td><td>{_fmt(r['doi'], 0)}</td>"
                    f"<td>{gates}</td><td class=\"status\">{html.escape(r['status'])}</td>"
-                   f"{iv}<td class=\"id\">{html.escape(reasons)}</td></tr>")
+                   f"{iv}{qc}<td class=\"id\">{html.escape(reasons)}</td></tr>")
     out.append("</tbody></table>")
     return out
 
