@@ -1,0 +1,95 @@
+"""Bad-input cases found by the second hunt (tem run and the stage commands, end to end).
+
+Each case was a Python traceback or a wrong exit status before its fix; each
+must now end in one line naming the file and the field, exit status 2, the
+other stations done, and no input changed. One small two-station day
+(tests/day_fixture.py, 12 s of recording) and its stacked and gated products
+are shared by the module.
+"""
+from __future__ import annotations
+
+import hashlib
+import shutil
+from pathlib import Path
+
+import pytest
+
+from day_fixture import run_captured, write_day
+
+PROCESSING = """
+[processing.stack]
+estimator = "mean"
+batches = 4
+
+[processing.gate]
+per_decade = 4.0
+"""
+
+RUN = ["--jobs", "1", "--no-progress", "--no-figures"]
+
+
+@pytest.fixture(scope="module")
+def small_day(tmp_path_factory):
+    """A two-station day and the project of its ``tem run --until gate``."""
+    root = tmp_path_factory.mktemp("badmore")
+    survey = write_day(root / "day", ["EM05", "EM06"], PROCESSING, seed=5, duration=12.0)
+    rc, _, err = run_captured(["run", str(survey), "--out", str(root / "base"), "--until", "gate",
+                               *RUN])
+    assert rc in (0, 1), err
+    return root
+
+
+def _copy_day(small_day, tmp_path) -> Path:
+    day = tmp_path / "day"
+    shutil.copytree(small_day / "day", day)
+    return day
+
+
+def _digest(folder) -> dict:
+    return {str(p): hashlib.sha256(p.read_bytes()).hexdigest()
+            for p in sorted(Path(folder).rglob("*")) if p.is_file()}
+
+
+def _one_error_line(err: str, *names: str) -> str:
+    assert "Traceback" not in err, err
+    lines = [ln for ln in err.splitlines() if "failed" in ln or "error" in ln]
+    assert lines, err
+    for name in names:
+        assert any(name in ln for ln in lines), (name, err)
+    return lines[0]
+
+
+# ---------------------------------------------------------------- a recording file that is not there
+@pytest.mark.parametrize("edit", ["missing", "folder"])
+def test_run_with_a_missing_recording_fails_that_station_only(small_day, tmp_path, edit):
+    """`tem run` checksummed every recording before stacking: a misspelt file name (or a
+    folder given as a file) ended the whole run in FileNotFoundError/IsADirectoryError."""
+    day = _copy_day(small_day, tmp_path)
+    survey = day / "survey.toml"
+    new = {"missing": "raw/EM06/nope.npy", "folder": "raw/EM06"}[edit]
+    survey.write_text(survey.read_text().replace("raw/EM06/ex.npy", new, 1))
+    before = _digest(day)
+    out = tmp_path / "o"
+    rc, stdout, err = run_captured(["run", str(survey), "--out", str(out), "--until", "stack",
+                                    *RUN])
+    assert rc == 2, (stdout, err)
+    assert "Traceback" not in err
+    assert str(day / new) in stdout          # the failed station's line names the file
+    assert (out / "stacked" / "EM05.nc").is_file()
+    assert not (out / "stacked" / "EM06.nc").exists()
+    assert _digest(day) == before
+
+
+def test_from_with_a_removed_product_fails_that_station_only(small_day, tmp_path):
+    """`tem run --from gate` after a stacked file was removed (or moved away) ended in
+    FileNotFoundError from the resume checksums."""
+    day = _copy_day(small_day, tmp_path)
+    proj = tmp_path / "proj"
+    shutil.copytree(small_day / "base", proj)
+    (proj / "stacked" / "EM06.nc").unlink()
+    rc, stdout, err = run_captured(["run", str(day / "survey.toml"), "--out", str(proj),
+                                    "--from", "gate", "--until", "gate", *RUN])
+    assert rc == 2, (stdout, err)
+    assert "Traceback" not in err
+    assert f"{proj / 'stacked' / 'EM06.nc'}: netcdf: file not found" in stdout
+    assert (proj / "gated" / "EM05.nc").is_file()
