@@ -93,3 +93,57 @@ def test_from_with_a_removed_product_fails_that_station_only(small_day, tmp_path
     assert "Traceback" not in err
     assert f"{proj / 'stacked' / 'EM06.nc'}: netcdf: file not found" in stdout
     assert (proj / "gated" / "EM05.nc").is_file()
+
+
+# ---------------------------------------------------------------- gated files edited by hand
+def _edit_gated(small_day, tmp_path, edit) -> Path:
+    import xarray as xr
+
+    folder = tmp_path / "gated"
+    shutil.copytree(small_day / "base" / "gated", folder)
+    p = folder / "EM06.nc"
+    ds = xr.load_dataset(p, engine="h5netcdf")
+    ds = edit(ds)
+    p.unlink()
+    ds.to_netcdf(p, engine="h5netcdf")
+    return folder
+
+
+def _reversed(ds):
+    return ds.isel(gate=slice(None, None, -1))
+
+
+def _repeated(ds):
+    return ds.isel(gate=[0, 0] + list(range(1, ds.sizes["gate"])))
+
+
+def _unknown_component(ds):
+    import numpy as np
+
+    return ds.assign(component=("channel", np.array(["ex", "hz"])))
+
+
+def _nan_x(ds):
+    ds.attrs["x"] = float("nan")
+    return ds
+
+
+@pytest.mark.parametrize("edit, message", [
+    # gates out of time order or repeated were used as they stood (exit 0): a repeated
+    # gate counts its datum twice in the inversion
+    (_reversed, "gate_open: gates must go forward in time: gate 1"),
+    (_repeated, "gate_open: gates must go forward in time: gate 1"),
+    # the values in messages were numpy reprs: "unknown np.str_('hz')", "got np.float64(nan)"
+    (_unknown_component, "component: unknown 'hz'; valid:"),
+    (_nan_x, "x: must be finite, got nan"),
+])
+def test_rhoa_refuses_an_edited_gated_file(small_day, tmp_path, edit, message):
+    folder = _edit_gated(small_day, tmp_path, edit)
+    before = _digest(folder)
+    rc, stdout, err = run_captured(["rhoa", str(folder), "--out", str(tmp_path / "o"), *RUN])
+    assert rc == 2, (stdout, err)
+    line = _one_error_line(err, f"{folder / 'EM06.nc'}: {message}")
+    assert "np." not in line, line
+    assert (tmp_path / "o" / "rhoa" / "EM05.nc").is_file()
+    assert not (tmp_path / "o" / "rhoa" / "EM06.nc").exists()
+    assert _digest(folder) == before

@@ -160,6 +160,11 @@ def _gated(ds, file):
             raise input_error("gate_close", "every point sample needs open <= centre <= close", file)
     elif lo.size == 0 or np.any(hi <= lo) or np.any(mid < lo) or np.any(mid > hi):
         raise input_error("gate_close", "every gate needs open < centre < close", file)
+    for name, v in (("gate_open", lo), ("gate_centre", mid), ("gate_close", hi)):
+        if v.size > 1 and not np.all(np.diff(v) > 0):
+            i = int(np.flatnonzero(np.diff(v) <= 0)[0]) + 1
+            raise input_error(name, f"gates must go forward in time: gate {i} ({v[i]:g} s) is not "
+                              f"after gate {i - 1} ({v[i - 1]:g} s)", file)
     _channels(ds, file, required_dead=False)
     cg = ("channel", "gate")
     checks.variable(ds, "value", cg, file, maximum=BIG, allow_nan=True)
