@@ -147,3 +147,34 @@ def test_rhoa_refuses_an_edited_gated_file(small_day, tmp_path, edit, message):
     assert (tmp_path / "o" / "rhoa" / "EM05.nc").is_file()
     assert not (tmp_path / "o" / "rhoa" / "EM06.nc").exists()
     assert _digest(folder) == before
+
+
+# ---------------------------------------------------------------- extra files in a product folder
+def test_two_files_of_one_station_are_refused(small_day, tmp_path):
+    """A copy of a gated file left in the folder was inverted twice: models.nc listed the
+    station twice (refused by every later reader) and the invert exit status was 0/1."""
+    folder = tmp_path / "gated"
+    shutil.copytree(small_day / "base" / "gated", folder)
+    shutil.copy(folder / "EM06.nc", folder / "EM06_copy.nc")
+    for args in (["rhoa", str(folder), "--out", str(tmp_path / "o"), *RUN],
+                 ["invert", str(folder), "--out", str(tmp_path / "o"), *RUN, "--layers", "6",
+                  "--max-iter", "1"],
+                 ["decays", str(folder), "--csv", str(tmp_path / "o" / "d.csv"), "--system",
+                  str(tmp_path / "o" / "s.toml")]):
+        rc, stdout, err = run_captured(args)
+        assert rc == 2, (args, stdout, err)
+        assert err.count("\n") == 1, err
+        assert f"{folder / 'EM06_copy.nc'}: gated: station EM06 is in two files" in err, err
+        assert not (tmp_path / "o").exists()
+
+
+def test_hidden_appledouble_files_are_skipped(small_day, tmp_path):
+    """'._EM05.nc' (Mac metadata beside a copied file) was taken for a station and failed
+    it: exit status 2 for a good folder."""
+    folder = tmp_path / "gated"
+    shutil.copytree(small_day / "base" / "gated", folder)
+    (folder / "._EM05.nc").write_bytes(b"\x00\x05\x16\x07\x00\x02\x00\x00" + b"Mac OS X" * 60)
+    rc, stdout, err = run_captured(["rhoa", str(folder), "--out", str(tmp_path / "o"), *RUN])
+    assert rc == 0, (stdout, err)
+    assert sorted(p.name for p in (tmp_path / "o" / "rhoa").glob("*.nc")) == ["EM05.nc",
+                                                                              "EM06.nc"]
