@@ -384,6 +384,10 @@ class Survey:
         object.__setattr__(self, "lowpass_cutoff", checks.number(
             self.lowpass_cutoff, "survey.lowpass_cutoff", minimum=0.0,
             maximum=checks.LIMITS["sample_rate"]))
+        if self.lowpass_order > 0 and not self.lowpass_cutoff > 0.0:
+            # else the forward model refuses it at every station, stages later, without a file
+            raise input_error("survey.lowpass_cutoff", f"must be positive with a low-pass order "
+                              f"({self.lowpass_order}), got {self.lowpass_cutoff:g}")
         object.__setattr__(self, "base_dir", Path(self.base_dir))
 
     def station(self, sid: str) -> Station:

@@ -178,3 +178,31 @@ def test_hidden_appledouble_files_are_skipped(small_day, tmp_path):
     assert rc == 0, (stdout, err)
     assert sorted(p.name for p in (tmp_path / "o" / "rhoa").glob("*.nc")) == ["EM05.nc",
                                                                               "EM06.nc"]
+
+
+# ---------------------------------------------------------------- a low-pass order without a cut-off
+def test_survey_lowpass_order_needs_a_cutoff(small_day, tmp_path):
+    """survey.lowpass_order = 4 with no cut-off was read, stacked and gated; every station
+    then failed at rhoa and invert with 'lowpass: cut-off frequency must be positive (Hz)',
+    naming neither file nor field."""
+    day = _copy_day(small_day, tmp_path)
+    survey = day / "survey.toml"
+    survey.write_text(survey.read_text().replace("epsg = 0", "epsg = 0\nlowpass_order = 4", 1))
+    rc, stdout, err = run_captured(["run", str(survey), "--out", str(tmp_path / "o"), *RUN])
+    assert rc == 2, (stdout, err)
+    assert err.count("\n") == 1, err
+    assert f"{survey}: survey.lowpass_cutoff: must be positive with a low-pass order (4)" in err
+    assert not (tmp_path / "o").exists()
+
+
+def _lowpass_without_cutoff(ds):
+    ds.attrs.update(lowpass_order=4, lowpass_cutoff=0.0)
+    return ds
+
+
+def test_gated_lowpass_order_needs_a_cutoff(small_day, tmp_path):
+    folder = _edit_gated(small_day, tmp_path, _lowpass_without_cutoff)
+    rc, stdout, err = run_captured(["rhoa", str(folder), "--out", str(tmp_path / "o"), *RUN])
+    assert rc == 2, (stdout, err)
+    _one_error_line(err, f"{folder / 'EM06.nc'}: lowpass_cutoff: must be positive with a "
+                         "low-pass order (4), got 0")

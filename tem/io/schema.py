@@ -57,11 +57,15 @@ def _attrs(ds, file):
         checks.attr_number(ds, name, file, required=False, minimum=0.0, maximum=L["time"])
     checks.attr_number(ds, "mains_frequency", file, required=False, positive=True,
                        maximum=L["frequency"])
+    order = 0
     if "lowpass_order" in a:
-        checks.integer(_scalar(a["lowpass_order"], "lowpass_order", file), "lowpass_order",
-                       file, minimum=0, maximum=16)
-    checks.attr_number(ds, "lowpass_cutoff", file, required=False, minimum=0.0,
-                       maximum=L["sample_rate"])
+        order = checks.integer(_scalar(a["lowpass_order"], "lowpass_order", file),
+                               "lowpass_order", file, minimum=0, maximum=16)
+    cutoff = checks.attr_number(ds, "lowpass_cutoff", file, required=False, minimum=0.0,
+                                maximum=L["sample_rate"])
+    if order > 0 and not (cutoff or 0.0) > 0.0:
+        raise input_error("lowpass_cutoff", f"must be positive with a low-pass order "
+                          f"({order}), got {cutoff or 0:g}", file)
 
 
 def _text(attrs, name, default):
