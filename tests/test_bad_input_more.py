@@ -206,3 +206,48 @@ def test_gated_lowpass_order_needs_a_cutoff(small_day, tmp_path):
     assert rc == 2, (stdout, err)
     _one_error_line(err, f"{folder / 'EM06.nc'}: lowpass_cutoff: must be positive with a "
                          "low-pass order (4), got 0")
+
+
+# ---------------------------------------------------------------- section geometry
+@pytest.fixture(scope="module")
+def models_file(tmp_path_factory):
+    from profile_fixture import synthetic_models
+    from tem.io.models import write_models
+
+    return write_models(synthetic_models(), tmp_path_factory.mktemp("models") / "models.nc")
+
+
+def _same_position(ds):
+    ds = ds.copy(deep=True)
+    ds["x"].values[1], ds["y"].values[1] = ds["x"].values[0], ds["y"].values[0]
+    return ds
+
+
+@pytest.mark.parametrize("line, edit, where, message", [
+    # each was a message naming neither file nor stations
+    (None, _same_position, "models", "x, y: stations {0} and {1} are at the same position"),
+    ("x,y\n0,0\n0,0\n1000,0\n", None, "line", "line 3: x, y: same vertex as line 2"),
+    ("x,y\n5,5\n5,5\n", None, "line", "line 3: x, y: same vertex as line 2"),
+    ("x,y\n1e7,1e7\n1.001e7,1e7\n", None, "line", "line: stations {0} and {1} project onto the "
+     "same point of the line"),
+])
+def test_section_names_the_stations_it_cannot_place(models_file, tmp_path, line, edit, where,
+                                                    message):
+    import xarray as xr
+
+    ds = xr.load_dataset(models_file, engine="h5netcdf")
+    models = models_file
+    if edit is not None:
+        models = tmp_path / "models.nc"
+        edit(ds).to_netcdf(models, engine="h5netcdf")
+    args = ["section", str(models), "--out", str(tmp_path / "o"), "--no-figures", "--no-progress"]
+    if line is not None:
+        (tmp_path / "line.csv").write_text(line)
+        args += ["--line", str(tmp_path / "line.csv")]
+    rc, stdout, err = run_captured(args)
+    assert rc == 2, (stdout, err)
+    assert err.count("\n") == 1, err
+    ids = [str(s) for s in ds["station"].values]
+    named = models if where == "models" else tmp_path / "line.csv"
+    assert f"{named}: {message.format(*ids[:2])}" in err, err
+    assert not (tmp_path / "o").exists()

@@ -72,6 +72,7 @@ def run(settings: SectionSettings, models_files, out, ctx: StageContext = StageC
     from ..io.models import read_models
     from ..io.sections import write_section_grid
     from .plot import model_figure, section_figure
+    from .profile import check_station_positions, read_line_csv
 
     project = out if isinstance(out, Project) else Project(out)
     res = StageResult()
@@ -81,6 +82,8 @@ def run(settings: SectionSettings, models_files, out, ctx: StageContext = StageC
         suffix = mfile.stem[len("models"):] if mfile.stem.startswith("models") else f"_{mfile.stem}"
         sname = f"section{suffix}"
         models = read_models(mfile)
+        check_station_positions(models, read_line_csv(settings.line) if settings.line else None,
+                                settings.order, mfile, settings.line)
         grid = section_grid(models, settings)
         grid.attrs["section_settings"] = json.dumps(settings.as_dict(), sort_keys=True)
         records = records_from_json(models.attrs.get("provenance"))
