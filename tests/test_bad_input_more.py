@@ -251,3 +251,20 @@ def test_section_names_the_stations_it_cannot_place(models_file, tmp_path, line,
     named = models if where == "models" else tmp_path / "line.csv"
     assert f"{named}: {message.format(*ids[:2])}" in err, err
     assert not (tmp_path / "o").exists()
+
+
+# ---------------------------------------------------------------- survey: a receiver without files
+def test_receiver_with_an_empty_file_list_is_a_survey_error(small_day, tmp_path):
+    """files = [] was read; the station then failed when stacked with
+    'receiver.files: ex: no recording listed', naming neither the survey nor the station."""
+    day = _copy_day(small_day, tmp_path)
+    survey = day / "survey.toml"
+    text = survey.read_text()
+    old = '"raw/EM06/ex.npy",'
+    assert old in text
+    survey.write_text(text.replace(old, "", 1))
+    rc, stdout, err = run_captured(["stack", str(survey), "--out", str(tmp_path / "o"), *RUN])
+    assert rc == 2, (stdout, err)
+    assert err.count("\n") == 1, err
+    assert f"{survey}: station[EM06].receiver[0]: receiver.files: no recording listed" in err
+    assert not (tmp_path / "o").exists()
