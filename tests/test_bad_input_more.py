@@ -268,3 +268,22 @@ def test_receiver_with_an_empty_file_list_is_a_survey_error(small_day, tmp_path)
     assert err.count("\n") == 1, err
     assert f"{survey}: station[EM06].receiver[0]: receiver.files: no recording listed" in err
     assert not (tmp_path / "o").exists()
+
+
+# ---------------------------------------------------------------- the evening QC table
+@pytest.mark.parametrize("minutes, message", [
+    ("many", "not a number: 'many'"),      # was stored as NaN without a word
+    ("-5", "must be >= 0, got -5"),         # was carried into models.nc as -5 minutes
+    ("nan", "must be finite, got nan"),
+])
+def test_qc_table_extra_minutes_must_be_a_number(small_day, tmp_path, minutes, message):
+    qc = tmp_path / "stations.csv"
+    qc.write_text(f"station,verdict,reasons,extra_minutes\nEM05,check,noisy,{minutes}\n"
+                  "EM06,good,,0\n")
+    rc, stdout, err = run_captured(["invert", str(small_day / "base" / "gated"), "--out",
+                                    str(tmp_path / "o"), "--qc", str(qc), *RUN, "--layers", "6",
+                                    "--max-iter", "1"])
+    assert rc == 2, (stdout, err)
+    assert err.count("\n") == 1, err
+    assert f"{qc}: extra_minutes: line 2 (EM05): {message}" in err, err
+    assert not (tmp_path / "o").exists()
