@@ -287,3 +287,42 @@ def test_qc_table_extra_minutes_must_be_a_number(small_day, tmp_path, minutes, m
     assert err.count("\n") == 1, err
     assert f"{qc}: extra_minutes: line 2 (EM05): {message}" in err, err
     assert not (tmp_path / "o").exists()
+
+
+# ---------------------------------------------------------------- tem import
+def _import(tmp_path, csv_text, *extra):
+    from test_import_bad import GOOD_TOML
+
+    (tmp_path / "d.csv").write_text(csv_text)
+    (tmp_path / "s.toml").write_text(GOOD_TOML)
+    return run_captured(["import", str(tmp_path / "d.csv"), str(tmp_path / "s.toml"), "--out",
+                         str(tmp_path / "out"), "--no-progress", *extra])
+
+
+@pytest.mark.parametrize("edit, extra, why", [
+    (lambda t: t.replace(",1\n", ",0\n"), (), "every row flagged not usable"),
+    (lambda t: t, ("--snr-min", "1e5"), "every row flagged not usable or below --snr-min 100000"),
+])
+def test_import_of_a_station_without_a_usable_gate_is_bad_input(tmp_path, edit, extra, why):
+    """Exit status was 1 (a computation failure) and the line named the written output
+    file, not the decay CSV whose flags made it."""
+    from test_import_bad import GOOD_CSV
+
+    rc, stdout, err = _import(tmp_path, edit(GOOD_CSV), *extra)
+    assert rc == 2, (stdout, err)
+    assert "Traceback" not in err
+    assert f"{tmp_path / 'd.csv'}: usable: station EM01: no usable gate ({why})" in err, err
+
+
+@pytest.mark.parametrize("sep, name", [(";", "semicolons"), ("\t", "tabs")])
+def test_import_names_the_separator_of_a_spreadsheet_export(tmp_path, sep, name):
+    """A CSV saved with semicolons (decimal-comma locales) or tabs was refused as missing
+    every column, without saying why."""
+    from test_import_bad import GOOD_CSV
+
+    rc, stdout, err = _import(tmp_path, GOOD_CSV.replace(",", sep))
+    assert rc == 2, (stdout, err)
+    assert err.count("\n") == 1, err
+    assert f"d.csv:3: columns: missing station, component, value, error, gate_open, " \
+           f"gate_close; the header is separated by {name}" in err, err
+    assert not (tmp_path / "out").exists()
