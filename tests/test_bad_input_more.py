@@ -326,3 +326,18 @@ def test_import_names_the_separator_of_a_spreadsheet_export(tmp_path, sep, name)
     assert f"d.csv:3: columns: missing station, component, value, error, gate_open, " \
            f"gate_close; the header is separated by {name}" in err, err
     assert not (tmp_path / "out").exists()
+
+
+# ---------------------------------------------------------------- tem synth options
+@pytest.mark.parametrize("args, message", [
+    # ended in numpy's ArrayMemoryError traceback (28 PiB asked for)
+    (["--duration", "1e12"], "duration: at most 86400 s (a day) per station, got 1e+12"),
+    # said 'stations: survey lists no station', naming neither the option nor the id
+    (["--duration", "8", "--stations", "EM05,EM99"], "--stations: no station 'EM99' in the "
+     "Emberline survey; valid: EM01"),
+])
+def test_synth_emberline_options(tmp_path, args, message):
+    rc, stdout, err = run_captured(["synth", "--emberline", "--out", str(tmp_path / "o"), *args])
+    assert rc == 2, (stdout, err)
+    assert err.count("\n") == 1 and message in err, err
+    assert not (tmp_path / "o").exists()
