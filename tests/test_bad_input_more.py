@@ -341,3 +341,48 @@ def test_synth_emberline_options(tmp_path, args, message):
     assert rc == 2, (stdout, err)
     assert err.count("\n") == 1 and message in err, err
     assert not (tmp_path / "o").exists()
+
+
+# ---------------------------------------------------------------- stacked files edited by hand
+def _edit_stacked(small_day, tmp_path, edit) -> Path:
+    import xarray as xr
+
+    folder = tmp_path / "stacked"
+    shutil.copytree(small_day / "base" / "stacked", folder)
+    p = folder / "EM06.nc"
+    ds = edit(xr.load_dataset(p, engine="h5netcdf"))
+    p.unlink()
+    ds.to_netcdf(p, engine="h5netcdf")
+    return folder
+
+
+def _first_time_negative(ds):
+    t = ds["time"].values.copy()
+    t[0] = -1.0
+    return ds.assign_coords(time=("time", t))
+
+
+def _attrs(**kw):
+    def edit(ds):
+        ds.attrs.update(kw)
+        return ds
+    return edit
+
+
+@pytest.mark.parametrize("edit, message", [
+    # the gate stage took the sample interval from the first two times: t_min became 16 s and
+    # the station failed with 't_max: need 0 < t_min < t_max, got 16.018, 0.4994', no file
+    (_first_time_negative, "time: samples not evenly spaced: 1.00113 s from sample 0 to 1"),
+    # gates ran to the half-period (into the next pulse's on-time), exit 0
+    (_attrs(off_time=0.0), "off_time: 0 s disagrees with duty_cycle and base_frequency"),
+    (_attrs(off_time=1e3), "off_time: 1000 s disagrees with duty_cycle and base_frequency"),
+    # a waveform the survey reader refuses was used as it stood, exit 0
+    (_attrs(ramp_off=10.0), "ramp_off: ramps (10.001 s) longer than the on-time (1 s"),
+])
+def test_gate_refuses_an_edited_stacked_file(small_day, tmp_path, edit, message):
+    folder = _edit_stacked(small_day, tmp_path, edit)
+    rc, stdout, err = run_captured(["gate", str(folder), "--out", str(tmp_path / "o"), *RUN])
+    assert rc == 2, (stdout, err)
+    _one_error_line(err, f"{folder / 'EM06.nc'}: {message}")
+    assert (tmp_path / "o" / "gated" / "EM05.nc").is_file()
+    assert not (tmp_path / "o" / "gated" / "EM06.nc").exists()

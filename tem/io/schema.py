@@ -53,8 +53,16 @@ def _attrs(ds, file):
                        maximum=L["frequency"])
     checks.attr_number(ds, "duty_cycle", file, required=False, positive=not stepped,
                        minimum=0.0, maximum=1.0)
-    for name in ("ramp_on", "ramp_off"):
-        checks.attr_number(ds, name, file, required=False, minimum=0.0, maximum=L["time"])
+    ramps = [checks.attr_number(ds, name, file, required=False, minimum=0.0, maximum=L["time"])
+             or 0.0 for name in ("ramp_on", "ramp_off")]
+    duty = a.get("duty_cycle")
+    freq = a.get("base_frequency")
+    if not stepped and duty is not None and freq:
+        # as the survey reader: ramps longer than the on-time make no waveform (a hand edit)
+        on_time = float(duty) * 0.5 / float(freq)
+        if sum(ramps) >= on_time:
+            raise input_error("ramp_off", f"ramps ({sum(ramps):g} s) longer than the on-time "
+                              f"({on_time:g} s = duty_cycle x half-period)", file)
     checks.attr_number(ds, "mains_frequency", file, required=False, positive=True,
                        maximum=L["frequency"])
     order = 0
@@ -148,7 +156,21 @@ def _stacked(ds, file):
             checks.variable(ds, key, _CH, file, maximum=BIG, allow_nan=True)
     checks.attr_number(ds, "sample_rate", file, required=False, positive=True,
                        maximum=L["sample_rate"])
-    checks.attr_number(ds, "off_time", file, required=False, minimum=0.0, maximum=L["time"])
+    off = checks.attr_number(ds, "off_time", file, required=False, minimum=0.0,
+                             maximum=L["time"])
+    duty, freq = ds.attrs.get("duty_cycle"), ds.attrs.get("base_frequency")
+    if off is not None and duty is not None and freq:
+        # the gates end at off_time: a wrong one puts them into the next pulse's on-time
+        expected = (1.0 - float(duty)) * 0.5 / float(freq)
+        if abs(off - expected) > 1e-6 * max(expected, 0.5 / float(freq)):
+            raise input_error("off_time", f"{off:g} s disagrees with duty_cycle and "
+                              f"base_frequency ((1 - duty) x half-period = {expected:g} s)", file)
+    step = np.diff(t)
+    if np.any(np.abs(step - step[0]) > 1e-6 * step[0]):
+        # the gate stage takes the sample interval from the first two times
+        k = int(np.flatnonzero(np.abs(step - step[0]) > 1e-6 * step[0])[0])
+        raise input_error("time", f"samples not evenly spaced: {step[0]:g} s from sample 0 to 1, "
+                          f"{step[k]:g} s from sample {k} to {k + 1}", file)
     for name in ("cut_offset", "cut_residual", "timing_residual"):
         if name in ds.attrs and not (isinstance(ds.attrs[name], float) and np.isnan(ds.attrs[name])):
             checks.attr_number(ds, name, file, maximum=L["time"])
