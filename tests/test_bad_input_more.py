@@ -386,3 +386,33 @@ def test_gate_refuses_an_edited_stacked_file(small_day, tmp_path, edit, message)
     _one_error_line(err, f"{folder / 'EM06.nc'}: {message}")
     assert (tmp_path / "o" / "gated" / "EM05.nc").is_file()
     assert not (tmp_path / "o" / "gated" / "EM06.nc").exists()
+
+
+# ---------------------------------------------------------------- settings that conflict with a default
+@pytest.mark.parametrize("table, overrides, expected", [
+    # blamed 'survey.toml: processing.rhoa.rho_max', a key the survey does not hold
+    ({}, [("rhoa", "rho_min", 1e6)], "--set rhoa.rho_min: conflicts with rho_max = 100000.0 "
+     "(its default): must exceed rho_min"),
+    ({}, [("invert", "start_resistivity", [10.0, 100.0])], "--set invert.start_resistivity: "
+     "conflicts with start_thickness = None (its default): give both"),
+    ({"rhoa": {"rho_min": 1e6}}, [], "{survey}: processing.rhoa.rho_min: conflicts with rho_max"),
+])
+def test_a_conflict_is_blamed_on_the_value_given(tmp_path, table, overrides, expected):
+    from tem.errors import TemInputError
+    from tem.pipeline.settings import resolve_settings
+
+    survey = tmp_path / "survey.toml"
+    with pytest.raises(TemInputError) as exc:
+        resolve_settings(table, overrides, survey)
+    msg = str(exc.value)
+    assert expected.format(survey=survey) in msg, msg
+    if overrides:
+        assert str(survey) not in msg, msg
+
+
+def test_a_stage_option_conflict_names_the_option_given(small_day, tmp_path):
+    rc, stdout, err = run_captured(["rhoa", str(small_day / "base" / "gated"), "--out",
+                                    str(tmp_path / "o"), "--rho-min", "1e6", *RUN])
+    assert rc == 2, (stdout, err)
+    assert err.count("\n") == 1, err
+    assert "--rho-min: conflicts with rho_max = 100000.0 (its default)" in err, err

@@ -571,7 +571,7 @@ def read_line_csv(path):
     return np.array(xs), np.array(ys)
 
 
-def check_station_positions(models, line=None, order="given", file=None, line_file=None):
+def check_station_positions(models, line=None, file=None, line_file=None):
     """Refuse stations a section cannot tell apart, naming them and the file at fault.
 
     Two stations of ``models`` at the same x, y (``file``: the models file), or

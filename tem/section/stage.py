@@ -83,7 +83,7 @@ def run(settings: SectionSettings, models_files, out, ctx: StageContext = StageC
         sname = f"section{suffix}"
         models = read_models(mfile)
         check_station_positions(models, read_line_csv(settings.line) if settings.line else None,
-                                settings.order, mfile, settings.line)
+                                mfile, settings.line)
         grid = section_grid(models, settings)
         grid.attrs["section_settings"] = json.dumps(settings.as_dict(), sort_keys=True)
         records = records_from_json(models.attrs.get("provenance"))
