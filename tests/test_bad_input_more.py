@@ -416,3 +416,36 @@ def test_a_stage_option_conflict_names_the_option_given(small_day, tmp_path):
     assert rc == 2, (stdout, err)
     assert err.count("\n") == 1, err
     assert "--rho-min: conflicts with rho_max = 100000.0 (its default)" in err, err
+
+
+# ---------------------------------------------------------------- survey geometry and files
+@pytest.mark.parametrize("old, new, message", [
+    # EM06's ex pointing at EM05's recording stacked EM05's data as EM06's (exit 0)
+    ('"raw/EM06/ex.npy"', '"raw/EM05/ex.npy"', "station[EM06].receiver.files: raw/EM05/ex.npy "
+     "is also the EM05 ex recording; an .npy file holds one channel"),
+    # a station 'in another CRS' was used with its numbers as they stood (exit 0): its offset
+    # from the transmitter was wrong
+    ('id = "EM06"', 'id = "EM06"\nepsg = 32735', "station[EM06].epsg: EPSG:32735 differs from "
+     "survey.epsg (0)"),
+])
+def test_survey_refuses_inconsistent_station(small_day, tmp_path, old, new, message):
+    day = _copy_day(small_day, tmp_path)
+    survey = day / "survey.toml"
+    text = survey.read_text()
+    assert old in text
+    survey.write_text(text.replace(old, new, 1))
+    rc, stdout, err = run_captured(["stack", str(survey), "--out", str(tmp_path / "o"), *RUN])
+    assert rc == 2, (stdout, err)
+    assert err.count("\n") == 1, err
+    assert f"{survey}: {message}" in err, err
+    assert not (tmp_path / "o").exists()
+
+
+def test_decays_refuses_one_file_for_csv_and_system(small_day, tmp_path):
+    """--csv X --system X wrote the decays, then the system TOML over them (exit 0)."""
+    target = tmp_path / "d.csv"
+    rc, stdout, err = run_captured(["decays", str(small_day / "base" / "gated"), "--csv",
+                                    str(target), "--system", str(target)])
+    assert rc == 2, (stdout, err)
+    assert f"{target}: --system: same file as --csv" in err, err
+    assert not target.exists()
