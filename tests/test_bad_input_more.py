@@ -449,3 +449,49 @@ def test_decays_refuses_one_file_for_csv_and_system(small_day, tmp_path):
     assert rc == 2, (stdout, err)
     assert f"{target}: --system: same file as --csv" in err, err
     assert not target.exists()
+
+
+# ---------------------------------------------------------------- damaged MiniSEED
+def _cut(p):
+    p.write_bytes(p.read_bytes()[:5000])           # the second record cut short
+
+
+def _junk_tail(p):
+    p.write_bytes(p.read_bytes() + b"\x00junk" * 40)
+
+
+def _junk_record(p):
+    b = bytearray(p.read_bytes())
+    b[4096:4224] = bytes(x ^ 0x5A for x in b[4096:4224])
+    p.write_bytes(bytes(b))
+
+
+@pytest.mark.parametrize("damage, message", [
+    # ObsPy warned ('Unexpected end of file ... The rest of the file will not be read') and
+    # the stack went on without the lost samples: exit 0 and a Python warning on stderr
+    (_cut, "records: damaged MiniSEED: Unexpected end of file"),
+    (_junk_tail, "records: damaged MiniSEED: Not a SEED record"),
+    # was reported as a gap in time, not as the damaged bytes it is
+    (_junk_record, "records: damaged MiniSEED: Not a SEED record. Will skip bytes 4096"),
+])
+def test_damaged_miniseed_is_refused(tmp_path, damage, message):
+    pytest.importorskip("obspy")
+    import warnings
+
+    import numpy as np
+
+    from tem.errors import TemInputError
+    from tem.io.mseed import mseed_open
+    from tem.io.raw import RawHeader, write_mseed_recording
+
+    p = tmp_path / "dbzdt.mseed"
+    counts = (np.arange(40000) % 1000 - 500).astype(np.int32)
+    write_mseed_recording(p, counts, RawHeader(1000.0, 1e-6, np.datetime64(
+        "2025-06-02T08:00:00", "ns"), component="dbzdt", station="EM05"))
+    damage(p)
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")          # no Python warning may get through either
+        with pytest.raises(TemInputError) as exc:
+            mseed_open(p)
+    msg = str(exc.value)
+    assert "\n" not in msg and msg.startswith(f"{p}: {message}"), msg
