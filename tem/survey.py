@@ -275,9 +275,6 @@ class Channel:
         object.__setattr__(self, "files", tuple(
             f if isinstance(f, Path) else Path(checks.text(f, "receiver.files", max_len=4096))
             for f in files))
-        if not self.files:
-            # else the station failed only when stacked, with a line naming no file
-            raise input_error("receiver.files", "no recording listed")
         if self.format is not None:
             checks.text(self.format, "receiver.format")
         object.__setattr__(self, "column", checks.integer(self.column, "receiver.column",

@@ -74,7 +74,7 @@ def test_run_with_a_missing_recording_fails_that_station_only(small_day, tmp_pat
                                     *RUN])
     assert rc == 2, (stdout, err)
     assert "Traceback" not in err
-    assert str(day / new) in stdout          # the failed station's line names the file
+    assert f"{day / new}: " in (out / "run.json").read_text()   # the failed station names it
     assert (out / "stacked" / "EM05.nc").is_file()
     assert not (out / "stacked" / "EM06.nc").exists()
     assert _digest(day) == before
@@ -91,7 +91,8 @@ def test_from_with_a_removed_product_fails_that_station_only(small_day, tmp_path
                                     "--from", "gate", "--until", "gate", *RUN])
     assert rc == 2, (stdout, err)
     assert "Traceback" not in err
-    assert f"{proj / 'stacked' / 'EM06.nc'}: netcdf: file not found" in stdout
+    assert "netcdf: file not found" in " ".join(stdout.split())
+    assert f"{proj / 'stacked' / 'EM06.nc'}: netcdf: file not found" in (proj / "run.json").read_text()
     assert (proj / "gated" / "EM05.nc").is_file()
 
 
@@ -254,9 +255,10 @@ def test_section_names_the_stations_it_cannot_place(models_file, tmp_path, line,
 
 
 # ---------------------------------------------------------------- survey: a receiver without files
-def test_receiver_with_an_empty_file_list_is_a_survey_error(small_day, tmp_path):
-    """files = [] was read; the station then failed when stacked with
-    'receiver.files: ex: no recording listed', naming neither the survey nor the station."""
+def test_receiver_with_an_empty_file_list_names_the_survey(small_day, tmp_path):
+    """files = [] (a tem forward design survey, docs/forward.md) made the station fail when
+    stacked with 'receiver.files: ex: no recording listed', naming neither the survey file
+    nor the station; the other station is still stacked."""
     day = _copy_day(small_day, tmp_path)
     survey = day / "survey.toml"
     text = survey.read_text()
@@ -265,9 +267,8 @@ def test_receiver_with_an_empty_file_list_is_a_survey_error(small_day, tmp_path)
     survey.write_text(text.replace(old, "", 1))
     rc, stdout, err = run_captured(["stack", str(survey), "--out", str(tmp_path / "o"), *RUN])
     assert rc == 2, (stdout, err)
-    assert err.count("\n") == 1, err
-    assert f"{survey}: station[EM06].receiver[0]: receiver.files: no recording listed" in err
-    assert not (tmp_path / "o").exists()
+    _one_error_line(err, f"{survey}: station[EM06].receiver[0].files: ex: no recording listed")
+    assert (tmp_path / "o" / "stacked" / "EM05.nc").is_file()
 
 
 # ---------------------------------------------------------------- the evening QC table
@@ -495,3 +496,24 @@ def test_damaged_miniseed_is_refused(tmp_path, damage, message):
             mseed_open(p)
     msg = str(exc.value)
     assert "\n" not in msg and msg.startswith(f"{p}: {message}"), msg
+
+
+@pytest.mark.parametrize("data, message", [
+    # a NUL in the reasons went on into models.nc (qc_verdict) and every export (exit 0)
+    (b"station,verdict,reasons,extra_minutes\nEM05,good,\x00,0\n", "stations.csv: NUL character"),
+    # 'unreadable (UnicodeDecodeError)' / 'unreadable (Error)' said neither where nor what
+    (b"station,verdict,reasons,extra_minutes\nEM05,good,\xff,0\n",
+     "stations.csv: not a text file (UTF-8 expected; byte 48)"),
+    (b'station,verdict,reasons,extra_minutes\nEM05,good,"' + b"x" * 200_000 + b'",0\n',
+     "stations.csv: not readable as CSV (field larger than field limit"),
+])
+def test_qc_table_bytes(small_day, tmp_path, data, message):
+    qc = tmp_path / "stations.csv"
+    qc.write_bytes(data)
+    rc, stdout, err = run_captured(["invert", str(small_day / "base" / "gated"), "--out",
+                                    str(tmp_path / "o"), "--qc", str(qc), *RUN, "--layers", "6",
+                                    "--max-iter", "1"])
+    assert rc == 2, (stdout, err)
+    assert err.count("\n") == 1, err
+    assert f"{qc}: {message}" in err, err
+    assert not (tmp_path / "o").exists()

@@ -299,16 +299,21 @@ def read_stations_csv(path) -> list:
     """
     from ..errors import input_error
 
+    import io
+
+    from ..io import checks
+
     need = ("station", "verdict", "reasons", "extra_minutes")
+    # not UTF-8, a NUL (which went on into the models file and its exports), a folder
+    text = checks.read_text(path, "stations.csv")
     try:
-        with open(path, newline="", encoding="utf-8") as fh:
-            reader = csv.DictReader(fh)
-            missing = [c for c in need if c not in (reader.fieldnames or [])]
-            if missing:
-                raise input_error(missing[0], "column missing from the evening QC table", path)
-            rows = [{k: (r.get(k) or "").strip() for k in need} for r in reader]
-    except (OSError, UnicodeDecodeError, csv.Error) as exc:
-        raise input_error("stations.csv", f"unreadable ({type(exc).__name__})", path) from None
+        reader = csv.DictReader(io.StringIO(text, newline=""))
+        missing = [c for c in need if c not in (reader.fieldnames or [])]
+        if missing:
+            raise input_error(missing[0], "column missing from the evening QC table", path)
+        rows = [{k: (r.get(k) or "").strip() for k in need} for r in reader]
+    except csv.Error as exc:
+        raise input_error("stations.csv", f"not readable as CSV ({exc})", path) from None
     seen = set()
     for n, r in enumerate(rows, start=2):
         if not r["station"]:
