@@ -411,6 +411,8 @@ class SettingsTable:
                     for k in origins:
                         if k != field and k in out and not check({**out, k: defaults.get(k)}):
                             ok = origins[k]
+                            if out[field] is None:      # a value missing: name it, where k is
+                                raise input_error(ok.label(self, field), problem, ok.file)
                             raise input_error(ok.label(self, k), f"conflicts with {field} = "
                                               f"{out[field]!r} (its default): {problem}", ok.file)
                 o = origins.get(field, origin)

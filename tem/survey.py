@@ -18,6 +18,7 @@ from pathlib import Path
 import numpy as np
 
 from .errors import TemInputError, input_error
+from .survey_rules import check_survey
 from .io import checks
 from .io.tomlfile import read_toml
 
@@ -384,10 +385,6 @@ class Survey:
         object.__setattr__(self, "lowpass_cutoff", checks.number(
             self.lowpass_cutoff, "survey.lowpass_cutoff", minimum=0.0,
             maximum=checks.LIMITS["sample_rate"]))
-        if self.lowpass_order > 0 and not self.lowpass_cutoff > 0.0:
-            # else the forward model refuses it at every station, stages later, without a file
-            raise input_error("survey.lowpass_cutoff", f"must be positive with a low-pass order "
-                              f"({self.lowpass_order}), got {self.lowpass_cutoff:g}")
         object.__setattr__(self, "base_dir", Path(self.base_dir))
 
     def station(self, sid: str) -> Station:
@@ -535,35 +532,11 @@ def survey_from_dict(doc: dict, base_dir=".") -> Survey:
                                     receivers=rxs))
         except TemInputError as exc:
             raise input_error(f"station[{sid}]", str(exc)) from None
-        survey_epsg = head.get("epsg", 0) or 0
-        if stations[-1].epsg and stations[-1].epsg != survey_epsg:
-            # coordinates are never transformed: a station in another CRS than the transmitter
-            # points would sit at a wrong offset from the wire (and in a wrong place on the line)
-            raise input_error(f"station[{sid}].epsg", f"EPSG:{stations[-1].epsg} differs from "
-                              f"survey.epsg ({survey_epsg}); give every coordinate in the "
-                              "survey's CRS")
-    _one_recording_per_npy(stations)
-    return Survey(name=head.get("name", "unnamed"), transmitter=transmitter, stations=stations,
-                  mains_frequency=head.get("mains_frequency", 50.0), epsg=head.get("epsg", 0),
-                  lowpass_order=head.get("lowpass_order", 0),
-                  lowpass_cutoff=head.get("lowpass_cutoff", 0.0), base_dir=Path(base_dir))
-
-
-def _one_recording_per_npy(stations):
-    """Refuse an ``.npy`` file listed by two receivers: it holds one channel, so one of them
-    (a copy-paste slip such as EM06's ex pointing at raw/EM05/ex.npy) stacks another's data."""
-    owner = {}
-    for st in stations:
-        for rx in st.receivers:
-            for f in rx.files:
-                if Path(f).suffix.lower() != ".npy" or (rx.format not in (None, "npy")):
-                    continue
-                key = Path(f).as_posix()
-                if key in owner:
-                    raise input_error(f"station[{st.id}].receiver.files",
-                                      f"{key} is also the {owner[key]} recording; an .npy file "
-                                      "holds one channel")
-                owner[key] = f"{st.id} {rx.component}"
+    return check_survey(Survey(    # then the checks across fields (tem/survey_rules.py)
+        name=head.get("name", "unnamed"), transmitter=transmitter, stations=stations,
+        mains_frequency=head.get("mains_frequency", 50.0), epsg=head.get("epsg", 0),
+        lowpass_order=head.get("lowpass_order", 0),
+        lowpass_cutoff=head.get("lowpass_cutoff", 0.0), base_dir=Path(base_dir)))
 
 
 def read_survey(path) -> Survey:

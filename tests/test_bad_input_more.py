@@ -394,8 +394,8 @@ def test_gate_refuses_an_edited_stacked_file(small_day, tmp_path, edit, message)
     # blamed 'survey.toml: processing.rhoa.rho_max', a key the survey does not hold
     ({}, [("rhoa", "rho_min", 1e6)], "--set rhoa.rho_min: conflicts with rho_max = 100000.0 "
      "(its default): must exceed rho_min"),
-    ({}, [("invert", "start_resistivity", [10.0, 100.0])], "--set invert.start_resistivity: "
-     "conflicts with start_thickness = None (its default): give both"),
+    ({}, [("invert", "start_resistivity", [10.0, 100.0])], "--set invert.start_thickness: "
+     "give both"),
     ({"rhoa": {"rho_min": 1e6}}, [], "{survey}: processing.rhoa.rho_min: conflicts with rho_max"),
 ])
 def test_a_conflict_is_blamed_on_the_value_given(tmp_path, table, overrides, expected):

@@ -38,7 +38,6 @@ __all__ = [
     "check_velocity_table",
     "default_max_depth",
     "LATERAL",
-    "check_station_positions",
 ]
 
 LATERAL = ("linear", "nearest")
@@ -569,35 +568,3 @@ def read_line_csv(path):
             raise input_error(f"line {lines[i]}: x, y", f"same vertex as line {lines[i - 1]} "
                               "(two consecutive vertices coincide)", path)
     return np.array(xs), np.array(ys)
-
-
-def check_station_positions(models, line=None, file=None, line_file=None):
-    """Refuse stations a section cannot tell apart, naming them and the file at fault.
-
-    Two stations of ``models`` at the same x, y (``file``: the models file), or
-    two stations projecting onto the same point of the profile ``line`` (off
-    its ends, or on one perpendicular; ``line_file``). Without this the
-    section failed with 'two consecutive polyline vertices coincide' or
-    'station chainages must be strictly increasing', naming neither.
-    """
-    x = np.asarray(models["x"].values, float)
-    y = np.asarray(models["y"].values, float)
-    ids = [str(s) for s in (models["station"].values if "station" in models.coords
-                            else range(x.size))]
-    seen = {}
-    for i, key in enumerate(zip(x.tolist(), y.tolist())):
-        if key in seen:
-            raise input_error("x, y", f"stations {ids[seen[key]]} and {ids[i]} are at the same "
-                              f"position ({key[0]:g}, {key[1]:g}); a section needs distinct "
-                              "positions", file)
-        seen[key] = i
-    if line is None or x.size < 2:
-        return
-    chain, _ = polyline_chainage(x, y, line[0], line[1])
-    order_ = np.argsort(chain, kind="stable")
-    same = np.flatnonzero(np.diff(chain[order_]) <= 1e-6)
-    if same.size:
-        a, b = order_[same[0]], order_[same[0] + 1]
-        raise input_error("line", f"stations {ids[a]} and {ids[b]} project onto the same point "
-                          f"of the line (chainage {chain[a]:.1f} m): is the line off their end, "
-                          "or across the profile?", line_file)
