@@ -404,6 +404,17 @@ class SettingsTable:
             fault = check(out)
             if fault:
                 field, problem = fault
+                if field not in origins and origins:
+                    # the field at fault keeps its default: blame the given value that makes
+                    # the conflict (else a --set value was blamed on the survey file)
+                    defaults = self.defaults()
+                    for k in origins:
+                        if k != field and k in out and not check({**out, k: defaults.get(k)}):
+                            ok = origins[k]
+                            if out[field] is None:      # a value missing: name it, where k is
+                                raise input_error(ok.label(self, field), problem, ok.file)
+                            raise input_error(ok.label(self, k), f"conflicts with {field} = "
+                                              f"{out[field]!r} (its default): {problem}", ok.file)
                 o = origins.get(field, origin)
                 raise input_error(o.label(self, field), problem, o.file)
         return out
@@ -486,7 +497,7 @@ class SettingsTable:
         """The settings object of a stage command: defaults, then the options given."""
         values = self.from_args(args)
         values.update(extra or {})
-        return self.build(values, CLI)
+        return self.build(values, CLI, {k: CLI for k in values})
 
 
 def _show_key(key) -> str:

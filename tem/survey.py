@@ -18,6 +18,7 @@ from pathlib import Path
 import numpy as np
 
 from .errors import TemInputError, input_error
+from .survey_rules import check_survey
 from .io import checks
 from .io.tomlfile import read_toml
 
@@ -531,10 +532,11 @@ def survey_from_dict(doc: dict, base_dir=".") -> Survey:
                                     receivers=rxs))
         except TemInputError as exc:
             raise input_error(f"station[{sid}]", str(exc)) from None
-    return Survey(name=head.get("name", "unnamed"), transmitter=transmitter, stations=stations,
-                  mains_frequency=head.get("mains_frequency", 50.0), epsg=head.get("epsg", 0),
-                  lowpass_order=head.get("lowpass_order", 0),
-                  lowpass_cutoff=head.get("lowpass_cutoff", 0.0), base_dir=Path(base_dir))
+    return check_survey(Survey(    # then the checks across fields (tem/survey_rules.py)
+        name=head.get("name", "unnamed"), transmitter=transmitter, stations=stations,
+        mains_frequency=head.get("mains_frequency", 50.0), epsg=head.get("epsg", 0),
+        lowpass_order=head.get("lowpass_order", 0),
+        lowpass_cutoff=head.get("lowpass_cutoff", 0.0), base_dir=Path(base_dir)))
 
 
 def read_survey(path) -> Survey:

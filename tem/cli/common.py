@@ -51,15 +51,19 @@ def _jobs(text):
 
 
 def input_files(items, option, pattern="*.nc"):
-    """Files named on the command line; a folder stands for its ``pattern`` files (sorted).
+    """Files named on the command line; a folder stands for its ``pattern`` files (sorted,
+    hidden files skipped).
 
-    Names must be unique (products are named after their inputs).
+    Names must be unique (products are named after their inputs), and for per-station
+    products (``stacked``, ``gated``) so must the stations the files hold.
     """
     files = []
     for item in items:
         p = Path(item)
         if p.is_dir():
-            found = sorted(p.glob(pattern))
+            # hidden files are skipped as a shell would: a Mac writes '._EM05.nc' (AppleDouble
+            # metadata, not netCDF) next to every file it copies onto a FAT or exFAT stick
+            found = sorted(f for f in p.glob(pattern) if not f.name.startswith("."))
             if not found:
                 raise input_error(option, f"no {pattern} files in the folder", p)
             files += found
@@ -73,7 +77,39 @@ def input_files(items, option, pattern="*.nc"):
             raise input_error(option, f"two inputs named {f.stem} ({seen[f.stem]} and {f}); "
                               "products are named after their inputs", f)
         seen[f.stem] = f
-    return list(dict.fromkeys(seen.values()))
+    files = list(dict.fromkeys(seen.values()))
+    if option in ("stacked", "gated"):
+        _one_file_per_station(files, option)
+    return files
+
+
+def _station_attribute(path):
+    """The ``station`` attribute of a product file, or None when it cannot be read (the
+    stage then refuses the file itself, in one line that fails only its station)."""
+    try:
+        import h5py
+
+        with h5py.File(path, "r") as fh:
+            sid = fh.attrs.get("station")
+    except Exception:  # noqa: BLE001 - any unreadable file is the stage's to refuse
+        return None
+    if isinstance(sid, bytes):
+        sid = sid.decode("utf-8", "replace")
+    return sid if isinstance(sid, str) else None
+
+
+def _one_file_per_station(files, option):
+    """Refuse two input files of the same station (a copy such as ``EM06_copy.nc`` left in
+    the folder): both would be processed and the models file would list the station twice."""
+    owner = {}
+    for f in files:
+        sid = _station_attribute(f)
+        if sid is None:
+            continue
+        if sid in owner:
+            raise input_error(option, f"station {sid} is in two files ({owner[sid]} and {f}); "
+                              "keep one", f)
+        owner[sid] = f
 
 
 @contextlib.contextmanager

@@ -26,6 +26,9 @@ def run(args) -> int:
         if any(Path(target).resolve() == Path(f).resolve() for f in files):
             raise input_error("--csv" if target == args.csv else "--system",
                               "would overwrite an input file", target)
+    if Path(args.csv).resolve() == Path(args.system).resolve():
+        # the system TOML was written over the decay CSV just written (exit 0, decays lost)
+        raise input_error("--system", "same file as --csv; give two files", args.system)
     csv_path, toml_path = write_decays(files, args.csv, args.system)
     print(f"tem decays: {len(files)} soundings written to {csv_path} and {toml_path}")
     return 0

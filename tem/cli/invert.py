@@ -60,6 +60,8 @@ def qc_table(option, files):
         if option.lower() == "none":
             return None
         path = Path(option)
+        if path.is_dir():
+            raise input_error("--qc", "is a folder; give the QC table (qc/stations.csv)", path)
         if not path.is_file():
             raise input_error("--qc", "not found", path)
         return path

@@ -52,6 +52,12 @@ def run(args) -> int:
     subset = args.stations.split(",") if args.stations else None
     dead = _dead_channel(args.dead)
     if args.emberline:
+        if subset:
+            ids = [st.id for st in emberline_survey(base_dir=out)[0].stations]
+            unknown = [s for s in subset if s not in ids]
+            if unknown:
+                raise input_error("--stations", f"no station {unknown[0]!r} in the Emberline "
+                                  f"survey; valid: {', '.join(ids)}")
         survey, models = emberline_survey(base_dir=out, stations=subset,
                                           raw_format=args.raw_format)
     else:

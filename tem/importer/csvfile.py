@@ -148,8 +148,11 @@ def read_decays(path) -> Decays:
     if "time" not in cols:
         missing += [c for c in ("gate_open", "gate_close") if c not in cols]
     if missing:
-        raise input_error("columns", f"missing {', '.join(missing)} (see docs/import.md)",
-                          f"{path}:{first + 1}")
+        sep = next((name for ch, name in ((";", "semicolons"), ("\t", "tabs"))
+                    if len(names) == 1 and ch in lines[first]), None)
+        hint = (f"; the header is separated by {sep}: save the file comma-separated, with a "
+                "point as the decimal mark") if sep else " (see docs/import.md)"
+        raise input_error("columns", f"missing {', '.join(missing)}{hint}", f"{path}:{first + 1}")
     sampling = "point" if "time" in cols else "window"
     rows = {}
     units = {}

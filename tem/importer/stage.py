@@ -56,10 +56,15 @@ def run(settings: ImportSettings, inputs, out, ctx: StageContext = StageContext(
     for sid, ds in datasets.items():
         path = write_dataset(ds, project.station_file("gated", sid))
         n_use = int(np.asarray(ds["usable"].values).sum())
+        # a station whose every gate is flagged is bad input (exit 2, naming the decay file);
+        # its sounding is still written, as the file gave it
+        why = "every row flagged not usable" + (f" or below --snr-min {settings.snr_min:g}"
+                                                if settings.snr_min else "")
         oc = StationOutcome(sid, "ok" if n_use else "failed",
-                            "" if n_use else f"{path}: usable: no usable gate", outputs=[str(path)],
-                            inputs=used, info={"usable_gates": n_use,
-                                               "gates": int(ds["usable"].size)})
+                            "" if n_use else f"{decays_file}: usable: station {sid}: no usable "
+                            f"gate ({why})", outputs=[str(path)], inputs=used,
+                            info={"usable_gates": n_use, "gates": int(ds["usable"].size)},
+                            bad_input=not n_use)
         res.stations[sid] = oc
         if ctx.progress:
             ctx.progress(sid, oc.status)

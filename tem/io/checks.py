@@ -53,6 +53,8 @@ MAX_NAME = 200
 
 def show(value, n: int = 40) -> str:
     """A short one-line repr of a value for a message."""
+    if type(value).__module__ == "numpy" and hasattr(value, "item") and getattr(value, "ndim", 1) == 0:
+        value = value.item()          # np.float64(nan) -> nan, np.str_('hz') -> 'hz'
     if isinstance(value, int) and not isinstance(value, bool) and abs(value) >= 10**n:
         return f"an integer of {len(str(abs(value))) if abs(value) < 10**4000 else 'over 4000'} digits"
     try:

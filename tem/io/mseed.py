@@ -46,13 +46,30 @@ def mseed_sniff(path) -> bool:
 
 
 def _read(path, **kw):
+    import warnings
+
     obspy = _obspy(path)
     try:
-        return obspy.read(str(path), format="MSEED", **kw)
+        with warnings.catch_warnings(record=True) as caught:
+            warnings.simplefilter("always")
+            st = obspy.read(str(path), format="MSEED", **kw)
     except FileNotFoundError:
         raise input_error("file", "not found", path) from None
     except Exception as exc:   # ObsPy raises many kinds on a damaged file
         raise input_error("records", f"unreadable MiniSEED ({type(exc).__name__})", path) from None
+    _refuse_damage(caught, path)
+    return st
+
+
+def _refuse_damage(caught, path):
+    """ObsPy's warnings on a damaged file (a record cut short: 'Unexpected end of file ...
+    The rest of the file will not be read'; bytes that are not a record) become one refusal:
+    the samples after the damage would be dropped without a word (exit 0, a Python warning)."""
+    for w in caught:
+        if type(w.message).__name__.endswith("MSEEDWarning") or "mseed" in str(w.category).lower():
+            text = " ".join(str(w.message).split())
+            text = text.split("(): ", 1)[-1]
+            raise input_error("records", f"damaged MiniSEED: {text}", path)
 
 
 def _choose(st, channel, path):
@@ -204,10 +221,16 @@ def _read_records(path, index, a, b):
             fh.seek(int(off))
             buf.write(fh.read(reclen))
     buf.seek(0)
+    import warnings
+
     try:
-        return read(buf, format="MSEED")
+        with warnings.catch_warnings(record=True) as caught:
+            warnings.simplefilter("always")
+            st = read(buf, format="MSEED")
     except Exception as exc:
         raise input_error("records", f"unreadable MiniSEED ({type(exc).__name__})", path) from None
+    _refuse_damage(caught, path)
+    return st
 
 
 def mseed_write(path, counts, header, channel=None) -> Path:

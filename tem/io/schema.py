@@ -53,15 +53,27 @@ def _attrs(ds, file):
                        maximum=L["frequency"])
     checks.attr_number(ds, "duty_cycle", file, required=False, positive=not stepped,
                        minimum=0.0, maximum=1.0)
-    for name in ("ramp_on", "ramp_off"):
-        checks.attr_number(ds, name, file, required=False, minimum=0.0, maximum=L["time"])
+    ramps = [checks.attr_number(ds, name, file, required=False, minimum=0.0, maximum=L["time"])
+             or 0.0 for name in ("ramp_on", "ramp_off")]
+    duty = a.get("duty_cycle")
+    freq = a.get("base_frequency")
+    if not stepped and duty is not None and freq:
+        # as the survey reader: ramps longer than the on-time make no waveform (a hand edit)
+        on_time = float(duty) * 0.5 / float(freq)
+        if sum(ramps) >= on_time:
+            raise input_error("ramp_off", f"ramps ({sum(ramps):g} s) longer than the on-time "
+                              f"({on_time:g} s = duty_cycle x half-period)", file)
     checks.attr_number(ds, "mains_frequency", file, required=False, positive=True,
                        maximum=L["frequency"])
+    order = 0
     if "lowpass_order" in a:
-        checks.integer(_scalar(a["lowpass_order"], "lowpass_order", file), "lowpass_order",
-                       file, minimum=0, maximum=16)
-    checks.attr_number(ds, "lowpass_cutoff", file, required=False, minimum=0.0,
-                       maximum=L["sample_rate"])
+        order = checks.integer(_scalar(a["lowpass_order"], "lowpass_order", file),
+                               "lowpass_order", file, minimum=0, maximum=16)
+    cutoff = checks.attr_number(ds, "lowpass_cutoff", file, required=False, minimum=0.0,
+                                maximum=L["sample_rate"])
+    if order > 0 and not (cutoff or 0.0) > 0.0:
+        raise input_error("lowpass_cutoff", f"must be positive with a low-pass order "
+                          f"({order}), got {cutoff or 0:g}", file)
 
 
 def _text(attrs, name, default):
@@ -144,7 +156,21 @@ def _stacked(ds, file):
             checks.variable(ds, key, _CH, file, maximum=BIG, allow_nan=True)
     checks.attr_number(ds, "sample_rate", file, required=False, positive=True,
                        maximum=L["sample_rate"])
-    checks.attr_number(ds, "off_time", file, required=False, minimum=0.0, maximum=L["time"])
+    off = checks.attr_number(ds, "off_time", file, required=False, minimum=0.0,
+                             maximum=L["time"])
+    duty, freq = ds.attrs.get("duty_cycle"), ds.attrs.get("base_frequency")
+    if off is not None and duty is not None and freq:
+        # the gates end at off_time: a wrong one puts them into the next pulse's on-time
+        expected = (1.0 - float(duty)) * 0.5 / float(freq)
+        if abs(off - expected) > 1e-6 * max(expected, 0.5 / float(freq)):
+            raise input_error("off_time", f"{off:g} s disagrees with duty_cycle and "
+                              f"base_frequency ((1 - duty) x half-period = {expected:g} s)", file)
+    step = np.diff(t)
+    if np.any(np.abs(step - step[0]) > 1e-6 * step[0]):
+        # the gate stage takes the sample interval from the first two times
+        k = int(np.flatnonzero(np.abs(step - step[0]) > 1e-6 * step[0])[0])
+        raise input_error("time", f"samples not evenly spaced: {step[0]:g} s from sample 0 to 1, "
+                          f"{step[k]:g} s from sample {k} to {k + 1}", file)
     for name in ("cut_offset", "cut_residual", "timing_residual"):
         if name in ds.attrs and not (isinstance(ds.attrs[name], float) and np.isnan(ds.attrs[name])):
             checks.attr_number(ds, name, file, maximum=L["time"])
@@ -160,6 +186,11 @@ def _gated(ds, file):
             raise input_error("gate_close", "every point sample needs open <= centre <= close", file)
     elif lo.size == 0 or np.any(hi <= lo) or np.any(mid < lo) or np.any(mid > hi):
         raise input_error("gate_close", "every gate needs open < centre < close", file)
+    for name, v in (("gate_open", lo), ("gate_centre", mid), ("gate_close", hi)):
+        if v.size > 1 and not np.all(np.diff(v) > 0):
+            i = int(np.flatnonzero(np.diff(v) <= 0)[0]) + 1
+            raise input_error(name, f"gates must go forward in time: gate {i} ({v[i]:g} s) is not "
+                              f"after gate {i - 1} ({v[i - 1]:g} s)", file)
     _channels(ds, file, required_dead=False)
     cg = ("channel", "gate")
     checks.variable(ds, "value", cg, file, maximum=BIG, allow_nan=True)

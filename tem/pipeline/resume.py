@@ -30,15 +30,30 @@ class Checksums:
         self.table = {}
 
     def of(self, path) -> str:
+        """SHA-256 of ``path``; a file that is missing or unreadable gives a marker instead.
+
+        The marker (``unreadable:<path>``) never equals a checksum, so whatever was
+        made from such a file is redone, and the stage that reads it refuses it in
+        one line (its station fails; ``--from`` on a project whose earlier products
+        were removed). Raising here would end the whole run in a traceback.
+        """
         p = Path(path)
         key = str(p.resolve())
-        st = p.stat()
+        try:
+            st = p.stat()
+            if not p.is_file():
+                return f"unreadable:{key}"
+        except OSError:
+            return f"unreadable:{key}"
         for known in (self.table.get(key), self.previous.get(key)):
             if known and known.get("size") == st.st_size and known.get("mtime_ns") == st.st_mtime_ns:
                 sha = known["sha256"]
                 break
         else:
-            sha = file_sha256(p)
+            try:
+                sha = file_sha256(p)
+            except OSError:
+                return f"unreadable:{key}"
         self.table[key] = {"size": st.st_size, "mtime_ns": st.st_mtime_ns, "sha256": sha}
         return sha
 

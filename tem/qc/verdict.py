@@ -294,21 +294,26 @@ def read_stations_csv(path) -> list:
     """Rows of a ``qc/stations.csv`` table as dicts of strings (station, verdict, reasons,
     extra_minutes), checked: one row per station, each verdict one of :data:`VERDICTS`.
 
-    A table that cannot be read, lacks a column, repeats a station or has an unknown
-    verdict raises :class:`tem.errors.TemInputError` naming the file and field.
+    A table that cannot be read, lacks a column, repeats a station, has an unknown
+    verdict or extra minutes that are not a number in 0..1e6 raises :class:`tem.errors.TemInputError` naming the file and field.
     """
     from ..errors import input_error
 
+    import io
+
+    from ..io import checks
+
     need = ("station", "verdict", "reasons", "extra_minutes")
+    # not UTF-8, a NUL (which went on into the models file and its exports), a folder
+    text = checks.read_text(path, "stations.csv")
     try:
-        with open(path, newline="", encoding="utf-8") as fh:
-            reader = csv.DictReader(fh)
-            missing = [c for c in need if c not in (reader.fieldnames or [])]
-            if missing:
-                raise input_error(missing[0], "column missing from the evening QC table", path)
-            rows = [{k: (r.get(k) or "").strip() for k in need} for r in reader]
-    except (OSError, UnicodeDecodeError, csv.Error) as exc:
-        raise input_error("stations.csv", f"unreadable ({type(exc).__name__})", path) from None
+        reader = csv.DictReader(io.StringIO(text, newline=""))
+        missing = [c for c in need if c not in (reader.fieldnames or [])]
+        if missing:
+            raise input_error(missing[0], "column missing from the evening QC table", path)
+        rows = [{k: (r.get(k) or "").strip() for k in need} for r in reader]
+    except csv.Error as exc:
+        raise input_error("stations.csv", f"not readable as CSV ({exc})", path) from None
     seen = set()
     for n, r in enumerate(rows, start=2):
         if not r["station"]:
@@ -319,6 +324,12 @@ def read_stations_csv(path) -> list:
         if r["verdict"] not in VERDICTS:
             raise input_error("verdict", f"{r['verdict']!r} on line {n} ({r['station']}); valid: "
                               f"{', '.join(VERDICTS)}", path)
+        if r["extra_minutes"]:
+            # was turned into NaN (text) or carried as it stood (negative) into every models file
+            from ..io import checks
+
+            checks.number(r["extra_minutes"], f"extra_minutes: line {n} ({r['station']})", path,
+                          parse_text=True, minimum=0.0, maximum=1e6)
     return rows
 
 

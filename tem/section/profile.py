@@ -562,4 +562,9 @@ def read_line_csv(path):
           for k, r in rows]
     if len(xs) < 2:
         raise input_error("line", "a polyline needs at least two vertices", path)
+    lines = [k for k, _ in rows]
+    for i in range(1, len(xs)):
+        if xs[i] == xs[i - 1] and ys[i] == ys[i - 1]:
+            raise input_error(f"line {lines[i]}: x, y", f"same vertex as line {lines[i - 1]} "
+                              "(two consecutive vertices coincide)", path)
     return np.array(xs), np.array(ys)

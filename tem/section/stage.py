@@ -17,7 +17,7 @@ from ..provenance import records_from_json, stage_record
 from ..runtime import StageContext, StageResult
 from .settings import SECTION, SectionSettings
 
-__all__ = ["run", "profile_kwargs", "section_grid", "settings_of_grid"]
+__all__ = ["run", "profile_kwargs", "section_grid", "settings_of_grid", "check_station_positions"]
 
 
 def profile_kwargs(models, settings: SectionSettings) -> dict:
@@ -72,6 +72,7 @@ def run(settings: SectionSettings, models_files, out, ctx: StageContext = StageC
     from ..io.models import read_models
     from ..io.sections import write_section_grid
     from .plot import model_figure, section_figure
+    from .profile import read_line_csv
 
     project = out if isinstance(out, Project) else Project(out)
     res = StageResult()
@@ -81,6 +82,8 @@ def run(settings: SectionSettings, models_files, out, ctx: StageContext = StageC
         suffix = mfile.stem[len("models"):] if mfile.stem.startswith("models") else f"_{mfile.stem}"
         sname = f"section{suffix}"
         models = read_models(mfile)
+        check_station_positions(models, read_line_csv(settings.line) if settings.line else None,
+                                mfile, settings.line)
         grid = section_grid(models, settings)
         grid.attrs["section_settings"] = json.dumps(settings.as_dict(), sort_keys=True)
         records = records_from_json(models.attrs.get("provenance"))
@@ -109,3 +112,38 @@ def run(settings: SectionSettings, models_files, out, ctx: StageContext = StageC
                 model_figure(models, max_depth=settings.max_depth), figs / "models", formats,
                 dpi=150)]
     return res
+
+
+def check_station_positions(models, line=None, file=None, line_file=None):
+    """Refuse stations a section cannot tell apart, naming them and the file at fault.
+
+    Two stations of ``models`` at the same x, y (``file``: the models file), or
+    two stations projecting onto the same point of the profile ``line`` (off
+    its ends, or on one perpendicular; ``line_file``). Without this the
+    section failed with 'two consecutive polyline vertices coincide' or
+    'station chainages must be strictly increasing', naming neither.
+    """
+    from ..errors import input_error
+    from .profile import polyline_chainage
+
+    x = np.asarray(models["x"].values, float)
+    y = np.asarray(models["y"].values, float)
+    ids = [str(s) for s in (models["station"].values if "station" in models.coords
+                            else range(x.size))]
+    seen = {}
+    for i, key in enumerate(zip(x.tolist(), y.tolist())):
+        if key in seen:
+            raise input_error("x, y", f"stations {ids[seen[key]]} and {ids[i]} are at the same "
+                              f"position ({key[0]:g}, {key[1]:g}); a section needs distinct "
+                              "positions", file)
+        seen[key] = i
+    if line is None or x.size < 2:
+        return
+    chain, _ = polyline_chainage(x, y, line[0], line[1])
+    order_ = np.argsort(chain, kind="stable")
+    same = np.flatnonzero(np.diff(chain[order_]) <= 1e-6)
+    if same.size:
+        a, b = order_[same[0]], order_[same[0] + 1]
+        raise input_error("line", f"stations {ids[a]} and {ids[b]} project onto the same point "
+                          f"of the line (chainage {chain[a]:.1f} m): is the line off their end, "
+                          "or across the profile?", line_file)

@@ -22,7 +22,16 @@ def stack_one(survey, sid, settings: StackSettings, survey_file, out_path, fig_p
     from ..qc import qc_rows, raw_vs_stacked_figure
     from .station import stack_station
 
+    from ..errors import input_error
+
     st = survey.station(sid)
+    for j, rx in enumerate(st.receivers):
+        if not rx.files:
+            # files = [] is for a design survey of tem forward (docs/forward.md); the reader's
+            # own line named neither the survey nor the station
+            raise input_error(f"station[{sid}].receiver[{j}].files", f"{rx.component}: no "
+                              "recording listed (files = [] is for tem forward only)",
+                              survey_file)
     chans, timing = stack_station(survey, st, settings, progress=report_progress)
     inputs = ([survey_file] if survey_file else []) + [survey.path(f) for rx in st.receivers
                                                         for f in rx.files]

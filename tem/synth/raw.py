@@ -261,12 +261,20 @@ def _apply_faults(volts, comp, f, rng, n, fs):
     return volts
 
 
+#: Longest recording synthesised per station (s): one day (the scenario records 900 s).
+MAX_DURATION = 86400.0
+
+
 def _check_synth_inputs(survey, models, duration, noisy_station, dead_channel):
     """Refuse inputs that would be ignored or fail half-way, before any file is written."""
     if not survey.stations:
         raise input_error("stations", "survey lists no station")
     if not (np.isfinite(duration) and duration > 0):
         raise input_error("duration", f"must be a positive number of seconds, got {duration}")
+    if duration > MAX_DURATION:
+        # each channel is built in memory: 1e12 s ended in a MemoryError traceback
+        raise input_error("duration", f"at most {MAX_DURATION:g} s (a day) per station, got "
+                          f"{duration:g}")
     ids = [st.id for st in survey.stations]
     missing = [i for i in ids if i not in models]
     if missing:
