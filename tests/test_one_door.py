@@ -148,3 +148,46 @@ def test_input_products_are_never_overwritten(two_doors, tmp_path, capsys):
     assert main(["gate", str(p / "gated"), "--out", str(p)]) == 2
     assert "would overwrite or remove the input" in capsys.readouterr().err
     assert {f: f.read_bytes() for f in (p / "gated").iterdir()} == before
+
+
+def test_tem_run_context_keeps_no_qc_rows(two_doors, tmp_path):
+    # tem run prints no QC table, so its station tasks leave their rows behind (StageContext
+    # rows=False): the client then never holds a survey's rows; the stage's verdicts, its
+    # QC file and its products are those of a stage command's context
+    from tem.gate.stage import run as gate_run
+    from tem.runtime import StageContext
+    from tem.stack.stage import run as stack_run
+    from tem.survey import read_survey
+
+    _, b = two_doors
+    survey_file = b.parent / "day" / "survey.toml"
+    survey = read_survey(survey_file)
+    stacked = sorted((b / "stacked").glob("*.nc"))
+    out = {}
+    for rows in (True, False):
+        ctx = StageContext(figures=False, rows=rows)
+        st = stack_run(_stack_settings(), survey, [s.id for s in survey.stations],
+                       tmp_path / f"s{rows}", ctx, survey_file)
+        gt = gate_run(_gate_settings(), stacked, tmp_path / f"g{rows}", ctx)
+        out[rows] = (st, gt)
+    for st, gt in (out[True], out[False]):
+        assert set(st.ok) == set(gt.ok) == {"EM05", "EM06"}
+    for res in out[True]:
+        assert all(oc.payload and oc.payload[0]["station"] == sid for sid, oc in res.stations.items())
+    for res in out[False]:
+        assert all(oc.payload is None for oc in res.stations.values())
+    assert [oc.info for oc in out[True][1].stations.values()] == \
+        [oc.info for oc in out[False][1].stations.values()]
+    assert (tmp_path / "gTrue" / "qc" / "stations.csv").read_bytes() == \
+        (tmp_path / "gFalse" / "qc" / "stations.csv").read_bytes()
+    assert files_of(tmp_path / "sTrue") == files_of(tmp_path / "sFalse")
+
+
+def _stack_settings():
+    from tem.pipeline.settings import TABLES
+    return TABLES["stack"].build({"estimator": "mean", "batches": 8})
+
+
+def _gate_settings():
+    from tem.pipeline.settings import TABLES
+    return TABLES["gate"].build({"per_decade": 4.0})
