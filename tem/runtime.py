@@ -81,9 +81,7 @@ class StageContext:
     write the per-station and profile figures. run_state : the run record of
     ``tem run`` (None for a stage command). reused : station -> outcome carried
     over from an earlier run (its products are on disk and up to date): those
-    stations are not computed again. rows : station tasks return their QC
-    table rows in ``payload`` (the stage commands print them; ``tem run``
-    does not, so its client never holds a survey's rows).
+    stations are not computed again.
     """
 
     executor: object = None
@@ -92,7 +90,6 @@ class StageContext:
     figures: bool = True
     run_state: dict | None = None
     reused: dict = field(default_factory=dict)
-    rows: bool = True
 
 
 _REPORT = None

@@ -15,9 +15,8 @@ from .settings import GateSettings
 __all__ = ["run", "gate_one"]
 
 
-def gate_one(sid, in_path, settings: GateSettings, out_path, fig_path, rows_back=True):
-    """Gate one stacked file (runs in a worker); its product and figure ride back as bytes,
-    its QC measures (and its QC table rows when ``rows_back``) in ``payload``."""
+def gate_one(sid, in_path, settings: GateSettings, out_path, fig_path):
+    """Gate one stacked file (runs in a worker); its product and figure ride back as bytes."""
     import numpy as np
 
     from ..io.figures import figure_bytes
@@ -38,7 +37,7 @@ def gate_one(sid, in_path, settings: GateSettings, out_path, fig_path, rows_back
     info = {"usable_gates": usable, "gates": int(g["usable"].size),
             "qc": ", ".join(bad) if bad else "ok"}
     inputs = [{"file": str(in_path), "sha256": file_sha256(in_path)}]
-    payload = {"rows": rows if rows_back else None, "measures": channel_measures(st, g)}
+    payload = {"rows": rows, "measures": channel_measures(st, g)}
     if not usable:
         return StationOutcome(sid, "failed", f"{out_path}: usable: no gate above the noise",
                               inputs=inputs, info=info, payload=payload, products=products)
@@ -104,16 +103,14 @@ def run(settings: GateSettings, stacked_files, out, ctx: StageContext = StageCon
     -------
     StageResult
         One outcome per file (keyed by file name without suffix) with the
-        station's verdict in ``info``; ``payload`` holds the QC table rows (None
-        when ``ctx.rows`` is false).
+        station's verdict in ``info``; ``payload`` holds the QC table rows.
     """
     project = out if isinstance(out, Project) else Project(out)
     jobs = []
     for f in map(Path, stacked_files):
         sid = f.stem
         jobs.append((sid, (sid, f, settings, project.station_file("gated", sid),
-                           project.station_figure(sid, "decay") if ctx.figures else None,
-                           ctx.rows)))
+                           project.station_figure(sid, "decay") if ctx.figures else None)))
     res = StageResult(stations=map_stations(gate_one, jobs, ctx))
     if res.stations or failed:
         evening_verdicts(res, {Path(f).stem: Path(f) for f in stacked_files}, project, qc, failed)

@@ -260,7 +260,7 @@ class _Run:
         else:
             stage_fp = None
         ctx = StageContext(progress=tally.station, partial=tally.fraction, run_state=self.state,
-                           reused=reused, rows=False, **self.ctx_kw)
+                           reused=reused, **self.ctx_kw)
         t0 = time.perf_counter()
         result = _stage_call(stage, self.settings, self.survey, self.survey_file, self.project,
                              self.state, ctx)

@@ -35,7 +35,7 @@ __all__ = ["ChannelMeasures", "channel_measures", "tx_offset", "primary_bz", "dc
            "polarity_ratio"]
 
 
-@dataclass(frozen=True, slots=True)      # slots: a survey's measures are all held at once
+@dataclass(frozen=True)
 class ChannelMeasures:
     """QC measures of one channel of one station (SI units; NaN: not measured).
 

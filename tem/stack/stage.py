@@ -14,10 +14,8 @@ from .settings import StackSettings
 __all__ = ["run", "stack_one"]
 
 
-def stack_one(survey, sid, settings: StackSettings, survey_file, out_path, fig_path,
-              rows_back=True):
-    """Stack one station (runs in a worker); its product and figure ride back as bytes, its
-    QC table rows in ``payload`` when ``rows_back``."""
+def stack_one(survey, sid, settings: StackSettings, survey_file, out_path, fig_path):
+    """Stack one station (runs in a worker); its product and figure ride back as bytes."""
     from ..io.figures import figure_bytes
     from ..io.netcdf import netcdf_bytes
     from ..io.stacked import stacked_dataset
@@ -40,8 +38,8 @@ def stack_one(survey, sid, settings: StackSettings, survey_file, out_path, fig_p
     info = {"transients": f"{used}/{total}",
             "timing_source": timing["source"],
             "timing_residual_us": float(timing["residual_rms"]) * 1e6}
-    return StationOutcome(sid, "ok", inputs=rec["inputs"], info=info,
-                          payload=rows if rows_back else None, products=products)
+    return StationOutcome(sid, "ok", inputs=rec["inputs"], info=info, payload=rows,
+                          products=products)
 
 
 def run(settings: StackSettings, survey, stations, out, ctx: StageContext = StageContext(),
@@ -64,8 +62,7 @@ def run(settings: StackSettings, survey, stations, out, ctx: StageContext = Stag
     Returns
     -------
     StageResult
-        One outcome per station; ``payload`` holds its QC table rows (None when
-        ``ctx.rows`` is false).
+        One outcome per station; ``payload`` holds its QC table rows.
     """
     from ..survey import replace
 
@@ -78,7 +75,7 @@ def run(settings: StackSettings, survey, stations, out, ctx: StageContext = Stag
     jobs = [(sid, (replace(survey, stations=[survey.station(sid)]), sid, settings,
                    Path(survey_file) if survey_file else None,
                    project.station_file("stacked", sid),
-                   project.station_figure(sid, "raw") if ctx.figures else None, ctx.rows))
+                   project.station_figure(sid, "raw") if ctx.figures else None))
             for sid in stations]
     res = StageResult(stations=map_stations(stack_one, jobs, ctx))
     ok, _ = survey.mains_rule()
