@@ -39,6 +39,9 @@ def invert_one(sid, in_path, settings: InversionSettings, floors, fig_path):
         else:
             fig = station_figure(r, kind=settings.kind)
         products.append((fig_path, figure_bytes(fig)))
+    # the iteration log is the figure's only: the client holds every station's result until
+    # it writes the survey-wide products, so it gets the result without it
+    r.history = []
     info = {"doi": float(r.doi), "epsg": int(ds.attrs.get("epsg", 0) or 0),
             **verdict_info(r, settings.kind)}
     if r.posterior is not None:

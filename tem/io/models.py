@@ -31,6 +31,7 @@ __all__ = [
     "check_model_values",
     "write_models",
     "layer_rows",
+    "iter_layer_rows",
     "write_models_csv",
     "layer_bottoms",
     "export_record",
@@ -375,7 +376,14 @@ def interval_words(ds):
 
 
 def layer_rows(ds):
-    """One dict per present layer per station, in :data:`CSV_COLUMNS` order.
+    """One dict per present layer per station, in :data:`CSV_COLUMNS` order
+    (:func:`iter_layer_rows` as a list).
+    """
+    return list(iter_layer_rows(ds))
+
+
+def iter_layer_rows(ds):
+    """The rows of :func:`layer_rows` one at a time (a survey's table is never all in memory).
 
     ``below_doi`` is 1 when the layer top is at or below the DOI (the whole
     layer is not resolved), else 0. ``verdict``, ``verdict_code`` and
@@ -389,7 +397,6 @@ def layer_rows(ds):
     verdicts = model_verdicts(ds)
     qcs = qc_verdicts(ds)
     intervals = interval_words(ds)
-    rows = []
     for i, sid in enumerate(ds["station"].values.astype(str)):
         doi = float(ds["doi"].values[i])
         for k in range(ds.sizes["layer"]):
@@ -397,7 +404,7 @@ def layer_rows(ds):
             if not np.isfinite(rho):
                 continue
             top = float(ds["depth_top"].values[i, k])
-            rows.append({
+            row = {
                 "station": sid,
                 "x": _num(ds["x"].values[i]),
                 "y": _num(ds["y"].values[i]),
@@ -417,14 +424,14 @@ def layer_rows(ds):
                 "verdict_reasons": verdicts[i]["reasons"] if verdicts[i] else "",
                 "qc_verdict": qcs[i]["verdict"] if qcs[i] else "",
                 "qc_reasons": qcs[i]["reasons"] if qcs[i] else "",
-            })
+            }
             if "resistivity_low" in ds:
-                rows[-1].update({c: _num(ds[v].values[i, k]) for c, v in RANGE_COLUMNS.items()})
+                row.update({c: _num(ds[v].values[i, k]) for c, v in RANGE_COLUMNS.items()})
             if "depth_p50" in ds:
-                rows[-1].update({c: _num(ds[v].values[i] if ds[v].ndim == 1 else ds[v].values[i, k])
-                                 for c, v in zip(POSTERIOR_COLUMNS, _POSTERIOR_VARS)})
-                rows[-1]["interval_verdict"] = intervals[i]
-    return rows
+                row.update({c: _num(ds[v].values[i] if ds[v].ndim == 1 else ds[v].values[i, k])
+                            for c, v in zip(POSTERIOR_COLUMNS, _POSTERIOR_VARS)})
+                row["interval_verdict"] = intervals[i]
+            yield row
 
 
 def _num(v):
@@ -438,7 +445,7 @@ def write_models_csv(ds, path):
     Columns: :data:`CSV_COLUMNS`; a header row, comma separated, UTF-8,
     numbers with full float precision.
     """
-    rows = layer_rows(ds)
+    rows = iter_layer_rows(ds)          # streamed: a dict per row, ~2 kB, never all at once
     with atomic_path(path) as tmp:
         with open(tmp, "w", newline="", encoding="utf-8") as fh:
             w = csv.DictWriter(fh, fieldnames=CSV_COLUMNS

@@ -212,13 +212,16 @@ class _Run:
         self.force = set(force)          # stages recomputed whatever their fingerprints say
 
     def _station_inputs(self, stage):
-        """{station: (input files, extra)} of a per-station stage."""
-        ok = _ok(self.state, self.survey)
+        """``(station, input files, extra)`` of a per-station stage, one station at a time (the
+        survey text of a station's stack is made when its fingerprint is, not all at once)."""
         if stage == "stack":
-            return {st.id: ([self.survey.path(f) for r in st.receivers for f in r.files],
-                            station_survey_text(self.survey, st.id)) for st in self.survey.stations}
+            for st in self.survey.stations:
+                yield (st.id, [self.survey.path(f) for r in st.receivers for f in r.files],
+                       station_survey_text(self.survey, st.id))
+            return
         prev, folder = _PER_STATION[stage]
-        return {sid: ([self.project.station_file(folder, sid)], None) for sid in ok.get(prev, [])}
+        for sid in _ok(self.state, self.survey).get(prev, []):
+            yield sid, [self.project.station_file(folder, sid)], None
 
     def _profile_inputs(self, stage):
         ok = _ok(self.state, self.survey)
@@ -249,7 +252,7 @@ class _Run:
         reused = {}
         fps = {}
         if stage in _PER_STATION:
-            for sid, (files, extra) in self._station_inputs(stage).items():
+            for sid, files, extra in self._station_inputs(stage):
                 fps[sid] = fingerprint(stage, s.as_dict(), [self.sums.of(f) for f in files], extra)
                 old = (prev_rec or {}).get("stations", {}).get(sid)
                 ok, note = reusable(self.project, old, fps[sid], self.sums)
@@ -512,18 +515,21 @@ def _run_locked(survey, survey_file, settings, project, start, end, jobs, consol
                 result, rec = run.run_stage(stage, tally)
             finally:
                 _write_run(project, state)
+            desc = ("reused" if result is None else
+                    "[red]" + result.failed if result.failed else "done")
             if result is not None:
                 for sid, oc in result.stations.items():
                     if oc.status != "ok":
                         prog.console.print(f"[red]{stage}: station {sid} failed[/]: {oc.message}",
                                            highlight=False, soft_wrap=True)
                 _prune(project, stage, result.all_outputs())
+            # the record holds what the run keeps of the stage: let its outcomes (payloads,
+            # QC rows) go now, not when the next stage's result replaces them
+            result = None
             state["stages"][stage] = rec
             state["stations"] = _station_summary(state, survey)
             state["checksums"] = run.sums.table
             _write_run(project, state)
-            desc = ("reused" if result is None else
-                    "[red]" + result.failed if result.failed else "done")
             prog.update(task, completed=max(n, 1), description=desc)
             passed = [sid for sid, r in rec.get("stations", {}).items() if r["status"] == "ok"]
             if stage in STATION_STAGES and not passed:
