@@ -295,12 +295,10 @@ def read_stations_csv(path) -> list:
     extra_minutes), checked: one row per station, each verdict one of :data:`VERDICTS`.
 
     A table that cannot be read, lacks a column, repeats a station, has an unknown
-    verdict or extra minutes that are not a number in 0..1e6 raises :class:`tem.errors.TemInputError` naming the file and field.
+    verdict or extra minutes that are not a number in 0..1e6 raises
+    :class:`tem.errors.TemInputError` naming the file and field.
     """
     from ..errors import input_error
-
-    import io
-
     from ..io import checks
 
     need = ("station", "verdict", "reasons", "extra_minutes")
@@ -326,8 +324,6 @@ def read_stations_csv(path) -> list:
                               f"{', '.join(VERDICTS)}", path)
         if r["extra_minutes"]:
             # was turned into NaN (text) or carried as it stood (negative) into every models file
-            from ..io import checks
-
             checks.number(r["extra_minutes"], f"extra_minutes: line {n} ({r['station']})", path,
                           parse_text=True, minimum=0.0, maximum=1e6)
     return rows
