@@ -9,6 +9,23 @@ from __future__ import annotations
 import contextlib
 import io
 
+#: A light [processing] table for two-station runs through every stage (12-layer smooth
+#: models, 4 gates per decade, a 25 m section step, PNG figures, 10 m LAS step).
+SMALL_CHAIN = """
+[processing.gate]
+per_decade = 4.0
+
+[processing.invert]
+layers = 12
+
+[processing.section]
+depth_step = 25.0
+formats = ["png"]
+
+[processing.export]
+las_step = 10.0
+"""
+
 
 def write_day(folder, stations, processing, seed, duration, edit=None, faults=None):
     """Synthesise the day of ``stations`` into ``folder``; return its survey file.

@@ -21,25 +21,12 @@ import struct
 
 import pytest
 
+from day_fixture import SMALL_CHAIN as PROCESSING
 from day_fixture import run_captured, write_day
 
 GOOD, DEAD = "EM04", "EM05"        # EM04 has no planted fault: good, or check (a warning)
 CODES = {"good": 0, "check": 1, "reoccupy": 2}
 
-PROCESSING = """
-[processing.gate]
-per_decade = 4.0
-
-[processing.invert]
-layers = 12
-
-[processing.section]
-depth_step = 25.0
-formats = ["png"]
-
-[processing.export]
-las_step = 10.0
-"""
 
 
 @pytest.fixture(scope="module")

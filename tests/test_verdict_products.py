@@ -18,24 +18,11 @@ import struct
 import numpy as np
 import pytest
 
+from day_fixture import SMALL_CHAIN as PROCESSING
 from day_fixture import run_captured, write_day
 
 GOOD, BAD = "EM04", "EM06"
 
-PROCESSING = """
-[processing.gate]
-per_decade = 4.0
-
-[processing.invert]
-layers = 12
-
-[processing.section]
-depth_step = 25.0
-formats = ["png"]
-
-[processing.export]
-las_step = 10.0
-"""
 
 
 @pytest.fixture(scope="module")

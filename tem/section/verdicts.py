@@ -27,6 +27,26 @@ FAILURE_CODES = (1, 2)
 QC_REOCCUPY = 2
 
 
+def _station_flags(models, code_var, text_var, order):
+    """(CF flag attributes, int8 codes, texts) of a per-station verdict, in profile order."""
+    attrs = {k: v for k, v in models[code_var].attrs.items()
+             if k in ("flag_values", "flag_meanings", "comment")}
+    code = models[code_var].values.astype(np.int8)[order]
+    text = models[text_var].values.astype(str)[order] if text_var in models.variables \
+        else np.array([""] * code.size)
+    return attrs, code, text
+
+
+def _worse_of_two(rank, left, right, w):
+    """Station index whose verdict each column carries: of the two stations a column is
+    interpolated from (weight on both), the one of higher ``rank``; else the nearer one."""
+    near = np.where(w < 0.5, left, right) if np.size(w) else np.zeros(0, int)
+    both = (w > 0) & (w < 1)
+    worse_right = rank[right] > rank[left]
+    worse_left = rank[left] > rank[right]
+    return np.where(both & worse_right, right, np.where(both & worse_left, left, near))
+
+
 def add_section_verdicts(ds, models, order, left, right, w):
     """Add the verdict variables to a section grid ``ds`` (in place; a no-op without verdicts).
 
@@ -36,11 +56,7 @@ def add_section_verdicts(ds, models, order, left, right, w):
     """
     if "verdict_code" not in models.variables:
         return ds
-    attrs = {k: v for k, v in models["verdict_code"].attrs.items()
-             if k in ("flag_values", "flag_meanings", "comment")}
-    code = models["verdict_code"].values.astype(np.int8)[order]
-    text = models["verdict"].values.astype(str)[order] if "verdict" in models.variables \
-        else np.array([""] * code.size)
+    attrs, code, text = _station_flags(models, "verdict_code", "verdict", order)
     chi2 = models["chi2"].values.astype(float)[order]
     ds["station_verdict_code"] = ("station", code, dict(attrs, long_name="verdict on the "
                                                         "station's model"))
@@ -49,12 +65,7 @@ def add_section_verdicts(ds, models, order, left, right, w):
     ds["station_chi2"] = ("station", chi2, {"units": "1", "long_name": "final chi-square per "
                                             "datum of the station's model"})
     rank = np.array([SEVERITY_RANK.get(int(c), -1) for c in code])
-    use_left = (w < 0.5) if np.size(w) else np.zeros(0, bool)
-    near = np.where(use_left, left, right)
-    both = (w > 0) & (w < 1)
-    worse_right = rank[right] > rank[left]
-    worse_left = rank[left] > rank[right]
-    pick = np.where(both & worse_right, right, np.where(both & worse_left, left, near))
+    pick = _worse_of_two(rank, left, right, w)
     ds["verdict_code"] = ("distance", code[pick], dict(attrs, long_name="verdict on the models "
                           "the column is made from (the more severe of two)"))
     ds["chi2"] = ("distance", chi2[pick], {"units": "1", "long_name": "final chi-square per "
@@ -72,19 +83,12 @@ def add_section_qc(ds, models, order, left, right, w):
     """
     if "qc_verdict_code" not in models.variables:
         return ds
-    attrs = {k: v for k, v in models["qc_verdict_code"].attrs.items()
-             if k in ("flag_values", "flag_meanings", "comment")}
-    code = models["qc_verdict_code"].values.astype(np.int8)[order]
-    text = models["qc_verdict"].values.astype(str)[order] if "qc_verdict" in models.variables \
-        else np.array([""] * code.size)
+    attrs, code, text = _station_flags(models, "qc_verdict_code", "qc_verdict", order)
     ds["station_qc_verdict_code"] = ("station", code, dict(
         attrs, long_name="evening QC verdict on the station's recording"))
     ds["station_qc_verdict"] = ("station", text, {"long_name": "evening QC verdict with its "
                                                   "reasons, in words"})
-    near = np.where(w < 0.5, left, right) if np.size(w) else np.zeros(0, int)
-    both = (w > 0) & (w < 1)
-    worse = np.where(code[right] > code[left], right, left)
-    pick = np.where(both, worse, near)
+    pick = _worse_of_two(code.astype(int), left, right, w)     # codes rise with severity
     ds["qc_verdict_code"] = ("distance", code[pick], dict(
         attrs, long_name="evening QC verdict on the recordings the column is made from (the "
         "worse of two)"))
