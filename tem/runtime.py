@@ -10,11 +10,13 @@ from __future__ import annotations
 import concurrent.futures as cf
 import contextlib
 import multiprocessing as mp
+from collections.abc import MutableMapping
 from dataclasses import dataclass, field
 
 from .errors import TemInputError, TemOutputError
 
-__all__ = ["StationOutcome", "StageResult", "StageContext", "map_stations", "process_pool",
+__all__ = ["StationOutcome", "StageResult", "StageContext", "Outcomes", "map_stations",
+           "process_pool",
            "write_products", "report_progress", "Tally"]
 
 
@@ -67,6 +69,52 @@ class StageResult:
 
     def all_outputs(self) -> list:
         return list(self.outputs) + [o for oc in self.stations.values() for o in oc.outputs]
+
+
+class Outcomes(MutableMapping):
+    """A stage's station outcomes (station -> :class:`StationOutcome`), in the order of its
+    stations, kept in a spool on disk (:mod:`tem.io.spool`) as they arrive: a stage over
+    thousands of stations does not hold thousands of outcomes in memory. Only payloads a
+    stage keeps (not taken by ``map_stations(..., consume=)``) stay in memory. Reading an
+    outcome gives a copy: change one by assigning it again."""
+
+    def __init__(self, ids=()):
+        from .io.spool import Spool
+
+        self._spool = Spool(cache_kib=256)
+        self._d = self._spool.dict("outcomes")
+        self._payloads = {}
+        for sid in ids:                    # the stations' order, whatever the arrival order
+            self._d[sid] = None
+
+    def __setitem__(self, sid, oc):
+        self._d[sid] = {"status": oc.status, "message": oc.message, "outputs": list(oc.outputs),
+                        "inputs": list(oc.inputs), "info": oc.info, "bad_input": oc.bad_input}
+        if oc.payload is None:
+            self._payloads.pop(sid, None)
+        else:
+            self._payloads[sid] = oc.payload
+
+    def __getitem__(self, sid):
+        v = self._d[sid]
+        if v is None:
+            raise KeyError(sid)
+        return StationOutcome(sid, v["status"], v["message"], outputs=v["outputs"],
+                              inputs=v["inputs"], info=v["info"],
+                              payload=self._payloads.get(sid), bad_input=v["bad_input"])
+
+    def __delitem__(self, sid):
+        del self._d[sid]
+        self._payloads.pop(sid, None)
+
+    def __iter__(self):
+        return iter(self._d.keys_where(any_status=True))
+
+    def __len__(self):
+        return len(self._d.keys_where(any_status=True))
+
+    def __contains__(self, sid):
+        return sid in self._d and self._d[sid] is not None
 
 
 @dataclass
@@ -174,19 +222,26 @@ def write_products(oc: StationOutcome):
     oc.products = []
 
 
-def map_stations(task, jobs, ctx: StageContext) -> dict:
+def map_stations(task, jobs, ctx: StageContext, consume=None) -> dict:
     """Run ``task(*args)`` for each ``(station, args)`` in ``jobs``; returns id -> outcome.
 
     Uses ``ctx.executor`` when given (a process pool or a dask.distributed
     client; a crashed worker fails only its station), else runs in this
     process. Each outcome's products are written here as it arrives, then
-    reported through ``ctx.progress``; the result keeps the order of ``jobs``.
-    A failed write (:class:`TemOutputError`) stops the stage.
+    passed to ``consume`` (when given: it may take the payload, so the stage
+    never holds every station's payload at once) and reported through
+    ``ctx.progress``; the result keeps the order of ``jobs``. A failed write
+    (:class:`TemOutputError`) stops the stage. ``args`` may be a function of no
+    arguments that makes them, called when the station is submitted (so a stage
+    need not build every station's arguments at once). The outcomes come back as
+    :class:`Outcomes` (kept on disk).
     """
-    out = {}
+    out = Outcomes(sid for sid, _ in jobs)
 
     def done(oc):
         write_products(oc)
+        if consume is not None:
+            consume(oc)
         out[oc.station] = oc
         if ctx.progress:
             ctx.progress(oc.station, oc.status)
@@ -198,11 +253,15 @@ def map_stations(task, jobs, ctx: StageContext) -> dict:
     if ctx.executor is None or len(todo) <= 1:
         for sid, args in todo:
             rep = (lambda f, sid=sid: ctx.partial(sid, f)) if ctx.partial else None
-            done(_guarded(task, sid, args, rep))
-        return {sid: out[sid] for sid, _ in jobs}
+            done(_guarded(task, sid, _args(args), rep))
+        return out
     with _partial_listener(ctx) as listening:
         _run_windowed(ctx.executor, task, todo, "queue" if listening else None, done)
-    return {sid: out[sid] for sid, _ in jobs}
+    return out
+
+
+def _args(args):
+    return args() if callable(args) else args
 
 
 def in_flight(executor) -> int:
@@ -257,7 +316,7 @@ def _run_windowed(executor, task, todo, reporter, done):
 
     def submit_next():
         for sid, args in queue:
-            fut = executor.submit(_guarded, task, sid, args, reporter)
+            fut = executor.submit(_guarded, task, sid, _args(args), reporter)
             pending[fut] = sid
             return fut
         return None

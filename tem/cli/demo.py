@@ -146,8 +146,6 @@ def demo_status(outcome, console) -> int:
     (:data:`PLANTED`) are meant to fail the evening QC. 0 when they, and only they, are to be
     re-occupied and nothing else failed; 1 when the QC missed a planted fault or anything
     else failed (2 for bad input, as the run)."""
-    import copy
-
     from ..pipeline.runner import exit_status_of, to_reoccupy
 
     if outcome.exit_status == 2:
@@ -160,10 +158,9 @@ def demo_status(outcome, console) -> int:
                       highlight=False)
         return 1
     # the run's status without the planted stations' QC verdicts: 1 only for another failure
-    state = copy.deepcopy(outcome.state)
-    for sid in PLANTED:
-        state["stations"][sid].pop("qc_verdict", None)
-    status = exit_status_of(state)
+    stations = {sid: {k: v for k, v in s.items() if not (sid in PLANTED and k == "qc_verdict")}
+                for sid, s in outcome.state["stations"].items()}
+    status = exit_status_of(dict(outcome.state, stations=stations))
     console.print(f"demo: {', '.join(sorted(flagged))} to re-occupy, as the demo day was built "
                   f"(faults planted there); the run's exit status is {outcome.exit_status}, "
                   f"the demo's {status}", highlight=False)

@@ -53,6 +53,12 @@ def _measures_of(stacked_file, gated_file):
     return channel_measures(read_product(stacked_file, "stacked"), g)
 
 
+def _drop_rows(oc):
+    """Within ``tem run`` nobody reads a station's QC table rows: only its measures stay."""
+    if isinstance(oc.payload, dict):
+        oc.payload = {"measures": oc.payload["measures"]}
+
+
 def evening_verdicts(res, files, project, qc, failed=None):
     """Verdicts of every station from the stage's QC measures; writes ``qc/stations.csv``.
 
@@ -77,6 +83,7 @@ def evening_verdicts(res, files, project, qc, failed=None):
         if oc is not None:
             oc.info.update(qc_verdict=v.verdict, qc_reasons="; ".join(v.reasons),
                            extra_minutes=v.extra_minutes)
+            res.stations[v.station] = oc          # an outcome read is a copy
     res.outputs.append(str(write_stations_csv(project.root, verdicts)))
     return verdicts
 
@@ -111,10 +118,12 @@ def run(settings: GateSettings, stacked_files, out, ctx: StageContext = StageCon
         sid = f.stem
         jobs.append((sid, (sid, f, settings, project.station_file("gated", sid),
                            project.station_figure(sid, "decay") if ctx.figures else None)))
-    res = StageResult(stations=map_stations(gate_one, jobs, ctx))
+    res = StageResult(stations=map_stations(
+        gate_one, jobs, ctx, consume=_drop_rows if ctx.run_state is not None else None))
     if res.stations or failed:
         evening_verdicts(res, {Path(f).stem: Path(f) for f in stacked_files}, project, qc, failed)
-    for oc in res.stations.values():
+    for sid, oc in res.stations.items():
         if isinstance(oc.payload, dict):
-            oc.payload = oc.payload["rows"]
+            oc.payload = oc.payload.get("rows")
+            res.stations[sid] = oc
     return res

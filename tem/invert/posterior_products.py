@@ -38,8 +38,8 @@ import numpy as np
 
 from .posterior import depth_tops, target_layer, target_tops
 
-__all__ = ["QUANTILES", "TARGET_QUANTILES", "depth_edges", "station_products",
-           "add_posterior", "write_posterior_csv", "POSTERIOR_CSV_COLUMNS",
+__all__ = ["QUANTILES", "TARGET_QUANTILES", "depth_edges", "edges_from", "station_products",
+           "posterior_row", "add_posterior", "add_posterior_rows", "write_posterior_csv", "POSTERIOR_CSV_COLUMNS",
            "add_interval_verdicts"]
 
 QUANTILES = (0.1, 0.5, 0.9)
@@ -54,12 +54,20 @@ POSTERIOR_CSV_COLUMNS = ("station", "depth_m", "res_p10_ohmm", "res_p50_ohmm", "
 def depth_edges(results, cells):
     """Cell edges (m) shared by all stations: 0 to 1.5 times the deepest DOI (or the
     deepest few-layer interface when no DOI is known), ``cells`` cells."""
-    z = []
-    for r in results:
-        if np.isfinite(r.doi) and r.doi > 0:
-            z.append(1.5 * r.doi)
-        elif r.few is not None:
-            z.append(1.5 * float(np.max(r.few["depth_top"])))
+    return edges_from([_edge_depth(r.doi, r.few) for r in results], cells)
+
+
+def _edge_depth(doi, few):
+    if np.isfinite(doi) and doi > 0:
+        return 1.5 * float(doi)
+    if few is not None:
+        return 1.5 * float(np.max(few["depth_top"]))
+    return None
+
+
+def edges_from(depths, cells):
+    """Cell edges from each station's deepest depth of interest (None: none known)."""
+    z = [d for d in depths if d is not None]
     z_max = max(z) if z else 1000.0
     return np.linspace(0.0, max(z_max, 1.0), int(cells) + 1)
 
@@ -100,55 +108,102 @@ def station_products(post, edges, cover_layers, few):
     return out
 
 
-def _pad(rows, width):
-    out = np.full((len(rows), width), np.nan)
-    for i, r in enumerate(rows):
-        out[i, : len(r)] = r
-    return out
+def posterior_row(r) -> dict:
+    """What the posterior products need of one station result besides its draws (plain JSON
+    values; the draws are ``r.posterior.flat``): the invert stage keeps these rows and the
+    draws on disk as the stations arrive, not the results."""
+    post, few = r.posterior, r.few
+    return {"station": str(r.station), "edge_depth": _edge_depth(r.doi, few),
+            "n_layers": int(post.n_layers),
+            "few_resistivity": np.asarray(few["resistivity"], float).tolist(),
+            "few_depth_top": np.asarray(few["depth_top"], float).tolist(),
+            "few_depth_std": np.asarray(few["depth_std"], float).tolist(),
+            "rhat_max": float(post.max_rhat), "ess_min": float(post.min_ess),
+            "chi2_median": float(post.chi2_median), "seconds": float(post.seconds),
+            "log10_res_std": (np.std(post.flat[:, :post.n_layers], axis=0) / np.log(10)).tolist(),
+            "interval": None if r.interval is None else {"code": int(r.interval.code),
+                                                         "text": r.interval.text}}
 
 
 def add_posterior(ds, results, cells, cover_layers):
     """The models Dataset ``ds`` (few-layer models of ``results``, same station order) with the
     posterior variables added and ``model_kind = "posterior"``."""
-    edges = depth_edges(results, cells)
+    return add_posterior_rows(ds, [posterior_row(r) for r in results],
+                              lambda i: results[i].posterior.flat, cells, cover_layers)
+
+
+def add_posterior_rows(ds, rows, draws, cells, cover_layers):
+    """:func:`add_posterior` from :func:`posterior_row` rows (a sequence read twice, one row at
+    a time) and ``draws(i)``, the pooled draws of the i-th row's station: one station's
+    draws are in memory at a time."""
+    from types import SimpleNamespace
+
+    edges = edges_from([row["edge_depth"] for row in rows], cells)
     zc = 0.5 * (edges[1:] + edges[:-1])
-    L = ds.sizes["layer"]
-    prods = [station_products(r.posterior, edges, cover_layers, r.few) for r in results]
+    n, L, C = len(rows), ds.sizes["layer"], zc.size
+    depth_q = np.full((3, n, L), np.nan)
+    res_q = np.empty((3, n, C))
+    dens = {k: np.empty((n, C)) for k in ("interface_density", "target_density")}
+    target_q = np.empty((len(TARGET_QUANTILES), n))
+    target_lin = np.empty((2, n))
+    target_k = np.empty(n, int)
+    per = {k: np.empty(n) for k in ("rhat_max", "ess_min", "chi2_median", "seconds")}
+    lay = {k: np.full((n, L), np.nan) for k in ("few_depth_std", "log10_res_std")}
+    intervals = []
+    for i, row in enumerate(rows):
+        few = {k: np.asarray(row[f"few_{k}"], float)
+               for k in ("resistivity", "depth_top", "depth_std")}
+        p = station_products(SimpleNamespace(flat=draws(i), n_layers=row["n_layers"]), edges,
+                             cover_layers, few)
+        m = p["depth_q"].shape[1]
+        depth_q[:, i, 1:1 + m] = p["depth_q"]
+        res_q[:, i] = p["res_q"]
+        for k in dens:
+            dens[k][i] = p[k]
+        target_q[:, i] = p["target_q"]
+        target_lin[:, i] = p["target_lin"]
+        target_k[i] = p["target_layer"]
+        for k in per:
+            per[k][i] = row[k]
+        for k in lay:
+            src = row["few_depth_std" if k == "few_depth_std" else k]
+            lay[k][i, :len(src)] = src
+        v = row["interval"]
+        intervals.append(None if v is None else SimpleNamespace(**v))
     sl, sz = ("station", "layer"), ("station", "post_depth")
     ds = ds.assign_coords(post_depth=("post_depth", zc, {"units": "m", "cell_m": float(edges[1]),
                                                          "long_name": "depth cell centre"}))
     for j, q in enumerate(("p10", "p50", "p90")):
-        ds[f"depth_{q}"] = (sl, _pad([np.concatenate([[np.nan], p["depth_q"][j]]) for p in prods], L),
+        ds[f"depth_{q}"] = (sl, depth_q[j],
                             {"units": "m", "long_name": f"posterior {q.upper()} of depth to layer top"})
-        ds[f"res_{q}"] = (sz, np.array([p["res_q"][j] for p in prods]),
+        ds[f"res_{q}"] = (sz, res_q[j],
                           {"units": "ohm-m", "long_name": f"posterior {q.upper()} of resistivity"})
-    ds["depth_std_linearised"] = (sl, _pad([r.few["depth_std"] for r in results], L),
+    ds["depth_std_linearised"] = (sl, lay["few_depth_std"],
                                   {"units": "m", "long_name": "linearised std of depth to layer top"})
-    ds["interface_density"] = (sz, np.array([p["interface_density"] for p in prods]),
+    ds["interface_density"] = (sz, dens["interface_density"],
                                {"units": "1/m", "long_name": "probability density of an interface"})
-    ds["target_density"] = (sz, np.array([p["target_density"] for p in prods]),
+    ds["target_density"] = (sz, dens["target_density"],
                             {"units": "1/m", "long_name": "probability density of the target top"})
     for j, q in enumerate(_TQ_NAMES):
-        ds[f"target_top_{q}"] = ("station", np.array([p["target_q"][j] for p in prods]),
+        ds[f"target_top_{q}"] = ("station", target_q[j],
                                  {"units": "m", "long_name": f"posterior {q.upper()} of target top"})
-    ds["target_top_linearised"] = ("station", np.array([p["target_lin"][0] for p in prods]),
+    ds["target_top_linearised"] = ("station", target_lin[0],
                                    {"units": "m", "long_name": "target top of the few-layer fit"})
-    ds["target_top_std_linearised"] = ("station", np.array([p["target_lin"][1] for p in prods]),
+    ds["target_top_std_linearised"] = ("station", target_lin[1],
                                        {"units": "m", "long_name": "linearised std of target top"})
-    ds["target_layer"] = ("station", np.array([p["target_layer"] for p in prods]),
+    ds["target_layer"] = ("station", target_k,
                           {"units": "1", "long_name": "target layer (0 = top; -1 none)"})
-    ds["rhat_max"] = ("station", np.array([r.posterior.max_rhat for r in results]),
+    ds["rhat_max"] = ("station", per["rhat_max"],
                       {"units": "1", "long_name": "largest split R-hat over the parameters"})
-    ds["ess_min"] = ("station", np.array([r.posterior.min_ess for r in results]),
+    ds["ess_min"] = ("station", per["ess_min"],
                      {"units": "1", "long_name": "smallest bulk or tail ESS over the parameters"})
-    add_interval_verdicts(ds, [r.interval for r in results])
-    ds["chi2_posterior"] = ("station", np.array([r.posterior.chi2_median for r in results]),
+    add_interval_verdicts(ds, intervals)
+    ds["chi2_posterior"] = ("station", per["chi2_median"],
                             {"units": "1", "long_name": "median chi-square per datum of the draws"})
-    ds["posterior_seconds"] = ("station", np.array([r.posterior.seconds for r in results]),
+    ds["posterior_seconds"] = ("station", per["seconds"],
                                {"units": "s", "long_name": "sampling wall time"})
     # posterior spread replaces the linearised one in the standard variables
-    ds["log10_res_std"] = (sl, _pad([np.std(r.posterior.flat[:, :r.posterior.n_layers], axis=0)
-                                     / np.log(10) for r in results], L),
+    ds["log10_res_std"] = (sl, lay["log10_res_std"],
                            {"units": "log10(ohm-m)", "long_name": "posterior std of log10 resistivity"})
     ds.attrs["model_kind"] = "posterior"
     ds.attrs["cover_layers"] = int(cover_layers)

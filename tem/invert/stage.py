@@ -39,8 +39,7 @@ def invert_one(sid, in_path, settings: InversionSettings, floors, fig_path):
         else:
             fig = station_figure(r, kind=settings.kind)
         products.append((fig_path, figure_bytes(fig)))
-    # the iteration log is the figure's only: the client holds every station's result until
-    # it writes the survey-wide products, so it gets the result without it
+    # the iteration log is the figure's only: the result travels to the client without it
     r.history = []
     info = {"doi": float(r.doi), "epsg": int(ds.attrs.get("epsg", 0) or 0),
             **verdict_info(r, settings.kind)}
@@ -81,18 +80,18 @@ def not_fitted(result: StageResult) -> dict:
             if oc.status == "ok" and oc.info.get("verdict") in FAILURES}
 
 
-def _lci(results, files, settings, floors, folder, record, epsg, res, mark):
+def _lci(stations, files, settings, floors, folder, record, epsg, res, mark):
     """Laterally constrained inversion of the stations that have a smooth model."""
     from ..errors import TemInputError
     from ..io.models import write_models
     from .product import load_station, models_from_results, write_fit_csv
     from .station import lci_profile
 
-    if len(results) < 2:
+    if len(stations) < 2:
         res.failed = "laterally constrained inversion needs two or more inverted stations"
         return []
     try:
-        sds = [load_station(files[r.station], floors) for r in results]
+        sds = [load_station(files[sid], floors) for sid in stations]
         lres = lci_profile(sds, settings)
         ds = mark(models_from_results(lres, kind="lci", epsg=epsg))
     except (TemInputError, ValueError, np.linalg.LinAlgError, FloatingPointError) as exc:
@@ -103,10 +102,53 @@ def _lci(results, files, settings, floors, folder, record, epsg, res, mark):
         oc = res.stations.get(r.station)
         if oc is not None:
             oc.info.setdefault("verdicts", {})["lci"] = r.verdict.as_dict()
+            res.stations[r.station] = oc          # an outcome read is a copy
     res.notes.append(f"laterally constrained inversion: {len(lres)} stations, chi2 per station "
                      f"{chi2.min():.2f}-{chi2.max():.2f}")
     return [str(write_models(ds, folder / "models_lci.nc", record=dict(record, stage="invert-lci"))),
             str(write_fit_csv(lres, folder / "fit_lci.csv", kind="lci"))]
+
+
+class _Collector:
+    """Takes each station's result as it arrives (``map_stations(..., consume=)``): what the
+    survey-wide products need of it (model rows of each kind written, its fit-table rows,
+    posterior summaries and draws) goes to a spool on disk (:mod:`tem.io.spool`) and the
+    result is dropped, so the client holds no station's result beyond its arrival, whatever
+    the survey's size (docs/scaling.md)."""
+
+    def __init__(self, settings: InversionSettings):
+        from ..io.spool import Spool
+
+        self.posterior = settings.kind == "posterior"
+        self.chosen = "few-layer" if self.posterior else settings.kind
+        kinds = [self.chosen] + (["smooth"] if settings.kind in ("few-layer", "posterior")
+                                 else [])
+        self.spool = Spool()
+        self.rows = {k: self.spool.dict(f"rows:{k}") for k in kinds}
+        self.fit = self.spool.dict("fit")
+        if self.posterior:
+            self.post = self.spool.dict("posterior")
+            self.draws = self.spool.arrays("draws")
+
+    def __call__(self, oc):
+        from .product import fit_text, model_row
+
+        r, oc.payload = oc.payload, None
+        if oc.status != "ok" or r is None:
+            return
+        for kind, rows in self.rows.items():
+            rows[oc.station] = model_row(r, kind)
+        self.fit[oc.station] = fit_text(r, self.chosen)
+        if self.posterior:
+            from .posterior_products import posterior_row
+
+            self.post[oc.station] = posterior_row(r)
+            self.draws[oc.station] = r.posterior.flat
+
+    def stations(self, order) -> list:
+        """Stations with a result, in the order of ``order``."""
+        rows = self.rows[self.chosen]
+        return [sid for sid in order if sid in rows]
 
 
 def _posterior_note(ds):
@@ -143,10 +185,6 @@ def run(settings: InversionSettings, gated_files, out, ctx: StageContext = Stage
     StageResult
         One outcome per file; ``failed`` says why no models file was written.
     """
-    from ..io.models import write_models, write_models_csv
-    from .product import models_from_results, write_fit_csv
-
-    from ..io.models import add_qc_verdicts
     from ..qc import read_stations_csv
 
     project = out if isinstance(out, Project) else Project(out)
@@ -156,13 +194,23 @@ def run(settings: InversionSettings, gated_files, out, ctx: StageContext = Stage
     jobs = [(sid, (sid, f, settings, floors,
                    project.station_figure(sid, "fit") if ctx.figures else None))
             for sid, f in files.items()]
-    res = StageResult(stations=map_stations(invert_one, jobs, ctx))
-    results = [oc.payload for oc in res.stations.values() if oc.status == "ok"]
-    for oc in res.stations.values():
-        oc.payload = None
+    collect = _Collector(settings)
+    try:
+        return _products(settings, project, files, floors, qc, qc_rows, ctx, jobs, collect)
+    finally:
+        collect.spool.close()
+
+
+def _products(settings, project, files, floors, qc, qc_rows, ctx, jobs, collect):
+    """Run the stations through ``collect``, then write the survey-wide products."""
+    from ..io.models import add_qc_verdicts, write_models, write_models_csv
+    from .product import models_from_rows, write_fit_text
+
+    res = StageResult(stations=map_stations(invert_one, jobs, ctx, consume=collect))
     res.inputs = [i for oc in res.stations.values() for i in oc.inputs]
     folder = project.folder("models")
-    if not results:
+    stations = collect.stations(files)
+    if not stations:
         res.failed = "no station could be inverted"
         return res
     if qc_rows is not None:
@@ -174,22 +222,26 @@ def run(settings: InversionSettings, gated_files, out, ctx: StageContext = Stage
     record["inputs"] = res.inputs
     epsgs = {oc.info.get("epsg", 0) for oc in res.stations.values() if oc.status == "ok"}
     epsg = epsgs.pop() if len(epsgs) == 1 else 0
-    posterior = settings.kind == "posterior"
-    ds = models_from_results(results, kind="few-layer" if posterior else settings.kind, epsg=epsg)
+    posterior = collect.posterior
+    ds = models_from_rows(collect.rows[collect.chosen].view(stations), kind=collect.chosen,
+                          epsg=epsg)
     if posterior:
-        from .posterior_products import add_posterior, write_posterior_csv
-        ds = add_posterior(ds, results, settings.posterior_cells, settings.cover_layers)
+        from .posterior_products import add_posterior_rows, write_posterior_csv
+        ds = add_posterior_rows(ds, collect.post.view(stations),
+                                lambda i: collect.draws[stations[i]],
+                                settings.posterior_cells, settings.cover_layers)
     mark(ds)
     res.outputs += [str(write_models(ds, folder / "models.nc", record=record)),
                     str(write_models_csv(ds, folder / "models.csv")),
-                    str(write_fit_csv(results, folder / "fit.csv",
-                                      kind="few-layer" if posterior else settings.kind))]
+                    str(write_fit_text(iter(collect.fit.view(stations)), folder / "fit.csv"))]
     if posterior:
         res.outputs.append(str(write_posterior_csv(ds, folder / "posterior.csv")))
         res.notes.append(_posterior_note(ds))
     if settings.kind in ("few-layer", "posterior"):
-        smooth = mark(models_from_results(results, kind="smooth", epsg=epsg))
+        del ds
+        smooth = mark(models_from_rows(collect.rows["smooth"].view(stations), kind="smooth",
+                                       epsg=epsg))
         res.outputs.append(str(write_models(smooth, folder / "models_smooth.nc", record=record)))
     if settings.lci:
-        res.outputs += _lci(results, files, settings, floors, folder, record, epsg, res, mark)
+        res.outputs += _lci(stations, files, settings, floors, folder, record, epsg, res, mark)
     return res

@@ -25,9 +25,11 @@ __all__ = ["Checksums", "fingerprint", "station_survey_text", "reusable", "chang
 class Checksums:
     """SHA-256 of files, reusing a recorded value when size and modification time are unchanged."""
 
-    def __init__(self, previous: dict | None = None):
-        self.previous = dict(previous or {})
-        self.table = {}
+    def __init__(self, previous=None, table=None):
+        # ``previous`` (an earlier run's table) and ``table`` may be spooled mappings
+        # (tem.io.spool): neither is copied into memory
+        self.previous = previous if previous is not None else {}
+        self.table = table if table is not None else {}
 
     def of(self, path) -> str:
         """SHA-256 of ``path``; a file that is missing or unreadable gives a marker instead.

@@ -18,7 +18,6 @@ from __future__ import annotations
 import contextlib
 import datetime as _dt
 import json
-import math
 import time
 from dataclasses import dataclass
 from pathlib import Path
@@ -30,6 +29,7 @@ from ..provenance import stage_record
 from ..runtime import StageContext, StationOutcome, Tally, process_pool
 from .resume import Checksums, changed_products, fingerprint, reusable, station_survey_text
 from .settings import STAGES, read_processing, resolve_settings
+from ..io.spool import Spool, SpooledDict, json_chunks, spool_record
 
 __all__ = ["run_pipeline", "RunOutcome", "STATION_STAGES", "read_run", "not_fitted", "to_reoccupy",
            "exit_status_of",
@@ -88,41 +88,6 @@ def read_run(project) -> dict:
     return state
 
 
-def _json_chunks(obj, level=0):
-    """Strict JSON text of ``obj`` in pieces, as ``json.dumps(obj, indent=1)`` writes it but
-    with non-finite floats as null (strict JSON has no NaN); nothing is copied, so writing
-    the run record of a survey of thousands of stations needs no second record in memory."""
-    if isinstance(obj, (dict, list, tuple)) and _flat(obj):
-        yield json.dumps(obj, indent=1, allow_nan=False).replace("\n", "\n" + " " * level)
-    elif isinstance(obj, dict):
-        pad = "\n" + " " * (level + 1)
-        yield "{"
-        for i, (key, value) in enumerate(obj.items()):
-            yield ("," if i else "") + pad + json.dumps(str(key)) + ": "
-            yield from _json_chunks(value, level + 1)
-        yield "\n" + " " * level + "}"
-    elif isinstance(obj, (list, tuple)):
-        pad = "\n" + " " * (level + 1)
-        yield "["
-        for i, value in enumerate(obj):
-            yield ("," if i else "") + pad
-            yield from _json_chunks(value, level + 1)
-        yield "\n" + " " * level + "]"
-    elif isinstance(obj, float) and not math.isfinite(obj):
-        yield "null"
-    else:
-        yield json.dumps(obj, allow_nan=False)
-
-
-def _flat(obj) -> bool:
-    """A container of finite scalars only (string keys): one ``json.dumps`` writes it."""
-    values = obj.values() if isinstance(obj, dict) else obj
-    if isinstance(obj, dict) and not all(isinstance(k, str) for k in obj):
-        return False
-    return not any(isinstance(v, (dict, list, tuple))
-                   or (isinstance(v, float) and not math.isfinite(v)) for v in values)
-
-
 def _write_run(project, state):
     """Write ``run.json`` atomically, streamed to the file (synced before the rename)."""
     import os
@@ -130,17 +95,23 @@ def _write_run(project, state):
     from ..io.atomic import atomic_path
     with atomic_path(project.run_json) as tmp:
         with open(tmp, "w", encoding="utf-8") as fh:
-            fh.writelines(_json_chunks(state))
+            fh.writelines(json_chunks(state))
             fh.write("\n")
             fh.flush()
             os.fsync(fh.fileno())
 
 
 def _ok(state, survey):
+    """{stage: ids of the stations that passed it, in survey order}."""
     out = {}
     for stage, rec in state["stages"].items():
         st = rec.get("stations", {})
-        out[stage] = [s.id for s in survey.stations if st.get(s.id, {}).get("status") == "ok"]
+        if isinstance(st, SpooledDict):
+            ok = set(st.keys_where("ok"))
+            out[stage] = [s.id for s in survey.stations if s.id in ok]
+        else:
+            out[stage] = [s.id for s in survey.stations
+                          if st.get(s.id, {}).get("status") == "ok"]
     return out
 
 
@@ -160,9 +131,11 @@ def to_reoccupy(state) -> list:
             if s.get("qc_verdict") == "reoccupy"]
 
 
-def _station_summary(state, survey):
-    """Per-station summary from the stage records: first failure, gates, chi2, DOI, QC."""
-    out = {}
+def _station_summary(state, survey, out=None):
+    """Per-station summary from the stage records: first failure, gates, chi2, DOI, QC;
+    written into ``out`` (a mapping, emptied first; default a new dict)."""
+    out = {} if out is None else out
+    out.clear()
     for st in survey.stations:
         s = {"x": st.x, "y": st.y, "z": st.z}
         for stage in STAGES:
@@ -204,10 +177,11 @@ class _Run:
     """State of one ``tem run``: survey, settings, project, previous record, checksums."""
 
     def __init__(self, survey, survey_file, settings, project, state, previous, ctx_kw,
-                 force=()):
+                 spool, force=()):
         self.survey, self.survey_file, self.settings = survey, survey_file, settings
         self.project, self.state, self.previous = project, state, previous
-        self.sums = Checksums(previous.get("checksums"))
+        self.spool = spool
+        self.sums = Checksums(previous.get("checksums"), table=spool.dict("checksums"))
         self.ctx_kw = ctx_kw
         self.force = set(force)          # stages recomputed whatever their fingerprints say
 
@@ -288,9 +262,10 @@ class _Run:
     def _record(self, stage, settings, result, elapsed, fps, stage_fp, reused):
         p = self.project
         rec = stage_record(stage, settings.as_dict())
-        rec["inputs"] = result.inputs or [i for oc in result.stations.values() for i in oc.inputs]
+        rec["inputs"] = self.spool.list(f"{stage}:inputs", result.inputs or
+                                        (i for oc in result.stations.values() for i in oc.inputs))
         rec["outputs"] = [p.rel(o) for o in result.all_outputs()]
-        rec["stations"] = {}
+        rec["stations"] = self.spool.dict(stage)
         for sid, oc in result.stations.items():
             r = {"status": oc.status, **({"message": oc.message} if oc.message else {}),
                  **({"bad_input": True} if oc.bad_input else {}), **oc.info}
@@ -454,22 +429,28 @@ def _run_locked(survey, survey_file, settings, project, start, end, jobs, consol
     from rich.progress import (BarColumn, MofNCompleteColumn, Progress, TextColumn,
                                TimeElapsedColumn)
 
+    # the per-station parts of the run record live in a spool on disk, not in this process's
+    # memory (tem.io.spool): the client stays the same size whatever the survey's
+    spool = Spool()
     previous = {}
-    if project.run_json.is_file():
-        with contextlib.suppress(Exception):
-            previous = read_run(project.root)
     if start > 0:
-        state = read_run(project.root)
+        state = spool_record(read_run(project.root), spool)
         missing = [s for s in STAGES[:start] if s not in state["stages"]]
         if missing:
             raise input_error("--from", f"stage {missing[0]} has no record in run.json; rerun "
                               f"from {missing[0]} or earlier", project.run_json)
         for s in STAGES[start:]:
             state["stages"].pop(s, None)
+        # the stages from --from on are redone whatever their records say: of the earlier
+        # record, only the file checksums are of use
+        previous = {"checksums": state.get("checksums")}
     else:
+        if project.run_json.is_file():
+            with contextlib.suppress(Exception):
+                previous = spool_record(read_run(project.root), spool, "previous")
         state = {"tem_format": FORMAT, "format_version": FORMAT_VERSION, "stages": {}}
     run = _Run(survey, survey_file, settings, project, state, previous, {"figures": figures},
-               force=STAGES[start:] if start > 0 else ())
+               spool, force=STAGES[start:] if start > 0 else ())
     t_run = time.perf_counter()
     state.update({"tem_version": __version__,
                   "survey": {"file": str(survey_file.resolve()), "sha256": run.sums.of(survey_file),
@@ -488,6 +469,7 @@ def _run_locked(survey, survey_file, settings, project, start, end, jobs, consol
     columns = (TextColumn("[bold]{task.fields[stage]:<8}"), BarColumn(), MofNCompleteColumn(),
                TextColumn("{task.description}"), TimeElapsedColumn())
     stop = ""
+    stations = spool.dict("stations")
     with contextlib.ExitStack() as stack:
         run.ctx_kw["executor"] = stack.enter_context(_executor(jobs, scheduler))
         if scheduler not in (None, "local") and run.ctx_kw["executor"] is not None:
@@ -527,7 +509,7 @@ def _run_locked(survey, survey_file, settings, project, start, end, jobs, consol
             # QC rows) go now, not when the next stage's result replaces them
             result = None
             state["stages"][stage] = rec
-            state["stations"] = _station_summary(state, survey)
+            state["stations"] = _station_summary(state, survey, stations)
             state["checksums"] = run.sums.table
             _write_run(project, state)
             prog.update(task, completed=max(n, 1), description=desc)
@@ -542,7 +524,7 @@ def _run_locked(survey, survey_file, settings, project, start, end, jobs, consol
             state["last_run"]["worker_peak_rss_mb"] = round(worker_peak_rss_mb(ex), 1)
     state["last_run"]["elapsed_s"] = round(time.perf_counter() - t_run, 2)
     state["last_run"]["stopped"] = stop
-    state["stations"] = _station_summary(state, survey)
+    state["stations"] = _station_summary(state, survey, stations)
     _write_run(project, state)
     return RunOutcome(state=state, exit_status=exit_status_of(state), project=project)
 

@@ -7,6 +7,7 @@ the figures of every stage and, when present, the run record ``run.json``
 from __future__ import annotations
 
 import json
+from collections.abc import Mapping
 
 from ..errors import input_error
 from ..io.project import Project
@@ -111,7 +112,7 @@ def run(settings: ReportSettings, project_in, out, ctx: StageContext = StageCont
     sections = [(p, c) for p, c in sections if p.is_file()]
     model_figs = [(p, "1D models with +-1 std band and DOI") for p in [figs / "models.png"]
                   if p.is_file()]
-    stations = state.get("stations", {}) if isinstance(state.get("stations"), dict) else {}
+    stations = state.get("stations", {}) if isinstance(state.get("stations"), Mapping) else {}
     modelled = list(models["station"].values.astype(str)) if models is not None else []
     ids = list(modelled)
     ids += [s for s in stations if s not in ids]

@@ -150,7 +150,9 @@ def run(settings: RhoaSettings, gated_files, out, ctx: StageContext = StageConte
             for sid, oc in res.stations.items():
                 if oc.status == "ok":
                     fh.write(oc.payload if oc.payload is not None else _rows_of(project, sid))
-                oc.payload = None
+                if oc.payload is not None:
+                    oc.payload = None
+                    res.stations[sid] = oc        # an outcome read is a copy
             fh.flush()
             os.fsync(fh.fileno())
     res.outputs.append(str(project.folder("rhoa") / "rhoa.csv"))

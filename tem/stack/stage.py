@@ -4,6 +4,7 @@
 """
 from __future__ import annotations
 
+import functools
 from pathlib import Path
 
 from ..io.project import Project
@@ -81,15 +82,23 @@ def run(settings: StackSettings, survey, stations, out, ctx: StageContext = Stag
     # each task carries a survey of its own station only: with the whole survey every
     # task's arguments grow with the station count (quadratic memory on a cluster,
     # where each task is serialised on its own)
-    jobs = [(sid, (replace(survey, stations=[survey.station(sid)]), sid, settings,
-                   Path(survey_file) if survey_file else None,
-                   project.station_file("stacked", sid),
-                   project.station_figure(sid, "raw") if ctx.figures else None))
-            for sid in stations]
-    res = StageResult(stations=map_stations(stack_one, jobs, ctx))
+    def args(sid):
+        return (replace(survey, stations=[survey.station(sid)]), sid, settings,
+                Path(survey_file) if survey_file else None, project.station_file("stacked", sid),
+                project.station_figure(sid, "raw") if ctx.figures else None)
+
+    # made when each station is submitted, not all at once; within `tem run` (run_state set)
+    # nobody reads the QC table rows, so they are dropped as each station arrives
+    res = StageResult(stations=map_stations(
+        stack_one, [(sid, functools.partial(args, sid)) for sid in stations], ctx,
+        consume=_drop_payload if ctx.run_state is not None else None))
     ok, _ = survey.mains_rule()
     if not ok:
         res.notes.append(f"mains {survey.mains_frequency:g} Hz / (2 x base "
                          f"{survey.transmitter.base_frequency:g} Hz) is not a whole number: the "
                          "stack does not null the mains (docs/stacking.md)")
     return res
+
+
+def _drop_payload(oc):
+    oc.payload = None
