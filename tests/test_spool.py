@@ -148,3 +148,20 @@ def test_fit_table_from_pieces_holds_every_datum(posterior_results, tmp_path):
             obs, std, pred, nres = (float(v) for v in row[4:8])
             assert obs == r.d_obs[i] and std == r.std[i] and pred == r.d_pred[i]
             assert nres == pytest.approx((r.d_obs[i] - r.d_pred[i]) / r.std[i], rel=1e-12)
+
+
+def test_full_spool_is_one_line_output_error():
+    """A spool that cannot grow (SQLite's 'database or disk is full', here by a page limit, as
+    on a full temporary disk) stops the run with a one-line output error (exit status 1),
+    never a traceback."""
+    from tem.errors import TemOutputError
+
+    sp = Spool()
+    d = sp.dict("stations")
+    d["S0"] = {"status": "ok"}
+    sp.db.execute("PRAGMA max_page_count = 3")
+    with pytest.raises(TemOutputError) as err:
+        for i in range(1000):
+            d[f"S{i}"] = {"status": "ok", "text": "x" * 2000}
+    text = str(err.value)
+    assert "\n" not in text and "temporary spool" in text and "full" in text

@@ -42,8 +42,22 @@ class Spool:
         for pragma in ("journal_mode=OFF", "synchronous=OFF", f"cache_size=-{int(cache_kib)}",
                        "temp_store=FILE"):
             self.db.execute(f"PRAGMA {pragma}")
-        self.db.execute("CREATE TABLE item (section TEXT NOT NULL, key TEXT NOT NULL, "
+        self.execute("CREATE TABLE item (section TEXT NOT NULL, key TEXT NOT NULL, "
                         "status TEXT, value TEXT NOT NULL, UNIQUE (section, key))")
+
+    def execute(self, sql, params=()):
+        """Run one statement; a full or failing temporary disk gives a one-line
+        :class:`tem.errors.TemOutputError` (exit status 1), never a traceback."""
+        try:
+            return self.db.execute(sql, params)
+        except sqlite3.Error as exc:
+            import errno
+            import tempfile
+
+            from ..errors import TemOutputError
+            raise TemOutputError(errno.EIO, f"{tempfile.gettempdir()}: cannot write the run's "
+                                 f"temporary spool: {exc}; free some space there (or set "
+                                 "TMPDIR to a larger disk) and rerun") from None
 
     def section(self, name: str | None = None) -> str:
         """A new section name, unique within this spool."""
@@ -88,7 +102,7 @@ class SpooledDict(MutableMapping):
         self.spool, self.section = spool, section
 
     def __getitem__(self, key):
-        row = self.spool.db.execute("SELECT value FROM item WHERE section = ? AND key = ?",
+        row = self.spool.execute("SELECT value FROM item WHERE section = ? AND key = ?",
                                     (self.section, str(key))).fetchone()
         if row is None:
             raise KeyError(key)
@@ -96,7 +110,7 @@ class SpooledDict(MutableMapping):
 
     def __setitem__(self, key, value):
         status = value.get("status") if isinstance(value, Mapping) else None
-        self.spool.db.execute(
+        self.spool.execute(
             "INSERT INTO item (section, key, status, value) VALUES (?, ?, ?, ?) "
             "ON CONFLICT (section, key) DO UPDATE SET status = excluded.status, "
             "value = excluded.value",
@@ -104,13 +118,13 @@ class SpooledDict(MutableMapping):
              _encode(value)))
 
     def __delitem__(self, key):
-        cur = self.spool.db.execute("DELETE FROM item WHERE section = ? AND key = ?",
+        cur = self.spool.execute("DELETE FROM item WHERE section = ? AND key = ?",
                                     (self.section, str(key)))
         if cur.rowcount == 0:
             raise KeyError(key)
 
     def __contains__(self, key):
-        return self.spool.db.execute("SELECT 1 FROM item WHERE section = ? AND key = ?",
+        return self.spool.execute("SELECT 1 FROM item WHERE section = ? AND key = ?",
                                      (self.section, str(key))).fetchone() is not None
 
     def __iter__(self):
@@ -118,25 +132,25 @@ class SpooledDict(MutableMapping):
         return iter(self.keys_where())
 
     def __len__(self):
-        return self.spool.db.execute("SELECT COUNT(*) FROM item WHERE section = ?",
+        return self.spool.execute("SELECT COUNT(*) FROM item WHERE section = ?",
                                      (self.section,)).fetchone()[0]
 
     def keys_where(self, status: str | None = None, any_status=False) -> list:
         """Keys in insertion order; with ``status``, those whose value's ``"status"`` is it;
         with ``any_status``, those whose value has a ``"status"`` (a string)."""
         if any_status:
-            cur = self.spool.db.execute("SELECT key FROM item WHERE section = ? AND status IS "
+            cur = self.spool.execute("SELECT key FROM item WHERE section = ? AND status IS "
                                         "NOT NULL ORDER BY rowid", (self.section,))
         elif status is None:
-            cur = self.spool.db.execute("SELECT key FROM item WHERE section = ? ORDER BY rowid",
+            cur = self.spool.execute("SELECT key FROM item WHERE section = ? ORDER BY rowid",
                                         (self.section,))
         else:
-            cur = self.spool.db.execute("SELECT key FROM item WHERE section = ? AND status = ? "
+            cur = self.spool.execute("SELECT key FROM item WHERE section = ? AND status = ? "
                                         "ORDER BY rowid", (self.section, status))
         return [k for (k,) in cur]
 
     def clear(self):
-        self.spool.db.execute("DELETE FROM item WHERE section = ?", (self.section,))
+        self.spool.execute("DELETE FROM item WHERE section = ?", (self.section,))
 
     def view(self, keys) -> "KeyedView":
         """The values of ``keys`` (a list), in that order, as a sequence read one at a time."""
@@ -176,7 +190,7 @@ class SpooledArrays:
         import numpy as np
 
         a = np.ascontiguousarray(array, dtype=np.float64)
-        self.spool.db.execute(
+        self.spool.execute(
             "INSERT INTO item (section, key, status, value) VALUES (?, ?, ?, ?) "
             "ON CONFLICT (section, key) DO UPDATE SET status = excluded.status, "
             "value = excluded.value",
@@ -185,7 +199,7 @@ class SpooledArrays:
     def __getitem__(self, key):
         import numpy as np
 
-        row = self.spool.db.execute("SELECT status, value FROM item WHERE section = ? AND "
+        row = self.spool.execute("SELECT status, value FROM item WHERE section = ? AND "
                                     "key = ?", (self.section, str(key))).fetchone()
         if row is None:
             raise KeyError(key)
@@ -200,7 +214,7 @@ class SpooledList(Sequence):
         self._n = 0
 
     def append(self, value):
-        self.spool.db.execute("INSERT INTO item (section, key, value) VALUES (?, ?, ?)",
+        self.spool.execute("INSERT INTO item (section, key, value) VALUES (?, ?, ?)",
                               (self.section, f"{self._n:012d}", _encode(value)))
         self._n += 1
 
@@ -217,7 +231,7 @@ class SpooledList(Sequence):
         j = i + self._n if i < 0 else i
         if not 0 <= j < self._n:
             raise IndexError(i)
-        row = self.spool.db.execute("SELECT value FROM item WHERE section = ? AND key = ?",
+        row = self.spool.execute("SELECT value FROM item WHERE section = ? AND key = ?",
                                     (self.section, f"{j:012d}")).fetchone()
         return json.loads(row[0])
 
