@@ -25,11 +25,11 @@ from pathlib import Path
 from .. import __version__
 from ..errors import input_error
 from ..io.project import Project, ProjectLock, check_output
+from ..io.spool import Spool, SpooledDict, json_chunks, spool_record
 from ..provenance import stage_record
 from ..runtime import StageContext, StationOutcome, Tally, process_pool
 from .resume import Checksums, changed_products, fingerprint, reusable, station_survey_text
 from .settings import STAGES, read_processing, resolve_settings
-from ..io.spool import Spool, SpooledDict, json_chunks, spool_record
 
 __all__ = ["run_pipeline", "RunOutcome", "STATION_STAGES", "read_run", "not_fitted", "to_reoccupy",
            "exit_status_of",
@@ -429,8 +429,8 @@ def _run_locked(survey, survey_file, settings, project, start, end, jobs, consol
     from rich.progress import (BarColumn, MofNCompleteColumn, Progress, TextColumn,
                                TimeElapsedColumn)
 
-    # the per-station parts of the run record live in a spool on disk, not in this process's
-    # memory (tem.io.spool): the client stays the same size whatever the survey's
+    # the per-station parts of the run record live in a spool on disk (tem.io.spool), not in
+    # this process's memory, which would otherwise grow with the survey
     spool = Spool()
     previous = {}
     if start > 0:
