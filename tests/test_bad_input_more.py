@@ -97,6 +97,18 @@ def test_from_with_a_removed_product_fails_that_station_only(small_day, tmp_path
 
 
 # ---------------------------------------------------------------- gated files edited by hand
+def _invert_refuses_qc_table(small_day, tmp_path, qc) -> str:
+    """``tem invert --qc QC`` on the small day: refused in one line (exit 2), nothing written;
+    returns the line."""
+    rc, stdout, err = run_captured(["invert", str(small_day / "base" / "gated"), "--out",
+                                    str(tmp_path / "o"), "--qc", str(qc), *RUN, "--layers", "6",
+                                    "--max-iter", "1"])
+    assert rc == 2, (stdout, err)
+    assert err.count("\n") == 1, err
+    assert not (tmp_path / "o").exists()
+    return err
+
+
 def _edit_gated(small_day, tmp_path, edit) -> Path:
     import xarray as xr
 
@@ -281,13 +293,8 @@ def test_qc_table_extra_minutes_must_be_a_number(small_day, tmp_path, minutes, m
     qc = tmp_path / "stations.csv"
     qc.write_text(f"station,verdict,reasons,extra_minutes\nEM05,check,noisy,{minutes}\n"
                   "EM06,good,,0\n")
-    rc, stdout, err = run_captured(["invert", str(small_day / "base" / "gated"), "--out",
-                                    str(tmp_path / "o"), "--qc", str(qc), *RUN, "--layers", "6",
-                                    "--max-iter", "1"])
-    assert rc == 2, (stdout, err)
-    assert err.count("\n") == 1, err
+    err = _invert_refuses_qc_table(small_day, tmp_path, qc)
     assert f"{qc}: extra_minutes: line 2 (EM05): {message}" in err, err
-    assert not (tmp_path / "o").exists()
 
 
 # ---------------------------------------------------------------- tem import
@@ -510,10 +517,5 @@ def test_damaged_miniseed_is_refused(tmp_path, damage, message):
 def test_qc_table_bytes(small_day, tmp_path, data, message):
     qc = tmp_path / "stations.csv"
     qc.write_bytes(data)
-    rc, stdout, err = run_captured(["invert", str(small_day / "base" / "gated"), "--out",
-                                    str(tmp_path / "o"), "--qc", str(qc), *RUN, "--layers", "6",
-                                    "--max-iter", "1"])
-    assert rc == 2, (stdout, err)
-    assert err.count("\n") == 1, err
+    err = _invert_refuses_qc_table(small_day, tmp_path, qc)
     assert f"{qc}: {message}" in err, err
-    assert not (tmp_path / "o").exists()

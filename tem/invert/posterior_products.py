@@ -166,8 +166,7 @@ def add_posterior_rows(ds, rows, draws, cells, cover_layers):
         for k in per:
             per[k][i] = row[k]
         for k in lay:
-            src = row["few_depth_std" if k == "few_depth_std" else k]
-            lay[k][i, :len(src)] = src
+            lay[k][i, :len(row[k])] = row[k]
         v = row["interval"]
         intervals.append(None if v is None else SimpleNamespace(**v))
     sl, sz = ("station", "layer"), ("station", "post_depth")

@@ -170,8 +170,6 @@ class KeyedView(Sequence):
         return len(self.keys)
 
     def __getitem__(self, i):
-        if isinstance(i, slice):
-            return [self.d[k] for k in self.keys[i]]
         return self.d[self.keys[i]]
 
     def __iter__(self):

@@ -105,13 +105,9 @@ def _ok(state, survey):
     """{stage: ids of the stations that passed it, in survey order}."""
     out = {}
     for stage, rec in state["stages"].items():
-        st = rec.get("stations", {})
-        if isinstance(st, SpooledDict):
-            ok = set(st.keys_where("ok"))
-            out[stage] = [s.id for s in survey.stations if s.id in ok]
-        else:
-            out[stage] = [s.id for s in survey.stations
-                          if st.get(s.id, {}).get("status") == "ok"]
+        st = rec.get("stations")      # spooled (tem.io.spool) in every record of a run
+        ok = set(st.keys_where("ok")) if isinstance(st, SpooledDict) else set()
+        out[stage] = [s.id for s in survey.stations if s.id in ok]
     return out
 
 
@@ -131,10 +127,9 @@ def to_reoccupy(state) -> list:
             if s.get("qc_verdict") == "reoccupy"]
 
 
-def _station_summary(state, survey, out=None):
+def _station_summary(state, survey, out):
     """Per-station summary from the stage records: first failure, gates, chi2, DOI, QC;
-    written into ``out`` (a mapping, emptied first; default a new dict)."""
-    out = {} if out is None else out
+    written into ``out`` (a mapping, emptied first), which is returned."""
     out.clear()
     for st in survey.stations:
         s = {"x": st.x, "y": st.y, "z": st.z}
@@ -523,8 +518,7 @@ def _run_locked(survey, survey_file, settings, project, start, end, jobs, consol
             from .cluster import worker_peak_rss_mb
             state["last_run"]["worker_peak_rss_mb"] = round(worker_peak_rss_mb(ex), 1)
     state["last_run"]["elapsed_s"] = round(time.perf_counter() - t_run, 2)
-    state["last_run"]["stopped"] = stop
-    state["stations"] = _station_summary(state, survey, stations)
+    state["last_run"]["stopped"] = stop        # the summary is the last stage's: unchanged since
     _write_run(project, state)
     return RunOutcome(state=state, exit_status=exit_status_of(state), project=project)
 
