@@ -222,7 +222,7 @@ def write_products(oc: StationOutcome):
     oc.products = []
 
 
-def map_stations(task, jobs, ctx: StageContext, consume=None) -> dict:
+def map_stations(task, jobs, ctx: StageContext, consume=None) -> Outcomes:
     """Run ``task(*args)`` for each ``(station, args)`` in ``jobs``; returns id -> outcome.
 
     Uses ``ctx.executor`` when given (a process pool or a dask.distributed

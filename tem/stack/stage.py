@@ -17,13 +17,12 @@ __all__ = ["run", "stack_one"]
 
 def stack_one(survey, sid, settings: StackSettings, survey_file, out_path, fig_path):
     """Stack one station (runs in a worker); its product and figure ride back as bytes."""
+    from ..errors import input_error
     from ..io.figures import figure_bytes
     from ..io.netcdf import netcdf_bytes
     from ..io.stacked import stacked_dataset
     from ..qc import qc_rows, raw_vs_stacked_figure
     from .station import stack_station
-
-    from ..errors import input_error
 
     st = survey.station(sid)
     for j, rx in enumerate(st.receivers):
