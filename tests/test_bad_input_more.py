@@ -519,3 +519,34 @@ def test_qc_table_bytes(small_day, tmp_path, data, message):
     qc.write_bytes(data)
     err = _invert_refuses_qc_table(small_day, tmp_path, qc)
     assert f"{qc}: {message}" in err, err
+
+
+@pytest.mark.parametrize("edit, field", [
+    (lambda s: s["stages"]["gate"].update(stations=["EM01"]), "stages.gate.stations: not a table"),
+    (lambda s: s["stages"]["gate"]["stations"].update(EM01={"x": 1.0}),
+     "stages.gate.stations.EM01.status: missing"),
+    (lambda s: s["stages"]["gate"]["stations"].update(EM01=3), "stages.gate.stations.EM01: not a"),
+    (lambda s: s["stages"]["stack"].update(inputs={"a": 1}), "stages.stack.inputs: not a list"),
+    (lambda s: s.update(checksums=[1, 2]), "checksums: not a table"),
+    (lambda s: s["stages"].update(gate="ok"), "stages.gate: not a table"),
+])
+def test_hand_damaged_run_record_is_refused_in_one_line(tmp_path, edit, field):
+    """A run.json whose per-station parts were damaged by hand: `tem run --from` refuses it in
+    one line naming the field (it was a traceback when a stage's stations were a list)."""
+    import json
+
+    from tem.errors import TemInputError
+    from tem.pipeline.runner import read_run
+
+    state = {"tem_format": "run", "format_version": "1.0", "checksums": {},
+             "stations": {"EM01": {"x": 0.0}},
+             "stages": {"stack": {"inputs": [], "stations": {"EM01": {"status": "ok"}}},
+                        "gate": {"inputs": [], "stations": {"EM01": {"status": "ok"}}}}}
+    (tmp_path / "run.json").write_text(json.dumps(state))
+    assert read_run(tmp_path)["stages"]["gate"]["stations"]["EM01"]["status"] == "ok"
+    edit(state)
+    (tmp_path / "run.json").write_text(json.dumps(state))
+    with pytest.raises(TemInputError) as err:
+        read_run(tmp_path)
+    text = str(err.value)
+    assert "\n" not in text and "run.json" in text and field in text, text

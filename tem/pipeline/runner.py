@@ -85,7 +85,31 @@ def read_run(project) -> dict:
             or str(state.get("format_version", "")).split(".")[0] != "1" \
             or not isinstance(state.get("stages"), dict):
         raise input_error("format_version", "not a tem run record of version 1.x", path)
+    _check_record_parts(state, path)
     return state
+
+
+def _check_record_parts(state, path):
+    """The parts of a run record the runner reads have their types (a hand-damaged record is
+    refused in one line, not met as a traceback later)."""
+    parts = [(key, state.get(key), dict) for key in ("stations", "checksums")]
+    for stage, rec in state["stages"].items():
+        if not isinstance(rec, dict):
+            raise input_error(f"stages.{stage}", "not a table", path)
+        parts += [(f"stages.{stage}.stations", rec.get("stations"), dict),
+                  (f"stages.{stage}.inputs", rec.get("inputs"), list),
+                  (f"stages.{stage}.checksums", rec.get("checksums"), dict)]
+        stations = rec.get("stations")
+        if isinstance(stations, dict):
+            parts += [(f"stages.{stage}.stations.{sid}", r, dict) for sid, r in stations.items()]
+    for field, value, kind in parts:
+        if value is not None and not isinstance(value, kind):
+            raise input_error(field, f"not a {'table' if kind is dict else 'list'}", path)
+    for stage, rec in state["stages"].items():
+        for sid, r in (rec.get("stations") or {}).items():
+            if not isinstance(r.get("status"), str):
+                raise input_error(f"stages.{stage}.stations.{sid}.status", "missing (ok or "
+                                  "failed)", path)
 
 
 def _write_run(project, state):
