@@ -37,6 +37,7 @@ __all__ = [
     "export_record",
     "model_verdicts",
     "interval_words",
+    "flag_names",
     "QC_FLAGS",
     "add_qc_verdicts",
     "qc_verdicts",
@@ -288,15 +289,28 @@ def model_verdicts(ds):
     n = ds.sizes["station"]
     if "verdict_code" not in ds.variables:
         return [None] * n
-    names = str(ds["verdict_code"].attrs.get("flag_meanings", "")).split()
     codes = ds["verdict_code"].values.astype(int)
     texts = ds["verdict"].values.astype(str) if "verdict" in ds.variables else [""] * n
     out = []
-    for code, text in zip(codes, texts):
-        status = names[code].replace("_", "-") if 0 <= code < len(names) else "unknown"
+    for code, name, text in zip(codes, flag_names(ds, "verdict_code"), texts):
         reasons = text.split(": ", 1)[1] if ": " in text else ""
-        out.append({"status": status, "code": int(code), "text": str(text), "reasons": reasons})
+        out.append({"status": name.replace("_", "-"), "code": int(code), "text": str(text),
+                    "reasons": reasons})
     return out
+
+
+def flag_names(ds, var, by_index=True):
+    """Per station, the CF ``flag_meanings`` word of the code in ``var`` ("unknown" for a code
+    the attributes do not name). Codes are looked up in ``flag_values``; without them, with
+    ``by_index`` a code is an index into the meanings, else every code is unknown."""
+    attrs = ds[var].attrs
+    names = str(attrs.get("flag_meanings", "")).split()
+    if "flag_values" in attrs:
+        values = [int(v) for v in np.atleast_1d(attrs["flag_values"])]
+    else:
+        values = list(range(len(names))) if by_index else []
+    lookup = dict(zip(values, names)) if len(values) == len(names) else {}
+    return [lookup.get(int(c), "unknown") for c in ds[var].values.astype(int)]
 
 
 #: Codes of the evening QC verdict in a models file (``qc_verdict_code``; CF flags):
@@ -349,13 +363,10 @@ def qc_verdicts(ds):
     n = ds.sizes["station"]
     if "qc_verdict_code" not in ds.variables:
         return [None] * n
-    names = str(ds["qc_verdict_code"].attrs.get("flag_meanings", "")).split()
-    values = [int(v) for v in np.asarray(ds["qc_verdict_code"].attrs.get("flag_values", []))]
     texts = ds["qc_verdict"].values.astype(str) if "qc_verdict" in ds.variables else [""] * n
     out = []
-    for code, text in zip(ds["qc_verdict_code"].values.astype(int), texts):
-        name = names[values.index(code)] if code in values and len(names) == len(values) \
-            else "unknown"
+    for code, name, text in zip(ds["qc_verdict_code"].values.astype(int),
+                                flag_names(ds, "qc_verdict_code", by_index=False), texts):
         if name == "none":
             out.append(None)
             continue
@@ -370,9 +381,7 @@ def interval_words(ds):
     n = ds.sizes["station"]
     if "interval_verdict_code" not in ds.variables:
         return [""] * n
-    names = str(ds["interval_verdict_code"].attrs.get("flag_meanings", "")).split()
-    return [names[c] if 0 <= c < len(names) else "unknown"
-            for c in ds["interval_verdict_code"].values.astype(int)]
+    return flag_names(ds, "interval_verdict_code")
 
 
 def layer_rows(ds):
