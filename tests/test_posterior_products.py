@@ -83,6 +83,15 @@ def test_csv_and_las_and_figures(project):
     assert np.nanmin(gw["log10_resistivity_full"].values) >= 0      # log10(P90/P10) >= 0
     fig = posterior_section_figure(ds, SectionSettings())
     assert len(fig.axes) == 4                                        # two panels, two colour bars
+    # Below the DOI the percentiles are the prior's more than the data's: both panels veil it,
+    # from the DOI line down to the bottom of the section (an unresolved depth never reads as
+    # firmly as a resolved one).
+    for ax in fig.axes[:2]:                                          # the panels
+        veil = [c for c in ax.collections if c.get_gid() == "doi-veil"]
+        assert len(veil) == 1, [c.get_gid() for c in ax.collections]
+        top = veil[0].get_paths()[0].vertices[:, 1]
+        assert np.nanmin(top) >= np.nanmin(g50["doi"].values) - 1e-6
+        assert np.isclose(np.nanmax(top), max(ax.get_ylim()))
 
 
 def test_small_calibration_check_on_empymod_soundings():

@@ -22,9 +22,22 @@ def figure_bytes(fig, fmt="png", dpi=110) -> bytes:
                           f"{', '.join(FIGURE_FORMATS)}")
     if fig.canvas is None or not isinstance(fig.canvas, FigureCanvasAgg):
         FigureCanvasAgg(fig)
+    _light_log_ticks(fig)
     buf = io.BytesIO()
     fig.savefig(buf, format=fmt, dpi=dpi)
     return buf.getvalue()
+
+
+def _light_log_ticks(fig):
+    """Minor ticks of log axes at 2 and 5 times each power of ten (not 2-9): the same reading
+    aid at half the rendering time of a figure of log-log panels (a tick is two lines and two
+    labels that the layout measures); labels where matplotlib puts them (narrow ranges)."""
+    from matplotlib.ticker import LogLocator
+
+    for ax in fig.axes:
+        for axis in (ax.xaxis, ax.yaxis):
+            if axis.get_scale() == "log" and type(axis.get_minor_locator()) is LogLocator:
+                axis.set_minor_locator(LogLocator(subs=(2.0, 5.0), numticks=12))
 
 
 def save_figure(fig, stem, formats=("png",), dpi=110):

@@ -183,6 +183,23 @@ def mark_verdicts(ax, grid, scale, yrange, column_edges=None):
                    yrange, "verdict-label-")
 
 
+def veil_below_doi(ax, xe, doi_y, bottom, style="shade", lw=1.2):
+    """Veil the region below the DOI column by column (steps at the cell edges ``xe``; ``doi_y``
+    one DOI per column in the axis' vertical unit; ``bottom`` the section's far edge): hatched
+    white at 60 % (``style="shade"``) or opaque grey (``"hide"``), gid ``"doi-veil"``, with the
+    DOI as a dashed line, gid ``"doi-line"``. Columns without a DOI are left as they are."""
+    xs = np.repeat(np.asarray(xe, float), 2)[1:-1]
+    ys = np.repeat(np.asarray(doi_y, float), 2)
+    if np.isfinite(ys).any():
+        face = (1.0, 1.0, 1.0, 0.6) if style == "shade" else (0.85, 0.85, 0.85, 1.0)
+        veil = ax.fill_between(xs, np.where(np.isfinite(ys), ys, bottom), bottom,
+                               where=np.isfinite(ys), facecolor=face, edgecolor="0.35",
+                               hatch="//", lw=0.0, label="below DOI")
+        veil.set_gid("doi-veil")
+    (line,) = ax.plot(xs, ys, color="k", ls="--", lw=lw, label="depth of investigation")
+    line.set_gid("doi-line")
+
+
 def section_figure(grid, *, below_doi, title=None, vmin=None, vmax=None, distance_unit="auto",
                    cmap=CMAP, width=10.0, height=4.5):
     """Figure of a stitched resistivity section.
@@ -228,18 +245,7 @@ def section_figure(grid, *, below_doi, title=None, vmin=None, vmax=None, distanc
     mesh.set_gid("resistivity")
     doi = grid["doi"].values.astype(float)
     doi_y = doi if vname == "depth" else grid["surface"].values.astype(float) - doi
-    # The region below the DOI, column by column (steps at the cell edges).
-    xs = np.repeat(xe, 2)[1:-1]
-    ys = np.repeat(doi_y, 2)
-    bottom = ye[-1]
-    if np.isfinite(ys).any():
-        face = (1.0, 1.0, 1.0, 0.6) if below_doi == "shade" else (0.85, 0.85, 0.85, 1.0)
-        veil = ax.fill_between(xs, np.where(np.isfinite(ys), ys, bottom), bottom,
-                               where=np.isfinite(ys), facecolor=face, edgecolor="0.35",
-                               hatch="//", lw=0.0, label="below DOI")
-        veil.set_gid("doi-veil")
-    (line,) = ax.plot(xs, ys, color="k", ls="--", lw=1.2, label="depth of investigation")
-    line.set_gid("doi-line")
+    veil_below_doi(ax, xe, doi_y, ye[-1], below_doi)
     if vname == "elevation":
         ax.plot(d * scale, grid["surface"].values, color="0.2", lw=1.0, label="surface")
     if vname == "depth":

@@ -1,6 +1,8 @@
 """Posterior section figure: a section coloured by the posterior P50 resistivity, and below it
 the P10-P90 width (log10(P90 / P10), decades) on the same grid, with the target-top
-percentiles of every station. Columns of stations whose posterior intervals are unconverged
+percentiles of every station. Below each station's depth of investigation both panels are
+veiled and hatched as in the resistivity section (:func:`tem.section.plot.veil_below_doi`):
+the percentiles there come from the prior more than from the data. Columns of stations whose posterior intervals are unconverged
 (``interval_verdict_code`` 1; :mod:`tem.invert.interval`) are hatched in both panels, with a
 legend entry, and labelled with their R-hat and ESS (:func:`tem.section.plot.mark_columns`):
 their percentiles are not yet the posterior's. Columns of stations whose recording failed the
@@ -49,7 +51,7 @@ def posterior_section_figure(models, settings, title=None):
     """Two-panel figure (P50 section; P10-P90 width) of a models Dataset with posterior products."""
     from matplotlib.colors import Normalize
 
-    from .plot import CMAP, _distance_scale, _edges, _new_figure, _norm
+    from .plot import CMAP, _distance_scale, _edges, _new_figure, _norm, veil_below_doi
 
     g50, gw = posterior_grids(models, settings)
     vname = "depth" if "depth" in g50.dims else "elevation"
@@ -74,9 +76,7 @@ def posterior_section_figure(models, settings, title=None):
     idx = [sid.index(s) for s in g50["station"].values.astype(str)[order]]
     t10, t50, t90 = (models[f"target_top_{q}"].values[idx] for q in ("p10", "p50", "p90"))
     for ax in (ax1, ax2):
-        doi = g50["doi"].values.astype(float)
-        ax.plot(np.repeat(xe, 2)[1:-1], np.repeat(doi, 2), color="k", ls="--", lw=1.0,
-                label="depth of investigation")
+        veil_below_doi(ax, xe, g50["doi"].values.astype(float), ye[-1], "shade", lw=1.0)
         ax.errorbar(sd, t50, yerr=[t50 - t10, t90 - t50], fmt="o", ms=3, color="k", mfc="w",
                     capsize=2, lw=0.8, label="target top P50 (P10-P90)")
         ax.set_ylim(ye[-1], ye[0])
