@@ -132,21 +132,34 @@ def class_medians(measures, settings=None) -> dict:
     """
     s = settings or QCSettings()
     cls = offset_classes(measures, s.class_ratio)
-    live = [m for m in measures if not m.dead and np.isfinite(m.noise_floor)]
+    # live channels grouped once by (component, class) and by component: one pass over the
+    # survey, not one per channel (a survey of thousands of stations)
+    by_class, by_comp = {}, {}
+    for m in measures:
+        if not m.dead and np.isfinite(m.noise_floor):
+            by_class.setdefault((m.component, cls[(m.station, m.component)]), []).append(m)
+            by_comp.setdefault(m.component, []).append(m)
+    memo = {}
+
+    def medians(key, group, label):
+        if key not in memo:
+            if not group:
+                memo[key] = (float("nan"), float("nan"), label)
+            else:
+                lu = [x.last_usable for x in group if np.isfinite(x.last_usable)]
+                memo[key] = (float(np.median([x.noise_floor for x in group])),
+                             float(np.median(lu)) if lu else float("nan"), label)
+        return memo[key]
+
     out = {}
     for m in measures:
-        group = [x for x in live if x.component == m.component
-                 and cls[(x.station, x.component)] == cls[(m.station, m.component)]]
-        label = "offset class"
-        if len(group) < s.class_min:
-            group = [x for x in live if x.component == m.component]
-            label = "survey"
-        if not group:
-            out[(m.station, m.component)] = (float("nan"), float("nan"), label)
-            continue
-        lu = [x.last_usable for x in group if np.isfinite(x.last_usable)]
-        out[(m.station, m.component)] = (float(np.median([x.noise_floor for x in group])),
-                                         float(np.median(lu)) if lu else float("nan"), label)
+        key = (m.component, cls[(m.station, m.component)])
+        group = by_class.get(key, [])
+        if len(group) >= s.class_min:
+            out[(m.station, m.component)] = medians(key, group, "offset class")
+        else:
+            out[(m.station, m.component)] = medians(m.component, by_comp.get(m.component, []),
+                                                    "survey")
     return out
 
 
@@ -252,10 +265,11 @@ def station_verdicts(measures, settings=None, failed=None) -> list:
     """
     s = settings or QCSettings()
     med = class_medians(measures, s)
-    order = list(dict.fromkeys(m.station for m in measures))
+    by_station = {}
+    for m in measures:
+        by_station.setdefault(m.station, []).append(m)
     out = []
-    for sid in order:
-        chans = [m for m in measures if m.station == sid]
+    for sid, chans in by_station.items():
         re, ck, extra = [], [], 0.0
         for m in chans:
             r, c, e = _channel_rules(m, med[(m.station, m.component)], s)
@@ -274,7 +288,7 @@ def station_verdicts(measures, settings=None, failed=None) -> list:
         out.append(StationVerdict(sid, verdict, tuple(re + ck),
                                   extra if verdict == "reoccupy" else 0.0))
     for sid, msg in (failed or {}).items():
-        if sid not in order:
+        if sid not in by_station:
             out.append(StationVerdict(sid, "check", (f"not processed: {msg}",), float("nan")))
     return out
 
