@@ -74,8 +74,9 @@ class StageResult:
 class Outcomes(MutableMapping):
     """A stage's station outcomes (station -> :class:`StationOutcome`), in the order of its
     stations, kept in a spool on disk (:mod:`tem.io.spool`) as they arrive: a stage over
-    thousands of stations does not hold thousands of outcomes in memory. Only payloads a
-    stage keeps (not taken by ``map_stations(..., consume=)``) stay in memory. Reading an
+    thousands of stations does not hold thousands of outcomes in memory. A payload that is text (a station's table rows, its QC
+    measures as JSON) is kept in the spool with its outcome; other payloads a stage keeps (not
+    taken by ``map_stations(..., consume=)``) stay in memory. Reading an
     outcome gives a copy: change one by assigning it again."""
 
     def __init__(self, ids=()):
@@ -88,9 +89,11 @@ class Outcomes(MutableMapping):
             self._d[sid] = None
 
     def __setitem__(self, sid, oc):
+        text = oc.payload if isinstance(oc.payload, str) else None
         self._d[sid] = {"status": oc.status, "message": oc.message, "outputs": list(oc.outputs),
-                        "inputs": list(oc.inputs), "info": oc.info, "bad_input": oc.bad_input}
-        if oc.payload is None:
+                        "inputs": list(oc.inputs), "info": oc.info, "bad_input": oc.bad_input,
+                        "text": text}
+        if oc.payload is None or text is not None:
             self._payloads.pop(sid, None)
         else:
             self._payloads[sid] = oc.payload
@@ -99,9 +102,10 @@ class Outcomes(MutableMapping):
         v = self._d[sid]
         if v is None:
             raise KeyError(sid)
+        payload = v["text"] if v["text"] is not None else self._payloads.get(sid)
         return StationOutcome(sid, v["status"], v["message"], outputs=v["outputs"],
-                              inputs=v["inputs"], info=v["info"],
-                              payload=self._payloads.get(sid), bad_input=v["bad_input"])
+                              inputs=v["inputs"], info=v["info"], payload=payload,
+                              bad_input=v["bad_input"])
 
     def __delitem__(self, sid):
         del self._d[sid]

@@ -54,9 +54,28 @@ def _measures_of(stacked_file, gated_file):
 
 
 def _drop_rows(oc):
-    """Within ``tem run`` nobody reads a station's QC table rows: only its measures stay."""
+    """Within ``tem run`` nobody reads a station's QC table rows: only its measures stay, as
+    JSON text (kept on disk with the outcome, not in memory; :class:`tem.runtime.Outcomes`)."""
     if isinstance(oc.payload, dict):
-        oc.payload = {"measures": oc.payload["measures"]}
+        oc.payload = _measures_text(oc.payload["measures"])
+
+
+def _measures_text(measures) -> str:
+    import dataclasses
+    import json
+
+    return json.dumps([dataclasses.asdict(m) for m in measures])
+
+
+def _measures_from(payload):
+    """A station's measures from its payload: the stage's dict, or JSON text (:func:`_drop_rows`)."""
+    import json
+
+    from ..qc import ChannelMeasures
+
+    if isinstance(payload, dict):
+        return payload["measures"]
+    return [ChannelMeasures(**d) for d in json.loads(payload)]
 
 
 def evening_verdicts(res, files, project, qc, failed=None):
@@ -65,19 +84,27 @@ def evening_verdicts(res, files, project, qc, failed=None):
     ``failed`` maps stations that did not reach this stage (e.g. a corrupt
     recording) to their one-line reason; they get a verdict too. Each
     outcome's ``info`` gains ``qc_verdict``, ``qc_reasons`` and ``extra_minutes``.
+    The survey is read station by station, twice (the survey medians, then each
+    station's rules), never held whole: a station whose products were kept from an
+    earlier run is measured from its files once, and its measures kept with its outcome.
     """
-    from ..qc import station_verdicts, write_stations_csv
+    from ..qc import verdicts_of_stations, write_stations_csv
 
-    measures = []
-    for sid, oc in res.stations.items():
-        if isinstance(oc.payload, dict):
-            measures += oc.payload["measures"]
-        elif sid in files and (oc.status == "ok" or oc.outputs):
-            measures += _measures_of(files[sid], project.station_file("gated", sid))
     broken = dict(failed or {})
-    broken.update({sid: oc.message for sid, oc in res.stations.items()
-                   if oc.status != "ok" and not oc.outputs and not isinstance(oc.payload, dict)})
-    verdicts = station_verdicts(measures, qc, broken)
+    for sid, oc in res.stations.items():
+        if oc.payload is None and sid in files and (oc.status == "ok" or oc.outputs):
+            oc.payload = _measures_text(_measures_of(files[sid], project.station_file("gated", sid)))
+            res.stations[sid] = oc
+        elif oc.payload is None and oc.status != "ok" and not oc.outputs:
+            broken[sid] = oc.message
+
+    def stations():
+        for sid in res.stations:
+            payload = res.stations[sid].payload
+            if payload is not None:
+                yield sid, _measures_from(payload)
+
+    verdicts = verdicts_of_stations(stations, qc, broken)
     for v in verdicts:
         oc = res.stations.get(v.station)
         if oc is not None:
@@ -123,7 +150,7 @@ def run(settings: GateSettings, stacked_files, out, ctx: StageContext = StageCon
     if res.stations or failed:
         evening_verdicts(res, {Path(f).stem: Path(f) for f in stacked_files}, project, qc, failed)
     for sid, oc in res.stations.items():
-        if isinstance(oc.payload, dict):
-            oc.payload = oc.payload.get("rows")
+        if oc.payload is not None:            # the QC table rows stay (a stage command)
+            oc.payload = oc.payload.get("rows") if isinstance(oc.payload, dict) else None
             res.stations[sid] = oc
     return res

@@ -30,13 +30,14 @@ import csv
 import io
 import math
 from dataclasses import dataclass
+from typing import NamedTuple
 
 import numpy as np
 
 from ..settings import Setting, SettingsTable
 
 __all__ = ["QC_TABLE", "QCSettings", "StationVerdict", "offset_classes", "class_medians",
-           "station_verdicts", "stations_csv_text", "write_stations_csv", "VERDICTS",
+           "station_verdicts", "verdicts_of_stations", "stations_csv_text", "write_stations_csv", "VERDICTS",
            "read_stations_csv", "project_measures", "evening_qc"]
 
 VERDICTS = ("good", "check", "reoccupy")
@@ -263,13 +264,28 @@ def station_verdicts(measures, settings=None, failed=None) -> list:
         processed; each gets ``check`` with the message as its reason.
     Stations come out in the order first met in ``measures``, failed ones last.
     """
-    s = settings or QCSettings()
-    med = class_medians(measures, s)
     by_station = {}
     for m in measures:
         by_station.setdefault(m.station, []).append(m)
-    out = []
-    for sid, chans in by_station.items():
+    return verdicts_of_stations(lambda: iter(by_station.items()), settings, failed)
+
+
+def verdicts_of_stations(stations, settings=None, failed=None) -> list:
+    """:func:`station_verdicts` of a survey read station by station, twice.
+
+    stations : a function of no arguments returning an iterator of ``(station, [ChannelMeasures
+        of that station])``; it is called twice (the survey medians first, then each station's
+        rules), so the caller need not hold every station's measures at once: only the six
+        numbers per channel the medians need are kept.
+    """
+    s = settings or QCSettings()
+    light = [_Light(m.station, m.component, m.offset_m, m.dead, m.noise_floor, m.last_usable)
+             for _, chans in stations() for m in chans]
+    med = class_medians(light, s)
+    del light
+    out, seen = [], set()
+    for sid, chans in stations():
+        seen.add(sid)
         re, ck, extra = [], [], 0.0
         for m in chans:
             r, c, e = _channel_rules(m, med[(m.station, m.component)], s)
@@ -288,9 +304,20 @@ def station_verdicts(measures, settings=None, failed=None) -> list:
         out.append(StationVerdict(sid, verdict, tuple(re + ck),
                                   extra if verdict == "reoccupy" else 0.0))
     for sid, msg in (failed or {}).items():
-        if sid not in by_station:
+        if sid not in seen:
             out.append(StationVerdict(sid, "check", (f"not processed: {msg}",), float("nan")))
     return out
+
+
+class _Light(NamedTuple):
+    """What the survey medians need of a channel's measures."""
+
+    station: str
+    component: str
+    offset_m: float
+    dead: bool
+    noise_floor: float
+    last_usable: float
 
 
 def stations_csv_text(verdicts) -> str:
