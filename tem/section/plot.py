@@ -112,14 +112,17 @@ def mark_columns(ax, edges, classes, yrange, gid):
         patch.set_gid(gid)
 
 
-def label_stations(ax, xs, labels, yrange, gid_prefix, color="k"):
-    """A boxed label at the top of the section above each station with a non-empty label;
-    gid ``<gid_prefix><station>``. ``labels``: (station, text) per station."""
+def label_stations(ax, xs, labels, yrange, gid_prefix, color="k", at="top"):
+    """A boxed label at the top (``at="top"``) or the bottom (``"bottom"``: over the deep part,
+    usually below the DOI, where it hides the least) of the section above each station with a
+    non-empty label; gid ``<gid_prefix><station>``. ``labels``: (station, text) per station."""
     top, bottom = yrange
+    y, va = (top + 0.04 * (bottom - top), "top") if at == "top" else \
+        (bottom - 0.04 * (bottom - top), "bottom")
     for x, (sid, label) in zip(xs, labels):
         if not label:
             continue
-        txt = ax.text(x, top + 0.04 * (bottom - top), f"{sid}\n{label}", ha="center", va="top",
+        txt = ax.text(x, y, f"{sid}\n{label}", ha="center", va=va,
                       fontsize=7, zorder=4, color=color,
                       bbox=dict(boxstyle="round,pad=0.2", fc="white", ec="0.3", alpha=0.85))
         txt.set_gid(f"{gid_prefix}{sid}")

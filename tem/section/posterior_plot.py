@@ -83,7 +83,9 @@ def posterior_section_figure(models, settings, title=None):
         ax.set_ylabel("depth below surface (m)")
     _mark_unconverged((ax1, ax2), models, idx, sd, scale, (ye[0], ye[-1]), (xe[0], xe[-1]))
     qc = _mark_failed_qc((ax1, ax2), models, idx, sd, scale, (ye[0], ye[-1]), (xe[0], xe[-1]))
-    ax1.legend(fontsize=7, loc="lower left")
+    # the legend below the P50 panel, not over it (the layout makes room)
+    ax1.legend(fontsize=7, loc="upper center", bbox_to_anchor=(0.5, -0.03), ncols=3,
+               framealpha=0.9)
     ax1.set_title(title or "posterior P50 resistivity (few-layer models)",
                   pad=24 if any(qc) else 14)        # room for two-line station names
     ax2.set_title("posterior spread: log10(P90 / P10) of resistivity")
@@ -135,4 +137,5 @@ def _mark_unconverged(axes, models, idx, sd, scale, yrange, xrange):
         mark_columns(ax, edges, cls, yrange, "interval-columns")
         ax.set_xlim(*xrange)
         if k == 0:
-            label_stations(ax, sd, labels, yrange, "interval-label-", color="#a4281b")
+            label_stations(ax, sd, labels, yrange, "interval-label-", color="#a4281b",
+                           at="bottom")
