@@ -74,10 +74,10 @@ class StageResult:
 class Outcomes(MutableMapping):
     """A stage's station outcomes (station -> :class:`StationOutcome`), in the order of its
     stations, kept in a spool on disk (:mod:`tem.io.spool`) as they arrive: a stage over
-    thousands of stations does not hold thousands of outcomes in memory. A payload that is text (a station's table rows, its QC
-    measures as JSON) is kept in the spool with its outcome; other payloads a stage keeps (not
-    taken by ``map_stations(..., consume=)``) stay in memory. Reading an
-    outcome gives a copy: change one by assigning it again."""
+    thousands of stations does not hold thousands of outcomes in memory. A payload that is
+    text (a station's table rows, its QC measures as JSON) is kept in the spool with its
+    outcome; other payloads a stage keeps (not taken by ``map_stations(..., consume=)``) stay
+    in memory. Reading an outcome gives a copy: change one by assigning it again."""
 
     def __init__(self, ids=()):
         from .io.spool import Spool

@@ -61,14 +61,14 @@ def _drop_rows(oc):
 
 
 def _measures_text(measures) -> str:
-    import dataclasses
     import json
 
-    return json.dumps([dataclasses.asdict(m) for m in measures])
+    return json.dumps([m.as_dict() for m in measures])
 
 
 def _measures_from(payload):
-    """A station's measures from its payload: the stage's dict, or JSON text (:func:`_drop_rows`)."""
+    """A station's measures from its payload: the stage's dict, or JSON text
+    (:func:`_drop_rows`)."""
     import json
 
     from ..qc import ChannelMeasures
@@ -93,7 +93,8 @@ def evening_verdicts(res, files, project, qc, failed=None):
     broken = dict(failed or {})
     for sid, oc in res.stations.items():
         if oc.payload is None and sid in files and (oc.status == "ok" or oc.outputs):
-            oc.payload = _measures_text(_measures_of(files[sid], project.station_file("gated", sid)))
+            gated = project.station_file("gated", sid)
+            oc.payload = _measures_text(_measures_of(files[sid], gated))
             res.stations[sid] = oc
         elif oc.payload is None and oc.status != "ok" and not oc.outputs:
             broken[sid] = oc.message

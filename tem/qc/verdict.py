@@ -37,8 +37,8 @@ import numpy as np
 from ..settings import Setting, SettingsTable
 
 __all__ = ["QC_TABLE", "QCSettings", "StationVerdict", "offset_classes", "class_medians",
-           "station_verdicts", "verdicts_of_stations", "stations_csv_text", "write_stations_csv", "VERDICTS",
-           "read_stations_csv", "project_measures", "evening_qc"]
+           "station_verdicts", "verdicts_of_stations", "stations_csv_text", "write_stations_csv",
+           "VERDICTS", "read_stations_csv", "project_measures", "evening_qc"]
 
 VERDICTS = ("good", "check", "reoccupy")
 _NS = "common practice, no source"

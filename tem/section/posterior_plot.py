@@ -2,12 +2,12 @@
 the P10-P90 width (log10(P90 / P10), decades) on the same grid, with the target-top
 percentiles of every station. Below each station's depth of investigation both panels are
 veiled and hatched as in the resistivity section (:func:`tem.section.plot.veil_below_doi`):
-the percentiles there come from the prior more than from the data. Columns of stations whose posterior intervals are unconverged
-(``interval_verdict_code`` 1; :mod:`tem.invert.interval`) are hatched in both panels, with a
-legend entry, and labelled with their R-hat and ESS (:func:`tem.section.plot.mark_columns`):
-their percentiles are not yet the posterior's. Columns of stations whose recording failed the
-evening QC (verdict reoccupy) are tinted and hatched with crosses, and the station's name says
-so.
+the percentiles there come from the prior more than from the data. Columns of stations
+whose posterior intervals are unconverged (``interval_verdict_code`` 1;
+:mod:`tem.invert.interval`) are hatched in both panels, with a legend entry, and labelled with
+their R-hat and ESS (:func:`tem.section.plot.mark_columns`): their percentiles are not yet
+the posterior's. Columns of stations whose recording failed the evening QC (verdict
+reoccupy) are tinted and hatched with crosses, and the station's name says so.
 
 Both panels are stitched like the resistivity section (:func:`tem.section.stage.section_grid`)
 from the models file's posterior products (:mod:`tem.invert.posterior_products`): each
