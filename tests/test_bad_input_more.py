@@ -550,3 +550,23 @@ def test_hand_damaged_run_record_is_refused_in_one_line(tmp_path, edit, field):
         read_run(tmp_path)
     text = str(err.value)
     assert "\n" not in text and "run.json" in text and field in text, text
+
+
+def test_text_and_toml_size_caps(tmp_path):
+    # a text table or a survey larger than its cap is refused in one line naming the file;
+    # one byte under the cap is read whole (the reading goes in 1 MiB pieces, never a buffer
+    # of the cap's size: that was a 64 MiB allocation per 20 kB table read)
+    from tem.errors import TemInputError
+    from tem.io.checks import read_text
+    from tem.io.tomlfile import MAX_TOML_BYTES, read_toml
+
+    f = tmp_path / "table.csv"
+    f.write_bytes(b"a" * (3 * 2**20 + 7))
+    assert len(read_text(f, "table.csv", max_bytes=3 * 2**20 + 7)) == 3 * 2**20 + 7
+    with pytest.raises(TemInputError, match=r"table\.csv.*larger than 3 MiB"):
+        read_text(f, "table.csv", max_bytes=3 * 2**20 + 6)
+    big = tmp_path / "survey.toml"
+    big.write_bytes(b"# padding\n" * (MAX_TOML_BYTES // 10 + 1))
+    with pytest.raises(TemInputError, match=r"survey\.toml.*larger than 16 MiB") as err:
+        read_toml(big, "survey")
+    assert "\n" not in str(err.value)

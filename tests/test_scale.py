@@ -88,26 +88,38 @@ def _partials(root):
     return [p for p in Path(root).rglob("*.tem-part")]
 
 
-@pytest.mark.parametrize("point", ["stack", "invert", "export"])
-def test_killed_run_resumes_to_identical_products(day, tmp_path, point):
+def _kill_when(proc, probe):
+    """SIGKILL ``proc`` once ``probe()`` holds; asserts no child of it lives 5 s later."""
     import psutil
 
-    survey, ref = day
-    proj = tmp_path / "p"
-    probes = {"stack": lambda: len(list((proj / "stacked").glob("*.nc"))) >= 1,
-              "invert": lambda: len(list((proj / "figures" / "stations").glob("*_fit.png"))) >= 1,
-              "export": lambda: (proj / "exports").is_dir()}
-    proc = _tem("run", survey, "--out", proj, "--jobs", "2", "--no-progress", capture=False)
-    _wait_for(probes[point], proc)
+    assert _wait_for(probe, proc), "the run ended before the kill point"
     children = _descendants(proc.pid)
     proc.send_signal(signal.SIGKILL)
     proc.wait()
     time.sleep(5.0)            # no worker outlives its parent by more than 5 s
     alive = [c for c in children if c.is_running() and c.status() != psutil.STATUS_ZOMBIE]
     assert not alive, [c.cmdline() for c in alive]
+
+
+def test_run_killed_during_stack_invert_and_export_resumes_to_identical_products(day, tmp_path):
+    # one project killed three times (SIGKILL during the stack stage, then during the rerun's
+    # invert stage, then during the next rerun's export stage), each rerun resuming what the
+    # killed one left: the last rerun must end with the uninterrupted run's products and no
+    # temporary file (one chain costs one run, three separate projects cost three)
+    survey, ref = day
+    proj = tmp_path / "p"
+    probes = {"stack": lambda: len(list((proj / "stacked").glob("*.nc"))) >= 1,
+              "invert": lambda: len(list((proj / "figures" / "stations").glob("*_fit.png"))) >= 1,
+              "export": lambda: (proj / "exports").is_dir()}
+    for point in ("stack", "invert", "export"):
+        proc = _tem("run", survey, "--out", proj, "--jobs", "2", "--no-progress", capture=False)
+        _kill_when(proc, probes[point])
+        if point == "stack":
+            assert not (proj / "gated").is_dir() or not any((proj / "gated").iterdir())
     rerun = _tem("run", survey, "--out", proj, "--jobs", "2", "--no-progress")
     out, err = rerun.communicate(timeout=600)
     assert rerun.returncode == 0, err
+    assert "reused" in out
     assert not _partials(proj)
     assert_same_products(ref, proj, rtol=1e-9)
 

@@ -20,7 +20,7 @@ import numpy as np
 from ..errors import TemInputError, input_error
 
 __all__ = ["LIMITS", "show", "label", "number", "integer", "text", "table", "array", "point",
-           "read_text", "csv_rows", "finite_array", "npy_header", "open_netcdf", "variable",
+           "read_text", "read_capped", "csv_rows", "finite_array", "npy_header", "open_netcdf", "variable",
            "attr_number", "MAX_TEXT_BYTES", "MAX_ELEMENTS"]
 
 #: Physical bounds (units in the key's comment); a value outside is refused.
@@ -165,13 +165,27 @@ def point(value, field, file=None) -> tuple:
     return (number(value[0], field, file, maximum=lim), number(value[1], field, file, maximum=lim))
 
 
+def read_capped(fh, max_bytes: int) -> bytes:
+    """At most ``max_bytes + 1`` bytes of a binary file object (one more than allowed tells a
+    file too large), read in pieces of 1 MiB: ``fh.read(n)`` allocates ``n`` bytes first, so
+    reading with ``n = max_bytes + 1`` made a 64 MiB buffer for every 20 kB table."""
+    pieces, n = [], 0
+    while n <= max_bytes:
+        piece = fh.read(min(2**20, max_bytes + 1 - n))
+        if not piece:
+            break
+        pieces.append(piece)
+        n += len(piece)
+    return b"".join(pieces)
+
+
 def read_text(path, field: str, max_bytes: int = MAX_TEXT_BYTES) -> str:
     """A whole UTF-8 text file; refuses a missing file, a folder, a huge file, non-UTF-8
     bytes and NUL characters."""
     path = Path(path)
     try:
         with open(path, "rb") as fh:
-            data = fh.read(max_bytes + 1)
+            data = read_capped(fh, max_bytes)
     except FileNotFoundError:
         raise input_error(field, "file not found", path) from None
     except IsADirectoryError:

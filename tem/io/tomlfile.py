@@ -5,7 +5,7 @@ import tomllib
 from pathlib import Path
 
 from ..errors import input_error
-from .checks import decode_text
+from .checks import decode_text, read_capped
 
 __all__ = ["read_toml", "parse_toml"]
 
@@ -25,7 +25,7 @@ def read_toml(path, what: str, file=None) -> dict:
     path = Path(path)
     try:
         with open(path, "rb") as fh:
-            data = fh.read(MAX_TOML_BYTES + 1)
+            data = read_capped(fh, MAX_TOML_BYTES)
     except FileNotFoundError:
         if file is not None:
             raise input_error(what, f"missing {path.name}", file) from None
