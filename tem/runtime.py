@@ -82,7 +82,7 @@ class Outcomes(MutableMapping):
     def __init__(self, ids=()):
         from .io.spool import Spool
 
-        self._spool = Spool(cache_kib=256)
+        self._spool = Spool()
         self._d = self._spool.dict("outcomes")
         self._payloads = {}
         for sid in ids:                    # the stations' order, whatever the arrival order

@@ -21,12 +21,18 @@ def netcdf_bytes(ds) -> bytes:
     worker, xarray would otherwise ask the cluster for a write lock keyed on
     the in-memory buffer.
     """
+    return bytes(_serialised(ds))
+
+
+def _serialised(ds):
+    """The file image as xarray returns it (a memoryview of its buffer in recent versions)."""
     import dask
 
     with dask.config.set(scheduler="synchronous"):
-        return bytes(ds.to_netcdf(engine="h5netcdf"))
+        return ds.to_netcdf(engine="h5netcdf")
 
 
 def write_netcdf(ds, path) -> Path:
-    """Write a Dataset to ``path`` atomically."""
-    return write_bytes_atomic(path, netcdf_bytes(ds))
+    """Write a Dataset to ``path`` atomically (from xarray's buffer: no copy of the image, which
+    for a survey-wide models file is about 1 kB per station)."""
+    return write_bytes_atomic(path, _serialised(ds))

@@ -7,7 +7,7 @@ four station stages: held in memory, the ``tem run`` process would grow with
 the survey (docs/scaling.md). :class:`Spool` keeps these parts in a private
 temporary SQLite database instead (SQLite deletes it when it is closed; it is
 never in the project folder and never outlives the process), with a page
-cache of 1 MiB, and gives dict- and list-like views of them:
+cache of 256 KiB, and gives dict- and list-like views of them:
 :class:`SpooledDict` (``stations`` of a stage record, the run's per-station
 summary, the checksum table) and :class:`SpooledList` (a stage's ``inputs``).
 Values are stored as JSON text (never pickled) and decoded on access, so a
@@ -34,7 +34,7 @@ class Spool:
 
     _ids = itertools.count()
 
-    def __init__(self, cache_kib: int = 1024):
+    def __init__(self, cache_kib: int = 256):
         # "" is SQLite's private temporary database: on disk once its cache is full, removed
         # when the connection closes (and unlinked at once on POSIX, so a killed run leaves
         # nothing behind)
