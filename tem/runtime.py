@@ -16,7 +16,7 @@ from dataclasses import dataclass, field
 from .errors import TemInputError, TemOutputError
 
 __all__ = ["StationOutcome", "StageResult", "StageContext", "Outcomes", "map_stations",
-           "process_pool",
+           "return_large_blocks", "process_pool",
            "write_products", "report_progress", "Tally"]
 
 
@@ -409,3 +409,34 @@ def process_pool(jobs: int):
                                   initargs=(os.getpid(), queue))
     pool.progress_queue = queue
     return pool
+
+
+#: Allocations of this many bytes or more are served by mmap and returned on free
+#: (:func:`return_large_blocks`).
+LARGE_BLOCK = 128 * 1024
+
+
+def return_large_blocks(threshold: int = LARGE_BLOCK) -> bool:
+    """Have glibc serve blocks of ``threshold`` bytes or more by ``mmap``, at a fixed threshold.
+
+    glibc starts at 128 kB but raises its threshold to the size of each such block freed
+    (up to 32 MB), after which large transient buffers (a netCDF image, a decoded table)
+    come from the heap, and the heap's high-water mark, never given back, grows with the
+    survey. Measured (client of ``tem run`` through the invert stage, 100 and 400 stations,
+    local pool of 2): the peak grew by 3.0 MB without the fixed threshold (251.2 -> 254.2 MB)
+    and by 2.4 MB with it (248.8 -> 251.2 MB), the heap's free space at the end 7.7 -> 9.3 MB
+    without, 2.7 MB with. Linux/glibc only; a
+    threshold the user set (``MALLOC_MMAP_THRESHOLD_``) is kept. Returns whether it was set.
+    """
+    import ctypes
+    import os
+    import sys
+
+    if not sys.platform.startswith("linux") or "MALLOC_MMAP_THRESHOLD_" in os.environ:
+        return False
+    try:
+        mallopt = ctypes.CDLL("libc.so.6").mallopt
+    except (OSError, AttributeError):  # pragma: no cover - not glibc (e.g. musl)
+        return False
+    M_MMAP_THRESHOLD = -3                  # glibc's malloc.h
+    return bool(mallopt(M_MMAP_THRESHOLD, int(threshold)))
