@@ -20,8 +20,8 @@ import numpy as np
 from ..errors import TemInputError, input_error
 
 __all__ = ["LIMITS", "show", "label", "number", "integer", "text", "table", "array", "point",
-           "read_text", "read_capped", "csv_rows", "finite_array", "npy_header", "open_netcdf", "variable",
-           "attr_number", "MAX_TEXT_BYTES", "MAX_ELEMENTS"]
+           "read_text", "read_capped", "csv_rows", "finite_array", "npy_header", "open_netcdf",
+           "variable", "attr_number", "MAX_TEXT_BYTES", "MAX_ELEMENTS"]
 
 #: Physical bounds (units in the key's comment); a value outside is refused.
 LIMITS = {

@@ -424,7 +424,7 @@ def run_pipeline(survey_file, project_dir, from_stage=None, overrides=(), jobs=1
     from ..runtime import return_large_blocks
     from ..survey import read_survey
 
-    return_large_blocks()        # so the client's peak memory does not grow with the survey
+    return_large_blocks()        # transient buffers go back to the system (docs/scaling.md)
     survey_file = Path(survey_file)
     survey = read_survey(survey_file)
     settings = resolve_settings(read_processing(survey_file), overrides, survey_file)
