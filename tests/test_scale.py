@@ -238,45 +238,25 @@ def test_workers_with_the_profiler_are_named_in_a_note():
     assert "DASK_DISTRIBUTED__WORKER__PROFILE__ENABLED=False" in note
 
 
-_BLOCKS = """
-import ctypes, sys
-from tem.runtime import return_large_blocks
-libc = ctypes.CDLL("libc.so.6")
-class Info(ctypes.Structure):
-    _fields_ = [(n, ctypes.c_size_t) for n in ("arena", "ordblks", "smblks", "hblks", "hblkhd",
-                                                "usmblks", "fsmblks", "uordblks", "fordblks",
-                                                "keepcost")]
-libc.mallinfo2.restype = Info
-if sys.argv[1] == "fixed":
-    assert return_large_blocks()
-first = bytearray(2**20)
-del first
-mapped = libc.mallinfo2().hblks
-second = bytearray(900_000)
-print(libc.mallinfo2().hblks - mapped)
-"""
-
-
-def test_large_blocks_go_back_to_the_system():
-    # glibc serves a block of M_MMAP_THRESHOLD bytes or more by mmap, but raises the threshold
-    # to the size of each such block freed (mallopt(3), "M_MMAP_THRESHOLD": dynamic unless set),
-    # after which transient buffers come from the heap, whose high-water mark the process keeps:
-    # tem run fixes the threshold, so a 900 kB buffer after a freed 1 MiB one is still mapped.
-    # In a fresh one-threaded process (another thread's free would change the count), with
-    # glibc's default beside it: the heap
+def test_large_block_threshold_is_set_unless_the_user_set_one():
+    # glibc raises its mmap threshold to the size of each mapped block freed (mallopt(3),
+    # "M_MMAP_THRESHOLD": dynamic unless set), so transient buffers come from a heap that never
+    # shrinks; tem run fixes it (docs/scaling.md has the measured effect on the client's heap;
+    # whether one block is mapped depends on the heap's free chunks, so it is not tested here),
+    # and keeps a threshold the user set in the environment. Fresh processes: the setting is
+    # process-wide
     import ctypes
     import os
 
-    if not sys.platform.startswith("linux") or "MALLOC_MMAP_THRESHOLD_" in os.environ:
-        pytest.skip("glibc's malloc on Linux only, with no threshold set by the environment")
-    if not hasattr(ctypes.CDLL("libc.so.6"), "mallinfo2"):
-        pytest.skip("mallinfo2 needs glibc >= 2.33")
-
-    def mapped(mode):
-        out = subprocess.run([sys.executable, "-c", _BLOCKS, mode], capture_output=True,
-                             text=True, timeout=60)
-        assert out.returncode == 0, out.stderr
-        return int(out.stdout)
-
-    assert mapped("fixed") == 1
-    assert mapped("default") == 0
+    if not sys.platform.startswith("linux"):
+        pytest.skip("glibc's malloc on Linux only")
+    try:
+        ctypes.CDLL("libc.so.6").mallopt
+    except (OSError, AttributeError):
+        pytest.skip("not glibc")
+    code = "from tem.runtime import return_large_blocks; print(return_large_blocks())"
+    env = {k: v for k, v in os.environ.items() if k != "MALLOC_MMAP_THRESHOLD_"}
+    out = [subprocess.run([sys.executable, "-c", code], capture_output=True, text=True,
+                          env=e, timeout=60).stdout.strip()
+           for e in (env, dict(env, MALLOC_MMAP_THRESHOLD_="65536"))]
+    assert out == ["True", "False"]
