@@ -425,8 +425,8 @@ def return_large_blocks(threshold: int = LARGE_BLOCK) -> bool:
     survey. Measured (client of ``tem run`` through the invert stage, 100 and 400 stations,
     local pool of 2): the peak grew by 3.0 MB without the fixed threshold (251.2 -> 254.2 MB)
     and by 2.4 MB with it (248.8 -> 251.2 MB), the heap's free space at the end 7.7 -> 9.3 MB
-    without, 2.7 MB with. Linux/glibc only; a
-    threshold the user set (``MALLOC_MMAP_THRESHOLD_``) is kept. Returns whether it was set.
+    without, 2.7 MB with. Linux/glibc only; a threshold the user set
+    (``MALLOC_MMAP_THRESHOLD_``) is kept. Returns whether it was set.
     """
     import ctypes
     import os
