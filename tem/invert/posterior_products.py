@@ -212,6 +212,7 @@ def add_posterior_rows(ds, rows, draws, cells, cover_layers):
 def add_interval_verdicts(ds, verdicts):
     """``interval_verdict_code`` (CF flags) and ``interval_verdict`` (text) per station, in place
     (a no-op when a station has no verdict)."""
+    from ..io.models import text_column
     from .interval import INTERVAL_STATUSES, interval_flag_meanings
 
     if not verdicts or any(v is None for v in verdicts):
@@ -223,9 +224,8 @@ def add_interval_verdicts(ds, verdicts):
         "comment": "0 converged (largest split R-hat and smallest ESS within the thresholds); "
                    "1 unconverged: the percentiles are not yet the posterior's, a warning "
                    "(docs/inversion.md, Interval verdict)"})
-    ds["interval_verdict"] = ("station", np.array([v.text for v in verdicts], dtype=object)
-                              .astype(str), {"long_name": "verdict on the posterior intervals, "
-                                             "in words"})
+    ds["interval_verdict"] = ("station", text_column([v.text for v in verdicts]), {
+        "long_name": "verdict on the posterior intervals, in words"})
     return ds
 
 

@@ -156,6 +156,7 @@ def models_from_rows(rows, kind, provenance=(), epsg=0):
 
 
 def _verdict_vars(v, prefix, what):
+    from ..io.models import text_column
     from .verdict import STATUSES, flag_meanings
 
     return {
@@ -165,7 +166,7 @@ def _verdict_vars(v, prefix, what):
             "flag_meanings": flag_meanings(),
             "comment": "0 fitted; 1 misfit and 2 stalled are failures; 3 parameter at a bound "
                        "and 4 degenerate layer are warnings (docs/inversion.md, Verdicts)"}),
-        f"{prefix}verdict": ("station", np.array(v["summary"], dtype=object).astype(str),
+        f"{prefix}verdict": ("station", text_column(v["summary"]),
                              {"long_name": f"verdict on the {what}, in words"}),
         f"{prefix}chi2": ("station", np.asarray(v["chi2"], float),
                           {"units": "1", "long_name": f"final chi-square per datum of the {what}"}),

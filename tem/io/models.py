@@ -30,6 +30,7 @@ __all__ = [
     "read_models",
     "check_model_values",
     "write_models",
+    "text_column",
     "layer_rows",
     "iter_layer_rows",
     "write_models_csv",
@@ -244,6 +245,19 @@ def check_model_values(ds, file=None):
     return ds
 
 
+def text_column(texts):
+    """Per-station sentences (verdicts in words) as an array of Python strings.
+
+    Each string keeps its own length in memory; a fixed-width numpy array would pad
+    every station to the longest sentence at 4 bytes per character (3.4 MB of
+    1000 stations' verdicts, measured). Written to netCDF the same (variable-length
+    strings: identical bytes).
+    """
+    out = np.empty(len(texts), dtype=object)
+    out[:] = [str(t) for t in texts]
+    return out
+
+
 def write_models(ds, path, record=None):
     """Check and write a models Dataset atomically, appending a provenance record.
 
@@ -286,17 +300,22 @@ def model_verdicts(ds):
     ``verdict`` (one line: ``status: reason; reason``). A file without
     verdicts (written before they existed) gives None for every station.
     """
+    return list(iter_model_verdicts(ds))
+
+
+def iter_model_verdicts(ds):
+    """:func:`model_verdicts` one station at a time."""
     n = ds.sizes["station"]
     if "verdict_code" not in ds.variables:
-        return [None] * n
-    codes = ds["verdict_code"].values.astype(int)
-    texts = ds["verdict"].values.astype(str) if "verdict" in ds.variables else [""] * n
-    out = []
-    for code, name, text in zip(codes, flag_names(ds, "verdict_code"), texts):
+        yield from (None for _ in range(n))
+        return
+    texts = ds["verdict"].values if "verdict" in ds.variables else ("",) * n
+    for code, name, text in zip(ds["verdict_code"].values.astype(int),
+                                flag_names(ds, "verdict_code"), texts):
+        text = str(text)
         reasons = text.split(": ", 1)[1] if ": " in text else ""
-        out.append({"status": name.replace("_", "-"), "code": int(code), "text": str(text),
-                    "reasons": reasons})
-    return out
+        yield {"status": name.replace("_", "-"), "code": int(code), "text": text,
+               "reasons": reasons}
 
 
 def flag_names(ds, var, by_index=True):
@@ -349,7 +368,7 @@ def add_qc_verdicts(ds, rows):
         "flag_meanings": " ".join(QC_FLAGS),
         "comment": "2 reoccupy: the recording failed QC and is to be repeated; the model rests "
                    "on it. 1 check: a warning. -1: no verdict recorded (docs/qc.md)"})
-    ds["qc_verdict"] = ("station", np.array(texts, dtype=object).astype(str),
+    ds["qc_verdict"] = ("station", text_column(texts),
                         {"long_name": "evening QC verdict with its reasons, in words"})
     ds["qc_extra_minutes"] = ("station", np.array(minutes, float),
                               {"units": "min", "long_name": "recording time the QC verdict asks "
@@ -360,19 +379,24 @@ def add_qc_verdicts(ds, rows):
 def qc_verdicts(ds):
     """Per station: ``{"verdict", "code", "reasons"}`` of its evening QC, or None when the
     file records none for it (no ``qc_verdict_code``, or code -1)."""
+    return list(iter_qc_verdicts(ds))
+
+
+def iter_qc_verdicts(ds):
+    """:func:`qc_verdicts` one station at a time."""
     n = ds.sizes["station"]
     if "qc_verdict_code" not in ds.variables:
-        return [None] * n
-    texts = ds["qc_verdict"].values.astype(str) if "qc_verdict" in ds.variables else [""] * n
-    out = []
+        yield from (None for _ in range(n))
+        return
+    texts = ds["qc_verdict"].values if "qc_verdict" in ds.variables else ("",) * n
     for code, name, text in zip(ds["qc_verdict_code"].values.astype(int),
                                 flag_names(ds, "qc_verdict_code", by_index=False), texts):
         if name == "none":
-            out.append(None)
+            yield None
             continue
-        reasons = str(text).split(": ", 1)[1] if ": " in str(text) else ""
-        out.append({"verdict": name, "code": int(code), "reasons": reasons})
-    return out
+        text = str(text)
+        reasons = text.split(": ", 1)[1] if ": " in text else ""
+        yield {"verdict": name, "code": int(code), "reasons": reasons}
 
 
 def interval_words(ds):
@@ -403,10 +427,10 @@ def iter_layer_rows(ds):
     """
     bottom = layer_bottoms(ds)
     epsg = int(ds.attrs.get("epsg", 0) or 0)
-    verdicts = model_verdicts(ds)
-    qcs = qc_verdicts(ds)
     intervals = interval_words(ds)
-    for i, sid in enumerate(ds["station"].values.astype(str)):
+    for i, (sid, verdict, qc) in enumerate(zip(ds["station"].values, iter_model_verdicts(ds),
+                                               iter_qc_verdicts(ds))):
+        sid = str(sid)
         doi = float(ds["doi"].values[i])
         for k in range(ds.sizes["layer"]):
             rho = float(ds["resistivity"].values[i, k])
@@ -428,11 +452,11 @@ def iter_layer_rows(ds):
                 "doi_m": _num(doi),
                 "chi2": _num(ds["chi2"].values[i]),
                 "epsg": epsg,
-                "verdict": verdicts[i]["status"] if verdicts[i] else "",
-                "verdict_code": verdicts[i]["code"] if verdicts[i] else "",
-                "verdict_reasons": verdicts[i]["reasons"] if verdicts[i] else "",
-                "qc_verdict": qcs[i]["verdict"] if qcs[i] else "",
-                "qc_reasons": qcs[i]["reasons"] if qcs[i] else "",
+                "verdict": verdict["status"] if verdict else "",
+                "verdict_code": verdict["code"] if verdict else "",
+                "verdict_reasons": verdict["reasons"] if verdict else "",
+                "qc_verdict": qc["verdict"] if qc else "",
+                "qc_reasons": qc["reasons"] if qc else "",
             }
             if "resistivity_low" in ds:
                 row.update({c: _num(ds[v].values[i, k]) for c, v in RANGE_COLUMNS.items()})

@@ -63,7 +63,12 @@ def dask_client(scheduler: str, jobs: int):
     # stream): each holds a serialised station task (2-7 kB), so the client's memory grew
     # with the first few hundred stations of a run (measured: 1.1 MB per 400 stations in
     # the client's send log alone); 50 is plenty for a traceback
-    logs = {"distributed.admin.low-level-log-length": 50}
+    # Each process's system monitor (the scheduler's runs in this process with a LocalCluster)
+    # keeps a sample of CPU, memory and I/O every 0.5 s for an hour, for the dashboard, which
+    # tem does not start: about 180 B per sample here (tracemalloc), so the client grew with
+    # the run's length (1.3 MB after an hour). Two minutes of history are kept.
+    logs = {"distributed.admin.low-level-log-length": 50,
+            "distributed.admin.system-monitor.log-length": 240}
     if scheduler == "local":
         # the workers' statistical profiler keeps a tree of call sites per second for an hour
         # (about 115 kB per station task here): off, so worker memory does not grow with the

@@ -431,6 +431,7 @@ def run_pipeline(survey_file, project_dir, from_stage=None, overrides=(), jobs=1
     project = Project(project_dir)
     files, folders = _user_inputs(survey, survey_file, settings)
     check_output(project.root, STAGES, inputs=files, read_only=folders)
+    del files, folders           # a path per recording: not held for the whole run
     if from_stage is not None and from_stage not in STAGES:
         raise input_error("--from", f"unknown stage {from_stage!r}; valid: {', '.join(STAGES)}")
     start = STAGES.index(from_stage) if from_stage else 0
