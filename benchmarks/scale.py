@@ -17,8 +17,10 @@ the survey by nature, so it is not part of the memory measure.
 
 Prints one JSON line per case: ``{"case", "stations", "workers",
 "stations_per_s", "speedup_over_1_worker", "peak_rss_mb_client",
-"peak_rss_mb_worker"}``. Targets (issue 14): speedup >= 1.8 on 2 workers at
-1000 stations; client and worker memory flat from 250 to 1000 stations.
+"peak_rss_mb_worker", "client_cpu_s_per_station"}`` (the last: CPU seconds of
+the client process, with the LocalCluster's scheduler in it, per station).
+Targets (issue 14): speedup >= 1.8 on 2 workers at 1000 stations; client and
+worker memory flat from 250 to 1000 stations.
 Usage: ``python benchmarks/scale.py [--stations 250 1000] [--workers 1 2]``.
 """
 from __future__ import annotations
@@ -61,6 +63,8 @@ st = out.state
 print(json.dumps({"exit": out.exit_status,
                   "elapsed": sum(st["stages"][s]["elapsed_s"] for s in ("stack", "gate", "rhoa", "invert")),
                   "client_mb": resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024.0,
+                  "client_cpu_s": (lambda u: u.ru_utime + u.ru_stime)(
+                      resource.getrusage(resource.RUSAGE_SELF)),
                   "worker_mb": st["last_run"].get("worker_peak_rss_mb")}))
 """
 
@@ -124,6 +128,9 @@ def main():
                                   "speedup_over_1_worker": round(rate / base, 3),
                                   "peak_rss_mb_client": round(r["client_mb"], 1),
                                   "peak_rss_mb_worker": r["worker_mb"],
+                                  # the client's own CPU (with the in-process scheduler): on
+                                  # 2 cores it competes with the 2 workers for the speed-up
+                                  "client_cpu_s_per_station": round(r["client_cpu_s"] / n, 4),
                                   "backend": "dask.distributed LocalCluster, 1 thread per worker",
                                   "exit_status": r["exit"]}), flush=True)
 
