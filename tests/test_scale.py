@@ -204,6 +204,14 @@ def test_local_cluster_gives_the_same_products(day, tmp_path):
     assert_same_products(ref, proj, rtol=1e-9)
 
 
+def monitor_length(dask_worker):
+    return dask_worker.monitor.quantities["time"].maxlen
+
+
+def scheduler_monitor_length(dask_scheduler):
+    return dask_scheduler.monitor.quantities["time"].maxlen
+
+
 def test_two_local_clusters_side_by_side_and_no_worker_profiler():
     # two runs with --scheduler local at once (or beside a user's own dask cluster) must not
     # fight over a fixed HTTP port (a warning, i.e. an error under this suite's settings), and
@@ -221,6 +229,10 @@ def test_two_local_clusters_side_by_side_and_no_worker_profiler():
         assert a.scheduler_info()["address"] != b.scheduler_info()["address"]
         assert list(a.run(profiling).values()) == [False]
         assert profiling_note(a) == ""
+        # the system monitors (the scheduler's is in this process) keep two minutes of
+        # samples, not dask's hour (about 180 B per 0.5 s sample, traced: docs/scaling.md)
+        assert list(a.run(monitor_length).values()) == [240]
+        assert a.run_on_scheduler(scheduler_monitor_length) == 240
         assert a.submit(sum, [1, 2]).result() == 3 and b.submit(sum, [3, 4]).result() == 7
 
 
