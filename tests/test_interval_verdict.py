@@ -177,6 +177,46 @@ def test_figures_mark_unconverged_stations(run):
     assert not [c for ax in fig.axes for c in ax.collections if c.get_gid() == "interval-columns"]
 
 
+def test_main_section_grid_and_figure_mark_unconverged(run):
+    # the main section shows the posterior median; from unconverged chains it is not yet the
+    # posterior's, so the grid file carries the verdict and the figure hatches and says it
+    from tem.io.models import read_models
+    from tem.io.sections import read_section_grid
+    from tem.section.plot import section_figure
+    from tem.section.stage import section_grid
+    from tem.section.settings import SectionSettings
+
+    out = run[0]
+    grid = read_section_grid(out / "sections" / "section.nc")
+    assert list(grid["station_interval_verdict_code"].values) == [1, 1]
+    assert grid["station_interval_verdict_code"].attrs["flag_meanings"] == \
+        "converged unconverged"
+    assert set(grid["interval_verdict_code"].values.tolist()) == {1}
+    assert all(str(t).startswith("intervals unconverged") for t in
+               grid["station_interval_verdict"].values)
+    fig = section_figure(grid, below_doi="shade", title="t")
+    ax = fig.axes[0]
+    assert [c for c in ax.collections if c.get_gid() == "interval-columns"], "not hatched"
+    labels = [t.get_text() for t in ax.get_legend().get_texts()]
+    assert "intervals unconverged (R-hat, ESS)" in labels
+    texts = {t.get_gid(): t.get_text() for t in ax.texts}
+    for sid in STATIONS:
+        assert "unconverged" in texts[f"verdict-label-{sid}"]
+    assert "sampling unconverged at 2 of 2 stations" in fig._suptitle.get_text()
+    # the same models with converged intervals: no hatching, no caution
+    ds = read_models(out / "models" / "models.nc")
+    ds["interval_verdict_code"] = ds["interval_verdict_code"] * 0
+    fig = section_figure(section_grid(ds, SectionSettings(depth_step=25.0)), below_doi="shade",
+                         title="t")
+    assert not [c for c in fig.axes[0].collections if c.get_gid() == "interval-columns"]
+    assert fig._suptitle.get_text() == "t"
+    # and the SEG-Y section's textual header names them (docs/export.md)
+    import segyio
+    with segyio.open(out / "exports" / "section_depth.sgy", ignore_geometry=True) as f:
+        text = f.text[0].decode("ascii", "replace")
+    assert "POSTERIOR UNCONVERGED (MEDIAN NOT FINAL): EM04, EM06" in text
+
+
 def test_report_station_table(run):
     from tem.io.models import read_models
     from tem.report.html import station_table

@@ -369,6 +369,17 @@ def _qc_line(grid) -> str:
     return text if len(text) <= 76 else text[:72] + " ..."
 
 
+def _interval_line(grid) -> str:
+    """Textual header line naming the stations whose posterior sampling did not converge."""
+    bad = [sid for sid, c in zip(grid["station"].values.astype(str),
+                                 grid["station_interval_verdict_code"].values.astype(int))
+           if c >= 1]
+    if not bad:
+        return "POSTERIOR INTERVALS: ALL CONVERGED"
+    text = "POSTERIOR UNCONVERGED (MEDIAN NOT FINAL): " + ", ".join(bad)
+    return text if len(text) <= 76 else text[:72] + " ..."
+
+
 def describe(grid, domain, step, value, below_doi, epsg, source="", velocity_file=""):
     """Textual header lines (without the fixed END line) for a section file."""
     vname = {"depth": "DEPTH BELOW GROUND", "elevation": "DEPTH BELOW DATUM", "twt": "TWO-WAY TIME"}[domain]
@@ -401,6 +412,8 @@ def describe(grid, domain, step, value, below_doi, epsg, source="", velocity_fil
         lines.append(f"TIME FROM INTERVAL VELOCITIES: {Path(velocity_file).name}"[:76])
     lines.append(_not_fitted_line(grid))
     lines.append(_qc_line(grid))
+    if "station_interval_verdict_code" in grid:
+        lines.append(_interval_line(grid))
     d = grid["distance"].values
     if d.size:
         lines.append(f"PROFILE DISTANCE {d[0]:.1f} TO {d[-1]:.1f} M")

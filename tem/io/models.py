@@ -305,17 +305,32 @@ def model_verdicts(ds):
 
 def iter_model_verdicts(ds):
     """:func:`model_verdicts` one station at a time."""
+    for row in _iter_coded(ds, "verdict_code", "verdict", by_index=True):
+        if row is None:
+            yield None
+            continue
+        code, name, text = row
+        yield {"status": name.replace("_", "-"), "code": code, "text": text,
+               "reasons": verdict_reasons(text)}
+
+
+def verdict_reasons(text):
+    """The reasons of a one-line verdict ``status: reason; reason`` ("" when it has none)."""
+    text = str(text)
+    return text.split(": ", 1)[1] if ": " in text else ""
+
+
+def _iter_coded(ds, code_var, text_var, by_index):
+    """Per station ``(code, flag word, text)`` of a CF-flag verdict and its sentence, or None
+    for every station when the file has no ``code_var`` (written before verdicts existed)."""
     n = ds.sizes["station"]
-    if "verdict_code" not in ds.variables:
+    if code_var not in ds.variables:
         yield from (None for _ in range(n))
         return
-    texts = ds["verdict"].values if "verdict" in ds.variables else ("",) * n
-    for code, name, text in zip(ds["verdict_code"].values.astype(int),
-                                flag_names(ds, "verdict_code"), texts):
-        text = str(text)
-        reasons = text.split(": ", 1)[1] if ": " in text else ""
-        yield {"status": name.replace("_", "-"), "code": int(code), "text": text,
-               "reasons": reasons}
+    texts = ds[text_var].values if text_var in ds.variables else ("",) * n
+    for code, name, text in zip(ds[code_var].values.astype(int),
+                                flag_names(ds, code_var, by_index=by_index), texts):
+        yield int(code), name, str(text)
 
 
 def flag_names(ds, var, by_index=True):
@@ -384,19 +399,12 @@ def qc_verdicts(ds):
 
 def iter_qc_verdicts(ds):
     """:func:`qc_verdicts` one station at a time."""
-    n = ds.sizes["station"]
-    if "qc_verdict_code" not in ds.variables:
-        yield from (None for _ in range(n))
-        return
-    texts = ds["qc_verdict"].values if "qc_verdict" in ds.variables else ("",) * n
-    for code, name, text in zip(ds["qc_verdict_code"].values.astype(int),
-                                flag_names(ds, "qc_verdict_code", by_index=False), texts):
-        if name == "none":
+    for row in _iter_coded(ds, "qc_verdict_code", "qc_verdict", by_index=False):
+        if row is None or row[1] == "none":
             yield None
             continue
-        text = str(text)
-        reasons = text.split(": ", 1)[1] if ": " in text else ""
-        yield {"verdict": name, "code": int(code), "reasons": reasons}
+        code, name, text = row
+        yield {"verdict": name, "code": code, "reasons": verdict_reasons(text)}
 
 
 def interval_words(ds):

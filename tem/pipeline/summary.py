@@ -3,6 +3,7 @@ from __future__ import annotations
 
 import math
 
+from ..io.models import verdict_reasons
 from ..qc.verdict import whole_minutes
 from .runner import STATION_STAGES
 
@@ -63,7 +64,7 @@ def summary_table(state, title=None):
         doi = f"{s['doi']:.0f}" if _finite(s.get("doi")) else "-"
         fit = s.get("verdict", "")
         fit_cell = f"[{_VERDICT_COLOUR.get(fit, 'white')}]{fit}[/]" if fit else "-"
-        reasons = s.get("verdict_text", "").split(": ", 1)[-1] if fit and fit != "fitted" else ""
+        reasons = verdict_reasons(s.get("verdict_text", "")) if fit and fit != "fitted" else ""
         # an unconverged posterior interval is a warning on the intervals, not on the fit
         # (docs/inversion.md, "Interval verdict"): said in the notes, the fit column unchanged
         interval = (f"[yellow]{s.get('interval_text', 'intervals unconverged')}[/]"

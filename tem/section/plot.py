@@ -139,9 +139,12 @@ def mark_verdicts(ax, grid, scale, yrange, column_edges=None):
     Failures (misfit, stalled) are greyed and cross-hatched, warnings
     (parameter at a bound, degenerate layer) dotted; columns whose
     ``qc_verdict_code`` is reoccupy are tinted and hatched with crosses.
+    Columns whose ``interval_verdict_code`` is unconverged (posterior
+    models whose sampling did not converge) are hatched in dark red.
     Every station that is not fitted is labelled with its verdict and chi2,
-    and every station whose QC verdict is not good with that verdict. Patches
-    have gid ``verdict-columns`` and ``qc-columns``, labels
+    every station whose QC verdict is not good with that verdict, and every
+    station with unconverged intervals says so. Patches have gid
+    ``verdict-columns``, ``qc-columns`` and ``interval-columns``, labels
     ``verdict-label-<station>``.
     """
     from .verdicts import QC_REOCCUPY
@@ -182,6 +185,17 @@ def mark_verdicts(ax, grid, scale, yrange, column_edges=None):
                 else "unknown"
             if code > 0:
                 statuses[k] = "\n".join(t for t in (statuses[k], f"QC {word}") if t)
+    if "station_interval_verdict_code" in grid:
+        codes = grid["station_interval_verdict_code"].values.astype(int)
+        if "interval_verdict_code" in grid and edges is not None:
+            cls = [3 if c >= 1 else 0 for c in grid["interval_verdict_code"].values]
+            mark_columns(ax, edges, cls, yrange, "interval-columns")
+        else:
+            cls = [3 if c >= 1 else 0 for c in codes]
+            mark_columns(ax, station_edges(sd, scale), cls, yrange, "interval-columns")
+        for k, code in enumerate(codes):
+            if code >= 1:
+                statuses[k] = "\n".join(t for t in (statuses[k], "unconverged") if t)
     label_stations(ax, sd * scale, list(zip(grid["station"].values.astype(str), statuses)),
                    yrange, "verdict-label-")
 
@@ -227,7 +241,10 @@ def section_figure(grid, *, below_doi, title=None, vmin=None, vmax=None, distanc
         The image has gid ``"resistivity"``; the DOI veil ``"doi-veil"`` and
         the DOI line ``"doi-line"``; columns made from a model that is not
         fitted ``"verdict-columns"``, columns made from a recording that
-        failed the evening QC ``"qc-columns"`` (see :func:`mark_verdicts`).
+        failed the evening QC ``"qc-columns"``, columns made from posterior
+        models whose sampling did not converge ``"interval-columns"`` (see
+        :func:`mark_verdicts`); then a caution under the title says how many
+        stations' sampling did not converge.
     """
     if below_doi not in BELOW_DOI_STYLES:
         raise input_error("below_doi", f"unknown style {below_doi!r}; valid: {', '.join(BELOW_DOI_STYLES)}")
@@ -261,14 +278,29 @@ def section_figure(grid, *, below_doi, title=None, vmin=None, vmax=None, distanc
     ax.set_xlabel(f"distance along profile ({unit})")
     if "station_distance" in grid:
         _station_labels(ax, grid["station_distance"].values, grid["station"].values, scale)
-    if "station_verdict_code" in grid or "station_qc_verdict_code" in grid:
+    if any(f"station_{v}_code" in grid for v in ("verdict", "qc_verdict", "interval_verdict")):
         mark_verdicts(ax, grid, scale, (ye[0], ye[-1]), column_edges=xe)
     cb = fig.colorbar(mesh, ax=ax, pad=0.01)
     cb.set_label("resistivity (ohm-m)")
     ax.legend(loc="lower right", fontsize=8, framealpha=0.8)
-    if title:
-        fig.suptitle(title)
+    caution = unconverged_caption(grid)
+    if title or caution:
+        fig.suptitle("\n".join(t for t in (title, caution) if t),
+                     fontsize="medium" if caution else "large")
     return fig
+
+
+def unconverged_caption(grid):
+    """One line saying how many of the section's stations come from sampling that did not
+    converge ("" when none did not, or the grid has no interval verdicts)."""
+    if "station_interval_verdict_code" not in grid:
+        return ""
+    codes = grid["station_interval_verdict_code"].values.astype(int)
+    bad = int((codes >= 1).sum())
+    if not bad:
+        return ""
+    return (f"caution: sampling unconverged at {bad} of {codes.size} stations (hatched): "
+            "their median and intervals are not yet the posterior's")
 
 
 def pseudo_section_figure(positions, axis, log10_rhoa, station_distance, station_labels,

@@ -328,7 +328,9 @@ def stitch_models(models, depth_step, *, order, lateral, vertical, max_depth=Non
         with verdicts in ``models``, ``verdict_code`` and ``chi2`` per column
         and ``station_verdict_code``, ``station_verdict``, ``station_chi2``;
         with evening QC verdicts in ``models``, ``qc_verdict_code`` per column
-        and ``station_qc_verdict_code``, ``station_qc_verdict``
+        and ``station_qc_verdict_code``, ``station_qc_verdict``; with
+        posterior interval verdicts, ``interval_verdict_code`` per column and
+        ``station_interval_verdict_code``, ``station_interval_verdict``
         (:mod:`tem.section.verdicts`).
     """
     import xarray as xr
@@ -407,10 +409,11 @@ def stitch_models(models, depth_step, *, order, lateral, vertical, max_depth=Non
             "model_kind": str(models.attrs.get("model_kind", "")),
         },
     )
-    from .verdicts import add_section_qc, add_section_verdicts
+    from .verdicts import add_section_intervals, add_section_qc, add_section_verdicts
     weights = _lateral_weights(s_sorted, pos, lateral, max_gap)[:3]
     add_section_verdicts(ds, models, idx, *weights)
     add_section_qc(ds, models, idx, *weights)
+    add_section_intervals(ds, models, idx, *weights)
     return ds
 
 

@@ -13,7 +13,7 @@ from __future__ import annotations
 
 import numpy as np
 
-__all__ = ["add_section_verdicts", "add_section_qc", "SEVERITY_RANK", "NOT_FITTED_CODES",
+__all__ = ["add_section_verdicts", "add_section_qc", "add_section_intervals", "SEVERITY_RANK", "NOT_FITTED_CODES",
            "FAILURE_CODES", "QC_REOCCUPY"]
 
 #: Severity rank of each verdict code (0 fitted, 1 misfit, 2 stalled, 3 at bound,
@@ -81,15 +81,39 @@ def add_section_qc(ds, models, order, left, right, w):
     column is interpolated from (reoccupy > check > good > none), else the
     nearest station's (as for the model verdicts).
     """
-    if "qc_verdict_code" not in models.variables:
-        return ds
-    attrs, code, text = _station_flags(models, "qc_verdict_code", "qc_verdict", order)
-    ds["station_qc_verdict_code"] = ("station", code, dict(
-        attrs, long_name="evening QC verdict on the station's recording"))
-    ds["station_qc_verdict"] = ("station", text, {"long_name": "evening QC verdict with its "
-                                                  "reasons, in words"})
-    pick = _worse_of_two(code.astype(int), left, right, w)     # codes rise with severity
-    ds["qc_verdict_code"] = ("distance", code[pick], dict(
-        attrs, long_name="evening QC verdict on the recordings the column is made from (the "
+    return _add_ranked(ds, models, order, (left, right, w), "qc_verdict", (
+        "evening QC verdict on the station's recording",
+        "evening QC verdict with its reasons, in words",
+        "evening QC verdict on the recordings the column is made from (the worse of two)"))
+
+
+def add_section_intervals(ds, models, order, left, right, w):
+    """Add the verdicts on posterior intervals to a section grid ``ds`` (in place; a no-op for
+    models without them, i.e. not from sampling).
+
+    Per station ``station_interval_verdict_code`` and ``station_interval_verdict``
+    (0 converged, 1 unconverged: the percentiles, the median the section
+    shows among them, are not yet the posterior's); per column
+    ``interval_verdict_code``, the worse of the two stations a column is
+    interpolated from, else the nearest station's.
+    """
+    return _add_ranked(ds, models, order, (left, right, w), "interval_verdict", (
+        "verdict on the station's posterior intervals",
+        "verdict on the station's posterior intervals, in words",
+        "verdict on the posterior intervals of the models the column is made from (the "
         "worse of two)"))
+
+
+def _add_ranked(ds, models, order, weights, name, long_names):
+    """Per station ``station_<name>_code`` and ``station_<name>``, per column ``<name>_code``
+    (the higher code of the two stations a column is interpolated from; codes rise with
+    severity), from the models' ``<name>_code`` and ``<name>``; a no-op without them."""
+    if f"{name}_code" not in models.variables:
+        return ds
+    attrs, code, text = _station_flags(models, f"{name}_code", name, order)
+    station_long, text_long, column_long = long_names
+    ds[f"station_{name}_code"] = ("station", code, dict(attrs, long_name=station_long))
+    ds[f"station_{name}"] = ("station", text, {"long_name": text_long})
+    pick = _worse_of_two(code.astype(int), *weights)
+    ds[f"{name}_code"] = ("distance", code[pick], dict(attrs, long_name=column_long))
     return ds
