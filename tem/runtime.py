@@ -311,25 +311,61 @@ def _partial_listener(ctx):
         t.join(timeout=2)
 
 
-def _run_windowed(executor, task, todo, reporter, done):
+def batch_size(executor, n_todo) -> int:
+    """Stations per task on a dask.distributed cluster: up to 4, while every worker thread
+    still gets 8 tasks or more (so the last task of a stage leaves a worker idle for at most a
+    few stations' time); 1 with a local process pool.
+
+    Every task costs the client (with a LocalCluster, the scheduler runs in it) about 10 ms
+    of CPU for scheduling, messages and its future (measured with py-spy on a 250-station
+    run, docs/scaling.md); on 2 cores shared with 2 workers that time is taken from them, so
+    a task carries several stations."""
+    if not hasattr(executor, "scheduler_info"):
+        return 1
+    try:
+        threads = max(1, sum(executor.nthreads().values()))
+    except Exception:  # noqa: BLE001 - a cluster that does not answer: one per task
+        return 1
+    return max(1, min(4, n_todo // (8 * threads)))
+
+
+def _guarded_batch(task, items, reporter=None):
+    """:func:`_guarded` for each ``(station, args)`` of ``items``, in order (one cluster task)."""
+    return [_guarded(task, sid, args, reporter) for sid, args in items]
+
+
+def _run_windowed(executor, task, todo, reporter, done, batch=None):
     """Submit ``todo`` to ``executor`` with at most :func:`in_flight` tasks pending; pass
-    each outcome to ``done`` as it finishes (a failed task fails its station only)."""
+    each outcome to ``done`` as it finishes (a failed task fails its stations only).
+
+    On a dask cluster a task carries ``batch`` stations (default :func:`batch_size`); their
+    outcomes are passed on one by one in the order of ``todo``."""
+    import itertools
+
     pending = {}
     queue = iter(todo)
     window = in_flight(executor)
+    dask = hasattr(executor, "scheduler_info")
+    batch = max(1, int(batch or batch_size(executor, len(todo))))
 
     def submit_next():
-        for sid, args in queue:
-            fut = executor.submit(_guarded, task, sid, _args(args), reporter)
-            pending[fut] = sid
-            return fut
-        return None
+        items = [(sid, _args(args)) for sid, args in itertools.islice(queue, batch)]
+        if not items:
+            return None
+        if dask:
+            # pure=False: a random key, so dask does not hash the arguments (a station's
+            # survey text and arrays) to name the task
+            fut = executor.submit(_guarded_batch, task, items, reporter, pure=False)
+        else:
+            fut = executor.submit(_guarded_batch, task, items, reporter)
+        pending[fut] = [sid for sid, _ in items]
+        return fut
 
     for _ in range(window):
         if submit_next() is None:
             break
     try:
-        if hasattr(executor, "scheduler_info"):            # dask.distributed.Client
+        if dask:
             from distributed import as_completed
             finished = as_completed(list(pending))
             for fut in finished:
@@ -348,19 +384,20 @@ def _run_windowed(executor, task, todo, reporter, done):
             fut.cancel()
 
 
-def _take(fut, sid, done):
-    """The outcome of one finished station task."""
+def _take(fut, sids, done):
+    """The outcomes of one finished task (the stations ``sids``)."""
     try:
-        oc = fut.result()
+        outcomes = fut.result()
     except TemOutputError:
         raise
     except Exception as exc:  # noqa: BLE001 - e.g. a killed worker process
-        oc = StationOutcome(sid, "failed", f"worker failed: {type(exc).__name__}: {exc}"
-                            .splitlines()[0])
+        text = f"worker failed: {type(exc).__name__}: {exc}".splitlines()[0]
+        outcomes = [StationOutcome(sid, "failed", text) for sid in sids]
     if hasattr(fut, "release"):     # a cluster keeps a result until its future is let go
         fut.release()
     del fut
-    done(oc)
+    for oc in outcomes:
+        done(oc)
 
 
 def _worker_init(pid: int, queue=None):

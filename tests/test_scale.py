@@ -272,3 +272,43 @@ def test_large_block_threshold_is_set_unless_the_user_set_one():
                           env=e, timeout=60).stdout.strip()
            for e in (env, dict(env, MALLOC_MMAP_THRESHOLD_="65536"))]
     assert out == ["True", "False"]
+
+
+def _square(sid, x):
+    """A station task for the batching test: fails on a negative input."""
+    from tem.runtime import StationOutcome
+
+    if x < 0:
+        raise ValueError(f"negative input {x}")
+    return StationOutcome(sid, "ok", info={"y": x * x})
+
+
+def test_cluster_tasks_carry_several_stations_and_fail_one_station_only():
+    # on a cluster a task carries up to 4 stations (each task costs the client's scheduler
+    # about 10 ms of CPU, docs/scaling.md); the outcomes are the same, station by station, and
+    # a station that fails inside a batch fails alone
+    from tem.pipeline.cluster import dask_client
+    from tem.runtime import _run_windowed, batch_size
+
+    class TwoThreads:
+        def scheduler_info(self):
+            return {}
+
+        def nthreads(self):
+            return {"a": 1, "b": 1}
+
+    assert [batch_size(TwoThreads(), n) for n in (1, 15, 16, 40, 250, 1000)] == [1, 1, 1, 2, 4, 4]
+    assert batch_size(object(), 1000) == 1                      # a local process pool
+    todo = [(f"S{k}", (f"S{k}", k - 3)) for k in range(11)]
+    with dask_client("local", 2) as client:
+        runs = {}
+        for batch in (1, 3):
+            seen = []
+            _run_windowed(client, _square, todo, None, seen.append, batch=batch)
+            runs[batch] = {oc.station: (oc.status, oc.info.get("y"), oc.message) for oc in seen}
+    assert runs[1] == runs[3]
+    assert sorted(runs[3]) == sorted(sid for sid, _ in todo)
+    assert runs[3]["S5"] == ("ok", 4, "")
+    failed = {sid for sid, (status, _, _) in runs[3].items() if status == "failed"}
+    assert failed == {"S0", "S1", "S2"}
+    assert runs[3]["S0"][2] == "ValueError: negative input -3"
