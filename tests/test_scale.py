@@ -220,7 +220,7 @@ def test_two_local_clusters_side_by_side_and_no_worker_profiler():
     # (docs/scaling.md)
     import dask
 
-    from tem.pipeline.cluster import dask_client, profiling_note
+    from tem.pipeline.cluster import LOCAL_QUIET, dask_client, profiling_note
 
     def profiling():
         return dask.config.get("distributed.worker.profile.enabled")
@@ -233,6 +233,11 @@ def test_two_local_clusters_side_by_side_and_no_worker_profiler():
         # samples, not dask's hour (about 180 B per 0.5 s sample, traced: docs/scaling.md)
         assert list(a.run(monitor_length).values()) == [240]
         assert a.run_on_scheduler(scheduler_monitor_length) == 240
+        # and their event loops' periodic work is spaced out (it competes with the workers
+        # for a small machine's cores; docs/scaling.md)
+        for key, value in LOCAL_QUIET.items():
+            assert list(a.run(lambda key=key: dask.config.get(key)).values()) == [value]
+            assert a.run_on_scheduler(lambda key=key: dask.config.get(key)) == value
         assert a.submit(sum, [1, 2]).result() == 3 and b.submit(sum, [3, 4]).result() == 7
 
 

@@ -51,6 +51,12 @@ def profiling_note(client) -> str:
             "False (docs/scaling.md)")
 
 
+#: dask settings of a ``--scheduler local`` cluster that cut its periodic work (above).
+LOCAL_QUIET = {"distributed.admin.tick.interval": "500ms",
+               "distributed.worker.memory.monitor-interval": "1s",
+               "distributed.admin.system-monitor.interval": "2s"}
+
+
 @contextlib.contextmanager
 def dask_client(scheduler: str, jobs: int):
     """A dask.distributed Client for ``scheduler`` (``"local"`` or an address)."""
@@ -70,6 +76,13 @@ def dask_client(scheduler: str, jobs: int):
     logs = {"distributed.admin.low-level-log-length": 50,
             "distributed.admin.system-monitor.log-length": 240}
     if scheduler == "local":
+        # A LocalCluster shares this machine's cores with the client, which runs its
+        # scheduler and the workers' nannies: their event loops' periodic work (a tick every
+        # 20 ms per server to detect a blocked loop, the nannies' memory checks every 100 ms,
+        # the system monitor every 0.5 s) cost the idle client 0.05 CPU-s per second,
+        # measured per thread; at a tick every 0.5 s, memory checks every second and samples
+        # every 2 s it is 0.01 (docs/scaling.md); the same settings reach the workers
+        logs.update(LOCAL_QUIET)
         # the workers' statistical profiler keeps a tree of call sites per second for an hour
         # (about 115 kB per station task here): off, so worker memory does not grow with the
         # survey; workers of a cluster started by hand: docs/scaling.md
