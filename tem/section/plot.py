@@ -86,7 +86,9 @@ def _runs(flags):
 COLUMN_MARKS = {
     1: ("model not fitted (misfit, stalled)", (0.45, 0.45, 0.45, 0.55), "0.15", "xx"),
     2: ("model flagged (bound, thin layer)", (1, 1, 1, 0.0), "0.3", ".."),
-    3: ("intervals unconverged (R-hat, ESS)", (1, 1, 1, 0.0), "#a4281b", "\\\\"),
+    # sparse and half-transparent: with every station unconverged it covers the whole section,
+    # which must stay readable under it (the caption above the section says it in words)
+    3: ("intervals unconverged (R-hat, ESS)", (1, 1, 1, 0.0), (0.64, 0.16, 0.11, 0.55), "\\"),
     4: ("recording failed QC: re-occupy", (0.36, 0.16, 0.52, 0.28), "#5b2a86", "+"),
 }
 
