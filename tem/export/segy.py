@@ -360,23 +360,26 @@ def _qc_line(grid) -> str:
     """Textual header line naming the stations whose recording failed the evening QC."""
     if "station_qc_verdict_code" not in grid:
         return "EVENING QC: NONE RECORDED"
-    bad = [sid for sid, c in zip(grid["station"].values.astype(str),
-                                 grid["station_qc_verdict_code"].values.astype(int))
-           if c >= QC_REOCCUPY]
-    if not bad:
-        return "EVENING QC: NO STATION TO RE-OCCUPY"
-    text = "EVENING QC REOCCUPY (DATA USE 2): " + ", ".join(bad)
-    return text if len(text) <= 76 else text[:72] + " ..."
+    return _stations_line(grid, "station_qc_verdict_code", QC_REOCCUPY,
+                          "EVENING QC REOCCUPY (DATA USE 2): ",
+                          "EVENING QC: NO STATION TO RE-OCCUPY")
 
 
 def _interval_line(grid) -> str:
     """Textual header line naming the stations whose posterior sampling did not converge."""
+    return _stations_line(grid, "station_interval_verdict_code", 1,
+                          "POSTERIOR UNCONVERGED (MEDIAN NOT FINAL): ",
+                          "POSTERIOR INTERVALS: ALL CONVERGED")
+
+
+def _stations_line(grid, var, worst_from, prefix, none_text) -> str:
+    """``prefix`` and the stations whose ``var`` code is ``worst_from`` or more (``none_text``
+    when none is), cut to the 76 characters of a textual header line."""
     bad = [sid for sid, c in zip(grid["station"].values.astype(str),
-                                 grid["station_interval_verdict_code"].values.astype(int))
-           if c >= 1]
+                                 grid[var].values.astype(int)) if c >= worst_from]
     if not bad:
-        return "POSTERIOR INTERVALS: ALL CONVERGED"
-    text = "POSTERIOR UNCONVERGED (MEDIAN NOT FINAL): " + ", ".join(bad)
+        return none_text
+    text = prefix + ", ".join(bad)
     return text if len(text) <= 76 else text[:72] + " ..."
 
 

@@ -160,12 +160,9 @@ def mark_verdicts(ax, grid, scale, yrange, column_edges=None):
         codes = grid["station_verdict_code"].values.astype(int)
         chi2 = grid["station_chi2"].values.astype(float) if "station_chi2" in grid else \
             np.full(codes.size, np.nan)
-        if "verdict_code" in grid and edges is not None:
-            cls = [0 if c <= 0 else (1 if c in (1, 2) else 2) for c in grid["verdict_code"].values]
-            mark_columns(ax, edges, cls, yrange, "verdict-columns")
-        else:
-            cls = [0 if c <= 0 else (1 if c in (1, 2) else 2) for c in codes]
-            mark_columns(ax, station_edges(sd, scale), cls, yrange, "verdict-columns")
+        _mark_verdict_columns(ax, grid, "verdict", edges, sd, scale, yrange,
+                              lambda c: 0 if c <= 0 else (1 if c in (1, 2) else 2),
+                              "verdict-columns")
         for k, code in enumerate(codes):
             status = "" if code <= 0 else (names[code].replace("_", "-") if code < len(names)
                                            else f"code {code}")
@@ -176,12 +173,8 @@ def mark_verdicts(ax, grid, scale, yrange, column_edges=None):
         values = [int(v) for v in np.asarray(
             grid["station_qc_verdict_code"].attrs.get("flag_values", []))]
         codes = grid["station_qc_verdict_code"].values.astype(int)
-        if "qc_verdict_code" in grid and edges is not None:
-            cls = [4 if c >= QC_REOCCUPY else 0 for c in grid["qc_verdict_code"].values]
-            mark_columns(ax, edges, cls, yrange, "qc-columns")
-        else:
-            cls = [4 if c >= QC_REOCCUPY else 0 for c in codes]
-            mark_columns(ax, station_edges(sd, scale), cls, yrange, "qc-columns")
+        _mark_verdict_columns(ax, grid, "qc_verdict", edges, sd, scale, yrange,
+                              lambda c: 4 if c >= QC_REOCCUPY else 0, "qc-columns")
         for k, code in enumerate(codes):
             word = names[values.index(code)] if code in values and len(names) == len(values) \
                 else "unknown"
@@ -189,17 +182,24 @@ def mark_verdicts(ax, grid, scale, yrange, column_edges=None):
                 statuses[k] = "\n".join(t for t in (statuses[k], f"QC {word}") if t)
     if "station_interval_verdict_code" in grid:
         codes = grid["station_interval_verdict_code"].values.astype(int)
-        if "interval_verdict_code" in grid and edges is not None:
-            cls = [3 if c >= 1 else 0 for c in grid["interval_verdict_code"].values]
-            mark_columns(ax, edges, cls, yrange, "interval-columns")
-        else:
-            cls = [3 if c >= 1 else 0 for c in codes]
-            mark_columns(ax, station_edges(sd, scale), cls, yrange, "interval-columns")
+        _mark_verdict_columns(ax, grid, "interval_verdict", edges, sd, scale, yrange,
+                              lambda c: 3 if c >= 1 else 0, "interval-columns")
         for k, code in enumerate(codes):
             if code >= 1:
                 statuses[k] = "\n".join(t for t in (statuses[k], "unconverged") if t)
     label_stations(ax, sd * scale, list(zip(grid["station"].values.astype(str), statuses)),
                    yrange, "verdict-label-")
+
+
+def _mark_verdict_columns(ax, grid, name, edges, sd, scale, yrange, mark_class, gid):
+    """Mark (:func:`mark_columns`, patches with gid ``gid``) the columns
+    of class ``mark_class(code)``: from the grid's per-column ``<name>_code`` when the columns'
+    ``edges`` are known, else each station's share of the profile from ``station_<name>_code``."""
+    if f"{name}_code" in grid and edges is not None:
+        codes, xe = grid[f"{name}_code"].values.astype(int), edges
+    else:
+        codes, xe = grid[f"station_{name}_code"].values.astype(int), station_edges(sd, scale)
+    mark_columns(ax, xe, [mark_class(c) for c in codes], yrange, gid)
 
 
 def veil_below_doi(ax, xe, doi_y, bottom, style="shade", lw=1.2):

@@ -105,7 +105,8 @@ def _mark_failed_qc(axes, models, idx, sd, scale, yrange, xrange):
     from ..io.models import qc_verdicts
     from .plot import mark_columns, station_edges
 
-    qcs = [qc_verdicts(models)[i] for i in idx]
+    every = qc_verdicts(models)
+    qcs = [every[i] for i in idx]
     words = ["" if q is None or q["verdict"] == "good" else q["verdict"] for q in qcs]
     cls = [4 if w == "reoccupy" else 0 for w in words]
     if any(cls):
@@ -123,7 +124,8 @@ def _mark_unconverged(axes, models, idx, sd, scale, yrange, xrange):
     from ..io.models import interval_words
     from .plot import label_stations, mark_columns, station_edges
 
-    words = [interval_words(models)[i] for i in idx]
+    every = interval_words(models)
+    words = [every[i] for i in idx]
     if "unconverged" not in words:
         return
     cls = [3 if w == "unconverged" else 0 for w in words]

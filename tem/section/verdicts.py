@@ -13,8 +13,8 @@ from __future__ import annotations
 
 import numpy as np
 
-__all__ = ["add_section_verdicts", "add_section_qc", "add_section_intervals", "SEVERITY_RANK", "NOT_FITTED_CODES",
-           "FAILURE_CODES", "QC_REOCCUPY"]
+__all__ = ["add_section_verdicts", "add_section_qc", "add_section_intervals", "SEVERITY_RANK",
+           "NOT_FITTED_CODES", "FAILURE_CODES", "QC_REOCCUPY"]
 
 #: Severity rank of each verdict code (0 fitted, 1 misfit, 2 stalled, 3 at bound,
 #: 4 degenerate layer; -1 none): higher is worse.
