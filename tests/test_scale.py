@@ -96,8 +96,21 @@ def _kill_when(proc, probe):
     children = _descendants(proc.pid)
     proc.send_signal(signal.SIGKILL)
     proc.wait()
-    time.sleep(5.0)            # no worker outlives its parent by more than 5 s
-    alive = [c for c in children if c.is_running() and c.status() != psutil.STATUS_ZOMBIE]
+
+    def living():
+        alive = []
+        for c in children:
+            try:
+                if c.is_running() and c.status() != psutil.STATUS_ZOMBIE:
+                    alive.append(c)
+            except psutil.NoSuchProcess:
+                pass
+        return alive
+
+    deadline = time.monotonic() + 5.0      # no worker outlives its parent by more than 5 s
+    while living() and time.monotonic() < deadline:
+        time.sleep(0.05)
+    alive = living()
     assert not alive, [c.cmdline() for c in alive]
 
 

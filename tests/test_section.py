@@ -211,3 +211,38 @@ def test_line_csv_refuses_non_finite_vertex(tmp_path):
     p.write_text("x,y\n0,0\n1000,inf\n")
     with pytest.raises(TemInputError, match=r"line\.csv: line 3: y: must be finite"):
         read_line_csv(p)
+
+
+@pytest.mark.parametrize("at", ["top", "bottom"])
+def test_station_labels_never_overlap_nor_leave_the_axes(at, tmp_path):
+    # Twelve stations 1 km apart whose labels are wider than a station's share of the
+    # profile, and labels at both ends of it: after drawing (the layout runs at draw time,
+    # once the axes have their final size) no two label boxes overlap and every box is
+    # inside the axes (plain geometry of the drawn boxes; no external source needed).
+    from tem.section.plot import _new_figure, label_stations
+
+    fig = _new_figure(8, 4)
+    ax = fig.add_subplot()
+    ax.set_xlim(0, 11)
+    ax.set_ylim(4000, 0)
+    xs = np.arange(12.0)
+    words = ["degenerate-layer\nchi2 0.7\nunconverged", "unconverged", "QC reoccupy"]
+    labels = [(f"EM{k + 1:02d}", words[k % 3] if k != 5 else "") for k in range(12)]
+    label_stations(ax, xs, labels, (0.0, 4000.0), "lab-", at=at)
+    fig.colorbar(ax.pcolormesh([[1, 2]], cmap="viridis"), ax=ax, label="x (unit)")
+    fig.savefig(tmp_path / "labels.png")            # draws: the labels are laid out
+    renderer = fig.canvas.get_renderer()
+    texts = [t for t in ax.texts if str(t.get_gid()).startswith("lab-")]
+    assert len(texts) == 11
+    boxes = [t.get_bbox_patch().get_window_extent(renderer) for t in texts]
+    axbox = ax.get_window_extent(renderer)
+    for b in boxes:
+        assert axbox.x0 - 0.5 <= b.x0 and b.x1 <= axbox.x1 + 0.5
+        assert axbox.y0 - 0.5 <= b.y0 and b.y1 <= axbox.y1 + 0.5
+    for i in range(len(boxes)):
+        for j in range(i + 1, len(boxes)):
+            assert not boxes[i].overlaps(boxes[j]), (texts[i].get_gid(), texts[j].get_gid())
+    # a second draw gives the same places (the layout starts from the anchors each time)
+    first = [t.get_position() for t in texts]
+    fig.savefig(tmp_path / "labels2.png")
+    np.testing.assert_allclose([t.get_position() for t in texts], first, rtol=1e-3)

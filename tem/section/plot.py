@@ -10,6 +10,7 @@ or left blank and hatched (``"hide"``). Every figure is returned as a
 from __future__ import annotations
 
 import numpy as np
+from matplotlib.artist import Artist
 from matplotlib.backends.backend_agg import FigureCanvasAgg
 from matplotlib.colors import LogNorm
 from matplotlib.figure import Figure
@@ -121,6 +122,7 @@ def label_stations(ax, xs, labels, yrange, gid_prefix, color="k", at="top"):
     top, bottom = yrange
     y, va = (top + 0.04 * (bottom - top), "top") if at == "top" else \
         (bottom - 0.04 * (bottom - top), "bottom")
+    texts = []
     for x, (sid, label) in zip(xs, labels):
         if not label:
             continue
@@ -128,6 +130,46 @@ def label_stations(ax, xs, labels, yrange, gid_prefix, color="k", at="top"):
                       fontsize=7, zorder=4, color=color,
                       bbox=dict(boxstyle="round,pad=0.2", fc="white", ec="0.3", alpha=0.85))
         txt.set_gid(f"{gid_prefix}{sid}")
+        txt.set_in_layout(False)        # kept inside the axes by _LabelRows
+        texts.append(txt)
+    if texts:
+        ax.add_artist(_LabelRows(texts, downward=at == "top"))
+
+
+class _LabelRows(Artist):
+    """Lays out station labels each time the figure is drawn (after the layout engine has
+    sized the axes): a label that would leave the axes is moved in along the profile, and one
+    that would overlap a neighbour goes to the next row (further into the section), so no
+    label hides another. Draws nothing itself; its zorder puts it before the labels."""
+
+    def __init__(self, texts, downward):
+        super().__init__()
+        self.texts, self.downward = texts, downward
+        self.anchors = [t.get_position() for t in texts]
+        self.set_zorder(min(t.get_zorder() for t in texts) - 0.01)
+        self.set_in_layout(False)
+
+    def draw(self, renderer):
+        ax = self.axes
+        box = ax.get_window_extent(renderer)
+        to_data = ax.transData.inverted()
+        gap = 2.0 * renderer.points_to_pixels(1.0)
+        placed = []
+        for t, (x, y) in zip(self.texts, self.anchors):
+            t.set_position((x, y))
+            t.update_bbox_position_size(renderer)
+            e = t.get_bbox_patch().get_window_extent(renderer)
+            dx = max(0.0, box.x0 - e.x0) - max(0.0, e.x1 - box.x1)
+            placed.append((e.x0 + dx, e.x1 + dx, e.height, t, x, y, dx))
+        row_ends, height = [], max(p[2] for p in placed) + gap
+        for x0, x1, _, t, x, y, dx in sorted(placed, key=lambda p: p[0]):
+            row = next((k for k, end in enumerate(row_ends) if x0 > end + gap), len(row_ends))
+            if row == len(row_ends):
+                row_ends.append(x1)
+            row_ends[row] = x1
+            px, py = ax.transData.transform((x, y))
+            dy = -row * height if self.downward else row * height
+            t.set_position(tuple(to_data.transform((px + dx, py + dy))))
 
 
 def mark_verdicts(ax, grid, scale, yrange, column_edges=None):
