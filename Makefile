@@ -18,7 +18,7 @@ demo: $(STAMP)
 	$(BIN)/tem demo --out demo-output
 
 test: $(STAMP)
-	MPLBACKEND=Agg $(BIN)/python -m pytest -q -n 2 -p no:cacheprovider --durations=12
+	MPLBACKEND=Agg $(BIN)/python -m pytest -q -n 2 --dist loadfile -p no:cacheprovider --durations=12
 
 bench: $(STAMP)
 	$(BIN)/python -m pip install -q -e '.[test,bench]'   # SimPEG, the forward benchmark's peer
