@@ -14,6 +14,7 @@ import sys
 from pathlib import Path
 
 from ..errors import input_error
+from ..io.checks import real_path
 
 __all__ = ["add_out", "add_run_options", "input_files", "default_jobs", "stage_context",
            "finish", "not_fitted_line", "verdict_table", "MAX_JOBS"]
@@ -73,7 +74,7 @@ def input_files(items, option, pattern="*.nc"):
             raise input_error(option, "no such file or folder", p)
     seen = {}
     for f in files:
-        if f.stem in seen and seen[f.stem].resolve() != f.resolve():
+        if f.stem in seen and real_path(seen[f.stem]) != real_path(f):
             raise input_error(option, f"two inputs named {f.stem} ({seen[f.stem]} and {f}); "
                               "products are named after their inputs", f)
         seen[f.stem] = f

@@ -1,6 +1,7 @@
 """tem decays: gated soundings -> decay CSV + system TOML (the format 'tem import' reads)."""
 from __future__ import annotations
 
+from ..io.checks import real_path
 from . import common
 
 HELP = "write gated soundings as a decay CSV and a system TOML (the import format)"
@@ -23,10 +24,10 @@ def run(args) -> int:
 
     files = common.input_files(args.gated, "gated")
     for target in (args.csv, args.system):
-        if any(Path(target).resolve() == Path(f).resolve() for f in files):
+        if any(real_path(target) == real_path(f) for f in files):
             raise input_error("--csv" if target == args.csv else "--system",
                               "would overwrite an input file", target)
-    if Path(args.csv).resolve() == Path(args.system).resolve():
+    if real_path(args.csv) == real_path(args.system):
         # the system TOML was written over the decay CSV just written (exit 0, decays lost)
         raise input_error("--system", "same file as --csv; give two files", args.system)
     csv_path, toml_path = write_decays(files, args.csv, args.system)

@@ -1,6 +1,7 @@
 """tem invert: gated soundings -> layered models (smooth or few-layer; laterally constrained)."""
 from __future__ import annotations
 
+from ..io.checks import real_path
 from . import common
 
 HELP = "1D inversion of gated soundings (Occam smooth, few-layer, laterally constrained)"
@@ -65,7 +66,7 @@ def qc_table(option, files):
         if not path.is_file():
             raise input_error("--qc", "not found", path)
         return path
-    folders = {Path(f).resolve().parent for f in files}
+    folders = {real_path(f).parent for f in files}
     if len(folders) != 1:
         return None
     folder = folders.pop()

@@ -4,6 +4,7 @@ from __future__ import annotations
 from pathlib import Path
 
 from ..errors import input_error
+from ..io.checks import real_path
 from . import common
 
 HELP = "stack each station's raw recordings into half-period transients with errors"
@@ -43,7 +44,7 @@ def run(args) -> int:
         ids = [s for s in ids if s in want]
     inputs = [Path(args.survey)] + [survey.path(f) for s in survey.stations for r in s.receivers
                                     for f in r.files]
-    read_only = {Path(args.survey).resolve().parent} | {p.resolve().parent for p in inputs[1:]}
+    read_only = {real_path(args.survey).parent} | {real_path(p).parent for p in inputs[1:]}
     check_output(args.out, ["stack"], inputs=inputs, read_only=read_only)
     with common.stage_context(args, "stack", len(ids)) as ctx:
         res = stack_run(settings, survey, ids, args.out, ctx, survey_file=args.survey)

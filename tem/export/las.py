@@ -57,6 +57,9 @@ def station_log(depth_top, resistivity, log10_std, doi, step, bottom):
     if not step > 0:
         raise input_error("step", f"depth step must be positive, got {step}")
     n = int(np.floor(bottom / step + 1e-9)) + 1
+    if n > 1_000_000:
+        raise input_error("las_step", f"{n} depth samples to {bottom:g} m (at most 1000000); "
+                          "choose a larger step")
     depth = np.arange(n) * step
     top = np.asarray(depth_top, float)[None, :]
     res = layer_values(top, np.asarray(resistivity, float)[None, :], depth)[0]

@@ -165,6 +165,34 @@ def point(value, field, file=None) -> tuple:
     return (number(value[0], field, file, maximum=lim), number(value[1], field, file, maximum=lim))
 
 
+def regular_file(path, field: str, file=None) -> None:
+    """Refuse, before it is opened, a path that is neither a regular file nor a folder: a
+    named pipe (FIFO) would block the read for ever, a device may never end. A missing
+    path and a folder are left to the caller, which names them in its own words; a path
+    that cannot be looked up (a symbolic link loop, no permission) is refused here."""
+    import os
+    import stat
+
+    try:
+        mode = os.stat(path).st_mode
+    except FileNotFoundError:
+        return
+    except (OSError, ValueError) as exc:
+        raise input_error(field, f"cannot read ({getattr(exc, 'strerror', None) or type(exc).__name__})",
+                          file or path) from None
+    if not (stat.S_ISREG(mode) or stat.S_ISDIR(mode)):
+        raise input_error(field, "not a regular file (a pipe, socket or device); give the file",
+                          file or path)
+
+
+def real_path(path) -> Path:
+    """The absolute path with symbolic links resolved, as ``Path.resolve()``, but a link loop
+    gives the path as it is instead of raising (the loop is reported when the file is read)."""
+    import os
+
+    return Path(os.path.realpath(path))
+
+
 def read_capped(fh, max_bytes: int) -> bytes:
     """At most ``max_bytes + 1`` bytes of a binary file object (one more than allowed tells a
     file too large), read in pieces of 1 MiB: ``fh.read(n)`` allocates ``n`` bytes first, so
@@ -183,6 +211,7 @@ def read_text(path, field: str, max_bytes: int = MAX_TEXT_BYTES) -> str:
     """A whole UTF-8 text file; refuses a missing file, a folder, a huge file, non-UTF-8
     bytes and NUL characters."""
     path = Path(path)
+    regular_file(path, field)
     try:
         with open(path, "rb") as fh:
             data = read_capped(fh, max_bytes)
@@ -323,6 +352,7 @@ def open_netcdf(path, field: str, max_elements: int = MAX_ELEMENTS):
     path = Path(path) if not hasattr(path, "read") else path
     name = path if isinstance(path, Path) else "netCDF"
     if isinstance(path, Path):
+        regular_file(path, field)
         if not path.exists():
             raise input_error(field, "file not found", path)
         if path.is_dir():

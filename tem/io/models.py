@@ -231,6 +231,7 @@ def check_model_values(ds, file=None):
     checks.variable(ds, "thickness", sl, file, positive=True, maximum=lim["thickness"],
                     allow_nan=True)
     checks.variable(ds, "depth_top", sl, file, minimum=0.0, maximum=lim["depth"], allow_nan=True)
+    _check_layer_geometry(ds, ids, file)
     checks.variable(ds, "log10_res_std", sl, file, minimum=0.0, maximum=1e30, allow_nan=True)
     checks.variable(ds, "doi", st, file, minimum=0.0, maximum=lim["depth"], allow_nan=True)
     checks.variable(ds, "chi2", st, file, minimum=0.0, maximum=1e30, allow_nan=True)
@@ -243,6 +244,44 @@ def check_model_values(ds, file=None):
         raise input_error("model_kind", f"unknown kind {checks.show(kind)}; valid: "
                           f"{', '.join(MODEL_KINDS)}", file)
     return ds
+
+
+def _check_layer_geometry(ds, ids, file=None):
+    """Each station's layers are one column from the surface down: resistivity given for
+    its first n layers and missing (NaN padding) after them, a layer top exactly where a
+    resistivity is, tops increasing with depth, and each top the one above plus its
+    thickness (to 1e-6 of the depth). A hand-edited file that breaks this would lose a
+    layer in the exports or draw a section from a column that is not one."""
+    res = np.asarray(ds["resistivity"].values, float)
+    top = np.asarray(ds["depth_top"].values, float)
+    h = np.asarray(ds["thickness"].values, float)
+    given = np.isfinite(res)
+    n = given.sum(axis=1)
+    prefix = np.arange(res.shape[1])[None, :] < n[:, None]
+    for i in np.flatnonzero((given != prefix).any(axis=1))[:1]:
+        k = int(np.flatnonzero(given[i] != prefix[i])[0])
+        raise input_error("resistivity", f"station {ids[i]}: layer {k} has no resistivity but a "
+                          "layer below it has one (missing values may only follow the last "
+                          "layer)", file)
+    for i in np.flatnonzero((np.isfinite(top) != given).any(axis=1))[:1]:
+        k = int(np.flatnonzero(np.isfinite(top[i]) != given[i])[0])
+        what = "a resistivity but no top" if given[i, k] else "a top but no resistivity"
+        raise input_error("depth_top", f"station {ids[i]}: layer {k} has {what}", file)
+    for i in range(res.shape[0]):
+        m = int(n[i])
+        t = top[i, :m]
+        step = np.diff(t)
+        if np.any(step <= 0):
+            k = int(np.flatnonzero(step <= 0)[0])
+            raise input_error("depth_top", f"station {ids[i]}: layer tops not increasing with "
+                              f"depth (layer {k} at {t[k]:g} m, layer {k + 1} at {t[k + 1]:g} m)",
+                              file)
+        hk = h[i, :m - 1]
+        bad = np.isfinite(hk) & (np.abs(t[:-1] + hk - t[1:]) > 1e-6 * np.maximum(1.0, t[1:]))
+        if bad.any():
+            k = int(np.flatnonzero(bad)[0])
+            raise input_error("thickness", f"station {ids[i]}: layer {k} is {hk[k]:g} m thick "
+                              f"but the next top is {t[k + 1] - t[k]:g} m below its top", file)
 
 
 def text_column(texts):

@@ -33,6 +33,7 @@ import socket
 from pathlib import Path
 
 from ..errors import input_error
+from .checks import real_path
 
 __all__ = ["Project", "STAGE_FOLDERS", "check_output", "ProjectLock", "LOCK_NAME"]
 
@@ -110,18 +111,18 @@ def check_output(out, stages, inputs=(), read_only=(), planned=(), option="--out
     option : str
         What the user typed for the output (named in the error).
     """
-    o = Path(out).resolve()
+    o = real_path(out)
     if o.exists() and not o.is_dir():
         raise input_error(option, "exists and is not a folder", out)
     for d in read_only:
-        d = Path(d).resolve()
+        d = real_path(d)
         if _inside(o, d):
             raise input_error(option, f"is or lies inside the input folder {d} (raw data and the "
                               "survey are read-only); choose a separate output folder", out)
     folders = [o / f for s in stages for f in STAGE_FOLDERS.get(s, ())]
-    targets = {(o / p).resolve() for p in planned} | {o / "run.json", o / "report.html"}
+    targets = {real_path(o / p) for p in planned} | {o / "run.json", o / "report.html"}
     for f in inputs:
-        f = Path(f).resolve()
+        f = real_path(f)
         if f == o or _inside(o, f) and f.is_file():
             raise input_error(option, f"is the input {f}; choose a separate output folder", out)
         if f in targets or any(_inside(f, d) for d in folders):

@@ -346,6 +346,7 @@ def open_recording(path, format: str | None = None, column: int = 0,
     ``channel`` selects a MiniSEED channel (code or NET.STA.LOC.CHA id).
     """
     path = Path(path)
+    checks.regular_file(path, "file")
     if format is not None:
         if format not in FORMATS:
             raise input_error("format", f"unknown {format!r}; valid: {', '.join(FORMATS)}", path)

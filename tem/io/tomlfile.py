@@ -5,7 +5,7 @@ import tomllib
 from pathlib import Path
 
 from ..errors import input_error
-from .checks import decode_text, read_capped
+from .checks import decode_text, read_capped, regular_file
 
 __all__ = ["read_toml", "parse_toml"]
 
@@ -23,6 +23,7 @@ def read_toml(path, what: str, file=None) -> dict:
     digits and arrays nested beyond Python's recursion limit.
     """
     path = Path(path)
+    regular_file(path, what)
     try:
         with open(path, "rb") as fh:
             data = read_capped(fh, MAX_TOML_BYTES)

@@ -17,6 +17,7 @@ import json
 from pathlib import Path
 
 from .. import __version__
+from ..io.checks import real_path
 from ..provenance import file_sha256
 
 __all__ = ["Checksums", "fingerprint", "station_survey_text", "reusable", "changed_products"]
@@ -40,7 +41,7 @@ class Checksums:
         were removed). Raising here would end the whole run in a traceback.
         """
         p = Path(path)
-        key = str(p.resolve())
+        key = str(real_path(p))
         try:
             st = p.stat()
             if not p.is_file():
@@ -62,7 +63,7 @@ class Checksums:
 
     def forget(self, path):
         """Drop what is known of ``path`` (it was just written)."""
-        key = str(Path(path).resolve())
+        key = str(real_path(path))
         self.table.pop(key, None)
         self.previous.pop(key, None)
 

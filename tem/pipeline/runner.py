@@ -24,6 +24,7 @@ from pathlib import Path
 
 from .. import __version__
 from ..errors import input_error
+from ..io.checks import real_path
 from ..io.project import Project, ProjectLock, check_output
 from ..io.spool import Spool, SpooledDict, json_chunks, spool_record
 from ..provenance import stage_record
@@ -185,8 +186,8 @@ def _user_inputs(survey, survey_file, settings):
     files = [Path(survey_file)] + [survey.path(f) for s in survey.stations for r in s.receivers
                                    for f in r.files]
     files += [Path(p) for p in (settings["section"].line, settings["export"].velocity) if p]
-    folders = {Path(survey_file).resolve().parent}
-    folders |= {survey.path(f).resolve().parent for s in survey.stations for r in s.receivers
+    folders = {real_path(survey_file).parent}
+    folders |= {real_path(survey.path(f)).parent for s in survey.stations for r in s.receivers
                 for f in r.files}
     return files, folders
 
@@ -475,7 +476,7 @@ def _run_locked(survey, survey_file, settings, project, start, end, jobs, consol
                spool, force=STAGES[start:] if start > 0 else ())
     t_run = time.perf_counter()
     state.update({"tem_version": __version__,
-                  "survey": {"file": str(survey_file.resolve()), "sha256": run.sums.of(survey_file),
+                  "survey": {"file": str(real_path(survey_file)), "sha256": run.sums.of(survey_file),
                              "name": survey.name},
                   "parameters": {k: v.as_dict() for k, v in settings.items()},
                   "last_run": {"from": STAGES[start], "stages": list(STAGES[start:end]),

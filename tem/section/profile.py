@@ -41,6 +41,10 @@ __all__ = [
 ]
 
 LATERAL = ("linear", "nearest")
+#: Largest depth axis of a section (samples per column) and largest grid (columns x samples):
+#: 1 m steps to 100 km; a grid of 5e7 values is 0.4 GB per float64 array (limits of ours).
+MAX_SAMPLES = 100_000
+MAX_GRID = 50_000_000
 
 
 # ---------------------------------------------------------------- geometry
@@ -367,6 +371,10 @@ def stitch_models(models, depth_step, *, order, lateral, vertical, max_depth=Non
         if not max_depth > 0:
             raise input_error("max_depth", f"must be positive, got {max_depth}")
         nz = int(np.floor(max_depth / depth_step + 1e-9)) + 1
+        if nz > MAX_SAMPLES or nz * max(len(pos), 1) > MAX_GRID:
+            raise input_error("depth_step", f"{nz} samples per column over {max_depth:g} m (at "
+                              f"most {MAX_SAMPLES} and {MAX_GRID} in the section); choose a "
+                              "larger depth_step or a smaller max_depth")
         axis = np.arange(nz) * depth_step
     surface = np.interp(pos, s_sorted, sz[idx])
     if vertical == "depth":

@@ -78,7 +78,10 @@ def _row_stats_acc(r, c, acc):  # pragma: no cover - compiled
 
 @nb.njit(cache=True)
 def _clipped(v, full_scale):  # pragma: no cover - compiled
-    return full_scale > 0 and abs(np.float64(v)) >= full_scale
+    # an infinite sample is corrupt, not a sample at the rail: it stays in the row's mean,
+    # which becomes non-finite, and the record is refused (NaN or infinite value)
+    a = abs(np.float64(v))
+    return full_scale > 0 and a >= full_scale and a < np.inf
 
 
 @nb.njit(cache=True)

@@ -167,6 +167,8 @@ class RecordingSource(WindowSource):
         mask = None
         if self._fs and (c.max() >= self._fs or c.min() <= -self._fs):     # both rails
             mask = np.abs(c) >= self._fs
+            if c.dtype.kind == "f":
+                mask &= np.isfinite(c)      # an infinite sample is corrupt, refused, not clipped
         out = c.astype(np.float64)
         out *= self._vpc
         return out, mask
