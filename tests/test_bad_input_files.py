@@ -5,7 +5,7 @@ other stations finished and the raw folder untouched.
 - a named pipe (FIFO) as a recording or as its sidecar: the read blocked for ever;
 - a symbolic link loop as a recording: a RuntimeError traceback from resolving the path;
 - an infinite sample in a float recording: counted as a clipped sample, the record stacked
-  and the run exited 0;
+  and the run exited 0; samples of 1e300 V: numpy overflow warnings and exit 0;
 - a models file with a layer's resistivity or top removed, tops out of order or a thickness
   that disagrees with the tops: accepted, and a layer vanished from the exports;
 - a section depth step of a micrometre: a 7 TiB allocation and a MemoryError traceback.
@@ -58,6 +58,10 @@ def _loop(path):
     path.symlink_to(path.name)          # a link to itself
 
 
+def _huge(path):
+    np.save(path, np.load(path).astype(np.float64) * 1e300)
+
+
 def _infinite(path):
     a = np.load(path).astype(np.float64)
     a[a.size // 2] = np.inf
@@ -70,6 +74,7 @@ def _infinite(path):
     (_fifo, "ex.toml", "sidecar: not a regular file"),
     (_loop, "ex.npy", "file: cannot read"),
     (_infinite, "ex.npy", "samples: NaN or infinite value at sample"),
+    (_huge, "ex.npy", "samples: "),     # then "<value> V at sample i, beyond any receiver's input"
 ])
 def test_a_recording_that_cannot_be_read_fails_its_station_in_one_line(day, tmp_path, edit, name,
                                                                        message):
@@ -85,6 +90,8 @@ def test_a_recording_that_cannot_be_read_fails_its_station_in_one_line(day, tmp_
     assert rc == 2, (stdout, err)
     assert "Traceback" not in err, err
     assert f"{target}: {message}" in err, err
+    assert edit is not _huge or "beyond any receiver's input (1e+06 V)" in err, err
+    assert "Warning" not in err, err
     assert (out / "stacked" / "EM05.nc").is_file()          # the other station finished
     assert not (out / "stacked" / "EM06.nc").exists()
     assert _digest(copy) == before

@@ -19,6 +19,11 @@ from .stacking import (RecordingSource, StackResult, StackSettings, clip_level, 
 
 __all__ = ["detect_switch_times", "ChannelStack", "timing_for_station", "stack_station"]
 
+#: Largest magnitude (V at the logger) taken for a sample: loggers' inputs are volts to
+#: tens of volts; a million volts is no recording but wrong units or a corrupt file (common
+#: practice, no source; the limit is set far above any input so that it refuses only that).
+MAX_VOLTS = 1e6
+
 
 # ---------------------------------------------------------------------------- timing
 def detect_switch_times(current, fs: float, half_period: float, ramp_off: float,
@@ -167,6 +172,11 @@ def stack_station(survey, station, settings: StackSettings = StackSettings(), pr
         if not np.isfinite(probe).all():
             bad = int(np.flatnonzero(~np.isfinite(probe))[0]) + e0
             raise input_error("samples", f"NaN or infinite value at sample {bad}", rec.file_at(bad))
+        if np.abs(probe).max() > MAX_VOLTS:
+            bad = int(np.argmax(np.abs(probe))) + e0
+            raise input_error("samples", f"{probe[bad - e0]:.3g} V at sample {bad}, beyond any "
+                              f"receiver's input ({MAX_VOLTS:g} V): wrong volts_per_count or gain, "
+                              "or a corrupt file", rec.file_at(bad))
         dead = bool(np.ptp(rec.counts(e0, e0 + 2 * m)) <= 1)
         raw_rms = float(np.std(probe))
         tick = None
