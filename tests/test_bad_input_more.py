@@ -529,6 +529,12 @@ def test_qc_table_bytes(small_day, tmp_path, data, message):
     (lambda s: s["stages"]["stack"].update(inputs={"a": 1}), "stages.stack.inputs: not a list"),
     (lambda s: s.update(checksums=[1, 2]), "checksums: not a table"),
     (lambda s: s["stages"].update(gate="ok"), "stages.gate: not a table"),
+    # these passed and were written back as they were, the record no longer one of tem's
+    (lambda s: s["stages"]["stack"].update(outputs=5), "stages.stack.outputs: not a list"),
+    (lambda s: s["stages"]["stack"].update(failed=["EM01"]), "stages.stack.failed: not text"),
+    (lambda s: s["stages"]["gate"].update(parameters="x"), "stages.gate.parameters: not a table"),
+    (lambda s: s.update(survey="zzz"), "survey: not a table"),
+    (lambda s: s.update(parameters=[1]), "parameters: not a table"),
 ])
 def test_hand_damaged_run_record_is_refused_in_one_line(tmp_path, edit, field):
     """A run.json whose per-station parts were damaged by hand: `tem run --from` refuses it in

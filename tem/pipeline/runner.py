@@ -93,19 +93,25 @@ def read_run(project) -> dict:
 def _check_record_parts(state, path):
     """The parts of a run record the runner reads have their types (a hand-damaged record is
     refused in one line, not met as a traceback later)."""
-    parts = [(key, state.get(key), dict) for key in ("stations", "checksums")]
+    parts = [(key, state.get(key), dict) for key in ("stations", "checksums", "survey",
+                                                     "parameters", "last_run")]
     for stage, rec in state["stages"].items():
         if not isinstance(rec, dict):
             raise input_error(f"stages.{stage}", "not a table", path)
         parts += [(f"stages.{stage}.stations", rec.get("stations"), dict),
                   (f"stages.{stage}.inputs", rec.get("inputs"), list),
-                  (f"stages.{stage}.checksums", rec.get("checksums"), dict)]
+                  (f"stages.{stage}.checksums", rec.get("checksums"), dict),
+                  (f"stages.{stage}.outputs", rec.get("outputs"), list),
+                  (f"stages.{stage}.notes", rec.get("notes"), list),
+                  (f"stages.{stage}.parameters", rec.get("parameters"), dict),
+                  (f"stages.{stage}.failed", rec.get("failed"), str)]
         stations = rec.get("stations")
         if isinstance(stations, dict):
             parts += [(f"stages.{stage}.stations.{sid}", r, dict) for sid, r in stations.items()]
     for field, value, kind in parts:
         if value is not None and not isinstance(value, kind):
-            raise input_error(field, f"not a {'table' if kind is dict else 'list'}", path)
+            raise input_error(field, "not " + {dict: "a table", list: "a list", str: "text"}[kind],
+                              path)
     for stage, rec in state["stages"].items():
         for sid, r in (rec.get("stations") or {}).items():
             if not isinstance(r.get("status"), str):
