@@ -5,7 +5,8 @@ other stations finished and the raw folder untouched.
 - a named pipe (FIFO) as a recording or as its sidecar: the read blocked for ever;
 - a symbolic link loop as a recording: a RuntimeError traceback from resolving the path;
 - an infinite sample in a float recording: counted as a clipped sample, the record stacked
-  and the run exited 0; samples of 1e300 V: numpy overflow warnings and exit 0;
+  and the run exited 0; samples of 1e300 V: numpy overflow warnings and exit 0; bytes
+  after the samples an .npy header promises: ignored;
 - a models file with a layer's resistivity or top removed, tops out of order or a thickness
   that disagrees with the tops: accepted, and a layer vanished from the exports;
 - a section depth step of a micrometre: a 7 TiB allocation and a MemoryError traceback.
@@ -62,6 +63,11 @@ def _huge(path):
     np.save(path, np.load(path).astype(np.float64) * 1e300)
 
 
+def _trailing(path):
+    with open(path, "ab") as fh:
+        fh.write(b"\0" * 1000)
+
+
 def _infinite(path):
     a = np.load(path).astype(np.float64)
     a[a.size // 2] = np.inf
@@ -74,7 +80,8 @@ def _infinite(path):
     (_fifo, "ex.toml", "sidecar: not a regular file"),
     (_loop, "ex.npy", "file: cannot read"),
     (_infinite, "ex.npy", "samples: NaN or infinite value at sample"),
-    (_huge, "ex.npy", "samples: "),     # then "<value> V at sample i, beyond any receiver's input"
+    (_huge, "ex.npy", "samples: "),
+    (_trailing, "ex.npy", "data: 1000 bytes after the last of the"),     # then "<value> V at sample i, beyond any receiver's input"
 ])
 def test_a_recording_that_cannot_be_read_fails_its_station_in_one_line(day, tmp_path, edit, name,
                                                                        message):

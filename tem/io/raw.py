@@ -220,6 +220,10 @@ def _npy_open(path, column: int = 0, channel=None) -> Recording:
                           f"holds {have}", path)
     if n == 0:
         raise input_error("data", "no samples", path)
+    if size > need:
+        raise input_error("data", f"{checks.show(size - need)} bytes after the last of the "
+                          f"{checks.show(n)} samples the header promises (two files joined, or "
+                          "a header that does not describe the data?)", path)
 
     def reader(start, stop, _p=path, _d=dtype, _o=offset):
         # Map only this byte range; the map is dropped on return so mapped
