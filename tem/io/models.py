@@ -258,12 +258,16 @@ def _check_layer_geometry(ds, ids, file=None):
     given = np.isfinite(res)
     n = given.sum(axis=1)
     prefix = np.arange(res.shape[1])[None, :] < n[:, None]
-    for i in np.flatnonzero((given != prefix).any(axis=1))[:1]:
+    holes = np.flatnonzero((given != prefix).any(axis=1))
+    if holes.size:
+        i = holes[0]
         k = int(np.flatnonzero(given[i] != prefix[i])[0])
         raise input_error("resistivity", f"station {ids[i]}: layer {k} has no resistivity but a "
                           "layer below it has one (missing values may only follow the last "
                           "layer)", file)
-    for i in np.flatnonzero((np.isfinite(top) != given).any(axis=1))[:1]:
+    unpaired = np.flatnonzero((np.isfinite(top) != given).any(axis=1))
+    if unpaired.size:
+        i = unpaired[0]
         k = int(np.flatnonzero(np.isfinite(top[i]) != given[i])[0])
         what = "a resistivity but no top" if given[i, k] else "a top but no resistivity"
         raise input_error("depth_top", f"station {ids[i]}: layer {k} has {what}", file)
