@@ -18,12 +18,13 @@ from pathlib import Path
 import numpy as np
 
 from .errors import TemInputError, input_error
-from .survey_rules import check_survey
+from .survey_rules import check_survey, projected_doc
 from .io import checks
+from .io.packed import PackedTables, pack_tables
 from .io.tomlfile import read_toml
 
 __all__ = ["COMPONENTS", "E_COMPONENTS", "COIL_COMPONENTS", "Transmitter", "Channel",
-           "Station", "Survey", "read_survey", "write_survey", "survey_to_dict",
+           "Station", "Survey", "read_survey", "read_survey_file", "write_survey", "survey_to_dict",
            "parse_time", "format_time", "seconds_between"]
 
 E_COMPONENTS = ("ex", "ey")
@@ -32,6 +33,8 @@ CURRENT_COMPONENT = "current"
 COMPONENTS = E_COMPONENTS + COIL_COMPONENTS + (CURRENT_COMPONENT,)
 TX_KINDS = ("wire", "loop")
 TIMING_SOURCES = ("survey", "current")
+#: Most stations in one survey file.
+MAX_STATIONS = 100_000
 
 
 # ---------------------------------------------------------------------------- time helpers
@@ -288,6 +291,12 @@ class Channel:
             if len(d) != 2 or d[0] == d[1]:
                 raise input_error("receiver.dipole", "needs two distinct endpoints")
             object.__setattr__(self, "dipole", d)
+        elif self.dipole is not None:
+            raise input_error("receiver.dipole", f"only for an electric dipole (ex, ey); a "
+                              f"{self.component} receiver takes none (wrong component?)")
+        if self.component not in COIL_COMPONENTS and self.coil_area is not None:
+            raise input_error("receiver.coil_area", f"only for an induction coil (dbxdt, dbydt, "
+                              f"dbzdt); a {self.component} receiver takes none (wrong component?)")
         if self.component in COIL_COMPONENTS:
             if self.coil_area is None:
                 raise input_error("receiver.coil_area", f"{self.component} needs coil_area (m^2)")
@@ -426,51 +435,14 @@ def _check_keys(table, allowed, where):
                           f"unknown key; valid: {', '.join(sorted(allowed))}")
 
 
-def _projected(doc, head):
-    """Geographic input (``survey.epsg`` of a lat/lon CRS) projected to ``survey.projected_epsg``.
-
-    x is longitude and y latitude (degrees) of the stations, the transmitter
-    points and the dipole electrodes; they become metres of the stated
-    projected CRS (a UTM zone), which is the survey's ``epsg`` from then on.
-    """
-    import copy
-
-    from .io.crs import check_projected, is_geographic, project_to
-
-    epsg = head.get("epsg", 0)
-    target = head.get("projected_epsg")
-    if not epsg or not is_geographic(epsg, "survey.epsg"):
-        if target is not None and target != epsg:
-            raise input_error("survey.projected_epsg", "only for geographic input (survey.epsg "
-                              "of a latitude/longitude CRS); coordinates are already projected")
-        return doc, head
-    if target is None:
-        raise input_error("survey.epsg", f"EPSG:{epsg} is geographic (lat/lon): state the "
-                          "projected CRS to work in as survey.projected_epsg (e.g. a UTM zone)")
-    check_projected(target, "survey.projected_epsg")
-    doc = copy.deepcopy(doc)
-    head = doc["survey"]
-    tx = doc.get("transmitter", {})
-    if isinstance(tx, dict) and isinstance(tx.get("points"), list):
-        tx["points"] = project_to(tx["points"], epsg, target, "transmitter.points").tolist()
-    stations = doc.get("station", [])
-    for i, st in enumerate(stations if isinstance(stations, list) else []):
-        if not isinstance(st, dict):
-            continue
-        if st.get("epsg", epsg) != epsg:
-            raise input_error(f"station[{i}].epsg", "differs from the geographic survey.epsg")
-        st.pop("epsg", None)
-        if "x" in st and "y" in st:
-            (st["x"], st["y"]), = project_to([[st["x"], st["y"]]], epsg, target,
-                                             f"station[{i}].x")
-        receivers = st.get("receiver", [])
-        for j, rx in enumerate(receivers if isinstance(receivers, list) else []):
-            if isinstance(rx, dict) and isinstance(rx.get("dipole"), list):
-                rx["dipole"] = project_to(rx["dipole"], epsg, target,
-                                          f"station[{i}].receiver[{j}].dipole").tolist()
-    head["epsg"] = int(target)
-    del head["projected_epsg"]
-    return doc, head
+def _station_tables(doc):
+    """The survey's station tables, one at a time (packed: tem.io.packed)."""
+    tables = doc.get("station", [])
+    if isinstance(tables, PackedTables):
+        if len(tables) > MAX_STATIONS:
+            raise input_error("station", f"more than {MAX_STATIONS} items")
+        return iter(tables)
+    return iter(checks.array(tables, "station", max_len=MAX_STATIONS))
 
 
 def survey_from_dict(doc: dict, base_dir=".") -> Survey:
@@ -486,7 +458,7 @@ def survey_from_dict(doc: dict, base_dir=".") -> Survey:
     head = doc.get("survey", {})
     _check_keys(head, {"name", "mains_frequency", "epsg", "lowpass_order", "lowpass_cutoff",
                        "format_version", "projected_epsg"}, "survey")
-    doc, head = _projected(doc, head)
+    doc, head = projected_doc(doc, head)
     version = checks.integer(head.get("format_version", 1), "survey.format_version")
     if version != 1:
         raise input_error("survey.format_version", f"unsupported {checks.show(version)}; this tem reads "
@@ -505,7 +477,7 @@ def survey_from_dict(doc: dict, base_dir=".") -> Survey:
                               first_switch_off=tx["first_switch_off"],
                               timing=tx.get("timing", "survey"))
     stations = []
-    for i, st in enumerate(checks.array(doc.get("station", []), "station", max_len=100_000)):
+    for i, st in enumerate(_station_tables(doc)):
         _check_keys(st, _ST_KEYS, f"station[{i}]")
         if "id" not in st:
             raise input_error(f"station[{i}].id", "missing")
@@ -541,10 +513,18 @@ def survey_from_dict(doc: dict, base_dir=".") -> Survey:
 
 def read_survey(path) -> Survey:
     """Read and check a survey TOML file; errors name the file and the field."""
+    return read_survey_file(path)[0]
+
+
+def read_survey_file(path) -> tuple:
+    """``(survey, processing)``: the checked survey and the file's ``[processing]`` table as
+    parsed (``{}`` when absent; checked by tem.pipeline.settings), from one parse of the file."""
     path = Path(path)
     doc = read_toml(path, "survey")
+    processing = doc.get("processing", {})
+    pack_tables(doc, "station")      # the parse of the station tables goes here (PackedTables)
     try:
-        return survey_from_dict(doc, base_dir=path.parent)
+        return survey_from_dict(doc, base_dir=path.parent), processing
     except TemInputError as exc:
         raise TemInputError(f"{path}: {exc}") from None
 

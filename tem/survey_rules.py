@@ -5,15 +5,17 @@ without a cut-off (every station failed at rhoa and invert, naming no file),
 a station in another CRS than the transmitter (its offset silently wrong),
 an ``.npy`` recording listed by two receivers (one station stacked the
 other's data). Errors are one line naming the field; :func:`tem.survey.read_survey`
-adds the file.
+adds the file. :func:`projected_doc` turns a parsed survey in geographic
+coordinates into the projected CRS it names, before the survey is built.
 """
 from __future__ import annotations
 
 from pathlib import Path
 
 from .errors import input_error
+from .io.packed import PackedTables
 
-__all__ = ["check_survey"]
+__all__ = ["check_survey", "projected_doc"]
 
 
 def check_survey(survey):
@@ -43,3 +45,52 @@ def check_survey(survey):
                                       "holds one channel")
                 owner[key] = f"{st.id} {rx.component}"
     return survey
+
+
+def projected_doc(doc, head):
+    """Geographic input (``survey.epsg`` of a lat/lon CRS) projected to ``survey.projected_epsg``.
+
+    x is longitude and y latitude (degrees) of the stations, the transmitter
+    points and the dipole electrodes; they become metres of the stated
+    projected CRS (a UTM zone), which is the survey's ``epsg`` from then on.
+    """
+    import copy
+
+    from .io.crs import check_projected, is_geographic, project_to
+
+    epsg = head.get("epsg", 0)
+    target = head.get("projected_epsg")
+    if not epsg or not is_geographic(epsg, "survey.epsg"):
+        if target is not None and target != epsg:
+            raise input_error("survey.projected_epsg", "only for geographic input (survey.epsg "
+                              "of a latitude/longitude CRS); coordinates are already projected")
+        return doc, head
+    if target is None:
+        raise input_error("survey.epsg", f"EPSG:{epsg} is geographic (lat/lon): state the "
+                          "projected CRS to work in as survey.projected_epsg (e.g. a UTM zone)")
+    check_projected(target, "survey.projected_epsg")
+    doc = copy.deepcopy(doc)
+    if isinstance(doc.get("station"), PackedTables):
+        doc["station"] = list(doc["station"])
+    head = doc["survey"]
+    tx = doc.get("transmitter", {})
+    if isinstance(tx, dict) and isinstance(tx.get("points"), list):
+        tx["points"] = project_to(tx["points"], epsg, target, "transmitter.points").tolist()
+    stations = doc.get("station", [])
+    for i, st in enumerate(stations if isinstance(stations, list) else []):
+        if not isinstance(st, dict):
+            continue
+        if st.get("epsg", epsg) != epsg:
+            raise input_error(f"station[{i}].epsg", "differs from the geographic survey.epsg")
+        st.pop("epsg", None)
+        if "x" in st and "y" in st:
+            (st["x"], st["y"]), = project_to([[st["x"], st["y"]]], epsg, target,
+                                             f"station[{i}].x")
+        receivers = st.get("receiver", [])
+        for j, rx in enumerate(receivers if isinstance(receivers, list) else []):
+            if isinstance(rx, dict) and isinstance(rx.get("dipole"), list):
+                rx["dipole"] = project_to(rx["dipole"], epsg, target,
+                                          f"station[{i}].receiver[{j}].dipole").tolist()
+    head["epsg"] = int(target)
+    del head["projected_epsg"]
+    return doc, head

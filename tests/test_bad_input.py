@@ -51,6 +51,11 @@ SURVEY_CASES = [
     ('gain = 1.0', 'gain = true', "gain: expected a number, got true/false"),
     ('[survey]', '[survey]\nlowpass_order = "2"', "survey.lowpass_order: expected an integer"),
     ('coil_area = 10000.0', 'coil_area = {a = 1}', "coil_area: expected a number, got a table"),
+    # a key of the other kind of sensor (was ignored): a coil with a dipole, an E-dipole with an area
+    ('coil_area = 10000.0', 'coil_area = 10000.0\ndipole = [[0.0, 0.0], [1.0, 0.0]]',
+     "receiver.dipole: only for an electric dipole (ex, ey); a dbzdt receiver takes none"),
+    ('component = "ex"', 'component = "ex"\ncoil_area = 1.0',
+     "receiver.coil_area: only for an induction coil"),
     # integers of hundreds and thousands of digits
     ('current = 40.0', f'current = {BIG}', "transmitter.current: out of range"),
     ('x = -5500.0', f'x = {HUGE}', "toml: unreadable value"),

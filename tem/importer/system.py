@@ -223,6 +223,10 @@ def _station(s, i, normalised, file):
         cn = f"station.{sid}.{comp}"
         _table(c, cn, _CH, file)
         gain = _num(c.get("gain", 1.0), f"{cn}.gain", file, True)
+        stray = sorted(set(c) & ({"coil_area", "position"} if comp in _E else {"dipole"}))
+        if stray:                    # a key of the other kind of sensor: a wrong component?
+            raise input_error(f"{cn}.{stray[0]}", "only for " + ("an induction coil" if comp in _E
+                              else "an electric dipole") + f"; a {comp} channel takes none", file)
         if comp in _E:
             if "dipole" not in c:
                 raise input_error(f"{cn}.dipole", "missing: [[x0, y0], [x1, y1]] (m)", file)

@@ -30,7 +30,7 @@ from ..io.spool import Spool, SpooledDict, json_chunks, spool_record
 from ..provenance import stage_record
 from ..runtime import StageContext, StationOutcome, Tally, process_pool
 from .resume import Checksums, changed_products, fingerprint, reusable, station_survey_text
-from .settings import STAGES, read_processing, resolve_settings
+from .settings import STAGES, processing_table, resolve_settings
 
 __all__ = ["run_pipeline", "RunOutcome", "STATION_STAGES", "read_run", "not_fitted", "to_reoccupy",
            "exit_status_of",
@@ -429,12 +429,13 @@ def run_pipeline(survey_file, project_dir, from_stage=None, overrides=(), jobs=1
     from rich.console import Console
 
     from ..runtime import return_large_blocks
-    from ..survey import read_survey
+    from ..survey import read_survey_file
 
     return_large_blocks()        # transient buffers go back to the system (docs/scaling.md)
     survey_file = Path(survey_file)
-    survey = read_survey(survey_file)
-    settings = resolve_settings(read_processing(survey_file), overrides, survey_file)
+    survey, processing = read_survey_file(survey_file)    # one parse of the file
+    settings = resolve_settings(processing_table(processing, survey_file), overrides, survey_file)
+    del processing
     project = Project(project_dir)
     files, folders = _user_inputs(survey, survey_file, settings)
     check_output(project.root, STAGES, inputs=files, read_only=folders)

@@ -25,7 +25,8 @@ from ..section.settings import SECTION
 from ..settings import override_origin, survey_origin
 from ..stack.settings import STACK
 
-__all__ = ["TABLES", "STAGES", "read_processing", "resolve_settings", "defaults"]
+__all__ = ["TABLES", "STAGES", "read_processing", "processing_table", "resolve_settings",
+           "defaults"]
 
 #: The stages of the chain, in order.
 STAGES = ("stack", "gate", "rhoa", "invert", "section", "export", "report")
@@ -36,8 +37,11 @@ TABLES = {t.stage: t for t in (STACK, GATE, QC_TABLE, RHOA, INVERT, SECTION, EXP
 def read_processing(survey_file) -> dict:
     """The ``[processing]`` table of a survey TOML file ({} when absent)."""
     path = Path(survey_file)
-    doc = read_toml(path, "survey")
-    table = doc.get("processing", {})
+    return processing_table(read_toml(path, "survey").get("processing", {}), path)
+
+
+def processing_table(table, path=None) -> dict:
+    """A parsed ``[processing]`` value, checked to be a table (``path`` is named in errors)."""
     if not isinstance(table, dict):
         raise input_error("processing", "expected a table", path)
     return table
