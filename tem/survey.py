@@ -292,11 +292,11 @@ class Channel:
                 raise input_error("receiver.dipole", "needs two distinct endpoints")
             object.__setattr__(self, "dipole", d)
         elif self.dipole is not None:
-            raise input_error("receiver.dipole", f"only for an electric dipole (ex, ey); a "
+            raise input_error("receiver.dipole", f"only for an electric dipole (ex, ey); the "
                               f"{self.component} receiver takes none (wrong component?)")
         if self.component not in COIL_COMPONENTS and self.coil_area is not None:
             raise input_error("receiver.coil_area", f"only for an induction coil (dbxdt, dbydt, "
-                              f"dbzdt); a {self.component} receiver takes none (wrong component?)")
+                              f"dbzdt); the {self.component} receiver takes none (wrong component?)")
         if self.component in COIL_COMPONENTS:
             if self.coil_area is None:
                 raise input_error("receiver.coil_area", f"{self.component} needs coil_area (m^2)")

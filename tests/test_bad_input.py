@@ -53,7 +53,7 @@ SURVEY_CASES = [
     ('coil_area = 10000.0', 'coil_area = {a = 1}', "coil_area: expected a number, got a table"),
     # a key of the other kind of sensor (was ignored): a coil with a dipole, an E-dipole with an area
     ('coil_area = 10000.0', 'coil_area = 10000.0\ndipole = [[0.0, 0.0], [1.0, 0.0]]',
-     "receiver.dipole: only for an electric dipole (ex, ey); a dbzdt receiver takes none"),
+     "receiver.dipole: only for an electric dipole (ex, ey); the dbzdt receiver takes none"),
     ('component = "ex"', 'component = "ex"\ncoil_area = 1.0',
      "receiver.coil_area: only for an induction coil"),
     # integers of hundreds and thousands of digits

@@ -226,7 +226,7 @@ def _station(s, i, normalised, file):
         stray = sorted(set(c) & ({"coil_area", "position"} if comp in _E else {"dipole"}))
         if stray:                    # a key of the other kind of sensor: a wrong component?
             raise input_error(f"{cn}.{stray[0]}", "only for " + ("an induction coil" if comp in _E
-                              else "an electric dipole") + f"; a {comp} channel takes none", file)
+                              else "an electric dipole") + f"; the {comp} channel takes none", file)
         if comp in _E:
             if "dipole" not in c:
                 raise input_error(f"{cn}.dipole", "missing: [[x0, y0], [x1, y1]] (m)", file)
