@@ -4,7 +4,8 @@ Each was accepted before and failed later, or not at all: a low-pass order
 without a cut-off (every station failed at rhoa and invert, naming no file),
 a station in another CRS than the transmitter (its offset silently wrong),
 an ``.npy`` recording listed by two receivers (one station stacked the
-other's data). Errors are one line naming the field; :func:`tem.survey.read_survey`
+other's data), station ids that would give two stations the same product
+file names. Errors are one line naming the field; :func:`tem.survey.read_survey`
 adds the file. :func:`projected_doc` turns a parsed survey in geographic
 coordinates into the projected CRS it names, before the survey is built.
 """
@@ -30,6 +31,7 @@ def check_survey(survey):
             raise input_error(f"station[{st.id}].epsg", f"EPSG:{st.epsg} differs from "
                               f"survey.epsg ({survey.epsg or 0}); give every coordinate in the "
                               "survey's CRS")
+    _check_file_names(survey)
     owner = {}
     for st in survey.stations:
         for rx in st.receivers:
@@ -45,6 +47,28 @@ def check_survey(survey):
                                       "holds one channel")
                 owner[key] = f"{st.id} {rx.component}"
     return survey
+
+
+def _check_file_names(survey):
+    """Products are named after station ids (``stacked/<id>.nc``, ``exports/las/<id>.las``
+    with the id made file-name safe): ids that differ only in letter case, or only in
+    characters a LAS file name cannot hold, would overwrite each other's products on a
+    case-insensitive disk (the default on macOS and Windows) or in the LAS export, which
+    would find it only after the inversion. Refused when the survey is read."""
+    from .io.checks import safe_name
+
+    by_case, by_las = {}, {}
+    for st in survey.stations:
+        other = by_case.setdefault(st.id.casefold(), st.id)
+        if other != st.id:
+            raise input_error("station.id", f"{other!r} and {st.id!r} differ only in letter case; "
+                              "products are named after station ids and would overwrite each "
+                              "other on a case-insensitive disk: rename one")
+        las = safe_name(st.id)
+        other = by_las.setdefault(las.casefold(), st.id)
+        if other != st.id:
+            raise input_error("station.id", f"{other!r} and {st.id!r} give the same LAS file name "
+                              f"({las}.las; letters, digits and . _ - only): rename one")
 
 
 def projected_doc(doc, head):

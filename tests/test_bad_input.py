@@ -51,6 +51,12 @@ SURVEY_CASES = [
     ('gain = 1.0', 'gain = true', "gain: expected a number, got true/false"),
     ('[survey]', '[survey]\nlowpass_order = "2"', "survey.lowpass_order: expected an integer"),
     ('coil_area = 10000.0', 'coil_area = {a = 1}', "coil_area: expected a number, got a table"),
+    # ids that would share product file names (only found by the export, after the inversion)
+    ('[[station]]\nid = "EM01"', '[[station]]\nid = "em01"\nx = 1.0\ny = 0.0\n\n[[station]]\nid = "EM01"',
+     "station.id: 'em01' and 'EM01' differ only in letter case"),
+    ('[[station]]\nid = "EM01"', '[[station]]\nid = "EM 01"\nx = 1.0\ny = 0.0\n\n[[station]]\n'
+     'id = "EM_01"\nx = 2.0\ny = 0.0\n\n[[station]]\nid = "EM01"',
+     "station.id: 'EM 01' and 'EM_01' give the same LAS file name (EM_01.las"),
     # a key of the other kind of sensor (was ignored): a coil with a dipole, an E-dipole with an area
     ('coil_area = 10000.0', 'coil_area = 10000.0\ndipole = [[0.0, 0.0], [1.0, 0.0]]',
      "receiver.dipole: only for an electric dipole (ex, ey); the dbzdt receiver takes none"),

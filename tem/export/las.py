@@ -20,7 +20,6 @@ holds the rest (coordinates, ground elevation, CRS, DOI, misfit, model kind).
 from __future__ import annotations
 
 import datetime as _dt
-import re
 from pathlib import Path
 
 import numpy as np
@@ -29,6 +28,7 @@ from .. import __version__
 from ..errors import input_error
 from ..section.profile import layer_values
 from ..io.atomic import atomic_path
+from ..io.checks import safe_name
 
 __all__ = ["NULL", "station_log", "las_for_station", "write_las", "write_las_all", "safe_name"]
 
@@ -66,11 +66,6 @@ def station_log(depth_top, resistivity, log10_std, doi, step, bottom):
     std = layer_values(top, np.asarray(log10_std, float)[None, :], depth)[0]
     flag = (depth > doi).astype(float) if np.isfinite(doi) else np.zeros(n)
     return depth, res, std, flag
-
-
-def safe_name(station):
-    """File-name-safe version of a station identifier."""
-    return re.sub(r"[^A-Za-z0-9._-]+", "_", str(station)) or "station"
 
 
 def las_for_station(models, i, step, bottom=None, mask_below_doi=False, source=""):

@@ -19,7 +19,7 @@ import numpy as np
 
 from ..errors import TemInputError, input_error
 
-__all__ = ["LIMITS", "show", "label", "number", "integer", "text", "table", "array", "point",
+__all__ = ["LIMITS", "show", "label", "safe_name", "number", "integer", "text", "table", "array", "point",
            "read_text", "read_capped", "csv_rows", "finite_array", "npy_header", "open_netcdf",
            "variable", "attr_number", "MAX_TEXT_BYTES", "MAX_ELEMENTS"]
 
@@ -63,6 +63,13 @@ def show(value, n: int = 40) -> str:
         r = f"<{type(value).__name__}>"
     r = r.replace("\n", "\\n").replace("\r", "\\r")
     return r if len(r) <= n else r[:n - 3] + "..."
+
+
+def safe_name(name) -> str:
+    """File-name-safe version of an identifier (letters, digits, ``. _ -``; any other run of
+    characters becomes ``_``), for files that carry a station's name (LAS pseudo-wells)."""
+    import re
+    return re.sub(r"[^A-Za-z0-9._-]+", "_", str(name)) or "station"
 
 
 def label(key) -> str:
