@@ -16,7 +16,7 @@ from pathlib import Path
 from .errors import input_error
 from .io.packed import PackedTables
 
-__all__ = ["check_survey", "projected_doc"]
+__all__ = ["check_survey", "check_station_names", "projected_doc"]
 
 
 def check_survey(survey):
@@ -31,7 +31,7 @@ def check_survey(survey):
             raise input_error(f"station[{st.id}].epsg", f"EPSG:{st.epsg} differs from "
                               f"survey.epsg ({survey.epsg or 0}); give every coordinate in the "
                               "survey's CRS")
-    _check_file_names(survey)
+    check_station_names(st.id for st in survey.stations)
     owner = {}
     for st in survey.stations:
         for rx in st.receivers:
@@ -49,26 +49,27 @@ def check_survey(survey):
     return survey
 
 
-def _check_file_names(survey):
+def check_station_names(ids, file=None):
     """Products are named after station ids (``stacked/<id>.nc``, ``exports/las/<id>.las``
     with the id made file-name safe): ids that differ only in letter case, or only in
     characters a LAS file name cannot hold, would overwrite each other's products on a
     case-insensitive disk (the default on macOS and Windows) or in the LAS export, which
-    would find it only after the inversion. Refused when the survey is read."""
+    would find it only after the inversion. Refused when the survey (or an import's system
+    file, named ``file``) is read."""
     from .io.checks import safe_name
 
     by_case, by_las = {}, {}
-    for st in survey.stations:
-        other = by_case.setdefault(st.id.casefold(), st.id)
-        if other != st.id:
-            raise input_error("station.id", f"{other!r} and {st.id!r} differ only in letter case; "
+    for sid in ids:
+        other = by_case.setdefault(sid.casefold(), sid)
+        if other != sid:
+            raise input_error("station.id", f"{other!r} and {sid!r} differ only in letter case; "
                               "products are named after station ids and would overwrite each "
-                              "other on a case-insensitive disk: rename one")
-        las = safe_name(st.id)
-        other = by_las.setdefault(las.casefold(), st.id)
-        if other != st.id:
-            raise input_error("station.id", f"{other!r} and {st.id!r} give the same LAS file name "
-                              f"({las}.las; letters, digits and . _ - only): rename one")
+                              "other on a case-insensitive disk: rename one", file)
+        las = safe_name(sid)
+        other = by_las.setdefault(las.casefold(), sid)
+        if other != sid:
+            raise input_error("station.id", f"{other!r} and {sid!r} give the same LAS file name "
+                              f"({las}.las; letters, digits and . _ - only): rename one", file)
 
 
 def projected_doc(doc, head):

@@ -162,6 +162,8 @@ TOML_CASES = {
     "E without dipole": (_toml("dipole = [[-50.0, 0.0], [50.0, 0.0]]", "gain = 1.0"),
                          "s.toml: station.EM01.ex.dipole: missing"),
     "NaN coordinate": (_toml("x = 0.0", "x = nan"), "s.toml: station[0].x: must be finite"),
+    "ids differing in case": (GOOD_TOML + '\n[[station]]\nid = "em01"\nx = 1.0\ny = 0.0\n',
+                              "s.toml: station.id: 'EM01' and 'em01' differ only in letter case"),
     "duplicate station": (GOOD_TOML + '\n[[station]]\nid = "EM01"\nx = 1.0\ny = 0.0\n',
                           "s.toml: station[1].id: EM01 listed twice"),
     "bad lowpass": (GOOD_TOML.replace("[[station]]", "[receiver]\nlowpass_order = 2\n\n[[station]]",

@@ -46,6 +46,7 @@ from ..errors import input_error
 from ..io.checks import label, number, show
 from ..forward.gatewindow import SHAPES
 from ..io.tomlfile import read_toml
+from ..survey_rules import check_station_names
 
 __all__ = ["System", "StationSpec", "ChannelSpec", "read_system", "WAVEFORM_KINDS", "TIME_ZEROS"]
 
@@ -335,5 +336,6 @@ def read_system(path) -> System:
         if st.id in stations:
             raise input_error(f"station[{i}].id", f"{st.id} listed twice", path)
         stations[st.id] = st
+    check_station_names(stations, path)
     return System(path, int(epsg), kind, pts, current, wf, normalised, int(order),
                   float(cutoff), shape, stations)
