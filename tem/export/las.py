@@ -228,9 +228,9 @@ def write_las_all(models, out_dir, step, bottom=None, mask_below_doi=False, sour
     seen = set()
     for i in range(models.sizes["station"]):
         name = safe_name(models["station"].values[i])
-        if name in seen:
+        if name.casefold() in seen:        # the same file on a case-insensitive disk too
             raise input_error("station", f"two stations map to the file name {name}.las", source or None)
-        seen.add(name)
+        seen.add(name.casefold())
         las = las_for_station(models, i, step, bottom, mask_below_doi, source)
         paths.append(write_las(las, out_dir / f"{name}.las"))
     return paths
