@@ -109,8 +109,17 @@ def seconds_between(t0: np.datetime64, t1: np.datetime64) -> float:
     return float((np.datetime64(t1, "ns") - np.datetime64(t0, "ns")) / np.timedelta64(1, "ns")) * 1e-9
 
 
-def _pos_finite(x, name, limit=None):
-    return checks.number(x, name, positive=True, maximum=limit)
+def _pos_finite(x, name, limit=None, floor=None):
+    return checks.number(x, name, positive=True, maximum=limit, minimum=floor)
+
+
+_FLOOR = checks.LIMITS["scale_min"]
+
+
+def _loop_area(pts) -> float:
+    """Area (m^2) a closed polygon encloses (shoelace formula)."""
+    x, y = np.asarray(pts, float)[:, 0], np.asarray(pts, float)[:, 1]
+    return float(abs(np.dot(x, np.roll(y, -1)) - np.dot(y, np.roll(x, -1))) / 2.0)
 
 
 def _finite(x, name, limit=None):
@@ -175,9 +184,11 @@ class Transmitter:
             raise input_error("transmitter.points", f"a loop needs at least 3 vertices, got {len(pts)}")
         if self.kind == "wire" and pts[0] == pts[1]:
             raise input_error("transmitter.points", "wire endpoints coincide")
+        if self.kind == "loop" and _loop_area(pts) == 0.0:
+            raise input_error("transmitter.points", "the loop's vertices enclose no area")
         object.__setattr__(self, "points", pts)
         object.__setattr__(self, "current", _pos_finite(self.current, "transmitter.current",
-                                                        checks.LIMITS["current"]))
+                                                        checks.LIMITS["current"], _FLOOR))
         f = checks.number(self.base_frequency, "transmitter.base_frequency", minimum=1e-3,
                           maximum=checks.LIMITS["frequency"])
         object.__setattr__(self, "base_frequency", f)
@@ -271,7 +282,7 @@ class Channel:
         object.__setattr__(self, "sample_rate", _pos_finite(self.sample_rate, "receiver.sample_rate",
                                                             checks.LIMITS["sample_rate"]))
         object.__setattr__(self, "gain", _pos_finite(self.gain, "receiver.gain",
-                                                     checks.LIMITS["gain"]))
+                                                     checks.LIMITS["gain"], _FLOOR))
         files = self.files
         if isinstance(files, (str, Path)):
             files = (files,)
@@ -301,7 +312,7 @@ class Channel:
             if self.coil_area is None:
                 raise input_error("receiver.coil_area", f"{self.component} needs coil_area (m^2)")
             object.__setattr__(self, "coil_area", _pos_finite(self.coil_area, "receiver.coil_area",
-                                                              checks.LIMITS["coil_area"]))
+                                                              checks.LIMITS["coil_area"], _FLOOR))
 
     @property
     def dipole_length(self) -> float:
@@ -498,6 +509,9 @@ def survey_from_dict(doc: dict, base_dir=".") -> Survey:
                                     channel=rx.get("channel")))
             except TemInputError as exc:
                 raise input_error(where, str(exc)) from None
+        if ("x" in st) != ("y" in st):      # half a position is a typo, not the origin
+            raise input_error(f"station[{sid}].{'y' if 'x' in st else 'x'}", "missing (give "
+                              "both x and y, or neither for the origin)")
         try:
             stations.append(Station(id=sid, x=st.get("x", 0.0), y=st.get("y", 0.0),
                                     z=st.get("z", 0.0), epsg=st.get("epsg", head.get("epsg", 0)),

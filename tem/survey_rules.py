@@ -108,9 +108,10 @@ def projected_doc(doc, head):
         if st.get("epsg", epsg) != epsg:
             raise input_error(f"station[{i}].epsg", "differs from the geographic survey.epsg")
         st.pop("epsg", None)
-        if "x" in st and "y" in st:
-            (st["x"], st["y"]), = project_to([[st["x"], st["y"]]], epsg, target,
-                                             f"station[{i}].x")
+        if "x" not in st or "y" not in st:   # (0, 0) is no default for a longitude, latitude
+            raise input_error(f"station[{i}].{'y' if 'x' in st else 'x'}", "missing: a "
+                              "geographic survey gives every station's longitude x and latitude y")
+        (st["x"], st["y"]), = project_to([[st["x"], st["y"]]], epsg, target, f"station[{i}].x")
         receivers = st.get("receiver", [])
         for j, rx in enumerate(receivers if isinstance(receivers, list) else []):
             if isinstance(rx, dict) and isinstance(rx.get("dipole"), list):

@@ -76,6 +76,12 @@ SURVEY_CASES = [
     ('base_frequency = 0.25', 'base_frequency = 1e-300', "transmitter.base_frequency: must be >="),
     ('current = 40.0', 'current = nan', "transmitter.current: must be finite"),
     ('first_switch_off = "2025', 'first_switch_off = "9999', "first_switch_off: not an ISO-8601"),
+    # a gain so small the scaled volts overflow the stacked file (was written, then refused)
+    ('gain = 1.0', 'gain = 1e-300', "receiver.gain: must be >= 1e-09"),
+    ('current = 40.0', 'current = 1e-300', "transmitter.current: must be >= 1e-09"),
+    # half a station position (was put at y = 0)
+    ('x = -5500.0\ny = 0.0', 'x = -5500.0', "station[EM01].y: missing (give both x and y"),
+    # a loop whose vertices enclose nothing (failed later, naming no file)
 ]
 
 
@@ -107,6 +113,43 @@ def test_geographic_survey_refuses(tmp_path, survey_text, edit, field):
     with pytest.raises(TemInputError) as exc:
         read_survey(p)
     _one_line(exc, p, field)
+
+
+@pytest.mark.parametrize("points", [[[0.0, 0.0]] * 3, [[0.0, 0.0], [10.0, 0.0], [20.0, 0.0]]])
+def test_loop_enclosing_no_area(points):
+    # it passed the reader and the stack, then the gate stage failed naming no file
+    from tem.survey import Transmitter
+
+    with pytest.raises(TemInputError, match="transmitter.points: the loop's vertices enclose "
+                                            "no area"):
+        Transmitter(kind="loop", points=points, current=10.0, base_frequency=0.25, duty_cycle=0.5,
+                    ramp_on=0.0, ramp_off=0.0, first_switch_off=np.datetime64("2026-01-01"))
+
+
+def test_geographic_station_without_latitude(tmp_path, survey_text):
+    # its longitude was left in degrees, at y = 0, beside projected metres: 7000 km from the
+    # wire, and stack, gate and the evening QC went on
+    pytest.importorskip("pyproj")
+    import tomllib
+
+    from tem.survey import read_survey
+
+    doc = tomllib.loads(survey_text)
+    doc["survey"].update(epsg=4326, projected_epsg=32735)
+    doc["transmitter"]["points"] = [[27.00, -26.0], [27.01, -26.0]]
+    for st in doc["station"]:
+        st["x"], st["y"] = 26.95, -26.0
+        for rx in st["receiver"]:
+            if "dipole" in rx:
+                rx["dipole"] = [[26.949, -26.0], [26.951, -26.0]]
+    p = tmp_path / "survey.toml"
+    p.write_text(tomli_w.dumps(doc))
+    read_survey(p)                                   # as built: read
+    del doc["station"][0]["y"]
+    p.write_text(tomli_w.dumps(doc))
+    with pytest.raises(TemInputError) as exc:
+        read_survey(p)
+    _one_line(exc, p, "station[0].y: missing: a geographic survey gives every station's")
 
 
 def test_survey_non_utf8_and_nul_bytes(tmp_path, survey_text):
@@ -315,6 +358,7 @@ CSV_CASES = {
         ("50,2200", f"50,{BIG}", "line 3: vp_m_per_s: out of range"),
         ("50,2200", "50,-5", "line 3: vp_m_per_s: must be >="),
         ("50,2200", "50,fast", "line 3: vp_m_per_s: not a number"),
+        ("0,1800\n50,2200", "0,1.8\n50,2.2", "line 2: vp_m_per_s: must be >= 100"),   # km/s
         ("50,2200", "0,2200", "depth_m: depths must increase"),
         ("1800", "18\x0000", "velocity table: NUL character"),
     ]),

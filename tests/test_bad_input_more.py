@@ -141,7 +141,14 @@ def _nan_x(ds):
     return ds
 
 
+def _unknown_gate_shape(ds):
+    ds.attrs["gate_shape"] = "banana"
+    return ds
+
+
 @pytest.mark.parametrize("edit, message", [
+    # an unknown window named no file (the forward model's message)
+    (_unknown_gate_shape, "gate_shape: unknown window 'banana'; valid: boxcar, taper"),
     # gates out of time order or repeated were used as they stood (exit 0): a repeated
     # gate counts its datum twice in the inversion
     (_reversed, "gate_open: gates must go forward in time: gate 1"),
@@ -535,6 +542,14 @@ def test_qc_table_bytes(small_day, tmp_path, data, message):
     (lambda s: s["stages"]["gate"].update(parameters="x"), "stages.gate.parameters: not a table"),
     (lambda s: s.update(survey="zzz"), "survey: not a table"),
     (lambda s: s.update(parameters=[1]), "parameters: not a table"),
+    # each of these was a traceback of the run that read the record
+    (lambda s: s["stages"]["stack"].pop("stations"), "stages.stack.stations: missing"),
+    (lambda s: s["stages"]["stack"]["stations"]["EM01"].update(checksums=["x"]),
+     "stages.stack.stations.EM01.checksums: not a table"),
+    (lambda s: s["stages"]["stack"]["stations"]["EM01"].update(checksums={"a.nc": 5}),
+     "stages.stack.stations.EM01.checksums: a checksum that is not text"),
+    (lambda s: s["stages"]["stack"]["stations"]["EM01"].update(fingerprint=[1]),
+     "stages.stack.stations.EM01.fingerprint: not text"),
 ])
 def test_hand_damaged_run_record_is_refused_in_one_line(tmp_path, edit, field):
     """A run.json whose per-station parts were damaged by hand: `tem run --from` refuses it in
@@ -576,3 +591,77 @@ def test_text_and_toml_size_caps(tmp_path):
     with pytest.raises(TemInputError, match=r"survey\.toml.*larger than 16 MiB") as err:
         read_toml(big, "survey")
     assert "\n" not in str(err.value)
+
+
+def test_a_run_record_nested_too_deep_is_unreadable(tmp_path):
+    # json's parser gave up with a RecursionError traceback
+    from tem.errors import TemInputError
+    from tem.pipeline.runner import read_run
+
+    (tmp_path / "run.json").write_text("[" * 100_000 + "]" * 100_000)
+    with pytest.raises(TemInputError, match=r"run\.json: run\.json: unreadable \(RecursionError\)"):
+        read_run(tmp_path)
+
+
+@pytest.mark.parametrize("attr, value, message", [
+    # section and export met these as JSONDecodeError / RecursionError tracebacks
+    ("provenance", "{not json", "provenance: not a JSON list of stage records"),
+    ("provenance", "[" * 100_000 + "]" * 100_000, "provenance: not a JSON list of stage records"),
+])
+def test_section_refuses_a_damaged_models_attribute(models_file, tmp_path, attr, value, message):
+    import xarray as xr
+
+    ds = xr.load_dataset(models_file, engine="h5netcdf")
+    ds.attrs[attr] = value
+    models = tmp_path / "models.nc"
+    ds.to_netcdf(models, engine="h5netcdf")
+    rc, stdout, err = run_captured(["section", str(models), "--out", str(tmp_path / "o"),
+                                    "--no-figures", "--no-progress"])
+    assert rc == 2, (stdout, err)
+    _one_error_line(err, f"{models}: {message}")
+
+
+def test_a_verdict_code_outside_its_flags_is_refused(models_file, tmp_path):
+    # a code of 99 was exported as a LAS header "FIT UNKNOWN" with exit 0
+    import xarray as xr
+
+    import numpy as np
+
+    from tem.invert.verdict import STATUSES, flag_meanings
+
+    ds = xr.load_dataset(models_file, engine="h5netcdf")
+    codes = np.full(ds.sizes["station"], 99, np.int8)
+    ds["verdict_code"] = ("station", codes, {"flag_values": np.arange(len(STATUSES), dtype=np.int8),
+                                             "flag_meanings": flag_meanings()})
+    models = tmp_path / "models.nc"
+    ds.to_netcdf(models, engine="h5netcdf")
+    rc, stdout, err = run_captured(["section", str(models), "--out", str(tmp_path / "o"),
+                                    "--no-figures", "--no-progress"])
+    assert rc == 2, (stdout, err)
+    _one_error_line(err, f"{models}: verdict_code: a code that is not one of its flag_values")
+
+
+@pytest.mark.parametrize("setting, message", [
+    # a folder or a missing file was found only after the stages before export had rerun
+    ("export.velocity={tmp}", "export.velocity: not a file"),
+    ("section.line={tmp}/none.csv", "section.line: no such file"),
+    # the same component twice: the last floor won silently
+    ("invert.floor=ex=0.05,ex=0.1", "--set invert.floor: ex given twice"),
+])
+def test_run_refuses_a_bad_setting_before_any_stage(small_day, tmp_path, setting, message):
+    day = _copy_day(small_day, tmp_path)
+    out = tmp_path / "p"
+    rc, stdout, err = run_captured(["run", str(day / "survey.toml"), "--out", str(out), "--set",
+                                    setting.format(tmp=tmp_path), *RUN])
+    assert rc == 2, (stdout, err)
+    _one_error_line(err, message)
+    assert not (out / "run.json").exists()
+
+
+def test_stack_with_an_empty_station_list_is_refused(small_day, tmp_path):
+    # --stations "" stacked every station
+    day = _copy_day(small_day, tmp_path)
+    rc, stdout, err = run_captured(["stack", str(day / "survey.toml"), "--out", str(tmp_path / "o"),
+                                    "--stations", "", "--no-progress", "--no-figures"])
+    assert rc == 2, (stdout, err)
+    _one_error_line(err, "--stations: no station named")

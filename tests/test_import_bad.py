@@ -107,6 +107,13 @@ CSV_CASES = {
     "volts but normalised": (_csv("# unit.ex = uV/m/A", "# unit.ex = uV")
                              .replace("# unit.dbzdt = nT/s/A", "# unit.dbzdt = uV"),
                              "d.csv: unit: receiver volts (V), but the system file says"),
+    # the last of two units won silently (values 1e9 times too large)
+    "unit given twice": (_csv("# unit.ex = uV/m/A\n", "# unit.ex = uV/m/A\n# unit.ex = V/m/A\n"),
+                         "d.csv: unit.ex: given twice in the header ('uV/m/A' on an earlier "
+                         "line, 'V/m/A' on line 3)"),
+    # imported with exit 0, then refused by every later stage (what they read is checked here)
+    "value beyond a gated file's range": (_csv("5.0,0.2,1", "1e308,0.2,1"),
+                                          "d.csv with s.toml, station EM01: value: out of range"),
     "both time kinds": (_csv("gate_close_ms,", "gate_close_ms,time_s,")
                         .replace(",1\n", ",1,0.1\n").replace(",0\n", ",0,0.1\n"),
                         "d.csv:3: columns: give gate_open and gate_close, or time, not both"),
@@ -170,6 +177,10 @@ TOML_CASES = {
                                       1),
                     "s.toml: receiver.lowpass_cutoff: must be positive with a low-pass order"),
     "not toml": ("[transmitter\n", "s.toml: toml:"),
+    "station beyond the coordinate range": (_toml("x = 0.0", "x = 2e8"),
+                                            "d.csv with s.toml, station EM01: x: out of range"),
+    "current beyond the range": (_toml("current = 40.0", "current = 1e300"),
+                                 "d.csv with s.toml, station EM01: tx_current: out of range"),
 }
 
 
@@ -244,3 +255,42 @@ def test_decays_refuses_soundings_of_two_set_ups(tmp_path, capsys):
     assert rc == 2 and len(err.splitlines()) == 1
     assert "EM02.nc: transmitter: differs from the first sounding's" in err
     assert not (tmp_path / "x.csv").exists()
+
+
+@pytest.mark.parametrize("half_period", [None, 0.5])
+def test_a_table_waveform_imports_to_a_file_the_later_stages_read(tmp_path, capsys, half_period):
+    # imported with exit 0, then refused by rhoa and invert (base_frequency 0, duty_cycle 0 of
+    # a single pulse): the table is the waveform, the bipolar attributes do not apply
+    from tem.io.stacked import read_product
+
+    table = 'kind = "table"\ntimes = [-0.01, -0.009, 0.0]\ncurrent = [0.0, 1.0, 0.0]' + \
+        (f"\nhalf_period = {half_period}" if half_period else "")
+    toml = _toml('kind = "bipolar"\nbase_frequency = 0.25\nduty_cycle = 0.5\nramp_on = 1e-3'
+                 '\nramp_off = 5e-4', table)
+    rc, err = _run(tmp_path, GOOD_CSV, toml, capsys)
+    assert rc == 0, err
+    ds = read_product(tmp_path / "out" / "gated" / "EM01.nc", "gated")   # checked as rhoa does
+    assert ds.attrs["waveform_times"].tolist() == [-0.01, -0.009, 0.0]
+    rc = main(["rhoa", str(tmp_path / "out" / "gated"), "--out", str(tmp_path / "out"),
+               "--no-progress", "--no-figures"])
+    assert rc == 0, capsys.readouterr().err
+
+
+def test_a_sample_time_that_rounds_to_zero_is_refused(tmp_path, capsys):
+    # 1e-300 us is positive in the CSV and 0 s in the gated file: imported (exit 0), then
+    # refused by rhoa; the example pair of docs/import.md with one time changed
+    from pathlib import Path
+
+    ex = Path(__file__).resolve().parents[1] / "examples" / "import"
+    lines = (ex / "stepoff_decays.csv").read_text().splitlines()
+    k = next(i for i, ln in enumerate(lines) if ln.startswith("EM07,dbzdt,"))
+    cells = lines[k].split(",")
+    cells[2] = "1e-300"
+    lines[k] = ",".join(cells)
+    (tmp_path / "d.csv").write_text("\n".join(lines) + "\n")
+    rc = main(["import", str(tmp_path / "d.csv"), str(ex / "stepoff_system.toml"),
+               "--out", str(tmp_path / "out"), "--no-progress"])
+    err = capsys.readouterr().err
+    assert rc == 2 and len(err.strip().splitlines()) == 1, err
+    assert "d.csv with stepoff_system.toml, station EM07: gate_centre: must be positive" in err
+    assert not (tmp_path / "out" / "gated").exists()

@@ -49,7 +49,7 @@ def run(args) -> int:
     edges = np.geomspace(s.t_min, s.t_max, s.gates + 1)
     g0, g1 = edges[:-1], edges[1:]
     stations = survey.stations
-    if args.stations:
+    if args.stations is not None:        # "" names no station: refused, not all
         want = [x.strip() for x in args.stations.split(",") if x.strip()]
         stations = [st for st in survey.stations if st.id in want]
         if not stations:

@@ -35,7 +35,7 @@ def run(args) -> int:
     settings = STACK.from_command_line(args)
     survey = read_survey(args.survey)
     ids = [s.id for s in survey.stations]
-    if args.stations:
+    if args.stations is not None:        # "" names no station: refused, not all
         want = [s.strip() for s in args.stations.split(",") if s.strip()]
         unknown = [s for s in want if s not in ids]
         if unknown or not want:

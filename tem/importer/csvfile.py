@@ -119,7 +119,12 @@ def read_decays(path) -> Decays:
         if s.startswith("#"):
             m = _HEADER_KEY.match(s)
             if m:
-                header[m.group(1).lower()] = m.group(2)
+                key, value = m.group(1).lower(), m.group(2)
+                if key in header and header[key].strip() != value.strip():
+                    # two units for one thing: which one the values are in is a guess
+                    raise input_error(key, f"given twice in the header ({header[key]!r} on an "
+                                      f"earlier line, {value!r} on line {i + 1})", path)
+                header[key] = value
             continue
         first = i
         break

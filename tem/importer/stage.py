@@ -37,7 +37,15 @@ def read_inputs(decays_file, system_file, settings: ImportSettings):
                                          units=decays.units, waveform=system.waveform["kind"],
                                          normalised=system.normalised),
                           inputs=[decays_file, system_file])
-    return station_datasets(decays, system, [record], settings.snr_min)
+    datasets = station_datasets(decays, system, [record], settings.snr_min)
+    # what the later stages will read is checked as they will check it, before anything is
+    # written: a value the inputs allowed but a gated file does not (a coordinate or
+    # current beyond the physical limits, a time that rounds to 0) is refused here
+    from ..io.schema import check_product
+    for sid, ds in datasets.items():
+        check_product(ds, "gated", f"{Path(decays_file).name} with {Path(system_file).name}, "
+                                   f"station {sid}")
+    return datasets
 
 
 def run(settings: ImportSettings, inputs, out, ctx: StageContext = StageContext()) -> StageResult:

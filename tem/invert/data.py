@@ -48,9 +48,13 @@ def parse_floors(spec) -> dict:
             except ValueError:
                 raise input_error("error floor", f"not a number: {text!r}") from None
         out = {c: DEFAULT_FLOOR for c in _COMPONENTS}
+        seen = set()
         for part in text.split(","):
             k, _, v = part.partition("=")
             k = k.strip()
+            if k in seen:
+                raise input_error("error floor", f"{k} given twice")
+            seen.add(k)
             if k not in _COMPONENTS:
                 raise input_error("error floor", f"unknown component {k!r}; valid: {', '.join(_COMPONENTS)}")
             try:

@@ -23,6 +23,8 @@ def parse_floor(value):
             out = {}
             for part in text.split(","):
                 k, _, v = part.partition("=")
+                if k.strip() in out:
+                    raise ValueError(f"{k.strip()[:20]} given twice")
                 out[k.strip()] = v.strip()
             value = out
         else:

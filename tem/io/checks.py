@@ -32,13 +32,15 @@ LIMITS = {
     "frequency": 1e6,       # Hz, base and mains frequency, filter cut-off
     "current": 1e6,         # A
     "gain": 1e12,           # 1 (or V/A for the current monitor)
+    "scale_min": 1e-9,      # smallest gain (1), current (A) and coil area (m^2): a reading
+                            # divided by less would pass the largest value a product stores
     "coil_area": 1e9,       # m^2, turns included
     "volts_per_count": 1e6,  # V
     "full_scale": 1e12,     # counts or V
     "resistivity_min": 1e-6,  # ohm-m
     "resistivity_max": 1e12,  # ohm-m
     "thickness": 1e6,       # m
-    "velocity_min": 1.0,    # m/s
+    "velocity_min": 100.0,  # m/s: below air (330 m/s); a table in km/s reads 1.5-7
     "velocity_max": 1e5,    # m/s
     "depth": 1e6,           # m
     "epsg": 1_000_000,      # EPSG codes are below this

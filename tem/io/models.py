@@ -197,8 +197,11 @@ def read_models(path):
     """
     from .checks import open_netcdf
 
+    from .schema import check_provenance
+
     name = Path(path) if not hasattr(path, "read") else "netCDF"
     ds = open_netcdf(path, "models")
+    check_provenance(ds, name)
     return check_model_values(check_models(ds, name), name)
 
 
@@ -239,6 +242,12 @@ def check_model_values(ds, file=None):
     if isinstance(epsg, np.ndarray) and epsg.size == 1:
         epsg = epsg.reshape(-1)[0]
     checks.integer(epsg, "epsg", file, minimum=0, maximum=lim["epsg"])
+    for name in [str(v) for v in ds.data_vars if str(v).endswith("verdict_code")]:
+        codes, flags = np.asarray(ds[name].values), ds[name].attrs.get("flag_values")
+        if codes.dtype.kind not in "iu" or (flags is not None and not np.isin(
+                codes, np.atleast_1d(np.asarray(flags))).all()):
+            raise input_error(name, "a code that is not one of its flag_values (the verdict "
+                              "would be unknown in every product)", file)
     kind = ds.attrs.get("model_kind", "smooth")
     if not isinstance(kind, str) or kind not in MODEL_KINDS:
         raise input_error("model_kind", f"unknown kind {checks.show(kind)}; valid: "

@@ -155,7 +155,7 @@ class ProjectLock:
         self._created = []
 
     def _holder(self) -> dict:
-        with contextlib.suppress(OSError, ValueError, UnicodeDecodeError):
+        with contextlib.suppress(OSError, ValueError, UnicodeDecodeError, RecursionError):
             info = json.loads(self.path.read_text(encoding="utf-8") or "{}")
             if isinstance(info, dict):
                 return info

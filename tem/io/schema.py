@@ -49,6 +49,14 @@ def _attrs(ds, file):
     # step-off, step-on and impulse soundings (gated format 1.2, tem import) have no
     # repetition: base_frequency 0; a waveform response needs a positive one
     stepped = _text(a, "response", "waveform") in ("step-off", "step-on", "impulse")
+    if "gate_shape" in a:
+        from ..forward.gatewindow import SHAPES
+        if _text(a, "gate_shape", "") not in SHAPES:
+            raise input_error("gate_shape", f"unknown window {checks.show(a['gate_shape'])}; "
+                              f"valid: {', '.join(SHAPES)}", file)
+    if "waveform_times" in a:
+        _waveform_table(a, file)
+        stepped = True     # the table rules: a single pulse has base_frequency 0, no duty cycle
     checks.attr_number(ds, "base_frequency", file, minimum=0.0 if stepped else 1e-3,
                        maximum=L["frequency"])
     checks.attr_number(ds, "duty_cycle", file, required=False, positive=not stepped,
@@ -202,7 +210,27 @@ def _gated(ds, file):
             checks.variable(ds, str(name), _CH, file, maximum=BIG, allow_nan=True)
 
 
-def _provenance(ds, file):
+def _waveform_table(a, file):
+    """A piecewise-linear waveform table (``waveform_times``, ``waveform_current``,
+    ``waveform_half_period``, tem import) is one the forward model takes."""
+    from ..errors import TemInputError
+    from ..forward.sounding import waveform_from_attrs
+
+    for name in ("waveform_times", "waveform_current"):
+        v = np.atleast_1d(np.asarray(a.get(name)))
+        if name not in a or v.dtype.kind not in "iuf" or v.ndim != 1 or v.size > 10_000:
+            raise input_error(name, "expected a list of numbers (at most 10000)", file)
+        checks.finite_array(v, name, file, maximum=L["time"] if name == "waveform_times"
+                            else 1e3)
+    try:
+        waveform_from_attrs(a, file)
+    except TemInputError as exc:
+        raise input_error("waveform_times", str(exc).split(": ", 1)[-1], file) from None
+
+
+def check_provenance(ds, file=None):
+    """The ``provenance`` attribute of a product: absent, empty, or a JSON list of stage
+    records (a damaged one is refused in one line naming the file)."""
     import json
 
     text = ds.attrs.get("provenance")
@@ -221,7 +249,7 @@ def check_product(ds, fmt: str, file=None):
     if fmt not in ("stacked", "gated"):
         return ds
     _attrs(ds, file)
-    _provenance(ds, file)
+    check_provenance(ds, file)
     for dim, n in ds.sizes.items():
         if n > checks.MAX_ELEMENTS:
             raise input_error(str(dim)[:40], f"dimension of {n}: too large", file)

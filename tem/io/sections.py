@@ -48,9 +48,11 @@ def write_section_grid(grid, path, records=()):
 def read_section_grid(path):
     """Read a section grid, checking format, major version and the variables export reads."""
     from . import checks
+    from .schema import check_provenance
 
     name = Path(path) if not hasattr(path, "read") else "netCDF"
     ds = checks.open_netcdf(path, "section")
+    check_provenance(ds, name)
     if not isinstance(ds.attrs.get("tem_format"), str) or ds.attrs["tem_format"] != FORMAT:
         raise input_error("tem_format", f"expected {FORMAT!r}, found "
                           f"{checks.show(ds.attrs.get('tem_format'))}", name)

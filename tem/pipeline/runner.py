@@ -80,7 +80,7 @@ def read_run(project) -> dict:
                           "--from first", path)
     try:
         state = json.loads(path.read_text(encoding="utf-8"))
-    except (OSError, ValueError, UnicodeDecodeError) as exc:
+    except (OSError, ValueError, UnicodeDecodeError, RecursionError) as exc:
         raise input_error("run.json", f"unreadable ({type(exc).__name__})", path) from None
     if not isinstance(state, dict) or state.get("tem_format") != FORMAT \
             or str(state.get("format_version", "")).split(".")[0] != "1" \
@@ -106,12 +106,27 @@ def _check_record_parts(state, path):
                   (f"stages.{stage}.parameters", rec.get("parameters"), dict),
                   (f"stages.{stage}.failed", rec.get("failed"), str)]
         stations = rec.get("stations")
+        if stations is None and stage in STATION_STAGES:
+            raise input_error(f"stages.{stage}.stations", "missing (a station stage's record "
+                              "lists its stations)", path)
         if isinstance(stations, dict):
-            parts += [(f"stages.{stage}.stations.{sid}", r, dict) for sid, r in stations.items()]
+            for sid, r in stations.items():
+                parts.append((f"stages.{stage}.stations.{sid}", r, dict))
+                if isinstance(r, dict):
+                    parts += [(f"stages.{stage}.stations.{sid}.{key}", r.get(key), kind)
+                              for key, kind in (("checksums", dict), ("fingerprint", str),
+                                                ("message", str))]
     for field, value, kind in parts:
         if value is not None and not isinstance(value, kind):
             raise input_error(field, "not " + {dict: "a table", list: "a list", str: "text"}[kind],
                               path)
+    for field, table in [(f"stages.{stage}.checksums", rec.get("checksums"))
+                         for stage, rec in state["stages"].items()] + \
+            [(f"stages.{stage}.stations.{sid}.checksums", r.get("checksums"))
+             for stage, rec in state["stages"].items()
+             for sid, r in (rec.get("stations") or {}).items()]:
+        if table and not all(isinstance(v, str) for v in table.values()):
+            raise input_error(field, "a checksum that is not text", path)
     for stage, rec in state["stages"].items():
         for sid, r in (rec.get("stations") or {}).items():
             if not isinstance(r.get("status"), str):
@@ -438,6 +453,11 @@ def run_pipeline(survey_file, project_dir, from_stage=None, overrides=(), jobs=1
     del processing
     project = Project(project_dir)
     files, folders = _user_inputs(survey, survey_file, settings)
+    for field, path in (("section.line", settings["section"].line),
+                        ("export.velocity", settings["export"].velocity)):
+        if path and not Path(path).is_file():      # known now, not after the stages before
+            raise input_error(field, "not a file" if Path(path).exists() else "no such file",
+                              path)
     check_output(project.root, STAGES, inputs=files, read_only=folders)
     del files, folders           # a path per recording: not held for the whole run
     if from_stage is not None and from_stage not in STAGES:

@@ -30,7 +30,7 @@ def _run_record(project: Project):
         return {}
     try:
         state = json.loads(project.run_json.read_text(encoding="utf-8"))
-    except (OSError, ValueError):
+    except (OSError, ValueError, RecursionError):
         raise input_error("run.json", "unreadable", project.run_json) from None
     return state if isinstance(state, dict) else {}
 

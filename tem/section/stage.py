@@ -58,7 +58,7 @@ def settings_of_grid(grid, file=None) -> SectionSettings:
                           "version's section stage; rerun it", file)
     try:
         values = json.loads(text)
-    except ValueError:
+    except (ValueError, RecursionError):
         raise input_error("section_settings", "not valid JSON", file) from None
     if not isinstance(values, dict):
         raise input_error("section_settings", "not a table", file)
