@@ -121,3 +121,14 @@ def test_imported_lonlat_soundings_export_in_another_zone(tmp_path):
         assert got[sid][0] == pytest.approx(direct[0][i], abs=1e-3)
         assert got[sid][1] == pytest.approx(direct[1][i], abs=1e-3)
     assert "EPSG:32627" in (out / "exports" / "las" / "EM01.las").read_text()
+
+    # the same models labelled with a geographic code (a hand edit): their x and y are metres,
+    # and the LAS said "EPSG:4326" beside a projected X
+    import xarray as xr
+
+    ds = xr.load_dataset(out / "models" / "models.nc", engine="h5netcdf")
+    ds.attrs["epsg"] = 4326
+    (out / "models" / "models.nc").unlink()
+    ds.to_netcdf(out / "models" / "models.nc", engine="h5netcdf")
+    assert main(["export", str(out), "--out", str(tmp_path / "Q"), "--no-progress",
+                 "--what", "csv"]) == 2

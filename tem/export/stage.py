@@ -66,6 +66,9 @@ def run(settings: ExportSettings, project_in, out, ctx: StageContext = StageCont
     models = read_models(mfile)
     grid = read_section_grid(sfile)
     epsg = int(models.attrs.get("epsg", 0) or 0)
+    if epsg:        # models hold projected metres: a geographic code would label them wrong
+        from ..io.crs import check_projected
+        check_projected(epsg, "epsg", mfile)
     sp = settings_of_grid(grid, sfile)
     src_models, src_epsg = models, epsg
     if settings.epsg is not None and settings.epsg != epsg:
