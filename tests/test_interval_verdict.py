@@ -175,6 +175,17 @@ def test_figures_mark_unconverged_stations(run):
     ok["interval_verdict_code"] = ok["interval_verdict_code"] * 0
     fig = posterior_section_figure(ok, SectionSettings())
     assert not [c for ax in fig.axes for c in ax.collections if c.get_gid() == "interval-columns"]
+    # a station whose few-layer fit is not fitted is marked as in the section figure (it was
+    # drawn like the others here): a misfit grey and cross-hatched, named with its chi2
+    from tem.invert.verdict import CODES
+
+    bad = ok.copy(deep=True)
+    bad["verdict_code"].values[0] = CODES["misfit"]
+    fig = posterior_section_figure(bad, SectionSettings())
+    ax1 = fig.axes[0]
+    assert [c for c in ax1.collections if c.get_gid() == "verdict-columns"], "misfit not marked"
+    assert "model not fitted (misfit)" in [t.get_text() for t in ax1.get_legend().get_texts()]
+    assert any("misfit chi2" in t.get_text() for t in ax1.texts)
 
 
 def test_main_section_grid_and_figure_mark_unconverged(run):

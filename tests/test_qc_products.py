@@ -62,6 +62,14 @@ def test_exit_status_and_summary(project):
     assert f"recording failed the evening QC at 1 station(s): {DEAD}" in text
     row = [ln for ln in stdout.splitlines() if ln.strip().startswith(DEAD)][0]
     assert "QC failed" in row and " ok " not in f" {row} "
+    # the closing line and the record say it too (they said "0 failed" and nothing)
+    assert "1 to re-occupy; exit status 1" in text
+    last = json.loads((out / "run.json").read_text())["last_run"]
+    assert last["exit_status"] == 1 and last["reoccupy"] == [DEAD]
+    # the gate stage's channel flags are not a verdict: never "ok" beside reoccupy
+    assert st[DEAD]["channel_flags"] != "ok" and "qc" not in st[DEAD]
+    assert isinstance(st[DEAD]["extra_minutes"], (int, type(None)))   # whole minutes
+    assert "caution: " in text and "check them against wells" in text
 
 
 def test_models_file_and_tables(project):

@@ -165,7 +165,10 @@ def finish(stage: str, result, out, not_fitted=None) -> int:
     n = len(result.stations)
     n_fail = sum(oc.status != "ok" for oc in result.stations.values())
     written = len(result.all_outputs())
-    counts = f"{n} stations, {n_fail} failed; " if n else ""
+    counts = f"{n} stations, {n_fail} failed" if n else ""
+    if n and not_fitted:       # never "0 failed" alone beside models that do not fit
+        counts += f", {len(not_fitted)} not fitted"
+    counts += "; " if n else ""
     print(f"tem {stage}: {counts}{written} files written under {out}")
     if not_fitted:
         print(f"tem {stage}: {not_fitted_line(not_fitted)}", file=sys.stderr)

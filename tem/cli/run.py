@@ -77,11 +77,18 @@ def print_summary(outcome, console):
     again = to_reoccupy(state)
     if again:
         console.print(f"[bold red]qc: recording failed the evening QC at {len(again)} station(s): "
-                      f"{', '.join(again)} (re-occupy; their models are marked in every "
-                      "product)[/]", highlight=False)
+                      f"{', '.join(again)} (re-occupy"
+                      + ("; their models are marked in every product" if "invert" in
+                         state["stages"] else "") + ")[/]", highlight=False)
     n_fail = sum("failed_stage" in s for s in state.get("stations", {}).values())
     root = outcome.project.root
-    console.print(f"{len(state.get('stations', {}))} stations, {n_fail} failed; "
-                  f"{last.get('elapsed_s', 0):.0f} s; record: {root / 'run.json'}", highlight=False)
+    # never "0 failed" alone beside models that do not fit or recordings to repeat
+    counts = [f"{n_fail} failed a stage"] + ([f"{len(bad)} not fitted"] if bad else []) + \
+        ([f"{len(again)} to re-occupy"] if again else [])
+    console.print(f"{len(state.get('stations', {}))} stations: {', '.join(counts)}; exit status "
+                  f"{outcome.exit_status}; {last.get('elapsed_s', 0):.0f} s; record: "
+                  f"{root / 'run.json'}", highlight=False)
     if outcome.project.report.is_file() and "report" in state["stages"]:
         console.print(f"report: {outcome.project.report}", highlight=False)
+    from .. import SAFETY_NOTE
+    console.print(f"[dim]caution: {SAFETY_NOTE}[/]", highlight=False)

@@ -141,7 +141,8 @@ def las_for_station(models, i, step, bottom=None, mask_below_doi=False, source="
     for mnem, unit, value, descr in params:
         las.params.append(lasio.HeaderItem(mnem, unit=unit, value=value, descr=descr))
     las.other = ("Pseudo-well from a 1D TEM resistivity model; an interpretation, not a "
-                 "measured log. Depths are below ground level.")
+                 "measured log: check it against wells and other data before any decision. "
+                 "Depths are below ground level.")
     fit = next((p[2] for p in params if p[0] == "FIT"), "UNKNOWN")
     if fit not in ("FITTED", "UNKNOWN"):
         las.other += f" WARNING: verdict {fit} (see FIT, FITR): {_WARNING[fit]}"

@@ -195,7 +195,9 @@ def twt_section_traces(models_grid_fn, table_depth, table_velocity, dt, max_twt,
 
 def _text_header(lines):
     cards = {}
-    for k, text in enumerate(lines[:39], start=1):
+    if len(lines) > 39:      # a long survey's station lists: say where the rest is
+        lines = lines[:38] + [f"... {len(lines) - 38} MORE LINES: SEE THE MODELS FILE"]
+    for k, text in enumerate(lines, start=1):
         cards[k] = text[:76]
     cards[40] = "END TEXTUAL HEADER"
     import segyio
@@ -342,45 +344,58 @@ def write_segy(path, data, grid, interval_field, first, domain, description, lin
     return Path(path)
 
 
-def _not_fitted_line(grid) -> str:
-    """Textual header line naming the stations whose model is not fitted (76 characters at most)."""
+def _wrapped(prefix, items, tail="") -> list:
+    """``prefix`` and ``items`` (joined by ", ") then ``tail``, wrapped over textual-header
+    lines of 76 characters (continuations indented); no item is cut."""
+    lines, line = [], prefix
+    parts = [f"{it}," for it in items[:-1]] + [f"{items[-1]}{tail}"] if items else [tail]
+    for part in parts:
+        if len(line) + len(part) + 1 > 76 and line.strip():
+            lines.append(line.rstrip())
+            line = "  "
+        line += part + " "
+    lines.append(line.rstrip())
+    return [ln[:76] for ln in lines]
+
+
+def _not_fitted_lines(grid) -> list:
+    """Textual header lines naming the stations whose model is not fitted, with the verdict."""
+    from ..invert.verdict import STATUSES
+
     if "station_verdict_code" not in grid:
-        return "VERDICTS: NONE RECORDED"
-    short = {1: "MISFIT", 2: "STALLED", 3: "AT-BOUND", 4: "THIN-LAYER"}
-    bad = [f"{sid} {short.get(c, c)}" for sid, c in zip(
-        grid["station"].values.astype(str), grid["station_verdict_code"].values.astype(int))
-        if c > 0]
+        return ["VERDICTS: NONE RECORDED"]
+    codes = grid["station_verdict_code"].values.astype(int)
+    bad = [f"{sid} {STATUSES[c].upper() if 0 <= c < len(STATUSES) else c}" for sid, c in
+           zip(grid["station"].values.astype(str), codes) if c > 0]
     if not bad:
-        return "VERDICTS: ALL STATIONS FITTED"
-    text = "VERDICTS: " + ", ".join(bad) + ", OTHERS FITTED"
-    return text if len(text) <= 76 else text[:72] + " ..."
+        return ["VERDICTS: ALL STATIONS FITTED"]
+    fitted = int(np.sum(codes == 0))
+    return _wrapped("VERDICTS: ", bad, f"; {fitted} OTHER(S) FITTED" if fitted else
+                    "; NONE FITTED")
 
 
-def _qc_line(grid) -> str:
-    """Textual header line naming the stations whose recording failed the evening QC."""
+def _qc_lines(grid) -> list:
+    """Textual header lines naming the stations whose recording failed the evening QC."""
     if "station_qc_verdict_code" not in grid:
-        return "EVENING QC: NONE RECORDED"
-    return _stations_line(grid, "station_qc_verdict_code", QC_REOCCUPY,
-                          "EVENING QC REOCCUPY (DATA USE 2): ",
-                          "EVENING QC: NO STATION TO RE-OCCUPY")
+        return ["EVENING QC: NONE RECORDED"]
+    return _stations_lines(grid, "station_qc_verdict_code", QC_REOCCUPY,
+                           "EVENING QC REOCCUPY (DATA USE 2): ",
+                           "EVENING QC: NO STATION TO RE-OCCUPY")
 
 
-def _interval_line(grid) -> str:
-    """Textual header line naming the stations whose posterior sampling did not converge."""
-    return _stations_line(grid, "station_interval_verdict_code", 1,
-                          "POSTERIOR UNCONVERGED (MEDIAN NOT FINAL): ",
-                          "POSTERIOR INTERVALS: ALL CONVERGED")
+def _interval_lines(grid) -> list:
+    """Textual header lines naming the stations whose posterior sampling did not converge."""
+    return _stations_lines(grid, "station_interval_verdict_code", 1,
+                           "POSTERIOR UNCONVERGED (MEDIAN NOT FINAL): ",
+                           "POSTERIOR INTERVALS: ALL CONVERGED")
 
 
-def _stations_line(grid, var, worst_from, prefix, none_text) -> str:
+def _stations_lines(grid, var, worst_from, prefix, none_text) -> list:
     """``prefix`` and the stations whose ``var`` code is ``worst_from`` or more (``none_text``
-    when none is), cut to the 76 characters of a textual header line."""
+    when none is), wrapped over textual-header lines."""
     bad = [sid for sid, c in zip(grid["station"].values.astype(str),
                                  grid[var].values.astype(int)) if c >= worst_from]
-    if not bad:
-        return none_text
-    text = prefix + ", ".join(bad)
-    return text if len(text) <= 76 else text[:72] + " ..."
+    return _wrapped(prefix, bad) if bad else [none_text]
 
 
 def describe(grid, domain, step, value, below_doi, epsg, source="", velocity_file=""):
@@ -389,12 +404,14 @@ def describe(grid, domain, step, value, below_doi, epsg, source="", velocity_fil
     unit = "MS" if domain == "twt" else "M"
     interval = {"twt": f"{step * 1e3:g} MS", "depth": f"{step:g} M", "elevation": f"{step:g} M"}[domain]
     stored = ("BINARY 3217-3218 AND TRACE 117-118 IN MICROSECONDS" if domain == "twt" else
-              "BINARY 3217-3218 AND TRACE 117-118 IN MM (READ AS TIME: 1 MS = 1 M)")
+              "BINARY 3217-3218 AND TRACE 117-118 IN MM")
     lines = [
         f"TEM {__version__} RESISTIVITY SECTION FROM 1D TEM MODELS (AN INTERPRETATION)",
+        "CHECK IT AGAINST WELLS AND OTHER DATA BEFORE ANY DECISION",
         "SEG-Y REV 1, DATA FORMAT CODE 5: 4-BYTE IEEE FLOAT, BIG-ENDIAN",
         f"SAMPLES: {vname} IN {unit}, FIRST 0 {unit}, INTERVAL {interval}",
         f"SAMPLE INTERVAL IN {stored}",
+        *([] if domain == "twt" else ["  (A PROGRAM READING IT AS TIME SHOWS 1 MS PER M)"]),
         f"SAMPLE VALUE: {'RESISTIVITY OHM-M' if value == 'resistivity' else 'LOG10 RESISTIVITY OHM-M'}",
         ("BELOW DOI: 0.0 (NOT RESOLVED)" if below_doi == "zero" else "BELOW DOI: MODEL VALUES KEPT")
         + "; NO MODEL: 0.0",
@@ -405,7 +422,8 @@ def describe(grid, domain, step, value, below_doi, epsg, source="", velocity_fil
         "INLINE 189-192 = LINE NUMBER, CROSSLINE 193-196 = CDP",
         ("DOI TWO-WAY TIME IN MICROSECONDS" if domain == "twt" else "DOI DEPTH IN CM")
         + " IN BYTES 233-236 (-1 UNKNOWN)",
-        "VERDICT INT16 237-238: 0 FIT 1 MISFIT 2 STALLED 3 AT BOUND 4 THIN; -1 NONE",
+        "VERDICT INT16 237-238: 0 FITTED 1 MISFIT 2 STALLED 3 PARAMETER-AT-BOUND",
+        "  4 DEGENERATE-LAYER; -1 NONE",
         "CHI2 X 100 INT16 239-240 (32767 = 327.67 OR MORE; -1 UNKNOWN)",
         "DATA USE 35-36: 1 PRODUCTION, 2 RECORDING FAILED QC (RE-OCCUPY)",
     ]
@@ -413,10 +431,10 @@ def describe(grid, domain, step, value, below_doi, epsg, source="", velocity_fil
         lines.append("DATUM ELEVATION (TOP SAMPLE) IN 53-56 AND 57-60, SCALAR 69-70")
     if domain == "twt":
         lines.append(f"TIME FROM INTERVAL VELOCITIES: {Path(velocity_file).name}"[:76])
-    lines.append(_not_fitted_line(grid))
-    lines.append(_qc_line(grid))
+    lines += _not_fitted_lines(grid)
+    lines += _qc_lines(grid)
     if "station_interval_verdict_code" in grid:
-        lines.append(_interval_line(grid))
+        lines += _interval_lines(grid)
     d = grid["distance"].values
     if d.size:
         lines.append(f"PROFILE DISTANCE {d[0]:.1f} TO {d[-1]:.1f} M")

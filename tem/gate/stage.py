@@ -35,7 +35,9 @@ def gate_one(sid, in_path, settings: GateSettings, out_path, fig_path):
     usable = int(np.asarray(g["usable"].values).sum())
     bad = [f"{r['status']} {r['channel']}" for r in rows if r["status"] != "ok"]
     info = {"usable_gates": usable, "gates": int(g["usable"].size),
-            "qc": ", ".join(bad) if bad else "ok"}
+            # channel flags (dead, clipped, ...), not the evening verdict (qc_verdict): a
+            # recording to re-occupy once read "qc: ok" beside "qc_verdict: reoccupy"
+            "channel_flags": ", ".join(bad) if bad else "none"}
     inputs = [{"file": str(in_path), "sha256": file_sha256(in_path)}]
     payload = {"rows": rows, "measures": channel_measures(st, g)}
     if not usable:
@@ -89,6 +91,7 @@ def evening_verdicts(res, files, project, qc, failed=None):
     earlier run is measured from its files once, and its measures kept with its outcome.
     """
     from ..qc import verdicts_of_stations, write_stations_csv
+    from ..qc.verdict import whole_minutes
 
     broken = dict(failed or {})
     for sid, oc in res.stations.items():
@@ -109,8 +112,9 @@ def evening_verdicts(res, files, project, qc, failed=None):
     for v in verdicts:
         oc = res.stations.get(v.station)
         if oc is not None:
+            minutes = whole_minutes(v.extra_minutes)     # as stations.csv and the report
             oc.info.update(qc_verdict=v.verdict, qc_reasons="; ".join(v.reasons),
-                           extra_minutes=v.extra_minutes)
+                           extra_minutes=int(minutes) if minutes else None)
             res.stations[v.station] = oc          # an outcome read is a copy
     res.outputs.append(str(write_stations_csv(project.root, verdicts)))
     return verdicts

@@ -109,7 +109,7 @@ class Verdict:
 
     @property
     def failed(self) -> bool:
-        """True for a failure (misfit, stalled): exit status 1."""
+        """True for a failure (misfit): exit status 1; the others are warnings."""
         return self.status in FAILURES
 
     @property

@@ -574,8 +574,13 @@ def _run_locked(survey, survey_file, settings, project, start, end, jobs, consol
             state["last_run"]["worker_peak_rss_mb"] = round(worker_peak_rss_mb(ex), 1)
     state["last_run"]["elapsed_s"] = round(time.perf_counter() - t_run, 2)
     state["last_run"]["stopped"] = stop        # the summary is the last stage's: unchanged since
+    # the run's verdict in the record itself, as the closing lines and the exit status say it
+    state["last_run"].update(
+        failed=[sid for sid, s in state.get("stations", {}).items() if "failed_stage" in s],
+        not_fitted=not_fitted(state), reoccupy=to_reoccupy(state))
+    state["last_run"]["exit_status"] = exit_status_of(state)
     _write_run(project, state)
-    return RunOutcome(state=state, exit_status=exit_status_of(state), project=project)
+    return RunOutcome(state=state, exit_status=state["last_run"]["exit_status"], project=project)
 
 
 def exit_status_of(state) -> int:

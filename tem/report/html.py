@@ -22,6 +22,7 @@ import numpy as np
 
 from .. import SAFETY_NOTE, __version__
 from ..errors import input_error
+from ..invert.verdict import FAILURES
 from ..io.atomic import write_text_atomic
 
 __all__ = ["station_table", "render_report", "write_report", "STATUS_OK", "STATUS_MISFIT",
@@ -175,7 +176,7 @@ def _verdict_section(qc_rows, qc_figures, base, embed, fits=None):
         if fits:
             status, chi2 = fits.get(r["station"], ("no model", np.nan))
             fcls = "" if status == "fitted" else (
-                ' style="color:#a4281b;font-weight:700"' if status in ("misfit", "stalled")
+                ' style="color:#a4281b;font-weight:700"' if status in FAILURES
                 else ' style="color:#8a6d00;font-weight:600"')
             fit = (f"<td class=\"status\"{fcls}>{html.escape(status)}</td>"
                    f"<td>{_fmt(chi2, 2)}</td>")
@@ -258,7 +259,6 @@ def _model_section(models, station_info, chi2_limit, station_figures):
     epsg = int(models.attrs.get("epsg", 0) or 0)
     out = []
     # counted in words of the fit verdicts, not the evening verdict's ("to check" there)
-    from ..invert.verdict import FAILURES
     n_fail = sum(r["status"].split(";")[0] in FAILURES + (STATUS_MISFIT,) for r in rows)
     n_warn = sum(r["status"].split(";")[0] not in FITTED for r in rows) - n_fail
     sampled = any(r["interval"] for r in rows)
@@ -269,7 +269,7 @@ def _model_section(models, station_info, chi2_limit, station_figures):
     crs = f"EPSG:{epsg}" if epsg else "CRS not given"
     if any(r["reasons"] for r in rows):
         rule = ("status: the verdict on the final fit (fitted within the chi2 tolerance; misfit "
-                "and stalled fail; parameter-at-bound and degenerate-layer warn; "
+                "fails; stalled, parameter-at-bound and degenerate-layer warn; "
                 "docs/inversion.md)")
     else:
         rule = f"status 'check fit' above {chi2_limit:g}"
@@ -290,7 +290,7 @@ def _model_section(models, station_info, chi2_limit, station_figures):
                f"{iv_head}{qc_head}<th>reasons</th></tr></thead><tbody>")
     for r in rows:
         cls = "" if r["status"] in FITTED and r["qc"] != "reoccupy" else (
-            ' class="reoccupy"' if r["status"].split(";")[0] in ("misfit", "stalled")
+            ' class="reoccupy"' if r["status"].split(";")[0] in FAILURES
             or r["qc"] == "reoccupy" else ' class="check"')
         sid = html.escape(r["station"])
         link = f'<a href="#st-{sid}">{sid}</a>' if station_figures and r["station"] in station_figures else sid

@@ -137,8 +137,9 @@ def run(settings: ReportSettings, project_in, out, ctx: StageContext = StageCont
         else:
             status = STATUS_NONE
         if status is not None:
-            if s.get("qc") and s["qc"] != "ok":
-                status += f"; QC {s['qc']}"
+            flags = s.get("channel_flags", s.get("qc"))     # "qc": records before 5 Dec 2026
+            if flags and flags not in ("none", "ok"):
+                status += f"; QC {flags}"
             entry["status"] = status
         info[sid] = entry
     name = state.get("survey", {}).get("name", "") if isinstance(state.get("survey"), dict) else ""

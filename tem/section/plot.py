@@ -16,6 +16,7 @@ from matplotlib.colors import LogNorm
 from matplotlib.figure import Figure
 
 from ..errors import input_error
+from ..invert.verdict import FAILURES
 
 __all__ = ["section_figure", "pseudo_section_figure", "model_figure", "mark_verdicts",
            "mark_columns", "label_stations", "station_edges", "COLUMN_MARKS",
@@ -81,12 +82,12 @@ def _runs(flags):
 
 
 #: Column marks of :func:`mark_columns`: class -> (legend label, face colour, edge colour,
-#: hatch). 1: failed fit (misfit, stalled); 2: flagged fit (bound, thin layer); 3: posterior
+#: hatch). 1: failed fit (misfit); 2: flagged fit (stalled, bound, thin layer); 3: posterior
 #: intervals unconverged (tem.invert.interval); 4: the recording failed the evening QC
 #: (verdict reoccupy; tem.qc).
 COLUMN_MARKS = {
-    1: ("model not fitted (misfit, stalled)", (0.45, 0.45, 0.45, 0.55), "0.15", "xx"),
-    2: ("model flagged (bound, thin layer)", (1, 1, 1, 0.0), "0.3", ".."),
+    1: ("model not fitted (misfit)", (0.45, 0.45, 0.45, 0.55), "0.15", "xx"),
+    2: ("model flagged (stalled, bound, thin layer)", (1, 1, 1, 0.0), "0.3", ".."),
     # sparse and half-transparent: with every station unconverged it covers the whole section,
     # which must stay readable under it (the caption above the section says it in words)
     3: ("intervals unconverged (R-hat, ESS)", (1, 1, 1, 0.0), (0.64, 0.16, 0.11, 0.55), "\\"),
@@ -180,8 +181,8 @@ def mark_verdicts(ax, grid, scale, yrange, column_edges=None):
     two stations carries the more severe verdict of the two, as its SEG-Y
     trace does; docs/sections.md), or, in a grid without column verdicts,
     each such station's share of the profile (midpoints to its neighbours).
-    Failures (misfit, stalled) are greyed and cross-hatched, warnings
-    (parameter at a bound, degenerate layer) dotted; columns whose
+    Failures (misfit) are greyed and cross-hatched, warnings
+    (stalled, parameter at a bound, degenerate layer) dotted; columns whose
     ``qc_verdict_code`` is reoccupy are tinted and hatched with crosses.
     Columns whose ``interval_verdict_code`` is unconverged (posterior
     models whose sampling did not converge) are hatched in dark red.
@@ -191,7 +192,7 @@ def mark_verdicts(ax, grid, scale, yrange, column_edges=None):
     ``verdict-columns``, ``qc-columns`` and ``interval-columns``, labels
     ``verdict-label-<station>``.
     """
-    from .verdicts import QC_REOCCUPY
+    from .verdicts import FAILURE_CODES, QC_REOCCUPY
 
     n = grid.sizes["station"]
     sd = grid["station_distance"].values.astype(float)
@@ -203,7 +204,7 @@ def mark_verdicts(ax, grid, scale, yrange, column_edges=None):
         chi2 = grid["station_chi2"].values.astype(float) if "station_chi2" in grid else \
             np.full(codes.size, np.nan)
         _mark_verdict_columns(ax, grid, "verdict", edges, sd, scale, yrange,
-                              lambda c: 0 if c <= 0 else (1 if c in (1, 2) else 2),
+                              lambda c: 0 if c <= 0 else (1 if c in FAILURE_CODES else 2),
                               "verdict-columns")
         for k, code in enumerate(codes):
             status = "" if code <= 0 else (names[code].replace("_", "-") if code < len(names)
@@ -401,7 +402,7 @@ def model_figure(models, indices=None, max_depth=None, ncols=6, panel_width=1.8,
     Each panel shows the layered model as steps, the band
     10**(log10 rho +- log10_res_std) when known, and the DOI as a dashed
     line with the part below it greyed. A panel whose model is not fitted
-    has its verdict under the station name (misfit and stalled on grey), and
+    has its verdict under the station name (a misfit on grey), and
     one whose recording failed the evening QC says "QC reoccupy" (tinted).
 
     Parameters
@@ -455,7 +456,7 @@ def model_figure(models, indices=None, max_depth=None, ncols=6, panel_width=1.8,
         ax.set_ylim(zmax, 0)
         v, q = verdicts[i], qcs[i]
         lines = [str(models["station"].values[i])]
-        failure = v is not None and v["status"] in ("misfit", "stalled")
+        failure = v is not None and v["status"] in FAILURES
         if v is not None and v["status"] != "fitted":   # a model not fitted says so
             lines.append(v["status"])
         if q is not None and q["verdict"] != "good":    # so does a recording that failed QC

@@ -82,20 +82,45 @@ def posterior_section_figure(models, settings, title=None):
         ax.set_ylim(ye[-1], ye[0])
         ax.set_ylabel("depth below surface (m)")
     _mark_unconverged((ax1, ax2), models, idx, sd, scale, (ye[0], ye[-1]), (xe[0], xe[-1]))
+    fit = _mark_fit_verdicts((ax1, ax2), models, idx, sd, scale, (ye[0], ye[-1]),
+                             (xe[0], xe[-1]))
     qc = _mark_failed_qc((ax1, ax2), models, idx, sd, scale, (ye[0], ye[-1]), (xe[0], xe[-1]))
     # the legend below the P50 panel, not over it (the layout makes room)
     ax1.legend(fontsize=7, loc="upper center", bbox_to_anchor=(0.5, -0.03), ncols=3,
                framealpha=0.9)
     ax1.set_title(title or "posterior P50 resistivity (few-layer models)",
-                  pad=24 if any(qc) else 14)        # room for two-line station names
+                  pad=14 + 10 * (any(qc) + any(fit)))   # room for station names of 2-3 lines
     ax2.set_title("posterior spread: log10(P90 / P10) of resistivity")
     ax2.set_xlabel(f"distance along profile ({unit})")
-    for s, x, q in zip(g50["station"].values.astype(str)[order], sd, qc):
-        ax1.annotate(s + (f"\nQC {q}" if q else ""), (x, ye[0]), xytext=(0, 2),
+    for s, x, q, f in zip(g50["station"].values.astype(str)[order], sd, qc, fit):
+        ax1.annotate(s + (f"\n{f}" if f else "") + (f"\nQC {q}" if q else ""), (x, ye[0]),
+                     xytext=(0, 2),
                      textcoords="offset points", ha="center", va="bottom", fontsize=6,
                      annotation_clip=False, color="#5b2a86" if q == "reoccupy" else "k",
                      fontweight="bold" if q == "reoccupy" else "normal")
     return fig
+
+
+def _mark_fit_verdicts(axes, models, idx, sd, scale, yrange, xrange):
+    """Hatch the columns of stations whose few-layer fit is not fitted, as the section figure
+    does (misfit grey and cross-hatched, the warnings dotted; gid ``verdict-columns``);
+    returns each station's verdict and chi2 ("" when fitted or none), in profile order."""
+    from ..invert.verdict import FAILURES
+    from ..io.models import model_verdicts
+    from .plot import mark_columns, station_edges
+
+    every = model_verdicts(models)
+    chi2 = models["chi2"].values.astype(float)
+    vs = [(every[i], chi2[i]) for i in idx]
+    words = ["" if v is None or v["status"] == "fitted" else f"{v['status']} chi2 {c:.1f}"
+             for v, c in vs]
+    cls = [0 if not w else (1 if v["status"] in FAILURES else 2) for w, (v, _) in zip(words, vs)]
+    if any(cls):
+        edges = np.clip(station_edges(np.asarray(sd) / scale, scale), *xrange)
+        for ax in axes:
+            mark_columns(ax, edges, cls, yrange, "verdict-columns")
+            ax.set_xlim(*xrange)
+    return words
 
 
 def _mark_failed_qc(axes, models, idx, sd, scale, yrange, xrange):

@@ -19,9 +19,10 @@ __all__ = ["add_section_verdicts", "add_section_qc", "add_section_intervals", "S
 #: Severity rank of each verdict code (0 fitted, 1 misfit, 2 stalled, 3 at bound,
 #: 4 degenerate layer; -1 none): higher is worse.
 SEVERITY_RANK = {-1: -1, 0: 0, 4: 1, 3: 2, 2: 3, 1: 4}
-#: Codes of models that are not fitted (anything but 0), and of failures (misfit, stalled).
+#: Codes of models that are not fitted (anything but 0), and of failures (misfit; a stalled
+#: model is a warning, as for the exit status: docs/inversion.md, "Verdicts").
 NOT_FITTED_CODES = (1, 2, 3, 4)
-FAILURE_CODES = (1, 2)
+FAILURE_CODES = (1,)
 #: Evening QC verdict code of a recording to be repeated (``qc_verdict_code``; -1 none,
 #: 0 good, 1 check, 2 reoccupy): higher is worse.
 QC_REOCCUPY = 2
