@@ -246,3 +246,25 @@ def test_station_labels_never_overlap_nor_leave_the_axes(at, tmp_path):
     first = [t.get_position() for t in texts]
     fig.savefig(tmp_path / "labels2.png")
     np.testing.assert_allclose([t.get_position() for t in texts], first, rtol=1e-3)
+
+
+def test_a_misfit_doi_does_not_set_the_section_depth():
+    # a dead channel's misfit model reported a DOI of 8.8 km and the default section went to
+    # 22 km under a survey resolved to about 2 km: the default bottom (1.25 x the deepest DOI;
+    # common practice, no source) takes the DOIs of the models that are not a misfit
+    from tem.invert.verdict import CODES, STATUSES
+
+    m = synthetic_models()
+    base = stitch_models(m, depth_step=5.0, **PROFILE)
+    assert float(base["depth"].values[-1]) == pytest.approx(1.25 * np.nanmax(m["doi"].values),
+                                                            abs=5.0)
+    codes = np.zeros(m.sizes["station"], np.int8)
+    codes[0] = CODES["misfit"]
+    m["verdict_code"] = ("station", codes, {"flag_values": np.arange(len(STATUSES), dtype=np.int8)})
+    m["doi"].values[0] = 8800.0
+    g = stitch_models(m, depth_step=5.0, **PROFILE)
+    assert float(g["depth"].values[-1]) == pytest.approx(1.25 * np.nanmax(m["doi"].values[1:]),
+                                                         abs=5.0)
+    m["verdict_code"].values[:] = CODES["misfit"]          # all misfit: their DOIs it is
+    g = stitch_models(m, depth_step=5.0, **PROFILE)
+    assert float(g["depth"].values[-1]) == pytest.approx(1.25 * 8800.0, abs=5.0)

@@ -290,6 +290,18 @@ def default_max_depth(doi, depth_top, factor=1.25):
     return float(1.1 * np.nanmax(np.asarray(depth_top, float)))
 
 
+def _depth_setting_doi(models, idx, doi):
+    """The DOIs that set a section's default depth: those of models that are not a misfit
+    (a misfit's DOI means nothing; one of 8.8 km made a 22 km section of a 2 km survey),
+    unless every model is one."""
+    from ..invert.verdict import CODES
+
+    if "verdict_code" not in models.variables:
+        return doi
+    ok = np.asarray(models["verdict_code"].values).astype(int)[idx] != CODES["misfit"]
+    return doi[ok] if np.isfinite(doi[ok]).any() else doi
+
+
 def stitch_models(models, depth_step, *, order, lateral, vertical, max_depth=None, positions=None,
                   line=None, max_gap=None, depth=None):
     """Section grid (chainage x depth) of log10 resistivity from a models Dataset.
@@ -367,7 +379,7 @@ def stitch_models(models, depth_step, *, order, lateral, vertical, max_depth=Non
         axis = np.asarray(depth, float)
     else:
         if max_depth is None:
-            max_depth = default_max_depth(doi, top)
+            max_depth = default_max_depth(_depth_setting_doi(models, idx, doi), top)
         if not max_depth > 0:
             raise input_error("max_depth", f"must be positive, got {max_depth}")
         nz = int(np.floor(max_depth / depth_step + 1e-9)) + 1
