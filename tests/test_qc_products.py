@@ -215,3 +215,23 @@ def test_report_models_table(project):
     assert "<th>QC</th>" in table
     row = [r for r in table.split("<tr") if f">{DEAD}<" in r][0]
     assert 'class="reoccupy"' in row and '<td class="status">reoccupy</td>' in row
+
+
+def test_fit_figure_states_the_qc_verdict(project, monkeypatch):
+    # the station's fit figure said nothing of a recording to repeat (the section, model
+    # figure and every file did): its title now says the verdict and reasons
+    import tem.io.figures as figures
+    from tem.invert.settings import InversionSettings, floors_of
+    from tem.invert.stage import invert_one
+
+    out = project[0]
+    seen = []
+    monkeypatch.setattr(figures, "figure_bytes", lambda fig, *a, **k: seen.append(fig) or b"")
+    st = InversionSettings(kind="smooth", layers=12, max_iter=4)
+    invert_one(DEAD, out / "gated" / f"{DEAD}.nc", st, floors_of(st), out / "x.png",
+               ("reoccupy", "ex dead"))
+    assert seen and seen[0]._suptitle.get_text() == "evening QC reoccupy: ex dead"
+    seen.clear()
+    invert_one(DEAD, out / "gated" / f"{DEAD}.nc", st, floors_of(st), out / "x.png",
+               ("good", ""))
+    assert seen and seen[0]._suptitle is None

@@ -20,8 +20,11 @@ from .settings import InversionSettings, floors_of
 __all__ = ["run", "invert_one", "verdict_info", "not_fitted"]
 
 
-def invert_one(sid, in_path, settings: InversionSettings, floors, fig_path):
-    """Invert one gated file (runs in a worker process); the result rides in ``payload``."""
+def invert_one(sid, in_path, settings: InversionSettings, floors, fig_path, qc=None):
+    """Invert one gated file (runs in a worker process); the result rides in ``payload``.
+
+    ``qc``: the station's evening QC verdict and reasons (``(verdict, reasons)``), written
+    on its fit figure when it is not good (a model on a recording to repeat says so)."""
     from ..io.stacked import read_product
     from .data import station_data
     from .station import invert_station
@@ -38,6 +41,14 @@ def invert_one(sid, in_path, settings: InversionSettings, floors, fig_path):
             fig = posterior_station_figure(r, settings.cover_layers)
         else:
             fig = station_figure(r, kind=settings.kind)
+        if qc is not None and qc[0] in ("reoccupy", "check"):
+            words = f"evening QC {qc[0]}: {qc[1]}"[:160]
+            if fig._suptitle is not None:        # e.g. the posterior's interval verdict
+                fig.suptitle(f"{fig._suptitle.get_text()}\n{words}", fontsize=10,
+                             color=fig._suptitle.get_color())
+            else:
+                fig.suptitle(words, fontsize=10, color="#5b2a86" if qc[0] == "reoccupy"
+                             else "#7d6608", fontweight="bold" if qc[0] == "reoccupy" else None)
         products.append((fig_path, figure_bytes(fig)))
     # the iteration log is the figure's only: the result travels to the client without it
     r.history = []
@@ -191,8 +202,9 @@ def run(settings: InversionSettings, gated_files, out, ctx: StageContext = Stage
     qc_rows = read_stations_csv(qc) if qc is not None else None
     floors = floors_of(settings)
     files = {Path(f).stem: Path(f) for f in gated_files}
+    qc_of = {r["station"]: (r["verdict"], r["reasons"]) for r in qc_rows or ()}
     jobs = [(sid, (sid, f, settings, floors,
-                   project.station_figure(sid, "fit") if ctx.figures else None))
+                   project.station_figure(sid, "fit") if ctx.figures else None, qc_of.get(sid)))
             for sid, f in files.items()]
     collect = _Collector(settings)
     try:
