@@ -54,7 +54,9 @@ def posterior_params(models, i, null):
     return [("TTP10", "m", num("target_top_p10", 2), "Target top, posterior P10 (below ground)"),
             ("TTP50", "m", num("target_top_p50", 2), "Target top, posterior P50"),
             ("TTP90", "m", num("target_top_p90", 2), "Target top, posterior P90"),
-            ("TLAY", "", int(models["target_layer"].values[i]), "Target layer (0 = top)"),
+            # numbered from 1 at the surface, as the CSV's layer column and the verdicts'
+            # "layer 2" (models files keep the 0-based index, target_layer)
+            ("TLAY", "", int(models["target_layer"].values[i]) + 1, "Target layer (1 = top)"),
             ("RHAT", "", num("rhat_max", 4), "Largest split R-hat of the chains"),
             ("ESS", "", num("ess_min", 1), "Smallest effective sample size"),
             *interval_params(models, i)]
