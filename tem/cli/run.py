@@ -59,6 +59,10 @@ def print_summary(outcome, console):
         rec = state["stages"].get(stage)
         if rec is None:
             continue
+        if rec.get("reused") is True:     # a whole stage kept: not its old result lines again
+            console.print(f"{stage}: reused (inputs and settings unchanged; its products as "
+                          "written before)", highlight=False)
+            continue
         for note in rec.get("notes", []):
             console.print(f"{stage}: {note}", highlight=False)
         if rec.get("failed"):
