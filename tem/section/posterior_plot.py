@@ -101,25 +101,32 @@ def posterior_section_figure(models, settings, title=None):
     return fig
 
 
+def _hatch(axes, cls, sd, scale, yrange, xrange, gid):
+    """Mark the columns of class ``cls`` (per station, profile order; 0 none) in every panel,
+    each station's share from the midpoints to its neighbours, within the section's extent."""
+    from .plot import mark_columns, station_edges
+
+    if not any(cls):
+        return
+    edges = np.clip(station_edges(np.asarray(sd) / scale, scale), *xrange)
+    for ax in axes:
+        mark_columns(ax, edges, cls, yrange, gid)
+        ax.set_xlim(*xrange)
+
+
 def _mark_fit_verdicts(axes, models, idx, sd, scale, yrange, xrange):
     """Hatch the columns of stations whose few-layer fit is not fitted, as the section figure
     does (misfit grey and cross-hatched, the warnings dotted; gid ``verdict-columns``);
     returns each station's verdict and chi2 ("" when fitted or none), in profile order."""
     from ..invert.verdict import FAILURES
     from ..io.models import model_verdicts
-    from .plot import mark_columns, station_edges
-
     every = model_verdicts(models)
     chi2 = models["chi2"].values.astype(float)
     vs = [(every[i], chi2[i]) for i in idx]
     words = ["" if v is None or v["status"] == "fitted" else f"{v['status']} chi2 {c:.1f}"
              for v, c in vs]
     cls = [0 if not w else (1 if v["status"] in FAILURES else 2) for w, (v, _) in zip(words, vs)]
-    if any(cls):
-        edges = np.clip(station_edges(np.asarray(sd) / scale, scale), *xrange)
-        for ax in axes:
-            mark_columns(ax, edges, cls, yrange, "verdict-columns")
-            ax.set_xlim(*xrange)
+    _hatch(axes, cls, sd, scale, yrange, xrange, "verdict-columns")
     return words
 
 
@@ -128,17 +135,11 @@ def _mark_failed_qc(axes, models, idx, sd, scale, yrange, xrange):
     (reoccupy; gid ``qc-columns``); returns each station's QC word ("" when good or none),
     in profile order, for its name above the section."""
     from ..io.models import qc_verdicts
-    from .plot import mark_columns, station_edges
-
     every = qc_verdicts(models)
     qcs = [every[i] for i in idx]
     words = ["" if q is None or q["verdict"] == "good" else q["verdict"] for q in qcs]
     cls = [4 if w == "reoccupy" else 0 for w in words]
-    if any(cls):
-        edges = np.clip(station_edges(np.asarray(sd) / scale, scale), *xrange)
-        for ax in axes:
-            mark_columns(ax, edges, cls, yrange, "qc-columns")
-            ax.set_xlim(*xrange)
+    _hatch(axes, cls, sd, scale, yrange, xrange, "qc-columns")
     return words
 
 
@@ -147,22 +148,18 @@ def _mark_unconverged(axes, models, idx, sd, scale, yrange, xrange):
     rows in profile order, ``sd`` their distances, already scaled; ``xrange`` the section's
     extent, which the marks do not leave)."""
     from ..io.models import interval_words
-    from .plot import label_stations, mark_columns, station_edges
+    from .plot import label_stations
 
     every = interval_words(models)
     words = [every[i] for i in idx]
     if "unconverged" not in words:
         return
     cls = [3 if w == "unconverged" else 0 for w in words]
-    edges = np.clip(station_edges(np.asarray(sd) / scale, scale), *xrange)
+    _hatch(axes, cls, sd, scale, yrange, xrange, "interval-columns")
     sid = models["station"].values.astype(str)[idx]
     rhat = models["rhat_max"].values.astype(float)[idx]
     ess = models["ess_min"].values.astype(float)[idx]
     labels = [(s, f"R-hat {r:.2f}\nESS {e:.0f}" if c else "")
               for s, r, e, c in zip(sid, rhat, ess, cls)]
-    for k, ax in enumerate(axes):
-        mark_columns(ax, edges, cls, yrange, "interval-columns")
-        ax.set_xlim(*xrange)
-        if k == 0:
-            label_stations(ax, sd, labels, yrange, "interval-label-", color="#a4281b",
-                           at="bottom")
+    label_stations(axes[0], sd, labels, yrange, "interval-label-", color="#a4281b",
+                   at="bottom")
