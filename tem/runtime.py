@@ -16,7 +16,7 @@ from dataclasses import dataclass, field
 from .errors import TemInputError, TemOutputError
 
 __all__ = ["StationOutcome", "StageResult", "StageContext", "Outcomes", "map_stations",
-           "return_large_blocks", "process_pool",
+           "return_large_blocks", "process_pool", "threads_per_worker",
            "write_products", "report_progress", "Tally"]
 
 
@@ -329,9 +329,19 @@ def batch_size(executor, n_todo) -> int:
     return max(1, min(4, n_todo // (8 * threads)))
 
 
-def _guarded_batch(task, items, reporter=None):
-    """:func:`_guarded` for each ``(station, args)`` of ``items``, in order (one cluster task)."""
+def _guarded_batch(task, items, reporter=None, threads=None):
+    """:func:`_guarded` for each ``(station, args)`` of ``items``, in order (one cluster task);
+    with ``threads``, numba's threads in the thread running it are capped at that number
+    (the number is per thread in numba)."""
+    if threads is not None:
+        _cap_numba_threads(threads)
     return [_guarded(task, sid, args, reporter) for sid, args in items]
+
+
+def _cap_numba_threads(threads: int):
+    import numba
+
+    numba.set_num_threads(max(1, min(int(threads), numba.config.NUMBA_NUM_THREADS)))
 
 
 def _run_windowed(executor, task, todo, reporter, done, batch=None):
@@ -355,7 +365,8 @@ def _run_windowed(executor, task, todo, reporter, done, batch=None):
         if dask:
             # pure=False: a random key, so dask does not hash the arguments (a station's
             # survey text and arrays) to name the task
-            fut = executor.submit(_guarded_batch, task, items, reporter, pure=False)
+            fut = executor.submit(_guarded_batch, task, items, reporter,
+                                  getattr(executor, "worker_threads", None), pure=False)
         else:
             fut = executor.submit(_guarded_batch, task, items, reporter)
         pending[fut] = [sid for sid, _ in items]
@@ -400,11 +411,33 @@ def _take(fut, sids, done):
         done(oc)
 
 
-def _worker_init(pid: int, queue=None):
-    """Pool worker initializer: watch the parent; keep the progress queue."""
+def _worker_init(pid: int, queue=None, threads: int | None = None):
+    """Pool worker initializer: watch the parent; keep the progress queue; cap numba's
+    threads at ``threads`` (:func:`threads_per_worker`)."""
     global _QUEUE
     _QUEUE = queue
     _watch_parent(pid)
+    if threads is not None:
+        _cap_numba_threads(threads)
+
+
+def threads_per_worker(jobs: int) -> int:
+    """numba threads for each of ``jobs`` worker processes: this machine's usable cores
+    shared between them (at least 1).
+
+    numba starts one thread per core in every process by default, so ``jobs`` workers
+    on as many cores ran ``jobs`` times as many threads as cores wherever the forward
+    modelling runs many models at once (the few-layer population search): on a 32-core
+    node with 32 workers, 1024 threads. On the 2-core test machine the effect on the
+    demo's invert stage was within the run-to-run spread (docs/scaling.md).
+    """
+    import os
+
+    try:
+        cores = len(os.sched_getaffinity(0))
+    except AttributeError:  # pragma: no cover - platforms without affinity
+        cores = os.cpu_count() or 1
+    return max(1, cores // max(1, int(jobs)))
 
 
 def _watch_parent(pid: int, period: float = 0.5):
@@ -443,7 +476,7 @@ def process_pool(jobs: int):
         ctx = mp.get_context("spawn")
     queue = ctx.Queue()
     pool = cf.ProcessPoolExecutor(max_workers=int(jobs), mp_context=ctx, initializer=_worker_init,
-                                  initargs=(os.getpid(), queue))
+                                  initargs=(os.getpid(), queue, threads_per_worker(jobs)))
     pool.progress_queue = queue
     return pool
 

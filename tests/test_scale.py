@@ -254,6 +254,34 @@ def test_two_local_clusters_side_by_side_and_no_worker_profiler():
         assert a.submit(sum, [1, 2]).result() == 3 and b.submit(sum, [3, 4]).result() == 7
 
 
+def test_workers_share_the_cores_instead_of_each_taking_all():
+    # numba starts one thread per core in every process; N workers on N cores then ran N
+    # threads each where the forward runs many models at once (the few-layer population):
+    # N^2 threads on N cores (docs/scaling.md). One thread per core overall: common
+    # practice, no source.
+    import os
+
+    import numba
+
+    from tem.pipeline.cluster import dask_client
+    from tem.runtime import process_pool
+
+    share = max(1, len(os.sched_getaffinity(0)) // 2)
+    pool = process_pool(2)
+    try:
+        assert {pool.submit(numba.get_num_threads).result() for _ in range(4)} == {share}
+    finally:
+        pool.shutdown()
+    # on a cluster numba counts threads per thread: each task caps them where it runs
+    from tem.runtime import _guarded_batch
+    for jobs in (1, 2):
+        with dask_client("local", jobs) as client:
+            futs = [client.submit(_guarded_batch, numba.get_num_threads, [(sid, ())], None,
+                                  client.worker_threads, pure=False) for sid in "abcd"]
+            got = {n for out in client.gather(futs) for n in out}
+            assert got == {max(1, len(os.sched_getaffinity(0)) // jobs)}
+
+
 def test_workers_with_the_profiler_are_named_in_a_note():
     # a cluster started by hand keeps dask's default (profiler on): tem run says so
     from distributed import Client, LocalCluster

@@ -93,6 +93,12 @@ def dask_client(scheduler: str, jobs: int):
                              # default 8787 clashes with a second run or another cluster)
                              scheduler_kwargs={"dashboard_address": ":0"}) as cluster, \
                 Client(cluster) as client:
+            # numba's threads per worker: this machine's cores shared between the workers
+            # (dask sets BLAS's to 1 already); numba counts them per thread, so each task
+            # sets them where it runs (tem.runtime). A cluster started by hand: its workers'
+            # NUMBA_NUM_THREADS (docs/scaling.md)
+            from ..runtime import threads_per_worker
+            client.worker_threads = threads_per_worker(jobs)
             yield client
         return
     try:
