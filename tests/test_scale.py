@@ -164,8 +164,43 @@ def test_rerun_reuses_unchanged_products_and_redoes_edited_ones(day, tmp_path, c
     assert "gated/EM06.nc changed since the gate stage wrote it" in captured.out
     assert main(["run", str(survey), "--out", str(proj), "--jobs", "1", "--no-progress"]) == 0
     out = capsys.readouterr().out
-    assert "EM06: gated/EM06.nc changed since written (edited by hand?); recomputed" in out
+    # the rerun redoes it, and keeps the edited file (nothing lost)
+    kept = sorted((proj / "edited").glob("*/gated/EM06.nc"))
+    assert len(kept) == 1 and xr.load_dataset(kept[0], engine="h5netcdf")["value"].equals(
+        ds["value"])
+    assert (f"gated/EM06.nc changed since the gate stage wrote it (edited by hand?); kept as "
+            f"edited/{kept[0].parent.parent.name}/gated/EM06.nc, and redone") in out
+    shutil.rmtree(proj / "edited")
     assert_same_products(ref, proj, rtol=1e-9)
+
+
+def test_redone_stage_keeps_a_hand_edited_product(day, tmp_path, capsys):
+    # --from redoes a stage whatever its record says: a models table edited by hand was
+    # replaced without a word (found by an independent crash/resume check); it is kept
+    import shutil
+
+    survey, ref = day
+    proj = tmp_path / "p"
+    shutil.copytree(ref, proj)
+    table = proj / "models" / "models.csv"
+    edited = table.read_text().replace("EM06", "EM06 (picked by hand)", 1)
+    table.write_text(edited)
+    untouched = (proj / "models" / "fit.csv").read_bytes()
+    capsys.readouterr()
+    assert main(["run", str(survey), "--out", str(proj), "--from", "invert", "--jobs", "1",
+                 "--no-progress"]) == 0
+    out = capsys.readouterr().out
+    kept = sorted((proj / "edited").glob("*/models/models.csv"))
+    assert len(kept) == 1 and kept[0].read_text() == edited
+    note = (f"models/models.csv changed since the invert stage wrote it (edited by hand?); "
+            f"kept as edited/{kept[0].parent.parent.name}/models/models.csv, and redone")
+    assert note in out
+    state = json.loads((proj / "run.json").read_text())
+    assert note in state["stages"]["invert"]["notes"]
+    # the stage's other products were not edited: redone in place, nothing else kept
+    assert [p.name for p in (proj / "edited").rglob("*") if p.is_file()] == ["models.csv"]
+    assert (proj / "models" / "fit.csv").read_bytes() == untouched
+    assert (proj / "models" / "models.csv").read_bytes() == (ref / "models" / "models.csv").read_bytes()
 
 
 def test_second_run_into_the_same_project_is_refused(day, tmp_path, capsys):
@@ -203,6 +238,12 @@ def test_full_disk_is_one_line_and_leaves_no_half_product(day, tmp_path):
     assert proc.returncode == 1, err
     assert len(lines) == 1 and "cannot write: File too large" in lines[0], err
     assert not _partials(proj)
+    # the run record says which stage stopped and why, and the exit status
+    state = json.loads((proj / "run.json").read_text())
+    stopped = state["last_run"]["stopped"]
+    assert state["last_run"]["exit_status"] == 1 and "could not write its products" in stopped
+    stage = stopped.split(":")[0]
+    assert state["stages"][stage]["failed"] == stopped
     for f in proj.rglob("*.nc"):                        # whatever exists is whole
         xr.load_dataset(f, engine="h5netcdf")
 

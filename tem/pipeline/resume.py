@@ -20,7 +20,8 @@ from .. import __version__
 from ..io.checks import real_path
 from ..provenance import file_sha256
 
-__all__ = ["Checksums", "fingerprint", "station_survey_text", "reusable", "changed_products"]
+__all__ = ["Checksums", "fingerprint", "station_survey_text", "reusable", "changed_products",
+           "keep_edited", "EDITED"]
 
 
 class Checksums:
@@ -114,3 +115,39 @@ def reusable(project, record: dict | None, fp: str, sums: Checksums):
         return False, (f"{', '.join(changed)} changed since written (edited by hand?); "
                        "recomputed")
     return not missing, ""
+
+
+#: Folder of a project where hand-edited products are kept before their stage is redone.
+EDITED = "edited"
+
+
+def keep_edited(project, recorded: dict, sums: Checksums, stage: str, stamp: str) -> list:
+    """Move the products among ``recorded`` (``{relpath: sha256}``) whose checksum changed
+    since they were written (edited by hand) to ``edited/<stamp>/<relpath>``, before their
+    stage writes them anew; returns one note per file kept.
+
+    A redone stage would otherwise replace a hand-edited file without a word (``--from``
+    redoes a stage whatever its record says; a rerun redoes a changed product): the edit
+    is kept instead, and said. A move within the project (one rename), so nothing is
+    copied; a move that fails is a :class:`tem.errors.TemOutputError` (one line, exit 1).
+    """
+    import os
+
+    from ..errors import TemOutputError
+
+    _, changed = changed_products(project, recorded, sums)
+    notes = []
+    for rel in changed:
+        src = project.root / rel
+        dst = project.root / EDITED / stamp / rel
+        try:
+            dst.parent.mkdir(parents=True, exist_ok=True)
+            os.replace(src, dst)
+        except OSError as exc:
+            raise TemOutputError(exc.errno or 0, f"{src}: cannot keep the hand-edited file "
+                                 f"before the {stage} stage replaces it: {exc.strerror or exc}") \
+                from None
+        sums.forget(src)
+        notes.append(f"{rel} changed since the {stage} stage wrote it (edited by hand?); kept "
+                     f"as {EDITED}/{stamp}/{rel}, and redone")
+    return notes

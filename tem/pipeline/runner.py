@@ -23,13 +23,14 @@ from dataclasses import dataclass
 from pathlib import Path
 
 from .. import __version__
-from ..errors import input_error
+from ..errors import TemOutputError, input_error
 from ..io.checks import real_path
 from ..io.project import Project, ProjectLock, check_output
 from ..io.spool import Spool, SpooledDict, json_chunks, spool_record
 from ..provenance import stage_record
 from ..runtime import StageContext, StationOutcome, Tally, process_pool
-from .resume import Checksums, changed_products, fingerprint, reusable, station_survey_text
+from .resume import (Checksums, changed_products, fingerprint, keep_edited, reusable,
+                     station_survey_text)
 from .settings import STAGES, processing_table, resolve_settings
 
 __all__ = ["run_pipeline", "RunOutcome", "STATION_STAGES", "read_run", "not_fitted", "to_reoccupy",
@@ -218,13 +219,27 @@ class _Run:
     """State of one ``tem run``: survey, settings, project, previous record, checksums."""
 
     def __init__(self, survey, survey_file, settings, project, state, previous, ctx_kw,
-                 spool, force=()):
+                 spool, force=(), redone=None):
         self.survey, self.survey_file, self.settings = survey, survey_file, settings
         self.project, self.state, self.previous = project, state, previous
         self.spool = spool
         self.sums = Checksums(previous.get("checksums"), table=spool.dict("checksums"))
         self.ctx_kw = ctx_kw
         self.force = set(force)          # stages recomputed whatever their fingerprints say
+        # the earlier records of the forced stages: only to find their hand-edited products
+        self.redone = redone or {}
+        self.stamp = _dt.datetime.now(_dt.timezone.utc).strftime("%Y%m%dT%H%M%SZ")
+
+    def _keep_edited(self, stage, old, reused):
+        """Keep the hand-edited products of ``old`` (the stage's earlier record) that this
+        run is about to write anew (not those of stations ``reused``); notes."""
+        if not old:
+            return []
+        recorded = dict(old.get("checksums") or {})
+        for sid, st in (old.get("stations") or {}).items():
+            if sid not in reused:
+                recorded.update(st.get("checksums") or {})
+        return keep_edited(self.project, recorded, self.sums, stage, self.stamp)
 
     def _station_inputs(self, stage):
         """``(station, input files, extra)`` of a per-station stage, one station at a time (the
@@ -270,22 +285,21 @@ class _Run:
             for sid, files, extra in self._station_inputs(stage):
                 fps[sid] = fingerprint(stage, s.as_dict(), [self.sums.of(f) for f in files], extra)
                 old = (prev_rec or {}).get("stations", {}).get(sid)
-                ok, note = reusable(self.project, old, fps[sid], self.sums)
-                if note:
-                    notes.append(f"{sid}: {note}")
+                ok, _ = reusable(self.project, old, fps[sid], self.sums)
                 if ok:
                     reused[sid] = _outcome_from_record(sid, old, self.project)
             stage_fp = None
         elif stage != "report":
             files = self._profile_inputs(stage)
             stage_fp = fingerprint(stage, s.as_dict(), [self.sums.of(f) for f in files])
-            ok, note = reusable(self.project, prev_rec, stage_fp, self.sums)
-            if note:
-                notes.append(note)
+            ok, _ = reusable(self.project, prev_rec, stage_fp, self.sums)
             if ok:
                 return None, dict(prev_rec, reused=True, notes=prev_rec.get("notes", []) + notes)
         else:
             stage_fp = None
+        # a product edited by hand is kept, not overwritten (and said: terminal, run.json)
+        notes += self._keep_edited(stage, prev_rec if prev_rec is not None
+                                   else self.redone.get(stage), reused)
         ctx = StageContext(progress=tally.station, partial=tally.fraction, run_state=self.state,
                            reused=reused, **self.ctx_kw)
         t0 = time.perf_counter()
@@ -489,18 +503,18 @@ def _run_locked(survey, survey_file, settings, project, start, end, jobs, consol
         if missing:
             raise input_error("--from", f"stage {missing[0]} has no record in run.json; rerun "
                               f"from {missing[0]} or earlier", project.run_json)
-        for s in STAGES[start:]:
-            state["stages"].pop(s, None)
+        redone = {s: state["stages"].pop(s) for s in STAGES[start:] if s in state["stages"]}
         # the stages from --from on are redone whatever their records say: of the earlier
         # record, only the file checksums are of use
         previous = {"checksums": state.get("checksums")}
     else:
+        redone = {}
         if project.run_json.is_file():
             with contextlib.suppress(Exception):
                 previous = spool_record(read_run(project.root), spool, "previous")
         state = {"tem_format": FORMAT, "format_version": FORMAT_VERSION, "stages": {}}
     run = _Run(survey, survey_file, settings, project, state, previous, {"figures": figures},
-               spool, force=STAGES[start:] if start > 0 else ())
+               spool, force=STAGES[start:] if start > 0 else (), redone=redone)
     t_run = time.perf_counter()
     state.update({"tem_version": __version__,
                   "survey": {"file": str(real_path(survey_file)), "sha256": run.sums.of(survey_file),
@@ -545,8 +559,14 @@ def _run_locked(survey, survey_file, settings, project, start, end, jobs, consol
                                                                    description=text))
             try:
                 result, rec = run.run_stage(stage, tally)
+            except TemOutputError as exc:
+                # a failed write (disk full, file-size limit) stops the run: the record says
+                # which stage and why, and the exit status, before the one-line error
+                _record_failed_write(project, state, stage, exc, t_run)
+                raise
             finally:
-                _write_run(project, state)
+                with contextlib.suppress(TemOutputError):
+                    _write_run(project, state)
             desc = ("reused" if result is None else
                     "[red]" + result.failed if result.failed else "done")
             if result is not None:
@@ -581,6 +601,16 @@ def _run_locked(survey, survey_file, settings, project, start, end, jobs, consol
     state["last_run"]["exit_status"] = exit_status_of(state)
     _write_run(project, state)
     return RunOutcome(state=state, exit_status=state["last_run"]["exit_status"], project=project)
+
+
+def _record_failed_write(project, state, stage, exc, t_run):
+    """The run record of a run stopped by a failed write in ``stage`` (then written, if the
+    disk still takes it: it is small, and written atomically, so an old record stays whole
+    otherwise)."""
+    why = f"{stage}: could not write its products: {exc}".splitlines()[0]
+    state["stages"][stage] = dict(stage_record(stage, {}), stations={}, failed=why, outputs=[])
+    state["last_run"].update(stopped=why, elapsed_s=round(time.perf_counter() - t_run, 2),
+                             exit_status=1)
 
 
 def exit_status_of(state) -> int:
