@@ -16,6 +16,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from ..errors import input_error
+from .settings import FLOOR_COMPONENTS, parse_floor
 
 __all__ = ["DEFAULT_FLOOR", "StationData", "parse_floors", "station_data", "check_sounding"]
 
@@ -24,47 +25,24 @@ DEFAULT_FLOOR = 0.03
 
 _REQUIRED = ("value", "error", "usable", "gate_open", "gate_close", "gate_centre", "component",
              "rx_x0", "rx_y0", "rx_x1", "rx_y1")
-_COMPONENTS = ("ex", "ey", "bz", "dbxdt", "dbydt", "dbzdt")
 
 
 def parse_floors(spec) -> dict:
     """Relative error floors per component.
 
     ``spec`` is a float (all components), a dict ``{component: floor}``, or a
-    string ``"0.03"`` / ``"ex=0.05,dbzdt=0.03"`` (others keep the default).
+    string ``"0.03"`` / ``"ex=0.05,dbzdt=0.03"`` (others keep the default); read by
+    :func:`tem.invert.settings.parse_floor`, the one parser of the floor's text.
     """
     if spec is None:
-        return {c: DEFAULT_FLOOR for c in _COMPONENTS}
-    if isinstance(spec, (int, float)):
-        out = {c: float(spec) for c in _COMPONENTS}
-    elif isinstance(spec, dict):
-        out = {c: DEFAULT_FLOOR for c in _COMPONENTS}
-        out.update({str(k): float(v) for k, v in spec.items()})
-    else:
-        text = str(spec).strip()
-        if "=" not in text:
-            try:
-                return parse_floors(float(text))
-            except ValueError:
-                raise input_error("error floor", f"not a number: {text!r}") from None
-        out = {c: DEFAULT_FLOOR for c in _COMPONENTS}
-        seen = set()
-        for part in text.split(","):
-            k, _, v = part.partition("=")
-            k = k.strip()
-            if k in seen:
-                raise input_error("error floor", f"{k} given twice")
-            seen.add(k)
-            if k not in _COMPONENTS:
-                raise input_error("error floor", f"unknown component {k!r}; valid: {', '.join(_COMPONENTS)}")
-            try:
-                out[k] = float(v)
-            except ValueError:
-                raise input_error("error floor", f"not a number for {k}: {v!r}") from None
-    for k, v in out.items():
-        if not (np.isfinite(v) and 0 <= v < 1):
-            raise input_error("error floor", f"{k}: relative floor must be in [0, 1), got {v}")
-    return out
+        return {c: DEFAULT_FLOOR for c in FLOOR_COMPONENTS}
+    try:
+        value = parse_floor(spec)
+    except ValueError as exc:
+        raise input_error("error floor", str(exc).splitlines()[0]) from None
+    if isinstance(value, dict):
+        return {c: value.get(c, DEFAULT_FLOOR) for c in FLOOR_COMPONENTS}
+    return {c: value for c in FLOOR_COMPONENTS}
 
 
 @dataclass
@@ -162,8 +140,9 @@ def check_sounding(ds, file=None):
     if len(comps) != nch:
         raise input_error("component", f"{len(comps)} components for {nch} channels", file)
     for c in comps:
-        if c not in _COMPONENTS:
-            raise input_error("component", f"unknown component {c!r}; valid: {', '.join(_COMPONENTS)}", file)
+        if c not in FLOOR_COMPONENTS:
+            raise input_error("component", f"unknown component {c!r}; valid: "
+                              f"{', '.join(FLOOR_COMPONENTS)}", file)
     rx = np.array([np.asarray(ds[k].values, float) for k in ("rx_x0", "rx_y0", "rx_x1", "rx_y1")])
     if rx.shape != (4, nch) or not np.all(np.isfinite(rx)):
         raise input_error("rx_x0", "receiver coordinates must be finite, one set per channel", file)

@@ -23,12 +23,14 @@ def parse_floor(value):
             out = {}
             for part in text.split(","):
                 k, _, v = part.partition("=")
+                if not k.strip():
+                    raise ValueError(f"an entry names no component: {text[:40]!r}")
                 if k.strip() in out:
                     raise ValueError(f"{k.strip()[:20]} given twice")
                 out[k.strip()] = v.strip()
             value = out
         else:
-            value = float(text)
+            value = text
     if isinstance(value, dict):
         out = {}
         for comp, v in value.items():
@@ -43,10 +45,13 @@ def parse_floor(value):
 
 
 def _floor_value(v, comp=None):
+    where = f"{comp}: " if comp else ""
     if isinstance(v, str):
-        v = float(v)
+        try:
+            v = float(v)
+        except ValueError:
+            raise ValueError(f"{where}not a number: {v.strip()[:20]!r}") from None
     if isinstance(v, bool) or not isinstance(v, (int, float)) or not 0 <= float(v) < 1:
-        where = f"{comp}: " if comp else ""
         raise ValueError(f"{where}relative floor must be in [0, 1), got {str(v)[:20]}")
     return float(v)
 

@@ -17,7 +17,6 @@ from __future__ import annotations
 
 import contextlib
 import datetime as _dt
-import json
 import time
 from dataclasses import dataclass
 from pathlib import Path
@@ -26,9 +25,11 @@ from .. import __version__
 from ..errors import TemOutputError, input_error
 from ..io.checks import real_path
 from ..io.project import Project, ProjectLock, check_output
-from ..io.spool import Spool, SpooledDict, json_chunks, spool_record
+from ..io.spool import Spool, SpooledDict, spool_record
 from ..provenance import stage_record
 from ..runtime import StageContext, StationOutcome, Tally, process_pool
+from .record import (FORMAT, FORMAT_VERSION, exit_status_of, not_fitted, read_run,
+                     record_failed_write, to_reoccupy, write_run)
 from .resume import (Checksums, changed_products, fingerprint, keep_edited, reusable,
                      station_survey_text)
 from .settings import STAGES, processing_table, resolve_settings
@@ -38,9 +39,6 @@ __all__ = ["run_pipeline", "RunOutcome", "STATION_STAGES", "read_run", "not_fitt
            "FORMAT",
            "FORMAT_VERSION",
            "OWNED"]
-
-FORMAT = "run"
-FORMAT_VERSION = "1.0"
 
 #: Station stages: the stage whose passing stations they process.
 STATION_STAGES = {"stack": None, "gate": "stack", "rhoa": "gate", "invert": "gate"}
@@ -73,81 +71,6 @@ def _now():
     return _dt.datetime.now(_dt.timezone.utc).isoformat(timespec="seconds")
 
 
-def read_run(project) -> dict:
-    """The run record ``run.json`` of a project folder."""
-    path = Project(project).run_json
-    if not path.is_file():
-        raise input_error("run.json", "not found: the project has no earlier run; run without "
-                          "--from first", path)
-    try:
-        state = json.loads(path.read_text(encoding="utf-8"))
-    except (OSError, ValueError, UnicodeDecodeError, RecursionError) as exc:
-        raise input_error("run.json", f"unreadable ({type(exc).__name__})", path) from None
-    if not isinstance(state, dict) or state.get("tem_format") != FORMAT \
-            or str(state.get("format_version", "")).split(".")[0] != "1" \
-            or not isinstance(state.get("stages"), dict):
-        raise input_error("format_version", "not a tem run record of version 1.x", path)
-    _check_record_parts(state, path)
-    return state
-
-
-def _check_record_parts(state, path):
-    """The parts of a run record the runner reads have their types (a hand-damaged record is
-    refused in one line, not met as a traceback later)."""
-    parts = [(key, state.get(key), dict) for key in ("stations", "checksums", "survey",
-                                                     "parameters", "last_run")]
-    for stage, rec in state["stages"].items():
-        if not isinstance(rec, dict):
-            raise input_error(f"stages.{stage}", "not a table", path)
-        parts += [(f"stages.{stage}.stations", rec.get("stations"), dict),
-                  (f"stages.{stage}.inputs", rec.get("inputs"), list),
-                  (f"stages.{stage}.checksums", rec.get("checksums"), dict),
-                  (f"stages.{stage}.outputs", rec.get("outputs"), list),
-                  (f"stages.{stage}.notes", rec.get("notes"), list),
-                  (f"stages.{stage}.parameters", rec.get("parameters"), dict),
-                  (f"stages.{stage}.failed", rec.get("failed"), str)]
-        stations = rec.get("stations")
-        if stations is None and stage in STATION_STAGES:
-            raise input_error(f"stages.{stage}.stations", "missing (a station stage's record "
-                              "lists its stations)", path)
-        if isinstance(stations, dict):
-            for sid, r in stations.items():
-                parts.append((f"stages.{stage}.stations.{sid}", r, dict))
-                if isinstance(r, dict):
-                    parts += [(f"stages.{stage}.stations.{sid}.{key}", r.get(key), kind)
-                              for key, kind in (("checksums", dict), ("fingerprint", str),
-                                                ("message", str))]
-    for field, value, kind in parts:
-        if value is not None and not isinstance(value, kind):
-            raise input_error(field, "not " + {dict: "a table", list: "a list", str: "text"}[kind],
-                              path)
-    for field, table in [(f"stages.{stage}.checksums", rec.get("checksums"))
-                         for stage, rec in state["stages"].items()] + \
-            [(f"stages.{stage}.stations.{sid}.checksums", r.get("checksums"))
-             for stage, rec in state["stages"].items()
-             for sid, r in (rec.get("stations") or {}).items()]:
-        if table and not all(isinstance(v, str) for v in table.values()):
-            raise input_error(field, "a checksum that is not text", path)
-    for stage, rec in state["stages"].items():
-        for sid, r in (rec.get("stations") or {}).items():
-            if not isinstance(r.get("status"), str):
-                raise input_error(f"stages.{stage}.stations.{sid}.status", "missing (ok or "
-                                  "failed)", path)
-
-
-def _write_run(project, state):
-    """Write ``run.json`` atomically, streamed to the file (synced before the rename)."""
-    import os
-
-    from ..io.atomic import atomic_path
-    with atomic_path(project.run_json) as tmp:
-        with open(tmp, "w", encoding="utf-8") as fh:
-            fh.writelines(json_chunks(state))
-            fh.write("\n")
-            fh.flush()
-            os.fsync(fh.fileno())
-
-
 def _ok(state, survey):
     """{stage: ids of the stations that passed it, in survey order}."""
     out = {}
@@ -156,22 +79,6 @@ def _ok(state, survey):
         ok = set(st.keys_where("ok")) if isinstance(st, SpooledDict) else set()
         out[stage] = [s.id for s in survey.stations if s.id in ok]
     return out
-
-
-def not_fitted(state) -> dict:
-    """{station: verdict} of the stations whose chosen model is a failure (docs/inversion.md,
-    "Verdicts": a misfit; a stalled model is a warning and leaves the exit status at 0)."""
-    from ..invert.verdict import FAILURES
-
-    return {sid: s["verdict"] for sid, s in state.get("stations", {}).items()
-            if "failed_stage" not in s and s.get("verdict") in FAILURES}
-
-
-def to_reoccupy(state) -> list:
-    """Stations whose evening QC verdict is reoccupy (their recording failed QC; docs/qc.md):
-    the run's exit status is 1, as for ``tem evening``, whatever their models."""
-    return [sid for sid, s in state.get("stations", {}).items()
-            if s.get("qc_verdict") == "reoccupy"]
 
 
 def _station_summary(state, survey, out):
@@ -562,11 +469,11 @@ def _run_locked(survey, survey_file, settings, project, start, end, jobs, consol
             except TemOutputError as exc:
                 # a failed write (disk full, file-size limit) stops the run: the record says
                 # which stage and why, and the exit status, before the one-line error
-                _record_failed_write(project, state, stage, exc, t_run)
+                record_failed_write(project, state, stage, exc, t_run)
                 raise
             finally:
                 with contextlib.suppress(TemOutputError):
-                    _write_run(project, state)
+                    write_run(project, state)
             desc = ("reused" if result is None else
                     "[red]" + result.failed if result.failed else "done")
             if result is not None:
@@ -581,7 +488,7 @@ def _run_locked(survey, survey_file, settings, project, start, end, jobs, consol
             state["stages"][stage] = rec
             state["stations"] = _station_summary(state, survey, stations)
             state["checksums"] = run.sums.table
-            _write_run(project, state)
+            write_run(project, state)
             prog.update(task, completed=max(n, 1), description=desc)
             passed = [sid for sid, r in rec.get("stations", {}).items() if r["status"] == "ok"]
             if stage in STATION_STAGES and not passed:
@@ -599,28 +506,7 @@ def _run_locked(survey, survey_file, settings, project, start, end, jobs, consol
         failed=[sid for sid, s in state.get("stations", {}).items() if "failed_stage" in s],
         not_fitted=not_fitted(state), reoccupy=to_reoccupy(state))
     state["last_run"]["exit_status"] = exit_status_of(state)
-    _write_run(project, state)
+    write_run(project, state)
     return RunOutcome(state=state, exit_status=state["last_run"]["exit_status"], project=project)
 
 
-def _record_failed_write(project, state, stage, exc, t_run):
-    """The run record of a run stopped by a failed write in ``stage`` (then written, if the
-    disk still takes it: it is small, and written atomically, so an old record stays whole
-    otherwise)."""
-    why = f"{stage}: could not write its products: {exc}".splitlines()[0]
-    state["stages"][stage] = dict(stage_record(stage, {}), stations={}, failed=why, outputs=[])
-    state["last_run"].update(stopped=why, elapsed_s=round(time.perf_counter() - t_run, 2),
-                             exit_status=1)
-
-
-def exit_status_of(state) -> int:
-    """Exit status of a run from its record: 2 when a station failed on bad input; 1 when a
-    station or a profile step failed, the run stopped, a chosen model is a misfit or a
-    recording is to be re-occupied; else 0."""
-    failed = any("failed_stage" in s for s in state["stations"].values())
-    failed |= any(rec.get("failed") for rec in state["stages"].values())
-    failed |= bool(state.get("last_run", {}).get("stopped"))
-    failed |= bool(not_fitted(state)) or bool(to_reoccupy(state))
-    bad = any(r.get("bad_input") for rec in state["stages"].values()
-              for r in rec.get("stations", {}).values())
-    return 2 if bad else 1 if failed else 0
