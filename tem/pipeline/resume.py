@@ -7,8 +7,8 @@ its inputs (for a station's stack: its recordings and its part of the survey
 description; later stages: the products they read). A rerun without
 ``--from`` reuses a product whose fingerprint is unchanged and whose file still
 has its recorded checksum, and redoes the stale ones; a product whose checksum
-changed since it was written (edited by hand, or damaged) is reported and
-redone. Checksums of large inputs are cached by size and modification time.
+changed since it was written (edited by hand, or damaged) is moved to
+``edited/<time>/`` (:func:`keep_edited`), reported, and redone. Checksums of large inputs are cached by size and modification time.
 """
 from __future__ import annotations
 
@@ -99,22 +99,17 @@ def changed_products(project, recorded: dict, sums: Checksums) -> tuple:
     return missing, changed
 
 
-def reusable(project, record: dict | None, fp: str, sums: Checksums):
-    """Whether a recorded product set (station or stage) can be reused.
-
-    Returns ``(reuse, note)``: ``note`` names products changed since they were
-    written (they are then redone).
-    """
+def reusable(project, record: dict | None, fp: str, sums: Checksums) -> bool:
+    """Whether a recorded product set (station or stage) can be reused: same fingerprint,
+    every product there with its recorded checksum. A product changed since it was written
+    is not reused; :func:`keep_edited` keeps it before it is written anew, and says so."""
     if not record or record.get("fingerprint") != fp or record.get("status", "ok") != "ok":
-        return False, ""
+        return False
     recorded = record.get("checksums") or {}
     if not recorded:
-        return False, ""
+        return False
     missing, changed = changed_products(project, recorded, sums)
-    if changed:
-        return False, (f"{', '.join(changed)} changed since written (edited by hand?); "
-                       "recomputed")
-    return not missing, ""
+    return not missing and not changed
 
 
 #: Folder of a project where hand-edited products are kept before their stage is redone.

@@ -192,15 +192,13 @@ class _Run:
             for sid, files, extra in self._station_inputs(stage):
                 fps[sid] = fingerprint(stage, s.as_dict(), [self.sums.of(f) for f in files], extra)
                 old = (prev_rec or {}).get("stations", {}).get(sid)
-                ok, _ = reusable(self.project, old, fps[sid], self.sums)
-                if ok:
+                if reusable(self.project, old, fps[sid], self.sums):
                     reused[sid] = _outcome_from_record(sid, old, self.project)
             stage_fp = None
         elif stage != "report":
             files = self._profile_inputs(stage)
             stage_fp = fingerprint(stage, s.as_dict(), [self.sums.of(f) for f in files])
-            ok, _ = reusable(self.project, prev_rec, stage_fp, self.sums)
-            if ok:
+            if reusable(self.project, prev_rec, stage_fp, self.sums):
                 return None, dict(prev_rec, reused=True, notes=prev_rec.get("notes", []) + notes)
         else:
             stage_fp = None
