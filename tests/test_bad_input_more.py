@@ -9,6 +9,7 @@ are shared by the module.
 from __future__ import annotations
 
 import hashlib
+import json
 import shutil
 from pathlib import Path
 
@@ -665,3 +666,41 @@ def test_stack_with_an_empty_station_list_is_refused(small_day, tmp_path):
                                     "--stations", "", "--no-progress", "--no-figures"])
     assert rc == 2, (stdout, err)
     _one_error_line(err, "--stations: no station named")
+
+
+def test_stations_at_one_position_stop_the_run_at_the_section_with_a_record(small_day,
+                                                                            tmp_path):
+    # two stations at the same position (found by an independent review): the rhoa stage's
+    # pseudo-section stopped the run with "two consecutive polyline vertices coincide",
+    # naming no station, no summary and no run verdict in run.json. Now the pseudo-section
+    # is left out with a note, and the section stage refuses in one line naming both
+    # stations; run.json records the stop and exit status 2.
+    import copy
+    import tomllib
+
+    import tomli_w
+
+    day = _copy_day(small_day, tmp_path)
+    survey = day / "survey.toml"
+    text = survey.read_text()
+    doc = tomllib.loads(text)
+    a, b = doc["station"][0], doc["station"][1]
+    b["x"], b["y"] = a["x"], a["y"]
+    b["receiver"] = copy.deepcopy(a["receiver"])   # one site recorded twice
+    for r in b["receiver"]:
+        r["files"] = [f.replace(a["id"], b["id"]) for f in r["files"]]
+    shutil.rmtree(day / "raw" / b["id"])
+    shutil.copytree(day / "raw" / a["id"], day / "raw" / b["id"])
+    survey.write_text(tomli_w.dumps(doc))
+    proj = tmp_path / "p"
+    rc, out, err = run_captured(["run", str(survey), "--out", str(proj), *RUN[:2], "--no-progress"])
+    assert rc == 2, err
+    line = _one_error_line(err, "EM05", "EM06", "same position")
+    assert "polyline" not in err
+    state = json.loads((proj / "run.json").read_text())
+    assert "rhoa" in state["stages"] and not state["stages"]["rhoa"].get("failed")
+    assert any("no pseudo-section" in n and "same position" in n
+               for n in state["stages"]["rhoa"]["notes"])
+    stopped = state["last_run"]["stopped"]
+    assert stopped.startswith("section: refused its input") and "EM05" in stopped, line
+    assert state["last_run"]["exit_status"] == 2

@@ -182,9 +182,9 @@ def test_dead_and_empty_channels_are_noted_in_their_panels(fault_day):
     for fig in (raw_vs_stacked_figure(ds), decay_figure(g, ds)):
         notes = [[t.get_text() for t in ax.texts] for ax in fig.axes[:2]]
         assert any("dead channel" in t for t in notes[0]) and not notes[1], notes
-    ds, g = products["S14"]                 # clipped Ex: no usable gate
+    ds, g = products["S14"]                 # clipped Ex: every transient rejected
     notes = [t.get_text() for t in decay_figure(g, ds).axes[0].texts]
-    assert any("no usable gate" in t for t in notes), notes
+    assert any("no finite value: every transient" in t for t in notes), notes
 
 
 def test_progress_advances_within_a_station(fault_day):

@@ -113,13 +113,18 @@ def to_reoccupy(state) -> list:
 
 
 def record_failed_write(project, state, stage, exc, t_run):
-    """The run record of a run stopped by a failed write in ``stage`` (then written, if the
-    disk still takes it: it is small, and written atomically, so an old record stays whole
-    otherwise)."""
-    why = f"{stage}: could not write its products: {exc}".splitlines()[0]
+    """The run record of a run stopped in ``stage`` by a failed write (disk full, file-size
+    limit: exit status 1) or by input the stage refuses (exit status 2). Written by the
+    caller if the disk still takes it (it is small, and written atomically, so an old
+    record stays whole otherwise)."""
+    from ..errors import TemInputError
+
+    bad = isinstance(exc, TemInputError)
+    what = "refused its input" if bad else "could not write its products"
+    why = f"{stage}: {what}: {exc}".splitlines()[0]
     state["stages"][stage] = dict(stage_record(stage, {}), stations={}, failed=why, outputs=[])
     state["last_run"].update(stopped=why, elapsed_s=round(time.perf_counter() - t_run, 2),
-                             exit_status=1)
+                             exit_status=2 if bad else 1)
 
 
 def exit_status_of(state) -> int:

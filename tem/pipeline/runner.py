@@ -22,7 +22,7 @@ from dataclasses import dataclass
 from pathlib import Path
 
 from .. import __version__
-from ..errors import TemOutputError, input_error
+from ..errors import TemInputError, TemOutputError, input_error
 from ..io.checks import real_path
 from ..io.project import Project, ProjectLock, check_output
 from ..io.spool import Spool, SpooledDict, spool_record
@@ -464,9 +464,10 @@ def _run_locked(survey, survey_file, settings, project, start, end, jobs, consol
                                                                    description=text))
             try:
                 result, rec = run.run_stage(stage, tally)
-            except TemOutputError as exc:
-                # a failed write (disk full, file-size limit) stops the run: the record says
-                # which stage and why, and the exit status, before the one-line error
+            except (TemOutputError, TemInputError) as exc:
+                # a failed write (disk full, file-size limit) or input the stage refuses stops
+                # the run: the record says which stage and why, and the exit status, before
+                # the one-line error
                 record_failed_write(project, state, stage, exc, t_run)
                 raise
             finally:

@@ -47,7 +47,10 @@ class ChannelMeasures:
         Distance from the receiver to the nearest transmitter segment, m
         (0 inside a loop).
     dead : bool
-        Flat record (peak-to-peak <= 1 count).
+        Flat record (peak-to-peak <= 1 count) over at least half of its
+        half-period windows.
+    flat_fraction : float
+        Share of half-period windows that are flat (the channel dropped out).
     noise_floor : float
         Median per-sample standard error over the late off-time, unit per A.
     noise_slope : float
@@ -116,6 +119,7 @@ class ChannelMeasures:
     polarity_snr: float
     cut_offset: float
     cut_residual: float
+    flat_fraction: float = float("nan")
 
     def as_dict(self) -> dict:
         return asdict(self)
@@ -298,5 +302,6 @@ def channel_measures(stacked, gated=None) -> list:
             asymmetry_error=_num(stacked, "asymmetry_error", c),
             polarity=pol, polarity_snr=pol_snr,
             cut_offset=float(stacked.attrs.get("cut_offset", float("nan"))),
-            cut_residual=float(stacked.attrs.get("cut_residual", float("nan")))))
+            cut_residual=float(stacked.attrs.get("cut_residual", float("nan"))),
+            flat_fraction=_num(stacked, "flat_fraction", c)))
     return out

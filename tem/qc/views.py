@@ -141,31 +141,42 @@ def decay_figure(gated, stacked=None):
         u = gated["usable"].values[c]
         comp = str(gated["component"].values[c])
         unit = "V/m/A" if comp in ("ex", "ey") else "T/s/A"
+        drawn = np.abs(v[np.isfinite(v) & (v != 0)])
         if stacked is not None:
             t = stacked["time"].values
             s = np.abs(stacked["value"].values[c])
-            sel = t <= gated["gate_close"].values[-1]
-            ax.plot(t[sel], s[sel], color="0.8", lw=0.6, label="stacked samples")
+            sel = (t <= gated["gate_close"].values[-1]) & np.isfinite(s) & (s > 0) & (t > 0)
+            if sel.any():
+                ax.plot(t[sel], s[sel], color="0.8", lw=0.6, label="stacked samples")
+                drawn = np.concatenate([drawn, s[sel]])
         for mask, kw, lab in [(u & (v > 0), dict(fmt="o", color="tab:blue"), "usable, +"),
                               (u & (v <= 0), dict(fmt="o", mfc="white", color="tab:red"), "usable, -"),
                               (~u, dict(fmt="x", color="0.5"), "below noise")]:
             if mask.any():
                 ax.errorbar(tc[mask], np.abs(v[mask]), yerr=e[mask], ms=4, lw=0.8, capsize=2,
                             label=lab, **kw)
-        ax.axhline(float(gated["noise_floor"].values[c]), ls="--", color="k", lw=0.8,
-                   label="noise floor (per sample)")
+        floor = float(gated["noise_floor"].values[c])
+        if np.isfinite(floor) and floor > 0:
+            ax.axhline(floor, ls="--", color="k", lw=0.8, label="noise floor (per sample)")
+            drawn = np.append(drawn, floor)
         dead = _dead(gated, comp) or (stacked is not None and _dead(stacked, comp))
         if dead:
             panel_note(ax, "dead channel: flat record\n(peak-to-peak at most 1 count)")
+        elif not drawn.size:
+            panel_note(ax, "no finite value: every transient\nrejected (see the QC reasons)")
         elif not u.any():
             panel_note(ax, "no usable gate:\nevery gate below the noise")
         ax.set_xscale("log")
+        if not drawn.size:       # nothing to scale a log axis on: a decade range, empty
+            ax.set_xlim(float(np.nanmin(tc)), float(np.nanmax(tc)))
+            ax.set_ylim(1e-12, 1e-9)
         ax.set_yscale("log")
         ax.set_xlabel("time after switch-off (s)")
         ax.set_ylabel(f"|{comp}| ({unit})")
         ax.set_title(f"{gated.attrs['station']} {comp}")
         ax.grid(True, which="both", alpha=0.3)
-        ax.legend(fontsize=7)
+        if ax.get_legend_handles_labels()[0]:
+            ax.legend(fontsize=7)
     return fig
 
 

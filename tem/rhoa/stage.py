@@ -76,6 +76,16 @@ def _header() -> str:
     return ",".join(TABLE_COLUMNS) + "\n"
 
 
+def _same_position(x, y, ids):
+    """The first two stations at the same x, y, or None."""
+    seen = {}
+    for i, key in enumerate(zip(np.asarray(x).tolist(), np.asarray(y).tolist())):
+        if key in seen:
+            return ids[seen[key]], ids[i]
+        seen[key] = i
+    return None
+
+
 def pseudo_sections(project: Project, stations, settings: RhoaSettings):
     """One pseudo-section figure per component found at two or more stations.
 
@@ -108,6 +118,12 @@ def pseudo_sections(project: Project, stations, settings: RhoaSettings):
             continue
         x = np.array([float(r.attrs["x"]) for _, r, _ in rows])
         y = np.array([float(r.attrs["y"]) for _, r, _ in rows])
+        same = _same_position(x, y, [sid for sid, _, _ in rows])
+        if same:
+            # a profile cannot tell them apart: the figure is left out, the stage goes on
+            notes.append(f"no pseudo-section for {comp}: stations {same[0]} and {same[1]} are at "
+                         "the same position; a profile needs distinct positions")
+            continue
         tt = [r["gate_centre"].values for _, r, _ in rows]
         rule = ""
         if settings.all_time:

@@ -127,17 +127,19 @@ def _set_mu(x, j, s, lo, hi, vpc, full_scale, mask, use_mask, mu, rowclip, state
             wrails):  # pragma: no cover - compiled
     """Mean and clip count of row j, also written to the record's window arrays.
 
-    state[1] is the record index of row 0; wmeans (n_windows,) and wrails
-    (n_windows, 2) receive the mean (volts) and the samples at the positive
-    and negative rail (a row read by two chunks gets the same values twice).
+    state[1] is the record index of row 0; wmeans (n_windows, 2) and wrails
+    (n_windows, 2) receive the mean and the span (largest minus smallest sample;
+    volts) and the samples at the positive and negative rail (a row read by two
+    chunks gets the same values twice).
     """
     mu[j], rowclip[j], npos = _row_mean(x, j, s, lo, hi, vpc, full_scale, mask, use_mask)
     if not np.isfinite(mu[j]):
         state[2] = 1
     state[0] = j + 1
     g = state[1] + j
-    if g < wmeans.size:
-        wmeans[g] = mu[j]
+    if g < wmeans.shape[0]:
+        wmeans[g, 0] = mu[j]
+        wmeans[g, 1] = (np.float64(hi) - np.float64(lo)) * vpc
         wrails[g, 0] = npos
         wrails[g, 1] = rowclip[j] - npos
 
@@ -199,8 +201,8 @@ def chunk_pass(x, vpc, full_scale, mask, t_frac, detrend, j0, n_est, step, pol0,
         density divides it later).
     emit_e (n_est, M) float64, emit_bad (n_est, M) bool : MODE_EMIT output.
     tally : (6,) int64 counters, see TALLY_FIELDS (+=).
-    row0 : record index of row 0. wmeans (n_windows,) float64, wrails
-        (n_windows, 2) int64 : window means (volts) and rail counts, written
+    row0 : record index of row 0. wmeans (n_windows, 2) float64, wrails
+        (n_windows, 2) int64 : window means and spans (volts) and rail counts, written
         for every row read (zero-size arrays: not written).
     """
     nrow, m = x.shape
@@ -383,11 +385,12 @@ def mean_pass(x, vpc, full_scale, t_frac, detrend, j0, n_est, pol0, spsi, tally,
     Same chunk layout as :func:`chunk_pass`. Returns False, adding nothing,
     if the chunk holds a clipped sample (then each estimate needs its own
     flags: use :func:`chunk_pass`). Also counts the transients in tally and
-    writes the window means (volts) to wmeans[row0 + j] (rails hold no sample).
+    writes the window means and spans (volts) to wmeans[row0 + j] (rails hold no sample).
     """
     nrow, m = x.shape
     acc = np.zeros(m)
     mu = np.zeros(nrow)
+    span = np.zeros(nrow)
     nonfinite = False
     clipped = False
     for j in range(nrow):
@@ -400,6 +403,7 @@ def mean_pass(x, vpc, full_scale, t_frac, detrend, j0, n_est, pol0, spsi, tally,
         c = (0.25 * a) * (pol0 if j % 2 == 0 else -pol0)
         s, lo, hi = _row_stats(r) if a == 0 else _row_stats_acc(r, c, acc)
         mu[j] = s * vpc / m
+        span[j] = (np.float64(hi) - np.float64(lo)) * vpc
         nonfinite |= not np.isfinite(mu[j])
         clipped |= _clipped(lo, full_scale) or _clipped(hi, full_scale)
     if nonfinite:
@@ -408,8 +412,9 @@ def mean_pass(x, vpc, full_scale, t_frac, detrend, j0, n_est, pol0, spsi, tally,
     if clipped:
         return False
     for j in range(nrow):
-        if row0 + j < wmeans.size:
-            wmeans[row0 + j] = mu[j]
+        if row0 + j < wmeans.shape[0]:
+            wmeans[row0 + j, 0] = mu[j]
+            wmeans[row0 + j, 1] = span[j]
     beta = 0.0
     gamma = 0.0
     if detrend:     # sum_j c_j (B_j + (B_{j+1} - B_j) t)

@@ -71,6 +71,9 @@ class StackResult:
         logger; not scaled by :meth:`scaled`): the baseline (offset and drift).
     window_rails : (n_windows, 2) int, samples of each window at the positive
         and at the negative full-scale rail.
+    window_spans : (n_windows,) largest minus smallest sample of each window
+        (units as ``window_means``): a flat window (receiver or cable dropped
+        out) spans at most one count.
     """
 
     value: np.ndarray
@@ -82,6 +85,7 @@ class StackResult:
     lag_corr: np.ndarray = field(default_factory=lambda: np.zeros((1, 0)))
     window_means: np.ndarray = field(default_factory=lambda: np.zeros(0))
     window_rails: np.ndarray = field(default_factory=lambda: np.zeros((0, 2), np.int64))
+    window_spans: np.ndarray = field(default_factory=lambda: np.zeros(0))
 
     def scaled(self, factor: float) -> "StackResult":
         """The stack times ``factor`` (e.g. volts -> field per ampere); window measures kept."""
@@ -89,7 +93,7 @@ class StackResult:
         return StackResult(self.value * f, self.error * abs(f), self.influence * f,
                            self.n_used.copy(), self.scale * abs(f), dict(self.counts),
                            self.lag_corr.copy(), self.window_means.copy(),
-                           self.window_rails.copy())
+                           self.window_rails.copy(), self.window_spans.copy())
 
     @classmethod
     def from_dataset(cls, ds, channel: int) -> "StackResult":
@@ -235,7 +239,7 @@ def _groups(chunks, per):
     return out
 
 
-_NO_WIN = np.zeros(0)
+_NO_WIN = np.zeros((0, 2))
 _NO_RAILS = np.zeros((0, 2), np.int64)
 _NO_MASK = np.zeros((0, 0), np.bool_)
 _NO_F32 = np.zeros(0, np.float32)
@@ -395,7 +399,7 @@ def stack_source(src: WindowSource, settings: StackSettings = StackSettings(), p
     cnt_b = np.zeros((nb, m), np.int64)
     sdpsi_b = np.zeros((nb, m), np.int64)
     tally_b = np.zeros((nb, 6), np.int64)
-    wmeans = np.full(src.n_windows, np.nan)
+    wmeans = np.full((src.n_windows, 2), np.nan)     # mean and span of each window
     wrails = np.zeros((src.n_windows, 2), np.int64)
     mode = _kern.MODES[s.estimator]
 
@@ -436,7 +440,8 @@ def stack_source(src: WindowSource, settings: StackSettings = StackSettings(), p
     else:
         sdpsi = sdpsi_n.astype(float)
     res = _finish(s, nb, m0, s0, spsi_b, cnt_b.astype(float), sdpsi, counts)
-    res.window_means, res.window_rails = wmeans, wrails
+    res.window_means, res.window_rails = wmeans[:, 0].copy(), wrails
+    res.window_spans = wmeans[:, 1].copy()
     return res
 
 

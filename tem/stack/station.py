@@ -177,7 +177,6 @@ def stack_station(survey, station, settings: StackSettings = StackSettings(), pr
             raise input_error("samples", f"{probe[bad - e0]:.3g} V at sample {bad}, beyond any "
                               f"receiver's input ({MAX_VOLTS:g} V): wrong volts_per_count or gain, "
                               "or a corrupt file", rec.file_at(bad))
-        dead = bool(np.ptp(rec.counts(e0, e0 + 2 * m)) <= 1)
         raw_rms = float(np.std(probe))
         tick = None
         if progress is not None:
@@ -187,11 +186,34 @@ def stack_station(survey, station, settings: StackSettings = StackSettings(), pr
         factor = rx.volts_to_field(tx.current)
         times = dly + np.arange(m) / rec.sample_rate
         checks = _channel_checks(src, rec, res, times, tx, survey.mains_frequency)
+        # dead: flat (at most 1 count peak to peak) for most of the record, judged over
+        # every window, not one period (a record dead after its first seconds was "alive")
+        dead = checks["flat_fraction"] >= DEAD_FRACTION
         out.append(ChannelStack(rx, res.scaled(factor), times, raw_rms, dead, probe * factor,
                                 str(rec.path), checks))
     timing = {"source": source, "residual_rms": resid, "t_first": t_first, "delay": delay,
               "cut_offset": cut["offset"], "cut_residual": cut["residual"]}
     return out, timing
+
+
+#: A channel flat for at least this share of its half-period windows is dead (the rest is
+#: too little to stack, and a robust stack cannot reject a majority).
+DEAD_FRACTION = 0.5
+
+
+def flat_fraction(spans, volts_per_count, rails=None) -> float:
+    """Share of half-period windows whose samples span at most one count (peak to peak):
+    a receiver, cable or logger channel that dropped out records a constant. A window
+    pinned at a full-scale rail is clipped, not flat (``rails``: (n_windows, 2) samples at
+    the rails, :attr:`StackResult.window_rails`)."""
+    spans = np.asarray(spans, float)
+    ok = np.isfinite(spans)
+    if not ok.any():
+        return 0.0
+    flat = spans <= abs(float(volts_per_count)) * (1.0 + 1e-9)
+    if rails is not None and np.size(rails):
+        flat &= np.asarray(rails).reshape(-1, 2)[: spans.size].sum(axis=1) == 0
+    return float(np.mean(flat[ok]))
 
 
 def _channel_checks(src, rec, res, times, tx, mains_frequency):
@@ -213,6 +235,7 @@ def _channel_checks(src, rec, res, times, tx, mains_frequency):
                               res.value, clip_level(rec.header.full_scale) * vpc,
                               rec.sample_rate, mains_frequency, edges)
     checks.update(baseline_measures(res.window_means, tx.half_period))
+    checks["flat_fraction"] = flat_fraction(res.window_spans, vpc, res.window_rails)
     checks["duration"] = src.n_windows * tx.half_period
     fsc = float(rec.header.full_scale or 0.0)
     checks["full_scale"] = fsc * vpc if fsc > 0 else float("nan")
