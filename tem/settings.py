@@ -443,7 +443,7 @@ class SettingsTable:
             return "unknown key; valid: " + ", ".join(names)
         hint = f"did you mean {' or '.join(close)}? " if close else ""
         return (f"unknown key; {hint}{len(names)} keys are valid here, listed in docs/settings.md "
-                f"and by 'tem {self.stage} --help'")
+                f"and by 'tem {self.stage.replace('qc', 'gate')} --help'")   # QC: gate's options
     def from_table(self, table, file=None, base=None) -> dict:
         """Checked values of one ``[processing.<stage>]`` table (only the keys given).
 

@@ -119,6 +119,9 @@ def test_segy_twt_against_two_layer_closed_form(profile):
     with segyio.open(root / "p1" / "exports" / "section_twt.sgy", ignore_geometry=True) as f:
         dt = 4e-3
         assert f.bin[segyio.BinField.Interval] == 4000
+        # one data trace and no auxiliary trace per ensemble (SEG-Y rev 1, 2002, binary
+        # header bytes 3213-3216; the trace count once stood in 3215)
+        assert f.bin[segyio.BinField.Traces] == 1 and f.bin[segyio.BinField.AuxTraces] == 0
         t = np.arange(len(f.samples)) * dt
         # Last time: TWT of the 450 m section bottom, 2 (150/2000 + 300/3000) = 0.35 s.
         assert t[-1] == pytest.approx(np.floor(0.35 / dt + 1e-9) * dt)

@@ -105,3 +105,16 @@ def test_decay_figure_of_a_channel_without_any_finite_value(day):
     notes = [t.get_text() for t in fig.axes[0].texts]
     assert any("no finite value" in t for t in notes)
     fig.canvas.draw()
+
+
+@pytest.mark.parametrize("pair", [("rejected_check", "rejected_reoccupy"),
+                                  ("clipped_check", "clipped_reoccupy"),
+                                  ("flat_check", "flat_reoccupy")])
+def test_a_reoccupy_threshold_below_its_check_is_refused(pair):
+    # inverted thresholds once silenced both reasons (found by an independent review)
+    from tem.errors import TemInputError
+    from tem.qc import QCSettings
+
+    with pytest.raises(TemInputError, match=f"{pair[1]}.*must be at least {pair[0]}"):
+        QCSettings(**{pair[0]: 0.6, pair[1]: 0.3})
+    assert QCSettings(**{pair[0]: 0.3, pair[1]: 0.3})

@@ -54,7 +54,10 @@ def print_summary(outcome, console):
     state = outcome.state
     if not console.is_terminal:
         console = Console(file=console.file, width=160)
-    console.print(summary_table(state))
+    last = state.get("last_run", {}).get("stages") or []
+    # the evening's run stops after the gate stage: its table says so
+    command = "tem evening" if last and last[-1] == "gate" else "tem run"
+    console.print(summary_table(state, title=f"{command}: {state.get('survey', {}).get('name', '')}"))
     for stage in STAGES:
         rec = state["stages"].get(stage)
         if rec is None:

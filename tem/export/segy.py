@@ -292,6 +292,8 @@ def write_segy(path, data, grid, interval_field, first, domain, description, lin
                 segyio.BinField.JobID: 1,
                 segyio.BinField.LineNumber: line_number,
                 segyio.BinField.Traces: 1,
+                # no auxiliary traces (segyio's create leaves the trace count here)
+                segyio.BinField.AuxTraces: 0,
                 segyio.BinField.Interval: int(interval_field),
                 segyio.BinField.IntervalOriginal: int(interval_field),
                 segyio.BinField.Samples: ns,

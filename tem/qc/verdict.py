@@ -43,6 +43,17 @@ __all__ = ["QC_TABLE", "QCSettings", "StationVerdict", "offset_classes", "class_
 VERDICTS = ("good", "check", "reoccupy")
 _NS = "common practice, no source"
 
+def _ordered(v):
+    """A re-occupy threshold below its check threshold would silence the check (a station
+    with 41 % of periods rejected once got no reason at all)."""
+    for check, reoccupy in (("rejected_check", "rejected_reoccupy"),
+                            ("clipped_check", "clipped_reoccupy"),
+                            ("flat_check", "flat_reoccupy")):
+        if v[reoccupy] < v[check]:
+            return reoccupy, f"must be at least {check} ({v[check]:g}), got {v[reoccupy]:g}"
+    return None
+
+
 QC_TABLE = SettingsTable("qc", [
     Setting("noise_ratio", 2.0, "float", "", "noise floor over the survey median of its "
             "component and offset class at which a station is re-occupied", minimum=1.0,
@@ -89,7 +100,7 @@ QC_TABLE = SettingsTable("qc", [
             "needed to call a polarity reversed", minimum=0.0, source=_NS),
     Setting("slope_flat", -0.1, "float", "", "noise slope (d log noise / d log periods) above "
             "which more recording is not expected to help", maximum=0.0, source=_NS),
-], "QCSettings", doc="Thresholds of the evening QC verdict (docs/qc.md).")
+], "QCSettings", doc="Thresholds of the evening QC verdict (docs/qc.md).", checks=[_ordered])
 QCSettings = QC_TABLE.cls
 
 
@@ -246,6 +257,13 @@ def _channel_rules(m, med, s):
     if rej >= s.rejected_check:
         text = (f"{c} {_pct(rej)} of periods rejected ({m.rejected_noisy} noisy, "
                 f"{m.rejected_bad} with bad samples)")
+        fs = m.full_scale
+        if np.isfinite(m.mains) and np.isfinite(fs) and fs > 0 and m.mains >= 0.2 * \
+                s.mains_check * fs:
+            # a likely cause, named: mains whose level or phase wanders between periods is
+            # not cancelled by the three-window estimate (an independent review found 24-31 %
+            # rejected under 0.3 V of mains with no word of it)
+            text += f" with mains {m.mains:.2g} V at the logger ({_pct(m.mains / fs)} of full scale)"
         if rej >= s.rejected_reoccupy:
             re.append(text)
             extra = max(extra, full) if np.isfinite(extra) else extra

@@ -58,7 +58,7 @@ def _baseline(means, j, n, t_frac):
 
 
 def half_cycle_check(read_volts, starts, m: int, means, stack_volts, clip_volts: float,
-                     fs: float, mains_frequency: float, window_edges, harmonics: int = 5):
+                     fs: float, mains_frequency: float, window_edges, harmonics: int = 15):
     """Half-cycle asymmetry and mains level from blocks of four windows.
 
     read_volts : callable (j0, j1) -> (j1-j0, M) volts of windows j0..j1-1.
