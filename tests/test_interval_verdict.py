@@ -221,7 +221,7 @@ def test_main_section_grid_and_figure_mark_unconverged(run):
                          title="t")
     assert not [c for c in fig.axes[0].collections if c.get_gid() == "interval-columns"]
     assert fig._suptitle.get_text() == "t"
-    # and the SEG-Y section's textual header names them (docs/export.md)
+    # and the SEG-Y section's textual header names them (docs/exports.md)
     import segyio
     with segyio.open(out / "exports" / "section_depth.sgy", ignore_geometry=True) as f:
         text = f.text[0].decode("ascii", "replace")
