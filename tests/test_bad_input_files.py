@@ -164,3 +164,27 @@ def test_a_depth_step_too_fine_for_memory_is_a_range_error(models_file, tmp_path
     assert err.count("\n") == 1, err
     assert "depth_step: " in err and "choose a larger depth_step" in err, err
     assert not (tmp_path / "s").exists()
+
+
+def test_a_station_that_failed_stack_has_its_evening_verdict_everywhere(day, tmp_path):
+    # a station whose recording was refused at stack is judged by the gate stage ("check",
+    # not processed) in qc/stations.csv; the terminal table showed "-" and run.json had no
+    # qc_verdict (found by an independent evening-QC review)
+    import csv
+    import json
+
+    copy = tmp_path / "day"
+    shutil.copytree(day, copy, symlinks=True)
+    _infinite(copy / "raw" / "EM06" / "ex.npy")
+    out = tmp_path / "o"
+    rc, stdout, err = _tem("evening", copy / "survey.toml", "--out", out, "--jobs", "1",
+                           "--no-progress", "--no-figures")
+    assert rc == 2, (stdout, err)
+    text = (out / "qc" / "stations.csv").read_text().splitlines()
+    rows = {r["station"]: r for r in csv.DictReader(text)}
+    assert rows["EM06"]["verdict"] == "check" and "not processed" in rows["EM06"]["reasons"]
+    st = json.loads((out / "run.json").read_text())["stations"]["EM06"]
+    assert st["failed_stage"] == "stack" and st["qc_verdict"] == "check"
+    assert st["qc_reasons"] == rows["EM06"]["reasons"]
+    line = next(ln for ln in stdout.splitlines() if ln.startswith(("check:", "re-occupy:")))
+    assert "EM06" in line, stdout

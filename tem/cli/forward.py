@@ -35,16 +35,13 @@ def run(args) -> int:
     from ..forward.sounding import survey_lowpass, survey_receiver, survey_source, survey_waveform
     from ..io.atomic import write_text_atomic
     from ..io.figures import save_figure
-    from ..io.checks import real_path
     from ..io.project import check_output
     from ..survey import read_survey
 
     s = FORWARD.from_command_line(args)
     out = Path(args.out)
-    # the survey's folder holds its raw recordings: never written (as every command)
     check_output(out, ["forward"], inputs=[args.model, args.survey],
-                 planned=["response.csv", "response.png"],
-                 read_only={real_path(args.survey).parent})
+                 planned=["response.csv", "response.png"])
     models = read_model_csv(args.model)
     survey = read_survey(args.survey)
     src = survey_source(survey.transmitter, args.survey)

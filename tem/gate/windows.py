@@ -77,9 +77,11 @@ def log_gates(times, t_min: float, t_max: float, per_decade: float, shape: str,
         raise input_error("t_max", f"need 0 < t_min < t_max, got {t_min}, {t_max}")
     if shape == "taper":
         min_samples = max(min_samples, 6)
-    # edges on half-sample positions
+    # edges on half-sample positions; a tie (an edge exactly on a sample, as the default
+    # t_min of 16 samples) goes up, whatever 1e-12 s of float noise in t[0] says: stations
+    # of one survey once got first gates 0.5 ms apart (found by an independent review)
     def snap(x):
-        return t[0] + (np.round((x - t[0]) / dt - 0.5) + 0.5) * dt
+        return t[0] + (np.floor((x - t[0]) / dt + 1e-6) + 0.5) * dt
 
     n_dec = np.log10(t_max / t_min)
     n = max(1, int(np.ceil(n_dec * per_decade)))

@@ -81,10 +81,13 @@ def _ok(state, survey):
     return out
 
 
-def _station_summary(state, survey, out):
+def _station_summary(state, survey, out, project=None):
     """Per-station summary from the stage records: first failure, gates, chi2, DOI, QC;
-    written into ``out`` (a mapping, emptied first), which is returned."""
+    written into ``out`` (a mapping, emptied first), which is returned. A station that
+    failed before the gate stage has its evening verdict from ``qc/stations.csv`` (the
+    gate stage judges every station; terminal, run.json and the table then agree)."""
     out.clear()
+    unjudged = {}
     for st in survey.stations:
         s = {"x": st.x, "y": st.y, "z": st.z}
         for stage in STAGES:
@@ -96,7 +99,21 @@ def _station_summary(state, survey, out):
             if rec["status"] == "failed" and "failed_stage" not in s:
                 s["failed_stage"] = stage
                 s["message"] = rec.get("message", "")
+        if "qc_verdict" not in s and "failed_stage" in s:
+            unjudged[st.id] = s
         out[st.id] = s
+    table = _qc_table(project) if unjudged and project is not None and \
+        "gate" in state["stages"] else None
+    if table is not None:
+        from ..qc import read_stations_csv
+        with contextlib.suppress(Exception):        # a table edited by hand: left out
+            for row in read_stations_csv(table):
+                s = unjudged.get(row["station"])
+                if s is not None:
+                    minutes = row.get("extra_minutes") or ""
+                    s.update(qc_verdict=row["verdict"], qc_reasons=row["reasons"],
+                             extra_minutes=int(float(minutes)) if minutes else None)
+                    out[row["station"]] = s
     return out
 
 
@@ -485,7 +502,7 @@ def _run_locked(survey, survey_file, settings, project, start, end, jobs, consol
             # QC rows) go now, not when the next stage's result replaces them
             result = None
             state["stages"][stage] = rec
-            state["stations"] = _station_summary(state, survey, stations)
+            state["stations"] = _station_summary(state, survey, stations, project)
             state["checksums"] = run.sums.table
             write_run(project, state)
             prog.update(task, completed=max(n, 1), description=desc)
