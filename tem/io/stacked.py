@@ -47,6 +47,8 @@ CHECK_FIELDS = (("offset", "V", "median baseline at the logger"),
                 ("duration", "s", "record length stacked"),
                 ("flat_fraction", "1", "share of half-period windows that are flat (at most 1 "
                  "count peak to peak: the channel dropped out)"),
+                ("dropout_fraction", "1", "share of samples (of blocks spread over the record) "
+                 "in constant runs of 4 ms or more within windows that are not flat"),
                 ("full_scale", "V", "digitiser full scale at the logger"))
 _VERSION = "1.1"
 #: Version of the gated files written (1.2: response, sampling, waveform table; docs/data-model.md)

@@ -51,6 +51,9 @@ class ChannelMeasures:
         half-period windows.
     flat_fraction : float
         Share of half-period windows that are flat (the channel dropped out).
+    dropout_fraction : float
+        Share of samples in short constant runs (4 ms or more) within windows
+        that are not flat: brief drop-outs the stack cannot reject.
     noise_floor : float
         Median per-sample standard error over the late off-time, unit per A.
     noise_slope : float
@@ -120,6 +123,7 @@ class ChannelMeasures:
     cut_offset: float
     cut_residual: float
     flat_fraction: float = float("nan")
+    dropout_fraction: float = float("nan")
 
     def as_dict(self) -> dict:
         return asdict(self)
@@ -303,5 +307,6 @@ def channel_measures(stacked, gated=None) -> list:
             polarity=pol, polarity_snr=pol_snr,
             cut_offset=float(stacked.attrs.get("cut_offset", float("nan"))),
             cut_residual=float(stacked.attrs.get("cut_residual", float("nan"))),
-            flat_fraction=_num(stacked, "flat_fraction", c)))
+            flat_fraction=_num(stacked, "flat_fraction", c),
+            dropout_fraction=_num(stacked, "dropout_fraction", c)))
     return out
