@@ -41,7 +41,9 @@ def gate_one(sid, in_path, settings: GateSettings, out_path, fig_path):
     inputs = [{"file": str(in_path), "sha256": file_sha256(in_path)}]
     payload = {"rows": rows, "measures": channel_measures(st, g)}
     if not usable:
-        return StationOutcome(sid, "failed", f"{out_path}: usable: no gate above the noise",
+        # why, when a channel flag says it (e.g. DEAD ex: the evening verdict re-occupies)
+        why = f" ({info['channel_flags']})" if bad else ""
+        return StationOutcome(sid, "failed", f"{out_path}: usable: no gate above the noise{why}",
                               inputs=inputs, info=info, payload=payload, products=products)
     return StationOutcome(sid, "ok", inputs=inputs, info=info, payload=payload, products=products)
 
