@@ -226,22 +226,25 @@ def _channel_rules(m, med, s):
         share = (f" for {_pct(m.flat_fraction)} of the record"
                  if np.isfinite(m.flat_fraction) and m.flat_fraction < 0.995 else "")
         return [f"{c} dead: flat record{share} (peak-to-peak at most 1 count)"], [], full
-    if np.isfinite(m.flat_fraction) and m.flat_fraction >= s.flat_check:
-        text = (f"{c} flat for {_pct(m.flat_fraction)} of the record (at most 1 count peak to "
-                "peak: receiver, cable or logger dropped out)")
-        if m.flat_fraction >= s.flat_reoccupy:
-            re.append(text + "; too much for the stack to reject: record anew")
-            extra = full
+    def grade(share, check, reoccupy, words, re_tail="", ck_tail=""):
+        """A share judged by its check and re-occupy thresholds; ``words()`` the reason."""
+        nonlocal extra
+        if not (np.isfinite(share) and share >= check):
+            return
+        if share >= reoccupy:
+            re.append(words() + re_tail)
+            extra = max(extra, full) if np.isfinite(extra) else extra
         else:
-            ck.append(text + "; those periods rejected")
-    if np.isfinite(m.dropout_fraction) and m.dropout_fraction >= s.dropout_check:
-        text = (f"{c} drops out briefly: {_pct(m.dropout_fraction)} of samples held constant "
-                "for 4 ms or more inside live periods (a loose connector or cable?)")
-        if m.dropout_fraction >= s.dropout_reoccupy:
-            re.append(text + "; the stack cannot reject them: record anew")
-            extra = full
-        else:
-            ck.append(text)
+            ck.append(words() + ck_tail)
+
+    grade(m.flat_fraction, s.flat_check, s.flat_reoccupy,
+          lambda: f"{c} flat for {_pct(m.flat_fraction)} of the record (at most 1 count peak "
+                  "to peak: receiver, cable or logger dropped out)",
+          "; too much for the stack to reject: record anew", "; those periods rejected")
+    grade(m.dropout_fraction, s.dropout_check, s.dropout_reoccupy,
+          lambda: f"{c} drops out briefly: {_pct(m.dropout_fraction)} of samples held "
+                  "constant for 4 ms or more inside live periods (a loose connector or cable?)",
+          "; the stack cannot reject them: record anew")
     noise_med, lu_med, label = med
     if np.isfinite(m.noise_floor) and noise_med > 0:
         r = m.noise_floor / noise_med
@@ -260,17 +263,13 @@ def _channel_rules(m, med, s):
         ck.append(f"{c} no usable gate")
     nw = max(m.windows, 1)
     fc = m.windows_clipped / nw
-    if fc >= s.clipped_check:
-        plural = "" if m.clipped_high == 1 else "s"
-        text = (f"{c} {_pct(fc)} of half-periods clipped ({m.clipped_high} sample{plural} at "
-                f"the positive rail, {m.clipped_low} at the negative)")
-        if fc >= s.clipped_reoccupy:
-            re.append(text + ": lower the gain")
-            extra = max(extra, full) if np.isfinite(extra) else extra
-        else:
-            ck.append(text)
+    grade(fc, s.clipped_check, s.clipped_reoccupy,
+          lambda: f"{c} {_pct(fc)} of half-periods clipped ({m.clipped_high} "
+                  f"sample{'' if m.clipped_high == 1 else 's'} at the positive rail, "
+                  f"{m.clipped_low} at the negative)", ": lower the gain")
     rej = (m.rejected_noisy + m.rejected_bad) / max(m.periods_total, 1)
-    if rej >= s.rejected_check:
+
+    def rejected():
         text = (f"{c} {_pct(rej)} of periods rejected ({m.rejected_noisy} noisy, "
                 f"{m.rejected_bad} with bad samples)")
         fs = m.full_scale
@@ -280,11 +279,9 @@ def _channel_rules(m, med, s):
             # not cancelled by the three-window estimate (an independent review found 24-31 %
             # rejected under 0.3 V of mains with no word of it)
             text += f" with mains {m.mains:.2g} V at the logger ({_pct(m.mains / fs)} of full scale)"
-        if rej >= s.rejected_reoccupy:
-            re.append(text)
-            extra = max(extra, full) if np.isfinite(extra) else extra
-        else:
-            ck.append(text)
+        return text
+
+    grade(rej, s.rejected_check, s.rejected_reoccupy, rejected)
     if m.outlier_fraction >= s.outlier_check:
         ck.append(f"{c} spikes: {_pct(m.outlier_fraction)} of samples rejected as outliers")
     if np.isfinite(m.polarity) and m.polarity < 0 and m.polarity_snr >= s.polarity_snr:
