@@ -158,6 +158,9 @@ def test_bad_simulation_inputs_name_the_field():
         Simulation(w, [Receiver("ex", (2000, 0))], times=[1e-3], response="waveform")
     with pytest.raises(ValueError, match="duty_cycle"):
         Waveform.bipolar(1.0, duty_cycle=1.5)
+    for tol in (0.0, np.nan, 0.5):
+        with pytest.raises(ValueError, match="hankel_tolerance"):
+            Simulation(w, [Receiver("ex", (2000, 0))], times=[1e-3], hankel_tolerance=tol)
 
 
 def test_bent_wire_is_the_sum_of_its_straight_pieces():
