@@ -76,16 +76,6 @@ def _header() -> str:
     return ",".join(TABLE_COLUMNS) + "\n"
 
 
-def _same_position(x, y, ids):
-    """The first two stations at the same x, y, or None."""
-    seen = {}
-    for i, key in enumerate(zip(np.asarray(x).tolist(), np.asarray(y).tolist())):
-        if key in seen:
-            return ids[seen[key]], ids[i]
-        seen[key] = i
-    return None
-
-
 def pseudo_sections(project: Project, stations, settings: RhoaSettings):
     """One pseudo-section figure per component found at two or more stations.
 
@@ -99,6 +89,7 @@ def pseudo_sections(project: Project, stations, settings: RhoaSettings):
     """
     from ..io.figures import save_figure
     from ..io.stacked import read_product
+    from ..section.stage import coincident_stations
     from .late_time import diffusion_depth
     from .plot import pseudo_section
 
@@ -118,7 +109,7 @@ def pseudo_sections(project: Project, stations, settings: RhoaSettings):
             continue
         x = np.array([float(r.attrs["x"]) for _, r, _ in rows])
         y = np.array([float(r.attrs["y"]) for _, r, _ in rows])
-        same = _same_position(x, y, [sid for sid, _, _ in rows])
+        same = coincident_stations(x, y, [sid for sid, _, _ in rows])
         if same:
             # a profile cannot tell them apart: the figure is left out, the stage goes on
             notes.append(f"no pseudo-section for {comp}: stations {same[0]} and {same[1]} are at "

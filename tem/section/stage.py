@@ -17,7 +17,8 @@ from ..provenance import records_from_json, stage_record
 from ..runtime import StageContext, StageResult
 from .settings import SECTION, SectionSettings
 
-__all__ = ["run", "profile_kwargs", "section_grid", "settings_of_grid", "check_station_positions"]
+__all__ = ["run", "profile_kwargs", "section_grid", "settings_of_grid", "check_station_positions",
+           "coincident_stations"]
 
 
 def profile_kwargs(models, settings: SectionSettings) -> dict:
@@ -114,6 +115,19 @@ def run(settings: SectionSettings, models_files, out, ctx: StageContext = StageC
     return res
 
 
+def coincident_stations(x, y, ids):
+    """The first two stations at the same x, y, as a pair of ``ids`` entries, or None.
+
+    A profile (pseudo-section or section) cannot tell two such stations apart.
+    """
+    seen = {}
+    for i, key in enumerate(zip(np.asarray(x, float).tolist(), np.asarray(y, float).tolist())):
+        if key in seen:
+            return ids[seen[key]], ids[i]
+        seen[key] = i
+    return None
+
+
 def check_station_positions(models, line=None, file=None, line_file=None):
     """Refuse stations a section cannot tell apart, naming them and the file at fault.
 
@@ -130,13 +144,12 @@ def check_station_positions(models, line=None, file=None, line_file=None):
     y = np.asarray(models["y"].values, float)
     ids = [str(s) for s in (models["station"].values if "station" in models.coords
                             else range(x.size))]
-    seen = {}
-    for i, key in enumerate(zip(x.tolist(), y.tolist())):
-        if key in seen:
-            raise input_error("x, y", f"stations {ids[seen[key]]} and {ids[i]} are at the same "
-                              f"position ({key[0]:g}, {key[1]:g}); a section needs distinct "
-                              "positions", file)
-        seen[key] = i
+    same = coincident_stations(x, y, ids)
+    if same:
+        i = ids.index(same[0])
+        raise input_error("x, y", f"stations {same[0]} and {same[1]} are at the same "
+                          f"position ({x[i]:g}, {y[i]:g}); a section needs distinct "
+                          "positions", file)
     if line is None or x.size < 2:
         return
     chain, _ = polyline_chainage(x, y, line[0], line[1])
