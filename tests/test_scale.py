@@ -208,6 +208,36 @@ def test_redone_stage_keeps_a_hand_edited_product(day, tmp_path, capsys):
     assert_same_products(ref, proj, rtol=1e-9)
 
 
+def test_hand_edited_qc_table_is_reported_and_kept(day, tmp_path, capsys):
+    # qc/stations.csv is the gate stage's survey-wide product (no station owns it): an
+    # edited verdict was used by --from invert and overwritten by a rerun without a word
+    import shutil
+
+    survey, ref = day
+    proj = tmp_path / "p"
+    shutil.copytree(ref, proj)
+    table = proj / "qc" / "stations.csv"
+    original = table.read_text()
+    head, first, *rest = original.splitlines(keepends=True)
+    sid, verdict, tail = first.split(",", 2)
+    edited = "".join([head, f"{sid},{'reoccupy' if verdict != 'reoccupy' else 'good'},{tail}",
+                      *rest])
+    table.write_text(edited)
+    capsys.readouterr()
+    assert main(["run", str(survey), "--out", str(proj), "--from", "invert", "--jobs", "1",
+                 "--no-progress"]) == 0
+    out = capsys.readouterr().out
+    assert "qc/stations.csv changed since the gate stage wrote it (edited by hand?); used as " \
+        "it is now" in out
+    assert main(["run", str(survey), "--out", str(proj), "--jobs", "1", "--no-progress"]) == 0
+    out = capsys.readouterr().out
+    kept = sorted((proj / "edited").glob("*/qc/stations.csv"))
+    assert len(kept) == 1 and kept[0].read_text() == edited
+    assert (f"qc/stations.csv changed since the gate stage wrote it (edited by hand?); kept as "
+            f"edited/{kept[0].parent.parent.name}/qc/stations.csv, and redone") in out
+    assert table.read_text() == original
+
+
 def test_second_run_into_the_same_project_is_refused(day, tmp_path, capsys):
     survey, _ = day
     proj = tmp_path / "p"

@@ -255,6 +255,9 @@ class _Run:
             rec["fingerprint"] = stage_fp
             rec["checksums"] = {p.rel(o): self.sums.of(o) for o in result.all_outputs()
                                 if Path(o).is_file()}
+        else:   # its survey-wide products (qc/stations.csv, the report): a hand edit is seen
+            rec["checksums"] = {p.rel(o): self.sums.of(o) for o in result.outputs
+                                if Path(o).is_file()}
         rec["notes"] = list(result.notes)
         rec["failed"] = result.failed
         rec["elapsed_s"] = round(elapsed, 3)
