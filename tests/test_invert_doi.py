@@ -163,30 +163,25 @@ def test_model_above_the_doi_follows_the_truth(suite, name):
 
 
 @pytest.mark.slow
-def test_subsalt_smear_is_reported_unresolved(suite):
-    # the sub-salt smooth model ramps the conductor's top up into the salt: the layer near 1.1 km
-    # misses the depth-smoothed truth by more than TOL although it lies well above the DOI
-    # (cumulative sensitivity about 5 there), and the station result reports it as filled by
-    # the regularisation (inductive data barely see the interior of a 2000 ohm-m layer)
+def test_subsalt_conductor_top_is_not_smeared(suite):
+    # from the half-space of the linear data (0.1-1e5 ohm-m bounds reached on ordinary
+    # soundings) the sub-salt smooth model ramped the conductor's top up into the salt: the
+    # layer near 1.1 km missed the depth-smoothed truth by more than TOL above the DOI, and
+    # only the resolution flag said so (not on every noise draw). From the asinh-scaled
+    # start no layer of the lower half above the DOI misses, resolved or not
     c = suite["sub-salt conductor"]
-    bad = np.flatnonzero((np.abs(c["miss"]) > TOL) & (c["z"] > 0.5 * c["doi"]) & (c["z"] < c["doi"]))
-    assert bad.size and np.all(c["res"][bad] < RES_MIN)
-    # ... while the conductor itself (1.5-1.9 km) is resolved and followed
+    lower = (c["z"] > 0.5 * c["doi"]) & (c["z"] < c["doi"])
+    assert lower.sum() >= 3 and np.abs(c["miss"][lower]).max() <= TOL
+    # ... and the conductor itself (1.5-1.9 km) is resolved and followed
     k = int(np.argmin(np.abs(c["z"] - 1750.0)))
     assert c["res"][k] > 0.5 and abs(c["miss"][k]) <= TOL
 
 
-ROBUST = pytest.mark.xfail(strict=True, reason=(
-    "the smeared layer at 1.06 km comes out at 130 ohm-m (truth 2000) with a resolution of 0.53: "
-    "the linearisation about a wrongly conductive value sees a sensitivity the true resistor "
-    "does not have, so the flag misses it (docs/inversion.md)"))
-
-
 @pytest.mark.slow
-@pytest.mark.parametrize("seed", [101, pytest.param(102, marks=ROBUST), 103])
+@pytest.mark.parametrize("seed", [101, 102, 103])
 def test_subsalt_on_other_noise(seed):
-    # the same criterion on other noise realisations of the sub-salt sounding: the flag is
-    # a linearised measure and does not catch the smear every time
+    # the same criterion on other noise realisations of the sub-salt sounding (seed 102
+    # failed it from the former start: a smeared layer at 1.06 km, 130 ohm-m against 2000)
     c = invert_case("sub-salt conductor", seed)
     sel = judged(c, c["doi"])
     assert c["chi2"] <= 1.5 and sel.sum() >= 3
@@ -210,17 +205,23 @@ def test_a_doi_set_too_deep_fails_the_criterion(suite):
         sel = judged(c, 2.0 * c["doi"])
         if sel.any() and np.abs(c["miss"][sel]).max() > TOL:
             failing.append(name)
-    assert {"basalt over sediments over basement (Emberline-like)",
-            "same, 4.5 km from the wire"} <= set(failing)
+    assert "same, 4.5 km from the wire" in failing
 
 
 @pytest.mark.slow
 def test_each_method_alone_can_claim_too_much(suite):
-    # why the default takes the shallower DOI: far from the wire the two-reference index alone
-    # claims depth below where the model first misses the truth by more than TOL
-    c = suite["same, 4.5 km from the wire"]
+    # why the default takes the shallower DOI: on the Emberline-like sounding the
+    # two-reference index alone claims depth below where the model first misses the truth
+    # by more than TOL
+    c = suite["basalt over sediments over basement (Emberline-like)"]
     bad = np.flatnonzero((np.abs(c["miss"]) > TOL) & (c["z"] >= 200.0))
     assert bad.size and c["parts"]["two-reference"] > c["z"][bad[0]] > c["doi"]
+    # 4.5 km from the wire a reference inversion does not fit the data: no index is read
+    # (NaN) and the sensitivity DOI stands, above the first miss
+    c = suite["same, 4.5 km from the wire"]
+    bad = np.flatnonzero((np.abs(c["miss"]) > TOL) & (c["z"] >= 200.0))
+    assert np.isnan(c["parts"]["two-reference"])
+    assert c["doi"] == c["parts"]["sensitivity"] and bad.size and c["z"][bad[0]] > c["doi"]
 
 
 @pytest.mark.slow

@@ -218,9 +218,18 @@ def station_data(ds, floors=None, file=None, build_simulation=True) -> StationDa
     error = np.asarray(ds["error"].values, float)
     usable = np.asarray(ds["usable"].values).astype(bool)
     comps = np.array([str(c) for c in np.asarray(ds["component"].values).ravel()])
-    mask = usable & np.isfinite(value) & np.isfinite(error) & (error >= 0)
+    # a gate marked usable must carry a finite value and a finite, non-negative error: one
+    # that does not is a damaged or hand-edited file, named, not a datum dropped in silence
+    for field, bad in (("value", usable & ~np.isfinite(value)),
+                       ("error", usable & ~(np.isfinite(error) & (error >= 0)))):
+        if bad.any():
+            c, g = (int(i) for i in np.argwhere(bad)[0])
+            raise input_error(field, f"{int(bad.sum())} usable gate(s) with a NaN, infinite"
+                              f"{' or negative' if field == 'error' else ''} {field}, first "
+                              f"{comps[c]} gate {g}; mark them unusable or restore the file", file)
+    mask = usable.copy()
     if not mask.any():
-        raise input_error("usable", "no usable gates (all flagged, NaN or with negative errors)", file)
+        raise input_error("usable", "no usable gates (all flagged)", file)
     if np.all(error[mask] == 0):
         raise input_error("error", "all standard errors of usable gates are zero", file)
     floor = np.array([fl[c] for c in comps])[:, None] * np.abs(value)
