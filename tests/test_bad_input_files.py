@@ -188,3 +188,83 @@ def test_a_station_that_failed_stack_has_its_evening_verdict_everywhere(day, tmp
     assert st["qc_reasons"] == rows["EM06"]["reasons"]
     line = next(ln for ln in stdout.splitlines() if ln.startswith(("check:", "re-occupy:")))
     assert "EM06" in line, stdout
+
+
+@pytest.fixture(scope="module")
+def finished(tmp_path_factory):
+    """A three-station day run through the whole chain (figures on: the report draws them):
+    (survey file, project)."""
+    root = tmp_path_factory.mktemp("finished")
+    survey = write_day(root / "day", ["EM04", "EM06", "EM08"], PROCESSING, seed=5,
+                       duration=24.0)
+    out = root / "p"
+    rc, stdout, err = _tem("run", survey, "--out", out, "--jobs", "2", "--no-progress",
+                           timeout=600)
+    assert rc in (0, 1), (stdout, err)
+    assert (out / "report.html").is_file()
+    return survey, out
+
+
+def test_one_unreadable_gated_file_costs_its_station_not_the_report(finished, tmp_path):
+    # a truncated gated file failed its station at invert, then the report stage refused the
+    # whole project for its QC figures: the run stopped without a summary and the earlier
+    # report, showing the station fitted, stayed beside products without it (found by an
+    # independent review of the products)
+    import json
+
+    survey, done = finished
+    proj = tmp_path / "p"
+    shutil.copytree(done, proj)
+    g = proj / "gated" / "EM06.nc"
+    g.write_bytes(g.read_bytes()[:3000])
+    rc, stdout, err = _tem("run", survey, "--out", proj, "--from", "invert",
+                           "--jobs", "1", "--no-progress", timeout=600)
+    assert rc == 2, (stdout, err)
+    assert "Traceback" not in err
+    assert "invert: station EM06 failed" in err and "EM06.nc" in err
+    report = (proj / "report.html").read_text()
+    assert "Station EM06 failed at stage invert" in report
+    assert "left out of the QC figures" in report and "EM06.nc" in report
+    state = json.loads((proj / "run.json").read_text())
+    assert not state["stages"]["report"]["failed"]
+    assert state["last_run"]["failed"] == ["EM06"] and state["last_run"]["exit_status"] == 2
+    # the other station's products are all there
+    assert sorted(p.stem for p in (proj / "exports" / "las").glob("*.las")) == ["EM04", "EM08"]
+    # the station without a model is named in the products that interpolate across it or
+    # leave it out (the section said nothing and the SEG-Y header said "all stations fitted")
+    import segyio
+    import xarray as xr
+    for f in (proj / "models" / "models.nc", proj / "sections" / "section.nc"):
+        with xr.open_dataset(f, engine="h5netcdf") as ds:
+            assert list(json.loads(ds.attrs["stations_without_model"])) == ["EM06"], f
+    sgy = sorted((proj / "exports").glob("*.sgy"))
+    assert sgy
+    for f in sgy:
+        with segyio.open(f, ignore_geometry=True) as sg:
+            text = segyio.tools.wrap(sg.text[0])
+        assert "NO MODEL (NOT IN THE SECTION): EM06" in text, (f, text)
+        assert "ALL STATIONS FITTED" not in text
+    assert "export: no model of 1 station(s), so no LAS file" in stdout and "EM06 (failed " \
+        "invert" in stdout
+
+
+def test_a_run_that_stops_leaves_no_earlier_report_and_says_where(finished, tmp_path):
+    # a stage refusing its input stopped the run with the error line alone, and the earlier
+    # run's report stayed, describing products the run had changed
+    import json
+
+    survey, done = finished
+    proj = tmp_path / "p"
+    shutil.copytree(done, proj)
+    m = proj / "models" / "models.nc"
+    m.write_bytes(m.read_bytes()[:2000])
+    rc, stdout, err = _tem("run", survey, "--out", proj, "--from", "section",
+                           "--jobs", "1", "--no-progress")
+    assert rc == 2, (stdout, err)
+    assert "Traceback" not in err and err.strip().splitlines()[-1].count("models.nc") >= 1
+    assert "stopped: section: refused its input" in stdout       # the summary, before the error
+    assert "EM04" in stdout and "exit status 2" in stdout
+    assert not (proj / "report.html").exists()
+    state = json.loads((proj / "run.json").read_text())
+    assert state["last_run"]["stopped"].startswith("section: refused its input")
+    assert "not_fitted" in state["last_run"] and "reoccupy" in state["last_run"]

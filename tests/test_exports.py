@@ -270,6 +270,8 @@ def test_cli_bad_options_and_line_exit_2_before_writing(tmp_path, capsys):
     path = write_models(synthetic_models(), tmp_path / "in" / "models.nc")
     line = tmp_path / "line.csv"
     line.write_text(f"x,y\n{X[0]},{Y[0]}\nnan,{Y[-1]}\n")
+    vel = tmp_path / "vel.csv"
+    vel.write_text(f"depth_m,vp_m_per_s\n0,{V1}\n{H1},{V2}\n")
     p = _project(tmp_path)
     capsys.readouterr()
     cases = [
@@ -280,6 +282,9 @@ def test_cli_bad_options_and_line_exit_2_before_writing(tmp_path, capsys):
         (["export", p, "--las-bottom", "-3"], "--las-bottom: must be positive"),  # empty LAS logs
         (["export", p, "--dt-ms", "0.0001", "--velocity", str(line)], "--dt-ms: must be a whole"),
         (["export", p, "--what", "csv,bogus"], "--what: unknown 'bogus'"),
+        # wrote the CSV, the LAS files and the depth SEG-Y, then refused the TWT one
+        (["export", p, "--velocity", str(vel), "--dt-ms", "1", "--max-twt-ms", "100000"],
+         "100001 samples, above the SEG-Y rev 1 limit 65535"),
     ]
     for (cmd, src, *opts), msg in cases:
         out = tmp_path / f"o_{cmd}"

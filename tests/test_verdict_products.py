@@ -153,3 +153,14 @@ def test_report_first_table(project):
     row = [r for r in stations[:stations.index("</table>")].split("<tr") if f">{BAD}<" in r][0]
     assert "misfit" in row and "above tolerance" in row and ">ok<" not in row
     assert np.isfinite(float(row.split("<td>")[4].split("<")[0]))    # the chi2 cell
+
+
+def test_stage_commands_exit_1_on_a_misfit(project, tmp_path):
+    # tem section and tem export on a project with a misfit station exited 0 and said
+    # nothing (an independent review of the products); tem invert already exited 1
+    out = project[0]
+    for cmd, src in (("section", out / "models"), ("export", out)):
+        rc, stdout, stderr = run_captured([cmd, str(src), "--out", str(tmp_path / cmd),
+                                           "--no-progress"])
+        assert rc == 1, (cmd, stdout, stderr)
+        assert f"tem {cmd}: chosen model not fitted at 1 station(s): {BAD} (misfit)" in stderr

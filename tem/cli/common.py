@@ -177,6 +177,22 @@ def finish(stage: str, result, out, not_fitted=None) -> int:
     return 1 if result.any_failed or not_fitted else 0
 
 
+def misfit_stations(models_files) -> dict:
+    """``{station: status}`` of the stations whose model in ``models_files`` is a misfit (a
+    failure: the exit status of ``tem section`` and ``tem export`` says so, as ``tem
+    invert``'s does)."""
+    from ..io.models import model_verdicts, read_models
+    from ..section.verdicts import FAILURE_CODES
+
+    out = {}
+    for f in models_files:
+        ds = read_models(f)
+        for sid, v in zip(ds["station"].values.astype(str), model_verdicts(ds)):
+            if v is not None and v["code"] in FAILURE_CODES:
+                out[str(sid)] = v["status"]
+    return out
+
+
 def not_fitted_line(not_fitted: dict) -> str:
     """One line naming the stations whose chosen model is not fitted, e.g. ``EM03 (misfit)``."""
     names = ", ".join(f"{sid} ({status})" for sid, status in not_fitted.items())

@@ -26,12 +26,13 @@ def run(args) -> int:
 
     from ..pipeline import run_pipeline
     from ..settings import parse_assignment
-    from .run import print_summary
+    from .run import print_summary, run_summarised
 
     overrides = [parse_assignment(s) for s in args.settings]
-    outcome = run_pipeline(args.survey, args.out, overrides=overrides, until="gate",
-                           jobs=args.jobs or common.default_jobs(), console=Console(stderr=True),
-                           progress=args.progress, figures=args.figures, scheduler=args.scheduler)
+    outcome = run_summarised(run_pipeline, args.survey, args.out, overrides=overrides,
+                             until="gate", jobs=args.jobs or common.default_jobs(),
+                             console=Console(stderr=True), progress=args.progress,
+                             figures=args.figures, scheduler=args.scheduler)
     console = Console()
     print_summary(outcome, console)
     stations = outcome.state.get("stations", {})

@@ -34,4 +34,4 @@ def run(args) -> int:
     check_output(args.out, ["export"], inputs=files + extra)
     with common.stage_context(args, "export", 1) as ctx:
         res = export_run(settings, Path(args.project), args.out, ctx)
-    return common.finish("export", res, args.out)
+    return common.finish("export", res, args.out, not_fitted=common.misfit_stations(files[:1]))

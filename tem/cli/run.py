@@ -37,12 +37,28 @@ def run(args) -> int:
     from ..settings import parse_assignment
 
     overrides = [parse_assignment(s) for s in args.settings]
-    outcome = run_pipeline(args.survey, args.out, from_stage=args.from_stage, overrides=overrides,
-                           jobs=args.jobs or common.default_jobs(), console=Console(stderr=True),
-                           progress=args.progress, figures=args.figures, scheduler=args.scheduler,
-                           until=args.until)
+    outcome = run_summarised(run_pipeline, args.survey, args.out, from_stage=args.from_stage,
+                             overrides=overrides, jobs=args.jobs or common.default_jobs(),
+                             console=Console(stderr=True), progress=args.progress,
+                             figures=args.figures, scheduler=args.scheduler, until=args.until)
     print_summary(outcome, Console())
     return outcome.exit_status
+
+
+def run_summarised(run_pipeline, *args, **kw):
+    """``run_pipeline(*args, **kw)``; when a stage refuses its input or cannot write, the
+    summary of what the run did finish (stations' verdicts, the stage that stopped it) is
+    printed before the one-line error, which the command's caller prints."""
+    from rich.console import Console
+
+    from ..errors import TemInputError, TemOutputError
+
+    try:
+        return run_pipeline(*args, **kw)
+    except (TemInputError, TemOutputError) as exc:
+        if getattr(exc, "outcome", None) is not None:
+            print_summary(exc.outcome, Console())
+        raise
 
 
 def print_summary(outcome, console):

@@ -30,4 +30,4 @@ def run(args) -> int:
     check_output(args.out, ["section"], inputs=files + extra)
     with common.stage_context(args, "section", 1) as ctx:
         res = section_run(settings, files, args.out, ctx)
-    return common.finish("section", res, args.out)
+    return common.finish("section", res, args.out, not_fitted=common.misfit_stations(files))

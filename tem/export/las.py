@@ -20,6 +20,7 @@ holds the rest (coordinates, ground elevation, CRS, DOI, misfit, model kind).
 from __future__ import annotations
 
 import datetime as _dt
+import textwrap
 from pathlib import Path
 
 import numpy as np
@@ -33,6 +34,10 @@ from ..io.checks import safe_name
 __all__ = ["NULL", "station_log", "las_for_station", "write_las", "write_las_all", "safe_name"]
 
 NULL = -999.25
+#: Longest text value of a ~Params line (a longer one is shortened, and whole in ~Other),
+#: and the width ~Other is wrapped to: every line of the file stays within LAS 2.0's 256.
+_VALUE_WIDTH = 60
+_OTHER_WIDTH = 100
 
 
 def station_log(depth_top, resistivity, log10_std, doi, step, bottom):
@@ -117,9 +122,11 @@ def las_for_station(models, i, step, bottom=None, mask_below_doi=False, source="
     las.well["SRVC"].value = f"tem {__version__}"
     las.well["DATE"].value = _dt.date.today().isoformat()
     las.well["UWI"].value = sid
-    for key in ("PROV", "CNTY", "STAT", "CTRY", "API"):
+    for key in ("CNTY", "STAT", "CTRY", "API"):      # LAS 2.0 asks PROV or these three
         if key in las.well.keys():
             del las.well[key]
+    if "PROV" in las.well.keys():
+        las.well["PROV"].value = ""
     params = [
         ("XCOORD", "m", x, "Station easting (projected X)"),
         ("YCOORD", "m", y, "Station northing (projected Y)"),
@@ -138,8 +145,16 @@ def las_for_station(models, i, step, bottom=None, mask_below_doi=False, source="
     if "res_p50" in models:      # posterior products (tem.export.las_posterior)
         from .las_posterior import posterior_params
         params += posterior_params(models, i, NULL)
+    in_full = []
     for mnem, unit, value, descr in params:
-        las.params.append(lasio.HeaderItem(mnem, unit=unit, value=value, descr=descr))
+        # LAS 2.0 lines stay within 256 characters (lasio pads every ~Params line to the
+        # widest value: one long reason pushed the verdict words past column 380); a long
+        # text is shortened here and given whole in ~Other. No colon in a description.
+        if isinstance(value, str) and len(value) > _VALUE_WIDTH:
+            in_full.append(f"{mnem} in full: {value}")
+            value = value[:_VALUE_WIDTH - 3].rstrip() + "..."
+        las.params.append(lasio.HeaderItem(mnem, unit=unit, value=value,
+                                           descr=str(descr).replace(":", " -")))
     las.other = ("Pseudo-well from a 1D TEM resistivity model; an interpretation, not a "
                  "measured log: check it against wells and other data before any decision. "
                  "Depths are below ground level.")
@@ -152,6 +167,7 @@ def las_for_station(models, i, step, bottom=None, mask_below_doi=False, source="
     if "res_p50" in models:
         from .las_posterior import interval_warning
         las.other += interval_warning(params)
+    las.other = "\n".join(textwrap.fill(t, _OTHER_WIDTH) for t in [las.other] + in_full)
     las.append_curve("DEPT", depth, unit="m", descr="Depth below ground level")
     las.append_curve("RES", r, unit="ohm.m", descr="Model resistivity")
     las.append_curve("RSTD", s, unit="log10(ohm.m)", descr="Std of log10 resistivity")

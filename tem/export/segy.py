@@ -369,11 +369,16 @@ def _not_fitted_lines(grid) -> list:
     codes = grid["station_verdict_code"].values.astype(int)
     bad = [f"{sid} {STATUSES[c].upper() if 0 <= c < len(STATUSES) else c}" for sid, c in
            zip(grid["station"].values.astype(str), codes) if c > 0]
+    from .stage import without_model
+
+    missing = list(without_model(grid))
+    lines = _wrapped("NO MODEL (NOT IN THE SECTION): ", missing) if missing else []
     if not bad:
-        return ["VERDICTS: ALL STATIONS FITTED"]
+        return ["VERDICTS: ALL MODELLED STATIONS FITTED" if missing else
+                "VERDICTS: ALL STATIONS FITTED"] + lines
     fitted = int(np.sum(codes == 0))
     return _wrapped("VERDICTS: ", bad, f"; {fitted} OTHER(S) FITTED" if fitted else
-                    "; NONE FITTED")
+                    "; NONE FITTED") + lines
 
 
 def _qc_lines(grid) -> list:

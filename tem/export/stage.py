@@ -17,7 +17,7 @@ from ..provenance import records_from_json, stage_record
 from ..runtime import StageContext, StageResult
 from .settings import ExportSettings, kinds_of
 
-__all__ = ["run", "inputs_of", "to_crs"]
+__all__ = ["run", "inputs_of", "to_crs", "without_model"]
 
 
 def inputs_of(settings: ExportSettings, project_in) -> tuple:
@@ -89,6 +89,15 @@ def run(settings: ExportSettings, project_in, out, ctx: StageContext = StageCont
                                  or not 1 <= step_mm <= 65535):
         raise input_error("depth_step", "the depth step must be a whole number of millimetres "
                           "in 1..65535 for SEG-Y (bytes 3217-3218)", sfile)
+    if "segy-twt" in what:     # checked before anything is written (nothing half-exported)
+        max_twt = (settings.max_twt_ms * 1e-3 if settings.max_twt_ms is not None
+                   else float(depth_to_twt(float(grid["depth"].values[-1]), *table)))
+        dt = _dt_us(settings) * 1e-6
+        n = int(max_twt / dt + 1e-9) + 1 if dt > 0 and max_twt > 0 else 0
+        if n > 65535:
+            raise input_error("max_twt_ms", f"{max_twt * 1e3:g} ms at {dt * 1e3:g} ms is {n} "
+                              "samples, above the SEG-Y rev 1 limit 65535 (bytes 3221-3222): "
+                              "lower max_twt_ms or raise dt_ms")
     written = []
     if "csv" in what:
         written.append(write_models_csv(models, dest / "models.csv"))
@@ -103,16 +112,13 @@ def run(settings: ExportSettings, project_in, out, ctx: StageContext = StageCont
         written.append(segy.write_segy(dest / "section_depth.sgy", data, grid, step_mm, first,
                                        sp.vertical, text, settings.line_number))
     if "segy-twt" in what:
-        dt = _dt_us(settings) * 1e-6
-        if settings.max_twt_ms is not None:
-            max_twt = settings.max_twt_ms * 1e-3
-        else:
-            max_twt = float(depth_to_twt(float(grid["depth"].values[-1]), *table))
         data, _, tgrid, doi_twt = segy.twt_section_traces(
             lambda d: to_crs(section_grid(src_models, sp, depth=d), src_epsg, epsg)
             if epsg != src_epsg else section_grid(src_models, sp, depth=d),
             table[0], table[1], dt, max_twt,
             settings.segy_value, settings.segy_below_doi)
+        if models.attrs.get("stations_without_model"):
+            tgrid.attrs["stations_without_model"] = models.attrs["stations_without_model"]
         text = segy.describe(tgrid, "twt", dt, settings.segy_value, settings.segy_below_doi,
                              epsg, str(mfile), settings.velocity)
         written.append(segy.write_segy(dest / "section_twt.sgy", data, tgrid, _dt_us(settings), 0.0,
@@ -126,5 +132,19 @@ def run(settings: ExportSettings, project_in, out, ctx: StageContext = StageCont
                                      json.dumps(manifest, indent=1, sort_keys=True) + "\n"))
     n_las = sum(1 for p in written if Path(p).suffix == ".las")
     others = ", ".join(k for k in what if k != "las")
-    return StageResult(outputs=[str(p) for p in written], inputs=record["inputs"],
-                       notes=[f"{len(written)} files in {dest} ({n_las} LAS; {others})"])
+    notes = [f"{len(written)} files in {dest} ({n_las} LAS; {others})"]
+    without = without_model(models)
+    if without:
+        notes.append(f"no model of {len(without)} station(s), so no LAS file and no trace of "
+                     f"their own: {'; '.join(f'{k} ({v[:80]})' for k, v in without.items())}")
+    return StageResult(outputs=[str(p) for p in written], inputs=record["inputs"], notes=notes)
+
+
+def without_model(ds) -> dict:
+    """``{station: why}`` the models file (or a section grid made from it) names as having no
+    model (attribute ``stations_without_model``; {} when it names none or is unreadable)."""
+    try:
+        out = json.loads(ds.attrs.get("stations_without_model") or "{}")
+    except (ValueError, RecursionError):
+        return {}
+    return {str(k): str(v) for k, v in out.items()} if isinstance(out, dict) else {}

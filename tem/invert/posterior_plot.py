@@ -43,8 +43,14 @@ def posterior_station_figure(result, cover_layers, true_model=None):
     ax_d.set_xscale("log")
     ax_d.set_yscale("log")
     ax_d.set_ylabel("|response| per ampere (SI)")
-    ax_d.set_title(f"station {result.station}: few-layer fit chi2/N = {few['chi2']:.2f}; "
-                   f"draws median {post.chi2_median:.2f}")
+    # the fit's own verdict, as on the other kinds' figures (it was missing here)
+    v = result.verdict_for("posterior") if hasattr(result, "verdict_for") else None
+    failure = v is not None and v.failed
+    ax_d.set_title(f"station {result.station}: few-layer fit chi2/N = {few['chi2']:.2f}"
+                   f"{f'; {v.status}' if v is not None else ''}; "
+                   f"draws median {post.chi2_median:.2f}",
+                   color="#a4281b" if failure else "k",
+                   fontweight="bold" if failure else "normal")
     ax_d.legend(fontsize=7, loc="lower left")
     ax_d.grid(True, which="both", alpha=0.25)
     ax_r.axhspan(-1, 1, color="0.85", zorder=0)

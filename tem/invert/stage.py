@@ -8,6 +8,7 @@ few-layer model is chosen, and with ``lci`` ``models_lci.nc`` and
 """
 from __future__ import annotations
 
+import json
 from pathlib import Path
 
 import numpy as np
@@ -17,7 +18,7 @@ from ..provenance import file_sha256, stage_record
 from ..runtime import StageContext, StageResult, StationOutcome, map_stations
 from .settings import InversionSettings, floors_of
 
-__all__ = ["run", "invert_one", "verdict_info", "not_fitted"]
+__all__ = ["run", "invert_one", "verdict_info", "not_fitted", "stations_without_model"]
 
 
 def invert_one(sid, in_path, settings: InversionSettings, floors, fig_path, qc=None):
@@ -42,7 +43,9 @@ def invert_one(sid, in_path, settings: InversionSettings, floors, fig_path, qc=N
         else:
             fig = station_figure(r, kind=settings.kind)
         if qc is not None and qc[0] in ("reoccupy", "check"):
-            words = f"evening QC {qc[0]}: {qc[1]}"[:160]
+            import textwrap
+            # wrapped, not cut: the reasons end with the minutes asked for
+            words = "\n".join(textwrap.wrap(f"evening QC {qc[0]}: {qc[1]}", 110)[:4])
             if fig._suptitle is not None:        # e.g. the posterior's interval verdict
                 fig.suptitle(f"{fig._suptitle.get_text()}\n{words}", fontsize=10,
                              color=fig._suptitle.get_color())
@@ -213,6 +216,22 @@ def run(settings: InversionSettings, gated_files, out, ctx: StageContext = Stage
         collect.spool.close()
 
 
+def stations_without_model(res, run_state=None) -> dict:
+    """``{station: why}`` of the stations this stage has no model of: those that failed it,
+    and (in a run) those that failed an earlier stage. A section interpolates across them
+    and an export has no file of them; the models file names them so that every product
+    can say so (attribute ``stations_without_model``, JSON)."""
+    out = {}
+    if run_state is not None:
+        for sid, st in (run_state.get("stations") or {}).items():
+            if st.get("failed_stage") and st["failed_stage"] != "invert":
+                out[sid] = f"failed {st['failed_stage']}: {st.get('message', '')}".strip()
+    for sid, oc in res.stations.items():
+        if oc.status != "ok":
+            out[sid] = f"failed invert: {oc.message}".strip()
+    return out
+
+
 def _products(settings, project, files, floors, qc, qc_rows, ctx, jobs, collect):
     """Run the stations through ``collect``, then write the survey-wide products."""
     from ..io.models import add_qc_verdicts, write_models, write_models_csv
@@ -225,11 +244,16 @@ def _products(settings, project, files, floors, qc, qc_rows, ctx, jobs, collect)
     if not stations:
         res.failed = "no station could be inverted"
         return res
+    without = stations_without_model(res, ctx.run_state)
+
+    def mark(d):
+        """Every models file names the stations it has no model of, and why."""
+        if without:
+            d.attrs["stations_without_model"] = json.dumps(without)
+        return add_qc_verdicts(d, qc_rows) if qc_rows is not None else d
+
     if qc_rows is not None:
         res.inputs.append({"file": str(qc), "sha256": file_sha256(qc)})
-        mark = (lambda d: add_qc_verdicts(d, qc_rows))
-    else:
-        mark = (lambda d: d)
     record = stage_record("invert", settings.as_dict())
     record["inputs"] = res.inputs
     epsgs = {oc.info.get("epsg", 0) for oc in res.stations.values() if oc.status == "ok"}

@@ -123,8 +123,10 @@ def record_failed_write(project, state, stage, exc, t_run):
     what = "refused its input" if bad else "could not write its products"
     why = f"{stage}: {what}: {exc}".splitlines()[0]
     state["stages"][stage] = dict(stage_record(stage, {}), stations={}, failed=why, outputs=[])
-    state["last_run"].update(stopped=why, elapsed_s=round(time.perf_counter() - t_run, 2),
-                             exit_status=2 if bad else 1)
+    state["last_run"].update(
+        stopped=why, elapsed_s=round(time.perf_counter() - t_run, 2), exit_status=2 if bad else 1,
+        failed=[sid for sid, s in state.get("stations", {}).items() if "failed_stage" in s],
+        not_fitted=not_fitted(state), reoccupy=to_reoccupy(state))
 
 
 def exit_status_of(state) -> int:

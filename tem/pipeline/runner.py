@@ -331,6 +331,20 @@ def _executor(jobs, scheduler):
         yield pool
 
 
+def _withdraw_report(run, stages):
+    """The earlier run's report describes products this run may change: it is withdrawn
+    when the run starts (a hand-edited one is kept under ``edited/``), so a run that stops
+    before its report stage leaves no report contradicting the products. Notes."""
+    report = run.project.report
+    if "report" not in stages or not report.is_file():
+        return []
+    old = run.previous.get("stages", {}).get("report") or run.redone.get("report")
+    notes = run._keep_edited("report", old, {})
+    if report.is_file():
+        report.unlink()
+    return notes
+
+
 def _kept_inputs_notes(project, state, stages, sums):
     """Notes for products of kept stages that changed since they were written (``--from``)."""
     notes = []
@@ -452,6 +466,7 @@ def _run_locked(survey, survey_file, settings, project, start, end, jobs, consol
     if lock.cleaned:
         housekeeping.append(f"removed {lock.cleaned} temporary files of an interrupted run")
     housekeeping += _kept_inputs_notes(project, state, STAGES[:start], run.sums)
+    housekeeping += _withdraw_report(run, STAGES[start:end])
     state["last_run"]["notes"] = housekeeping
     for note in housekeeping:
         console.print(f"[yellow]note[/]: {note}", highlight=False, soft_wrap=True)
@@ -489,6 +504,9 @@ def _run_locked(survey, survey_file, settings, project, start, end, jobs, consol
                 # the run: the record says which stage and why, and the exit status, before
                 # the one-line error
                 record_failed_write(project, state, stage, exc, t_run)
+                # what the run did finish, for the caller's summary before the error line
+                exc.outcome = RunOutcome(state=state, exit_status=state["last_run"]["exit_status"],
+                                         project=project)
                 raise
             finally:
                 with contextlib.suppress(TemOutputError):

@@ -43,10 +43,15 @@ def _qc_rows(src: Project):
     return read_stations_csv(path) if path.is_file() else []
 
 
-def qc_figures(src: Project, project: Project, qc_rows, ctx):
-    """The station map and the noise figure from the gated soundings; returns [(png, caption)]."""
+def qc_figures(src: Project, project: Project, qc_rows, ctx, notes=None):
+    """The station map and the noise figure from the gated soundings; returns [(png, caption)].
+
+    A gated file that cannot be read is left out of both figures and named in ``notes``
+    (the station failed a later stage for the same reason; one file does not cost the
+    report)."""
     import numpy as np
 
+    from ..errors import TemInputError
     from ..io.figures import save_figure
     from ..io.stacked import read_product
     from .figures import noise_figure, station_map
@@ -57,7 +62,12 @@ def qc_figures(src: Project, project: Project, qc_rows, ctx):
         return []
     stations, series, tx, epsg = [], [], None, 0
     for f in gated:
-        ds = read_product(f, "gated")
+        try:
+            ds = read_product(f, "gated")
+        except TemInputError as exc:
+            if notes is not None:
+                notes.append(f"left out of the QC figures: {str(exc).splitlines()[0]}")
+            continue
         sid = f.stem
         stations.append((sid, float(ds.attrs["x"]), float(ds.attrs["y"]), verdicts.get(sid, "")))
         if tx is None:
@@ -66,6 +76,8 @@ def qc_figures(src: Project, project: Project, qc_rows, ctx):
         t = ds["gate_centre"].values
         for c, comp in enumerate(ds["component"].values):
             series.append((sid, str(comp), t, ds["error"].values[c]))
+    if tx is None:          # no gated file could be read
+        return []
     stations += [(r["station"], np.nan, np.nan, r["verdict"]) for r in qc_rows
                  if r["station"] not in {s[0] for s in stations}]
     figs = project.folder("figures")
@@ -152,7 +164,7 @@ def run(settings: ReportSettings, project_in, out, ctx: StageContext = StageCont
             notes.append(f"Station {sid} failed at stage {s['failed_stage']}: {s.get('message', '')}")
     title = settings.title or (f"{name}: TEM quality-control report" if name
                                else "TEM quality-control report")
-    qfigs = qc_figures(src, project, qc_rows, ctx)
+    qfigs = qc_figures(src, project, qc_rows, ctx, notes)
     path = write_report(project.report, models, section_figures=sections, model_figures=model_figs,
                         station_figures=station_figs, station_info=info, title=title,
                         chi2_limit=settings.chi2_limit, embed=settings.embed, notes=notes,

@@ -328,11 +328,23 @@ def section_figure(grid, *, below_doi, title=None, vmin=None, vmax=None, distanc
     cb = fig.colorbar(mesh, ax=ax, pad=0.01)
     cb.set_label("resistivity (ohm-m)")
     ax.legend(loc="lower right", fontsize=8, framealpha=0.8)
-    caution = unconverged_caption(grid)
+    caution = "\n".join(c for c in (unconverged_caption(grid), without_model_caption(grid)) if c)
     if title or caution:
         fig.suptitle("\n".join(t for t in (title, caution) if t),
                      fontsize="medium" if caution else "large")
     return fig
+
+
+def without_model_caption(grid):
+    """One line naming the stations of the survey without a model (failed a stage): the
+    section is interpolated across them ("" when none)."""
+    from ..export.stage import without_model
+
+    missing = list(without_model(grid))
+    if not missing:
+        return ""
+    names = ", ".join(missing[:8]) + (f" and {len(missing) - 8} more" if len(missing) > 8 else "")
+    return f"no model (failed a stage; interpolated across): {names}"
 
 
 def unconverged_caption(grid):

@@ -91,6 +91,10 @@ def posterior_section_figure(models, settings, title=None):
     ax1.set_title(title or "posterior P50 resistivity (few-layer models)",
                   pad=14 + 10 * (any(qc) + any(fit)))   # room for station names of 2-3 lines
     ax2.set_title("posterior spread: log10(P90 / P10) of resistivity")
+    from .plot import without_model_caption
+    missing = without_model_caption(models)
+    if missing:
+        fig.suptitle(missing, fontsize="small", color="#a00000")
     ax2.set_xlabel(f"distance along profile ({unit})")
     for s, x, q, f in zip(g50["station"].values.astype(str)[order], sd, qc, fit):
         ax1.annotate(s + (f"\n{f}" if f else "") + (f"\nQC {q}" if q else ""), (x, ye[0]),

@@ -87,6 +87,8 @@ def run(settings: SectionSettings, models_files, out, ctx: StageContext = StageC
                                 mfile, settings.line)
         grid = section_grid(models, settings)
         grid.attrs["section_settings"] = json.dumps(settings.as_dict(), sort_keys=True)
+        if models.attrs.get("stations_without_model"):     # interpolated across: say so
+            grid.attrs["stations_without_model"] = models.attrs["stations_without_model"]
         records = records_from_json(models.attrs.get("provenance"))
         records.append(stage_record("section", settings.as_dict(), inputs=[mfile]))
         res.inputs += records[-1]["inputs"]
