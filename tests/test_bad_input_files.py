@@ -268,3 +268,19 @@ def test_a_run_that_stops_leaves_no_earlier_report_and_says_where(finished, tmp_
     state = json.loads((proj / "run.json").read_text())
     assert state["last_run"]["stopped"].startswith("section: refused its input")
     assert "not_fitted" in state["last_run"] and "reoccupy" in state["last_run"]
+
+
+def test_a_models_file_with_a_nan_chi2_or_doi_is_refused(models_file, tmp_path):
+    # a NaN chi-square was exported as "CHI2 nan" beside "FIT FITTED", and a NaN DOI left
+    # the section unveiled to its bottom (independent review of the products)
+    import xarray as xr
+
+    for field in ("chi2", "doi"):
+        with xr.open_dataset(models_file, engine="h5netcdf") as ds:
+            ds = ds.load()
+        ds[field].values[1] = np.nan
+        bad = tmp_path / f"{field}.nc"
+        ds.to_netcdf(bad, engine="h5netcdf")
+        rc, _, err = _tem("section", bad, "--out", tmp_path / f"s_{field}", "--no-progress")
+        assert rc == 2 and f"{bad.name}: {field}: " in err and err.count("\n") == 1, err
+        assert not (tmp_path / f"s_{field}").exists()

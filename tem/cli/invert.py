@@ -74,7 +74,7 @@ def qc_table(option, files):
     return found if folder.name == "gated" and found.is_file() else None
 
 
-_COLOUR = {"fitted": "green", "misfit": "bold red", "stalled": "bold red",
+_COLOUR = {"fitted": "green", "misfit": "bold red", "stalled": "yellow",
            "parameter-at-bound": "yellow", "degenerate-layer": "yellow"}
 
 

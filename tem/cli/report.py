@@ -15,6 +15,8 @@ def add_parser(sub):
                        "figures and run.json when present, and writes OUT/report.html.")
     p.add_argument("project", help="project folder (from 'tem run' or the stage commands)")
     common.add_out(p, what="folder for report.html (usually the project folder itself)")
+    # the report draws no progress bar; the option is taken as by every other command
+    common.add_run_options(p, figures=False, jobs=False)
     REPORT.add_options(p, group_title="report")
     return p
 

@@ -210,8 +210,8 @@ def check_model_values(ds, file=None):
 
     Station ids: unique printable text; coordinates finite (|x|, |y| <= 1e8 m,
     |z| <= 1e5 m); resistivity 1e-6..1e12 ohm-m or NaN (padding), at least one
-    per station; thickness in (0, 1e6] m or NaN; DOI and chi-square >= 0 or
-    NaN; posterior standard deviations >= 0 or NaN; at most 1000 layers.
+    per station; thickness in (0, 1e6] m or NaN; DOI and chi-square finite and >= 0;
+    posterior standard deviations >= 0 or NaN; at most 1000 layers.
     """
     from . import checks
 
@@ -236,8 +236,10 @@ def check_model_values(ds, file=None):
     checks.variable(ds, "depth_top", sl, file, minimum=0.0, maximum=lim["depth"], allow_nan=True)
     _check_layer_geometry(ds, ids, file)
     checks.variable(ds, "log10_res_std", sl, file, minimum=0.0, maximum=1e30, allow_nan=True)
-    checks.variable(ds, "doi", st, file, minimum=0.0, maximum=lim["depth"], allow_nan=True)
-    checks.variable(ds, "chi2", st, file, minimum=0.0, maximum=1e30, allow_nan=True)
+    # every model has its misfit and its DOI: a NaN (a damaged or hand-edited file) left the
+    # LAS saying FITTED beside "CHI2 nan", and the section unveiled to its bottom
+    checks.variable(ds, "doi", st, file, minimum=0.0, maximum=lim["depth"])
+    checks.variable(ds, "chi2", st, file, minimum=0.0, maximum=1e30)
     epsg = ds.attrs.get("epsg", 0)
     if isinstance(epsg, np.ndarray) and epsg.size == 1:
         epsg = epsg.reshape(-1)[0]
