@@ -219,3 +219,22 @@ def test_a_few_layer_verdict_says_when_its_doi_comes_from_a_misfit():
 def dataclasses_replace(v, **kw):
     import dataclasses
     return dataclasses.replace(v, **kw)
+
+
+def test_a_doi_at_the_mesh_bottom_is_said_to_be_a_lower_bound(emberline_result, monkeypatch):
+    # 16 of 34 stations of an independent review had their DOI at the top of the mesh
+    # half-space, said in no product: the verdicts now carry it as a finding
+    import tem.invert.station as station
+
+    res, _ = emberline_result
+    mark = "is the top of the mesh half-space"
+    assert (res.doi >= res.thickness.sum() * (1 - 1e-9)) == any(mark in r for r in res.verdict.reasons)
+    # a DOI at the bottom (as the cumulative sensitivity gives when it never falls below
+    # its threshold on the mesh)
+    monkeypatch.setattr(station, "station_doi",
+                        lambda sd, settings, r, h, rho: (float(np.sum(h)), {"sensitivity": 0.0}))
+    v, e, sim, _ = emberline_station(X, noise=0.03, seed=0, gates=GATES)
+    sd = station_data_from_arrays(sim, v, e, ["ex", "dbzdt"], x=X, gate_centre=CENTRE)
+    deep = invert_station(sd, InversionSettings())
+    assert deep.doi == pytest.approx(deep.thickness.sum())
+    assert any(f"DOI {deep.doi:.0f} m {mark}" in r for r in deep.verdict.reasons)

@@ -366,6 +366,15 @@ def invert_station(sd, settings: InversionSettings = InversionSettings(), callba
         from .equivalence import equivalence_ranges
         out.few["resistivity_range"] = equivalence_ranges(sd, settings, out.few)
         out.few["verdict"] = _doi_caveat(out.few["verdict"], out.verdict)
+    if doi >= float(np.sum(h)) * (1.0 - 1e-9):
+        # the DOI is the mesh's bottom: a lower bound, not where sensitivity ends (an
+        # independent review: 16 of 34 stations, said in no product)
+        note = (f"DOI {doi:.0f} m is the top of the mesh half-space: the data may see deeper "
+                "(a lower bound; a deeper mesh with depth_max would show)")
+        out.verdict = dataclasses.replace(out.verdict, reasons=tuple(out.verdict.reasons) + (note,))
+        if out.few is not None and out.few.get("verdict") is not None:
+            v = out.few["verdict"]
+            out.few["verdict"] = dataclasses.replace(v, reasons=tuple(v.reasons) + (note,))
     return out
 
 
