@@ -215,6 +215,9 @@ def test_report_models_table(project):
     assert "<th>QC</th>" in table
     row = [r for r in table.split("<tr") if f">{DEAD}<" in r][0]
     assert 'class="reoccupy"' in row and '<td class="status">reoccupy</td>' in row
+    # the heading counts the models on a recording to repeat (it counted fit verdicts only)
+    heading = stations[:stations.index("</h2>")]
+    assert "; 1 on a recording to re-occupy" in heading, heading
 
 
 def test_fit_figure_states_the_qc_verdict(project, monkeypatch):

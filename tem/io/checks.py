@@ -412,7 +412,10 @@ def _touch(name, obj, max_elements, big):
 
 
 def _why(exc) -> str:
-    msg = str(exc).splitlines()[0][:60] if str(exc).strip() else ""
+    """The library's reason, first line, at most 100 characters (a cut is marked with ...)."""
+    msg = str(exc).strip().splitlines()[0] if str(exc).strip() else ""
+    if len(msg) > 100:
+        msg = msg[:97].rstrip() + "..."
     return f"{type(exc).__name__}: {msg}" if msg else type(exc).__name__
 
 

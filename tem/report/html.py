@@ -264,8 +264,11 @@ def _model_section(models, station_info, chi2_limit, station_figures):
     sampled = any(r["interval"] for r in rows)
     n_unconv = sum(r["interval"] == "unconverged" for r in rows)
     unconv = f"; intervals unconverged at {n_unconv}" if n_unconv else ""
+    # a fitted model on a recording to repeat is not one to hand on: the heading counts them
+    n_again = sum(r["qc"] == "reoccupy" for r in rows)
+    again = f"; {n_again} on a recording to re-occupy" if n_again else ""
     out.append(f'<h2 id="stations">Models by station ({len(rows)}: {len(rows) - n_fail - n_warn} '
-               f'fitted, {n_warn} with a warning, {n_fail} not fitted{unconv})</h2>')
+               f'fitted, {n_warn} with a warning, {n_fail} not fitted{again}{unconv})</h2>')
     crs = f"EPSG:{epsg}" if epsg else "CRS not given"
     if any(r["reasons"] for r in rows):
         rule = ("status: the verdict on the final fit (fitted within the chi2 tolerance; misfit "
