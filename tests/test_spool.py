@@ -144,7 +144,9 @@ def test_fit_table_from_pieces_holds_every_datum(posterior_results, tmp_path):
         for i in range(r.d_obs.size):
             row = body[k]
             k += 1
-            assert row[0] == r.station and row[-1] == "smooth"
+            assert row[0] == r.station and row[8] == "smooth"
+            assert row[9] == r.verdict.status                      # the model's verdict
+            assert row[10] == {"ex": "V/m/A", "dbzdt": "T/s/A"}[row[2]]
             obs, std, pred, nres = (float(v) for v in row[4:8])
             assert obs == r.d_obs[i] and std == r.std[i] and pred == r.d_pred[i]
             assert nres == pytest.approx((r.d_obs[i] - r.d_pred[i]) / r.std[i], rel=1e-12)

@@ -164,3 +164,14 @@ def test_stage_commands_exit_1_on_a_misfit(project, tmp_path):
                                            "--no-progress"])
         assert rc == 1, (cmd, stdout, stderr)
         assert f"tem {cmd}: chosen model not fitted at 1 station(s): {BAD} (misfit)" in stderr
+
+
+def test_fit_table_carries_the_verdict_and_units(project):
+    # a misfit station's rows of fit.csv looked like a fitted one's, and observed/predicted
+    # had no unit (independent review of the products)
+    out = project[0]
+    with open(out / "models" / "fit.csv", encoding="utf-8") as fh:
+        rows = list(csv.DictReader(fh))
+    assert {r["verdict"] for r in rows if r["station"] == BAD} == {"misfit"}
+    assert {r["verdict"] for r in rows if r["station"] == GOOD} == {"fitted"}
+    assert {(r["component"], r["unit"]) for r in rows} <= {("ex", "V/m/A"), ("dbzdt", "T/s/A")}

@@ -15,7 +15,14 @@ __all__ = ["load_station", "model_row", "models_from_results", "models_from_rows
            "fit_text", "write_fit_csv", "write_fit_text", "FIT_COLUMNS"]
 
 FIT_COLUMNS = ("station", "channel", "component", "time_s", "observed", "std", "predicted",
-               "normalised_residual", "model_kind")
+               "normalised_residual", "model_kind", "verdict", "unit")
+
+
+def unit_of(component) -> str:
+    """Unit of a component's values per ampere: E fields V/m/A, B T/A, dB/dt T/s/A."""
+    from ..forward.geometry import B_COMPONENTS, E_COMPONENTS
+    c = str(component)
+    return "V/m/A" if c in E_COMPONENTS else "T/A" if c in B_COMPONENTS else "T/s/A"
 
 
 def load_station(path, floors=None):
@@ -221,10 +228,13 @@ def fit_text(r, kind) -> str:
     w = csv.writer(buf)
     pred = r.few["d_pred"] if (kind == "few-layer" and r.few) else r.d_pred
     nres = (r.d_obs - pred) / r.std
+    # the model's verdict on every row: a misfit's rows must not read like a fitted model's
+    v = r.verdict_for(kind) if hasattr(r, "verdict_for") else None
+    status = v.status if v is not None else ""
     for i in range(r.d_obs.size):
         w.writerow([r.station, int(r.channel[i]), r.component[i], repr(float(r.times[i])),
                     repr(float(r.d_obs[i])), repr(float(r.std[i])), repr(float(pred[i])),
-                    repr(float(nres[i])), kind])
+                    repr(float(nres[i])), kind, status, unit_of(r.component[i])])
     return buf.getvalue()
 
 
