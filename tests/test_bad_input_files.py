@@ -205,6 +205,16 @@ def finished(tmp_path_factory):
     return survey, out
 
 
+def _with_truncated(finished, tmp_path, rel, size):
+    """(survey, a copy of the finished project with its file ``rel`` cut to ``size`` bytes)."""
+    survey, done = finished
+    proj = tmp_path / "p"
+    shutil.copytree(done, proj)
+    f = proj / rel
+    f.write_bytes(f.read_bytes()[:size])
+    return survey, proj
+
+
 def test_one_unreadable_gated_file_costs_its_station_not_the_report(finished, tmp_path):
     # a truncated gated file failed its station at invert, then the report stage refused the
     # whole project for its QC figures: the run stopped without a summary and the earlier
@@ -212,11 +222,7 @@ def test_one_unreadable_gated_file_costs_its_station_not_the_report(finished, tm
     # independent review of the products)
     import json
 
-    survey, done = finished
-    proj = tmp_path / "p"
-    shutil.copytree(done, proj)
-    g = proj / "gated" / "EM06.nc"
-    g.write_bytes(g.read_bytes()[:3000])
+    survey, proj = _with_truncated(finished, tmp_path, "gated/EM06.nc", 3000)
     rc, stdout, err = _tem("run", survey, "--out", proj, "--from", "invert",
                            "--jobs", "1", "--no-progress", timeout=600)
     assert rc == 2, (stdout, err)
@@ -253,11 +259,7 @@ def test_a_run_that_stops_leaves_no_earlier_report_and_says_where(finished, tmp_
     # run's report stayed, describing products the run had changed
     import json
 
-    survey, done = finished
-    proj = tmp_path / "p"
-    shutil.copytree(done, proj)
-    m = proj / "models" / "models.nc"
-    m.write_bytes(m.read_bytes()[:2000])
+    survey, proj = _with_truncated(finished, tmp_path, "models/models.nc", 2000)
     rc, stdout, err = _tem("run", survey, "--out", proj, "--from", "section",
                            "--jobs", "1", "--no-progress")
     assert rc == 2, (stdout, err)
