@@ -369,7 +369,7 @@ def _not_fitted_lines(grid) -> list:
     codes = grid["station_verdict_code"].values.astype(int)
     bad = [f"{sid} {STATUSES[c].upper() if 0 <= c < len(STATUSES) else c}" for sid, c in
            zip(grid["station"].values.astype(str), codes) if c > 0]
-    from .stage import without_model
+    from ..io.models import without_model
 
     missing = list(without_model(grid))
     lines = _wrapped("NO MODEL (NOT IN THE SECTION): ", missing) if missing else []

@@ -17,7 +17,7 @@ from ..provenance import records_from_json, stage_record
 from ..runtime import StageContext, StageResult
 from .settings import ExportSettings, kinds_of
 
-__all__ = ["run", "inputs_of", "to_crs", "without_model"]
+__all__ = ["run", "inputs_of", "to_crs"]
 
 
 def inputs_of(settings: ExportSettings, project_in) -> tuple:
@@ -133,18 +133,11 @@ def run(settings: ExportSettings, project_in, out, ctx: StageContext = StageCont
     n_las = sum(1 for p in written if Path(p).suffix == ".las")
     others = ", ".join(k for k in what if k != "las")
     notes = [f"{len(written)} files in {dest} ({n_las} LAS; {others})"]
+    from ..io.models import without_model
+
     without = without_model(models)
     if without:
         notes.append(f"no model of {len(without)} station(s), so no LAS file and no trace of "
                      f"their own: {'; '.join(f'{k} ({v[:80]})' for k, v in without.items())}")
     return StageResult(outputs=[str(p) for p in written], inputs=record["inputs"], notes=notes)
 
-
-def without_model(ds) -> dict:
-    """``{station: why}`` the models file (or a section grid made from it) names as having no
-    model (attribute ``stations_without_model``; {} when it names none or is unreadable)."""
-    try:
-        out = json.loads(ds.attrs.get("stations_without_model") or "{}")
-    except (ValueError, RecursionError):
-        return {}
-    return {str(k): str(v) for k, v in out.items()} if isinstance(out, dict) else {}

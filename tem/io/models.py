@@ -11,6 +11,7 @@ resistivity; its last finite layer is the half-space.
 from __future__ import annotations
 
 import csv
+import json
 from pathlib import Path
 
 import numpy as np
@@ -29,6 +30,7 @@ __all__ = [
     "check_models",
     "read_models",
     "check_model_values",
+    "without_model",
     "write_models",
     "text_column",
     "layer_rows",
@@ -554,3 +556,13 @@ def write_models_csv(ds, path):
 def export_record(stage, parameters, models_path=None):
     """Stage record for an export made from a models file."""
     return stage_record(stage, parameters, inputs=[models_path] if models_path else ())
+
+
+def without_model(ds) -> dict:
+    """``{station: why}`` the models file (or a section grid made from it) names as having no
+    model (attribute ``stations_without_model``; {} when it names none or is unreadable)."""
+    try:
+        out = json.loads(ds.attrs.get("stations_without_model") or "{}")
+    except (ValueError, RecursionError):
+        return {}
+    return {str(k): str(v) for k, v in out.items()} if isinstance(out, dict) else {}

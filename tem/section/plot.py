@@ -338,7 +338,7 @@ def section_figure(grid, *, below_doi, title=None, vmin=None, vmax=None, distanc
 def without_model_caption(grid):
     """One line naming the stations of the survey without a model (failed a stage): the
     section is interpolated across them ("" when none)."""
-    from ..export.stage import without_model
+    from ..io.models import without_model
 
     missing = list(without_model(grid))
     if not missing:
