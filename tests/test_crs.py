@@ -113,7 +113,7 @@ def test_imported_lonlat_soundings_export_in_another_zone(tmp_path):
                  "--what", "csv,las"]) == 0
     with open(out / "exports" / "models.csv", encoding="utf-8") as fh:
         rows = list(csv.DictReader(fh))
-    got = {r["station"]: (float(r["x"]), float(r["y"]), r["epsg"]) for r in rows}
+    got = {r["station"]: (float(r["x_m"]), float(r["y_m"]), r["epsg"]) for r in rows}
     # two paths must agree: lon/lat -> zone 26 -> zone 27 (ours) and lon/lat -> zone 27 directly
     direct = transform_xy([LON0, LON0 + 0.0002], [0.0, 0.0], 4326, 32627)
     for i, sid in enumerate(("EM01", "EM02")):

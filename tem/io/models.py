@@ -63,8 +63,8 @@ _VARIABLES = {
 }
 
 CSV_COLUMNS = (
-    "station", "x", "y", "z", "layer", "depth_top_m", "depth_bottom_m", "thickness_m",
-    "resistivity_ohmm", "log10_res_std", "below_doi", "doi_m", "chi2", "epsg",
+    "station", "x_m", "y_m", "elevation_m", "layer", "depth_top_m", "depth_bottom_m",
+    "thickness_m", "resistivity_ohmm", "log10_res_std_decades", "below_doi", "doi_m", "chi2", "epsg",
     "verdict", "verdict_code", "verdict_reasons", "qc_verdict", "qc_reasons",
 )
 
@@ -503,15 +503,15 @@ def iter_layer_rows(ds):
             top = float(ds["depth_top"].values[i, k])
             row = {
                 "station": sid,
-                "x": _num(ds["x"].values[i]),
-                "y": _num(ds["y"].values[i]),
-                "z": _num(ds["z"].values[i]),
+                "x_m": _num(ds["x"].values[i]),
+                "y_m": _num(ds["y"].values[i]),
+                "elevation_m": _num(ds["z"].values[i]),
                 "layer": k + 1,
                 "depth_top_m": _num(top),
                 "depth_bottom_m": _num(bottom[i, k]),
                 "thickness_m": _num(ds["thickness"].values[i, k]),
                 "resistivity_ohmm": _num(rho),
-                "log10_res_std": _num(ds["log10_res_std"].values[i, k]),
+                "log10_res_std_decades": _num(ds["log10_res_std"].values[i, k]),
                 "below_doi": int(np.isfinite(doi) and top >= doi),
                 "doi_m": _num(doi),
                 "chi2": _num(ds["chi2"].values[i]),
