@@ -112,6 +112,25 @@ def test_extra_minutes_follow_the_measured_noise_slope(fault_day):
     assert v.extra_minutes >= expect * (1 - 1e-9)
 
 
+def test_noise_beyond_a_working_day_gets_no_minutes_but_words(fault_day, tmp_path):
+    # S08 (10x noise) needs hours by T (r^(1/|s|) - 1); with extra_max below that the
+    # verdict gives no number (more time is not the cure; common practice, no source), says
+    # how long it would take, and its stations.csv reads back (an independent review found
+    # 12e9 minutes written and the next stage refusing the file)
+    from tem.qc import read_stations_csv
+    _, _, measures = fault_day
+    need = next(v for v in station_verdicts(measures) if v.station == "S08").extra_minutes
+    assert need > 2.0
+    low = QCSettings(extra_max=need / 2)
+    v = next(v for v in station_verdicts(measures, low) if v.station == "S08")
+    assert v.verdict == "reoccupy" and not np.isfinite(v.extra_minutes)
+    assert any("beyond the" in r and "another time or place" in r for r in v.reasons), v.reasons
+    path = write_stations_csv(tmp_path, station_verdicts(measures, low))
+    back = {r["station"]: r for r in read_stations_csv(path)}
+    assert back["S08"]["verdict"] == "reoccupy" and back["S08"]["extra_minutes"] == ""
+    assert back["S08"]["reasons"] == "; ".join(v.reasons)
+
+
 def test_rails_counted_on_both_sides(fault_day):
     # S14's Ex sits 1.5 mV under the positive rail: mains and spikes clip at F - 1 counts only
     _, _, measures = fault_day

@@ -108,6 +108,10 @@ QC_TABLE = SettingsTable("qc", [
             "needed to call a polarity reversed", minimum=0.0, source=_NS),
     Setting("slope_flat", -0.1, "float", "", "noise slope (d log noise / d log periods) above "
             "which more recording is not expected to help", maximum=0.0, source=_NS),
+    Setting("extra_max", 480.0, "float", "min", "most extra recording time worth advising: a "
+            "station that would need more is to be recorded at another time or place (the "
+            "noise is interference more time will not average out)", minimum=1.0,
+            maximum=1e5, source=_NS + "; one working day of recording"),
 ], "QCSettings", doc="Thresholds of the evening QC verdict (docs/qc.md).", checks=[_ordered])
 QCSettings = QC_TABLE.cls
 
@@ -214,7 +218,20 @@ def _extra_for_noise(m, ratio, s):
         return float("nan"), how + ": more time will not help; record at another time or place"
     slope = max(slope, -1.0)
     minutes = m.duration / 60.0 * (ratio ** (1.0 / abs(slope)) - 1.0)
+    if not minutes <= s.extra_max:
+        return float("nan"), (how + f": it would take {_duration(minutes)} more, beyond the "
+                              f"{s.extra_max:g} min worth recording; record at another time or "
+                              "place, or find the source of the noise")
     return minutes, how
+
+
+def _duration(minutes):
+    """Minutes as words a crew reads at a glance: '45 min', '7.5 h', '312 days'."""
+    if minutes < 120:
+        return f"{minutes:.0f} min"
+    if minutes < 2 * 1440:
+        return f"{minutes / 60:.1f} h"
+    return f"{minutes / 1440:.3g} days"
 
 
 def _channel_rules(m, med, s):
