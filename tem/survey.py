@@ -581,12 +581,16 @@ def survey_to_dict(survey: Survey) -> dict:
     return doc
 
 
-def write_survey(survey: Survey, path) -> Path:
-    """Write the survey as TOML (atomically)."""
+def write_survey(survey: Survey, path, processing=None) -> Path:
+    """Write the survey as TOML (atomically), with a ``[processing]`` table when given (a
+    dict as read from a survey file: docs/pipeline.md)."""
     import tomli_w
 
     from .io.atomic import write_text_atomic
-    return write_text_atomic(path, tomli_w.dumps(survey_to_dict(survey)))
+    doc = survey_to_dict(survey)
+    if processing:
+        doc["processing"] = processing
+    return write_text_atomic(path, tomli_w.dumps(doc))
 
 
 def replace(obj, **changes):

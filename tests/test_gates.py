@@ -111,3 +111,28 @@ def test_cli_bad_option_is_one_error_exit_2(tmp_path, capsys, opts, field):
     err = capsys.readouterr().err.strip().splitlines()
     assert rc == 2 and len(err) == 1 and err[0].startswith(f"tem gate: error: {field}: ")
     assert not (tmp_path / "g").exists()
+
+
+def test_a_nan_sample_spoils_only_the_gates_that_weigh_it():
+    # a stacked sample that is not a number (clipped through the switch-off ramp at t = 0,
+    # found by an independent review) once blanked every gate of the channel: a matrix
+    # product spreads NaN to every row. Now only gates with weight on it are NaN.
+    rng = np.random.default_rng(4)
+    n = 40
+    pol = 1 - 2 * (np.arange(n) % 2)
+    d = pol[:, None] * np.exp(-T / 0.01)[None, :] + 1e-4 * rng.standard_normal((n, M))
+    res = stack_windows(d)
+    tab = log_gates(T, 1e-3, 0.4, per_decade=9, shape="boxcar")
+    clean_v, clean_e = gate_values(res, T, tab)
+    res.value = res.value.copy()
+    res.value[0] = np.nan                      # outside every gate
+    v, e = gate_values(res, T, tab)
+    np.testing.assert_array_equal(v, clean_v)
+    np.testing.assert_array_equal(e, clean_e)
+    W = gate_matrix(T, tab)
+    k = int(np.flatnonzero((W[10] != 0) & ((W != 0).sum(axis=0) == 1))[0])   # in gate 10 only
+    res.value[k] = np.nan
+    v, e = gate_values(res, T, tab)
+    assert np.isnan(v[10]) and np.isnan(e[10])
+    assert np.all(np.isfinite(np.delete(v, 10))) and np.all(np.isfinite(np.delete(e, 10)))
+    assert not usable_gates(v, e, tab.open, tab.close, 1.0, 2.0)[10]

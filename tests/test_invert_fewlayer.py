@@ -122,3 +122,25 @@ def test_block_smooth_model_places_interfaces_at_jumps():
     rho, thk = block_smooth_model(m, h, 3)
     assert rho == pytest.approx([100.0, 10.0, 1000.0], rel=1e-9)
     assert np.cumsum(thk) == pytest.approx([50.0, 130.0])
+
+
+def test_unconstrained_parameter_std_is_capped_at_the_bounds():
+    # a toy linear problem in log parameters: the data see ln rho_0 and ln h_0 well and
+    # ln rho_1 not at all. Its linearised std would be 0 from the pseudo-inverse of the
+    # singular problem ("known exactly"), or huge when it is seen a little (an independent
+    # review found 288 decades in a models file); no spread can
+    # exceed that of a uniform distribution over the bounds, (hi - lo)/sqrt(12) (a textbook
+    # moment of the uniform distribution), so that is what is reported
+    from tem.invert.fewlayer import fewlayer_inversion
+    t = np.linspace(0.0, 1.0, 12)
+    cap = np.log10(1e5 / 0.1) / np.sqrt(12.0)                  # 1.73 decades
+    for weak in (0.0,):
+        A = np.stack([1.0 + t, weak * t, 0.5 - t], axis=1)     # d = A @ [ln r0, ln r1, ln h0]
+        d = A @ np.log([30.0, 300.0, 100.0])
+
+        def fwd(rho, h, A=A):
+            p = np.log(np.concatenate([rho, h]))
+            return A @ p, A
+        res = fewlayer_inversion(fwd, d, np.full(t.size, 0.01), [10.0, 100.0], [50.0])
+        assert res.log10_res_std[1] == pytest.approx(cap), weak
+        assert res.log10_res_std[0] < 0.01 and np.isfinite(res.thickness_std).all()

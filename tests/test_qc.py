@@ -131,6 +131,31 @@ def test_noise_beyond_a_working_day_gets_no_minutes_but_words(fault_day, tmp_pat
     assert back["S08"]["reasons"] == "; ".join(v.reasons)
 
 
+def test_short_records_are_called_short(fault_day):
+    # the clean 40 s records have about 100 degrees of freedom (200 half-periods); a record
+    # whose error bars rest on few (uncertain by 1/sqrt(2 nu): 22 % at nu = 10) is checked,
+    # one with fewer than 4 is too short to stack (common practice, no source)
+    _, _, measures = fault_day
+    clean = [m for m in measures if m.station == "S01"]
+    assert all(m.dof > 50 for m in clean), [m.dof for m in clean]
+    verdict = {v.station: v for v in station_verdicts(measures)}["S01"]
+    assert verdict.verdict == "good" and not any("short" in r for r in verdict.reasons)
+    for dof, want in ((7.0, "check"), (3.0, "reoccupy")):
+        short = [replace(m, dof=dof, batches=m.periods_total) if m.station == "S01" else m
+                 for m in measures]
+        v = {v.station: v for v in station_verdicts(short)}["S01"]
+        assert v.verdict == want, v.reasons
+        assert any("record short" in r and f"{dof:.1f} degrees of freedom" in r
+                   for r in v.reasons), v.reasons
+        if want == "reoccupy":
+            assert v.extra_minutes > 0
+    # few batches by the stack setting, not a short record: checked, no time asked
+    few = [replace(m, dof=3.0, batches=8) if m.station == "S01" else m for m in measures]
+    v = {v.station: v for v in station_verdicts(few)}["S01"]
+    assert v.verdict == "check" and v.extra_minutes == 0
+    assert any("8 batches" in r and "raise [processing.stack] batches" in r for r in v.reasons)
+
+
 def test_rails_counted_on_both_sides(fault_day):
     # S14's Ex sits 1.5 mV under the positive rail: mains and spikes clip at F - 1 counts only
     _, _, measures = fault_day

@@ -190,7 +190,8 @@ def _reference_stack(src, s):
     Same method (docs/stacking.md): float64 windows, _detrend per chunk, combine_three,
     pooled median/MAD start, float32 residuals, per-batch psi sums. Only for comparison.
     """
-    from tem.stack.batchvar import batch_lags, pooled_lag_correlations, variance_factor
+    from tem.stack.batchvar import (MIN_ESTIMATED, batch_lags, pooled_lag_correlations,
+                                    variance_factor, white_window_correlations)
     from tem.stack.stacking import _MAD, _batches, _detrend, rail_counts
 
     def estimates(k0, k1, t_frac):
@@ -306,6 +307,8 @@ def _reference_stack(src, s):
     # by Monte Carlo below), rails counted from the clip mask and the sign of the sample
     ss = np.sum(infl * infl, axis=0)
     rho = pooled_lag_correlations(infl, batch_lags(n_est, nb))
+    if nb < MIN_ESTIMATED and rho.size:   # too few batches: correlations of white windows
+        rho = np.tile(white_window_correlations(n_est / nb, rho.shape[1]), (rho.shape[0], 1))
     err = np.sqrt(variance_factor(rho[0], nb) * ss)
     scale = np.sqrt(np.maximum(nb / (nb - 1.0) * ss * n_used, 0.0)) if s.estimator == "mean" else s0
     d, clip = src.get(0, src.n_windows)
@@ -451,7 +454,7 @@ def test_short_record_errors_honest_with_coloured_noise():
     # (sd 1.04, 94.4 % within 2); accepted: sd 0.9-1.12, more than 92 % within 2 (measured
     # 1.08 and 93.4 %; 3300 correlated values)
     from tem.gate.windows import gate_matrix, log_gates
-    from tem.stack.batchvar import linear_variance
+    from tem.stack.batchvar import dof_factor, linear_variance
     rng = np.random.default_rng(21)
     n = 60
     W = gate_matrix(T, log_gates(T, T[16], T[-1], 9.0, "boxcar"))
@@ -463,7 +466,8 @@ def test_short_record_errors_honest_with_coloured_noise():
         r = stack_windows(d)
         z_new.append((W @ r.value - W @ SIG) / r.linear_error(W))
         old = stack_windows(d, settings=StackSettings(batches=5))
-        z_old.append((W @ old.value - W @ SIG) / np.sqrt(linear_variance(W, old.influence, ())))
+        plain = linear_variance(W, old.influence, ()) / dof_factor((), 5)   # no Student factor
+        z_old.append((W @ old.value - W @ SIG) / np.sqrt(plain))
     z_new, z_old = np.concatenate(z_new), np.concatenate(z_old)
     assert 0.9 < z_new.std() < 1.12, z_new.std()
     assert np.mean(np.abs(z_new) < 2) > 0.92
@@ -474,7 +478,8 @@ def test_lag_correlation_of_a_moving_average_is_recovered():
     # batch sums x_b = e_b + theta e_{b-1} (MA(1)): lag-1 correlation theta / (1 + theta^2),
     # none beyond (Box & Jenkins 1976, Time series analysis, ch. 3, from memory); the pooled
     # estimate from centred sums recovers it, and the corrected variance of sum_b x_b is
-    # unbiased (Monte Carlo over 4000 independent columns: 2 % tolerance)
+    # unbiased (Monte Carlo over 4000 independent columns: 2 % tolerance; without
+    # the Student factor, which calibrates residuals over an estimated error, not the variance)
     from tem.stack.batchvar import lag_correlations, variance_factor
     rng = np.random.default_rng(3)
     theta, nb, cols = 0.8, 40, 4000
@@ -484,7 +489,7 @@ def test_lag_correlation_of_a_moving_average_is_recovered():
     rho = lag_correlations(u, 2)
     assert rho[0] == pytest.approx(theta / (1 + theta ** 2), abs=0.02)
     assert abs(rho[1]) < 0.02
-    est = variance_factor(rho, nb) * np.sum(u * u, axis=0)
+    est = variance_factor(rho, nb, student=False) * np.sum(u * u, axis=0)
     true = nb * (1 + theta) ** 2 - 2 * theta     # Var(sum) of MA(1) over nb terms
     assert np.mean(est) == pytest.approx(true, rel=0.02)
     assert np.var(x.sum(axis=0)) == pytest.approx(true, rel=0.06)
@@ -531,3 +536,22 @@ def test_lag_correlations_stay_correlations_with_few_batches():
             hit += int(np.any(np.abs(rho) == 1.0))
             assert np.isfinite(variance_factor(rho, nb))
     assert hit > 0
+
+
+@pytest.mark.parametrize("n_windows", [10, 15, 30])
+def test_very_short_records_errors_honest(n_windows):
+    # 8-28 three-window estimates of white noise (an independent review found 20 s records
+    # with residuals 2 times their error bars): the lag correlations of white windows
+    # (2/3, 1/6; docs/stacking.md) replace an estimate from so few batches, and the variance
+    # carries Student's nu/(nu - 2) for the error's own degrees of freedom (Satterthwaite
+    # 1946, Biometrics Bulletin 2(6), 110-114, from memory), so that squared normalised
+    # residuals average 1 as a chi-square misfit assumes. Monte Carlo, 300 records of 64
+    # samples (measured rms 1.01-1.17; before 1.11-1.85)
+    from tem.stack.batchvar import MIN_ESTIMATED, effective_dof, white_window_correlations
+    rng = np.random.default_rng(n_windows)
+    z = np.concatenate([(r.value / r.error) for r in
+                        (stack_windows(rng.normal(size=(n_windows, 64))) for _ in range(300))])
+    assert np.sqrt(np.mean(z * z)) == pytest.approx(1.0, abs=0.2)
+    assert n_windows - 2 < MIN_ESTIMATED
+    nu = effective_dof(white_window_correlations(1, 4), n_windows - 2)
+    assert (n_windows - 2) / 2.5 < nu < (n_windows - 2) / 2.0    # about 2 estimates per dof

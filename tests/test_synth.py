@@ -217,3 +217,20 @@ def test_synth_cli_never_writes_into_the_survey_folder(tmp_path, capsys):
     rc = main(["synth", "--emberline", "--out", str(tmp_path / "e"), "--stations", "EM01",
                "--duration", "8", "--dead", "EM01"])
     assert rc == 2 and "--dead: expected ID:COMPONENT" in capsys.readouterr().err
+
+
+def test_synth_keeps_the_survey_processing_table(tmp_path):
+    # the written survey.toml once lost the source's [processing] table, and `tem run` on it
+    # silently used the defaults (found by an independent review)
+    from tem.pipeline.settings import read_processing
+    sdir = tmp_path / "s"
+    sv, _ = emberline_survey(base_dir=sdir, stations=["EM01"])
+    survey = write_survey(sv, sdir / "survey.toml",
+                          processing={"gate": {"per_decade": 7}, "invert": {"kind": "few-layer"}})
+    m = sdir / "m.csv"
+    m.write_text("station,thickness_m,resistivity_ohmm\nEM01,20,30\nEM01,,2000\n")
+    out = tmp_path / "day"
+    assert main(["synth", str(survey), "--models", str(m), "--out", str(out),
+                 "--duration", "8"]) == 0
+    assert read_processing(out / "survey.toml") == read_processing(survey)
+    assert read_processing(out / "survey.toml")["gate"]["per_decade"] == 7

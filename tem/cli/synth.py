@@ -88,7 +88,11 @@ def run(args) -> int:
         synth_survey(survey, models, out, seed=args.seed, duration=args.duration,
                      noisy_station=args.noisy_station, dead_channel=dead,
                      progress=lambda i, n: prog.update(task, completed=i))
-    write_survey(survey, out / "survey.toml")
+    processing = None
+    if not args.emberline:     # the source's [processing] table goes with it (it was dropped,
+        from ..pipeline.settings import read_processing  # and `tem run` used the defaults)
+        processing = read_processing(args.survey) or None
+    write_survey(survey, out / "survey.toml", processing=processing)
     print(f"wrote raw recordings of {len(survey.stations)} stations under {out}; "
           f"survey: {out / 'survey.toml'}")
     return 0

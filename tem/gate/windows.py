@@ -130,8 +130,24 @@ def gate_values(stack, times, table: GateTable):
 
     Returns ``(value, error)``, each (n_gates,), in the stack's units.
     """
-    W = gate_matrix(times, table)
-    return W @ stack.value, stack.linear_error(W)
+    return _apply(gate_matrix(times, table), stack)
+
+
+def _apply(W, stack):
+    """``W @ value`` and its errors; a stack sample that is not a number (e.g. clipped through
+    the switch-off ramp) spoils only the gates that weigh it, not every gate (matrix products
+    spread a NaN to every row: a whole channel was once blanked by one NaN at t = 0, outside
+    every gate)."""
+    v = np.asarray(stack.value, float)
+    ok = np.isfinite(v)
+    err = stack.linear_error(W)
+    if ok.all():
+        return W @ v, err
+    out = W @ np.where(ok, v, 0.0)
+    spoilt = np.any(W[:, ~ok] != 0.0, axis=1)
+    out[spoilt] = np.nan
+    err = np.where(spoilt, np.nan, err)
+    return out, err
 
 
 def noise_floor(stack, times, t_start: float, t_end: float) -> float:
@@ -218,8 +234,7 @@ def gate_stacked(stacked, per_decade: float, shape: str, t_min, t_max, snr_min: 
     late = (times >= t_max / 3.0) & (times <= t_max)
     for c in range(nch):
         res = StackResult.from_dataset(stacked, c)
-        value[c] = W @ res.value
-        error[c] = res.linear_error(W)
+        value[c], error[c] = _apply(W, res)
         floor[c] = noise_floor(res, times, t_max / 3.0, t_max)
         usable[c] = usable_gates(value[c], error[c], table.open, table.close, t_max + 1e-12,
                                  snr_min)

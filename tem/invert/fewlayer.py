@@ -354,6 +354,17 @@ def fewlayer_inversion(layer_fwd, d_obs, std, resistivity0, thickness0, *, prior
         corr = C / np.outer(ln_std, ln_std)
     corr[~np.isfinite(corr)] = 0.0
     np.fill_diagonal(corr, np.where(ln_std > 0, 1.0, 0.0))
+    # a parameter the data do not constrain has a linearised std of anything (288 decades
+    # once reached a product); no spread can exceed that of a uniform distribution over the
+    # search bounds, (hi - lo) / sqrt(12) in log units (1.73 decades for 0.1-1e5 ohm-m), so
+    # that is the cap; the chi2-profile ranges (tem.invert.equivalence) tell the rest
+    # and a parameter the data do not see at all (the inverse fell back to the pseudo-inverse,
+    # which gives it no variance) is not "known exactly": it gets the cap too
+    cap = (hi - lo) / np.sqrt(12.0)
+    seen = np.zeros(P, bool)
+    dh = np.sqrt(np.clip(np.diag(H), 0.0, None))
+    seen[fi] = dh > 1e-6 * max(float(dh.max(initial=0.0)), 1e-300)
+    ln_std = np.where(seen, np.minimum(ln_std, cap), np.where(free, cap, 0.0))
     Ch = C[n + 1:, n + 1:]
     depth_std = np.zeros(n + 1)
     for k in range(1, n + 1):

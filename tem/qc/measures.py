@@ -86,6 +86,14 @@ class ChannelMeasures:
         positive if wired as the survey says, negative if reversed; for E
         the ratio is an apparent DC resistivity (ohm-m). ``polarity_snr``:
         the measured response over its standard error.
+    dof : float
+        Degrees of freedom of the stack's error bars (batches and their
+        correlation; :func:`tem.stack.batchvar.effective_dof`): a short record
+        has few, and its error bars are themselves uncertain by about
+        1/sqrt(2 dof).
+    batches : int
+        Batches the error bars were estimated from (fewer than the
+        estimates when the stack's ``batches`` setting limits them).
     cut_offset, cut_residual : float
         Switch-offs detected on the current channel minus the switch time of
         the cut, and the rms scatter of the detected switch-offs, s.
@@ -124,6 +132,8 @@ class ChannelMeasures:
     cut_residual: float
     flat_fraction: float = float("nan")
     dropout_fraction: float = float("nan")
+    dof: float = float("nan")
+    batches: int = 0
 
     def as_dict(self) -> dict:
         return asdict(self)
@@ -254,6 +264,16 @@ def _num(ds, name, c, default=float("nan")):
     return float(ds[name].values[c]) if name in ds else default
 
 
+def _dof(res):
+    """Degrees of freedom of a stack's error bars (NaN without batches)."""
+    from ..stack.batchvar import effective_dof
+    nb = int(res.influence.shape[0])
+    if nb < 2:
+        return float("nan")
+    rho = np.asarray(res.lag_corr, float)
+    return float(effective_dof(rho[0] if rho.ndim == 2 and rho.size else rho.ravel(), nb))
+
+
 def _int(ds, name, c):
     return int(ds[name].values[c]) if name in ds else 0
 
@@ -308,5 +328,6 @@ def channel_measures(stacked, gated=None) -> list:
             cut_offset=float(stacked.attrs.get("cut_offset", float("nan"))),
             cut_residual=float(stacked.attrs.get("cut_residual", float("nan"))),
             flat_fraction=_num(stacked, "flat_fraction", c),
-            dropout_fraction=_num(stacked, "dropout_fraction", c)))
+            dropout_fraction=_num(stacked, "dropout_fraction", c),
+            dof=_dof(res), batches=int(res.influence.shape[0])))
     return out

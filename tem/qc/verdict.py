@@ -108,6 +108,13 @@ QC_TABLE = SettingsTable("qc", [
             "needed to call a polarity reversed", minimum=0.0, source=_NS),
     Setting("slope_flat", -0.1, "float", "", "noise slope (d log noise / d log periods) above "
             "which more recording is not expected to help", maximum=0.0, source=_NS),
+    Setting("dof_check", 10.0, "float", "", "degrees of freedom of the error bars below which "
+            "a record is checked as short (its error bars uncertain by more than about 22 %, "
+            "1/sqrt(2 dof))", minimum=1.0, source=_NS),
+    Setting("dof_reoccupy", 4.0, "float", "", "degrees of freedom below which a record is too "
+            "short to stack (about 8 half-periods; error bars uncertain by a third or more)",
+            minimum=1.0, source="measured: with 4-6 three-window estimates the robust stack's "
+            "normalised residuals had an rms of 3-4 (docs/stacking.md)"),
     Setting("extra_max", 480.0, "float", "min", "most extra recording time worth advising: a "
             "station that would need more is to be recorded at another time or place (the "
             "noise is interference more time will not average out)", minimum=1.0,
@@ -278,6 +285,26 @@ def _channel_rules(m, med, s):
                   f"({label} median)")
     elif not np.isfinite(m.last_usable) and m.gates:
         ck.append(f"{c} no usable gate")
+    dof = m.dof
+    if np.isfinite(dof) and dof < s.dof_check and not m.dead:
+        uncertain = f"uncertain by about {_pct(1.0 / math.sqrt(2.0 * dof))}"
+        if 0 < m.batches < m.periods_total:
+            # the stack's batches setting, not the record, limits them: more time won't help
+            ck.append(f"{c} error bars rest on {dof:.1f} degrees of freedom ({m.batches} "
+                      f"batches of {m.periods_total} transient estimates), {uncertain}: "
+                      "raise [processing.stack] batches")
+        else:
+            # the degrees of freedom grow with the record (about 2 three-window estimates
+            # each for white windows, tem.stack.batchvar): the time to reach dof_check
+            need = m.duration / 60.0 * (s.dof_check / dof - 1.0)
+            words = (f"{c} record short: {m.periods_total} transient estimates "
+                     f"({m.duration:.3g} s), {dof:.1f} degrees of freedom; its error bars are "
+                     + uncertain)
+            if dof < s.dof_reoccupy:
+                re.append(words + f": too short to stack, {whole_minutes(need)} min more")
+                extra = max(extra, need) if np.isfinite(extra) else extra
+            else:
+                ck.append(words)
     nw = max(m.windows, 1)
     fc = m.windows_clipped / nw
     grade(fc, s.clipped_check, s.clipped_reoccupy,

@@ -43,7 +43,8 @@ import numpy as np
 
 from . import kernels as _kern
 from .sources import ArraySource, RecordingSource, WindowSource, clip_level  # noqa: F401
-from .batchvar import batch_lags, linear_variance, pooled_lag_correlations, variance_factor
+from .batchvar import (MIN_ESTIMATED, batch_lags, linear_variance, pooled_lag_correlations,
+                       variance_factor, white_window_correlations)
 from ..errors import input_error
 from .settings import ESTIMATORS, StackSettings
 
@@ -468,7 +469,11 @@ def _finish(s, nb, m0, s0, spsi_b, cnt_b, sdpsi, counts):
     value = np.where(flat, m0, value)
     infl = np.nan_to_num(infl)
     ss = np.sum(infl * infl, axis=0)
-    rho = pooled_lag_correlations(infl, batch_lags(counts["transients_total"], nb))
+    lags = batch_lags(counts["transients_total"], nb)
+    rho = pooled_lag_correlations(infl, lags)
+    if nb < MIN_ESTIMATED and rho.size:     # too few batches to estimate them: white windows
+        white = white_window_correlations(counts["transients_total"] / nb, rho.shape[1])
+        rho = np.tile(white, (rho.shape[0], 1))
     err = np.sqrt(variance_factor(rho[0], nb) * ss)
     if s.estimator == "mean":       # spread of one estimate, from the plain batch variance
         scale = np.sqrt(np.maximum(nb / (nb - 1.0) * ss * n_used, 0.0))
