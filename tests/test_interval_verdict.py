@@ -46,6 +46,28 @@ def test_verdict_from_numbers():
     assert not judge_interval(1.0, math.nan, **DEFAULTS).converged
     # Vehtari et al. (2021) thresholds, when asked for, fail what ours pass
     assert not judge_interval(1.05, 300, rhat_max=1.01, ess_min=400).converged
+    # a number never prints as its threshold (it read "R-hat 1.10 > 1.1", "ESS 100 < 100")
+    assert "split R-hat 1.104 > 1.1" in judge_interval(1.104, 500, **DEFAULTS).text
+    assert "ESS 99.6 < 100" in judge_interval(1.0, 99.6, **DEFAULTS).text
+
+
+def test_misfit_model_makes_intervals_unusable():
+    # well-mixed chains around a model that misfits its data give narrow intervals of the
+    # wrong model: the interval verdict says unusable, with the fit's words and the numbers
+    from tem.invert.interval import unusable_interval
+    from tem.invert.verdict import Verdict
+    iv = judge_interval(1.01, 368, **DEFAULTS)
+    assert iv.converged
+    misfit = Verdict(status="misfit", chi2=31.4, target=1.0, tolerance=1.75, n_data=40,
+                     reasons=("chi2 31.4 above tolerance 1.75 (target 1, 40 data)",))
+    out = unusable_interval(iv, misfit)
+    assert out.status == "unusable" and out.code == 2 and not out.converged
+    assert out.text.startswith("intervals unusable: the model is misfit (chi2 31.4 above "
+                               "tolerance 1.75")
+    assert "split R-hat 1.01 <= 1.1, ESS 368 >= 100" in out.text
+    warned = Verdict(status="degenerate-layer", chi2=0.9, target=1.0, tolerance=1.75, n_data=40,
+                     reasons=("layer 2 thin",))
+    assert unusable_interval(iv, warned) is iv        # fitted (with a warning): unchanged
 
 
 # 2 chains of 50 draws after 50 burn-in steps: far too short for a 3-layer posterior, so the
@@ -140,14 +162,17 @@ def test_models_csv_and_las(run):
     out = run[0]
     ds = read_models(out / "models" / "models.nc")
     assert list(ds["interval_verdict_code"].values) == [1, 1]
-    assert list(ds["interval_verdict_code"].attrs["flag_values"]) == [0, 1]
-    assert ds["interval_verdict_code"].attrs["flag_meanings"] == "converged unconverged"
+    assert list(ds["interval_verdict_code"].attrs["flag_values"]) == [0, 1, 2]
+    assert ds["interval_verdict_code"].attrs["flag_meanings"] == "converged unconverged unusable"
     assert all(str(t).startswith("intervals unconverged") for t in ds["interval_verdict"].values)
     for f in (out / "models" / "posterior.csv", out / "models" / "models.csv",
               out / "exports" / "models.csv"):
         with open(f, encoding="utf-8") as fh:
             rows = list(csv.DictReader(fh))
         assert rows and {r["interval_verdict"] for r in rows} == {"unconverged"}, f
+        if f.name == "posterior.csv":       # the fit verdict beside the interval verdict
+            assert {r["verdict"] for r in rows} <= {"fitted", "degenerate-layer",
+                                                    "parameter-at-bound"}, f
     for sid in STATIONS:
         las = lasio.read(out / "exports" / "las" / f"{sid}.las")
         assert las.params["INTV"].value == "UNCONVERGED"
@@ -201,7 +226,7 @@ def test_main_section_grid_and_figure_mark_unconverged(run):
     grid = read_section_grid(out / "sections" / "section.nc")
     assert list(grid["station_interval_verdict_code"].values) == [1, 1]
     assert grid["station_interval_verdict_code"].attrs["flag_meanings"] == \
-        "converged unconverged"
+        "converged unconverged unusable"
     assert set(grid["interval_verdict_code"].values.tolist()) == {1}
     assert all(str(t).startswith("intervals unconverged") for t in
                grid["station_interval_verdict"].values)
@@ -225,7 +250,7 @@ def test_main_section_grid_and_figure_mark_unconverged(run):
     import segyio
     with segyio.open(out / "exports" / "section_depth.sgy", ignore_geometry=True) as f:
         text = f.text[0].decode("ascii", "replace")
-    assert "POSTERIOR UNCONVERGED (MEDIAN NOT FINAL): EM04, EM06" in text
+    assert "POSTERIOR UNCONVERGED OR UNUSABLE: EM04, EM06" in text
 
 
 def test_report_station_table(run):

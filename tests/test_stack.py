@@ -555,3 +555,33 @@ def test_very_short_records_errors_honest(n_windows):
     assert n_windows - 2 < MIN_ESTIMATED
     nu = effective_dof(white_window_correlations(1, 4), n_windows - 2)
     assert (n_windows - 2) / 2.5 < nu < (n_windows - 2) / 2.0    # about 2 estimates per dof
+
+
+def test_half_cycle_check_ignores_the_other_grid_frequency():
+    # 60 Hz and harmonics (a generator) on a 50 Hz survey once read as a 16-3900 % half-cycle
+    # difference; both grid families are fitted now (their shared harmonics, 300 Hz = 6 x 50
+    # = 5 x 60, once), so the measure is what it is without the hum: none for a symmetric
+    # transient, the same for a 10 % stronger positive half-cycle
+    from tem.stack.rawchecks import block_starts, half_cycle_check
+    fs, fb = 2000.0, 2.5
+    m = int(fs / (2 * fb))
+    n = 64
+    t = np.arange(n * m) / fs
+    pol = np.repeat(1 - 2 * (np.arange(n) % 2), m).astype(float)
+    shape = np.tile(np.exp(-((np.arange(m) + 0.5) / fs) / 0.01), n)
+    edges = np.unique(np.geomspace(4, m, 12).astype(int))
+
+    def measure(strong, other):
+        rng = np.random.default_rng(2)
+        hum = sum(r * np.cos(2 * np.pi * h * other * t + h) for h, r in
+                  enumerate((1.0, 0.1, 0.6, 0.05, 0.4, 0.03, 0.3), 1)) if other else 0.0
+        x = pol * shape * np.where(pol > 0, strong, 1.0) * 1e-3 + 2e-3 * hum \
+            + 1e-6 * rng.standard_normal(t.size)
+        d = x.reshape(n, m)
+        stack = np.mean(d * (1 - 2 * (np.arange(n) % 2))[:, None], axis=0)
+        return half_cycle_check(lambda a, z: d[a:z], block_starts(n, 1), m, d.mean(axis=1),
+                                stack, 0.0, fs, 50.0, edges)["asymmetry"]
+
+    assert measure(1.0, 0.0) < 1e-3 and measure(1.0, 60.0) < 1e-3
+    assert measure(1.1, 0.0) > 0.03
+    assert measure(1.1, 60.0) == pytest.approx(measure(1.1, 0.0), rel=0.02)

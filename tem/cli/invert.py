@@ -97,7 +97,8 @@ def fit_table(res, console):
                   if k != own and o.get("chi2") is not None]
         reasons = v.get("reasons", [])[1:] + others
         if "interval_text" in i:         # the verdict on the posterior intervals, with numbers
-            colour = "yellow" if i.get("interval_verdict") == "unconverged" else "green"
+            colour = {"unconverged": "yellow", "unusable": "red"}.get(i.get("interval_verdict"),
+                                                                     "green")
             reasons.append(f"[{colour}]{i['interval_text']}[/]")
         elif "rhat_max" in i:
             reasons.append(f"posterior R-hat {i['rhat_max']:.3f}, ESS {i['ess_min']:.0f}")

@@ -71,13 +71,16 @@ def interval_params(models, i):
         return [("INTV", "", "UNKNOWN", "Verdict on the intervals: none recorded")]
     text = str(models["interval_verdict"].values[i]) if "interval_verdict" in models else ""
     return [("INTV", "", word.upper(), "Verdict on the posterior intervals: CONVERGED "
-             "UNCONVERGED"),
+             "UNCONVERGED UNUSABLE"),
             ("INTVR", "", text.replace(":", " "), "Interval verdict in words and numbers")]
 
 
 def interval_warning(params):
     """Sentence for ``~Other`` when the parameters say the intervals are unconverged, else ""."""
     word = next((p[2] for p in params if p[0] == "INTV"), "")
+    if word == "UNUSABLE":
+        return (" WARNING: intervals UNUSABLE (see INTV, INTVR, FIT): the sampled model does not "
+                "fit its data; the RP10/RP50/RP90 and TTP percentiles describe a wrong model.")
     if word != "UNCONVERGED":
         return ""
     return (" WARNING: intervals UNCONVERGED (see INTV, INTVR, RHAT, ESS): the chains did not mix; "

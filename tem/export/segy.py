@@ -393,7 +393,7 @@ def _qc_lines(grid) -> list:
 def _interval_lines(grid) -> list:
     """Textual header lines naming the stations whose posterior sampling did not converge."""
     return _stations_lines(grid, "station_interval_verdict_code", 1,
-                           "POSTERIOR UNCONVERGED (MEDIAN NOT FINAL): ",
+                           "POSTERIOR UNCONVERGED OR UNUSABLE: ",
                            "POSTERIOR INTERVALS: ALL CONVERGED")
 
 

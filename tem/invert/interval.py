@@ -12,6 +12,12 @@ bulk or tail effective sample size (ESS, draws of all chains together).
     ESS >= ``interval_ess_min`` (default 100).
 ``unconverged`` (code 1)
     otherwise, or when a diagnostic is not a finite number.
+``unusable`` (code 2)
+    the sampled few-layer model does not fit its data (its verdict is
+    ``misfit`` or ``stalled``): however well the chains mixed, their spread
+    is that of a model that does not explain the data (an independent check
+    found misfit stations at chi2 16-119 labelled converged, with P10-P90
+    missing the truth); the intervals are not to be used.
 
 Sources of the thresholds: 1.1 is the R-hat threshold of Gelman, Carlin,
 Stern, Dunson, Vehtari & Rubin (2013), "Bayesian Data Analysis", 3rd ed.,
@@ -35,11 +41,13 @@ from __future__ import annotations
 import math
 from dataclasses import dataclass
 
-__all__ = ["IntervalVerdict", "INTERVAL_STATUSES", "interval_flag_meanings", "judge_interval",
-           "interval_verdict_of"]
+__all__ = ["IntervalVerdict", "INTERVAL_STATUSES", "MARKED", "interval_flag_meanings",
+           "judge_interval", "interval_verdict_of", "unusable_interval"]
 
 #: Status names in code order (code = index): the flag values of the products.
-INTERVAL_STATUSES = ("converged", "unconverged")
+INTERVAL_STATUSES = ("converged", "unconverged", "unusable")
+#: Statuses every product marks (hatched, labelled, warned).
+MARKED = ("unconverged", "unusable")
 #: What the user can do about an unconverged interval.
 REMEDY = "run longer chains (posterior_draws/posterior_burn)"
 
@@ -51,6 +59,17 @@ def interval_flag_meanings() -> str:
 
 def _num(v, digits):
     return f"{v:.{digits}f}" if math.isfinite(v) else "not finite"
+
+
+def _near(v, threshold, digits):
+    """``v`` with ``digits`` decimals, more while it would print as the threshold."""
+    if not math.isfinite(v):
+        return "not finite"
+    for d in range(digits, digits + 6):
+        text = f"{v:.{d}f}"
+        if v == threshold or float(text) != float(threshold):
+            return text
+    return text
 
 
 @dataclass(frozen=True)
@@ -65,6 +84,8 @@ class IntervalVerdict:
         Largest split R-hat and smallest bulk or tail ESS of the station's draws.
     rhat_max, ess_min : float
         The thresholds they were judged against.
+    why : str
+        For ``unusable``: the fit verdict that makes it so, in words and numbers.
     """
 
     status: str
@@ -72,6 +93,7 @@ class IntervalVerdict:
     ess: float
     rhat_max: float
     ess_min: float
+    why: str = ""
 
     def __post_init__(self):
         if self.status not in INTERVAL_STATUSES:
@@ -79,7 +101,7 @@ class IntervalVerdict:
 
     @property
     def code(self) -> int:
-        """0 converged, 1 unconverged."""
+        """0 converged, 1 unconverged, 2 unusable."""
         return INTERVAL_STATUSES.index(self.status)
 
     @property
@@ -92,9 +114,15 @@ class IntervalVerdict:
         ESS 4 < 100; run longer chains (posterior_draws/posterior_burn)``."""
         r_ok = math.isfinite(self.rhat) and self.rhat <= self.rhat_max
         e_ok = math.isfinite(self.ess) and self.ess >= self.ess_min
-        parts = [f"split R-hat {_num(self.rhat, 2)} {'<=' if r_ok else '>'} {self.rhat_max:g}",
-                 f"ESS {_num(self.ess, 0)} {'>=' if e_ok else '<'} {self.ess_min:g}"]
+        # enough digits that a number never reads as its threshold ("R-hat 1.10 > 1.1")
+        parts = [f"split R-hat {_near(self.rhat, self.rhat_max, 2)} {'<=' if r_ok else '>'} "
+                 f"{self.rhat_max:g}",
+                 f"ESS {_near(self.ess, self.ess_min, 0)} {'>=' if e_ok else '<'} "
+                 f"{self.ess_min:g}"]
         out = f"intervals {self.status}: " + ", ".join(parts)
+        if self.status == "unusable":
+            return (f"intervals unusable: {self.why}; the chains' spread ({', '.join(parts)}) is "
+                    "that of a model that does not explain the data")
         return out if self.converged else f"{out}; {REMEDY}"
 
     def as_dict(self) -> dict:
@@ -113,6 +141,18 @@ def judge_interval(rhat, ess, *, rhat_max, ess_min) -> IntervalVerdict:
           and ess >= float(ess_min))
     return IntervalVerdict("converged" if ok else "unconverged", rhat, ess, float(rhat_max),
                            float(ess_min))
+
+
+def unusable_interval(interval, fit_verdict):
+    """The interval verdict of a station whose sampled model does not fit its data: ``unusable``
+    with the fit verdict's words (``interval`` unchanged when the model fits or is warned)."""
+    status = getattr(fit_verdict, "status", None)
+    if interval is None or status not in ("misfit", "stalled"):
+        return interval
+    from dataclasses import replace
+    first = (fit_verdict.reasons or ("",))[0]
+    return replace(interval, status="unusable",
+                   why=f"the model is {status}" + (f" ({first})" if first else ""))
 
 
 def interval_verdict_of(settings, posterior) -> IntervalVerdict:

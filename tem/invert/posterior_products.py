@@ -48,7 +48,7 @@ _TQ_NAMES = ("p025", "p10", "p50", "p90", "p975")
 
 POSTERIOR_CSV_COLUMNS = ("station", "depth_m", "res_p10_ohmm", "res_p50_ohmm", "res_p90_ohmm",
                          "interface_density_per_m", "target_density_per_m", "below_doi",
-                         "interval_verdict")
+                         "interval_verdict", "verdict")
 
 
 def depth_edges(results, cells):
@@ -222,8 +222,9 @@ def add_interval_verdicts(ds, verdicts):
         "flag_values": np.arange(len(INTERVAL_STATUSES), dtype=np.int8),
         "flag_meanings": interval_flag_meanings(),
         "comment": "0 converged (largest split R-hat and smallest ESS within the thresholds); "
-                   "1 unconverged: the percentiles are not yet the posterior's, a warning "
-                   "(docs/inversion.md, Interval verdict)"})
+                   "1 unconverged: the percentiles are not yet the posterior's, a warning; "
+                   "2 unusable: the sampled model misfits its data, the intervals are not to "
+                   "be used (docs/inversion.md, Interval verdict)"})
     ds["interval_verdict"] = ("station", text_column([v.text for v in verdicts]), {
         "long_name": "verdict on the posterior intervals, in words"})
     return ds
@@ -232,13 +233,14 @@ def add_interval_verdicts(ds, verdicts):
 def write_posterior_csv(ds, path):
     """Resistivity percentiles and probability densities versus depth, one row per station and
     depth cell (:data:`POSTERIOR_CSV_COLUMNS`; ``interval_verdict`` repeats the station's
-    interval verdict word on every row), atomically."""
+    interval verdict word on every row, ``verdict`` its model's fit verdict), atomically."""
     from ..io.atomic import atomic_path
 
-    from ..io.models import interval_words
+    from ..io.models import interval_words, iter_model_verdicts
 
     z = ds["post_depth"].values
     words = interval_words(ds)
+    fits = [v["status"] if v else "" for v in iter_model_verdicts(ds)]
     with atomic_path(path) as tmp:
         with open(tmp, "w", newline="", encoding="utf-8") as fh:
             w = csv.writer(fh)
@@ -250,5 +252,5 @@ def write_posterior_csv(ds, path):
                                [repr(float(ds[v].values[i, j])) for v in
                                 ("res_p10", "res_p50", "res_p90", "interface_density",
                                  "target_density")] + [int(np.isfinite(doi) and zj >= doi),
-                                                       words[i]])
+                                                       words[i], fits[i]])
     return Path(path)

@@ -169,10 +169,14 @@ def _posterior_note(ds):
     from ..io.models import interval_words
 
     rhat, ess = ds["rhat_max"].values, ds["ess_min"].values
-    bad = [sid for sid, w in zip(ds["station"].values.astype(str), interval_words(ds))
-           if w == "unconverged"]
+    words = list(zip(ds["station"].values.astype(str), interval_words(ds)))
+    bad = [sid for sid, w in words if w == "unconverged"]
+    void = [sid for sid, w in words if w == "unusable"]
     verdict = (f"; intervals unconverged at {len(bad)} of {ds.sizes['station']} station(s): "
                f"{', '.join(bad)} (a warning; run longer chains)" if bad else "")
+    if void:
+        verdict += (f"; intervals unusable at {len(void)} station(s): {', '.join(void)} (the "
+                    "sampled model misfits the data)")
     return (f"posterior sampling: largest split R-hat {np.nanmax(rhat):.3f}, smallest ESS "
             f"{np.nanmin(ess):.0f}, {float(np.nanmedian(ds['posterior_seconds'].values)):.1f} s "
             f"per station (median){verdict}")

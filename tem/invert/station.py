@@ -366,6 +366,9 @@ def invert_station(sd, settings: InversionSettings = InversionSettings(), callba
         from .equivalence import equivalence_ranges
         out.few["resistivity_range"] = equivalence_ranges(sd, settings, out.few)
         out.few["verdict"] = _doi_caveat(out.few["verdict"], out.verdict)
+    if out.interval is not None:        # a model that misfits: its intervals are not to be used
+        from .interval import unusable_interval
+        out.interval = unusable_interval(out.interval, out.few["verdict"])
     if doi >= float(np.sum(h)) * (1.0 - 1e-9):
         # the DOI is the mesh's bottom: a lower bound, not where sensitivity ends (an
         # independent review: 16 of 34 stations, said in no product)

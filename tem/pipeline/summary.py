@@ -67,8 +67,10 @@ def summary_table(state, title=None):
         reasons = verdict_reasons(s.get("verdict_text", "")) if fit and fit != "fitted" else ""
         # an unconverged posterior interval is a warning on the intervals, not on the fit
         # (docs/inversion.md, "Interval verdict"): said in the notes, the fit column unchanged
-        interval = (f"[yellow]{s.get('interval_text', 'intervals unconverged')}[/]"
-                    if s.get("interval_verdict") == "unconverged" else "")
+        iv = s.get("interval_verdict")
+        interval = (f"[{'red' if iv == 'unusable' else 'yellow'}]"
+                    f"{s.get('interval_text', 'intervals ' + iv)}[/]"
+                    if iv in ("unconverged", "unusable") else "")
         notes = [n for n in (s.get("message"), s.get("qc_reasons"), reasons, interval) if n]
         t.add_row(sid, _stages_cell(state, sid), gates, qc, minutes, fit_cell, chi2, doi,
                   "; ".join(notes))

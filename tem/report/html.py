@@ -263,7 +263,9 @@ def _model_section(models, station_info, chi2_limit, station_figures):
     n_warn = sum(r["status"].split(";")[0] not in FITTED for r in rows) - n_fail
     sampled = any(r["interval"] for r in rows)
     n_unconv = sum(r["interval"] == "unconverged" for r in rows)
-    unconv = f"; intervals unconverged at {n_unconv}" if n_unconv else ""
+    n_unusable = sum(r["interval"] == "unusable" for r in rows)
+    unconv = (f"; intervals unconverged at {n_unconv}" if n_unconv else "") + \
+        (f"; intervals unusable at {n_unusable}" if n_unusable else "")
     # a fitted model on a recording to repeat is not one to hand on: the heading counts them
     n_again = sum(r["qc"] == "reoccupy" for r in rows)
     again = f"; {n_again} on a recording to re-occupy" if n_again else ""
@@ -279,7 +281,8 @@ def _model_section(models, station_info, chi2_limit, station_figures):
     if sampled:
         rule += ("; intervals: converged when the chains' largest split R-hat and smallest "
                  "ESS are within the thresholds, else unconverged, a warning: the P10/P50/P90 "
-                 "are not yet the posterior's (docs/inversion.md, Interval verdict)")
+                 "are not yet the posterior's; unusable when the sampled model misfits its "
+                 "data (docs/inversion.md, Interval verdict)")
     out.append(f"<p class=\"meta\">Coordinates in m ({html.escape(crs)}); chi2 is chi-square "
                f"per datum of the final fit (target 1; {rule}).</p>")
     with_qc = any(r["qc"] for r in rows)
@@ -300,10 +303,10 @@ def _model_section(models, station_info, chi2_limit, station_figures):
         gates = html.escape(str(r["usable_gates"]))
         iv, reasons = "", r["reasons"]
         if sampled:
-            style = (' style="color:#8a6d00;font-weight:600"' if r["interval"] == "unconverged"
-                     else "")
+            style = {"unconverged": ' style="color:#8a6d00;font-weight:600"',
+                     "unusable": ' style="color:#a40000;font-weight:600"'}.get(r["interval"], "")
             iv = f"<td class=\"status\"{style}>{html.escape(r['interval'])}</td>"
-            if r["interval"] == "unconverged":
+            if r["interval"] in ("unconverged", "unusable"):
                 reasons = "; ".join(x for x in (reasons, r["interval_text"]) if x)
         qc = f"<td class=\"status\">{html.escape(r['qc'])}</td>" if with_qc else ""
         out.append(f"<tr{cls}><td class=\"id\">{link}</td><td>{_fmt(r['x'], 1)}</td>"

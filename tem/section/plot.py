@@ -229,7 +229,8 @@ def mark_verdicts(ax, grid, scale, yrange, column_edges=None):
                               lambda c: 3 if c >= 1 else 0, "interval-columns")
         for k, code in enumerate(codes):
             if code >= 1:
-                statuses[k] = "\n".join(t for t in (statuses[k], "unconverged") if t)
+                word = "unconverged" if code == 1 else "intervals unusable"
+                statuses[k] = "\n".join(t for t in (statuses[k], word) if t)
     label_stations(ax, sd * scale, list(zip(grid["station"].values.astype(str), statuses)),
                    yrange, "verdict-label-")
 
@@ -353,11 +354,16 @@ def unconverged_caption(grid):
     if "station_interval_verdict_code" not in grid:
         return ""
     codes = grid["station_interval_verdict_code"].values.astype(int)
-    bad = int((codes >= 1).sum())
-    if not bad:
-        return ""
-    return (f"caution: sampling unconverged at {bad} of {codes.size} stations (hatched): "
-            "their median and intervals are not yet the posterior's")
+    bad = int((codes == 1).sum())
+    void = int((codes >= 2).sum())
+    out = []
+    if bad:
+        out.append(f"caution: sampling unconverged at {bad} of {codes.size} stations (hatched): "
+                   "their median and intervals are not yet the posterior's")
+    if void:
+        out.append(f"caution: intervals unusable at {void} of {codes.size} stations (hatched): "
+                   "the sampled model misfits the data")
+    return "\n".join(out)
 
 
 def pseudo_section_figure(positions, axis, log10_rhoa, station_distance, station_labels,

@@ -156,9 +156,9 @@ def _mark_unconverged(axes, models, idx, sd, scale, yrange, xrange):
 
     every = interval_words(models)
     words = [every[i] for i in idx]
-    if "unconverged" not in words:
+    if not {"unconverged", "unusable"} & set(words):
         return
-    cls = [3 if w == "unconverged" else 0 for w in words]
+    cls = [3 if w in ("unconverged", "unusable") else 0 for w in words]
     _hatch(axes, cls, sd, scale, yrange, xrange, "interval-columns")
     sid = models["station"].values.astype(str)[idx]
     rhat = models["rhat_max"].values.astype(float)[idx]

@@ -111,17 +111,25 @@ def half_cycle_check(read_volts, starts, m: int, means, stack_volts, clip_volts:
     asym, sym, amp1, amp_rms = [], [], [], []
     tau = np.arange(4 * m) / fs
     hs = [h for h in range(1, harmonics + 1) if h * mains_frequency < 0.5 * fs]
+    # the other grid frequency too (60 Hz interference on a 50 Hz survey, e.g. from a
+    # generator, once read as a 16-3900 % half-cycle difference): its columns after the
+    # survey's, which alone give the reported mains level
+    other = {50.0: 60.0, 60.0: 50.0}.get(float(mains_frequency))
+    own = {round(h * mains_frequency, 6) for h in hs}
+    hs_other = [h for h in range(1, harmonics + 1) if other and h * other < 0.5 * fs
+                and round(h * other, 6) not in own]      # 300 Hz is both 6 x 50 and 5 x 60
     basis = None
     if hs and mains_frequency > 0:
         cols = []
-        for h in hs:
-            cols += [np.cos(2 * np.pi * h * mains_frequency * tau),
-                     np.sin(2 * np.pi * h * mains_frequency * tau)]
+        for f, hh in ((mains_frequency, hs), (other, hs_other)):
+            for h in hh:
+                cols += [np.cos(2 * np.pi * h * f * tau), np.sin(2 * np.pi * h * f * tau)]
         basis = np.column_stack(cols)
-        # a block of 4 half-periods holds a whole number of mains cycles when the base
-        # frequency follows the mains rule (docs/stacking.md section 6): the columns are then
-        # orthogonal, and the projections are the least-squares amplitudes
+        # a block of 4 half-periods holds whole numbers of cycles of both when the base
+        # frequency follows the mains rule (f_b = 5/j Hz: docs/stacking.md section 6): the
+        # columns are then orthogonal, and the projections are the least-squares amplitudes
         gram = np.einsum("ij,ij->j", basis, basis)
+        n_own = 2 * len(hs)
     pol = np.array([1.0, -1.0, 1.0, -1.0])
     run_min = max(8, int(round(DROPOUT_RUN_S * fs)))
     short_runs, sampled = 0, 0
@@ -141,7 +149,7 @@ def half_cycle_check(read_volts, starts, m: int, means, stack_volts, clip_volts:
             if ok.sum() > 0.9 * r.size:
                 r = np.where(ok, r - np.mean(r[ok]), 0.0)
                 coef = (r @ basis) / gram
-                a = np.hypot(coef[0::2], coef[1::2])
+                a = np.hypot(coef[0:n_own:2], coef[1:n_own:2])
                 amp1.append(a[0])
                 amp_rms.append(math.sqrt(0.5 * float(np.sum(a * a))))
                 d = d - (basis @ coef).reshape(4, m)
