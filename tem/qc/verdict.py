@@ -276,8 +276,13 @@ def _channel_rules(m, med, s):
             minutes, how = _extra_for_noise(m, r, s)
             tail = f"{whole_minutes(minutes)} min more to reach the median" \
                 if np.isfinite(minutes) else ""
+            fs = m.full_scale
+            mains = (f" with mains {m.mains:.2g} V at the logger (the stack cancels mains only "
+                     "at the survey's exact frequency)"
+                     if np.isfinite(m.mains) and np.isfinite(fs) and fs > 0
+                     and m.mains >= 0.2 * s.mains_check * fs else "")
             re.append(f"{c} noise floor {r:.1f}x the {label} median ({m.noise_floor:.2g} against "
-                      f"{noise_med:.2g} {m.unit}); {how}" + (f": {tail}" if tail else ""))
+                      f"{noise_med:.2g} {m.unit}){mains}; {how}" + (f": {tail}" if tail else ""))
             extra = max(extra, minutes) if np.isfinite(minutes) else float("nan")
     if np.isfinite(m.last_usable) and np.isfinite(lu_med) and \
             m.last_usable < s.last_usable_ratio * lu_med:
