@@ -49,6 +49,7 @@ from __future__ import annotations
 import numba as nb
 import numpy as np
 
+from .._numba_cache import numba_cache
 from .vecmath import exp_neg, sincos
 
 MU0 = 4e-7 * np.pi
@@ -61,7 +62,8 @@ _ATT_MAX = 20.0
 # reach subnormal numbers, which the processor handles ~100x slower
 _E_ARG_MIN = -80.0
 LANES = 8   # SIMD width in doubles (AVX-512, a multiple of narrower ones); callers pad to it
-_JIT = dict(cache=True, fastmath=True, error_model="numpy")
+_CACHE = numba_cache(__file__)   # False where no cache folder can be written
+_JIT = dict(cache=_CACHE, fastmath=True, error_model="numpy")
 
 
 @nb.njit(**_JIT)
@@ -506,7 +508,7 @@ def _one_model(lam, omega, res, thk, need_tm, jac, jac_thk, Gr, Ga, Gb, F, dF): 
                 dF[p, iw, ir] += out[p]
 
 
-@nb.njit(cache=True, parallel=True)
+@nb.njit(cache=_CACHE, parallel=True)
 def _many_models(lam, omega, res, thk, need_tm, Gr, Ga, Gb, F):  # pragma: no cover - compiled
     """_one_model for every row of res/thk (no derivatives), models spread over threads."""
     dummy = np.zeros((0, omega.size, Gr.shape[0]), np.complex128)

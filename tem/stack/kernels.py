@@ -34,6 +34,10 @@ from __future__ import annotations
 import numba as nb
 import numpy as np
 
+from .._numba_cache import numba_cache
+
+_CACHE = numba_cache(__file__)   # False where no cache folder can be written
+
 __all__ = ["MODE_EMIT", "MODE_MEAN", "MODE_HUBER", "MODE_TRIMMED", "MODE_MEDIAN", "MODES",
            "TALLY_FIELDS", "chunk_pass", "mean_pass"]
 
@@ -46,7 +50,7 @@ TALLY_FIELDS = ("samples_clipped", "samples_outlier", "rejected_noisy", "rejecte
 
 
 # ---------------------------------------------------------------------------- window means
-@nb.njit(cache=True, fastmath={"reassoc"})
+@nb.njit(cache=_CACHE, fastmath={"reassoc"})
 def _row_stats(r):  # pragma: no cover - compiled
     """(sum as float64, min, max) of one row (any summation order)."""
     s = 0.0
@@ -60,7 +64,7 @@ def _row_stats(r):  # pragma: no cover - compiled
     return s, lo, hi
 
 
-@nb.njit(cache=True, fastmath={"reassoc"})
+@nb.njit(cache=_CACHE, fastmath={"reassoc"})
 def _row_stats_acc(r, c, acc):  # pragma: no cover - compiled
     """:func:`_row_stats` of one row while adding c * row to acc (one read of the row)."""
     s = 0.0
@@ -76,7 +80,7 @@ def _row_stats_acc(r, c, acc):  # pragma: no cover - compiled
     return s, lo, hi
 
 
-@nb.njit(cache=True)
+@nb.njit(cache=_CACHE)
 def _clipped(v, full_scale):  # pragma: no cover - compiled
     # an infinite sample is corrupt, not a sample at the rail: it stays in the row's mean,
     # which becomes non-finite, and the record is refused (NaN or infinite value)
@@ -84,7 +88,7 @@ def _clipped(v, full_scale):  # pragma: no cover - compiled
     return full_scale > 0 and a >= full_scale and a < np.inf
 
 
-@nb.njit(cache=True)
+@nb.njit(cache=_CACHE)
 def _row_mean(x, j, s, lo, hi, vpc, full_scale, mask, use_mask):  # pragma: no cover - compiled
     """(mean in volts of the unclipped samples of row j, number clipped, number positive).
 
@@ -112,7 +116,7 @@ def _row_mean(x, j, s, lo, hi, vpc, full_scale, mask, use_mask):  # pragma: no c
     return s * vpc / max(m - nclip, 1), nclip, npos
 
 
-@nb.njit(cache=True)
+@nb.njit(cache=_CACHE)
 def _ensure_mu(x, upto, vpc, full_scale, mask, use_mask, mu, rowclip, state, wmeans,
                wrails):  # pragma: no cover - compiled
     """Means and clip counts of rows state[0] .. upto; state[2] = 1 on a non-finite mean."""
@@ -122,7 +126,7 @@ def _ensure_mu(x, upto, vpc, full_scale, mask, use_mask, mu, rowclip, state, wme
                 wrails)
 
 
-@nb.njit(cache=True)
+@nb.njit(cache=_CACHE)
 def _set_mu(x, j, s, lo, hi, vpc, full_scale, mask, use_mask, mu, rowclip, state, wmeans,
             wrails):  # pragma: no cover - compiled
     """Mean and clip count of row j, also written to the record's window arrays.
@@ -144,7 +148,7 @@ def _set_mu(x, j, s, lo, hi, vpc, full_scale, mask, use_mask, mu, rowclip, state
         wrails[g, 1] = rowclip[j] - npos
 
 
-@nb.njit(cache=True)
+@nb.njit(cache=_CACHE)
 def _bound(mu, j, nrow):  # pragma: no cover - compiled
     """Baseline at the start of row j (0 .. nrow); ends extrapolated quadratically."""
     if j == 0:
@@ -156,7 +160,7 @@ def _bound(mu, j, nrow):  # pragma: no cover - compiled
     return 0.5 * (mu[j - 1] + mu[j])
 
 
-@nb.njit(cache=True)
+@nb.njit(cache=_CACHE)
 def _prepare(x, k, vpc, full_scale, mask, use_mask, detrend, mu, rowclip, state, wmeans,
              wrails):  # pragma: no cover - compiled
     """Means up to what estimate k (rows k..k+2) needs; (baseline, slope) combination."""
@@ -175,7 +179,7 @@ def _prepare(x, k, vpc, full_scale, mask, use_mask, detrend, mu, rowclip, state,
 
 
 # ---------------------------------------------------------------------------- estimates
-@nb.njit(cache=True, nogil=True)
+@nb.njit(cache=_CACHE, nogil=True)
 def chunk_pass(x, vpc, full_scale, mask, t_frac, detrend, j0, n_est, step, pol0, mode,
                m0, inv_s, lo, hi, thr, transient_rms, bad_fraction,
                spsi, cnt, sdpsi, emit_e, emit_bad, tally, row0, wmeans,
@@ -301,7 +305,7 @@ def chunk_pass(x, vpc, full_scale, mask, t_frac, detrend, j0, n_est, step, pol0,
         sdpsi[i] += sd32[i]
 
 
-@nb.njit(cache=True)
+@nb.njit(cache=_CACHE)
 def _residuals(x0, x1, x2, xa, vpc, bc, sc, t_frac, qp, m0, inv_s, rej, rbuf):  # pragma: no cover
     """rbuf = float32 (e - m0)/s0 of one estimate from rows x0, x1, x2.
 
@@ -326,7 +330,7 @@ def _residuals(x0, x1, x2, xa, vpc, bc, sc, t_frac, qp, m0, inv_s, rej, rbuf):  
     return nout, np.float64(sa), lo, hi
 
 
-@nb.njit(cache=True)
+@nb.njit(cache=_CACHE)
 def _huber_sums(rbuf, rej, k_h, spsi, cnt, sd):  # pragma: no cover - compiled
     """psi = clip(r, -k, k) (Huber 1964), psi' = [|r| <= k], of kept residuals."""
     f0 = np.float32(0.0)
@@ -339,7 +343,7 @@ def _huber_sums(rbuf, rej, k_h, spsi, cnt, sd):  # pragma: no cover - compiled
         sd[i] += keep & (abs(r) <= k_h)
 
 
-@nb.njit(cache=True)
+@nb.njit(cache=_CACHE)
 def _trimmed_sums(rbuf, rej, lo, hi, spsi, cnt, sd):  # pragma: no cover - compiled
     """psi = r winsorised at [lo, hi], psi' = [lo < psi < hi], of kept residuals."""
     f0 = np.float32(0.0)
@@ -352,7 +356,7 @@ def _trimmed_sums(rbuf, rej, lo, hi, spsi, cnt, sd):  # pragma: no cover - compi
         sd[i] += keep & (psi > lo[i]) & (psi < hi[i])
 
 
-@nb.njit(cache=True)
+@nb.njit(cache=_CACHE)
 def _median_sums(rbuf, rej, h_med, spsi, cnt, sd):  # pragma: no cover - compiled
     """psi = sign(r), psi' counted in the box |r| < h, of kept residuals."""
     one = np.float32(1.0)
@@ -366,7 +370,7 @@ def _median_sums(rbuf, rej, h_med, spsi, cnt, sd):  # pragma: no cover - compile
         sd[i] += keep & (min(abs(r), rej) < h_med)
 
 
-@nb.njit(cache=True, fastmath={"reassoc"})
+@nb.njit(cache=_CACHE, fastmath={"reassoc"})
 def _sum_sq_capped(r, cap):  # pragma: no cover - compiled
     """sum_i min(|r_i|, cap)^2 in float64 (r float32)."""
     s = 0.0
@@ -377,7 +381,7 @@ def _sum_sq_capped(r, cap):  # pragma: no cover - compiled
 
 
 # ---------------------------------------------------------------------------- linear sum
-@nb.njit(cache=True, nogil=True)
+@nb.njit(cache=_CACHE, nogil=True)
 def mean_pass(x, vpc, full_scale, t_frac, detrend, j0, n_est, pol0, spsi, tally, row0,
               wmeans):  # pragma: no cover - compiled
     """sum_k e_k of estimates j0 .. j0+n_est-1 of a chunk, added to spsi (M,).
