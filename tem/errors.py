@@ -1,6 +1,7 @@
 """Exceptions with one-line messages that name the file and field at fault."""
 
-__all__ = ["TemInputError", "TemOutputError", "input_error", "output_error"]
+__all__ = ["TemInputError", "TemOutputError", "TemWorkersError", "input_error", "output_error",
+           "workers_error"]
 
 
 class TemInputError(ValueError):
@@ -17,6 +18,12 @@ class TemOutputError(OSError):
     The message is one line naming the file and the cause; nothing half-written
     is left behind. The command line prints it and exits with status 1.
     """
+
+
+class TemWorkersError(TemOutputError):
+    """Worker processes could not be started (or the pool broke before a task was taken): the
+    machine, not the input. Handled like a failed write: one line, the stage stops, exit
+    status 1; ``--jobs 1`` needs no workers."""
 
 
 def _short(text: str, limit: int) -> str:
@@ -46,3 +53,13 @@ def output_error(path, exc: OSError) -> TemOutputError:
             "was reached", errno.EDQUOT: "; the disk quota is used up"}.get(exc.errno, "")
     err = TemOutputError(exc.errno, f"{path}: cannot write: {cause}{hint}")
     return err
+
+
+def workers_error(exc: BaseException, started: bool = False) -> TemWorkersError:
+    """Build a one-line :class:`TemWorkersError` from the exception the pool raised
+    (``started``: some tasks had finished, so the workers did start and then stopped)."""
+    cause = _short(f"{type(exc).__name__}: {exc}".splitlines()[0] if str(exc) else
+                   type(exc).__name__, 200)
+    what = "worker processes stopped" if started else "cannot start worker processes"
+    return TemWorkersError(getattr(exc, "errno", None) or 0,
+                           f"{what} ({cause}); rerun with --jobs 1")

@@ -13,7 +13,7 @@ import multiprocessing as mp
 from collections.abc import MutableMapping
 from dataclasses import dataclass, field
 
-from .errors import TemInputError, TemOutputError
+from .errors import TemInputError, TemOutputError, workers_error
 
 __all__ = ["StationOutcome", "StageResult", "StageContext", "Outcomes", "map_stations",
            "return_large_blocks", "process_pool", "threads_per_worker",
@@ -357,6 +357,7 @@ def _run_windowed(executor, task, todo, reporter, done, batch=None):
     window = in_flight(executor)
     dask = hasattr(executor, "scheduler_info")
     batch = max(1, int(batch or batch_size(executor, len(todo))))
+    submitted = [0]
 
     def submit_next():
         items = [(sid, _args(args)) for sid, args in itertools.islice(queue, batch)]
@@ -368,7 +369,13 @@ def _run_windowed(executor, task, todo, reporter, done, batch=None):
             fut = executor.submit(_guarded_batch, task, items, reporter,
                                   getattr(executor, "worker_threads", None), pure=False)
         else:
-            fut = executor.submit(_guarded_batch, task, items, reporter)
+            # workers start on submission (the forkserver's socket, a process limit): a pool
+            # that cannot start them stops the stage in one line
+            try:
+                fut = executor.submit(_guarded_batch, task, items, reporter)
+            except (OSError, cf.BrokenExecutor) as exc:
+                raise workers_error(exc, started=len(pending) < submitted[0]) from None
+            submitted[0] += 1
         pending[fut] = [sid for sid, _ in items]
         return fut
 
@@ -474,9 +481,13 @@ def process_pool(jobs: int):
         ctx = mp.get_context("forkserver")
     except ValueError:  # pragma: no cover - platforms without forkserver
         ctx = mp.get_context("spawn")
-    queue = ctx.Queue()
-    pool = cf.ProcessPoolExecutor(max_workers=int(jobs), mp_context=ctx, initializer=_worker_init,
-                                  initargs=(os.getpid(), queue, threads_per_worker(jobs)))
+    try:
+        queue = ctx.Queue()          # a semaphore: fails where /dev/shm cannot be used
+        pool = cf.ProcessPoolExecutor(max_workers=int(jobs), mp_context=ctx,
+                                      initializer=_worker_init,
+                                      initargs=(os.getpid(), queue, threads_per_worker(jobs)))
+    except OSError as exc:
+        raise workers_error(exc) from None
     pool.progress_queue = queue
     return pool
 

@@ -80,3 +80,32 @@ def test_version_from_a_read_only_install(tmp_path, planted):
     assert proc.returncode == 0, proc.stderr
     assert proc.stdout.strip() == f"tem {tem.__version__}" and proc.stderr == ""
     assert (tmp / f"tem-numba-{USER}").is_dir() != planted
+
+
+def _refused(self, *a, **k):
+    raise ConnectionRefusedError(111, "Connection refused")
+
+
+@pytest.mark.parametrize("where", ["spawn", "queue"])
+def test_workers_that_cannot_start_one_line(tmp_path, capsys, monkeypatch, where):
+    """The forkserver refusing its connection (workers start on the first submission) or a
+    semaphore that cannot be made: one line naming the cure, exit status 1."""
+    import concurrent.futures.process as cfp
+    import multiprocessing.context as mpc
+
+    from gated_fixture import write_two_stations
+    from tem.cli import main
+
+    (tmp_path / "g").mkdir()
+    write_two_stations(tmp_path / "g")
+    if where == "spawn":
+        monkeypatch.setattr(cfp.ProcessPoolExecutor, "_spawn_process", _refused)
+    else:
+        monkeypatch.setattr(mpc.BaseContext, "Queue", _refused)
+    status = main(["rhoa", str(tmp_path / "g"), "--out", str(tmp_path / "o"), "--jobs", "2",
+                   "--no-progress", "--no-figures"])
+    err = capsys.readouterr().err
+    assert status == 1 and "Traceback" not in err
+    assert err.strip().splitlines() == [
+        "tem rhoa: error: cannot start worker processes (ConnectionRefusedError: [Errno 111] "
+        "Connection refused); rerun with --jobs 1"]

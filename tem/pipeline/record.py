@@ -117,10 +117,11 @@ def record_failed_write(project, state, stage, exc, t_run):
     limit: exit status 1) or by input the stage refuses (exit status 2). Written by the
     caller if the disk still takes it (it is small, and written atomically, so an old
     record stays whole otherwise)."""
-    from ..errors import TemInputError
+    from ..errors import TemInputError, TemWorkersError
 
     bad = isinstance(exc, TemInputError)
-    what = "refused its input" if bad else "could not write its products"
+    what = "refused its input" if bad else "stopped" if isinstance(exc, TemWorkersError) \
+        else "could not write its products"
     why = f"{stage}: {what}: {exc}".splitlines()[0]
     state["stages"][stage] = dict(stage_record(stage, {}), stations={}, failed=why, outputs=[])
     state["last_run"].update(
