@@ -55,11 +55,12 @@ def output_error(path, exc: OSError) -> TemOutputError:
     return err
 
 
-def workers_error(exc: BaseException, started: bool = False) -> TemWorkersError:
-    """Build a one-line :class:`TemWorkersError` from the exception the pool raised
-    (``started``: some tasks had finished, so the workers did start and then stopped)."""
-    cause = _short(f"{type(exc).__name__}: {exc}".splitlines()[0] if str(exc) else
-                   type(exc).__name__, 200)
+def workers_error(exc, started: bool = False) -> TemWorkersError:
+    """Build a one-line :class:`TemWorkersError` from the exception the pool raised, or a
+    text (``started``: some tasks had finished, so the workers did start and then stopped)."""
+    text = exc if isinstance(exc, str) else f"{type(exc).__name__}: {exc}" if str(exc) \
+        else type(exc).__name__
+    cause = _short(text.splitlines()[0] if text else "", 200)
     what = "worker processes stopped" if started else "cannot start worker processes"
     return TemWorkersError(getattr(exc, "errno", None) or 0,
                            f"{what} ({cause}); rerun with --jobs 1")

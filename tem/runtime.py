@@ -481,6 +481,14 @@ def process_pool(jobs: int):
         ctx = mp.get_context("forkserver")
     except ValueError:  # pragma: no cover - platforms without forkserver
         ctx = mp.get_context("spawn")
+    # the workers, the forkserver and the resource tracker run this interpreter afresh: one
+    # this user cannot run (a venv linking into another user's home) would kill them at start
+    # and leave their pipes broken
+    from multiprocessing import spawn
+
+    exe = os.fsdecode(spawn.get_executable())
+    if not os.access(exe, os.X_OK):
+        raise workers_error(f"{os.path.realpath(exe)} cannot be run by this user")
     try:
         queue = ctx.Queue()          # a semaphore: fails where /dev/shm cannot be used
         pool = cf.ProcessPoolExecutor(max_workers=int(jobs), mp_context=ctx,

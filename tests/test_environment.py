@@ -86,12 +86,14 @@ def _refused(self, *a, **k):
     raise ConnectionRefusedError(111, "Connection refused")
 
 
-@pytest.mark.parametrize("where", ["spawn", "queue"])
+@pytest.mark.parametrize("where", ["spawn", "queue", "python"])
 def test_workers_that_cannot_start_one_line(tmp_path, capsys, monkeypatch, where):
-    """The forkserver refusing its connection (workers start on the first submission) or a
-    semaphore that cannot be made: one line naming the cure, exit status 1."""
+    """The forkserver refusing its connection (workers start on the first submission), a
+    semaphore that cannot be made, an interpreter this user cannot run (a venv linking into
+    another user's home): one line naming the cure, exit status 1."""
     import concurrent.futures.process as cfp
     import multiprocessing.context as mpc
+    import multiprocessing.spawn as mps
 
     from gated_fixture import write_two_stations
     from tem.cli import main
@@ -100,12 +102,16 @@ def test_workers_that_cannot_start_one_line(tmp_path, capsys, monkeypatch, where
     write_two_stations(tmp_path / "g")
     if where == "spawn":
         monkeypatch.setattr(cfp.ProcessPoolExecutor, "_spawn_process", _refused)
-    else:
+    elif where == "queue":
         monkeypatch.setattr(mpc.BaseContext, "Queue", _refused)
+    else:
+        (tmp_path / "python").write_text("")                 # no execute bit
+        monkeypatch.setattr(mps, "get_executable", lambda: str(tmp_path / "python"))
     status = main(["rhoa", str(tmp_path / "g"), "--out", str(tmp_path / "o"), "--jobs", "2",
                    "--no-progress", "--no-figures"])
     err = capsys.readouterr().err
     assert status == 1 and "Traceback" not in err
+    cause = f"{tmp_path / 'python'} cannot be run by this user" if where == "python" else \
+        "ConnectionRefusedError: [Errno 111] Connection refused"
     assert err.strip().splitlines() == [
-        "tem rhoa: error: cannot start worker processes (ConnectionRefusedError: [Errno 111] "
-        "Connection refused); rerun with --jobs 1"]
+        f"tem rhoa: error: cannot start worker processes ({cause}); rerun with --jobs 1"]
