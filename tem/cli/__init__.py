@@ -33,15 +33,41 @@ def _command_modules():
             yield name, mod
 
 
+class _Parser(argparse.ArgumentParser):
+    """argparse with one-line option errors: ``tem <command>: <option>: <problem> (tem
+    <command> --help lists the options)``, exit status 2, not the usage block first."""
+
+    def error(self, message):
+        text = " ".join(str(message).split())
+        if text.startswith("argument "):
+            text = text[len("argument "):]
+        option = text.split(": ", 1)[0]
+        if text.endswith("expected one argument") and option.startswith("--"):
+            # argparse takes '-10,10' for an option, not for the value
+            name = option.split("/")[-1]
+            text += f"; a value that starts with '-' is written {name}=-VALUE"
+        what = "commands" if self.prog == "tem" else "options"
+        self.exit(2, f"{self.prog}: {text} ({self.prog} --help lists the {what})\n")
+
+    def parse_args(self, args=None, namespace=None):
+        # an unknown option is the command's error, not the top-level parser's
+        args, extra = self.parse_known_args(args, namespace)
+        if extra:
+            commands = getattr(self, "commands", None)
+            parser = commands.choices.get(getattr(args, "command", None)) if commands else None
+            (parser or self).error(f"unrecognized arguments: {' '.join(extra)}")
+        return args
+
+
 def build_parser() -> argparse.ArgumentParser:
-    parser = argparse.ArgumentParser(
+    parser = _Parser(
         prog="tem",
         description="Land time-domain EM: raw recordings to stacked decays, apparent "
         "resistivity, 1D models, sections and seismic-ready exports.",
         epilog="CAUTION: " + SAFETY_NOTE,
     )
     parser.add_argument("--version", action="version", version=f"tem {__version__}")
-    sub = parser.add_subparsers(dest="command", metavar="COMMAND")
+    sub = parser.commands = parser.add_subparsers(dest="command", metavar="COMMAND")
     for name, mod in _command_modules():
         p = mod.add_parser(sub)
         p.set_defaults(_run=mod.run)
