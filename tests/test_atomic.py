@@ -25,3 +25,13 @@ def test_products_get_umask_permissions(tmp_path):
     finally:
         os.umask(old)
     assert stat.S_IMODE(p.stat().st_mode) == 0o644
+
+
+@pytest.mark.parametrize("sub", ["figures", "figures/stations"])
+def test_a_file_where_a_folder_goes_is_named(tmp_path, sub):
+    from tem.errors import TemOutputError
+
+    (tmp_path / "figures").write_text("x")
+    with pytest.raises(TemOutputError) as exc:
+        write_text_atomic(tmp_path / sub / "section.png", "y")
+    assert exc.value.strerror == f"{tmp_path / 'figures'}: exists and is not a folder"

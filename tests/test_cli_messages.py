@@ -38,3 +38,19 @@ def test_negative_list_value_after_equals(tmp_path, capsys):
     assert status == 2 and len(err.strip().splitlines()) == 1
     assert "expected one argument" not in err
 
+
+
+def test_figures_file_in_the_way(tmp_path, capsys):
+    from gated_fixture import write_two_stations
+
+    (tmp_path / "g").mkdir()
+    write_two_stations(tmp_path / "g")
+    (tmp_path / "o").mkdir()
+    (tmp_path / "o" / "figures").write_text("x")
+    status = main(["rhoa", str(tmp_path / "g"), "--out", str(tmp_path / "o"), "--jobs", "1",
+                   "--no-progress"])
+    err = capsys.readouterr().err
+    assert status == 1 and "Traceback" not in err
+    assert f"{tmp_path / 'o' / 'figures'}: exists and is not a folder" in err
+    assert err.strip().splitlines()[-1] == \
+        f"tem rhoa: error: {tmp_path / 'o' / 'figures'}: exists and is not a folder"

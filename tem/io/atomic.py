@@ -38,6 +38,9 @@ def atomic_path(target):
     except TemOutputError:
         raise
     except OSError as exc:
+        blocker = _not_a_folder(target.parent)
+        if blocker is not None:       # e.g. a file named 'figures' where the folder goes
+            raise TemOutputError(exc.errno, f"{blocker}: exists and is not a folder") from None
         raise output_error(target, exc) from None
     tmp = Path(tmp)
     try:
@@ -51,6 +54,19 @@ def atomic_path(target):
         if isinstance(exc, OSError) and not isinstance(exc, (TemOutputError, FileNotFoundError)):
             raise output_error(target, exc) from None
         raise
+
+
+def _not_a_folder(folder: Path):
+    """The first of ``folder`` and its parents that exists but is not a folder, else None."""
+    for p in [folder, *folder.parents][::-1]:
+        try:
+            if not p.exists():
+                return None
+            if not p.is_dir():
+                return p
+        except OSError:
+            return None
+    return None
 
 
 def _umask() -> int:
