@@ -292,3 +292,54 @@ def test_cli_bad_options_and_line_exit_2_before_writing(tmp_path, capsys):
         err = capsys.readouterr().err
         assert msg in err and err.count("\n") == 1, (opts, err)
         assert not out.exists(), opts
+
+
+def test_export_stopped_at_one_file_leaves_no_stale_manifest(tmp_path, capsys):
+    """One LAS path blocked (a folder in its place): the old manifest is withdrawn first, the
+    other products are written, the failed file is named on one line with exit status 1, and
+    the new export.json lists exactly what was written and what failed."""
+    import json
+    import os
+
+    p = _project(tmp_path)
+    assert main(["export", str(p), "--out", str(p), "--no-progress"]) == 0
+    ex = p / "exports"
+    old = json.loads((ex / "export.json").read_text())
+    las = sorted((ex / "las").glob("*.las"))
+    blocked, other = las[1], las[0]
+    blocked.unlink()
+    blocked.mkdir()
+    os.utime(other, (0, 0))
+    capsys.readouterr()
+    assert main(["export", str(p), "--out", str(p), "--no-progress", "--what", "csv,las"]) == 1
+    out, err = capsys.readouterr()
+    assert "Traceback" not in err
+    lines = [ln for ln in err.splitlines() if "could not write" in ln]
+    assert lines == [f"tem export: could not write 1 file(s), the others are written and listed "
+                     f"in export.json: {blocked}: cannot write: Is a directory"]
+    new = json.loads((ex / "export.json").read_text())
+    rel = f"las/{blocked.name}"
+    assert rel in old["files"] and rel not in new["files"]
+    assert new["failed"] == {rel: f"{blocked}: cannot write: Is a directory"}
+    assert sorted(new["files"]) == sorted(f.relative_to(ex).as_posix()
+                                          for f in [ex / "models.csv", *las] if f != blocked)
+    assert other.stat().st_mtime > 0               # rewritten, not left from before
+
+
+def test_export_withdraws_manifest_before_writing(tmp_path, monkeypatch, capsys):
+    """A write that stops the export (here the manifest itself cannot be written) leaves no
+    export.json describing the earlier products."""
+    from tem.errors import TemOutputError
+
+    p = _project(tmp_path)
+    assert main(["export", str(p), "--out", str(p), "--no-progress", "--what", "csv"]) == 0
+    assert (p / "exports" / "export.json").is_file()
+
+    def full(path, text):
+        raise TemOutputError(28, f"{path}: cannot write: No space left on device")
+    monkeypatch.setattr("tem.io.atomic.write_text_atomic", full)
+    capsys.readouterr()
+    assert main(["export", str(p), "--out", str(p), "--no-progress", "--what", "csv"]) == 1
+    assert capsys.readouterr().err.strip().splitlines()[-1] == \
+        f"tem export: error: {p / 'exports' / 'export.json'}: cannot write: No space left on device"
+    assert not (p / "exports" / "export.json").exists()

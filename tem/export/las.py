@@ -31,7 +31,8 @@ from ..section.profile import layer_values
 from ..io.atomic import atomic_path
 from ..io.checks import safe_name
 
-__all__ = ["NULL", "station_log", "las_for_station", "write_las", "write_las_all", "safe_name"]
+__all__ = ["NULL", "station_log", "las_for_station", "las_files", "write_las", "write_las_all",
+           "safe_name"]
 
 NULL = -999.25
 #: Longest text value of a ~Params line (a longer one is shortened, and whole in ~Other),
@@ -238,16 +239,26 @@ def write_las(las, path):
     return Path(path)
 
 
-def write_las_all(models, out_dir, step, bottom=None, mask_below_doi=False, source=""):
-    """Write one ``<station>.las`` per station into ``out_dir``; returns the paths."""
+def las_files(models, out_dir, step, bottom=None, mask_below_doi=False, source=""):
+    """``(path, write)`` for each station's ``<station>.las`` in ``out_dir``: ``write()``
+    builds and writes the file and returns its path. Two stations that map to one file
+    name are refused (TemInputError) before the first is yielded."""
     out_dir = Path(out_dir)
-    paths = []
     seen = set()
+    names = []
     for i in range(models.sizes["station"]):
         name = safe_name(models["station"].values[i])
         if name.casefold() in seen:        # the same file on a case-insensitive disk too
             raise input_error("station", f"two stations map to the file name {name}.las", source or None)
         seen.add(name.casefold())
-        las = las_for_station(models, i, step, bottom, mask_below_doi, source)
-        paths.append(write_las(las, out_dir / f"{name}.las"))
-    return paths
+        names.append(name)
+    for i, name in enumerate(names):
+        path = out_dir / f"{name}.las"
+        yield path, (lambda i=i, path=path: write_las(
+            las_for_station(models, i, step, bottom, mask_below_doi, source), path))
+
+
+def write_las_all(models, out_dir, step, bottom=None, mask_below_doi=False, source=""):
+    """Write one ``<station>.las`` per station into ``out_dir``; returns the paths."""
+    return [write() for _, write in las_files(models, out_dir, step, bottom, mask_below_doi,
+                                              source)]

@@ -8,10 +8,11 @@ with ``models = "lci"``) and writes ``exports/models.csv``, ``exports/las/*.las`
 """
 from __future__ import annotations
 
+import contextlib
 import json
 from pathlib import Path
 
-from ..errors import input_error
+from ..errors import TemOutputError, input_error, output_error
 from ..io.project import Project
 from ..provenance import records_from_json, stage_record
 from ..runtime import StageContext, StageResult
@@ -98,19 +99,37 @@ def run(settings: ExportSettings, project_in, out, ctx: StageContext = StageCont
             raise input_error("max_twt_ms", f"{max_twt * 1e3:g} ms at {dt * 1e3:g} ms is {n} "
                               "samples, above the SEG-Y rev 1 limit 65535 (bytes 3221-3222): "
                               "lower max_twt_ms or raise dt_ms")
-    written = []
+    # the manifest describes the products: withdrawn before the first is rewritten, so an
+    # export stopped part-way leaves none describing the earlier ones
+    _withdraw(dest / "export.json")
+    written, failed = [], {}
+
+    def attempt(target, write):
+        """Write one product; a failed write is noted and the others are still written (the
+        earlier file at ``target`` is removed: it would pass for this export's)."""
+        try:
+            written.append(write())
+        except TemOutputError as exc:
+            failed[Path(target)] = exc.strerror
+            with contextlib.suppress(OSError):
+                if Path(target).is_file():
+                    Path(target).unlink()
+
     if "csv" in what:
-        written.append(write_models_csv(models, dest / "models.csv"))
+        attempt(dest / "models.csv", lambda: write_models_csv(models, dest / "models.csv"))
     if "las" in what:
-        written += las_io.write_las_all(models, dest / "las", settings.las_step, settings.las_bottom,
-                                        settings.las_null_below_doi, source=str(mfile))
+        for path, write in las_io.las_files(models, dest / "las", settings.las_step,
+                                            settings.las_bottom, settings.las_null_below_doi,
+                                            source=str(mfile)):
+            attempt(path, write)
     if "segy-depth" in what:
         data, first, step = segy.depth_section_traces(grid, settings.segy_value,
                                                       settings.segy_below_doi)
         text = segy.describe(grid, sp.vertical, step, settings.segy_value, settings.segy_below_doi,
                              epsg, str(mfile))
-        written.append(segy.write_segy(dest / "section_depth.sgy", data, grid, step_mm, first,
-                                       sp.vertical, text, settings.line_number))
+        attempt(dest / "section_depth.sgy", lambda: segy.write_segy(
+            dest / "section_depth.sgy", data, grid, step_mm, first, sp.vertical, text,
+            settings.line_number))
     if "segy-twt" in what:
         data, _, tgrid, doi_twt = segy.twt_section_traces(
             lambda d: to_crs(section_grid(src_models, sp, depth=d), src_epsg, epsg)
@@ -121,12 +140,14 @@ def run(settings: ExportSettings, project_in, out, ctx: StageContext = StageCont
             tgrid.attrs["stations_without_model"] = models.attrs["stations_without_model"]
         text = segy.describe(tgrid, "twt", dt, settings.segy_value, settings.segy_below_doi,
                              epsg, str(mfile), settings.velocity)
-        written.append(segy.write_segy(dest / "section_twt.sgy", data, tgrid, _dt_us(settings), 0.0,
-                                       "twt", text, settings.line_number, doi_twt=doi_twt))
+        attempt(dest / "section_twt.sgy", lambda: segy.write_segy(
+            dest / "section_twt.sgy", data, tgrid, _dt_us(settings), 0.0, "twt", text,
+            settings.line_number, doi_twt=doi_twt))
     inputs = [mfile, sfile] + ([Path(settings.velocity)] if table is not None else [])
     record = stage_record("export", settings.as_dict(), inputs=inputs)
     manifest = {"tem_format": "export-manifest", "format_version": "1.0",
                 "files": [Path(p).relative_to(dest).as_posix() for p in written],
+                "failed": {Path(p).relative_to(dest).as_posix(): why for p, why in failed.items()},
                 "provenance": records_from_json(models.attrs.get("provenance")) + [record]}
     written.append(write_text_atomic(dest / "export.json",
                                      json.dumps(manifest, indent=1, sort_keys=True) + "\n"))
@@ -139,5 +160,23 @@ def run(settings: ExportSettings, project_in, out, ctx: StageContext = StageCont
     if without:
         notes.append(f"no model of {len(without)} station(s), so no LAS file and no trace of "
                      f"their own: {'; '.join(f'{k} ({v[:80]})' for k, v in without.items())}")
-    return StageResult(outputs=[str(p) for p in written], inputs=record["inputs"], notes=notes)
+    return StageResult(outputs=[str(p) for p in written], inputs=record["inputs"], notes=notes,
+                       failed=_failed_line(failed))
+
+
+def _withdraw(path: Path):
+    try:
+        path.unlink(missing_ok=True)
+    except OSError as exc:
+        raise output_error(path, exc) from None
+
+
+def _failed_line(failed: dict, shown: int = 3) -> str:
+    """One line naming the files an export could not write (the first ``shown`` and a count)."""
+    if not failed:
+        return ""
+    whys = list(failed.values())
+    more = f"; and {len(whys) - shown} more" if len(whys) > shown else ""
+    return (f"could not write {len(whys)} file(s), the others are written and listed in "
+            f"export.json: {'; '.join(whys[:shown])}{more}")
 
