@@ -54,3 +54,20 @@ def test_figures_file_in_the_way(tmp_path, capsys):
     assert f"{tmp_path / 'o' / 'figures'}: exists and is not a folder" in err
     assert err.strip().splitlines()[-1] == \
         f"tem rhoa: error: {tmp_path / 'o' / 'figures'}: exists and is not a folder"
+
+
+@pytest.mark.parametrize("command, says", [
+    ("run", ["evening QC verdict is reoccupy", "not fitted (misfit)", "2 on bad input"]),
+    ("evening", ["evening QC verdict is reoccupy", "2 on bad input"]),
+    ("invert", ["not fitted (misfit", "2 on bad input"]),
+    ("section", ["not fitted (misfit", "2 on bad input"]),
+    ("export", ["not fitted (misfit", "a file cannot be written", "2 on bad input"]),
+])
+def test_help_states_the_exit_statuses_of_docs(capsys, command, says):
+    """Each command's --help gives the exit statuses docs/pipeline.md gives it."""
+    with pytest.raises(SystemExit) as exc:
+        main([command, "--help"])
+    text = " ".join(capsys.readouterr().out.split())
+    assert exc.value.code == 0 and "Exit status 1" in text
+    for phrase in says:
+        assert phrase in text, phrase

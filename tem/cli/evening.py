@@ -11,7 +11,8 @@ def add_parser(sub):
                        "stages of 'tem run' (same settings, same project layout) and writes "
                        "OUT/qc/stations.csv (station, verdict, reasons, extra_minutes); "
                        "'tem run' on the same project later reuses these products. Exit status 1 "
-                       "when a station failed or is to be re-occupied.")
+                       "when a station failed or its evening QC verdict is reoccupy, 2 on bad "
+                       "input.")
     p.add_argument("survey", help="survey TOML (with an optional [processing] table)")
     common.add_out(p, what="project folder (created; never an input folder)")
     p.add_argument("--set", dest="settings", action="append", default=[], metavar="STAGE.KEY=VALUE",

@@ -13,7 +13,9 @@ def add_parser(sub):
 
     p = sub.add_parser("export", help=HELP, description=HELP + ". Reads PROJECT/models/models.nc "
                        "and PROJECT/sections/section.nc (the _lci files with --models lci) and "
-                       "writes OUT/exports/.")
+                       "writes OUT/exports/. Exit status 1 if a station's chosen model is not fitted (misfit; "
+                       "every product is still written) or a file cannot be written (the others "
+                       "are; OUT/exports/export.json lists both), 2 on bad input.")
     p.add_argument("project", help="folder holding models/ and sections/ (from 'tem invert' and "
                    "'tem section', or 'tem run')")
     common.add_out(p)

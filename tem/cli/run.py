@@ -11,8 +11,9 @@ def add_parser(sub):
 
     p = sub.add_parser("run", help=HELP, description=HELP + ". Settings come from the survey's "
                        "[processing] table (docs/pipeline.md) and --set; every stage is recorded "
-                       "in OUT/run.json. Exit status 1 if a station or a stage failed or a "
-                       "station's chosen model is not fitted (misfit), 2 on bad input.")
+                       "in OUT/run.json. Exit status 1 if a station or a stage failed, a "
+                       "station's chosen model is not fitted (misfit) or a station's evening QC "
+                       "verdict is reoccupy (its recording is to be repeated), 2 on bad input.")
     p.add_argument("survey", help="survey TOML (with an optional [processing] table)")
     common.add_out(p, what="project folder (created; never an input folder)")
     p.add_argument("--from", dest="from_stage", choices=STAGES, metavar="STAGE",

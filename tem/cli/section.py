@@ -11,7 +11,9 @@ def add_parser(sub):
 
     p = sub.add_parser("section", help=HELP, description=HELP + ". A models file "
                        "models<suffix>.nc gives OUT/sections/section<suffix>.nc and "
-                       "OUT/figures/section<suffix>.png; the first also gives OUT/figures/models.png.")
+                       "OUT/figures/section<suffix>.png; the first also gives OUT/figures/models.png. "
+                       "Exit status 1 if a station's chosen model is not fitted (misfit; every "
+                       "product is still written) or an output cannot be written, 2 on bad input.")
     p.add_argument("models", nargs="+", help="models files (OUT/models/models.nc of 'tem invert')")
     common.add_out(p)
     common.add_run_options(p, jobs=False)
