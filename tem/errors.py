@@ -1,7 +1,7 @@
 """Exceptions with one-line messages that name the file and field at fault."""
 
 __all__ = ["TemInputError", "TemOutputError", "TemWorkersError", "input_error", "output_error",
-           "workers_error"]
+           "workers_error", "shorten"]
 
 
 class TemInputError(ValueError):
@@ -26,10 +26,20 @@ class TemWorkersError(TemOutputError):
     status 1; ``--jobs 1`` needs no workers."""
 
 
-def _short(text: str, limit: int) -> str:
-    """One line of at most ``limit`` characters (control characters escaped)."""
+def shorten(text: str, limit: int) -> str:
+    """One line of at most ``limit`` characters (control characters escaped); a longer text
+    is cut at a word boundary and ends in "..." (a word longer than half the limit is cut
+    where it reaches it). Where a reason is shortened, its full text is kept elsewhere."""
     text = "".join(c if c.isprintable() else repr(c)[1:-1] for c in str(text))
-    return text if len(text) <= limit else text[:limit - 3] + "..."
+    if len(text) <= limit:
+        return text
+    cut = text[:limit - 2]                 # one more: a word ending at the limit is whole
+    space = cut.rfind(" ")
+    cut = cut[:space] if space >= (limit - 3) // 2 else cut[:limit - 3]
+    return cut.rstrip(" ,;:(-") + "..."
+
+
+_short = shorten
 
 
 def input_error(field: str, problem: str, file=None) -> TemInputError:

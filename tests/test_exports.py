@@ -343,3 +343,36 @@ def test_export_withdraws_manifest_before_writing(tmp_path, monkeypatch, capsys)
     assert capsys.readouterr().err.strip().splitlines()[-1] == \
         f"tem export: error: {p / 'exports' / 'export.json'}: cannot write: No space left on device"
     assert not (p / "exports" / "export.json").exists()
+
+
+def test_shorten_cuts_at_a_word_with_dots():
+    from tem.errors import shorten
+
+    why = "failed gate: proj/gated/L1.nc: usable: no gate above the noise (POOR dbzdt, POOR ex)"
+    assert shorten(why, 80) == "failed gate: proj/gated/L1.nc: usable: no gate above the noise " \
+                               "(POOR dbzdt..."
+    assert shorten(why, len(why)) == why
+    assert shorten("x" * 100, 20) == "x" * 17 + "..."
+    for n in range(10, 90):
+        cut = shorten(why, n)
+        assert len(cut) <= n and (cut == why or (cut.endswith("...") and
+                                                 why.startswith(cut[:-3])))
+
+
+def test_export_note_shortens_reasons_at_a_word(tmp_path, capsys):
+    """The closing note names the stations without a model with their reasons cut at a word
+    and marked '...'; the models file keeps them whole."""
+    import json
+
+    why = "failed gate: proj/gated/L1.nc: usable: no gate above the noise (POOR dbzdt, POOR ex)"
+    ds = synthetic_models()
+    ds.attrs["stations_without_model"] = json.dumps({"L1": why})
+    p = _project(tmp_path, models=ds)
+    capsys.readouterr()
+    assert main(["export", str(p), "--out", str(p), "--no-progress", "--what", "csv"]) == 0
+    note = [ln for ln in capsys.readouterr().err.splitlines() if "no model of" in ln]
+    assert note == ["tem export: no model of 1 station(s), so no LAS file and no trace of their "
+                    "own: L1 (failed gate: proj/gated/L1.nc: usable: no gate above the noise "
+                    "(POOR dbzdt...) (in full: the models file's stations_without_model)"]
+    assert json.loads(read_models(p / "models" / "models.nc").attrs["stations_without_model"]) \
+        == {"L1": why}

@@ -26,7 +26,7 @@ from pathlib import Path
 import numpy as np
 
 from .. import __version__
-from ..errors import input_error
+from ..errors import input_error, shorten
 from ..section.profile import layer_values
 from ..io.atomic import atomic_path
 from ..io.checks import safe_name
@@ -153,7 +153,7 @@ def las_for_station(models, i, step, bottom=None, mask_below_doi=False, source="
         # text is shortened here and given whole in ~Other. No colon in a description.
         if isinstance(value, str) and len(value) > _VALUE_WIDTH:
             in_full.append(f"{mnem} in full: {value}")
-            value = value[:_VALUE_WIDTH - 3].rstrip() + "..."
+            value = shorten(value, _VALUE_WIDTH)
         las.params.append(lasio.HeaderItem(mnem, unit=unit, value=value,
                                            descr=str(descr).replace(":", " -")))
     las.other = ("Pseudo-well from a 1D TEM resistivity model; an interpretation, not a "

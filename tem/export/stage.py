@@ -12,7 +12,7 @@ import contextlib
 import json
 from pathlib import Path
 
-from ..errors import TemOutputError, input_error, output_error
+from ..errors import TemOutputError, input_error, output_error, shorten
 from ..io.project import Project
 from ..provenance import records_from_json, stage_record
 from ..runtime import StageContext, StageResult
@@ -158,8 +158,11 @@ def run(settings: ExportSettings, project_in, out, ctx: StageContext = StageCont
 
     without = without_model(models)
     if without:
+        why = "; ".join(f"{k} ({shorten(v, 80)})" for k, v in without.items())
+        full = " (in full: the models file's stations_without_model)" \
+            if any(len(v) > 80 for v in without.values()) else ""
         notes.append(f"no model of {len(without)} station(s), so no LAS file and no trace of "
-                     f"their own: {'; '.join(f'{k} ({v[:80]})' for k, v in without.items())}")
+                     f"their own: {why}{full}")
     return StageResult(outputs=[str(p) for p in written], inputs=record["inputs"], notes=notes,
                        failed=_failed_line(failed))
 

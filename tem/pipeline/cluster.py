@@ -11,7 +11,7 @@ from __future__ import annotations
 
 import contextlib
 
-from ..errors import input_error
+from ..errors import input_error, shorten
 
 __all__ = ["dask_client", "worker_peak_rss_mb", "profiling_note"]
 
@@ -106,6 +106,6 @@ def dask_client(scheduler: str, jobs: int):
             client = Client(scheduler, timeout="20s")
     except (OSError, TimeoutError, ValueError) as exc:
         raise input_error("--scheduler", f"cannot reach {scheduler} "
-                          f"({type(exc).__name__}: {str(exc).splitlines()[0][:80]})") from None
+                          f"({type(exc).__name__}: {shorten(str(exc).splitlines()[0], 80)})") from None
     with client:
         yield client
