@@ -103,3 +103,18 @@ def test_report_embed_and_missing_figure(figures, tmp_path):
         write_report(tmp_path / "r2.html", m, section_figures=[root / "nothere.png"], chi2_limit=2.0,
                      embed=False)
     assert not (tmp_path / "r2.html").exists()
+
+
+def test_chi2_limit_documented_for_models_without_verdicts(capsys):
+    """--chi2-limit marks fits only in a models file without verdicts (a file with verdicts
+    shows them): the help and the settings page say so."""
+    from pathlib import Path
+
+    from tem.cli import main
+
+    with pytest.raises(SystemExit):
+        main(["report", "--help"])
+    text = " ".join(capsys.readouterr().out.split())
+    assert "for a models file without verdicts only" in text
+    page = (Path(__file__).resolve().parents[1] / "docs" / "settings.md").read_text()
+    assert "for a models file without verdicts only" in page
