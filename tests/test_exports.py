@@ -376,3 +376,14 @@ def test_export_note_shortens_reasons_at_a_word(tmp_path, capsys):
                     "(POOR dbzdt...) (in full: the models file's stations_without_model)"]
     assert json.loads(read_models(p / "models" / "models.nc").attrs["stations_without_model"]) \
         == {"L1": why}
+
+
+def test_docs_name_the_las_sections_as_written(tmp_path):
+    from pathlib import Path
+
+    from tem.export.las import las_for_station, write_las
+
+    text = write_las(las_for_station(synthetic_models(), 0, 10.0), tmp_path / "a.las").read_text()
+    sections = {ln.split()[0] for ln in text.splitlines() if ln.startswith("~")}
+    doc = (Path(__file__).resolve().parents[1] / "docs" / "exports.md").read_text()
+    assert "~Params" in sections and "`~Params" in doc and "~Parameter" not in doc

@@ -118,3 +118,22 @@ def test_chi2_limit_documented_for_models_without_verdicts(capsys):
     assert "for a models file without verdicts only" in text
     page = (Path(__file__).resolve().parents[1] / "docs" / "settings.md").read_text()
     assert "for a models file without verdicts only" in page
+
+
+def test_report_names_where_run_json_is(tmp_path):
+    """'run.json beside this report' only when it is; a report written elsewhere names it."""
+    import json
+
+    from tem.cli import main
+    from tem.io.models import write_models
+
+    p = tmp_path / "proj"
+    write_models(synthetic_models(), p / "models" / "models.nc")
+    (p / "run.json").write_text(json.dumps({"survey": {"name": "Emberline"}, "stations": {},
+                                            "stages": {}}))
+    assert main(["report", str(p), "--out", str(p)]) == 0
+    assert "are in run.json beside this report." in (p / "report.html").read_text()
+    assert main(["report", str(p), "--out", str(tmp_path / "elsewhere")]) == 0
+    page = (tmp_path / "elsewhere" / "report.html").read_text()
+    assert "beside this report" not in page
+    assert f"are in {(p / 'run.json').resolve()}." in page

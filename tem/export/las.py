@@ -14,7 +14,7 @@ Each station's layered model becomes a log sampled on a regular depth axis
   ``PIFD``, ``PTGD`` (:mod:`tem.export.las_posterior`).
 
 Missing values are written as the null value -999.25. ~Well uses the LAS 2.0
-mnemonics STRT STOP STEP NULL COMP WELL FLD LOC SRVC DATE UWI; ~Parameter
+mnemonics STRT STOP STEP NULL COMP WELL FLD LOC SRVC DATE UWI; ~Params
 holds the rest (coordinates, ground elevation, CRS, DOI, misfit, model kind).
 """
 from __future__ import annotations
@@ -91,7 +91,7 @@ def las_for_station(models, i, step, bottom=None, mask_below_doi=False, source="
     mask_below_doi : bool
         Write the null value instead of resistivity below the DOI.
     source : str
-        Name of the models file, recorded in the ~Parameter section.
+        Name of the models file, recorded in the ~Params section.
     """
     import lasio
 

@@ -47,7 +47,7 @@ def posterior_curves(models, i, depth):
 
 
 def posterior_params(models, i, null):
-    """(mnemonic, unit, value, description) of station ``i`` for the ~Parameter section."""
+    """(mnemonic, unit, value, description) of station ``i`` for the ~Params section."""
     def num(name, digits):
         v = float(models[name].values[i])
         return round(v, digits) if np.isfinite(v) else null

@@ -157,8 +157,10 @@ def run(settings: ReportSettings, project_in, out, ctx: StageContext = StageCont
     name = state.get("survey", {}).get("name", "") if isinstance(state.get("survey"), dict) else ""
     notes = []
     if state:
+        where = "run.json beside this report" if src.run_json.parent.resolve() == \
+            project.report.parent.resolve() else str(src.run_json.resolve())
         notes.append((f"Survey: {name}. " if name else "") + "Processing parameters and input "
-                     "checksums of every stage are in run.json beside this report.")
+                     f"checksums of every stage are in {where}.")
     for sid, s in stations.items():
         if s.get("failed_stage"):
             notes.append(f"Station {sid} failed at stage {s['failed_stage']}: {s.get('message', '')}")
