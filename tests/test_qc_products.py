@@ -238,3 +238,29 @@ def test_fit_figure_states_the_qc_verdict(project, monkeypatch):
     invert_one(DEAD, out / "gated" / f"{DEAD}.nc", st, floors_of(st), out / "x.png",
                ("good", ""))
     assert seen and seen[0]._suptitle is None
+
+
+def test_decay_figure_states_the_qc_verdict(project, monkeypatch):
+    # the decay figure is drawn per station before the survey-wide verdicts exist, so a
+    # station to re-occupy looked like a good one there; the gate stage redraws the figures
+    # of stations not called good with the verdict and reasons over the panels
+    import tem.io.figures as figures
+    from tem.gate.stage import _mark_decay_figures
+    from tem.io.project import Project
+    from tem.qc.verdict import StationVerdict
+
+    out = project[0]
+    seen = []
+    monkeypatch.setattr(figures, "figure_bytes", lambda fig, *a, **k: seen.append(fig) or b"x")
+    verdicts = [StationVerdict(DEAD, "reoccupy", ("ex dead: flat record",), 1.0),
+                StationVerdict(GOOD, "good", (), 0.0)]
+    files = {s: out / "stacked" / f"{s}.nc" for s in (DEAD, GOOD)}
+    scratch = Project(out.parent / "redrawn")
+    for s in (DEAD, GOOD):
+        (scratch.root / "gated").mkdir(parents=True, exist_ok=True)
+        shutil.copy(out / "gated" / f"{s}.nc", scratch.station_file("gated", s))
+    _mark_decay_figures(verdicts, files, scratch)
+    assert len(seen) == 1                              # the good station is left as drawn
+    assert seen[0]._suptitle.get_text() == "evening QC: reoccupy: ex dead: flat record"
+    assert scratch.station_figure(DEAD, "decay").read_bytes() == b"x"
+    assert not scratch.station_figure(GOOD, "decay").exists()

@@ -122,6 +122,24 @@ def evening_verdicts(res, files, project, qc, failed=None):
     return verdicts
 
 
+def _mark_decay_figures(verdicts, files, project):
+    """Redraw the decay figure of every station the evening QC did not call good, with its
+    verdict and reasons over the panels (the figure is drawn per station before the
+    survey-wide verdicts exist; a station to re-occupy looked like a good one)."""
+    from ..io.atomic import write_bytes_atomic
+    from ..io.figures import figure_bytes
+    from ..io.stacked import read_product
+    from ..qc import decay_figure
+
+    for v in verdicts:
+        gated = project.station_file("gated", v.station)
+        if v.verdict == "good" or v.station not in files or not gated.is_file():
+            continue
+        fig = decay_figure(read_product(gated, "gated"), read_product(files[v.station], "stacked"),
+                           verdict=v)
+        write_bytes_atomic(project.station_figure(v.station, "decay"), figure_bytes(fig))
+
+
 def run(settings: GateSettings, stacked_files, out, ctx: StageContext = StageContext(), qc=None,
         failed=None) -> StageResult:
     """Gate each stacked file into ``OUT/gated/<name>.nc``; the evening QC into ``OUT/qc``.
@@ -155,7 +173,11 @@ def run(settings: GateSettings, stacked_files, out, ctx: StageContext = StageCon
     res = StageResult(stations=map_stations(
         gate_one, jobs, ctx, consume=_drop_rows if ctx.run_state is not None else None))
     if res.stations or failed:
-        evening_verdicts(res, {Path(f).stem: Path(f) for f in stacked_files}, project, qc, failed)
+        verdicts = evening_verdicts(res, {Path(f).stem: Path(f) for f in stacked_files},
+                                    project, qc, failed)
+        if ctx.figures:
+            _mark_decay_figures(verdicts, {Path(f).stem: Path(f) for f in stacked_files},
+                                project)
     for sid, oc in res.stations.items():
         if oc.payload is not None:            # the QC table rows stay (a stage command)
             oc.payload = oc.payload.get("rows") if isinstance(oc.payload, dict) else None

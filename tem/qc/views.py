@@ -125,12 +125,14 @@ def _dead(ds, comp):
     return comp in comps and bool(ds["dead"].values[comps.index(comp)])
 
 
-def decay_figure(gated, stacked=None):
+def decay_figure(gated, stacked=None, verdict=None):
     """Gated decay per channel, |value| with 1-sigma bars on log-log axes.
 
     Filled markers: positive usable gates; open: negative usable gates;
     grey: gates flagged unusable. The dashed line is the noise floor per
     sample; the faint curve is the stacked transient (if given).
+    ``verdict``: the station's evening QC verdict (a :class:`StationVerdict`);
+    anything but ``good`` is written over the panels with its reasons.
     """
     n = gated.sizes["channel"]
     fig = _figure(5.0 * n, 4.2)
@@ -177,6 +179,13 @@ def decay_figure(gated, stacked=None):
         ax.grid(True, which="both", alpha=0.3)
         if ax.get_legend_handles_labels()[0]:
             ax.legend(fontsize=7)
+    if verdict is not None and verdict.verdict != "good":
+        import textwrap
+
+        from ..errors import shorten
+        colour = "tab:red" if verdict.verdict == "reoccupy" else "#8a6d00"
+        text = f"evening QC: {verdict.verdict}: " + shorten("; ".join(verdict.reasons), 300)
+        fig.suptitle("\n".join(textwrap.wrap(text, 60 * n)), color=colour, fontsize=9)
     return fig
 
 
