@@ -5,7 +5,7 @@ without a cut-off (every station failed at rhoa and invert, naming no file),
 a station in another CRS than the transmitter (its offset silently wrong),
 an ``.npy`` recording listed by two receivers (one station stacked the
 other's data), station ids that would give two stations the same product
-file names. Errors are one line naming the field; :func:`tem.survey.read_survey`
+file names or a file name too long for the disk. Errors are one line naming the field; :func:`tem.survey.read_survey`
 adds the file. :func:`projected_doc` turns a parsed survey in geographic
 coordinates into the projected CRS it names, before the survey is built.
 """
@@ -49,22 +49,44 @@ def check_survey(survey):
     return survey
 
 
+#: Longest station id, in bytes of UTF-8: file names are made of it (``<id>.nc``,
+#: ``<id>_decay.png``, ``<id>.las``) and most file systems hold 255 bytes per name.
+MAX_ID_BYTES = 200
+
+
 def check_station_names(ids, file=None):
     """Products are named after station ids (``stacked/<id>.nc``, ``exports/las/<id>.las``
-    with the id made file-name safe): ids that differ only in letter case, or only in
-    characters a LAS file name cannot hold, would overwrite each other's products on a
-    case-insensitive disk (the default on macOS and Windows) or in the LAS export, which
-    would find it only after the inversion. Refused when the survey (or an import's system
-    file, named ``file``) is read."""
-    from .io.checks import safe_name
+    with the id made file-name safe): ids that differ only in letter case or in Unicode
+    normalisation (a precomposed ``É`` and ``E`` + combining accent look the same), or
+    only in characters a LAS file name cannot hold, would overwrite each other's products
+    on a case- or normalisation-insensitive disk (the defaults on macOS and Windows) or in
+    the LAS export, which would find it only after the inversion; an id longer than
+    :data:`MAX_ID_BYTES` in UTF-8 makes file names the disk cannot hold (a stage then
+    failed the whole batch). Refused when the survey (or an import's system file, named
+    ``file``) is read."""
+    import unicodedata
+
+    from .io.checks import safe_name, show
+
+    def folded(s):      # caseless matching of identifiers (Unicode's NFKC_Casefold)
+        return unicodedata.normalize("NFKC", unicodedata.normalize("NFKC", s).casefold())
 
     by_case, by_las = {}, {}
     for sid in ids:
-        other = by_case.setdefault(sid.casefold(), sid)
+        n = len(sid.encode("utf-8"))
+        if n > MAX_ID_BYTES:
+            raise input_error("station.id", f"{show(sid)} is {n} bytes in UTF-8; at most "
+                              f"{MAX_ID_BYTES} (product file names are made of it)", file)
+        other = by_case.setdefault(folded(sid), sid)
         if other != sid:
-            raise input_error("station.id", f"{other!r} and {sid!r} differ only in letter case; "
-                              "products are named after station ids and would overwrite each "
-                              "other on a case-insensitive disk: rename one", file)
+            if other.casefold() == sid.casefold():
+                pair = f"{other!r} and {sid!r} differ only in letter case"
+            else:       # escaped, or the message would show the same text twice
+                pair = (f"{ascii(other)} and {ascii(sid)} look alike (they differ only in "
+                        "Unicode normalisation or letter case)")
+            raise input_error("station.id", f"{pair}; products are named "
+                              "after station ids and would overwrite each other on a case- or "
+                              "normalisation-insensitive disk: rename one", file)
         las = safe_name(sid)
         other = by_las.setdefault(las.casefold(), sid)
         if other != sid:

@@ -194,6 +194,30 @@ def test_bad_survey_exits_2_at_every_command(tmp_path, survey_text, capsys, cmd)
     assert not (tmp_path / "o").exists()
 
 
+LOOKALIKE_IDS = [
+    # 260 bytes of UTF-8 in 130 characters: the stack stopped the whole batch (File name too long)
+    ('id = "EM01"', 'id = "' + "\u00e9" * 130 + '"', "station.id: '\u00e9\u00e9",
+     "260 bytes in UTF-8; at most 200"),
+    # a precomposed and a decomposed E acute look the same and share a file name on macOS
+    ('[[station]]\nid = "EM01"', '[[station]]\nid = "\u00c9M01"\nx = 1.0\ny = 0.0\n\n[[station]]\nid = '
+     '"E\u0301M01"', "station.id: '\\xc9M01' and 'E\\u0301M01' look alike", "rename one"),
+    ('[[station]]\nid = "EM01"', '[[station]]\nid = "\uff25M01"\nx = 1.0\ny = 0.0\n\n[[station]]\nid = '
+     '"em01"', "station.id: '\\uff25M01' and 'em01' look alike", "rename one"),
+]
+
+
+@pytest.mark.parametrize("old, new, field, why", LOOKALIKE_IDS)
+def test_station_ids_too_long_or_alike(tmp_path, survey_text, capsys, old, new, field, why):
+    p = tmp_path / "survey.toml"
+    p.write_text(survey_text.replace(old, new, 1), encoding="utf-8")
+    capsys.readouterr()
+    assert main(["stack", str(p), "--out", str(tmp_path / "o")]) == 2
+    err = capsys.readouterr().err
+    assert err.count("\n") == 1 and err.startswith(f"tem stack: error: {p}: ") and field in err \
+        and why in err, err
+    assert not (tmp_path / "o").exists()
+
+
 # ---------------------------------------------------------------- sidecar and .npy header
 def _npy(tmp_path, header_text=None, data=None, version=b"\x01\x00", sidecar=HDR):
     p = tmp_path / "ex.npy"
