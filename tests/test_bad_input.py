@@ -335,6 +335,11 @@ TEXT_CASES = [
     ("0\n1\n", "0\n" + HUGE + "\n", "line 6: out of range"),
     ("0\n1\n", "0\n1\x002\n", "text: NUL character"),
     ("# station = EM01", "# station = EM\x1b01", "station: holds a control"),
+    # a key given twice (the last one was used) or after the data begin (it was ignored)
+    ("# station = EM01", "# station = EM01\n# volts_per_count = 2e-6",
+     "volts_per_count: given twice in the header (1e-06 on line 2, 2e-06 on line 5)"),
+    ("0\n1\n", "0\n1\n# sample_rate = 2000\n",
+     "sample_rate: header line after the data begins (line 7; the data begin on line 5)"),
 ]
 
 

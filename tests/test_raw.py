@@ -70,3 +70,13 @@ def test_reading_never_writes(tmp_path):
     x[:] = 0
     assert (tmp_path / "ex.npy").stat().st_mtime_ns == before
     assert rec.counts(5, 6)[0] == 5
+
+
+def test_text_header_may_hold_blank_lines(tmp_path):
+    # a blank line ended the header: the keys after it were reported missing
+    p = tmp_path / "r.txt"
+    p.write_text("# sample_rate = 1000\n\n# volts_per_count = 1e-6\n# start_time = "
+                 "2025-06-02T08:00:00Z\n\n3\n\n4\n")
+    rec = open_recording(p)
+    assert rec.header.volts_per_count == 1e-6 and rec.n_samples == 2
+    np.testing.assert_allclose(rec.read(0, 2), [3e-6, 4e-6])

@@ -264,26 +264,37 @@ def _text_sniff(path) -> bool:
 
 def _text_open(path, column: int = 0, channel=None) -> Recording:
     path = Path(path)
-    meta = {}
-    rows_start = 0
+    meta, seen = {}, {}
+    rows_start = None
     lines = checks.read_text(path, "text").splitlines()
-    for rows_start, line in enumerate(lines):
+    for i, line in enumerate(lines):
         s = line.strip()
+        if not s:            # a blank line: in the header, or between rows
+            continue
         if not s.startswith("#"):
-            break
+            if rows_start is None:
+                rows_start = i
+            continue
         body = s.lstrip("#").strip()
-        if "=" in body:
-            k, v = body.split("=", 1)
-            v = v.strip().strip('"')
-            k = k.strip()
-            k = k if len(k) <= 40 and k.isprintable() else checks.show(k)
-            meta[k] = v if k in ("start_time", "component", "station") else checks.number(
-                v, k, path, parse_text=True)
-    else:
-        rows_start = len(lines)
+        if "=" not in body:  # a comment
+            continue
+        k, v = body.split("=", 1)
+        v = v.strip().strip('"')
+        k = k.strip()
+        k = k if len(k) <= 40 and k.isprintable() else checks.show(k)
+        if rows_start is not None:
+            raise input_error(k, f"header line after the data begins (line {i + 1}; the data "
+                              f"begin on line {rows_start + 1}): move it to the top", path)
+        v = v if k in ("start_time", "component", "station") else checks.number(
+            v, k, path, parse_text=True)
+        if k in seen and meta[k] != v:     # which of the two the logger meant is a guess
+            raise input_error(k, f"given twice in the header ({checks.show(meta[k])} on line "
+                              f"{seen[k]}, {checks.show(v)} on line {i + 1})", path)
+        seen.setdefault(k, i + 1)
+        meta[k] = v
     header = RawHeader.from_dict(meta, file=path)
     values = []
-    for i, line in enumerate(lines[rows_start:], start=rows_start + 1):
+    for i, line in enumerate(lines[rows_start or 0:], start=(rows_start or 0) + 1):
         s = line.strip()
         if not s or s.startswith("#"):
             continue
