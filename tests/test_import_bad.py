@@ -111,6 +111,12 @@ CSV_CASES = {
     "unit given twice": (_csv("# unit.ex = uV/m/A\n", "# unit.ex = uV/m/A\n# unit.ex = V/m/A\n"),
                          "d.csv: unit.ex: given twice in the header ('uV/m/A' on an earlier "
                          "line, 'V/m/A' on line 3)"),
+    # the unit column won silently over the header (values 1e9 times too large)
+    "unit column and header disagree": (
+        _csv(",error,usable\n", ",error,usable,unit\n").replace(",1\n", ",1,uV/m/A\n", 2)
+        .replace("1.0,1\n", "1.0,1,T/s/A\n").replace("0.5,0\n", "0.5,0,T/s/A\n"),
+        "d.csv:6: unit: 'T/s/A' in the unit column, 'nT/s/A' in the header "
+        "('# unit.dbzdt = ...'): state the unit once"),
     # imported with exit 0, then refused by every later stage (what they read is checked here)
     "value beyond a gated file's range": (_csv("5.0,0.2,1", "1e308,0.2,1"),
                                           "d.csv with s.toml, station EM01: value: out of range"),
@@ -192,6 +198,14 @@ def test_bad_toml_is_one_line_naming_file_and_field(case, tmp_path, capsys):
     lines = err.strip().splitlines()
     assert len(lines) == 1 and "Traceback" not in err, err
     assert expected in lines[0], lines[0]
+
+
+def test_a_unit_column_agreeing_with_the_header_imports(tmp_path, capsys):
+    # the same unit in other words (nV/A/m2 is nT/s/A) is no disagreement
+    text = (_csv(",error,usable\n", ",error,usable,unit\n").replace(",1\n", ",1,uV/m/A\n", 2)
+            .replace("1.0,1\n", "1.0,1,nV/A/m2\n").replace("0.5,0\n", "0.5,0,nT/s/A\n"))
+    rc, err = _run(tmp_path, text, GOOD_TOML, capsys)
+    assert rc == 0, err
 
 
 def test_times_before_the_ramp_end_are_refused(tmp_path, capsys):

@@ -8,7 +8,8 @@ Columns (any order, names case-insensitive):
   ``s``, ``ms``, ``us``) or in the header line ``# time_unit = ms``;
 * ``value`` and ``error`` (one standard error, same unit as ``value``), the
   unit in a ``unit`` column or in the header (``# unit = nV/m/A`` for all
-  components, ``# unit.dbzdt = nT/s/A`` for one);
+  components, ``# unit.dbzdt = nT/s/A`` for one); a column and a header
+  that disagree are refused;
 * optional ``usable`` (1/0, true/false, yes/no).
 
 Header lines start with ``#``; ``# key = value`` lines set ``time_unit`` and
@@ -79,6 +80,13 @@ def _number(text, field, where):
     if not math.isfinite(v):
         raise input_error(field, f"not a finite number: {show(text)}", where)
     return v
+
+
+def _meaning(unit):
+    """What a unit stands for (SI factor and kind): ``nT/s/A`` and ``nV/A/m2`` are one."""
+    if unit in RAW_UNITS:
+        return RAW_UNITS[unit], "raw"
+    return VALUE_UNITS.get(unit, unit)
 
 
 def _unit_of_column(name, header_unit, path):
@@ -182,7 +190,14 @@ def read_decays(path) -> Decays:
         if comp not in COMPONENTS:
             raise input_error("component", f"unknown {show(comp)}; valid: {', '.join(COMPONENTS)}",
                               where)
-        ustr = cell("unit") if "unit" in cols else header.get(f"unit.{comp}", header.get("unit"))
+        hunit = header.get(f"unit.{comp}", header.get("unit"))
+        ustr = cell("unit") if "unit" in cols else hunit
+        if "unit" in cols and hunit and _meaning(hunit) != _meaning(ustr):
+            # which of the two the values are in is a guess (a factor of 1e9 for n)
+            raise input_error("unit", f"{show(ustr)} in the unit column, "
+                              f"{show(hunit)} in the header ('# unit"
+                              f"{'.' + comp if f'unit.{comp}' in header else ''} = ...'): "
+                              "state the unit once", where)
         if not ustr:
             raise input_error("unit", f"unit of {comp} not stated: add a 'unit' column or "
                               f"'# unit.{comp} = ...' to the header", where)
