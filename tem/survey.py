@@ -116,12 +116,6 @@ def _pos_finite(x, name, limit=None, floor=None):
 _FLOOR = checks.LIMITS["scale_min"]
 
 
-def _loop_area(pts) -> float:
-    """Area (m^2) a closed polygon encloses (shoelace formula)."""
-    x, y = np.asarray(pts, float)[:, 0], np.asarray(pts, float)[:, 1]
-    return float(abs(np.dot(x, np.roll(y, -1)) - np.dot(y, np.roll(x, -1))) / 2.0)
-
-
 def _finite(x, name, limit=None):
     return checks.number(x, name, maximum=limit)
 
@@ -184,8 +178,8 @@ class Transmitter:
             raise input_error("transmitter.points", f"a loop needs at least 3 vertices, got {len(pts)}")
         if self.kind == "wire" and pts[0] == pts[1]:
             raise input_error("transmitter.points", "wire endpoints coincide")
-        if self.kind == "loop" and _loop_area(pts) == 0.0:
-            raise input_error("transmitter.points", "the loop's vertices enclose no area")
+        if self.kind == "loop":     # a simple polygon, anticlockwise
+            checks.loop(pts, "transmitter.points")
         object.__setattr__(self, "points", pts)
         object.__setattr__(self, "current", _pos_finite(self.current, "transmitter.current",
                                                         checks.LIMITS["current"], _FLOOR))

@@ -126,6 +126,38 @@ def test_loop_enclosing_no_area(points):
                     ramp_on=0.0, ramp_off=0.0, first_switch_off=np.datetime64("2026-01-01"))
 
 
+WIRE = ('kind = "wire"\npoints = [\n    [\n        -750.0,\n        800.0,\n    ],\n    [\n'
+        '        750.0,\n        800.0,\n    ],\n]')
+
+
+@pytest.mark.parametrize("points, message", [
+    # a bow-tie passed the reader; the inversion then blamed a receiver on the transmitter
+    ("[[-50.0, -50.0], [50.0, 50.0], [50.0, -50.0], [-50.0, 50.0]]",
+     "transmitter.points: loop crosses itself between segments 0 and 2"),
+    # clockwise vertices were taken as given: +I ran the other way and the inversion misfit
+    ("[[-50.0, 50.0], [50.0, 50.0], [50.0, -50.0], [-50.0, -50.0]]",
+     "transmitter.points: vertices run clockwise; list them anticlockwise (seen from above)"),
+    ("[[-50.0, -50.0], [50.0, -50.0], [50.0, 50.0], [-50.0, 50.0], [-50.0, -50.0]]",
+     "transmitter.points: the last vertex repeats the first; a loop closes by itself"),
+    ("[[-50.0, -50.0], [50.0, -50.0], [50.0, 50.0], [50.0, -50.0], [-50.0, 50.0]]",
+     "transmitter.points: the loop doubles back on itself at vertex 2"),
+    ("[[-50.0, -50.0], [50.0, -50.0], [50.0, 50.0], [-50.0, 50.0]]", None),
+])
+def test_loop_that_crosses_itself_or_runs_clockwise(tmp_path, survey_text, points, message):
+    from tem.survey import read_survey
+
+    assert WIRE in survey_text
+    p = tmp_path / "survey.toml"
+    p.write_text(survey_text.replace(WIRE, f'kind = "loop"\npoints = {points}'))
+    if message is None:
+        assert read_survey(p).transmitter.kind == "loop"
+        return
+    with pytest.raises(TemInputError) as exc:
+        read_survey(p)
+    _one_line(exc, p, message)
+    assert str(exc.value).startswith(f"{p}: transmitter.points: "), exc.value
+
+
 def test_geographic_station_without_latitude(tmp_path, survey_text):
     # its longitude was left in degrees, at y = 0, beside projected metres: 7000 km from the
     # wire, and stack, gate and the evening QC went on

@@ -147,6 +147,14 @@ def _unknown_gate_shape(ds):
     return ds
 
 
+def _clockwise_loop(ds):
+    import numpy as np
+
+    ds.attrs["tx_kind"] = "loop"
+    ds.attrs["tx_points"] = np.array([-50.0, 50.0, 50.0, 50.0, 50.0, -50.0, -50.0, -50.0])
+    return ds
+
+
 @pytest.mark.parametrize("edit, message", [
     # an unknown window named no file (the forward model's message)
     (_unknown_gate_shape, "gate_shape: unknown window 'banana'; valid: boxcar, taper"),
@@ -157,6 +165,8 @@ def _unknown_gate_shape(ds):
     # the values in messages were numpy reprs: "unknown np.str_('hz')", "got np.float64(nan)"
     (_unknown_component, "component: unknown 'hz'; valid:"),
     (_nan_x, "x: must be finite, got nan"),
+    # as the survey and the import: +I runs anticlockwise
+    (_clockwise_loop, "tx_points: vertices run clockwise; list them anticlockwise"),
 ])
 def test_rhoa_refuses_an_edited_gated_file(small_day, tmp_path, edit, message):
     folder = _edit_gated(small_day, tmp_path, edit)

@@ -182,6 +182,17 @@ TOML_CASES = {
     "bad lowpass": (GOOD_TOML.replace("[[station]]", "[receiver]\nlowpass_order = 2\n\n[[station]]",
                                       1),
                     "s.toml: receiver.lowpass_cutoff: must be positive with a low-pass order"),
+    # a bow-tie and a clockwise loop were imported; the inversion then failed or misfit
+    "loop crossing itself": (_toml('kind = "wire"\npoints = [[-750.0, 800.0], [750.0, 800.0]]',
+                                   'kind = "loop"\npoints = [[100.0, 100.0], [200.0, 200.0], '
+                                   '[200.0, 100.0], [100.0, 200.0]]'),
+                             "s.toml: transmitter.points: loop crosses itself between segments "
+                             "0 and 2"),
+    "clockwise loop": (_toml('kind = "wire"\npoints = [[-750.0, 800.0], [750.0, 800.0]]',
+                             'kind = "loop"\npoints = [[100.0, 200.0], [200.0, 200.0], '
+                             '[200.0, 100.0], [100.0, 100.0]]'),
+                       "s.toml: transmitter.points: vertices run clockwise; list them "
+                       "anticlockwise"),
     "not toml": ("[transmitter\n", "s.toml: toml:"),
     "station beyond the coordinate range": (_toml("x = 0.0", "x = 2e8"),
                                             "d.csv with s.toml, station EM01: x: out of range"),

@@ -43,7 +43,7 @@ from pathlib import Path
 import numpy as np
 
 from ..errors import input_error
-from ..io.checks import label, number, show
+from ..io.checks import label, loop, number, show
 from ..forward.gatewindow import SHAPES
 from ..io.tomlfile import read_toml
 from ..survey_rules import check_station_names
@@ -306,6 +306,8 @@ def read_system(path) -> System:
         raise input_error("transmitter.points", "a wire needs two or more distinct points", path)
     if kind == "loop" and len(set(pts)) < 3:
         raise input_error("transmitter.points", "a loop needs three or more vertices", path)
+    if kind == "loop":
+        loop(pts, "transmitter.points", path)
     current = _num(tx["current"], "transmitter.current", path, True)
     wf = _waveform(d["waveform"], path)
     rx = _table(d.get("receiver", {}), "receiver", _RX, path)

@@ -20,6 +20,7 @@ import numpy as np
 from ..errors import TemInputError, input_error
 
 __all__ = ["LIMITS", "show", "label", "safe_name", "number", "integer", "text", "table", "array", "point",
+           "loop",
            "read_text", "read_capped", "csv_rows", "finite_array", "npy_header", "open_netcdf",
            "variable", "attr_number", "MAX_TEXT_BYTES", "MAX_ELEMENTS"]
 
@@ -172,6 +173,61 @@ def point(value, field, file=None) -> tuple:
         raise input_error(field, f"expected [x, y] in metres, got {show(value)}", file)
     lim = LIMITS["coordinate"]
     return (number(value[0], field, file, maximum=lim), number(value[1], field, file, maximum=lim))
+
+
+def loop(points, field, file=None) -> None:
+    """Refuse loop vertices (``[(x, y), ...]``, m) that make no simple anticlockwise polygon:
+    vertices all on one line, two vertices in a row at one place, a side that doubles back on the one before, sides
+    that cross or touch (a bow-tie: its two halves carry current in opposite senses), and
+    vertices listed clockwise seen from above (+I would flow clockwise and the field at the
+    centre point down; the survey and the import take loops anticlockwise)."""
+    v = np.asarray(points, float).reshape(-1, 2)
+    n = len(v)
+    a, b = v, np.roll(v, -1, axis=0)          # side k runs from vertex k to the next
+    d = b - a
+    w = v - v[0]
+    far = w[np.argmax(np.hypot(*w.T))]
+    if not np.any(w[:, 0] * far[1] != w[:, 1] * far[0]):
+        raise input_error(field, "the loop's vertices enclose no area (all at one point or on "
+                          "one line)", file)
+    for k in np.flatnonzero(~np.any(d != 0, axis=1)):
+        raise input_error(field, "the last vertex repeats the first; a loop closes by itself: "
+                          "drop it" if k == n - 1 else f"loop vertices {k} and {k + 1} coincide",
+                          file)
+    nxt = np.roll(d, -1, axis=0)
+    back = (d[:, 0] * nxt[:, 1] - d[:, 1] * nxt[:, 0] == 0) & (np.sum(d * nxt, axis=1) < 0)
+    for k in np.flatnonzero(back):
+        raise input_error(field, f"the loop doubles back on itself at vertex {(k + 1) % n}", file)
+
+    def cross(o, p, q):
+        return (p[..., 0] - o[..., 0]) * (q[..., 1] - o[..., 1]) - \
+            (p[..., 1] - o[..., 1]) * (q[..., 0] - o[..., 0])
+
+    def within(p, q, r):                      # r in the box of p and q (r on the line pq)
+        return np.all((np.minimum(p, q) <= r) & (r <= np.maximum(p, q)), axis=-1)
+
+    low, high = np.minimum(a, b), np.maximum(a, b)
+    idx = np.arange(n)
+    for first in range(0, n, 512):            # sides i of a block against every later side j
+        i = idx[first:first + 512, None]
+        near = idx >= i + 2
+        for x in (0, 1):                      # the two sides' boxes overlap
+            near &= (low[i, x] <= high[:, x]) & (low[:, x] <= high[i, x])
+        near[0, n - 1] &= first > 0           # sides 0 and n-1 meet at vertex 0
+        i, j = np.nonzero(near)
+        i += first
+        p, q, c, e = a[i], b[i], a[j], b[j]
+        d1, d2, d3, d4 = cross(p, q, c), cross(p, q, e), cross(c, e, p), cross(c, e, q)
+        meet = ((d1 * d2 < 0) & (d3 * d4 < 0)) | ((d1 == 0) & within(p, q, c)) | \
+            ((d2 == 0) & within(p, q, e)) | ((d3 == 0) & within(c, e, p)) | \
+            ((d4 == 0) & within(c, e, q))
+        if meet.any():
+            k = int(np.argmax(meet))
+            raise input_error(field, f"loop crosses itself between segments {i[k]} and {j[k]} "
+                              "(segment k joins vertex k to the next, counted from 0)", file)
+    if np.dot(v[:, 0], np.roll(v[:, 1], -1)) - np.dot(v[:, 1], np.roll(v[:, 0], -1)) < 0:
+        raise input_error(field, "vertices run clockwise; list them anticlockwise (seen from "
+                          "above), the sense in which +I flows (docs/survey.md)", file)
 
 
 def regular_file(path, field: str, file=None) -> None:

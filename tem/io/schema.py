@@ -45,6 +45,8 @@ def _attrs(ds, file):
             or pts.size > 20_000:
         raise input_error("tx_points", "expected x0, y0, x1, y1, ... (m)", file)
     checks.finite_array(pts, "tx_points", file, maximum=L["coordinate"])
+    if kind == "loop":
+        checks.loop(pts, "tx_points", file)
     checks.attr_number(ds, "tx_current", file, positive=True, maximum=L["current"])
     # step-off, step-on and impulse soundings (gated format 1.2, tem import) have no
     # repetition: base_frequency 0; a waveform response needs a positive one
