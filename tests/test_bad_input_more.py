@@ -155,6 +155,23 @@ def _clockwise_loop(ds):
     return ds
 
 
+def _zero_dipole(ds):
+    ds["rx_x1"].values[0], ds["rx_y1"].values[0] = ds["rx_x0"].values[0], ds["rx_y0"].values[0]
+    return ds
+
+
+def _nan_error(ds):
+    ds["usable"].values[0, 2] = True
+    ds["error"].values[0, 2] = float("nan")
+    return ds
+
+
+def _nan_value(ds):
+    ds["usable"].values[1, 2] = True
+    ds["value"].values[1, 2] = float("nan")
+    return ds
+
+
 @pytest.mark.parametrize("edit, message", [
     # an unknown window named no file (the forward model's message)
     (_unknown_gate_shape, "gate_shape: unknown window 'banana'; valid: boxcar, taper"),
@@ -167,6 +184,12 @@ def _clockwise_loop(ds):
     (_nan_x, "x: must be finite, got nan"),
     # as the survey and the import: +I runs anticlockwise
     (_clockwise_loop, "tx_points: vertices run clockwise; list them anticlockwise"),
+    # a zero-length E dipole was taken for a point receiver (the survey refuses it)
+    (_zero_dipole, "rx_x1: channel 0 (ex): the dipole's two electrodes coincide"),
+    # a usable gate with a NaN error or value: rhoa went on (exit 0) where invert refused
+    (_nan_error, "error: 1 usable gate(s) with a NaN, infinite or negative error, first ex "
+     "gate 2"),
+    (_nan_value, "value: 1 usable gate(s) with a NaN, infinite value, first dbzdt gate 2"),
 ])
 def test_rhoa_refuses_an_edited_gated_file(small_day, tmp_path, edit, message):
     folder = _edit_gated(small_day, tmp_path, edit)
@@ -196,6 +219,25 @@ def test_two_files_of_one_station_are_refused(small_day, tmp_path):
         assert rc == 2, (args, stdout, err)
         assert err.count("\n") == 1, err
         assert f"{folder / 'EM06_copy.nc'}: gated: station EM06 is in two files" in err, err
+        assert not (tmp_path / "o").exists()
+
+
+def test_stations_in_two_crs_are_refused(small_day, tmp_path):
+    """A station whose gated file says another EPSG code was inverted with the others into
+    one models file labelled with one CRS."""
+    def other_crs(ds):
+        ds.attrs["epsg"] = 32632
+        return ds
+
+    folder = _edit_gated(small_day, tmp_path, other_crs)
+    for args in (["rhoa", str(folder), "--out", str(tmp_path / "o"), *RUN],
+                 ["invert", str(folder), "--out", str(tmp_path / "o"), *RUN, "--layers", "6",
+                  "--max-iter", "1"]):
+        rc, stdout, err = run_captured(args)
+        assert rc == 2, (args, stdout, err)
+        assert err.count("\n") == 1, err
+        assert f"error: {folder / 'EM06.nc'}: epsg: EPSG:32632, but {folder / 'EM05.nc'} is " \
+            "EPSG:0; stations processed together share one CRS" in err, err
         assert not (tmp_path / "o").exists()
 
 

@@ -84,33 +84,48 @@ def input_files(items, option, pattern="*.nc"):
     return files
 
 
-def _station_attribute(path):
-    """The ``station`` attribute of a product file, or None when it cannot be read (the
-    stage then refuses the file itself, in one line that fails only its station)."""
+def _station_attributes(path):
+    """The ``station`` and ``epsg`` attributes of a product file (``epsg`` 0 when absent), or
+    None when they cannot be read (the stage then refuses the file itself, in one line that
+    fails only its station)."""
     try:
         import h5py
+        import numpy as np
 
         with h5py.File(path, "r") as fh:
-            sid = fh.attrs.get("station")
+            sid, epsg = fh.attrs.get("station"), fh.attrs.get("epsg", 0)
     except Exception:  # noqa: BLE001 - any unreadable file is the stage's to refuse
         return None
     if isinstance(sid, bytes):
         sid = sid.decode("utf-8", "replace")
-    return sid if isinstance(sid, str) else None
+    try:
+        epsg = int(np.asarray(epsg).reshape(-1)[0])
+    except (TypeError, ValueError, IndexError, OverflowError):
+        return None
+    return (sid, epsg) if isinstance(sid, str) else None
 
 
 def _one_file_per_station(files, option):
     """Refuse two input files of the same station (a copy such as ``EM06_copy.nc`` left in
-    the folder): both would be processed and the models file would list the station twice."""
-    owner = {}
+    the folder): both would be processed and the models file would list the station twice.
+    Refuse stations in different CRSs (``epsg``): coordinates are never transformed, and
+    the models file and every export carry one CRS for all stations."""
+    owner, crs = {}, None
     for f in files:
-        sid = _station_attribute(f)
-        if sid is None:
+        attrs = _station_attributes(f)
+        if attrs is None:
             continue
+        sid, epsg = attrs
         if sid in owner:
             raise input_error(option, f"station {sid} is in two files ({owner[sid]} and {f}); "
                               "keep one", f)
         owner[sid] = f
+        if crs is None:
+            crs = (epsg, f)
+        elif epsg != crs[0]:
+            raise input_error("epsg", f"EPSG:{epsg}, but {crs[1]} is EPSG:{crs[0]}; stations "
+                              "processed together share one CRS (coordinates are never "
+                              "transformed)", f)
 
 
 @contextlib.contextmanager

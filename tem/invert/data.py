@@ -16,6 +16,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from ..errors import input_error
+from ..io.schema import check_usable_gates
 from .settings import FLOOR_COMPONENTS, parse_floor
 
 __all__ = ["DEFAULT_FLOOR", "StationData", "parse_floors", "station_data", "check_sounding"]
@@ -218,15 +219,7 @@ def station_data(ds, floors=None, file=None, build_simulation=True) -> StationDa
     error = np.asarray(ds["error"].values, float)
     usable = np.asarray(ds["usable"].values).astype(bool)
     comps = np.array([str(c) for c in np.asarray(ds["component"].values).ravel()])
-    # a gate marked usable must carry a finite value and a finite, non-negative error: one
-    # that does not is a damaged or hand-edited file, named, not a datum dropped in silence
-    for field, bad in (("value", usable & ~np.isfinite(value)),
-                       ("error", usable & ~(np.isfinite(error) & (error >= 0)))):
-        if bad.any():
-            c, g = (int(i) for i in np.argwhere(bad)[0])
-            raise input_error(field, f"{int(bad.sum())} usable gate(s) with a NaN, infinite"
-                              f"{' or negative' if field == 'error' else ''} {field}, first "
-                              f"{comps[c]} gate {g}; mark them unusable or restore the file", file)
+    check_usable_gates(value, error, usable, comps, file)
     mask = usable.copy()
     if not mask.any():
         raise input_error("usable", "no usable gates (all flagged)", file)

@@ -13,7 +13,7 @@ import numpy as np
 from ..errors import input_error
 from . import checks
 
-__all__ = ["check_product"]
+__all__ = ["check_product", "check_usable_gates"]
 
 L = checks.LIMITS
 #: |value| of a per-ampere field, a count or a spread above this is not a measurement
@@ -108,8 +108,12 @@ def _channels(ds, file, required_dead=True):
                           f"{', '.join(COMPONENTS)}", file)
     if len(set(comp)) != len(comp):
         raise input_error("component", "a component is listed twice", file)
-    for name in ("rx_x0", "rx_y0", "rx_x1", "rx_y1"):
-        checks.variable(ds, name, _CH, file, maximum=L["coordinate"])
+    rx = [checks.variable(ds, name, _CH, file, maximum=L["coordinate"])
+          for name in ("rx_x0", "rx_y0", "rx_x1", "rx_y1")]
+    for i, c in enumerate(comp):     # a zero-length dipole would be taken for a point receiver
+        if c in ("ex", "ey") and rx[0][i] == rx[2][i] and rx[1][i] == rx[3][i]:
+            raise input_error("rx_x1", f"channel {i} ({c}): the dipole's two electrodes "
+                              f"coincide at ({rx[0][i]:g}, {rx[1][i]:g}) m", file)
     checks.variable(ds, "coil_area", _CH, file, positive=True, maximum=L["coil_area"],
                     allow_nan=True)
     if required_dead or "dead" in ds.variables:
@@ -205,11 +209,29 @@ def _gated(ds, file):
     cg = ("channel", "gate")
     checks.variable(ds, "value", cg, file, maximum=BIG, allow_nan=True)
     checks.variable(ds, "error", cg, file, minimum=0.0, maximum=BIG, allow_nan=True)
-    checks.variable(ds, "usable", cg, file, kind="b")
+    usable = checks.variable(ds, "usable", cg, file, kind="b")
+    check_usable_gates(ds["value"].values, ds["error"].values, usable, ds["component"].values,
+                       file)
     checks.variable(ds, "noise_floor", _CH, file, minimum=0.0, maximum=BIG, allow_nan=True)
     for name, v in ds.data_vars.items():
         if tuple(v.dims) == _CH and v.dtype.kind == "f":
             checks.variable(ds, str(name), _CH, file, maximum=BIG, allow_nan=True)
+
+
+def check_usable_gates(value, error, usable, components, file=None):
+    """A gate marked usable must carry a finite value and a finite, non-negative error: one
+    that does not is a damaged or hand-edited file, named, not a datum dropped in silence
+    (the readers of gated files, and :func:`tem.invert.data.station_data`)."""
+    value, error = np.asarray(value, float), np.asarray(error, float)
+    usable = np.asarray(usable).astype(bool)
+    for field, bad in (("value", usable & ~np.isfinite(value)),
+                       ("error", usable & ~(np.isfinite(error) & (error >= 0)))):
+        if bad.any():
+            c, g = (int(i) for i in np.argwhere(bad)[0])
+            raise input_error(field, f"{int(bad.sum())} usable gate(s) with a NaN, infinite"
+                              f"{' or negative' if field == 'error' else ''} {field}, first "
+                              f"{components[c]} gate {g}; mark them unusable or restore the "
+                              "file", file)
 
 
 def _waveform_table(a, file):
