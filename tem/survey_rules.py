@@ -4,7 +4,8 @@ Each was accepted before and failed later, or not at all: a low-pass order
 without a cut-off (every station failed at rhoa and invert, naming no file),
 a station in another CRS than the transmitter (its offset silently wrong),
 an ``.npy`` recording listed by two receivers (one station stacked the
-other's data), station ids that would give two stations the same product
+other's data), a receiver on the transmitter, ``timing = "current"`` at a
+station without a current receiver, station ids that would give two stations the same product
 file names or a file name too long for the disk. Errors are one line naming the field; :func:`tem.survey.read_survey`
 adds the file. :func:`projected_doc` turns a parsed survey in geographic
 coordinates into the projected CRS it names, before the survey is built.
@@ -32,6 +33,14 @@ def check_survey(survey):
                               f"survey.epsg ({survey.epsg or 0}); give every coordinate in the "
                               "survey's CRS")
     check_station_names(st.id for st in survey.stations)
+    tx = survey.transmitter
+    for st in survey.stations:
+        if tx.timing == "current" and st.current_receiver() is None:
+            raise input_error(f"station[{st.id}].receiver", 'transmitter.timing = "current" '
+                              "takes the switch times from a receiver with component "
+                              "'current'; this station has none (add it, or use timing = "
+                              '"survey")')
+        _off_the_transmitter(tx, st)
     owner = {}
     for st in survey.stations:
         for rx in st.receivers:
@@ -47,6 +56,37 @@ def check_survey(survey):
                                       "holds one channel")
                 owner[key] = f"{st.id} {rx.component}"
     return survey
+
+
+def _off_the_transmitter(tx, station):
+    """Refuse a receiver on the transmitter wire or loop, where the field is not finite: the
+    rule of the forward model (tem.forward.Simulation), a sample point of the receiver (the
+    station for a coil, 7 points along an E dipole) within 1e-3 of the transmitter's size
+    (a wire's length, a loop's longest side) of the wire. It was found only by the rhoa
+    stage, after the stack, in a message that named no file."""
+    import numpy as np
+
+    pts = np.asarray(tx.points, float)
+    if tx.kind == "loop":
+        pts = np.vstack([pts, pts[:1]])
+    a, d = pts[:-1], np.diff(pts, axis=0)
+    length = np.hypot(*d.T)
+    tol = 1e-3 * (length.max() if tx.kind == "loop" else length.sum())
+    for rx in station.data_receivers:
+        if rx.dipole is None:
+            points = np.array([[station.x, station.y]])
+        else:
+            (x0, y0), (x1, y1) = rx.dipole
+            s = 0.5 * (np.polynomial.legendre.leggauss(7)[0] + 1.0)
+            points = np.c_[x0 + s * (x1 - x0), y0 + s * (y1 - y0)]
+        for p in points:
+            u = np.clip(np.sum((p - a) * d, axis=1) / length ** 2, 0.0, 1.0)
+            gap = float(np.min(np.hypot(*(p - a - u[:, None] * d).T)))
+            if gap < tol:
+                raise input_error(f"station[{station.id}].receiver", f"the {rx.component} "
+                                  f"receiver at ({p[0]:.1f}, {p[1]:.1f}) m lies on the "
+                                  f"transmitter ({gap:.2g} m from the {tx.kind}, under "
+                                  f"{tol:.2g} m): no finite field there; move it", None)
 
 
 #: Longest station id, in bytes of UTF-8: file names are made of it (``<id>.nc``,

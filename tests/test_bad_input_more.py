@@ -495,6 +495,13 @@ def test_a_stage_option_conflict_names_the_option_given(small_day, tmp_path):
     # from the transmitter was wrong
     ('id = "EM06"', 'id = "EM06"\nepsg = 32735', "station[EM06].epsg: EPSG:32735 differs from "
      "survey.epsg (0)"),
+    # a station on the wire was found by the rhoa stage, in a message that named no file
+    ("x = -1500.0\ny = 0.0", "x = 0.0\ny = 800.0", "station[EM05].receiver: the dbzdt receiver "
+     "at (0.0, 800.0) m lies on the transmitter (0 m from the wire, under 1.5 m)"),
+    # timing from a current channel no station has: the stack failed each, naming no file
+    ('timing = "survey"', 'timing = "current"', "station[EM05].receiver: transmitter.timing = "
+     "\"current\" takes the switch times from a receiver with component 'current'; this "
+     "station has none"),
 ])
 def test_survey_refuses_inconsistent_station(small_day, tmp_path, old, new, message):
     day = _copy_day(small_day, tmp_path)
