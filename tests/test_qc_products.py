@@ -264,3 +264,23 @@ def test_decay_figure_states_the_qc_verdict(project, monkeypatch):
     assert seen[0]._suptitle.get_text() == "evening QC: reoccupy: ex dead: flat record"
     assert scratch.station_figure(DEAD, "decay").read_bytes() == b"x"
     assert not scratch.station_figure(GOOD, "decay").exists()
+
+
+def test_pseudo_sections_mark_the_station_to_reoccupy(project, monkeypatch):
+    # the pseudo-sections drew EM05's dead channel like any station; its column is marked
+    # now (a dashed line and "QC reoccupy"), and the title names it
+    import tem.io.figures as figures
+    from tem.io.project import Project
+    from tem.rhoa.settings import RhoaSettings
+    from tem.rhoa.stage import pseudo_sections
+
+    seen = []
+    monkeypatch.setattr(figures, "save_figure", lambda fig, *a, **k: seen.append(fig) or [])
+    pseudo_sections(Project(project[0]), [GOOD, DEAD], RhoaSettings())
+    assert seen
+    for fig in seen:
+        ax = fig.axes[0]
+        assert [ln for ln in ax.lines if ln.get_gid() == f"qc-mark-{DEAD}"]
+        assert not [ln for ln in ax.lines if ln.get_gid() == f"qc-mark-{GOOD}"]
+        assert any(tx.get_text() == "QC reoccupy" for tx in ax.texts)
+        assert fig._suptitle.get_text().endswith(f"to re-occupy): {DEAD}")

@@ -117,7 +117,7 @@ def _log_axes_or_note(ax, has_data, note):
 
 
 def pseudo_section(stations, x, y, times, rhoa, depths=None, axis_kind="time", n_columns=200,
-                   title=None):
+                   title=None, marked=()):
     """Apparent-resistivity pseudo-section along the line through the stations.
 
     Parameters
@@ -171,4 +171,5 @@ def pseudo_section(stations, x, y, times, rhoa, depths=None, axis_kind="time", n
     grid = pseudo_section_grid(s, absc, vals, positions, axis, "linear",
                                log_axis=(axis_kind == "time"))
     labels = [str(stations[i]) for i in idx]
-    return pseudo_section_figure(positions, axis, grid, s, labels, axis_kind=axis_kind, title=title)
+    return pseudo_section_figure(positions, axis, grid, s, labels, axis_kind=axis_kind, title=title,
+                                 marked=marked)

@@ -76,6 +76,21 @@ def _header() -> str:
     return ",".join(TABLE_COLUMNS) + "\n"
 
 
+def _reoccupy(project: Project) -> set:
+    """Stations the evening QC table of the project calls reoccupy (none without a table; an
+    unreadable one is the gate stage's to refuse, not the figure's)."""
+    from ..errors import TemInputError
+    from ..qc.verdict import read_stations_csv
+
+    table = project.root / "qc" / "stations.csv"
+    if not table.is_file():
+        return set()
+    try:
+        return {r["station"] for r in read_stations_csv(table) if r["verdict"] == "reoccupy"}
+    except TemInputError:
+        return set()
+
+
 def pseudo_sections(project: Project, stations, settings: RhoaSettings):
     """One pseudo-section figure per component found at two or more stations.
 
@@ -95,6 +110,7 @@ def pseudo_sections(project: Project, stations, settings: RhoaSettings):
 
     data = [(sid, read_product(project.station_file("rhoa", sid), "rhoa")) for sid in stations]
     files, notes = [], []
+    again = _reoccupy(project)
     for comp in sorted({str(c) for _, r in data for c in r["component"].values}):
         rows = []
         for sid, r in data:
@@ -127,7 +143,8 @@ def pseudo_sections(project: Project, stations, settings: RhoaSettings):
         kind = "all-time" if settings.all_time else "late-time"
         fig = pseudo_section([sid for sid, _, _ in rows], x, y, tt, rr, dd,
                              axis_kind=settings.section_axis,
-                             title=f"{comp}: {kind} apparent resistivity (usable gates{rule})")
+                             title=f"{comp}: {kind} apparent resistivity (usable gates{rule})",
+                             marked=[sid for sid, _, _ in rows if sid in again])
         files += save_figure(fig, project.folder("figures") / f"pseudosection_{comp}")
     return files, notes
 

@@ -368,8 +368,12 @@ def unconverged_caption(grid):
 
 def pseudo_section_figure(positions, axis, log10_rhoa, station_distance, station_labels,
                           axis_kind="time", title=None, vmin=None, vmax=None,
-                          distance_unit="auto", cmap=CMAP, width=10.0, height=4.5):
+                          distance_unit="auto", cmap=CMAP, width=10.0, height=4.5, marked=()):
     """Apparent-resistivity pseudo-section.
+
+    ``marked``: labels of stations whose recording failed the evening QC (reoccupy):
+    each gets a dashed purple line and "QC reoccupy" at its position, and the
+    title names them (their columns are drawn from data the crew is to record again).
 
     Parameters
     ----------
@@ -407,8 +411,19 @@ def pseudo_section_figure(positions, axis, log10_rhoa, station_distance, station
     ax.set_ylim(ye[-1], ye[0])
     ax.set_xlabel(f"distance along profile ({unit})")
     _station_labels(ax, station_distance, station_labels, scale)
+    marked = [m for m in marked if m in list(station_labels)]
+    for d, lab in zip(station_distance, station_labels):
+        if lab in marked:
+            line = ax.axvline(float(d) * scale, color=COLUMN_MARKS[4][2], ls="--", lw=1.2)
+            line.set_gid(f"qc-mark-{lab}")
+            ax.text(float(d) * scale, 0.02, "QC reoccupy", transform=ax.get_xaxis_transform(),
+                    rotation=90, ha="right", va="bottom", fontsize=7, color="0.1",
+                    bbox=dict(boxstyle="round", fc="white", ec=COLUMN_MARKS[4][2], alpha=0.8))
     cb = fig.colorbar(mesh, ax=ax, pad=0.01)
     cb.set_label("apparent resistivity (ohm-m)")
+    if marked:
+        note = ("recording failed the evening QC (dashed, to re-occupy): " + ", ".join(marked))
+        title = f"{title}\n{note}" if title else note
     if title:
         fig.suptitle(title)
     return fig
