@@ -155,11 +155,6 @@ def _clockwise_loop(ds):
     return ds
 
 
-def _zero_dipole(ds):
-    ds["rx_x1"].values[0], ds["rx_y1"].values[0] = ds["rx_x0"].values[0], ds["rx_y0"].values[0]
-    return ds
-
-
 def _nan_error(ds):
     ds["usable"].values[0, 2] = True
     ds["error"].values[0, 2] = float("nan")
@@ -184,8 +179,6 @@ def _nan_value(ds):
     (_nan_x, "x: must be finite, got nan"),
     # as the survey and the import: +I runs anticlockwise
     (_clockwise_loop, "tx_points: vertices run clockwise; list them anticlockwise"),
-    # a zero-length E dipole was taken for a point receiver (the survey refuses it)
-    (_zero_dipole, "rx_x1: channel 0 (ex): the dipole's two electrodes coincide"),
     # a usable gate with a NaN error or value: rhoa went on (exit 0) where invert refused
     (_nan_error, "error: 1 usable gate(s) with a NaN, infinite or negative error, first ex "
      "gate 2"),

@@ -110,10 +110,10 @@ def _channels(ds, file, required_dead=True):
         raise input_error("component", "a component is listed twice", file)
     rx = [checks.variable(ds, name, _CH, file, maximum=L["coordinate"])
           for name in ("rx_x0", "rx_y0", "rx_x1", "rx_y1")]
-    for i, c in enumerate(comp):     # a zero-length dipole would be taken for a point receiver
-        if c in ("ex", "ey") and rx[0][i] == rx[2][i] and rx[1][i] == rx[3][i]:
-            raise input_error("rx_x1", f"channel {i} ({c}): the dipole's two electrodes "
-                              f"coincide at ({rx[0][i]:g}, {rx[1][i]:g}) m", file)
+    # an E channel whose two ends coincide is a point receiver (imported decays of other
+    # systems, empymod-style soundings: tem.forward.sounding.receivers_from_sounding), not an
+    # error; the survey reader refuses a zero-length dipole of our own recordings
+    del rx
     checks.variable(ds, "coil_area", _CH, file, positive=True, maximum=L["coil_area"],
                     allow_nan=True)
     if required_dead or "dead" in ds.variables:
