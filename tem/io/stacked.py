@@ -44,6 +44,8 @@ CHECK_FIELDS = (("offset", "V", "median baseline at the logger"),
                 ("asymmetry_windows", "1", "off-time windows the asymmetry is taken over"),
                 ("mains", "V", "mains fundamental amplitude at the logger"),
                 ("mains_rms", "V", "rms of mains fundamental and harmonics at the logger"),
+                ("mains_removed", "Hz", "frequency of the mains fitted and removed before "
+                 "stacking (off its nominal frequency; NaN: none removed)"),
                 ("duration", "s", "record length stacked"),
                 ("flat_fraction", "1", "share of half-period windows that are flat (at most 1 "
                  "count peak to peak: the channel dropped out)"),

@@ -86,7 +86,8 @@ def short_dropouts(raw, run_min: int, clip_volts: float = 0.0):
 
 
 def half_cycle_check(read_volts, starts, m: int, means, stack_volts, clip_volts: float,
-                     fs: float, mains_frequency: float, window_edges, harmonics: int = 15):
+                     fs: float, mains_frequency: float, window_edges, harmonics: int = 15,
+                     removed=None):
     """Half-cycle asymmetry and mains level from blocks of four windows.
 
     read_volts : callable (j0, j1) -> (j1-j0, M) volts of windows j0..j1-1.
@@ -102,6 +103,8 @@ def half_cycle_check(read_volts, starts, m: int, means, stack_volts, clip_volts:
     noise sigmas clear; 0.01 for a transmitter that drives 2 % more current
     one way, half the difference over the mean; NaN if no window qualifies), ``asymmetry_error`` (its standard
     error from the scatter of the blocks), ``asymmetry_windows`` (how many),
+    ``removed``: (j0, j1) -> volts to take out of those windows first (the mains that
+    :mod:`tem.stack.mains` fitted), or None.
     ``mains`` (median amplitude over the blocks of the mains fundamental, V)
     and ``mains_rms`` (rms over the fundamental and ``harmonics - 1``
     harmonics below Nyquist, V).
@@ -135,10 +138,12 @@ def half_cycle_check(read_volts, starts, m: int, means, stack_volts, clip_volts:
     short_runs, sampled = 0, 0
     for j in starts:
         raw = read_volts(int(j), int(j) + 4)
-        k, n = short_dropouts(raw, run_min, clip_volts)
+        k, n = short_dropouts(raw, run_min, clip_volts)      # on the record as it is
         short_runs += k
         sampled += n
         d = raw - _baseline(means, int(j), 4, t_frac)
+        if removed is not None:           # mains fitted off its nominal frequency, taken out
+            d = d - removed(int(j), int(j) + 4)
         if clip_volts > 0:
             d[np.abs(raw) >= clip_volts] = np.nan
         if basis is not None:

@@ -37,6 +37,10 @@ STACK = SettingsTable("stack", [
             "per three-window estimate; their correlation is corrected, docs/stacking.md "
             "section 5)", source="Monte Carlo with the Emberline noise, docs/stacking.md"),
     Setting("detrend", True, "bool", help="remove the period-mean baseline before combining"),
+    Setting("mains_removal", "auto", "choice", choices=("auto", "off"),
+            help="find mains off its nominal frequency on the record and remove it before a "
+            "second stack (auto), or leave all mains to the stack's nulls (off)",
+            source="docs/stacking.md section 6"),
     Setting("timing", None, "choice", choices=("survey", "current"),
             help="switch times from the survey schedule or the current channel (unset: as the "
             "survey says)"),

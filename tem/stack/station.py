@@ -183,9 +183,21 @@ def stack_station(survey, station, settings: StackSettings = StackSettings(), pr
             def tick(done, total, ci=ci):
                 progress((ci + done / max(total, 1)) / n_ch)
         res = stack_source(src, settings, progress=tick)
+        removal = []
+        if settings.mains_removal == "auto":
+            removal = _off_nominal_mains(src, rec, res, survey.mains_frequency)
+            if removal:                      # stacked again without it
+                from .mains import CleanedSource
+                again = stack_source(CleanedSource(src, removal), settings)
+                # the windows' own measures (baseline, rails, flat spans) stay those of the
+                # record as recorded: a flat (dropped-out) window less a fitted mains is
+                # not flat, and the channel would no longer read dead
+                again.window_means, again.window_rails = res.window_means, res.window_rails
+                again.window_spans = res.window_spans
+                res = again
         factor = rx.volts_to_field(tx.current)
         times = dly + np.arange(m) / rec.sample_rate
-        checks = _channel_checks(src, rec, res, times, tx, survey.mains_frequency)
+        checks = _channel_checks(src, rec, res, times, tx, survey.mains_frequency, removal)
         # dead: flat (at most 1 count peak to peak) for most of the record, judged over
         # every window, not one period (a record dead after its first seconds was "alive")
         dead = checks["flat_fraction"] >= DEAD_FRACTION
@@ -216,25 +228,68 @@ def flat_fraction(spans, volts_per_count, rails=None) -> float:
     return float(np.mean(flat[ok]))
 
 
-def _channel_checks(src, rec, res, times, tx, mains_frequency):
-    """Raw-record checks of one channel (volts at the logger; see :class:`ChannelStack`)."""
+def _reader(src, rec):
+    """(j0, j1) -> (j1-j0, M) volts of the record's windows j0..j1-1 as recorded."""
+    m = src.m
+
+    def read(j0, j1):
+        a = src.first + j0 * m
+        return rec.read(a, a + (j1 - j0) * m).reshape(j1 - j0, m)
+    return read
+
+
+def _off_nominal_mains(src, rec, res, mains_frequency):
+    """The fitted mains lines (:class:`tem.stack.mains.MainsRemoval`) of a record whose mains
+    runs off its nominal frequency, near the survey's grid frequency and near the other one
+    (50/60 Hz); [] when none does (:mod:`tem.stack.mains`)."""
+    from .mains import find_mains_line, fit_removal, removed_volts
+
+    if not mains_frequency or not np.isfinite(res.window_means).any():
+        return []
+    raw = _reader(src, rec)
+    means = np.nan_to_num(res.window_means, nan=float(np.nanmedian(res.window_means)))
+    clip_volts = clip_level(rec.header.full_scale) * rec.header.volts_per_count
+    nominals = [f for f in (mains_frequency, {50.0: 60.0, 60.0: 50.0}.get(float(mains_frequency)))
+                if f]
+    lines = find_mains_line(raw, src.n_windows, src.m, rec.sample_rate, means, res.value,
+                            src.polarity0, nominals, clip_volts)
+    out = []
+    for line in lines:
+        if not line.remove:
+            continue
+
+        def read(j0, j1):         # the record less the lines fitted so far
+            return raw(j0, j1) - removed_volts(out, j0, j1) if out else raw(j0, j1)
+        out.append(fit_removal(read, src.n_windows, src.m, rec.sample_rate, means, res.value,
+                               src.polarity0, line.frequency, clip_volts))
+    return out
+
+
+def _channel_checks(src, rec, res, times, tx, mains_frequency, removal=()):
+    """Raw-record checks of one channel (volts at the logger; see :class:`ChannelStack`);
+    with ``removal`` (fitted lines, :class:`tem.stack.mains.MainsRemoval`) on the record
+    without them, the removed mains counted in ``mains``."""
+    from .mains import removed_volts
     m = src.m
     n_off = int(np.searchsorted(times, tx.off_time)) if tx.off_time > 0 else m
     # log-spaced windows over the off-time from sample 16 on (9 per decade, as gates)
     edges = (np.unique(np.geomspace(16, n_off, max(2, int(9 * np.log10(n_off / 16)) + 1))
                        .round().astype(int)) if n_off > 32 else np.zeros(0, int))
     vpc = rec.header.volts_per_count
-
-    def read(j0, j1):
-        a = src.first + j0 * m
-        return rec.read(a, a + (j1 - j0) * m).reshape(j1 - j0, m)
+    read = _reader(src, rec)
+    removed = (lambda j0, j1: removed_volts(removal, j0, j1)) if removal else None
 
     means = np.nan_to_num(res.window_means, nan=float(np.nanmedian(res.window_means))
                           if np.isfinite(res.window_means).any() else 0.0)
     checks = half_cycle_check(read, block_starts(src.n_windows, src.polarity0), m, means,
                               res.value, clip_level(rec.header.full_scale) * vpc,
-                              rec.sample_rate, mains_frequency, edges)
+                              rec.sample_rate, mains_frequency, edges, removed=removed)
     checks.update(baseline_measures(res.window_means, tx.half_period))
+    # the first line removed (the survey's grid frequency when it was off nominal there)
+    checks["mains_removed"] = removal[0].frequency if removal else float("nan")
+    amps = [r.amplitude for r in removal if np.isfinite(r.amplitude)]
+    if amps:
+        checks["mains"] = max(float(np.nan_to_num(checks.get("mains"))), max(amps))
     checks["flat_fraction"] = flat_fraction(res.window_spans, vpc, res.window_rails)
     checks["duration"] = src.n_windows * tx.half_period
     fsc = float(rec.header.full_scale or 0.0)
