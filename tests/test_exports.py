@@ -387,3 +387,17 @@ def test_docs_name_the_las_sections_as_written(tmp_path):
     sections = {ln.split()[0] for ln in text.splitlines() if ln.startswith("~")}
     doc = (Path(__file__).resolve().parents[1] / "docs" / "exports.md").read_text()
     assert "~Params" in sections and "`~Params" in doc and "~Parameter" not in doc
+
+
+def test_las_of_a_model_with_doi_zero_holds_the_whole_model():
+    # a misfit model with a DOI of 0 m once gave a one-row log (STRT = STOP = 0) while
+    # models.csv had every layer: the log now runs below the deepest interface, every row
+    # flagged below the DOI
+    from tem.export.las import las_for_station
+
+    models = synthetic_models()
+    models["doi"].values[0] = 0.0
+    las = las_for_station(models, 0, 10.0)
+    depth = las.index
+    tops = models["depth_top"].values[0]
+    assert depth.size > 10 and depth[-1] > np.nanmax(tops)

@@ -103,7 +103,9 @@ def las_for_station(models, i, step, bottom=None, mask_below_doi=False, source="
     if bottom is None:
         finite_top = top[np.isfinite(top)]
         deepest = float(finite_top.max()) if finite_top.size else 0.0
-        bottom = 1.25 * doi if np.isfinite(doi) else deepest + max(step, deepest * 0.1)
+        bottom = 1.25 * doi if np.isfinite(doi) else float("nan")
+        if not bottom >= step:      # no DOI, or one of 0 m (a misfit): the whole model, flagged
+            bottom = deepest + max(step, deepest * 0.1)
     depth, r, s, flag = station_log(top, res, std, doi, step, bottom)
     if mask_below_doi:
         r = np.where(flag > 0, np.nan, r)

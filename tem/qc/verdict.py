@@ -330,8 +330,12 @@ def _channel_rules(m, med, s):
             text += f" with mains {m.mains:.2g} V at the logger ({_pct(m.mains / fs)} of full scale)"
         return text
 
-    grade(rej, s.rejected_check, s.rejected_reoccupy, rejected)
-    if m.outlier_fraction >= s.outlier_check:
+    # a record too short to stack has no statistics to reject periods or spikes by (3
+    # estimates of clean noise read as 5 % spikes): its shortness is the reason given
+    too_short = np.isfinite(dof) and dof < s.dof_reoccupy and not 0 < m.batches < m.periods_total
+    if not too_short:
+        grade(rej, s.rejected_check, s.rejected_reoccupy, rejected)
+    if m.outlier_fraction >= s.outlier_check and not too_short:
         ck.append(f"{c} spikes: {_pct(m.outlier_fraction)} of samples rejected as outliers")
     if np.isfinite(m.polarity) and m.polarity < 0 and m.polarity_snr >= s.polarity_snr:
         what = (f"apparent DC resistivity {m.polarity:.3g} ohm-m" if c in ("ex", "ey")
