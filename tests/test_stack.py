@@ -587,15 +587,14 @@ def test_half_cycle_check_ignores_the_other_grid_frequency():
     assert measure(1.1, 60.0) == pytest.approx(measure(1.1, 0.0), rel=0.02)
 
 
-def _mains_day(f_mains, n=60, fs=1000.0, fb=0.25, seed=3):
+def _mains_day(f_mains, n=60, fs=1000.0, fb=0.25, seed=3, lines=((1, 0.3), (2, 0.03), (3, 0.15))):
     """Windows of a decaying transient, 0.3 V of mains at ``f_mains`` with two harmonics and
     1 mV of white noise; the true transient."""
     m = int(fs / (2 * fb))
     t = np.arange(n * m) / fs
     s = 0.05 * np.exp(-((np.arange(m) + 0.5) / fs) / 0.05)
     pol = np.repeat(1 - 2 * (np.arange(n) % 2), m).astype(float)
-    hum = sum(a * np.cos(2 * np.pi * h * f_mains * t + h) for h, a in ((1, 0.3), (2, 0.03),
-                                                                      (3, 0.15)))
+    hum = sum(a * np.cos(2 * np.pi * h * f_mains * t + h) for h, a in lines)
     x = pol * np.tile(s, n) + hum + 1e-3 * np.random.default_rng(seed).standard_normal(t.size)
     return x.reshape(n, m), s, fs
 
@@ -609,7 +608,7 @@ def test_mains_off_nominal_is_found_and_removed(f_mains, removed):
     # removed; the stack again is within its errors of the truth (least-squares sinusoids of
     # known frequency: Bloomfield 2000, Fourier analysis of time series, ch. 2, from memory).
     # Mains on its nominal frequency is left to the nulls.
-    from tem.stack.mains import CleanedSource, find_mains_line, fit_removal
+    from tem.stack.mains import CleanedSource, find_mains_line, fit_removal, on_line
     d, s, fs = _mains_day(f_mains)
     n, m = d.shape
     src = ArraySource(d)
@@ -633,3 +632,25 @@ def test_mains_off_nominal_is_found_and_removed(f_mains, removed):
     assert np.median(first.error) > 4 * np.median(again.error)
     assert 0.5 < np.sqrt(np.mean(z1 * z1)) < 1.6
     assert rem.amplitude == pytest.approx(0.3, rel=0.05)
+    assert np.isnan(on_line([rem], again.value, again.error, fs, m, n))
+
+
+def test_mains_harmonic_on_a_transmitter_line_is_named():
+    # 50.05 x 5 = 250.25 Hz = 1001 x 0.25 Hz: periodic with the transmitter, it stacks with
+    # the signal and nothing on the record tells them apart; once the rest of the mains was
+    # removed such a station was called good with gates thousands of errors off. The
+    # harmonic shows in the stack's smooth second half and is named
+    from tem.stack.mains import (CleanedSource, find_mains_line, fit_removal, near_harmonics,
+                                 on_line)
+    d, s, fs = _mains_day(50.05, lines=((1, 0.3), (5, 0.1)))
+    n, m = d.shape
+    first = stack_windows(d)
+    read = lambda a, z: d[a:z]                                   # noqa: E731
+    means = np.nan_to_num(first.window_means)
+    line = find_mains_line(read, n, m, fs, means, first.value, 1, 50.0)
+    assert line.remove and line.frequency == pytest.approx(50.05, abs=2e-4)
+    rems = [fit_removal(read, n, m, fs, means, first.value, 1, line.frequency)]
+    near = near_harmonics(line.frequency, fs, m, n)
+    assert 5 not in near and 5 not in rems[0].harmonics          # on the line: not fitted
+    again = stack_source(CleanedSource(ArraySource(d), rems), StackSettings())
+    assert on_line(rems, again.value, again.error, fs, m, n) == pytest.approx(250.25, abs=0.01)

@@ -46,6 +46,8 @@ CHECK_FIELDS = (("offset", "V", "median baseline at the logger"),
                 ("mains_rms", "V", "rms of mains fundamental and harmonics at the logger"),
                 ("mains_removed", "Hz", "frequency of the mains fitted and removed before "
                  "stacking (off its nominal frequency; NaN: none removed)"),
+                ("mains_on_line", "Hz", "a harmonic of that mains on a line of the transmitter's "
+                 "response, seen in the stack: it cannot be removed (NaN: none)"),
                 ("duration", "s", "record length stacked"),
                 ("flat_fraction", "1", "share of half-period windows that are flat (at most 1 "
                  "count peak to peak: the channel dropped out)"),

@@ -91,6 +91,10 @@ class ChannelMeasures:
         correlation; :func:`tem.stack.batchvar.effective_dof`): a short record
         has few, and its error bars are themselves uncertain by about
         1/sqrt(2 dof).
+    mains_on_line : float
+        Frequency (Hz) of a harmonic of mains off its nominal frequency that lies on a
+        line of the transmitter's response and shows in the stack (it stacks with the
+        signal and cannot be removed; :func:`tem.stack.mains.on_line`), NaN if none.
     batches : int
         Batches the error bars were estimated from (fewer than the
         estimates when the stack's ``batches`` setting limits them).
@@ -134,6 +138,7 @@ class ChannelMeasures:
     dropout_fraction: float = float("nan")
     dof: float = float("nan")
     batches: int = 0
+    mains_on_line: float = float("nan")
 
     def as_dict(self) -> dict:
         return asdict(self)
@@ -329,5 +334,6 @@ def channel_measures(stacked, gated=None) -> list:
             cut_residual=float(stacked.attrs.get("cut_residual", float("nan"))),
             flat_fraction=_num(stacked, "flat_fraction", c),
             dropout_fraction=_num(stacked, "dropout_fraction", c),
-            dof=_dof(res), batches=int(res.influence.shape[0])))
+            dof=_dof(res), batches=int(res.influence.shape[0]),
+            mains_on_line=_num(stacked, "mains_on_line", c)))
     return out

@@ -290,6 +290,11 @@ def _channel_rules(m, med, s):
                   f"({label} median)")
     elif not np.isfinite(m.last_usable) and m.gates:
         ck.append(f"{c} no usable gate")
+    if np.isfinite(m.mains_on_line):
+        re.append(f"{c} mains harmonic at {m.mains_on_line:.2f} Hz lies on a line of the "
+                  "transmitter's response: it stacks with the signal and cannot be removed; "
+                  "record at another time or place")
+        extra = float("nan")
     dof = m.dof
     if np.isfinite(dof) and dof < s.dof_check and not m.dead:
         uncertain = f"uncertain by about {_pct(1.0 / math.sqrt(2.0 * dof))}"

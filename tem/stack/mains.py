@@ -43,7 +43,7 @@ from .rawchecks import _baseline
 from .sources import WindowSource
 
 __all__ = ["MainsLine", "find_mains_line", "MainsRemoval", "fit_removal", "CleanedSource",
-           "removed_volts"]
+           "removed_volts", "near_harmonics", "on_line"]
 
 #: Most harmonics fitted (below Nyquist).
 HARMONICS = 15
@@ -188,8 +188,17 @@ def _segments(n_windows, length):
     return [tuple(x) for x in segs]
 
 
+def near_harmonics(frequency, fs, m, n_windows):
+    """Harmonics of ``frequency`` (below Nyquist) within ``MIN_SEPARATION`` of a transmitter
+    line but at least 1 / record length from it: told apart only over the whole record."""
+    fb = fs / (2.0 * m)
+    floor = 1.0 / (n_windows * m / fs)
+    return tuple(h for h in range(1, HARMONICS + 1) if h * frequency < 0.5 * fs
+                 and floor <= _separation(h * frequency, fb) < MIN_SEPARATION)
+
+
 def fit_removal(read, n_windows, m, fs, means, stack, polarity0, frequency,
-                clip_volts=0.0, iterations=6) -> MainsRemoval:
+                clip_volts=0.0, iterations=6, harmonics=None, whole=False) -> MainsRemoval:
     """Least-squares mains of every segment of the record at ``frequency`` (module docstring,
     step 3).
 
@@ -198,7 +207,8 @@ def fit_removal(read, n_windows, m, fs, means, stack, polarity0, frequency,
     distance: segments last 4 / ``MIN_SEPARATION`` s (40 s; over shorter ones the fit
     took the leaked mains for signal and put it back: gates stayed 40 times off), and a
     harmonic that falls within ``MIN_SEPARATION`` of such a line (50.05 x 5 = 250.25 =
-    1001 x 0.25 Hz) is left out: it stacks like the signal and nothing tells them apart.
+    1001 x 0.25 Hz) is left out here (``harmonics`` None; :func:`near_harmonics` are fitted
+    over the whole record, ``whole``, by a second call).
     The transient and the mains are then estimated in turn (block coordinate descent on
     their joint least-squares problem, ``iterations`` times): the mains of every segment
     from the record less the current transient, the transient as the signed mean of the
@@ -206,8 +216,9 @@ def fit_removal(read, n_windows, m, fs, means, stack, polarity0, frequency,
     """
     fb = fs / (2.0 * m)
     hs = tuple(h for h in range(1, HARMONICS + 1) if h * frequency < 0.5 * fs
-               and _separation(h * frequency, fb) >= MIN_SEPARATION)
-    length = max(2, 2 * int(math.ceil(4.0 / MIN_SEPARATION * fb)))
+               and _separation(h * frequency, fb) >= MIN_SEPARATION) \
+        if harmonics is None else tuple(harmonics)
+    length = n_windows if whole else max(2, 2 * int(math.ceil(4.0 / MIN_SEPARATION * fb)))
     segs = _segments(n_windows, length)
     rem = MainsRemoval(float(frequency), m, float(fs), segs, hs,
                        np.zeros((len(segs), 2 * len(hs))), float("nan"))
@@ -252,6 +263,36 @@ def removed_volts(removals, k0, k1):
     for r in removals:
         out = out + r.volts(k0, k1)
     return out
+
+
+def on_line(removals, stack, error, fs, m, n_windows, ratio=5.0):
+    """Frequency (Hz) of the strongest harmonic of a removed line that sits on a transmitter
+    line (closer than 1 / record length: nothing on the record tells it from the signal) and
+    shows in the stack, or NaN.
+
+    Such a harmonic stacks like the transient (50.05 x 5 = 250.25 Hz = 1001 x 0.25 Hz: a
+    station whose gates were thousands of errors off was called good once the rest of its
+    mains was removed). It shows as a sinusoid in the stack's second half, where a decay is
+    smooth: its amplitude there, by least squares, over ``ratio`` times the median error.
+    """
+    fb = fs / (2.0 * m)
+    floor = 1.0 / (n_windows * m / fs)
+    t = np.arange(m) / fs
+    half = slice(m // 2, m)
+    noise = float(np.median(error[half])) if np.isfinite(error[half]).any() else 0.0
+    worst, found = 0.0, float("nan")
+    for r in removals:
+        for h in range(1, HARMONICS + 1):
+            f = h * r.frequency
+            if f >= 0.5 * fs or _separation(f, fb) >= floor:
+                continue
+            b = np.column_stack([np.cos(2 * np.pi * f * t[half]), np.sin(2 * np.pi * f * t[half]),
+                                 np.ones(m - m // 2), t[half]])
+            c = np.linalg.lstsq(b, np.nan_to_num(stack[half]), rcond=None)[0]
+            amp = math.hypot(c[0], c[1])
+            if amp > ratio * noise and amp > worst:
+                worst, found = amp, f
+    return found
 
 
 class CleanedSource(WindowSource):

@@ -183,7 +183,7 @@ def stack_station(survey, station, settings: StackSettings = StackSettings(), pr
             def tick(done, total, ci=ci):
                 progress((ci + done / max(total, 1)) / n_ch)
         res = stack_source(src, settings, progress=tick)
-        removal = []
+        removal, stuck = [], float("nan")
         if settings.mains_removal == "auto":
             removal = _off_nominal_mains(src, rec, res, survey.mains_frequency)
             if removal:                      # stacked again without it
@@ -195,9 +195,12 @@ def stack_station(survey, station, settings: StackSettings = StackSettings(), pr
                 again.window_means, again.window_rails = res.window_means, res.window_rails
                 again.window_spans = res.window_spans
                 res = again
+                from .mains import on_line
+                stuck = on_line(removal, res.value, res.error, rec.sample_rate, m, nw)
         factor = rx.volts_to_field(tx.current)
         times = dly + np.arange(m) / rec.sample_rate
         checks = _channel_checks(src, rec, res, times, tx, survey.mains_frequency, removal)
+        checks["mains_on_line"] = stuck
         # dead: flat (at most 1 count peak to peak) for most of the record, judged over
         # every window, not one period (a record dead after its first seconds was "alive")
         dead = checks["flat_fraction"] >= DEAD_FRACTION
@@ -242,7 +245,7 @@ def _off_nominal_mains(src, rec, res, mains_frequency):
     """The fitted mains lines (:class:`tem.stack.mains.MainsRemoval`) of a record whose mains
     runs off its nominal frequency, near the survey's grid frequency and near the other one
     (50/60 Hz); [] when none does (:mod:`tem.stack.mains`)."""
-    from .mains import find_mains_line, fit_removal, removed_volts
+    from .mains import find_mains_line, fit_removal, near_harmonics, removed_volts
 
     if not mains_frequency or not np.isfinite(res.window_means).any():
         return []
@@ -262,6 +265,11 @@ def _off_nominal_mains(src, rec, res, mains_frequency):
             return raw(j0, j1) - removed_volts(out, j0, j1) if out else raw(j0, j1)
         out.append(fit_removal(read, src.n_windows, src.m, rec.sample_rate, means, res.value,
                                src.polarity0, line.frequency, clip_volts))
+        near = near_harmonics(line.frequency, rec.sample_rate, src.m, src.n_windows)
+        if near:                  # harmonics close to a transmitter line: the whole record
+            out.append(fit_removal(read, src.n_windows, src.m, rec.sample_rate, means,
+                                   res.value, src.polarity0, line.frequency, clip_volts,
+                                   harmonics=near, whole=True))
     return out
 
 
