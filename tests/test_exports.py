@@ -401,3 +401,12 @@ def test_las_of_a_model_with_doi_zero_holds_the_whole_model():
     depth = las.index
     tops = models["depth_top"].values[0]
     assert depth.size > 10 and depth[-1] > np.nanmax(tops)
+
+
+def test_las_values_keep_their_words_apart():
+    # a colon ends a LAS value, so reasons lose theirs; "record short: 7 estimates" read
+    # "record short  7 estimates" (two words run together); now "record short - 7 estimates"
+    from tem.export.las import las_value
+    assert las_value("misfit: chi2 31.4; DOI unreliable: it comes") == \
+        "misfit - chi2 31.4; DOI unreliable - it comes"
+    assert ":" not in las_value("a:b: c")

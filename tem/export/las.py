@@ -41,6 +41,12 @@ _VALUE_WIDTH = 60
 _OTHER_WIDTH = 100
 
 
+def las_value(text: str) -> str:
+    """Text for a LAS parameter's value: a colon ends the value of a LAS line, so "a: b"
+    reads "a - b" (it read "a  b", the two words run together)."""
+    return str(text).replace(": ", " - ").replace(":", " ")
+
+
 def station_log(depth_top, resistivity, log10_std, doi, step, bottom):
     """Sample one station's layered model on a regular depth axis.
 
@@ -211,7 +217,7 @@ def qc_params(models, i):
         return [("QC", "", "UNKNOWN", "Evening QC verdict on the recording: none recorded")]
     return [("QC", "", q["verdict"].upper(), "Evening QC verdict on the recording: GOOD CHECK "
              "REOCCUPY"),
-            ("QCR", "", q["reasons"].replace(":", " "), "Evening QC reasons")]
+            ("QCR", "", las_value(q["reasons"]), "Evening QC reasons")]
 
 
 def verdict_params(models, i):
@@ -223,7 +229,7 @@ def verdict_params(models, i):
         return [("FIT", "", "UNKNOWN", "Verdict on the model: none recorded")]
     tol = round(float(models["verdict_tolerance"].values[i]), 3) if "verdict_tolerance" in models \
         else NULL
-    reasons = v["reasons"].replace(":", " ")    # a colon ends the value of a LAS line
+    reasons = las_value(v["reasons"])
     return [
         ("FIT", "", v["status"].upper(), "Verdict: FITTED MISFIT STALLED PARAMETER-AT-BOUND "
          "DEGENERATE-LAYER"),

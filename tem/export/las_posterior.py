@@ -65,6 +65,7 @@ def posterior_params(models, i, null):
 def interval_params(models, i):
     """``INTV`` (verdict word in capitals) and ``INTVR`` (its text) of station ``i``."""
     from ..io.models import interval_words
+    from .las import las_value
 
     word = interval_words(models)[i]
     if not word:
@@ -72,7 +73,7 @@ def interval_params(models, i):
     text = str(models["interval_verdict"].values[i]) if "interval_verdict" in models else ""
     return [("INTV", "", word.upper(), "Verdict on the posterior intervals: CONVERGED "
              "UNCONVERGED UNUSABLE"),
-            ("INTVR", "", text.replace(":", " "), "Interval verdict in words and numbers")]
+            ("INTVR", "", las_value(text), "Interval verdict in words and numbers")]
 
 
 def interval_warning(params):
