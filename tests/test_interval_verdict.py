@@ -210,7 +210,7 @@ def test_figures_mark_unconverged_stations(run):
     ax1 = fig.axes[0]
     assert [c for c in ax1.collections if c.get_gid() == "verdict-columns"], "misfit not marked"
     assert "model not fitted (misfit)" in [t.get_text() for t in ax1.get_legend().get_texts()]
-    assert any("misfit chi2" in t.get_text() for t in ax1.texts)
+    assert any("misfit\nchi2" in t.get_text() for t in ax1.texts)
 
 
 def test_main_section_grid_and_figure_mark_unconverged(run):

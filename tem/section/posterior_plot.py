@@ -89,7 +89,7 @@ def posterior_section_figure(models, settings, title=None):
     ax1.legend(fontsize=7, loc="upper center", bbox_to_anchor=(0.5, -0.03), ncols=3,
                framealpha=0.9)
     ax1.set_title(title or "posterior P50 resistivity (few-layer models)",
-                  pad=14 + 10 * (any(qc) + any(fit)))   # room for station names of 2-3 lines
+                  pad=14 + 10 * (any(qc) + 2 * any(fit)))   # room for station names of 2-4 lines
     ax2.set_title("posterior spread: log10(P90 / P10) of resistivity")
     from .plot import without_model_caption
     missing = without_model_caption(models)
@@ -127,7 +127,9 @@ def _mark_fit_verdicts(axes, models, idx, sd, scale, yrange, xrange):
     every = model_verdicts(models)
     chi2 = models["chi2"].values.astype(float)
     vs = [(every[i], chi2[i]) for i in idx]
-    words = ["" if v is None or v["status"] == "fitted" else f"{v['status']} chi2 {c:.1f}"
+    # status and chi2 on lines of their own: "parameter-at-bound chi2 0.7" on one line ran
+    # into the next station's name
+    words = ["" if v is None or v["status"] == "fitted" else f"{v['status']}\nchi2 {c:.1f}"
              for v, c in vs]
     cls = [0 if not w else (1 if v["status"] in FAILURES else 2) for w, (v, _) in zip(words, vs)]
     _hatch(axes, cls, sd, scale, yrange, xrange, "verdict-columns")
