@@ -11,7 +11,8 @@ off by up to 46 times the truth, with error bars 6 times too small, under
    with the baseline and the first stack (signed per window) taken out, the
    power of the fundamental summed over the blocks, sum_b |sum_t r_b(t)
    exp(-2 pi i f t)|^2, is scanned over f within ``span`` of the nominal
-   frequency (5 mHz steps, then 0.2 mHz around the best), and likewise near
+   frequency (a zero-padded FFT, then direct sums around its best bin; a line
+   to remove gets its frequency from its phase across the record), and likewise near
    the other grid frequency (60 Hz on a 50 Hz survey, 50 on a 60: a
    generator, a neighbouring network). Each block keeps its own phase, so a
    mains whose phase wanders is still one line.
@@ -19,7 +20,7 @@ off by up to 46 times the truth, with error bars 6 times too small, under
    nominal and explains at least ``min_share`` of the residual's energy (its
    power over (N/2) sum r^2 for N samples a block: 1 for a pure sinusoid, about
    2/N for white noise): mains on its nominal frequency is left to the nulls.
-3. **Remove.** Over the whole record, in segments of about 40 s, the
+3. **Remove.** Over the whole record, in segments of about 80 s, the
    amplitudes of the fundamental and its harmonics below Nyquist at the found
    frequency are fitted by least squares (each segment its own amplitudes and
    phases: the mains' level and phase may wander), jointly with the transient
@@ -118,7 +119,8 @@ def find_mains_line(read, n_windows, m, fs, means, stack, polarity0, nominal, cl
         remove = bool(abs(f - f0) > min_offset and share >= min_share)
         if remove:      # a line to remove: its frequency from the phase across the record
             f = _coherent(r, starts * m / fs, t, f, fine[1] - fine[0])
-        out.append(MainsLine(f, share, bool(abs(f - f0) > min_offset and share >= min_share)))
+            remove = abs(f - f0) > min_offset
+        out.append(MainsLine(f, share, remove))
     return out if many else out[0]
 
 
@@ -126,14 +128,15 @@ def _coherent(r, t0, t, f, width):
     """The frequency near ``f`` that maximises the coherent power |sum_b z_b|^2 of the blocks
     ``r`` (starting at ``t0`` s in the record): a block's own phase no longer free, the peak
     is as narrow as the record is long (40-s fit segments need the frequency to about
-    1e-4 Hz: 5e-4 Hz off left 0.3 V of 50.01 Hz mains 40 times above the noise)."""
-    for span, n in ((2 * width, 101), (None, 41)):
-        if span is None:
-            span = 4.0 * (grid[1] - grid[0])
+    1e-4 Hz: 5e-4 Hz off left 0.3 V of 50.01 Hz mains 40 times above the noise).
+    Two passes: 101 points over +-2 ``width``, then 41 over +-4 of those points' spacing."""
+    span = 2.0 * width
+    for n in (101, 41):
         grid = f + np.linspace(-span, span, n)
         z = r @ np.exp(-2j * np.pi * np.outer(t, grid))              # (blocks, grid)
         z *= np.exp(-2j * np.pi * np.outer(t0, grid))
         f = float(grid[int(np.argmax(np.abs(z.sum(axis=0)) ** 2))])
+        span = 4.0 * (grid[1] - grid[0])
     return f
 
 
@@ -188,13 +191,24 @@ def _segments(n_windows, length):
     return [tuple(x) for x in segs]
 
 
+def _harmonics(frequency, fs, m, n_windows):
+    """Harmonics of ``frequency`` below Nyquist, by their distance to the nearest transmitter
+    line: ``far`` (``MIN_SEPARATION`` or more: fitted in segments), ``near`` (told apart only
+    over the whole record) and ``on`` (closer than 1 / record length: never)."""
+    fb = fs / (2.0 * m)
+    floor = 1.0 / (n_windows * m / fs)
+    out = {"far": [], "near": [], "on": []}
+    for h in range(1, HARMONICS + 1):
+        if h * frequency < 0.5 * fs:
+            sep = _separation(h * frequency, fb)
+            out["far" if sep >= MIN_SEPARATION else "near" if sep >= floor else "on"].append(h)
+    return {k: tuple(v) for k, v in out.items()}
+
+
 def near_harmonics(frequency, fs, m, n_windows):
     """Harmonics of ``frequency`` (below Nyquist) within ``MIN_SEPARATION`` of a transmitter
     line but at least 1 / record length from it: told apart only over the whole record."""
-    fb = fs / (2.0 * m)
-    floor = 1.0 / (n_windows * m / fs)
-    return tuple(h for h in range(1, HARMONICS + 1) if h * frequency < 0.5 * fs
-                 and floor <= _separation(h * frequency, fb) < MIN_SEPARATION)
+    return _harmonics(frequency, fs, m, n_windows)["near"]
 
 
 def fit_removal(read, n_windows, m, fs, means, stack, polarity0, frequency,
@@ -204,7 +218,7 @@ def fit_removal(read, n_windows, m, fs, means, stack, polarity0, frequency,
 
     A sinusoid is told apart from the transmitter's response (lines at odd multiples of
     the base frequency f_b) only over a segment long against the inverse of their
-    distance: segments last 4 / ``MIN_SEPARATION`` s (40 s; over shorter ones the fit
+    distance: segments last 4 / ``MIN_SEPARATION`` s (80 s; over 4-s ones the fit
     took the leaked mains for signal and put it back: gates stayed 40 times off), and a
     harmonic that falls within ``MIN_SEPARATION`` of such a line (50.05 x 5 = 250.25 =
     1001 x 0.25 Hz) is left out here (``harmonics`` None; :func:`near_harmonics` are fitted
@@ -215,9 +229,8 @@ def fit_removal(read, n_windows, m, fs, means, stack, polarity0, frequency,
     record less that mains.
     """
     fb = fs / (2.0 * m)
-    hs = tuple(h for h in range(1, HARMONICS + 1) if h * frequency < 0.5 * fs
-               and _separation(h * frequency, fb) >= MIN_SEPARATION) \
-        if harmonics is None else tuple(harmonics)
+    hs = _harmonics(frequency, fs, m, n_windows)["far"] if harmonics is None \
+        else tuple(harmonics)
     length = n_windows if whole else max(2, 2 * int(math.ceil(4.0 / MIN_SEPARATION * fb)))
     segs = _segments(n_windows, length)
     rem = MainsRemoval(float(frequency), m, float(fs), segs, hs,
@@ -275,17 +288,13 @@ def on_line(removals, stack, error, fs, m, n_windows, ratio=5.0):
     mains was removed). It shows as a sinusoid in the stack's second half, where a decay is
     smooth: its amplitude there, by least squares, over ``ratio`` times the median error.
     """
-    fb = fs / (2.0 * m)
-    floor = 1.0 / (n_windows * m / fs)
     t = np.arange(m) / fs
     half = slice(m // 2, m)
     noise = float(np.median(error[half])) if np.isfinite(error[half]).any() else 0.0
     worst, found = 0.0, float("nan")
     for r in removals:
-        for h in range(1, HARMONICS + 1):
+        for h in _harmonics(r.frequency, fs, m, n_windows)["on"]:
             f = h * r.frequency
-            if f >= 0.5 * fs or _separation(f, fb) >= floor:
-                continue
             b = np.column_stack([np.cos(2 * np.pi * f * t[half]), np.sin(2 * np.pi * f * t[half]),
                                  np.ones(m - m // 2), t[half]])
             c = np.linalg.lstsq(b, np.nan_to_num(stack[half]), rcond=None)[0]
