@@ -241,6 +241,19 @@ def _duration(minutes):
     return f"{minutes / 1440:.3g} days"
 
 
+def _mains_cause(m, s) -> str:
+    """" with mains 0.3 V at the logger (12 % of full scale)" when the mains is at least a
+    fifth of ``mains_check`` of full scale, else "": a likely cause of noise or rejected
+    periods, named (mains whose level or phase wanders between periods is not cancelled by
+    the three-window estimate; an independent review found 24-31 % of periods rejected, and
+    noise floors 100 times the median, under 0.3 V of mains with no word of it)."""
+    fs = m.full_scale
+    if np.isfinite(m.mains) and np.isfinite(fs) and fs > 0 and \
+            m.mains >= 0.2 * s.mains_check * fs:
+        return f" with mains {m.mains:.2g} V at the logger ({_pct(m.mains / fs)} of full scale)"
+    return ""
+
+
 def _channel_rules(m, med, s):
     """(reoccupy reasons, check reasons, extra minutes) of one channel."""
     re, ck, extra = [], [], 0.0
@@ -276,13 +289,9 @@ def _channel_rules(m, med, s):
             minutes, how = _extra_for_noise(m, r, s)
             tail = f"{whole_minutes(minutes)} min more to reach the median" \
                 if np.isfinite(minutes) else ""
-            fs = m.full_scale
-            mains = (f" with mains {m.mains:.2g} V at the logger (the stack cancels mains only "
-                     "at the survey's exact frequency)"
-                     if np.isfinite(m.mains) and np.isfinite(fs) and fs > 0
-                     and m.mains >= 0.2 * s.mains_check * fs else "")
             re.append(f"{c} noise floor {r:.1f}x the {label} median ({m.noise_floor:.2g} against "
-                      f"{noise_med:.2g} {m.unit}){mains}; {how}" + (f": {tail}" if tail else ""))
+                      f"{noise_med:.2g} {m.unit}){_mains_cause(m, s)}; {how}"
+                      + (f": {tail}" if tail else ""))
             extra = max(extra, minutes) if np.isfinite(minutes) else float("nan")
     if np.isfinite(m.last_usable) and np.isfinite(lu_med) and \
             m.last_usable < s.last_usable_ratio * lu_med:
@@ -326,14 +335,7 @@ def _channel_rules(m, med, s):
     def rejected():
         text = (f"{c} {_pct(rej)} of periods rejected ({m.rejected_noisy} noisy, "
                 f"{m.rejected_bad} with bad samples)")
-        fs = m.full_scale
-        if np.isfinite(m.mains) and np.isfinite(fs) and fs > 0 and m.mains >= 0.2 * \
-                s.mains_check * fs:
-            # a likely cause, named: mains whose level or phase wanders between periods is
-            # not cancelled by the three-window estimate (an independent review found 24-31 %
-            # rejected under 0.3 V of mains with no word of it)
-            text += f" with mains {m.mains:.2g} V at the logger ({_pct(m.mains / fs)} of full scale)"
-        return text
+        return text + _mains_cause(m, s)
 
     # a record too short to stack has no statistics to reject periods or spikes by (3
     # estimates of clean noise read as 5 % spikes): its shortness is the reason given
